@@ -1,0 +1,212 @@
+"""The `kinetab` command line: thin click commands over pure functions (DESIGN §7)."""
+
+from __future__ import annotations
+
+import json
+import math
+import sys
+from importlib import resources
+from pathlib import Path
+from typing import Any
+
+import click
+
+from generator import __version__, dynamics, envelope, model, stability, units
+from generator.errors import CheckFailed, UserError
+
+DEMO = "larkspur.toml"
+
+
+class QuantityType(click.ParamType):
+    """A click option value: any pint quantity of one kind; a bare number is in `bare_unit`."""
+
+    name = "quantity"
+
+    def __init__(self, kind: units.Kind, bare_unit: str) -> None:
+        self.kind, self.bare_unit = kind, bare_unit
+
+    def convert(self, value: Any, param: click.Parameter | None, ctx: click.Context | None) -> float:
+        if isinstance(value, float):
+            return value
+        text = str(value).strip()
+        try:
+            float(text)
+            text = f"{text} {self.bare_unit}"
+        except ValueError:
+            pass
+        try:
+            return units.parse(text, self.kind)
+        except ValueError:
+            self.fail(f"expected {self.kind.name} such as {self.kind.example}, found {value!r}", param, ctx)
+
+
+def open_model(path: str) -> model.Vehicle:
+    """Load, validate and stability-check a model file (raises ModelError)."""
+    vehicle = model.load(path)
+    stability.check(vehicle)
+    return vehicle
+
+
+@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(__version__, "--version", prog_name="kinetab")
+def cli() -> None:
+    """Vehicle model -> dynamics -> fixed-point feed-forward tables and C for drive controllers."""
+
+
+@cli.command()
+@click.argument("path", type=click.Path(dir_okay=False), default="vehicle.toml")
+@click.option("--force", is_flag=True, help="Overwrite PATH if it exists.")
+def init(path: str, force: bool) -> None:
+    """Write a commented starter model (an invented demo vehicle) to PATH."""
+    target = Path(path)
+    if target.exists() and not force:
+        raise UserError(f"{path}: file exists; pass --force to overwrite it")
+    text = resources.files("generator.demos").joinpath(DEMO).read_text(encoding="utf-8")
+    _write_atomically(target, text)
+    click.echo(f"wrote {path} (invented demo vehicle; edit every value for your own)")
+
+
+def _write_atomically(target: Path, text: str) -> None:
+    tmp = target.with_name(f".{target.name}.tmp")
+    try:
+        tmp.write_text(text, encoding="utf-8", newline="\n")
+        tmp.replace(target)
+    except OSError as exc:
+        tmp.unlink(missing_ok=True)
+        raise UserError(f"{target}: cannot write ({exc.strerror})") from None
+
+
+def _point_options(func):  # type: ignore[no-untyped-def]
+    specs = [
+        ("--payload", units.MASS, "kg", "Payload mass (bare number: kg)."),
+        ("--speed-right", units.SPEED, "m/s", "Right wheel rim speed (bare number: m/s)."),
+        ("--speed-left", units.SPEED, "m/s", "Left wheel rim speed (bare number: m/s)."),
+        ("--accel-right", units.ACCEL, "m/s**2", "Right wheel rim acceleration (bare number: m/s^2)."),
+        ("--accel-left", units.ACCEL, "m/s**2", "Left wheel rim acceleration (bare number: m/s^2)."),
+        ("--pitch", units.ANGLE, "deg", "Pitch, front up > 0 (bare number: deg)."),
+        ("--roll", units.ANGLE, "deg", "Roll, left side up > 0 (bare number: deg)."),
+    ]
+    for flag, kind, bare, text in reversed(specs):
+        func = click.option(flag, type=QuantityType(kind, bare), default="0", show_default=True, help=text)(func)
+    return func
+
+
+def predict_point(v: model.Vehicle, op: dynamics.OperatingPoint) -> dict[str, Any]:
+    """The predict JSON document (SI units) for one operating point; current_fixed filled later."""
+    right, left = dynamics.wheel_forces(v, op)
+    doc: dict[str, Any] = {
+        "mass_matrix": dynamics.mass_matrix(v, op.payload_kg).tolist(),
+        "inverse_mass_matrix": dynamics.inverse_mass_matrix(v, op.payload_kg).tolist(),
+    }
+    for name, side, speed in (("right", right, op.speed_right), ("left", left, op.speed_left)):
+        torque = dynamics.motor_torque(v, side.total, speed)
+        current = dynamics.motor_current(v, side.total, speed)
+        doc[name] = {
+            "force": {key: float(getattr(side, key)) for key in ("inertia", "coriolis", "friction", "rolling", "gravity", "total")},
+            "motor_torque": float(torque),
+            "current": float(current),
+            "voltage": float(dynamics.motor_voltage(v, current, speed)),
+            "current_fixed": None,
+        }
+    return doc
+
+
+@cli.command()
+@click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
+@_point_options
+@click.option("--json", "as_json", is_flag=True, help="Print JSON (SI units) instead of a table.")
+def predict(model_path: str, payload: float, speed_right: float, speed_left: float, accel_right: float,
+            accel_left: float, pitch: float, roll: float, as_json: bool) -> None:
+    """Evaluate the model at one operating point: forces, torque, current and voltage per wheel."""
+    v = open_model(model_path)
+    op = dynamics.OperatingPoint(payload, speed_right, speed_left, accel_right, accel_left, pitch, roll)
+    doc = predict_point(v, op)
+    if as_json:
+        click.echo(json.dumps(doc, indent=2))
+        return
+    click.echo(_predict_table(doc))
+
+
+def _predict_table(doc: dict[str, Any]) -> str:
+    lines = [f"{'':22}{'right':>12}{'left':>12}"]
+    for key in ("inertia", "coriolis", "friction", "rolling", "gravity", "total"):
+        lines.append(f"{'force ' + key + ' [N]':22}{doc['right']['force'][key]:12.4f}{doc['left']['force'][key]:12.4f}")
+    for key, unit in (("motor_torque", "N*m"), ("current", "A"), ("voltage", "V"), ("current_fixed", "A")):
+        cells = [doc[side][key] for side in ("right", "left")]
+        text = "".join(f"{x:12.4f}" if x is not None else f"{'-':>12}" for x in cells)
+        lines.append(f"{key + f' [{unit}]':22}{text}")
+    m, mi = doc["mass_matrix"], doc["inverse_mass_matrix"]
+    lines.append(f"{'M [kg]':22}[[{m[0][0]:.4f}, {m[0][1]:.4f}], [{m[1][0]:.4f}, {m[1][1]:.4f}]]")
+    lines.append(f"{'M^-1 [1/kg]':22}[[{mi[0][0]:.6f}, {mi[0][1]:.6f}], [{mi[1][0]:.6f}, {mi[1][1]:.6f}]]")
+    return "\n".join(lines)
+
+
+@cli.command("envelope")
+@click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
+@click.option("--json", "as_json", is_flag=True, help="Print JSON (SI units: rad, m/s^2, A, V).")
+def envelope_cmd(model_path: str, as_json: bool) -> None:
+    """Gradeability, acceleration on pitch_max and peak current/voltage; exit 1 if infeasible."""
+    v = open_model(model_path)
+    rep = envelope.analyse(v)
+    click.echo(json.dumps(_envelope_doc(rep), indent=2) if as_json else _envelope_table(v, rep))
+    if not rep.feasible:
+        raise CheckFailed(f"{model_path}: envelope infeasible: {rep.problems[0]}")
+
+
+def _envelope_doc(rep: envelope.EnvelopeReport) -> dict[str, Any]:
+    return {
+        "feasible": rep.feasible,
+        "payloads": [{"payload": r.payload_kg, "hold_pitch": r.hold_pitch_rad, "climb_pitch": r.climb_pitch_rad,
+                      "accel_on_pitch_max": r.accel_on_pitch_max_mps2} for r in rep.rows],
+        "peak_current": {"value": rep.peak_current.value, "where": rep.peak_current.where},
+        "peak_voltage": {"value": rep.peak_voltage.value, "where": rep.peak_voltage.where},
+        "peak_traction": {"value": rep.peak_traction.value, "where": rep.peak_traction.where},
+        "problems": rep.problems,
+    }
+
+
+def _deg(rad: float) -> str:
+    return "   none" if rad < 0 else f"{math.degrees(rad):7.2f}"
+
+
+def _envelope_table(v: model.Vehicle, rep: envelope.EnvelopeReport) -> str:
+    env = v.envelope
+    lines = [f"envelope of '{v.name}': speed_max {env.speed_max_mps:g} m/s, accel_max {env.accel_max_mps2:g} m/s^2, "
+             f"pitch_max {math.degrees(env.pitch_max_rad):g} deg, roll_max {math.degrees(env.roll_max_rad):g} deg",
+             "", f"{'payload':>9} {'hold pitch':>11} {'climb pitch':>12} {'accel on':>10}",
+             f"{'[kg]':>9} {'[deg]':>11} {'[deg]':>12} {'pitch_max':>10}"]
+    for r in rep.rows:
+        acc = "   none" if r.accel_on_pitch_max_mps2 < 0 else f"{r.accel_on_pitch_max_mps2:7.3f}"
+        lines.append(f"{r.payload_kg:9.2f} {_deg(r.hold_pitch_rad):>11} {_deg(r.climb_pitch_rad):>12} {acc:>10}")
+    lines += ["", "hold: standing still either way at roll_max; climb: at accel_max, 0..speed_max;",
+              "accel on pitch_max: m/s^2, straight climb; limits: current, grip, voltage, tipping.", "",
+              f"peak current  {rep.peak_current.value:8.2f} A  of {v.drive.current_limit_a:g} A   ({rep.peak_current.where})",
+              f"peak voltage  {rep.peak_voltage.value:8.2f} V  of {v.drive.supply_voltage_v:g} V   ({rep.peak_voltage.where})",
+              f"peak traction {rep.peak_traction.value:8.2f} of the grip limit ({rep.peak_traction.where})", ""]
+    lines.append("feasible" if rep.feasible else "INFEASIBLE: " + "; ".join(rep.problems))
+    return "\n".join(lines)
+
+
+def main(argv: list[str] | None = None) -> None:
+    """Console entry point: user mistakes print one line and exit 2, failed checks exit 1."""
+    debug = "--debug" in (argv if argv is not None else sys.argv[1:])
+    args = [a for a in (argv if argv is not None else sys.argv[1:]) if a != "--debug"]
+    try:
+        cli.main(args=args, prog_name="kinetab", standalone_mode=False)
+    except click.exceptions.Exit as exc:
+        sys.exit(exc.exit_code)
+    except click.exceptions.Abort:
+        click.echo("kinetab: aborted", err=True)
+        sys.exit(130)
+    except click.UsageError as exc:
+        where = f"kinetab {exc.ctx.info_name}" if exc.ctx and exc.ctx.info_name != "kinetab" else "kinetab"
+        click.echo(f"{where}: {exc.format_message()}".replace("\n", " "), err=True)
+        sys.exit(2)
+    except click.ClickException as exc:
+        click.echo(f"kinetab: {exc.format_message()}", err=True)
+        sys.exit(exc.exit_code)
+    except (UserError, CheckFailed) as exc:
+        if debug:
+            raise
+        click.echo(str(exc), err=True)
+        sys.exit(exc.exit_code)

@@ -1,0 +1,1 @@
+"""Bundled demo models (invented scenarios), handed out by `kinetab init`."""

@@ -1,0 +1,229 @@
+"""Floating-point rigid-body dynamics of the vehicle in rim-distance wheel coordinates (DESIGN §4).
+
+Every function takes numpy-broadcastable arrays, so the same code evaluates one operating point for
+`predict` and a hundred thousand for the error analysis. Index 0 is the right wheel, 1 the left.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+
+from generator.model import Vehicle
+
+G_N = 9.80665  # standard gravity, m/s^2 (3rd CGPM 1901, exact)
+
+Array = NDArray[np.float64]
+
+
+@dataclass(frozen=True)
+class Combined:
+    """Body plus payload as one rigid body, SI units; fields broadcast with the payload array."""
+
+    mass_kg: Array
+    cog_ahead_m: Array
+    cog_height_m: Array
+    yaw_inertia_kgm2: Array  # about the vertical axis through P (Steiner)
+
+
+@dataclass(frozen=True)
+class OperatingPoint:
+    """One or many operating points: payload kg, rim speeds m/s, rim accelerations m/s^2, angles rad."""
+
+    payload_kg: ArrayLike
+    speed_right: ArrayLike
+    speed_left: ArrayLike
+    accel_right: ArrayLike
+    accel_left: ArrayLike
+    pitch_rad: ArrayLike
+    roll_rad: ArrayLike
+
+
+@dataclass(frozen=True)
+class WheelForces:
+    """Longitudinal force terms at one wheel's rim, N (DESIGN §4: Q = M q'' + V + F + R + G)."""
+
+    inertia: Array
+    coriolis: Array
+    friction: Array
+    rolling: Array
+    gravity: Array
+
+    @property
+    def total(self) -> Array:
+        return self.inertia + self.coriolis + self.friction + self.rolling + self.gravity
+
+
+def half_track(v: Vehicle) -> float:
+    return v.wheels.track_m / 2
+
+
+def wheel_radius(v: Vehicle) -> float:
+    return v.wheels.diameter_m / 2
+
+
+def combined(v: Vehicle, payload_kg: ArrayLike) -> Combined:
+    """Combine body and payload; yaw inertia about P by the parallel-axis theorem."""
+    p = np.asarray(payload_kg, dtype=float)
+    b, q = v.body, v.payload
+    m = b.mass_kg + p
+    c = (b.mass_kg * b.cog_ahead_m + p * q.cog_ahead_m) / m
+    h = (b.mass_kg * b.cog_height_m + p * q.cog_height_m) / m
+    inertia = b.mass_kg * (b.gyration_radius_m**2 + b.cog_ahead_m**2) + p * (
+        q.gyration_radius_m**2 + q.cog_ahead_m**2
+    )
+    return Combined(m, c, h, inertia)
+
+
+def reflected_mass(v: Vehicle) -> float:
+    """Equivalent rim mass of one wheel's rotation: J_wheel/r^2 + J_rotor*i^2/r^2, kg."""
+    r = wheel_radius(v)
+    return (v.wheels.inertia_kgm2 + v.drive.rotor_inertia_kgm2 * v.drive.gear_ratio**2) / r**2
+
+
+def mass_matrix_entries(v: Vehicle, payload_kg: ArrayLike) -> tuple[Array, Array]:
+    """The two unique entries (M11 = M22, M12 = M21) of the mass matrix, kg."""
+    body = combined(v, payload_kg)
+    b = half_track(v)
+    alpha = body.yaw_inertia_kgm2 / (body.mass_kg * b**2)
+    diag = body.mass_kg / 4 * (1 + alpha) + reflected_mass(v)
+    off = body.mass_kg / 4 * (1 - alpha)
+    return diag, off
+
+
+def mass_matrix(v: Vehicle, payload_kg: ArrayLike) -> Array:
+    """M (..., 2, 2), kg, rim-distance coordinates, right then left."""
+    d, o = mass_matrix_entries(v, payload_kg)
+    return np.stack([np.stack([d, o], -1), np.stack([o, d], -1)], -2)
+
+
+def inverse_mass_matrix_entries(v: Vehicle, payload_kg: ArrayLike) -> tuple[Array, Array]:
+    """The two unique entries of M^-1, 1/kg (closed form of a symmetric 2x2 inverse)."""
+    d, o = mass_matrix_entries(v, payload_kg)
+    det = d * d - o * o
+    return d / det, -o / det
+
+
+def inverse_mass_matrix(v: Vehicle, payload_kg: ArrayLike) -> Array:
+    d, o = inverse_mass_matrix_entries(v, payload_kg)
+    return np.stack([np.stack([d, o], -1), np.stack([o, d], -1)], -2)
+
+
+def coriolis(v: Vehicle, payload_kg: ArrayLike, speed_right: ArrayLike, speed_left: ArrayLike) -> tuple[Array, Array]:
+    """Centrifugal/Coriolis rim forces of an offset CoG, N: V = -m c w^2/2 +- m c v w/(2b)."""
+    body = combined(v, payload_kg)
+    b = half_track(v)
+    ur, ul = np.asarray(speed_right, float), np.asarray(speed_left, float)
+    vel, omega = (ur + ul) / 2, (ur - ul) / (2 * b)
+    mc = body.mass_kg * body.cog_ahead_m
+    common = -0.5 * mc * omega**2
+    turn = mc * vel * omega / (2 * b)
+    return common + turn, common - turn
+
+
+def deadband_shape(v: Vehicle, speed: ArrayLike) -> Array:
+    """s(u): 'ramp' sign(u)*min(1, |u|/deadband); 'gap' sign(u)*[|u| > deadband]."""
+    u = np.asarray(speed, dtype=float)
+    db = v.friction.deadband_mps
+    if v.friction.deadband_shape == "ramp":
+        return np.sign(u) * np.minimum(1.0, np.abs(u) / db)
+    return np.sign(u) * (np.abs(u) > db)
+
+
+def drivetrain_friction(v: Vehicle, speed: ArrayLike) -> Array:
+    """F(u) = [F_c + (F_s - F_c) exp(-(u/v_s)^2)] s(u) + b_v u per wheel at the rim, N."""
+    u = np.asarray(speed, dtype=float)
+    f = v.friction
+    level = f.coulomb_n + (f.breakaway_n - f.coulomb_n) * np.exp(-((u / f.stribeck_speed_mps) ** 2))
+    return level * deadband_shape(v, u) + f.viscous_ns_per_m * u
+
+
+def wheel_loads(v: Vehicle, payload_kg: ArrayLike, pitch_rad: ArrayLike, roll_rad: ArrayLike) -> tuple[Array, Array]:
+    """Static normal loads (both drive wheels together, all casters together), N.
+
+    Moments about the caster contact line; dynamic load transfer from acceleration is neglected.
+    """
+    body = combined(v, payload_kg)
+    th, ph = np.asarray(pitch_rad, float), np.asarray(roll_rad, float)
+    lc = v.casters.behind_axle_m
+    weight = body.mass_kg * G_N
+    upright = np.cos(th) * np.cos(ph)
+    drive = weight * (upright * (body.cog_ahead_m + lc) - np.sin(th) * body.cog_height_m) / lc
+    return drive, weight * upright - drive
+
+
+def rolling_resistance(v: Vehicle, payload_kg: ArrayLike, pitch_rad: ArrayLike, roll_rad: ArrayLike,
+                       speed: ArrayLike) -> Array:
+    """Per drive wheel: (C_rr,wheel N_drive/2 + C_rr,caster N_caster/2) s(u), N.
+
+    Half of the casters' resistance is referred to each drive wheel and shaped by that wheel's speed.
+    """
+    drive, caster = wheel_loads(v, payload_kg, pitch_rad, roll_rad)
+    level = v.wheels.rolling_resistance * drive / 2 + v.casters.rolling_resistance * caster / 2
+    return level * deadband_shape(v, speed)
+
+
+def gravity(v: Vehicle, payload_kg: ArrayLike, pitch_rad: ArrayLike, roll_rad: ArrayLike) -> tuple[Array, Array]:
+    """G_R,L = m g sin(theta)/2 +- (c/(2b)) m g cos(theta) sin(phi), N."""
+    body = combined(v, payload_kg)
+    th, ph = np.asarray(pitch_rad, float), np.asarray(roll_rad, float)
+    weight = body.mass_kg * G_N
+    slope = 0.5 * weight * np.sin(th)
+    side = body.cog_ahead_m / (2 * half_track(v)) * weight * np.cos(th) * np.sin(ph)
+    return slope + side, slope - side
+
+
+def wheel_forces(v: Vehicle, op: OperatingPoint) -> tuple[WheelForces, WheelForces]:
+    """All force terms at both wheels for the operating point(s)."""
+    d, o = mass_matrix_entries(v, op.payload_kg)
+    ar, al = np.asarray(op.accel_right, float), np.asarray(op.accel_left, float)
+    vr, vl = coriolis(v, op.payload_kg, op.speed_right, op.speed_left)
+    gr, gl = gravity(v, op.payload_kg, op.pitch_rad, op.roll_rad)
+    sides = []
+    for inertia, cor, grav, speed in ((d * ar + o * al, vr, gr, op.speed_right), (o * ar + d * al, vl, gl, op.speed_left)):
+        sides.append(WheelForces(
+            inertia=np.asarray(inertia, float), coriolis=np.asarray(cor, float),
+            friction=drivetrain_friction(v, speed),
+            rolling=rolling_resistance(v, op.payload_kg, op.pitch_rad, op.roll_rad, speed),
+            gravity=np.asarray(grav, float)))
+    return sides[0], sides[1]
+
+
+def motor_torque(v: Vehicle, force: ArrayLike, speed: ArrayLike) -> Array:
+    """Motor torque, N*m: Q r/(i eta) when Q*u >= 0 (motoring, standstill), Q r eta_back/i otherwise."""
+    q, u = np.asarray(force, float), np.asarray(speed, float)
+    r, i = wheel_radius(v), v.drive.gear_ratio
+    motoring = q * u >= 0
+    return np.where(motoring, q * r / (i * v.drive.efficiency), q * r * v.drive.backdrive_efficiency / i)
+
+
+def motor_current(v: Vehicle, force: ArrayLike, speed: ArrayLike) -> Array:
+    """Motor current, A: I = tau_m / k_t."""
+    return motor_torque(v, force, speed) / v.drive.torque_constant_nm_per_a
+
+
+def motor_voltage(v: Vehicle, current: ArrayLike, speed: ArrayLike) -> Array:
+    """Terminal voltage, V: U = R_w I + k_t omega_m with omega_m = i u / r (k_e = k_t in SI)."""
+    omega_m = v.drive.gear_ratio * np.asarray(speed, float) / wheel_radius(v)
+    return v.drive.winding_resistance_ohm * np.asarray(current, float) + v.drive.torque_constant_nm_per_a * omega_m
+
+
+def force_from_current(v: Vehicle, current: ArrayLike, speed: ArrayLike) -> Array:
+    """Rim force from a measured motor current, N: the inverse of motor_current (same direction rule)."""
+    i_m, u = np.asarray(current, float), np.asarray(speed, float)
+    r, i = wheel_radius(v), v.drive.gear_ratio
+    torque = i_m * v.drive.torque_constant_nm_per_a
+    motoring = i_m * u >= 0
+    return np.where(motoring, torque * i * v.drive.efficiency / r, torque * i / (r * v.drive.backdrive_efficiency))
+
+
+def forward_accel(v: Vehicle, op: OperatingPoint, force_right: ArrayLike, force_left: ArrayLike) -> tuple[Array, Array]:
+    """Forward dynamics: rim accelerations q'' = M^-1 (Q - V - F - R - G), m/s^2 (op's accels unused)."""
+    zero = OperatingPoint(op.payload_kg, op.speed_right, op.speed_left, 0.0, 0.0, op.pitch_rad, op.roll_rad)
+    right, left = wheel_forces(v, zero)
+    rest_r = np.asarray(force_right, float) - right.total
+    rest_l = np.asarray(force_left, float) - left.total
+    d, o = inverse_mass_matrix_entries(v, op.payload_kg)
+    return d * rest_r + o * rest_l, o * rest_r + d * rest_l

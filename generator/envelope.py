@@ -1,0 +1,159 @@
+"""Operating envelope: gradeability, acceleration on the steepest pitch, peak current and voltage.
+
+Traction demand at a contact is the rim force less what stays inside the wheel (drivetrain friction
+and the reflected wheel/rotor inertia); the traction limit per wheel is grip * N_drive / 2.
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from generator import dynamics
+from generator.dynamics import OperatingPoint
+from generator.model import Vehicle
+
+PAYLOAD_STEPS = 5  # empty, quarter, half, three quarters, full
+PITCH_CEILING = math.radians(44.9)
+
+
+@dataclass(frozen=True)
+class Margins:
+    """Worst use of each limit over a set of operating points: 1.0 means exactly at the limit."""
+
+    current: np.ndarray
+    traction: np.ndarray
+    voltage: np.ndarray
+    tipping: np.ndarray  # > 0 when a wheel or caster load is <= 0
+
+    def ok(self) -> np.ndarray:
+        return (self.current <= 1) & (self.traction <= 1) & (self.voltage <= 1) & (self.tipping <= 0)
+
+
+@dataclass(frozen=True)
+class PayloadRow:
+    payload_kg: float
+    hold_pitch_rad: float
+    climb_pitch_rad: float
+    accel_on_pitch_max_mps2: float
+
+
+@dataclass(frozen=True)
+class Peak:
+    value: float
+    where: str
+
+
+@dataclass(frozen=True)
+class EnvelopeReport:
+    rows: list[PayloadRow]
+    peak_current: Peak
+    peak_voltage: Peak
+    peak_traction: Peak  # fraction of the grip limit used
+    problems: list[str] = field(default_factory=list)
+
+    @property
+    def feasible(self) -> bool:
+        return not self.problems
+
+
+def margins(v: Vehicle, op: OperatingPoint) -> tuple[Margins, Margins]:
+    """Per-wheel limit use (current, traction, voltage, tipping) at the operating points."""
+    right, left = dynamics.wheel_forces(v, op)
+    drive_load, caster_load = dynamics.wheel_loads(v, op.payload_kg, op.pitch_rad, op.roll_rad)
+    grip_limit = v.wheels.grip * np.maximum(drive_load, 0.0) / 2
+    tip = np.maximum(-np.minimum(drive_load, caster_load), 0.0) + (np.minimum(drive_load, caster_load) <= 0)
+    out = []
+    for side, speed, accel in ((right, op.speed_right, op.accel_right), (left, op.speed_left, op.accel_left)):
+        current = dynamics.motor_current(v, side.total, speed)
+        voltage = dynamics.motor_voltage(v, current, speed)
+        contact = side.total - side.friction - dynamics.reflected_mass(v) * np.asarray(accel, float)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            traction = np.where(grip_limit > 0, np.abs(contact) / grip_limit, np.inf)
+        out.append(Margins(np.abs(current) / v.drive.current_limit_a, traction,
+                           np.abs(voltage) / v.drive.supply_voltage_v, tip))
+    return out[0], out[1]
+
+
+def _straight(v: Vehicle, payload: float, pitch: float, roll: np.ndarray, accel: float, speeds: np.ndarray) -> bool:
+    """True when driving straight at every speed and roll given stays within all limits."""
+    s, r = np.meshgrid(speeds, roll)
+    op = OperatingPoint(payload, s, s, accel, accel, pitch, r)
+    return all(bool(np.all(m.ok())) for m in margins(v, op))
+
+
+def _largest(ok, hi: float, iterations: int = 40) -> float:
+    """Largest x in [0, hi] with ok(x), assuming ok is monotone; 0 when even ok(0) fails (returns -1)."""
+    if not ok(0.0):
+        return -1.0
+    if ok(hi):
+        return hi
+    lo = 0.0
+    for _ in range(iterations):
+        mid = (lo + hi) / 2
+        lo, hi = (mid, hi) if ok(mid) else (lo, mid)
+    return lo
+
+
+def _speed_sweep(v: Vehicle) -> np.ndarray:
+    db = v.friction.deadband_mps
+    return np.unique(np.concatenate([np.linspace(0, v.envelope.speed_max_mps, 41), [db, 1.001 * db]]))
+
+
+def payload_row(v: Vehicle, payload: float) -> PayloadRow:
+    env = v.envelope
+    roll = np.array([-env.roll_max_rad, 0.0, env.roll_max_rad])
+    speeds = _speed_sweep(v)
+    hold = _largest(lambda th: _straight(v, payload, th, roll, 0.0, np.array([0.0]))
+                    and _straight(v, payload, -th, roll, 0.0, np.array([0.0])), PITCH_CEILING)
+    climb = _largest(lambda th: _straight(v, payload, th, roll, env.accel_max_mps2, speeds), PITCH_CEILING)
+    accel = _largest(lambda a: _straight(v, payload, env.pitch_max_rad, roll, a, speeds), 50.0)
+    return PayloadRow(payload, hold, climb, accel)
+
+
+def _corners(v: Vehicle) -> tuple[OperatingPoint, list[tuple[float, ...]]]:
+    env, db = v.envelope, v.friction.deadband_mps
+    speeds = (-env.speed_max_mps, -db, 0.0, db, env.speed_max_mps)
+    accels = (-env.accel_max_mps2, 0.0, env.accel_max_mps2)
+    pitches = (-env.pitch_max_rad, 0.0, env.pitch_max_rad)
+    rolls = (-env.roll_max_rad, 0.0, env.roll_max_rad)
+    pts = list(itertools.product((0.0, v.payload.mass_max_kg), speeds, speeds, accels, accels, pitches, rolls))
+    cols = np.array(pts).T
+    return OperatingPoint(*cols), pts
+
+
+def _describe(pt: tuple[float, ...], wheel: str) -> str:
+    p, sr, sl, ar, al, th, ph = pt
+    return (f"{wheel} wheel at payload {p:g} kg, speed {sr:+.3g}/{sl:+.3g} m/s, accel {ar:+.3g}/{al:+.3g} m/s^2, "
+            f"pitch {math.degrees(th):+.2f} deg, roll {math.degrees(ph):+.2f} deg")
+
+
+def _peak(values: tuple[np.ndarray, np.ndarray], pts: list[tuple[float, ...]]) -> tuple[float, str]:
+    k_r, k_l = int(np.argmax(values[0])), int(np.argmax(values[1]))
+    if values[0][k_r] >= values[1][k_l]:
+        return float(values[0][k_r]), _describe(pts[k_r], "right")
+    return float(values[1][k_l]), _describe(pts[k_l], "left")
+
+
+def analyse(v: Vehicle) -> EnvelopeReport:
+    """Rows per payload plus peak current/voltage/traction over the envelope corners."""
+    rows = [payload_row(v, float(p)) for p in np.linspace(0, v.payload.mass_max_kg, PAYLOAD_STEPS)]
+    op, pts = _corners(v)
+    mr, ml = margins(v, op)
+    cur, cur_at = _peak((mr.current, ml.current), pts)
+    volt, volt_at = _peak((mr.voltage, ml.voltage), pts)
+    trac, trac_at = _peak((mr.traction, ml.traction), pts)
+    problems = []
+    if cur > 1:
+        problems.append(f"current {cur * v.drive.current_limit_a:.2f} A exceeds drive.current_limit "
+                        f"{v.drive.current_limit_a:g} A ({cur_at})")
+    if volt > 1:
+        problems.append(f"voltage {volt * v.drive.supply_voltage_v:.2f} V exceeds drive.supply_voltage "
+                        f"{v.drive.supply_voltage_v:g} V ({volt_at})")
+    if trac > 1:
+        problems.append(f"traction demand {trac:.2f} x the grip limit: the wheel slips ({trac_at})")
+    return EnvelopeReport(rows, Peak(cur * v.drive.current_limit_a, cur_at),
+                          Peak(volt * v.drive.supply_voltage_v, volt_at), Peak(trac, trac_at), problems)

@@ -1,0 +1,44 @@
+"""Static stability: every wheel and caster keeps a positive load over payload x pitch x roll."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from generator import dynamics
+from generator.errors import ModelError
+from generator.model import Vehicle
+
+
+def _grid(v: Vehicle) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Payload, pitch and roll corners and a dense pitch sweep (loads are linear in payload)."""
+    payload = np.linspace(0.0, v.payload.mass_max_kg, 5)
+    pitch = np.linspace(-v.envelope.pitch_max_rad, v.envelope.pitch_max_rad, 41)
+    roll = np.array([-v.envelope.roll_max_rad, 0.0, v.envelope.roll_max_rad])
+    return tuple(a.ravel() for a in np.meshgrid(payload, pitch, roll, indexing="ij"))  # type: ignore[return-value]
+
+
+def lateral_margin(v: Vehicle, payload_kg: np.ndarray, roll_rad: np.ndarray) -> np.ndarray:
+    """b cos(phi) - h sin(phi), m: > 0 while the CoG stays inside the drive-wheel track sideways."""
+    h = dynamics.combined(v, payload_kg).cog_height_m
+    return dynamics.half_track(v) * np.cos(roll_rad) - h * np.abs(np.sin(roll_rad))
+
+
+def check(v: Vehicle) -> None:
+    """Raise ModelError naming the first payload/pitch/roll where a load is <= 0 (the vehicle tips)."""
+    p, th, ph = _grid(v)
+    drive, caster = dynamics.wheel_loads(v, p, th, ph)
+    side = lateral_margin(v, p, ph)
+    for values, what in ((drive, "drive-wheel load"), (caster, "caster load")):
+        bad = np.flatnonzero(values <= 0)
+        if bad.size:
+            k = bad[np.argmin(values[bad])]
+            raise ModelError(v.source, "envelope.pitch_max", "positive wheel and caster loads over the envelope",
+                             f"{what} {values[k]:.1f} N at payload {p[k]:g} kg, pitch {math.degrees(th[k]):+.2f} deg, "
+                             f"roll {math.degrees(ph[k]):+.2f} deg (the vehicle tips)")
+    bad = np.flatnonzero(side <= 0)
+    if bad.size:
+        k = bad[np.argmin(side[bad])]
+        raise ModelError(v.source, "envelope.roll_max", "a roll the vehicle can stand on sideways",
+                         f"centre of gravity outside the track at payload {p[k]:g} kg, roll {math.degrees(ph[k]):+.2f} deg")
