@@ -192,7 +192,9 @@ def main(argv: list[str] | None = None) -> None:
     debug = "--debug" in (argv if argv is not None else sys.argv[1:])
     args = [a for a in (argv if argv is not None else sys.argv[1:]) if a != "--debug"]
     try:
-        cli.main(args=args, prog_name="kinetab", standalone_mode=False)
+        code = cli.main(args=args, prog_name="kinetab", standalone_mode=False)
+        if isinstance(code, int) and code != 0:
+            sys.exit(code)
     except click.exceptions.Exit as exc:
         sys.exit(exc.exit_code)
     except click.exceptions.Abort:

@@ -1,0 +1,81 @@
+"""Test helpers: the demo model as a dict, TOML writing, random valid vehicles."""
+
+from __future__ import annotations
+
+import json
+import tomllib
+from importlib import resources
+from pathlib import Path
+from typing import Any
+
+from generator import model
+
+DEMO_PATH = Path(str(resources.files("generator.demos").joinpath("larkspur.toml")))
+
+
+def demo_doc() -> dict[str, Any]:
+    """The bundled demo model as a parsed TOML dict (a fresh copy each call)."""
+    return tomllib.loads(DEMO_PATH.read_text(encoding="utf-8"))
+
+
+def to_toml(doc: dict[str, Any]) -> str:
+    """Write a flat model dict as TOML (strings JSON-quoted: valid TOML basic strings)."""
+    lines = []
+    for key, value in doc.items():
+        if not isinstance(value, dict):
+            lines.append(f"{key} = {_value(value)}")
+    for key, value in doc.items():
+        if isinstance(value, dict):
+            lines.append(f"\n[{key}]")
+            lines += [f"{k} = {_value(v)}" for k, v in value.items()]
+    return "\n".join(lines) + "\n"
+
+
+def _value(v: Any) -> str:
+    if isinstance(v, bool):
+        return str(v).lower()
+    if isinstance(v, float) and v != v:
+        return "nan"
+    if isinstance(v, float) and abs(v) == float("inf"):
+        return "inf" if v > 0 else "-inf"
+    return json.dumps(v)
+
+
+def write_model(tmp_path: Path, doc: dict[str, Any], name: str = "model.toml") -> Path:
+    path = tmp_path / name
+    path.write_text(to_toml(doc), encoding="utf-8")
+    return path
+
+
+def vehicle_from(doc: dict[str, Any]) -> model.Vehicle:
+    return model.parse_document(doc, "<test>")
+
+
+def random_doc(draw_float, shape: str = "ramp") -> dict[str, Any]:
+    """A demo-shaped model with random values; `draw_float(lo, hi)` supplies the numbers.
+
+    Casters sit behind the axle and both CoGs between axle and casters, so most draws stand stably.
+    """
+    doc = demo_doc()
+    caster = draw_float(0.25, 0.8)
+    doc["body"].update(mass=f"{draw_float(8, 300)} kg", cog_ahead=f"{-draw_float(0.25, 0.6) * caster} m",
+                       cog_height=f"{draw_float(0.05, 0.4)} m", gyration_radius=f"{draw_float(0.05, 0.5)} m")
+    doc["payload"].update(mass_max=f"{draw_float(1, 300)} kg", cog_ahead=f"{-draw_float(0.25, 0.6) * caster} m",
+                          cog_height=f"{draw_float(0.05, 0.6)} m", gyration_radius=f"{draw_float(0.0, 0.5)} m")
+    doc["wheels"].update(track=f"{draw_float(0.3, 0.9)} m", diameter=f"{draw_float(0.06, 0.4)} m",
+                         inertia=f"{draw_float(0, 0.02)} kg*m^2", rolling_resistance=draw_float(0, 0.05),
+                         grip=draw_float(0.3, 1.2))
+    doc["casters"].update(behind_axle=f"{caster} m", rolling_resistance=draw_float(0, 0.05))
+    eff = draw_float(0.5, 1.0)
+    doc["drive"].update(gear_ratio=draw_float(3, 60), efficiency=eff, backdrive_efficiency=draw_float(0.4, 1.0),
+                        rotor_inertia=f"{draw_float(0, 1e-4)} kg*m^2",
+                        torque_constant=f"{draw_float(0.01, 0.5)} N*m/A",
+                        winding_resistance=f"{draw_float(0.05, 3)} ohm")
+    coulomb = draw_float(0, 20)
+    speed_max = draw_float(0.3, 3.0)
+    doc["friction"].update(coulomb=f"{coulomb} N", breakaway=f"{coulomb + draw_float(0, 10)} N",
+                           stribeck_speed=f"{draw_float(0.002, 0.2)} m/s", viscous=f"{draw_float(0, 10)} N*s/m",
+                           deadband=f"{draw_float(0.003, 0.1) * speed_max} m/s", deadband_shape=shape)
+    doc["envelope"].update(speed_max=f"{speed_max} m/s", accel_max=f"{draw_float(0.1, 3)} m/s^2",
+                           pitch_max=f"{draw_float(0, 8)} deg", roll_max=f"{draw_float(0, 5)} deg")
+    return doc

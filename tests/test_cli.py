@@ -1,0 +1,106 @@
+"""Command line: init, predict, envelope, --version through the real entry point."""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import pytest
+
+from generator import cli, dynamics, model
+from tests.helpers import DEMO_PATH, demo_doc, write_model
+
+
+def run(args, capsys):
+    with pytest.raises(SystemExit) as exc:
+        cli.main(args)
+    out = capsys.readouterr()
+    return exc.value.code, out.out, out.err
+
+
+def run_ok(args, capsys):
+    cli.main(args)
+    return capsys.readouterr().out
+
+
+def test_version(capsys):
+    out = run_ok(["--version"], capsys)
+    assert "0.1.0" in out
+
+
+def test_init_writes_loadable_model_and_refuses_overwrite(tmp_path, capsys):
+    target = tmp_path / "cart.toml"
+    run_ok(["init", str(target)], capsys)
+    assert target.read_text() == DEMO_PATH.read_text()
+    assert "INVENTED DEMO" in target.read_text()
+    model.load(target)
+    target.write_text("mine")
+    code, _, err = run(["init", str(target)], capsys)
+    assert code == 2 and "--force" in err and target.read_text() == "mine"
+    run_ok(["init", str(target), "--force"], capsys)
+    assert target.read_text() == DEMO_PATH.read_text()
+
+
+def test_predict_json_shape_and_values(capsys):
+    out = run_ok(["predict", str(DEMO_PATH), "--payload", "30 kg", "--speed-right", "50 cm/s",
+                  "--speed-left", "0.4", "--accel-right", "0.3 m/s^2", "--pitch", "3 deg", "--roll", "0.02 rad",
+                  "--json"], capsys)
+    doc = json.loads(out)
+    assert set(doc) == {"mass_matrix", "inverse_mass_matrix", "right", "left"}
+    for side in ("right", "left"):
+        assert set(doc[side]) == {"force", "motor_torque", "current", "voltage", "current_fixed"}
+        assert set(doc[side]["force"]) == {"inertia", "coriolis", "friction", "rolling", "gravity", "total"}
+        f = doc[side]["force"]
+        parts = f["inertia"] + f["coriolis"] + f["friction"] + f["rolling"] + f["gravity"]
+        assert f["total"] == pytest.approx(parts, rel=1e-12)
+    v = model.load(DEMO_PATH)
+    op = dynamics.OperatingPoint(30.0, 0.5, 0.4, 0.3, 0.0, math.radians(3), 0.02)
+    right, _ = dynamics.wheel_forces(v, op)
+    assert doc["right"]["force"]["gravity"] == pytest.approx(float(right.gravity), rel=1e-12)
+    assert np.array(doc["mass_matrix"]) == pytest.approx(dynamics.mass_matrix(v, 30.0), rel=1e-12)
+
+
+def test_predict_table_readable(capsys):
+    out = run_ok(["predict", str(DEMO_PATH), "--speed-right", "0.2"], capsys)
+    assert "current [A]" in out and "force gravity [N]" in out
+
+
+def test_envelope_feasible_demo(capsys):
+    out = run_ok(["envelope", str(DEMO_PATH)], capsys)
+    assert "feasible" in out and "INFEASIBLE" not in out
+    doc = json.loads(run_ok(["envelope", str(DEMO_PATH), "--json"], capsys))
+    assert doc["feasible"] is True and len(doc["payloads"]) == 5
+
+
+def test_envelope_infeasible_exits_one_naming_the_limit(tmp_path, capsys):
+    doc = demo_doc()
+    doc["drive"]["current_limit"] = "3 A"
+    path = write_model(tmp_path, doc)
+    code, out, err = run(["envelope", str(path)], capsys)
+    assert code == 1 and "INFEASIBLE" in out and "drive.current_limit" in err and len(err.splitlines()) == 1
+
+
+def test_envelope_voltage_limit(tmp_path, capsys):
+    doc = demo_doc()
+    doc["drive"]["supply_voltage"] = "12 V"
+    path = write_model(tmp_path, doc)
+    code, _, err = run(["envelope", str(path), "--json"], capsys)
+    assert code == 1 and "drive.supply_voltage" in err
+
+
+def test_envelope_hold_pitch_by_hand():
+    """Standing still, the held pitch satisfies m g sin(theta)/2 per wheel = current limit (statics)."""
+    from generator import envelope
+
+    doc = demo_doc()
+    doc["wheels"]["grip"] = 2.0           # traction no limit
+    doc["drive"]["current_limit"] = "4 A"  # the current binds first
+    doc["envelope"]["roll_max"] = "0 deg"
+    doc["body"]["cog_ahead"] = "-100 mm"  # no tipping before the current limit
+    doc["payload"]["cog_ahead"] = "-100 mm"
+    v = model.parse_document(doc, "<t>")
+    row = envelope.payload_row(v, 0.0)
+    force = v.drive.current_limit_a * v.drive.torque_constant_nm_per_a * v.drive.gear_ratio * v.drive.efficiency / (
+        v.wheels.diameter_m / 2)
+    assert row.hold_pitch_rad == pytest.approx(math.asin(2 * force / (38.0 * 9.80665)), rel=1e-6)

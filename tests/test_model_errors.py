@@ -1,0 +1,121 @@
+"""Every class of bad model input: one line naming FILE and section.key, exit 2, nothing written."""
+
+from __future__ import annotations
+
+import pytest
+
+from generator import cli
+from tests.helpers import demo_doc, write_model
+
+
+def _run(args, capsys):
+    with pytest.raises(SystemExit) as exc:
+        cli.main(args)
+    out = capsys.readouterr()
+    return exc.value.code, out.out, out.err
+
+
+def _set(doc, dotted, value):
+    if "." in dotted:
+        sec, key = dotted.split(".")
+        if value is None:
+            del doc[sec][key]
+        else:
+            doc[sec][key] = value
+    elif value is None:
+        del doc[dotted]
+    else:
+        doc[dotted] = value
+    return doc
+
+
+BAD = [
+    # (key, value, text that must appear in the message)
+    ("body.mass", 38, "with a unit"),                          # bare number for a dimensional key
+    ("body.mass", "38 m", "a mass"),                           # wrong unit kind
+    ("body.mass", "-3 kg", "> 0"),                             # range
+    ("body.mass", "abc kg", "a mass"),                         # unreadable quantity
+    ("body.mass", "inf kg", "a mass"),                         # not finite
+    ("wheels.grip", float("nan"), "finite"),                   # not finite ratio
+    ("wheels.grip", "0.6", "bare number"),                     # ratio given as string
+    ("wheels.grip", True, "bare number"),                      # boolean
+    ("drive.efficiency", 1.2, "(0, 1]"),                       # efficiency range
+    ("drive.backdrive_efficiency", 0, "(0, 1]"),
+    ("friction.deadband", "0 m/s", "> 0"),
+    ("friction.breakaway", "1 N", ">= friction.coulomb"),     # breakaway below coulomb
+    ("friction.deadband_shape", "ramps", "did you mean 'ramp'"),
+    ("body.gyration_radius", "3 m", "2 x wheels.track"),       # implausible for the track
+    ("envelope.pitch_max", "6", "an angle"),                   # angle without unit
+    ("envelope.pitch_max", "10 %", "an angle"),                # a grade is not an angle
+    ("envelope.pitch_max", "50 deg", "45 deg"),
+    ("firmware.speed_lsb", "0.1 nm/s", "2^30"),                  # too fine for int32
+    ("firmware.word", "int8", "'int16' or 'int32'"),
+    ("wheels.trak", "1 m", "did you mean 'track'"),            # unknown key with suggestion
+    ("casters.behind_axle", None, "required"),                 # missing key
+    ("name", "int", "keyword"),                                # C keyword
+    ("name", "Cart-1", "[a-z]"),                               # not C-safe
+    ("name", None, "required"),
+]
+
+
+@pytest.mark.parametrize("dotted,value,text", BAD, ids=[f"{k}={v!r}" for k, v, _ in BAD])
+def test_bad_value_is_one_line_naming_the_key(tmp_path, capsys, dotted, value, text):
+    path = write_model(tmp_path, _set(demo_doc(), dotted, value))
+    code, out, err = _run(["predict", str(path), "--json"], capsys)
+    assert code == 2
+    assert out == ""
+    lines = err.strip().splitlines()
+    assert len(lines) == 1, err
+    key = dotted if dotted != "wheels.trak" else "wheels.trak"
+    assert lines[0].startswith(f"{path}: {key}: expected "), lines[0]
+    assert text in lines[0], lines[0]
+    assert "Traceback" not in err
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["model.toml"]
+
+
+def test_unknown_section_suggests(tmp_path, capsys):
+    doc = demo_doc()
+    doc["frction"] = doc.pop("friction")
+    path = write_model(tmp_path, doc)
+    code, _, err = _run(["envelope", str(path)], capsys)
+    assert code == 2 and "frction" in err and "did you mean 'friction'" in err
+
+
+def test_toml_syntax_error(tmp_path, capsys):
+    path = tmp_path / "broken.toml"
+    path.write_text('name = "x"\n[body\nmass = "3 kg"\n')
+    code, _, err = _run(["predict", str(path)], capsys)
+    assert code == 2 and err.startswith(f"{path}: syntax: expected valid TOML") and len(err.splitlines()) == 1
+
+
+def test_tipping_names_payload_and_pitch(tmp_path, capsys):
+    """A CoG over the drive axle with a high payload tips forward downhill: statics, common practice."""
+    doc = demo_doc()
+    doc["payload"]["cog_ahead"] = "0 mm"
+    doc["payload"]["cog_height"] = "0.9 m"
+    path = write_model(tmp_path, doc)
+    code, _, err = _run(["predict", str(path)], capsys)
+    assert code == 2
+    assert "envelope.pitch_max" in err and "caster load" in err and "payload 60 kg" in err and "pitch -5.00 deg" in err
+
+
+def test_lateral_tipping_names_roll(tmp_path, capsys):
+    doc = demo_doc()
+    doc["envelope"]["roll_max"] = "40 deg"
+    doc["envelope"]["pitch_max"] = "0 deg"
+    doc["payload"]["cog_height"] = "0.9 m"
+    path = write_model(tmp_path, doc)
+    code, _, err = _run(["predict", str(path)], capsys)
+    assert code == 2 and "envelope.roll_max" in err and "roll" in err
+
+
+def test_missing_file(tmp_path, capsys):
+    code, _, err = _run(["envelope", str(tmp_path / "none.toml")], capsys)
+    assert code == 2 and "no such file" in err
+
+
+def test_bad_option_quantity_is_one_line(capsys):
+    from tests.helpers import DEMO_PATH
+
+    code, out, err = _run(["predict", str(DEMO_PATH), "--pitch", "3 kg"], capsys)
+    assert code == 2 and out == "" and len(err.strip().splitlines()) == 1 and "--pitch" in err
