@@ -1,0 +1,419 @@
+"""The firmware feed-forward as a straight-line integer program: the specification the C follows.
+
+The builder turns a vehicle into table specs and two op lists (feed-forward and forward dynamics).
+Python decides every Q format, shift and constant here; the emulator interprets the ops, the
+analysis proves them, and the templates print one C statement per op.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from generator import dynamics
+from generator import fixedpoint as fx
+from generator import tables as tb
+from generator.errors import UserError
+from generator.model import Vehicle
+
+INT32_MAX = fx.word_max(32)
+
+
+@dataclass(frozen=True)
+class Clamp:
+    """dst = in.field[index] clamped to [lo, hi]; flags |= bit when it was outside."""
+
+    dst: str
+    field: str
+    index: int | None
+    lo: int
+    hi: int
+    bit: int
+
+
+@dataclass(frozen=True)
+class Lookup:
+    dst: str
+    table: str
+    src: str
+
+
+@dataclass(frozen=True)
+class Mul:
+    """dst = round(a * b / 2^shift) (ties up) for shift > 0, a * b * 2^-shift otherwise; b a signal or constant."""
+
+    dst: str
+    a: str
+    b: str | int
+    shift: int
+
+
+@dataclass(frozen=True)
+class Sum:
+    dst: str
+    terms: tuple[tuple[int, str], ...]  # (+1 or -1, signal)
+
+
+@dataclass(frozen=True)
+class Backdrive:
+    """dst = src when src and speed do not oppose, else round(src * k / 2^shift)."""
+
+    dst: str
+    src: str
+    speed: str
+    k: int
+    shift: int
+    k_exact: float
+
+
+@dataclass(frozen=True)
+class Store:
+    """out.field[index] = round(src / 2^shift)."""
+
+    field: str
+    index: int
+    src: str
+    shift: int
+
+
+Op = Clamp | Lookup | Mul | Sum | Backdrive | Store
+
+
+@dataclass
+class Program:
+    """One C function: its input fields, output fields and ops; ranges/magnitudes per signal."""
+
+    name: str
+    in_fields: tuple[tuple[str, int], ...]   # (field, count: 1 or 2)
+    out_fields: tuple[tuple[str, int], ...]
+    out_unit: str
+    ops: list[Op] = field(default_factory=list)
+
+
+@dataclass(frozen=True)
+class Limits:
+    """Envelope edges in firmware steps (largest step count inside each limit)."""
+
+    speed: int
+    accel: int
+    pitch: int
+    roll: int
+    payload: int
+    deadband: int
+    current: int
+
+
+@dataclass
+class Design:
+    """What the builder produces: table specs, the two programs and the scales they rest on."""
+
+    vehicle: Vehicle
+    specs: dict[str, tb.TableSpec]
+    feedforward: Program
+    forward: Program
+    limits: Limits
+    guard_bits: int
+    accel_guard_bits: int
+    amps_per_acc: float
+
+
+def steps_within(limit: float, lsb: float) -> int:
+    """Largest k with k * lsb <= limit, decided in float exactly as a reference would compute k * lsb."""
+    k = math.floor(limit / lsb)
+    while (k + 1) * lsb <= limit:
+        k += 1
+    while k > 0 and k * lsb > limit:
+        k -= 1
+    return k
+
+
+def limits_of(v: Vehicle) -> Limits:
+    fw, env = v.firmware, v.envelope
+    lim = Limits(
+        speed=steps_within(env.speed_max_mps, fw.speed_lsb_mps),
+        accel=steps_within(env.accel_max_mps2, fw.accel_lsb_mps2),
+        pitch=steps_within(env.pitch_max_rad, fw.angle_lsb_rad),
+        roll=steps_within(env.roll_max_rad, fw.angle_lsb_rad),
+        payload=steps_within(v.payload.mass_max_kg, fw.mass_lsb_kg),
+        deadband=steps_within(v.friction.deadband_mps, fw.speed_lsb_mps),
+        current=steps_within(v.drive.current_limit_a, fw.current_lsb_a),
+    )
+    if lim.deadband >= lim.speed:
+        raise UserError(f"{v.source}: friction.deadband: expected at least one firmware.speed_lsb step below "
+                        f"envelope.speed_max, found {lim.deadband} steps for both")
+    return lim
+
+
+def motor_gain(v: Vehicle) -> float:
+    """Motor current per rim force when motoring, A/N: r / (i eta k_t)."""
+    return dynamics.wheel_radius(v) / (v.drive.gear_ratio * v.drive.efficiency * v.drive.torque_constant_nm_per_a)
+
+
+class _Builder:
+    """Appends ops and keeps a conservative integer range per signal (for pre-shift decisions)."""
+
+    def __init__(self, program: Program, specs: dict[str, tb.TableSpec], bits: int) -> None:
+        self.p, self.specs, self.bits = program, specs, bits
+        self.rng: dict[str, fx.Interval] = {}
+
+    def clamp(self, dst: str, fieldname: str, index: int | None, lo: int, hi: int, bit: int) -> str:
+        self.p.ops.append(Clamp(dst, fieldname, index, lo, hi, bit))
+        self.rng[dst] = fx.Interval(lo, hi)
+        return dst
+
+    def lookup(self, dst: str, table: str, src: str) -> str:
+        spec = self.specs[table]
+        top = math.ceil(spec.max_abs * 2.0**spec.frac_bits) + 1
+        self.p.ops.append(Lookup(dst, table, src))
+        self.rng[dst] = fx.Interval(-top, top)
+        return dst
+
+    def mul(self, dst: str, a: str, b: str | int, shift: int) -> str:
+        """Product with rounding; with int16 tables a too-wide product pre-shifts one operand.
+
+        The operand with the larger range is shifted: the added rounding error is proportional to the
+        other operand's size, so this keeps it smallest (and the error bound accounts for it).
+        """
+        rb = self.rng[b] if isinstance(b, str) else fx.Interval(b, b)
+        prod = self.rng[a] * rb
+        if isinstance(b, str) and self.bits == 16 and shift > 0 and not _fits32(prod, shift):
+            need = math.ceil(math.log2(prod.magnitude() / INT32_MAX)) + 1
+            pre = min(shift, need)
+            if self.rng[a].magnitude() > rb.magnitude():
+                a = self.mul(f"{a}_s{pre}", a, 1, pre)
+            else:
+                b = self.mul(f"{b}_s{pre}", b, 1, pre)
+            shift -= pre
+            prod = self.rng[a] * self.rng[b]
+        self.p.ops.append(Mul(dst, a, b, shift))
+        self.rng[dst] = prod.shift_round(shift)
+        return dst
+
+    def sum(self, dst: str, *terms: tuple[int, str]) -> str:
+        self.p.ops.append(Sum(dst, tuple(terms)))
+        total = fx.Interval(0, 0)
+        for sign, name in terms:
+            total = total + (self.rng[name] if sign > 0 else -self.rng[name])
+        self.rng[dst] = total
+        return dst
+
+    def backdrive(self, dst: str, src: str, speed: str, k_exact: float) -> str:
+        kbits = 14 if self.bits == 16 else 30
+        if k_exact > 1:
+            kbits -= math.ceil(math.log2(k_exact))
+        k = int(math.floor(k_exact * 2.0**kbits + 0.5))
+        self.p.ops.append(Backdrive(dst, src, speed, k, kbits, k_exact))
+        r = self.rng[src]
+        self.rng[dst] = r.hull((r * fx.Interval(k, k)).shift_round(kbits))
+        return dst
+
+    def store(self, fieldname: str, index: int, src: str, shift: int) -> None:
+        self.p.ops.append(Store(fieldname, index, src, shift))
+
+
+def _fits32(prod: fx.Interval, shift: int) -> bool:
+    half = (1 << (shift - 1)) if shift > 0 else 0
+    return prod.lo >= -INT32_MAX - 1 and prod.hi + half <= INT32_MAX
+
+
+def _speed_pieces(v: Vehicle, lim: Limits, scale: float) -> tuple[tb.Piece, tb.Piece, tb.Piece, tb.Piece]:
+    """Friction and deadband-shape pieces of |u| in steps, split exactly at the deadband edge."""
+    f, lsb = v.friction, v.firmware.speed_lsb_mps
+
+    def level(x: np.ndarray) -> np.ndarray:
+        u = x * lsb
+        return f.coulomb_n + (f.breakaway_n - f.coulomb_n) * np.exp(-((u / f.stribeck_speed_mps) ** 2))
+
+    ramp = f.deadband_shape == "ramp"
+    inside_shape = (lambda x: x * lsb / f.deadband_mps) if ramp else (lambda x: np.zeros(np.shape(x)))
+    fric_in = tb.Piece(0, lim.deadband, lambda x: (level(x) * inside_shape(x) + f.viscous_ns_per_m * x * lsb) * scale,
+                       "inside the deadband")
+    fric_out = tb.Piece(lim.deadband + 1, lim.speed, lambda x: (level(x) + f.viscous_ns_per_m * x * lsb) * scale,
+                        "outside the deadband")
+    shape_in = tb.Piece(0, lim.deadband, inside_shape, "inside the deadband")
+    shape_out = tb.Piece(lim.deadband + 1, lim.speed, lambda x: np.ones(np.shape(x)), "outside the deadband")
+    return fric_in, fric_out, shape_in, shape_out
+
+
+def _specs(v: Vehicle, lim: Limits, acc_amps: float) -> dict[str, tb.TableSpec]:
+    """Every table's function, in units that make each product land on the accumulator scale."""
+    fw, bits = v.firmware, fx.WORD_BITS[v.firmware.word]
+    k = motor_gain(v) / acc_amps  # accumulator steps per newton at the rim
+    b, g = dynamics.half_track(v), dynamics.G_N
+    lc, cw, cc = v.casters.behind_axle_m, v.wheels.rolling_resistance, v.casters.rolling_resistance
+
+    def mass(x: np.ndarray) -> dynamics.Combined:
+        return dynamics.combined(v, x * fw.mass_lsb_kg)
+
+    def m11(x):
+        return dynamics.mass_matrix_entries(v, x * fw.mass_lsb_kg)[0] * fw.accel_lsb_mps2 * k
+
+    def m12(x):
+        return dynamics.mass_matrix_entries(v, x * fw.mass_lsb_kg)[1] * fw.accel_lsb_mps2 * k
+
+    def minv(entry: int):
+        scale = acc_amps / motor_gain(v) / fw.accel_lsb_mps2  # accel steps per (1/kg * accumulator step)
+        return lambda x: dynamics.inverse_mass_matrix_entries(v, x * fw.mass_lsb_kg)[entry] * scale
+
+    def moment(x):  # m c, kg*m
+        c = mass(x)
+        return c.mass_kg * c.cog_ahead_m
+
+    def weight(x):
+        return mass(x).mass_kg * g
+
+    def height_moment(x):
+        c = mass(x)
+        return c.mass_kg * c.cog_height_m
+
+    ramp_up = lambda x: 0.5 * g * ((cw - cc) * (moment(x) + mass(x).mass_kg * lc) / lc + cc * mass(x).mass_kg) * k  # noqa: E731
+    ramp_down = lambda x: 0.5 * g * (cw - cc) * height_moment(x) / lc * k  # noqa: E731
+    ang = fw.angle_lsb_rad
+    fric_in, fric_out, shape_in, shape_out = _speed_pieces(v, lim, k)
+    P = lambda f, label="": (tb.Piece(0, lim.payload, f, label),)  # noqa: E731
+    per_accel = fw.accel_lsb_mps2 * k    # kg -> accumulator steps per accel step
+    per_speed2 = fw.speed_lsb_mps**2 * k  # kg/m -> accumulator steps per speed step^2
+    inv = acc_amps / motor_gain(v) / fw.accel_lsb_mps2
+    acc_unit = "accumulator step"
+    rows = [
+        ("m11", "payload", "none", P(m11), f"{acc_unit} per accel step", "mass matrix M11 = M22", 1 / per_accel, "kg"),
+        ("m12", "payload", "none", P(m12), f"{acc_unit} per accel step", "mass matrix M12 = M21", 1 / per_accel, "kg"),
+        ("cor", "payload", "none", P(lambda x: moment(x) / (4 * b * b) * per_speed2),
+         f"{acc_unit} per speed step^2", "Coriolis coefficient m c / (4 b^2)", 1 / per_speed2, "kg/m"),
+        ("grav_pitch", "payload", "none", P(lambda x: 0.5 * weight(x) * k), f"{acc_unit} at sin = 1",
+         "gravity m g / 2", 1 / k, "N"),
+        ("grav_roll", "payload", "none", P(lambda x: moment(x) * g / (2 * b) * k), f"{acc_unit} at cos*sin = 1",
+         "roll gravity m c g / (2 b)", 1 / k, "N"),
+        ("roll_level", "payload", "none", P(ramp_up), f"{acc_unit} at cos*cos = 1",
+         "rolling resistance on cos(pitch) cos(roll)", 1 / k, "N"),
+        ("roll_slope", "payload", "none", P(ramp_down), f"{acc_unit} at sin = 1",
+         "rolling-resistance load transfer on sin(pitch)", 1 / k, "N"),
+        ("sin_pitch", "pitch", "odd", (tb.Piece(0, lim.pitch, lambda x: np.sin(x * ang)),), "1", "sin(pitch)", 1.0, "1"),
+        ("cos_pitch", "pitch", "even", (tb.Piece(0, lim.pitch, lambda x: np.cos(x * ang)),), "1", "cos(pitch)", 1.0, "1"),
+        ("sin_roll", "roll", "odd", (tb.Piece(0, lim.roll, lambda x: np.sin(x * ang)),), "1", "sin(roll)", 1.0, "1"),
+        ("cos_roll", "roll", "even", (tb.Piece(0, lim.roll, lambda x: np.cos(x * ang)),), "1", "cos(roll)", 1.0, "1"),
+        ("friction", "speed", "odd", (fric_in, fric_out), acc_unit, "drivetrain friction F(u)", 1 / k, "N"),
+        ("shape", "speed", "odd", (shape_in, shape_out), "1", f"deadband shape s(u), {v.friction.deadband_shape}",
+         1.0, "1"),
+        ("minv11", "payload", "none", P(minv(0)), "accel step per accumulator step", "inverse mass matrix entry 11",
+         1 / inv, "1/kg"),
+        ("minv12", "payload", "none", P(minv(1)), "accel step per accumulator step", "inverse mass matrix entry 12",
+         1 / inv, "1/kg"),
+    ]
+    return {name: tb.make_spec(name, src, sym, pieces, bits, unit, meaning, si, si_unit)
+            for name, src, sym, pieces, unit, meaning, si, si_unit in rows}
+
+
+FF_BITS = {"speed": (0, 1), "accel": (2, 3), "pitch": 4, "roll": 5, "payload": 6}
+FWD_BITS = {"current": (0, 1), "speed": (2, 3), "pitch": 4, "roll": 5, "payload": 6}
+
+
+def _common(bd: _Builder, lim: Limits, bits: dict) -> None:
+    """Clamped pitch/roll/payload, their lookups, gravity and the rolling-resistance level."""
+    bd.clamp("pitch", "pitch", None, -lim.pitch, lim.pitch, bits["pitch"])
+    bd.clamp("roll", "roll", None, -lim.roll, lim.roll, bits["roll"])
+    bd.clamp("payload", "payload", None, 0, lim.payload, bits["payload"])
+    for u, side in (("speed_r", 0), ("speed_l", 1)):
+        bd.clamp(u, "speed", side, -lim.speed, lim.speed, bits["speed"][side])
+    s = bd.specs
+    for name, src in (("sin_pitch", "pitch"), ("cos_pitch", "pitch"), ("sin_roll", "roll"), ("cos_roll", "roll"),
+                      ("cor", "payload"), ("grav_pitch", "payload"), ("grav_roll", "payload"),
+                      ("roll_level", "payload"), ("roll_slope", "payload")):
+        bd.lookup(f"t_{name}", name, src)
+    bd.mul("g_pitch", "t_grav_pitch", "t_sin_pitch", s["grav_pitch"].frac_bits + s["sin_pitch"].frac_bits)
+    bd.mul("cos_sin", "t_cos_pitch", "t_sin_roll", s["cos_pitch"].frac_bits)
+    bd.mul("g_roll", "t_grav_roll", "cos_sin", s["grav_roll"].frac_bits + s["sin_roll"].frac_bits)
+    bd.mul("cos_cos", "t_cos_pitch", "t_cos_roll", s["cos_pitch"].frac_bits)
+    bd.mul("r_up", "t_roll_level", "cos_cos", s["roll_level"].frac_bits + s["cos_roll"].frac_bits)
+    bd.mul("r_down", "t_roll_slope", "t_sin_pitch", s["roll_slope"].frac_bits + s["sin_pitch"].frac_bits)
+    bd.sum("r_level", (1, "r_up"), (-1, "r_down"))
+    bd.sum("d_speed", (1, "speed_r"), (-1, "speed_l"))
+
+
+def _passive(bd: _Builder, side: str, sign: int, other: str) -> str:
+    """Coriolis + friction + rolling + gravity at one wheel, accumulator steps."""
+    s = bd.specs
+    u = f"speed_{side}"
+    bd.mul(f"turn_{side}", "d_speed", f"speed_{other}", 0)
+    bd.mul(f"cor_{side}", "t_cor", f"turn_{side}", s["cor"].frac_bits)
+    bd.lookup(f"t_fric_{side}", "friction", u)
+    bd.mul(f"fric_{side}", f"t_fric_{side}", 1, s["friction"].frac_bits)
+    bd.lookup(f"t_shape_{side}", "shape", u)
+    bd.mul(f"roll_{side}", "r_level", f"t_shape_{side}", s["shape"].frac_bits)
+    return bd.sum(f"passive_{side}", (sign, f"cor_{side}"), (1, f"fric_{side}"), (1, f"roll_{side}"),
+                  (1, "g_pitch"), (sign, "g_roll"))
+
+
+def _feedforward(v: Vehicle, specs: dict[str, tb.TableSpec], lim: Limits, guard: int) -> Program:
+    prog = Program("feedforward", (("speed", 2), ("accel", 2), ("pitch", 1), ("roll", 1), ("payload", 1)),
+                   (("current", 2),), "current_lsb")
+    bd = _Builder(prog, specs, specs["m11"].bits)
+    _common(bd, lim, FF_BITS)
+    for side in (0, 1):
+        bd.clamp(("accel_r", "accel_l")[side], "accel", side, -lim.accel, lim.accel, FF_BITS["accel"][side])
+    bd.lookup("t_m11", "m11", "payload")
+    bd.lookup("t_m12", "m12", "payload")
+    for side, sign, other, idx in (("r", 1, "l", 0), ("l", -1, "r", 1)):
+        passive = _passive(bd, side, sign, other)
+        bd.mul(f"in_self_{side}", "t_m11", f"accel_{side}", specs["m11"].frac_bits)
+        bd.mul(f"in_other_{side}", "t_m12", f"accel_{other}", specs["m12"].frac_bits)
+        bd.sum(f"total_{side}", (1, f"in_self_{side}"), (1, f"in_other_{side}"), (1, passive))
+        bd.backdrive(f"motor_{side}", f"total_{side}", f"speed_{side}",
+                     v.drive.efficiency * v.drive.backdrive_efficiency)
+        bd.store("current", idx, f"motor_{side}", guard)
+    return prog
+
+
+def _forward(v: Vehicle, specs: dict[str, tb.TableSpec], lim: Limits, guard: int, aguard: int) -> Program:
+    prog = Program("forward", (("current", 2), ("speed", 2), ("pitch", 1), ("roll", 1), ("payload", 1)),
+                   (("accel", 2),), "accel_lsb")
+    bd = _Builder(prog, specs, specs["m11"].bits)
+    _common(bd, lim, FWD_BITS)
+    bd.lookup("t_minv11", "minv11", "payload")
+    bd.lookup("t_minv12", "minv12", "payload")
+    for side, sign, other, idx in (("r", 1, "l", 0), ("l", -1, "r", 1)):
+        passive = _passive(bd, side, sign, other)
+        bd.clamp(f"cur_{side}", "current", idx, -lim.current, lim.current, FWD_BITS["current"][idx])
+        bd.mul(f"cur_acc_{side}", f"cur_{side}", 1, -guard)
+        bd.backdrive(f"effort_{side}", f"cur_acc_{side}", f"speed_{side}",
+                     1 / (v.drive.efficiency * v.drive.backdrive_efficiency))
+        bd.sum(f"net_{side}", (1, f"effort_{side}"), (-1, passive))
+    for side, other, idx in (("r", "l", 0), ("l", "r", 1)):
+        bd.mul(f"acc_self_{side}", "t_minv11", f"net_{side}", specs["minv11"].frac_bits - aguard)
+        bd.mul(f"acc_other_{side}", "t_minv12", f"net_{other}", specs["minv12"].frac_bits - aguard)
+        bd.sum(f"accel_{side}", (1, f"acc_self_{side}"), (1, f"acc_other_{side}"))
+        bd.store("accel", idx, f"accel_{side}", aguard)
+    return prog
+
+
+def _guard_bits(peak_steps: float, top: int = 16) -> int:
+    """Fraction bits below the output LSB that keep the accumulator within 2^29 (room for the sum)."""
+    if peak_steps <= 0:
+        return top
+    return max(0, min(top, 29 - math.ceil(math.log2(peak_steps + 1))))
+
+
+def _peak_current_steps(v: Vehicle, lim: Limits) -> float:
+    """An upper bound of |accumulated motoring current| in current steps, from term maxima."""
+    fw = v.firmware
+    specs = _specs(v, lim, fw.current_lsb_a)
+    mx = {n: s.max_abs for n, s in specs.items()}
+    a, u = lim.accel, lim.speed
+    return (mx["m11"] + mx["m12"]) * a + mx["cor"] * 2 * u * u + mx["friction"] + mx["roll_level"] + mx["roll_slope"] \
+        + mx["grav_pitch"] + mx["grav_roll"]
+
+
+def design(v: Vehicle) -> Design:
+    """Scales, table specs and both programs for a validated vehicle (sizes are chosen later)."""
+    lim = limits_of(v)
+    fw = v.firmware
+    peak = _peak_current_steps(v, lim)
+    guard = _guard_bits(peak)
+    acc_amps = fw.current_lsb_a * 2.0**-guard
+    specs = _specs(v, lim, acc_amps)
+    accel_peak = (specs["minv11"].max_abs + specs["minv12"].max_abs) * (peak + lim.current) * 2.0**guard * 2
+    aguard = _guard_bits(accel_peak, top=8)
+    return Design(v, specs, _feedforward(v, specs, lim, guard), _forward(v, specs, lim, guard, aguard), lim,
+                  guard, aguard, acc_amps)

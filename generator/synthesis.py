@@ -1,0 +1,90 @@
+"""From a validated vehicle to sized, proven firmware tables: the product of the fixed-point stage."""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from dataclasses import dataclass
+
+import numpy as np
+
+from generator import __version__, analysis, dynamics, program, sizing
+from generator import tables as tb
+from generator.errors import CheckFailed
+from generator.model import Vehicle
+
+FORMAT_VERSION = 1
+FORWARD_BUDGET_FACTOR = 2.0
+
+
+@dataclass(frozen=True)
+class Firmware:
+    """Everything the renderer and the reports need; all bounds proven, not sampled."""
+
+    vehicle: Vehicle
+    design: program.Design
+    tables: dict[str, tb.Table]
+    errors: dict[str, tuple[tb.PieceError, ...]]
+    ff_proof: analysis.Proof
+    fwd_proof: analysis.Proof
+    ff_bound_a: float
+    fwd_bound_mps2: float
+    fwd_budget_mps2: float
+    fingerprint: int
+
+    @property
+    def total_bytes(self) -> int:
+        return sum(t.bytes for t in self.tables.values())
+
+
+def fingerprint(v: Vehicle) -> int:
+    """32-bit hash of the normalised model and the generator version (stable across runs)."""
+    text = json.dumps({"model": v.normalised(), "generator": __version__, "format": FORMAT_VERSION},
+                      sort_keys=True, separators=(",", ":"))
+    return int(hashlib.sha256(text.encode()).hexdigest()[:8], 16)
+
+
+def forward_budget(v: Vehicle) -> float:
+    """Forward-dynamics accuracy goal, m/s^2: the acceleration of FORWARD_BUDGET_FACTOR x current_budget
+    on both wheels (so the prediction is as good as the feed-forward it is compared against)."""
+    pay = np.linspace(0, v.payload.mass_max_kg, 257)
+    d, o = dynamics.inverse_mass_matrix_entries(v, pay)
+    force = v.firmware.current_budget_a / program.motor_gain(v) / (v.drive.efficiency * v.drive.backdrive_efficiency)
+    return FORWARD_BUDGET_FACTOR * float(np.max(np.abs(d) + np.abs(o))) * force
+
+
+def synthesise(v: Vehicle) -> Firmware:
+    """Design the programs, size every table to the budget, prove ranges; CheckFailed when impossible."""
+    des = program.design(v)
+    fw = v.firmware
+    ff_names = [n for n in des.specs if not n.startswith("minv")]
+    budget_steps = fw.current_budget_a / fw.current_lsb_a
+    where = f"{v.source}: firmware.current_budget"
+    try:
+        ff = sizing.size(des.feedforward, des.specs, ff_names, budget_steps, what=f"{fw.current_budget_a:g} A")
+    except CheckFailed as exc:
+        raise CheckFailed(f"{where}: {exc} of {fw.current_lsb_a:g} A (current_lsb)") from None
+    fwd_budget = forward_budget(v)
+    try:
+        fwd = sizing.size(des.forward, des.specs, ["minv11", "minv12"], fwd_budget / fw.accel_lsb_mps2,
+                          fixed=ff.tables, fixed_errors=ff.errors, what=f"forward dynamics {fwd_budget:.4g} m/s^2")
+    except CheckFailed as exc:
+        raise CheckFailed(f"{where}: {exc} of {fw.accel_lsb_mps2:g} m/s^2 (accel_lsb)") from None
+    tables = {n: fwd.tables[n] for n in des.specs}
+    errors = {n: fwd.errors[n] for n in des.specs}
+    return Firmware(v, des, tables, errors, analysis.prove(des.feedforward, tables),
+                    analysis.prove(des.forward, tables), ff.bound_steps * fw.current_lsb_a,
+                    fwd.bound_steps * fw.accel_lsb_mps2, fwd_budget, fingerprint(v))
+
+
+def firmware_inputs(v: Vehicle, op: dynamics.OperatingPoint) -> dict[str, np.ndarray]:
+    """SI operating point(s) -> feed-forward inputs in firmware steps (round to nearest, ties up)."""
+    fw = v.firmware
+    q = lambda x, lsb: np.floor(np.asarray(x, dtype=float) / lsb + 0.5).astype(np.int64)  # noqa: E731
+    return {
+        "speed": np.stack([q(op.speed_right, fw.speed_lsb_mps), q(op.speed_left, fw.speed_lsb_mps)], -1),
+        "accel": np.stack([q(op.accel_right, fw.accel_lsb_mps2), q(op.accel_left, fw.accel_lsb_mps2)], -1),
+        "pitch": q(op.pitch_rad, fw.angle_lsb_rad),
+        "roll": q(op.roll_rad, fw.angle_lsb_rad),
+        "payload": q(op.payload_kg, fw.mass_lsb_kg),
+    }

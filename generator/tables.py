@@ -1,0 +1,260 @@
+"""Lookup tables: uniform power-of-two segments, shift-and-mask indexing, bit-exact lookup, errors.
+
+A table maps one clamped integer input to an integer in its Q format. It has one or two pieces
+(the friction tables split exactly at the deadband edge so no segment straddles the step or kink)
+and a symmetry: odd and even tables store |x| only.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Callable
+
+import numpy as np
+
+from generator import fixedpoint as fx
+
+Func = Callable[[np.ndarray], np.ndarray]
+EXHAUSTIVE_POINTS = 1 << 21
+MAX_SEGMENTS = 4096
+
+
+@dataclass(frozen=True)
+class Piece:
+    """A smooth part of a table's function on the integer inputs x0..x1 (of |x| for symmetric tables)."""
+
+    x0: int
+    x1: int
+    func: Func  # float target value at integer inputs, smooth also a little past x1
+    label: str = ""
+
+    @property
+    def span(self) -> int:
+        return self.x1 - self.x0
+
+
+@dataclass(frozen=True)
+class TableSpec:
+    """Everything about a table except its segment counts: those the sizing picks."""
+
+    name: str
+    source: str          # the clamped input signal it is indexed by
+    symmetry: str        # "none", "odd" or "even"
+    pieces: tuple[Piece, ...]
+    frac_bits: int
+    bits: int
+    unit: str            # what one stored step means, for the C comment
+    meaning: str         # the model quantity it holds
+    max_abs: float       # largest |value| over the extended domain, target units
+    si_scale: float = 1.0  # SI value = target value * si_scale
+    si_unit: str = "1"
+
+    @property
+    def split_at(self) -> int | None:
+        return self.pieces[0].x1 if len(self.pieces) == 2 else None
+
+
+@dataclass(frozen=True)
+class PieceData:
+    segments: int        # 0: one constant entry
+    shift: int           # log2 of the segment width in input steps
+    entries: np.ndarray  # int64, segments + 1 entries (1 when constant)
+    saturated: bool = False
+
+    @property
+    def mask(self) -> int:
+        return (1 << self.shift) - 1
+
+
+@dataclass(frozen=True)
+class Table:
+    spec: TableSpec
+    pieces: tuple[PieceData, ...]
+
+    @property
+    def entry_count(self) -> int:
+        return sum(len(p.entries) for p in self.pieces)
+
+    @property
+    def bytes(self) -> int:
+        return self.entry_count * self.spec.bits // 8
+
+
+def extended_end(piece: Piece) -> int:
+    """Largest input any segment count may place a breakpoint at (N * 2^s <= 2 span + 2)."""
+    return piece.x0 + 2 * piece.span + 2
+
+
+def make_spec(name: str, source: str, symmetry: str, pieces: tuple[Piece, ...], bits: int, unit: str,
+              meaning: str, si_scale: float = 1.0, si_unit: str = "1") -> TableSpec:
+    """Choose the Q format from the value range over every breakpoint any size could use."""
+    peak = 0.0
+    for p in pieces:
+        xs = np.unique(np.linspace(p.x0, extended_end(p), 4097).round().astype(np.int64))
+        peak = max(peak, float(np.max(np.abs(p.func(xs)))))
+    return TableSpec(name, source, symmetry, pieces, fx.frac_bits_for(peak, bits), bits, unit, meaning, peak,
+                     si_scale, si_unit)
+
+
+def shift_for(span: int, segments: int) -> int:
+    """Smallest s with segments * 2^s > span, so index = (x - x0) >> s stays below `segments`."""
+    s = 0
+    while segments << s <= span:
+        s += 1
+    return s
+
+
+def candidate_segments(piece: Piece) -> list[int]:
+    """0 (constant) and powers of two up to the first exact size (one breakpoint per input step)."""
+    out = [0]
+    n = 1
+    while n <= MAX_SEGMENTS:
+        out.append(n)
+        if shift_for(piece.span, n) == 0:
+            break
+        n *= 2
+    return out
+
+
+def build_piece(spec: TableSpec, piece: Piece, segments: int) -> PieceData:
+    """Breakpoint values rounded to the Q format; a constant piece stores the midrange value."""
+    if segments == 0:
+        xs = _domain(piece)
+        vals = piece.func(xs)
+        mid = np.array([(float(np.max(vals)) + float(np.min(vals))) / 2])
+        ints, sat = fx.quantise(mid, spec.frac_bits, spec.bits)
+        return PieceData(0, 0, ints, bool(sat.any()))
+    s = shift_for(piece.span, segments)
+    xs = piece.x0 + (np.arange(segments + 1, dtype=np.int64) << s)
+    ints, sat = fx.quantise(piece.func(xs), spec.frac_bits, spec.bits)
+    return PieceData(segments, s, ints, bool(sat.any()))
+
+
+def build(spec: TableSpec, segments: tuple[int, ...]) -> Table:
+    return Table(spec, tuple(build_piece(spec, p, n) for p, n in zip(spec.pieces, segments)))
+
+
+def lookup_piece(data: PieceData, x0: int, x: np.ndarray) -> np.ndarray:
+    """Bit-exact interpolation: e[i] + (((e[i+1] - e[i]) * frac + half) >> s), int64 arithmetic."""
+    e = data.entries
+    if data.segments == 0:
+        return np.full(np.shape(x), e[0], dtype=np.int64)
+    d = np.asarray(x, dtype=np.int64) - x0
+    idx = d >> data.shift
+    frac = d & data.mask
+    lo = e[idx]
+    return lo + fx.shift_round((e[idx + 1] - lo) * frac, data.shift)
+
+
+def lookup(table: Table, x: np.ndarray) -> np.ndarray:
+    """The table's integer output for clamped integer inputs (symmetry and pieces applied)."""
+    x = np.asarray(x, dtype=np.int64)
+    spec = table.spec
+    ax = np.abs(x) if spec.symmetry != "none" else x
+    y = np.zeros(np.shape(x), dtype=np.int64)
+    for piece, data, mask in zip(spec.pieces, table.pieces, _masks(spec, ax)):
+        y = np.where(mask, lookup_piece(data, piece.x0, np.clip(ax, piece.x0, piece.x1)), y)
+    return np.where(x < 0, -y, y) if spec.symmetry == "odd" else y
+
+
+def _masks(spec: TableSpec, ax: np.ndarray) -> list[np.ndarray]:
+    """Which piece serves each |x|: the split is exact at the first piece's last input."""
+    if len(spec.pieces) == 1:
+        return [np.ones(np.shape(ax), dtype=bool)]
+    low = ax <= spec.pieces[0].x1
+    return [low, ~low]
+
+
+def lookup_real(table: Table, x: np.ndarray, mode: str) -> np.ndarray:
+    """Real-valued counterpart in integer units, for the error split.
+
+    mode "exact": the function itself; "interp": interpolation of unrounded breakpoints;
+    "quant": interpolation of the stored (rounded) entries without the lookup's own rounding.
+    """
+    x = np.asarray(x, dtype=np.int64)
+    spec = table.spec
+    ax = np.abs(x) if spec.symmetry != "none" else x
+    out = np.zeros(np.shape(x), dtype=float)
+    for piece, data, mask in zip(spec.pieces, table.pieces, _masks(spec, ax)):
+        xs = np.clip(ax, piece.x0, piece.x1)
+        if mode == "exact":
+            vals = piece.func(xs) * 2.0**spec.frac_bits
+        else:
+            vals = _interp_real(spec, piece, data, xs, quantised=(mode == "quant"))
+        out = np.where(mask, vals, out)
+    return np.where(x < 0, -out, out) if spec.symmetry == "odd" else out
+
+
+def _interp_real(spec: TableSpec, piece: Piece, data: PieceData, xs: np.ndarray, quantised: bool) -> np.ndarray:
+    if data.segments == 0:
+        value = data.entries[0] if quantised else _constant_real(spec, piece)
+        return np.full(np.shape(xs), float(value))
+    bx = piece.x0 + (np.arange(data.segments + 1, dtype=np.int64) << data.shift)
+    ys = data.entries.astype(float) if quantised else piece.func(bx) * 2.0**spec.frac_bits
+    return np.interp(xs.astype(float), bx.astype(float), ys)
+
+
+def _constant_real(spec: TableSpec, piece: Piece) -> float:
+    vals = piece.func(_domain(piece))
+    return (float(np.max(vals)) + float(np.min(vals))) / 2 * 2.0**spec.frac_bits
+
+
+def _domain(piece: Piece) -> np.ndarray:
+    """The piece's integer inputs: all of them, or an even sample of EXHAUSTIVE_POINTS when more."""
+    if piece.span + 1 <= EXHAUSTIVE_POINTS:
+        return np.arange(piece.x0, piece.x1 + 1, dtype=np.int64)
+    return np.unique(np.linspace(piece.x0, piece.x1, EXHAUSTIVE_POINTS).round().astype(np.int64))
+
+
+@dataclass(frozen=True)
+class PieceError:
+    """Worst |table - function| over the piece's inputs, in target units, and its parts."""
+
+    total: float
+    interpolation: float
+    where: int
+    exhaustive: bool
+
+
+def piece_error(spec: TableSpec, piece: Piece, data: PieceData) -> PieceError:
+    """Evaluate the bit-exact lookup against the function on every input (or a dense sample + margin)."""
+    xs = _domain(piece)
+    exact = piece.func(xs)
+    got = lookup_piece(data, piece.x0, xs).astype(float) / 2.0**spec.frac_bits
+    real = _interp_real(spec, piece, data, xs, quantised=False) / 2.0**spec.frac_bits
+    err = np.abs(got - exact)
+    k = int(np.argmax(err))
+    margin = 0.0
+    exhaustive = piece.span + 1 <= EXHAUSTIVE_POINTS
+    if not exhaustive:  # between samples the error can grow by at most gap * (|f'| + |p'|)
+        gap = float(np.max(np.diff(xs)))
+        slope = float(np.max(np.abs(np.diff(exact)) / np.diff(xs))) * 2
+        margin = gap * slope
+    return PieceError(float(err[k]) + margin, float(np.max(np.abs(real - exact))) + margin, int(xs[k]), exhaustive)
+
+
+@dataclass
+class Candidates:
+    """Per piece: candidate segment counts with their bytes and measured errors (non-dominated only)."""
+
+    segments: list[int] = field(default_factory=list)
+    errors: list[PieceError] = field(default_factory=list)
+    data: list[PieceData] = field(default_factory=list)
+
+
+KEEP_RATIO = 0.9  # a larger size is a candidate only if it cuts the worst error by 10 % or more
+
+
+def piece_candidates(spec: TableSpec, piece: Piece) -> Candidates:
+    """Every useful size: each kept one is at least 10 % more accurate than the cheaper ones."""
+    out = Candidates()
+    best = float("inf")
+    for n in candidate_segments(piece):
+        data = build_piece(spec, piece, n)
+        err = piece_error(spec, piece, data)
+        if err.total < KEEP_RATIO * best:
+            out.segments.append(n)
+            out.errors.append(err)
+            out.data.append(data)
+            best = err.total
+    return out
