@@ -182,14 +182,19 @@ class _Builder:
             need = math.ceil(math.log2(prod.magnitude() / INT32_MAX)) + 1
             pre = min(shift, need)
             if self.rng[a].magnitude() > rb.magnitude():
-                a = self.mul(f"{a}_s{pre}", a, 1, pre)
+                a = self._shifted(a, pre)
             else:
-                b = self.mul(f"{b}_s{pre}", b, 1, pre)
+                b = self._shifted(b, pre)
             shift -= pre
             prod = self.rng[a] * self.rng[b]
         self.p.ops.append(Mul(dst, a, b, shift))
         self.rng[dst] = prod.shift_round(shift)
         return dst
+
+    def _shifted(self, src: str, pre: int) -> str:
+        """src rounded down by `pre` bits, computed once however many products use it."""
+        name = f"{src}_s{pre}"
+        return name if name in self.rng else self.mul(name, src, 1, pre)
 
     def sum(self, dst: str, *terms: tuple[int, str]) -> str:
         self.p.ops.append(Sum(dst, tuple(terms)))

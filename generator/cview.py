@@ -1,0 +1,190 @@
+"""The "C view": everything the templates print, decided here (names, types, literals, comments).
+
+Templates only lay out text; no arithmetic happens in them.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Any
+
+from generator import __version__
+from generator import fixedpoint as fx
+from generator import tables as tb
+from generator.program import Backdrive, Clamp, Lookup, Mul, Program, Store, Sum
+from generator.synthesis import FORMAT_VERSION, Firmware
+
+CAUTION = (
+    "CAUTION: feed-forward computed from wrong parameters can make a vehicle move unexpectedly.",
+    "These values are engineering estimates, not a safety function. Safety-related motion control",
+    "follows the applicable standards (e.g. ISO 3691-4, IEC 61508, ISO 13849) and local regulations",
+    "and licensed practice. Test with the wheels off the floor or the vehicle restrained first.",
+)
+
+CLAMP_NAMES = {
+    "feedforward": ("SPEED_RIGHT", "SPEED_LEFT", "ACCEL_RIGHT", "ACCEL_LEFT", "PITCH", "ROLL", "PAYLOAD"),
+    "forward": ("CURRENT_RIGHT", "CURRENT_LEFT", "SPEED_RIGHT", "SPEED_LEFT", "PITCH", "ROLL", "PAYLOAD"),
+}
+
+
+@dataclass(frozen=True)
+class Source:
+    """How an input field maps to physical units, for comments."""
+
+    lsb: float
+    unit: str
+
+
+def _sources(fw: Firmware) -> dict[str, Source]:
+    f = fw.vehicle.firmware
+    return {"speed": Source(f.speed_lsb_mps, "m/s"), "accel": Source(f.accel_lsb_mps2, "m/s^2"),
+            "pitch": Source(f.angle_lsb_rad, "rad"), "roll": Source(f.angle_lsb_rad, "rad"),
+            "payload": Source(f.mass_lsb_kg, "kg"), "current": Source(f.current_lsb_a, "A")}
+
+
+def _num(x: float) -> str:
+    return f"{x:.6g}"
+
+
+MODEL_KEYS = {
+    "payload": ("body.mass", "body.cog_ahead", "body.cog_height", "body.gyration_radius", "payload.mass_max",
+                "payload.cog_ahead", "payload.cog_height", "payload.gyration_radius", "wheels.track"),
+    "pitch": ("firmware.angle_lsb", "envelope.pitch_max"),
+    "roll": ("firmware.angle_lsb", "envelope.roll_max"),
+    "speed": ("friction.coulomb", "friction.breakaway", "friction.stribeck_speed", "friction.viscous",
+              "friction.deadband", "friction.deadband_shape"),
+}
+EXTRA_KEYS = {
+    "m11": ("wheels.diameter", "wheels.inertia", "drive.gear_ratio", "drive.rotor_inertia"),
+    "roll_level": ("wheels.rolling_resistance", "casters.rolling_resistance", "casters.behind_axle"),
+    "roll_slope": ("wheels.rolling_resistance", "casters.rolling_resistance", "casters.behind_axle"),
+}
+
+
+UNIT_SUFFIX = {"kg": "kg", "m": "m", "kgm2": "kg*m^2", "n": "N", "mps": "m/s", "mps2": "m/s^2",
+               "ns_per_m": "N*s/m", "rad": "rad", "nm_per_a": "N*m/A", "ohm": "ohm", "a": "A", "v": "V"}
+
+
+def _model_value(fw: Firmware, dotted: str) -> str:
+    """`section.key = value unit` from the validated model (SI), for table comments."""
+    sec, key = dotted.split(".")
+    obj = getattr(fw.vehicle, sec)
+    for field in obj.__dataclass_fields__:
+        if field == key or field.startswith(key + "_"):
+            value = getattr(obj, field)
+            unit = UNIT_SUFFIX[field[len(key) + 1:]] if field != key else ""
+            return f"{dotted} = {_num(value) if isinstance(value, float) else value}{' ' + unit if unit else ''}"
+    raise KeyError(dotted)
+
+
+def _wrap(items: list[str], width: int = 92) -> list[str]:
+    lines, line = [], ""
+    for item in items:
+        if line and len(line) + len(item) + 2 > width:
+            lines.append(line + ",")
+            line = item
+        else:
+            line = f"{line}, {item}" if line else item
+    return lines + [line] if line else lines
+
+
+def table_view(fw: Firmware, name: str, prefix: str) -> dict[str, Any]:
+    table = fw.tables[name]
+    spec = table.spec
+    src = _sources(fw)[spec.source]
+    ctype = f"int{spec.bits}_t"
+    keys = MODEL_KEYS[spec.source] + EXTRA_KEYS.get(name, EXTRA_KEYS["m11"] if name in ("m12", "minv11", "minv12") else ())
+    if name == "shape":
+        keys = ("friction.deadband", "friction.deadband_shape")
+    pieces = []
+    for k, (piece, data, err) in enumerate(zip(spec.pieces, table.pieces, fw.errors[name])):
+        width = 1 << data.shift
+        pieces.append({
+            "array": f"{prefix}_tab_{name}_{k}", "count": len(data.entries), "x0": piece.x0, "x1": piece.x1,
+            "segments": data.segments, "shift": data.shift, "mask": f"0x{data.mask:X}",
+            "half": (1 << (data.shift - 1)) if data.shift > 0 else 0, "wide": fw.ff_proof.lookup_wide[name][k],
+            "constant": data.segments == 0, "value": int(data.entries[0]),
+            "entries": _rows([int(e) for e in data.entries]),
+            "describe": (f"{'|x|' if spec.symmetry != 'none' else 'x'} in {piece.x0}..{piece.x1} steps "
+                         f"({_num(piece.x0 * src.lsb)}..{_num(piece.x1 * src.lsb)} {src.unit})"
+                         + (f", {piece.label}" if piece.label else "")),
+            "layout": ("constant" if data.segments == 0 else
+                       f"{data.segments} segment{'s' if data.segments > 1 else ''} of {width} steps, "
+                       f"breakpoints at x0 + k*{width}"),
+            "error": f"{_num(err.total * spec.si_scale)} {spec.si_unit}"
+                     + (" (every input checked)" if err.exhaustive else " (dense sample plus slope margin)"),
+        })
+    return {
+        "name": name, "ctype": ctype, "symmetry": spec.symmetry, "split": spec.split_at,
+        "meaning": spec.meaning, "q": fx.q_name(spec.frac_bits, spec.bits),
+        "lsb": f"2^-{spec.frac_bits}" if spec.frac_bits >= 0 else f"2^{-spec.frac_bits}",
+        "lsb_si": f"{_num(2.0**-spec.frac_bits * spec.si_scale)} {spec.si_unit}", "unit": spec.unit,
+        "input": spec.source, "input_lsb": f"{_num(src.lsb)} {src.unit}", "pieces": pieces,
+        "models": _wrap([_model_value(fw, key) for key in keys]), "bytes": table.bytes,
+        "lo": spec.pieces[0].x0, "hi": spec.pieces[-1].x1,
+        "public": f"{prefix}_table_{name}",
+    }
+
+
+def _rows(values: list[int], per_row: int = 8) -> list[str]:
+    cells = [f"{v}" for v in values]
+    return [", ".join(cells[i:i + per_row]) for i in range(0, len(cells), per_row)]
+
+
+def _op_view(op, proof, prefix: str) -> dict[str, Any]:
+    if isinstance(op, Clamp):
+        where = f"{op.field}[{op.index}]" if op.index is not None else op.field
+        return {"kind": "clamp", "dst": op.dst, "src": where, "lo": op.lo, "hi": op.hi, "bit": f"0x{1 << op.bit:02X}u"}
+    if isinstance(op, Lookup):
+        return {"kind": "lookup", "dst": op.dst, "func": f"lookup_{op.table}", "src": op.src}
+    if isinstance(op, Mul):
+        const = not isinstance(op.b, str)
+        return {"kind": "mul", "dst": op.dst, "a": op.a, "b": str(op.b), "b_one": const and op.b == 1,
+                "shift": max(op.shift, 0), "scale": 1 << max(-op.shift, 0), "up": op.shift < 0,
+                "half": (1 << (op.shift - 1)) if op.shift > 0 else 0, "wide": proof.wide[op.dst]}
+    if isinstance(op, Sum):
+        terms = [("-" if s < 0 else ("" if i == 0 else "+"), n) for i, (s, n) in enumerate(op.terms)]
+        return {"kind": "sum", "dst": op.dst, "terms": terms}
+    if isinstance(op, Backdrive):
+        return {"kind": "backdrive", "dst": op.dst, "src": op.src, "speed": op.speed, "k": op.k, "shift": op.shift,
+                "half": 1 << (op.shift - 1), "wide": proof.wide[op.dst], "k_exact": _num(op.k_exact)}
+    if isinstance(op, Store):
+        return {"kind": "store", "dst": f"{op.field}[{op.index}]", "src": op.src, "shift": op.shift,
+                "half": (1 << (op.shift - 1)) if op.shift > 0 else 0}
+    raise TypeError(op)
+
+
+def program_view(prog: Program, proof, prefix: str) -> dict[str, Any]:
+    return {"name": prog.name, "ops": [_op_view(op, proof, prefix) for op in prog.ops]}
+
+
+def context(fw: Firmware) -> dict[str, Any]:
+    """The whole template context for one vehicle."""
+    v = fw.vehicle
+    prefix = v.name
+    lim, f = fw.design.limits, v.firmware
+    clamp_bits = {prog: [(f"{prefix.upper()}_CLAMPED_{n}", f"0x{1 << i:02X}u") for i, n in enumerate(names)]
+                  for prog, names in CLAMP_NAMES.items()}
+    return {
+        "prefix": prefix, "PREFIX": prefix.upper(), "version": __version__, "format": FORMAT_VERSION,
+        "fingerprint": f"0x{fw.fingerprint:08X}u", "caution": CAUTION,
+        "header": f"{prefix}_ff.h", "guard": f"{prefix.upper()}_FF_H",
+        "tables": [table_view(fw, n, prefix) for n in fw.tables],
+        "feedforward": program_view(fw.design.feedforward, fw.ff_proof, prefix),
+        "forward": program_view(fw.design.forward, fw.fwd_proof, prefix),
+        "clamp_bits": clamp_bits,
+        "limits": [("SPEED_MAX", lim.speed, f"{_num(lim.speed * f.speed_lsb_mps)} m/s"),
+                   ("ACCEL_MAX", lim.accel, f"{_num(lim.accel * f.accel_lsb_mps2)} m/s^2"),
+                   ("PITCH_MAX", lim.pitch, f"{_num(math.degrees(lim.pitch * f.angle_lsb_rad))} deg"),
+                   ("ROLL_MAX", lim.roll, f"{_num(math.degrees(lim.roll * f.angle_lsb_rad))} deg"),
+                   ("PAYLOAD_MAX", lim.payload, f"{_num(lim.payload * f.mass_lsb_kg)} kg"),
+                   ("CURRENT_MAX", lim.current, f"{_num(lim.current * f.current_lsb_a)} A")],
+        "lsbs": [("speed", f"{_num(f.speed_lsb_mps)} m/s"), ("accel", f"{_num(f.accel_lsb_mps2)} m/s^2"),
+                 ("pitch, roll", f"{_num(f.angle_lsb_rad)} rad"), ("payload", f"{_num(f.mass_lsb_kg)} kg"),
+                 ("current", f"{_num(f.current_lsb_a)} A")],
+        "ff_bound": f"{_num(fw.ff_bound_a)} A (budget {_num(f.current_budget_a)} A)",
+        "fwd_bound": f"{_num(fw.fwd_bound_mps2)} m/s^2 (goal {_num(fw.fwd_budget_mps2)} m/s^2)",
+        "total_bytes": fw.total_bytes,
+        "acc_step": f"{_num(fw.design.amps_per_acc)} A (current step / 2^{fw.design.guard_bits})",
+    }
