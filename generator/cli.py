@@ -10,8 +10,9 @@ from pathlib import Path
 from typing import Any
 
 import click
+import numpy as np
 
-from generator import __version__, dynamics, envelope, model, stability, units
+from generator import __version__, dynamics, emulate, envelope, model, stability, units
 from generator.errors import CheckFailed, UserError
 
 DEMO = "larkspur.toml"
@@ -121,10 +122,28 @@ def predict(model_path: str, payload: float, speed_right: float, speed_left: flo
     v = open_model(model_path)
     op = dynamics.OperatingPoint(payload, speed_right, speed_left, accel_right, accel_left, pitch, roll)
     doc = predict_point(v, op)
+    _fill_fixed(v, op, doc)
     if as_json:
         click.echo(json.dumps(doc, indent=2))
         return
     click.echo(_predict_table(doc))
+
+
+def _fill_fixed(v: model.Vehicle, op: dynamics.OperatingPoint, doc: dict[str, Any]) -> None:
+    """current_fixed: the bit-exact firmware result at the inputs rounded to firmware steps."""
+    from generator import synthesis
+
+    try:
+        fw = synthesis.synthesise(v)
+    except CheckFailed as exc:
+        click.echo(f"warning: current_fixed unavailable: {exc}", err=True)
+        return
+    inp = synthesis.firmware_inputs(v, op)
+    out = emulate.run(fw.design.feedforward, fw.tables, {k: np.atleast_1d(a) for k, a in inp.items()})
+    if int(out["clamped"][0]):
+        click.echo("warning: operating point outside the envelope; current_fixed uses the clamped inputs", err=True)
+    for i, side in enumerate(("right", "left")):
+        doc[side]["current_fixed"] = float(out["current"][0][i]) * v.firmware.current_lsb_a
 
 
 def _predict_table(doc: dict[str, Any]) -> str:
@@ -185,6 +204,93 @@ def _envelope_table(v: model.Vehicle, rep: envelope.EnvelopeReport) -> str:
               f"peak traction {rep.peak_traction.value:8.2f} of the grip limit ({rep.peak_traction.where})", ""]
     lines.append("feasible" if rep.feasible else "INFEASIBLE: " + "; ".join(rep.problems))
     return "\n".join(lines)
+
+
+def _synthesise(v: model.Vehicle):
+    from generator import synthesis
+
+    rep = envelope.analyse(v)
+    for problem in rep.problems:
+        click.echo(f"warning: {v.source}: envelope: {problem}", err=True)
+    return synthesis.synthesise(v)
+
+
+@cli.command()
+@click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
+@click.option("-o", "--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Output folder.")
+@click.option("--vectors", "vectors_path", type=click.Path(dir_okay=False),
+              help="Also write golden vectors (CSV: inputs and expected outputs in firmware steps).")
+def build(model_path: str, out_dir: str, vectors_path: str | None) -> None:
+    """Generate <name>_ff.h and <name>_ff.c into OUT (atomically); exit 1 if the budget cannot be met."""
+    from generator import outputs, render, vectors
+
+    v = open_model(model_path)
+    fw = _synthesise(v)
+    files = render.render(fw)
+    outputs.write_all(Path(out_dir), files)
+    if vectors_path:
+        outputs.write_atomically(Path(vectors_path), vectors.to_csv(fw, vectors.feedforward_table(fw)))
+    click.echo(f"wrote {', '.join(str(Path(out_dir) / n) for n in files)}: tables {fw.total_bytes} bytes, "
+               f"proven error {fw.ff_bound_a * 1000:.3f} mA of {v.firmware.current_budget_a * 1000:.3f} mA budget")
+
+
+@cli.command()
+@click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
+@click.argument("out_dir", metavar="DIR", type=click.Path(file_okay=False))
+@click.option("--report", "report_path", type=click.Path(dir_okay=False), help="Write a JSON report (SI units).")
+@click.option("--junit", "junit_path", type=click.Path(dir_okay=False), help="Write JUnit XML for CI.")
+def verify(model_path: str, out_dir: str, report_path: str | None, junit_path: str | None) -> None:
+    """Exit 0 when DIR holds exactly what build writes now and the error budget holds, else 1."""
+    from generator import accuracy, outputs, render, synthesis
+
+    v = open_model(model_path)
+    try:
+        fw = synthesis.synthesise(v)
+    except CheckFailed as exc:
+        _write_failed_reports(v, exc, report_path, junit_path)
+        raise
+    files = render.render(fw)
+    statuses = [outputs.check_file(Path(out_dir), name, text) for name, text in files.items()]
+    doc = outputs.report(fw, accuracy.measure(fw), statuses)
+    if report_path:
+        outputs.write_atomically(Path(report_path), json.dumps(doc, indent=2) + "\n")
+    if junit_path:
+        outputs.write_atomically(Path(junit_path), outputs.junit(doc))
+    for s in statuses:
+        click.echo(s.detail)
+    click.echo(f"error: proven {fw.ff_bound_a * 1000:.3f} mA, measured max {doc['max_error'] * 1000:.3f} mA, "
+               f"budget {v.firmware.current_budget_a * 1000:.3f} mA")
+    bad = [s for s in statuses if not s.ok]
+    if bad:
+        raise CheckFailed(bad[0].detail)
+
+
+def _write_failed_reports(v: model.Vehicle, exc: CheckFailed, report_path: str | None, junit_path: str | None) -> None:
+    from generator import outputs
+
+    doc = {"ok": False, "model": v.source, "budget": v.firmware.current_budget_a, "error": str(exc), "tables": []}
+    if report_path:
+        outputs.write_atomically(Path(report_path), json.dumps(doc, indent=2) + "\n")
+    if junit_path:
+        import xml.etree.ElementTree as ET
+
+        suite = ET.Element("testsuite", name="kinetab verify", tests="1", failures="1")
+        case = ET.SubElement(suite, "testcase", classname="kinetab", name="error budget")
+        ET.SubElement(case, "failure", message=str(exc)).text = str(exc)
+        outputs.write_atomically(Path(junit_path), ET.tostring(suite, encoding="unicode") + "\n")
+
+
+@cli.command()
+@click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
+@click.option("-o", "--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Output folder.")
+def report(model_path: str, out_dir: str) -> None:
+    """Plots (PNG) of every table, the error distribution and the envelope, with an index.html."""
+    from generator import accuracy, plots
+
+    v = open_model(model_path)
+    fw = _synthesise(v)
+    names = plots.write_report(fw, accuracy.measure(fw), envelope.analyse(v), Path(out_dir))
+    click.echo(f"wrote {len(names)} files to {out_dir} (open index.html)")
 
 
 def main(argv: list[str] | None = None) -> None:

@@ -1,0 +1,112 @@
+"""End-to-end error of the integer feed-forward against the float model, measured (not bounded).
+
+Points: all envelope corners, the deadband region and at least 100 000 random points, all at
+integer firmware inputs converted exactly to SI, so the budget covers everything after the inputs.
+The error is split by re-running the same program without rounding: interpolation (unrounded
+breakpoints), quantisation (stored entries), arithmetic rounding (the integer ops themselves).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from generator import dynamics, emulate
+from generator.synthesis import Firmware
+from generator.vectors import feedforward_inputs, split_columns
+
+
+@dataclass(frozen=True)
+class Stat:
+    max: float
+    rms: float
+
+
+@dataclass(frozen=True)
+class Accuracy:
+    """Amps throughout; `where` describes the worst point in SI units."""
+
+    points: int
+    total: Stat
+    interpolation: Stat
+    quantisation: Stat
+    arithmetic: Stat
+    where: str
+    clamping: Stat
+    input_resolution: dict[str, float]
+
+
+def operating_point(fw: Firmware, inp: dict[str, np.ndarray]) -> dynamics.OperatingPoint:
+    f = fw.vehicle.firmware
+    return dynamics.OperatingPoint(inp["payload"] * f.mass_lsb_kg, inp["speed"][..., 0] * f.speed_lsb_mps,
+                                   inp["speed"][..., 1] * f.speed_lsb_mps, inp["accel"][..., 0] * f.accel_lsb_mps2,
+                                   inp["accel"][..., 1] * f.accel_lsb_mps2, inp["pitch"] * f.angle_lsb_rad,
+                                   inp["roll"] * f.angle_lsb_rad)
+
+
+def reference_current(fw: Firmware, op: dynamics.OperatingPoint) -> np.ndarray:
+    """Float-model motor current of both wheels, A, shape (n, 2)."""
+    v = fw.vehicle
+    right, left = dynamics.wheel_forces(v, op)
+    return np.stack([dynamics.motor_current(v, right.total, op.speed_right),
+                     dynamics.motor_current(v, left.total, op.speed_left)], axis=-1)
+
+
+def _stat(err: np.ndarray) -> Stat:
+    return Stat(float(np.max(np.abs(err))), float(np.sqrt(np.mean(err**2))))
+
+
+def envelope_points(fw: Firmware, count: int, seed: int) -> dict[str, np.ndarray]:
+    """Corners and deadband cases (inside the envelope only) plus `count` random points."""
+    lim = fw.design.limits
+    inp = feedforward_inputs(lim, count + 3000, seed)
+    rows = np.column_stack([inp["speed"], inp["accel"], inp["pitch"], inp["roll"], inp["payload"]])
+    hi = np.array([lim.speed, lim.speed, lim.accel, lim.accel, lim.pitch, lim.roll, lim.payload])
+    lo = np.array([-lim.speed, -lim.speed, -lim.accel, -lim.accel, -lim.pitch, -lim.roll, 0])
+    inside = np.all((rows >= lo) & (rows <= hi), axis=1)
+    return split_columns(rows[inside])
+
+
+def _describe(fw: Firmware, inp: dict[str, np.ndarray], k: int, side: int) -> str:
+    op = operating_point(fw, {n: a[k] for n, a in inp.items()})
+    return (f"{('right', 'left')[side]} wheel at payload {float(op.payload_kg):.4g} kg, speed "
+            f"{float(op.speed_right):+.4g}/{float(op.speed_left):+.4g} m/s, accel {float(op.accel_right):+.4g}/"
+            f"{float(op.accel_left):+.4g} m/s^2, pitch {np.degrees(float(op.pitch_rad)):+.3f} deg, roll "
+            f"{np.degrees(float(op.roll_rad)):+.3f} deg")
+
+
+def _clamping(fw: Firmware, seed: int) -> Stat:
+    """Error from clamping: points up to 10 % beyond the envelope against the unclamped float model."""
+    lim = fw.design.limits
+    rng = np.random.default_rng(seed + 1)
+    n = 2000
+    grow = lambda m, lo=None: rng.integers(-(m + m // 10) if lo is None else 0, m + m // 10 + 1, n)  # noqa: E731
+    inp = {"speed": np.stack([grow(lim.speed), grow(lim.speed)], -1), "accel": np.stack([grow(lim.accel), grow(lim.accel)], -1),
+           "pitch": grow(lim.pitch), "roll": grow(lim.roll), "payload": grow(lim.payload, 0)}
+    got = emulate.run(fw.design.feedforward, fw.tables, inp)["current"] * fw.vehicle.firmware.current_lsb_a
+    return _stat(got - reference_current(fw, operating_point(fw, inp)))
+
+
+def _input_resolution(fw: Firmware, inp: dict[str, np.ndarray]) -> dict[str, float]:
+    """Largest current change from moving one input by half its firmware step (what the LSB choice costs)."""
+    base = reference_current(fw, operating_point(fw, inp))
+    out = {}
+    for name, cols in (("speed", 2), ("accel", 2), ("pitch", 1), ("roll", 1), ("payload", 1)):
+        moved = {k: v.astype(float) for k, v in inp.items()}
+        moved[name] = moved[name] + 0.5
+        out[name] = float(np.max(np.abs(reference_current(fw, operating_point(fw, moved)) - base)))
+    return out
+
+
+def measure(fw: Firmware, count: int = 100_000, seed: int = 7) -> Accuracy:
+    """Measured end-to-end error and its split over the envelope, A."""
+    inp = envelope_points(fw, count, seed)
+    ref = reference_current(fw, operating_point(fw, inp))
+    lsb = fw.vehicle.firmware.current_lsb_a
+    run = lambda mode: emulate.run(fw.design.feedforward, fw.tables, inp, mode)["current"] * lsb  # noqa: E731
+    got, quant, interp = run("int"), run("quant"), run("interp")
+    err = got - ref
+    k, side = np.unravel_index(int(np.argmax(np.abs(err))), err.shape)
+    return Accuracy(len(inp["pitch"]), _stat(err), _stat(interp - ref), _stat(quant - interp), _stat(got - quant),
+                    _describe(fw, inp, int(k), int(side)), _clamping(fw, seed), _input_resolution(fw, inp))
