@@ -179,14 +179,17 @@ class _Builder:
         rb = self.rng[b] if isinstance(b, str) else fx.Interval(b, b)
         prod = self.rng[a] * rb
         if isinstance(b, str) and self.bits == 16 and shift > 0 and not _fits32(prod, shift):
-            need = math.ceil(math.log2(prod.magnitude() / INT32_MAX)) + 1
-            pre = min(shift, need)
-            if self.rng[a].magnitude() > rb.magnitude():
-                a = self._shifted(a, pre)
-            else:
-                b = self._shifted(b, pre)
-            shift -= pre
-            prod = self.rng[a] * self.rng[b]
+            big_a = self.rng[a].magnitude() > rb.magnitude()
+            for pre in range(1, shift + 1):
+                moved = (self.rng[a].shift_round(pre) * rb) if big_a else (self.rng[a] * rb.shift_round(pre))
+                if _fits32(moved, shift - pre):
+                    if big_a:
+                        a = self._shifted(a, pre)
+                    else:
+                        b = self._shifted(b, pre)
+                    shift -= pre
+                    prod = moved
+                    break
         self.p.ops.append(Mul(dst, a, b, shift))
         self.rng[dst] = prod.shift_round(shift)
         return dst

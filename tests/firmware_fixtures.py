@@ -1,0 +1,18 @@
+"""Shared, cached firmware builds for tests (synthesis takes about half a second per model)."""
+
+from __future__ import annotations
+
+from functools import lru_cache
+
+from generator import model, render, synthesis
+from tests.helpers import DEMO_PATH
+
+
+@lru_cache(maxsize=None)
+def demo_firmware() -> synthesis.Firmware:
+    return synthesis.synthesise(model.load(DEMO_PATH))
+
+
+@lru_cache(maxsize=None)
+def demo_files() -> dict[str, str]:
+    return render.render(demo_firmware())

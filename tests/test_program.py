@@ -1,0 +1,106 @@
+"""The integer program against the float model: exact decomposition, no wrap, clamping, proven bound."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from hypothesis import HealthCheck, assume, given, settings
+from hypothesis import strategies as st
+
+from generator import accuracy, analysis, emulate, stability, synthesis
+from generator.errors import CheckFailed, ModelError
+from tests.firmware_fixtures import demo_firmware
+from tests.helpers import random_doc, vehicle_from
+
+
+def _random_inputs(lim, n, rng):
+    return {"speed": rng.integers(-lim.speed, lim.speed + 1, (n, 2)), "accel": rng.integers(-lim.accel, lim.accel + 1, (n, 2)),
+            "pitch": rng.integers(-lim.pitch, lim.pitch + 1, n), "roll": rng.integers(-lim.roll, lim.roll + 1, n),
+            "payload": rng.integers(0, lim.payload + 1, n)}
+
+
+def test_program_algebra_equals_float_model():
+    """Run without tables or rounding ("exact" mode), the program reproduces dynamics.py to 1e-9."""
+    fw = demo_firmware()
+    inp = _random_inputs(fw.design.limits, 20000, np.random.default_rng(3))
+    exact = emulate.run(fw.design.feedforward, fw.tables, inp, "exact")["current"] * fw.vehicle.firmware.current_lsb_a
+    ref = accuracy.reference_current(fw, accuracy.operating_point(fw, inp))
+    assert exact == pytest.approx(ref, rel=1e-9, abs=1e-9)
+
+
+def test_forward_program_algebra_equals_float_forward_dynamics():
+    from generator import dynamics
+
+    fw = demo_firmware()
+    v = fw.vehicle
+    rng = np.random.default_rng(4)
+    lim = fw.design.limits
+    inp = _random_inputs(lim, 5000, rng)
+    op = accuracy.operating_point(fw, inp)
+    cur = rng.integers(-lim.current, lim.current + 1, (5000, 2))
+    fin = {"current": cur, "speed": inp["speed"], "pitch": inp["pitch"], "roll": inp["roll"], "payload": inp["payload"]}
+    lsb = v.firmware.current_lsb_a
+    qr = dynamics.force_from_current(v, cur[:, 0] * lsb, op.speed_right)
+    ql = dynamics.force_from_current(v, cur[:, 1] * lsb, op.speed_left)
+    ref = np.stack(dynamics.forward_accel(v, op, qr, ql), -1)
+    got = emulate.run(fw.design.forward, fw.tables, fin, "exact")["accel"] * v.firmware.accel_lsb_mps2
+    assert got == pytest.approx(ref, rel=1e-9, abs=1e-9)
+    fixed = emulate.run(fw.design.forward, fw.tables, fin)["accel"] * v.firmware.accel_lsb_mps2
+    assert np.max(np.abs(fixed - ref)) <= fw.fwd_bound_mps2
+
+
+def test_compiled_bound_equals_reference_walk():
+    fw = demo_firmware()
+    errs = analysis.table_errors(fw.tables, fw.errors)
+    for prog in (fw.design.feedforward, fw.design.forward):
+        ref = analysis.error_bound(prog, fw.design.specs, errs)
+        assert float(analysis.compile_bound(prog, fw.design.specs)(errs)) == pytest.approx(float(ref), rel=1e-12)
+
+
+def test_demo_measured_error_within_proven_bound_within_budget():
+    fw = demo_firmware()
+    acc = accuracy.measure(fw, count=100_000)
+    assert acc.points >= 100_000
+    assert acc.total.max <= fw.ff_bound_a <= fw.vehicle.firmware.current_budget_a
+
+
+def test_worst_int32_inputs_do_not_wrap():
+    fw = demo_firmware()
+    big = np.iinfo(np.int32)
+    vals = np.array([big.min, big.max, 0, -1, 1])
+    grid = np.array(np.meshgrid(vals, vals, vals, vals, vals, vals, vals)).reshape(7, -1).T
+    inp = {"speed": grid[:, :2], "accel": grid[:, 2:4], "pitch": grid[:, 4], "roll": grid[:, 5], "payload": grid[:, 6]}
+    emulate.run(fw.design.feedforward, fw.tables, inp)  # raises WrapError on any 32-bit overflow
+    fin = {"current": grid[:, :2], "speed": grid[:, 2:4], "pitch": grid[:, 4], "roll": grid[:, 5], "payload": grid[:, 6]}
+    emulate.run(fw.design.forward, fw.tables, fin)
+
+
+@st.composite
+def firmwares(draw):
+    pick = lambda lo, hi: draw(st.floats(lo, hi, allow_nan=False, allow_infinity=False))  # noqa: E731
+    doc = random_doc(pick, draw(st.sampled_from(["ramp", "gap"])))
+    doc["firmware"]["current_budget"] = f"{pick(15, 80)} mA"
+    doc["firmware"]["word"] = draw(st.sampled_from(["int16", "int32"]))
+    try:
+        v = vehicle_from(doc)
+        stability.check(v)
+        return synthesis.synthesise(v)
+    except (ModelError, CheckFailed):
+        assume(False)
+
+
+@settings(max_examples=15, deadline=None, suppress_health_check=[HealthCheck.too_slow, HealthCheck.filter_too_much])
+@given(fw=firmwares(), seed=st.integers(0, 2**31))
+def test_random_models_no_wrap_clamp_and_stay_within_promised_bound(fw, seed):
+    rng = np.random.default_rng(seed)
+    lim = fw.design.limits
+    inp = _random_inputs(lim, 20000, rng)
+    got = emulate.run(fw.design.feedforward, fw.tables, inp)  # WrapError would fail the test
+    ref = accuracy.reference_current(fw, accuracy.operating_point(fw, inp))
+    err = np.max(np.abs(got["current"] * fw.vehicle.firmware.current_lsb_a - ref))
+    assert err <= fw.ff_bound_a <= fw.vehicle.firmware.current_budget_a
+    assert int(np.max(got["clamped"])) == 0
+    big = {k: np.where(rng.random(np.shape(a)) < 0.5, np.iinfo(np.int32).max, np.iinfo(np.int32).min)
+           for k, a in inp.items()}
+    out = emulate.run(fw.design.feedforward, fw.tables, big)
+    assert np.all(out["clamped"] == 0x7F)
