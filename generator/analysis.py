@@ -48,7 +48,7 @@ def _interp_wide(piece: tb.PieceData) -> bool:
     if piece.segments == 0 or piece.shift == 0:
         return False
     step = int(np.max(np.abs(np.diff(piece.entries))))
-    return step * piece.mask + (1 << (piece.shift - 1)) > fx.word_max(32)
+    return step > fx.word_max(32) or step * piece.mask + (1 << (piece.shift - 1)) > fx.word_max(32)
 
 
 def prove(program: Program, tables: Mapping[str, tb.Table]) -> Proof:

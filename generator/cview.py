@@ -117,6 +117,7 @@ def table_view(fw: Firmware, name: str, prefix: str) -> dict[str, Any]:
         })
     return {
         "name": name, "ctype": ctype, "symmetry": spec.symmetry, "split": spec.split_at,
+        "needs_x": spec.split_at is not None or any(p.segments > 0 for p in table.pieces),
         "meaning": spec.meaning, "q": fx.q_name(spec.frac_bits, spec.bits),
         "lsb": f"2^-{spec.frac_bits}" if spec.frac_bits >= 0 else f"2^{-spec.frac_bits}",
         "lsb_si": f"{_num(2.0**-spec.frac_bits * spec.si_scale)} {spec.si_unit}", "unit": spec.unit,

@@ -36,6 +36,10 @@ class Firmware:
     def total_bytes(self) -> int:
         return sum(t.bytes for t in self.tables.values())
 
+    def __repr__(self) -> str:
+        return (f"Firmware({self.vehicle.name!r}, {self.total_bytes} bytes, bound {self.ff_bound_a:.4g} A, "
+                f"fingerprint 0x{self.fingerprint:08X})")
+
 
 def fingerprint(v: Vehicle) -> int:
     """32-bit hash of the normalised model and the generator version (stable across runs)."""

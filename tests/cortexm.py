@@ -1,0 +1,111 @@
+"""Cross-compile generated C for Cortex-M with zig (pip: ziglang) and run it in unicorn (pip).
+
+Facts from ../shared/TOOLCHAIN.md: no -nostdlib (64-bit helpers come from compiler-rt); the CPU model
+is set with ctl_set_cpu_model (UC_MODE_MCLASS would silently run a Cortex-M33); PT_LOAD segments
+are loaded with pyelftools and the function is called with LR at a sentinel address.
+"""
+
+from __future__ import annotations
+
+import shutil
+import struct
+import subprocess
+import sys
+from dataclasses import dataclass
+from pathlib import Path
+
+STRICT = ["-std=c99", "-Wall", "-Wextra", "-Wpedantic", "-Wconversion", "-Wsign-conversion", "-Werror"]
+TARGETS = {
+    "cortex_m0plus": ["-target", "thumb-freestanding-eabi", "-mcpu=cortex_m0plus"],
+    "cortex_m4": ["-target", "thumb-freestanding-eabi", "-mcpu=cortex_m4"],
+    "cortex_m4f": ["-target", "thumb-freestanding-eabihf", "-mcpu=cortex_m4+vfp4d16sp"],
+}
+RAM, RAM_SIZE = 0x2000_0000, 0x1_0000
+SENTINEL = 0x0000_1000
+
+
+def zig_available() -> bool:
+    try:
+        import ziglang  # noqa: F401
+    except ImportError:
+        return False
+    return True
+
+
+def compile_elf(sources: list[Path], target: str, entry: str, out: Path, extra: list[str] | None = None) -> Path:
+    """One standalone ELF per entry function (-O2, sections garbage-collected)."""
+    cmd = [sys.executable, "-m", "ziglang", "cc", *TARGETS[target], *STRICT, "-O2", "-g", "-ffunction-sections",
+           "-fdata-sections", "-Wl,--gc-sections", f"-Wl,--entry={entry}", *(extra or []), *map(str, sources),
+           "-o", str(out)]
+    subprocess.run(cmd, check=True, capture_output=True, text=True)
+    return out
+
+
+def elf_sizes(elf: Path) -> dict[str, int]:
+    from elftools.elf.elffile import ELFFile
+
+    with elf.open("rb") as fh:
+        e = ELFFile(fh)
+        return {s.name: s["sh_size"] for s in e.iter_sections() if s.name in (".text", ".rodata")}
+
+
+@dataclass
+class Machine:
+    """A loaded ELF in unicorn with the CPU model of the target core."""
+
+    uc: object
+    entry: int
+    count: int = 0
+
+    @classmethod
+    def load(cls, elf: Path, target: str, count: bool = False) -> Machine:
+        from elftools.elf.elffile import ELFFile
+        from unicorn import UC_ARCH_ARM, UC_HOOK_CODE, UC_MODE_THUMB, Uc
+        from unicorn.arm_const import UC_CPU_ARM_CORTEX_M0, UC_CPU_ARM_CORTEX_M4
+
+        uc = Uc(UC_ARCH_ARM, UC_MODE_THUMB)
+        uc.ctl_set_cpu_model(UC_CPU_ARM_CORTEX_M0 if target == "cortex_m0plus" else UC_CPU_ARM_CORTEX_M4)
+        with elf.open("rb") as fh:
+            e = ELFFile(fh)
+            segs = [(s["p_vaddr"], s.data(), s["p_memsz"]) for s in e.iter_segments() if s["p_type"] == "PT_LOAD"]
+            entry = e.header.e_entry & ~1
+        lo = min(a for a, _, _ in segs) & ~0xFFF
+        hi = (max(a + n for a, _, n in segs) + 0xFFF) & ~0xFFF
+        uc.mem_map(0, max(hi, SENTINEL + 0x1000))
+        for addr, data, _ in segs:
+            uc.mem_write(addr, data)
+        uc.mem_map(RAM, RAM_SIZE)
+        m = cls(uc, entry)
+        if count:
+            def hook(_uc, _addr, _size, machine):
+                machine.count += 1
+            uc.hook_add(UC_HOOK_CODE, hook, m, begin=lo, end=hi)
+        return m
+
+    def call(self, args: bytes, out_size: int) -> tuple[bytes, int]:
+        """Call entry(in, out) with the packed input struct; returns (output bytes, instructions)."""
+        from unicorn.arm_const import UC_ARM_REG_LR, UC_ARM_REG_R0, UC_ARM_REG_R1, UC_ARM_REG_SP
+
+        uc = self.uc
+        uc.mem_write(RAM, args)
+        uc.mem_write(RAM + 0x100, b"\0" * out_size)
+        uc.reg_write(UC_ARM_REG_R0, RAM)
+        uc.reg_write(UC_ARM_REG_R1, RAM + 0x100)
+        uc.reg_write(UC_ARM_REG_SP, RAM + RAM_SIZE - 16)
+        uc.reg_write(UC_ARM_REG_LR, SENTINEL | 1)
+        self.count = 0
+        uc.emu_start(self.entry | 1, SENTINEL, count=100_000)
+        return bytes(uc.mem_read(RAM + 0x100, out_size)), self.count
+
+
+def pack_inputs(row) -> bytes:
+    return struct.pack("<7i", *(int(x) for x in row))
+
+
+def unpack_outputs(data: bytes) -> tuple[int, int, int]:
+    a, b, flags = struct.unpack("<iiI", data)
+    return a, b, flags
+
+
+def gcc_available() -> bool:
+    return shutil.which("gcc") is not None

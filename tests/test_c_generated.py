@@ -1,0 +1,151 @@
+"""Generated C: strict host compile, C++ header, bit-exact with the Python emulation on golden
+vectors (gcc), the same integers on Cortex-M0+/M4 (zig cc + unicorn), determinism, fingerprint."""
+
+from __future__ import annotations
+
+import subprocess
+from pathlib import Path
+
+import numpy as np
+import pytest
+from hypothesis import HealthCheck, assume, given, settings
+from hypothesis import strategies as st
+
+from generator import accuracy, emulate, model, render, stability, synthesis, vectors
+from generator.errors import CheckFailed, ModelError
+from tests import cortexm
+from tests.firmware_fixtures import demo_files, demo_firmware
+from tests.helpers import demo_doc, random_doc, vehicle_from
+
+HARNESS = Path(__file__).parent / "c" / "harness.c"
+needs_gcc = pytest.mark.skipif(not cortexm.gcc_available(), reason="gcc is required (apt install gcc)")
+
+
+def write_files(folder: Path, files: dict[str, str]) -> Path:
+    folder.mkdir(parents=True, exist_ok=True)
+    for name, text in files.items():
+        (folder / name).write_text(text)
+    return folder
+
+
+def build_harness(folder: Path, prefix: str) -> Path:
+    exe = folder / "harness"
+    subprocess.run(["gcc", *cortexm.STRICT, "-O2", f"-I{folder}", f'-DKT_HEADER="{prefix}_ff.h"',
+                    f"-DKT_PREFIX={prefix}", str(HARNESS), str(folder / f"{prefix}_ff.c"), "-o", str(exe)],
+                   check=True, capture_output=True, text=True)
+    return exe
+
+
+def run_harness(exe: Path, rows: np.ndarray, mode: str = "ff") -> np.ndarray:
+    text = "\n".join(" ".join(str(int(x)) for x in r) for r in rows) + "\n"
+    out = subprocess.run([str(exe), mode], input=text, capture_output=True, text=True, check=True).stdout
+    return np.array([[int(x) for x in line.split()] for line in out.strip().splitlines()], dtype=np.int64)
+
+
+@pytest.fixture(scope="module")
+def demo_dir(tmp_path_factory):
+    return write_files(tmp_path_factory.mktemp("demo_c"), demo_files())
+
+
+@needs_gcc
+def test_strict_host_compile_and_cxx_header(demo_dir):
+    subprocess.run(["gcc", *cortexm.STRICT, "-O2", "-c", str(demo_dir / "larkspur_ff.c"), "-o", str(demo_dir / "a.o")],
+                   check=True, capture_output=True, text=True)
+    subprocess.run(["g++", "-x", "c++", "-std=c++11", "-Wall", "-Wextra", "-Wpedantic", "-Wconversion",
+                    "-Wsign-conversion", "-Werror", "-fsyntax-only", str(demo_dir / "larkspur_ff.h")],
+                   check=True, capture_output=True, text=True)
+
+
+def test_generated_c_contract(demo_dir):
+    """DESIGN §6: stdint only, guards, prefixed API, no float/double/malloc/division, no time stamp."""
+    h = (demo_dir / "larkspur_ff.h").read_text()
+    c = (demo_dir / "larkspur_ff.c").read_text()
+    assert "#ifndef LARKSPUR_FF_H" in h and 'extern "C"' in h and "#include <stdint.h>" in h
+    assert "typedef struct { int32_t speed[2]" not in h  # laid out one field per line, same members:
+    for member in ("int32_t speed[2];", "int32_t accel[2];", "int32_t pitch;", "int32_t roll;", "int32_t payload;",
+                   "int32_t current[2];", "uint32_t clamped;"):
+        assert member in h
+    assert "enum { LARKSPUR_RIGHT = 0, LARKSPUR_LEFT = 1 };" in h
+    assert "void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out);" in h
+    assert "#define LARKSPUR_FINGERPRINT 0x" in h
+    code = "\n".join(line for line in c.splitlines()
+                     if not line.lstrip().startswith(("/*", "*")) and "sizeof(" not in line)  # static size checks
+    for banned in ("float", "double", "malloc", " / ", "#include <math.h>", "for (", "while ("):
+        assert banned not in code, banned
+    assert c.count("#include") == 1 and "\r" not in c + h
+
+
+@needs_gcc
+def test_host_bit_exact_with_emulation_on_golden_vectors(demo_dir):
+    fw = demo_firmware()
+    rows = vectors.feedforward_table(fw, 10_000)
+    assert len(rows) >= 10_000
+    exe = build_harness(demo_dir, "larkspur")
+    got = run_harness(exe, rows[:, :7])
+    assert np.array_equal(got, rows[:, 7:])
+    # the forward-dynamics helper too
+    rng = np.random.default_rng(5)
+    lim = fw.design.limits
+    fin = np.column_stack([rng.integers(-lim.current - 50, lim.current + 50, (4000, 2)),
+                           rng.integers(-lim.speed - 5, lim.speed + 5, (4000, 2)), rng.integers(-lim.pitch, lim.pitch, 4000),
+                           rng.integers(-lim.roll, lim.roll, 4000), rng.integers(0, lim.payload, 4000)])
+    out = emulate.run(fw.design.forward, fw.tables, {"current": fin[:, :2], "speed": fin[:, 2:4], "pitch": fin[:, 4],
+                                                     "roll": fin[:, 5], "payload": fin[:, 6]})
+    expect = np.column_stack([out["accel"], out["clamped"]])
+    assert np.array_equal(run_harness(exe, fin, "fwd"), expect)
+
+
+def test_two_builds_byte_identical_and_fingerprint_follows_the_model():
+    a = render.render(synthesis.synthesise(model.load(demo_firmware().vehicle.source)))
+    assert a == demo_files()
+    doc = demo_doc()
+    doc["wheels"]["diameter"] = "151 mm"
+    changed = synthesis.synthesise(vehicle_from(doc))
+    assert changed.fingerprint != demo_firmware().fingerprint
+    assert f"0x{changed.fingerprint:08X}u" in render.render(changed)["larkspur_ff.h"]
+
+
+@pytest.mark.slow
+@pytest.mark.skipif(not cortexm.zig_available(), reason="pip install ziglang")
+@pytest.mark.parametrize("target", ["cortex_m0plus", "cortex_m4"])
+def test_cortex_m_same_integers_as_host(demo_dir, target, tmp_path):
+    """Strict flags for the target, then run in unicorn with the matching CPU model (TOOLCHAIN.md)."""
+    fw = demo_firmware()
+    rows = vectors.feedforward_table(fw, 1500)
+    elf = cortexm.compile_elf([demo_dir / "larkspur_ff.c"], target, "larkspur_feedforward", tmp_path / "ff.elf")
+    machine = cortexm.Machine.load(elf, target)
+    for row in rows:
+        out, _ = machine.call(cortexm.pack_inputs(row[:7]), 12)
+        assert cortexm.unpack_outputs(out) == tuple(int(x) for x in row[7:]), row
+
+
+@st.composite
+def random_firmware(draw):
+    pick = lambda lo, hi: draw(st.floats(lo, hi, allow_nan=False, allow_infinity=False))  # noqa: E731
+    doc = random_doc(pick, draw(st.sampled_from(["ramp", "gap"])))
+    doc["name"] = "veh"
+    doc["firmware"]["current_budget"] = f"{pick(15, 80)} mA"
+    doc["firmware"]["word"] = draw(st.sampled_from(["int16", "int32"]))
+    try:
+        v = vehicle_from(doc)
+        stability.check(v)
+        return synthesis.synthesise(v)
+    except (ModelError, CheckFailed):
+        assume(False)
+
+
+@needs_gcc
+@pytest.mark.slow
+@settings(max_examples=6, deadline=None, suppress_health_check=[HealthCheck.too_slow, HealthCheck.filter_too_much,
+                                                              HealthCheck.function_scoped_fixture])
+@given(fw=random_firmware())
+def test_compiled_c_within_budget_of_float_model_on_random_models(fw, tmp_path_factory):
+    folder = write_files(tmp_path_factory.mktemp("rand_c"), render.render(fw))
+    exe = build_harness(folder, "veh")
+    inp = accuracy.envelope_points(fw, 5000, 11)
+    rows = np.column_stack([inp["speed"], inp["accel"], inp["pitch"], inp["roll"], inp["payload"]])
+    ints = run_harness(exe, rows)
+    assert np.array_equal(ints[:, :2], emulate.run(fw.design.feedforward, fw.tables, inp)["current"])
+    got = ints[:, :2] * fw.vehicle.firmware.current_lsb_a
+    ref = accuracy.reference_current(fw, accuracy.operating_point(fw, inp))
+    assert np.max(np.abs(got - ref)) <= fw.vehicle.firmware.current_budget_a
