@@ -92,7 +92,7 @@ def _input_resolution(fw: Firmware, inp: dict[str, np.ndarray]) -> dict[str, flo
     """Largest current change from moving one input by half its firmware step (what the LSB choice costs)."""
     base = reference_current(fw, operating_point(fw, inp))
     out = {}
-    for name, cols in (("speed", 2), ("accel", 2), ("pitch", 1), ("roll", 1), ("payload", 1)):
+    for name in ("speed", "accel", "pitch", "roll", "payload"):
         moved = {k: v.astype(float) for k, v in inp.items()}
         moved[name] = moved[name] + 0.5
         out[name] = float(np.max(np.abs(reference_current(fw, operating_point(fw, moved)) - base)))

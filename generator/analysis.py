@@ -28,6 +28,7 @@ class Proof:
 
     ranges: dict[str, fx.Interval]
     wide: dict[str, bool]                 # Mul / Backdrive dst -> product needs int64
+    split: dict[str, bool]                # Backdrive dst -> exact 32-bit two-part product instead
     lookup_wide: dict[str, tuple[bool, ...]]  # table -> per piece: interpolation product needs int64
     outputs: dict[tuple[str, int], fx.Interval]
 
@@ -55,6 +56,7 @@ def prove(program: Program, tables: Mapping[str, tb.Table]) -> Proof:
     """Walk the ops with integer intervals; raise CheckFailed naming the signal that would overflow."""
     rng: dict[str, fx.Interval] = {}
     wide: dict[str, bool] = {}
+    split: dict[str, bool] = {}
     outputs: dict[tuple[str, int], fx.Interval] = {}
     for op in program.ops:
         if isinstance(op, Clamp):
@@ -81,6 +83,7 @@ def prove(program: Program, tables: Mapping[str, tb.Table]) -> Proof:
             prod = rng[op.src] * fx.Interval(op.k, op.k)
             with_half = fx.Interval(prod.lo, prod.hi + (1 << (op.shift - 1)))
             wide[op.dst] = not with_half.fits(32)
+            split[op.dst] = wide[op.dst] and _split_fits(rng[op.src], op.k, op.shift)
             rng[op.dst] = rng[op.src].hull(prod.shift_round(op.shift))
         elif isinstance(op, Store):
             with_half = fx.Interval(rng[op.src].lo, rng[op.src].hi + ((1 << (op.shift - 1)) if op.shift > 0 else 0))
@@ -91,7 +94,15 @@ def prove(program: Program, tables: Mapping[str, tb.Table]) -> Proof:
         if not rng[op.dst].fits(32):
             raise _fail(program, f"signal {op.dst}", rng[op.dst])
     lookup_wide = {name: tuple(_interp_wide(p) for p in t.pieces) for name, t in tables.items()}
-    return Proof(rng, wide, lookup_wide, outputs)
+    return Proof(rng, wide, split, lookup_wide, outputs)
+
+
+def _split_fits(src: fx.Interval, k: int, shift: int) -> bool:
+    """(x >> s) * k + (((x & (2^s - 1)) * k + half) >> s) equals round(x * k / 2^s) exactly; usable when
+    both partial products fit 32 bits (saves a 64-bit multiply, a library call on Cortex-M0+)."""
+    high = fx.Interval(src.lo >> shift, src.hi >> shift) * fx.Interval(k, k)
+    low = ((1 << shift) - 1) * abs(k) + (1 << (shift - 1))
+    return high.fits(32) and low <= fx.word_max(32) and k >= 0
 
 
 def error_bound(program: Program, specs: Mapping[str, tb.TableSpec], table_error: Mapping[str, object],

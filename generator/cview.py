@@ -11,7 +11,6 @@ from typing import Any
 
 from generator import __version__
 from generator import fixedpoint as fx
-from generator import tables as tb
 from generator.program import Backdrive, Clamp, Lookup, Mul, Program, Store, Sum
 from generator.synthesis import FORMAT_VERSION, Firmware
 
@@ -149,7 +148,8 @@ def _op_view(op, proof, prefix: str) -> dict[str, Any]:
         return {"kind": "sum", "dst": op.dst, "terms": terms}
     if isinstance(op, Backdrive):
         return {"kind": "backdrive", "dst": op.dst, "src": op.src, "speed": op.speed, "k": op.k, "shift": op.shift,
-                "half": 1 << (op.shift - 1), "wide": proof.wide[op.dst], "k_exact": _num(op.k_exact)}
+                "half": 1 << (op.shift - 1), "wide": proof.wide[op.dst], "split": proof.split[op.dst],
+                "mask": f"0x{(1 << op.shift) - 1:X}", "k_exact": _num(op.k_exact)}
     if isinstance(op, Store):
         return {"kind": "store", "dst": f"{op.field}[{op.index}]", "src": op.src, "shift": op.shift,
                 "half": (1 << (op.shift - 1)) if op.shift > 0 else 0}

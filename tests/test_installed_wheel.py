@@ -39,6 +39,7 @@ def test_wheel_contains_templates_and_demo(installed):
     wheel = installed[0]
     names = zipfile.ZipFile(wheel).namelist()
     assert "generator/demos/larkspur.toml" in names
+    assert {"generator/templates/ff.h.j2", "generator/templates/ff.c.j2", "generator/templates/ops.j2"} <= set(names)
     assert any(n.startswith("hil/") for n in names)
 
 
@@ -53,3 +54,6 @@ def test_installed_commands_run(installed):
     doc = json.loads(_kinetab(installed, "predict", "cart.toml", "--speed-right", "0.3", "--json").stdout)
     assert doc["right"]["current"] > 0
     assert "feasible" in _kinetab(installed, "envelope", "cart.toml").stdout
+    _kinetab(installed, "build", "cart.toml", "-o", "gen")  # renders from the templates inside the wheel
+    assert (work / "gen" / "larkspur_ff.h").read_text().startswith("/*")
+    assert _kinetab(installed, "verify", "cart.toml", "gen").returncode == 0

@@ -1,0 +1,23 @@
+"""README stays true: every model key is documented, and the two set-up commands are the ones CI runs."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from generator.model import SCHEMA
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def test_every_model_key_in_readme_reference():
+    readme = (ROOT / "README.md").read_text()
+    for section, keys in SCHEMA.items():
+        for key in keys:
+            assert f"`{section}.{key}`" in readme, f"{section}.{key} missing from README's model reference"
+
+
+def test_ci_runs_readme_test_command():
+    readme = (ROOT / "README.md").read_text()
+    ci = (ROOT / ".ci" / "run").read_text()
+    assert "pip install '.[test]' && python -m pytest -q" in readme
+    assert "python -m pip install -q '.[test]'" in ci and "python -m pytest -q" in ci

@@ -1,0 +1,50 @@
+"""Golden copies of the demo's generated C: any change to the output shows up as a reviewable diff.
+
+The goldens are not trusted on their own: the committed C is compiled and run on golden vectors and
+must equal the emulator bit for bit and stay within the budget of the float model.
+Refresh with `python -m pytest tests/test_golden.py --refresh-golden` and review the diff.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from generator import accuracy, vectors
+from tests.firmware_fixtures import demo_files, demo_firmware
+from tests.test_c_generated import build_harness, needs_gcc, run_harness
+
+GOLDEN = Path(__file__).parent / "golden"
+
+
+def test_generated_files_match_golden(request):
+    files = demo_files()
+    if request.config.getoption("--refresh-golden"):
+        for name, text in files.items():
+            (GOLDEN / name).write_text(text, encoding="utf-8", newline="\n")
+    for name, text in files.items():
+        assert (GOLDEN / name).read_text(encoding="utf-8") == text, f"{name} changed: refresh and review the diff"
+
+
+@needs_gcc
+def test_golden_c_is_right_independently(tmp_path):
+    for name in ("larkspur_ff.c", "larkspur_ff.h"):
+        (tmp_path / name).write_bytes((GOLDEN / name).read_bytes())
+    fw = demo_firmware()
+    rows = vectors.feedforward_table(fw, 3000)
+    got = run_harness(build_harness(tmp_path, "larkspur"), rows[:, :7])
+    assert np.array_equal(got, rows[:, 7:])
+    inp = accuracy.envelope_points(fw, 3000, 21)
+    grid = np.column_stack([inp["speed"], inp["accel"], inp["pitch"], inp["roll"], inp["payload"]])
+    amps = run_harness(build_harness(tmp_path, "larkspur"), grid)[:, :2] * fw.vehicle.firmware.current_lsb_a
+    ref = accuracy.reference_current(fw, accuracy.operating_point(fw, inp))
+    assert np.max(np.abs(amps - ref)) <= fw.vehicle.firmware.current_budget_a
+
+
+@pytest.mark.parametrize("name", ["larkspur_ff.c", "larkspur_ff.h"])
+def test_golden_files_have_lf_endings_and_no_time_stamp(name):
+    data = (GOLDEN / name).read_bytes()
+    assert b"\r" not in data and data.endswith(b"\n")
+    assert b"2026" not in data and b"generated on" not in data.lower()
