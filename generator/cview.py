@@ -156,8 +156,31 @@ def _op_view(op, proof, prefix: str) -> dict[str, Any]:
     raise TypeError(op)
 
 
-def program_view(prog: Program, proof, prefix: str) -> dict[str, Any]:
-    return {"name": prog.name, "ops": [_op_view(op, proof, prefix) for op in prog.ops]}
+def _group_key(op, tables: dict[str, dict[str, Any]]) -> tuple | None:
+    if not isinstance(op, Lookup):
+        return None
+    t = tables[op.table]
+    return (op.src, t["symmetry"] != "none", t["split"])
+
+
+def program_view(prog: Program, proof, prefix: str, tables: dict[str, dict[str, Any]]) -> dict[str, Any]:
+    """One view per op; adjacent lookups of the same input with the same split share one inline block
+    (one |x|, one comparison), which the compiler cannot merge across two calls on its own."""
+    views: list[dict[str, Any]] = []
+    ops = prog.ops
+    k = 0
+    while k < len(ops):
+        key = _group_key(ops[k], tables)
+        j = k + 1
+        while key is not None and j < len(ops) and _group_key(ops[j], tables) == key:
+            j += 1
+        if j - k > 1:
+            members = [{"dst": op.dst, "t": tables[op.table]} for op in ops[k:j]]
+            views.append({"kind": "group", "src": key[0], "abs": key[1], "split": key[2], "members": members})
+        else:
+            views.append(_op_view(ops[k], proof, prefix))
+        k = j
+    return {"name": prog.name, "ops": views}
 
 
 def context(fw: Firmware) -> dict[str, Any]:
@@ -167,13 +190,14 @@ def context(fw: Firmware) -> dict[str, Any]:
     lim, f = fw.design.limits, v.firmware
     clamp_bits = {prog: [(f"{prefix.upper()}_CLAMPED_{n}", f"0x{1 << i:02X}u") for i, n in enumerate(names)]
                   for prog, names in CLAMP_NAMES.items()}
+    tables = {n: table_view(fw, n, prefix) for n in fw.tables}
     return {
         "prefix": prefix, "PREFIX": prefix.upper(), "version": __version__, "format": FORMAT_VERSION,
         "fingerprint": f"0x{fw.fingerprint:08X}u", "caution": CAUTION,
         "header": f"{prefix}_ff.h", "guard": f"{prefix.upper()}_FF_H",
-        "tables": [table_view(fw, n, prefix) for n in fw.tables],
-        "feedforward": program_view(fw.design.feedforward, fw.ff_proof, prefix),
-        "forward": program_view(fw.design.forward, fw.fwd_proof, prefix),
+        "tables": list(tables.values()),
+        "feedforward": program_view(fw.design.feedforward, fw.ff_proof, prefix, tables),
+        "forward": program_view(fw.design.forward, fw.fwd_proof, prefix, tables),
         "clamp_bits": clamp_bits,
         "limits": [("SPEED_MAX", lim.speed, f"{_num(lim.speed * f.speed_lsb_mps)} m/s"),
                    ("ACCEL_MAX", lim.accel, f"{_num(lim.accel * f.accel_lsb_mps2)} m/s^2"),

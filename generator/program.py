@@ -346,9 +346,9 @@ def _passive(bd: _Builder, side: str, sign: int, other: str) -> str:
     u = f"speed_{side}"
     bd.mul(f"turn_{side}", "d_speed", f"speed_{other}", 0)
     bd.mul(f"cor_{side}", "t_cor", f"turn_{side}", s["cor"].frac_bits)
-    bd.lookup(f"t_fric_{side}", "friction", u)
-    bd.mul(f"fric_{side}", f"t_fric_{side}", 1, s["friction"].frac_bits)
+    bd.lookup(f"t_fric_{side}", "friction", u)  # adjacent lookups of one input share abs and split in C
     bd.lookup(f"t_shape_{side}", "shape", u)
+    bd.mul(f"fric_{side}", f"t_fric_{side}", 1, s["friction"].frac_bits)
     bd.mul(f"roll_{side}", "r_level", f"t_shape_{side}", s["shape"].frac_bits)
     return bd.sum(f"passive_{side}", (sign, f"cor_{side}"), (1, f"fric_{side}"), (1, f"roll_{side}"),
                   (1, "g_pitch"), (sign, "g_roll"))

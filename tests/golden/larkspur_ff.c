@@ -665,15 +665,84 @@ void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out)
         speed_l = 1600;
         clamped |= 0x02u;
     }
-    const int32_t t_sin_pitch = lookup_sin_pitch(pitch);
-    const int32_t t_cos_pitch = lookup_cos_pitch(pitch);
-    const int32_t t_sin_roll = lookup_sin_roll(roll);
-    const int32_t t_cos_roll = lookup_cos_roll(roll);
-    const int32_t t_cor = lookup_cor(payload);
-    const int32_t t_grav_pitch = lookup_grav_pitch(payload);
-    const int32_t t_grav_roll = lookup_grav_roll(payload);
-    const int32_t t_roll_level = lookup_roll_level(payload);
-    const int32_t t_roll_slope = lookup_roll_slope(payload);
+    int32_t t_sin_pitch;
+    int32_t t_cos_pitch;
+    {
+        /* sin_pitch and cos_pitch of pitch, sharing |x| and the piece choice */
+        const int32_t x = (pitch < 0) ? -pitch : pitch;
+        {
+            const int32_t d = x;
+            const int32_t i = d >> 6;
+            const int32_t f = d & 0x3F;
+            const int32_t lo = larkspur_tab_sin_pitch_0[i];
+            t_sin_pitch = lo + (((larkspur_tab_sin_pitch_0[i + 1] - lo) * f + 32) >> 6);
+        }
+        {
+            const int32_t d = x;
+            const int32_t i = d >> 6;
+            const int32_t f = d & 0x3F;
+            const int32_t lo = larkspur_tab_cos_pitch_0[i];
+            t_cos_pitch = lo + (((larkspur_tab_cos_pitch_0[i + 1] - lo) * f + 32) >> 6);
+        }
+        if (pitch < 0) {
+            t_sin_pitch = -t_sin_pitch;
+        }
+    }
+    int32_t t_sin_roll;
+    int32_t t_cos_roll;
+    {
+        /* sin_roll and cos_roll of roll, sharing |x| and the piece choice */
+        const int32_t x = (roll < 0) ? -roll : roll;
+        {
+            /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
+            const int32_t d = x;
+            t_sin_roll = larkspur_tab_sin_roll_0[0] + (((larkspur_tab_sin_roll_0[1] - larkspur_tab_sin_roll_0[0]) * d + 64) >> 7);
+        }
+        {
+            const int32_t d = x;
+            const int32_t i = d >> 6;
+            const int32_t f = d & 0x3F;
+            const int32_t lo = larkspur_tab_cos_roll_0[i];
+            t_cos_roll = lo + (((larkspur_tab_cos_roll_0[i + 1] - lo) * f + 32) >> 6);
+        }
+        if (roll < 0) {
+            t_sin_roll = -t_sin_roll;
+        }
+    }
+    int32_t t_cor;
+    int32_t t_grav_pitch;
+    int32_t t_grav_roll;
+    int32_t t_roll_level;
+    int32_t t_roll_slope;
+    {
+        /* cor and grav_pitch and grav_roll and roll_level and roll_slope of payload, sharing the piece choice */
+        const int32_t x = payload;
+        {
+            /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
+            const int32_t d = x;
+            t_cor = larkspur_tab_cor_0[0] + (((larkspur_tab_cor_0[1] - larkspur_tab_cor_0[0]) * d + 512) >> 10);
+        }
+        {
+            /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
+            const int32_t d = x;
+            t_grav_pitch = larkspur_tab_grav_pitch_0[0] + (((larkspur_tab_grav_pitch_0[1] - larkspur_tab_grav_pitch_0[0]) * d + 512) >> 10);
+        }
+        {
+            /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
+            const int32_t d = x;
+            t_grav_roll = larkspur_tab_grav_roll_0[0] + (((larkspur_tab_grav_roll_0[1] - larkspur_tab_grav_roll_0[0]) * d + 512) >> 10);
+        }
+        {
+            /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
+            const int32_t d = x;
+            t_roll_level = larkspur_tab_roll_level_0[0] + (((larkspur_tab_roll_level_0[1] - larkspur_tab_roll_level_0[0]) * d + 512) >> 10);
+        }
+        {
+            /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
+            const int32_t d = x;
+            t_roll_slope = larkspur_tab_roll_slope_0[0] + (((larkspur_tab_roll_slope_0[1] - larkspur_tab_roll_slope_0[0]) * d + 512) >> 10);
+        }
+    }
     const int32_t g_pitch = (t_grav_pitch * t_sin_pitch + 4) >> 3;
     const int32_t cos_sin = (t_cos_pitch * t_sin_roll + 8192) >> 14;
     const int32_t g_roll = (t_grav_roll * cos_sin + 32) >> 6;
@@ -698,14 +767,61 @@ void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out)
         accel_l = 500;
         clamped |= 0x08u;
     }
-    const int32_t t_m11 = lookup_m11(payload);
-    const int32_t t_m12 = lookup_m12(payload);
+    int32_t t_m11;
+    int32_t t_m12;
+    {
+        /* m11 and m12 of payload, sharing the piece choice */
+        const int32_t x = payload;
+        {
+            /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
+            const int32_t d = x;
+            t_m11 = larkspur_tab_m11_0[0] + (((larkspur_tab_m11_0[1] - larkspur_tab_m11_0[0]) * d + 512) >> 10);
+        }
+        {
+            /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
+            const int32_t d = x;
+            t_m12 = larkspur_tab_m12_0[0] + (((larkspur_tab_m12_0[1] - larkspur_tab_m12_0[0]) * d + 512) >> 10);
+        }
+    }
     const int32_t turn_r = d_speed * speed_l;
     const int32_t turn_r_s6 = (turn_r + 32) >> 6;
     const int32_t cor_r = (t_cor * turn_r_s6 + 32) >> 6;
-    const int32_t t_fric_r = lookup_friction(speed_r);
+    int32_t t_fric_r;
+    int32_t t_shape_r;
+    {
+        /* friction and shape of speed_r, sharing |x| and the piece choice */
+        const int32_t x = (speed_r < 0) ? -speed_r : speed_r;
+        if (x <= 30) {
+            {
+                const int32_t d = x;
+                const int32_t i = d >> 4;
+                const int32_t f = d & 0xF;
+                const int32_t lo = larkspur_tab_friction_0[i];
+                t_fric_r = lo + (((larkspur_tab_friction_0[i + 1] - lo) * f + 8) >> 4);
+            }
+            {
+                /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
+                const int32_t d = x;
+                t_shape_r = larkspur_tab_shape_0[0] + (((larkspur_tab_shape_0[1] - larkspur_tab_shape_0[0]) * d + 16) >> 5);
+            }
+        } else {
+            {
+                const int32_t d = x - 31;
+                const int32_t i = d >> 6;
+                const int32_t f = d & 0x3F;
+                const int32_t lo = larkspur_tab_friction_1[i];
+                t_fric_r = lo + (((larkspur_tab_friction_1[i + 1] - lo) * f + 32) >> 6);
+            }
+            {
+                t_shape_r = larkspur_tab_shape_1[0];
+            }
+        }
+        if (speed_r < 0) {
+            t_fric_r = -t_fric_r;
+            t_shape_r = -t_shape_r;
+        }
+    }
     const int32_t fric_r = t_fric_r * 128;
-    const int32_t t_shape_r = lookup_shape(speed_r);
     const int32_t r_level_s5 = (r_level + 16) >> 5;
     const int32_t roll_r = (r_level_s5 * t_shape_r + 128) >> 8;
     const int32_t passive_r = cor_r + fric_r + roll_r + g_pitch + g_roll;
@@ -722,9 +838,42 @@ void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out)
     const int32_t turn_l = d_speed * speed_r;
     const int32_t turn_l_s6 = (turn_l + 32) >> 6;
     const int32_t cor_l = (t_cor * turn_l_s6 + 32) >> 6;
-    const int32_t t_fric_l = lookup_friction(speed_l);
+    int32_t t_fric_l;
+    int32_t t_shape_l;
+    {
+        /* friction and shape of speed_l, sharing |x| and the piece choice */
+        const int32_t x = (speed_l < 0) ? -speed_l : speed_l;
+        if (x <= 30) {
+            {
+                const int32_t d = x;
+                const int32_t i = d >> 4;
+                const int32_t f = d & 0xF;
+                const int32_t lo = larkspur_tab_friction_0[i];
+                t_fric_l = lo + (((larkspur_tab_friction_0[i + 1] - lo) * f + 8) >> 4);
+            }
+            {
+                /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
+                const int32_t d = x;
+                t_shape_l = larkspur_tab_shape_0[0] + (((larkspur_tab_shape_0[1] - larkspur_tab_shape_0[0]) * d + 16) >> 5);
+            }
+        } else {
+            {
+                const int32_t d = x - 31;
+                const int32_t i = d >> 6;
+                const int32_t f = d & 0x3F;
+                const int32_t lo = larkspur_tab_friction_1[i];
+                t_fric_l = lo + (((larkspur_tab_friction_1[i + 1] - lo) * f + 32) >> 6);
+            }
+            {
+                t_shape_l = larkspur_tab_shape_1[0];
+            }
+        }
+        if (speed_l < 0) {
+            t_fric_l = -t_fric_l;
+            t_shape_l = -t_shape_l;
+        }
+    }
     const int32_t fric_l = t_fric_l * 128;
-    const int32_t t_shape_l = lookup_shape(speed_l);
     const int32_t roll_l = (r_level_s5 * t_shape_l + 128) >> 8;
     const int32_t passive_l = -cor_l + fric_l + roll_l + g_pitch - g_roll;
     const int32_t in_self_l = t_m11 * accel_l;
@@ -783,15 +932,84 @@ void larkspur_forward(const larkspur_fwd_in_t *in, larkspur_fwd_out_t *out)
         speed_l = 1600;
         clamped |= 0x08u;
     }
-    const int32_t t_sin_pitch = lookup_sin_pitch(pitch);
-    const int32_t t_cos_pitch = lookup_cos_pitch(pitch);
-    const int32_t t_sin_roll = lookup_sin_roll(roll);
-    const int32_t t_cos_roll = lookup_cos_roll(roll);
-    const int32_t t_cor = lookup_cor(payload);
-    const int32_t t_grav_pitch = lookup_grav_pitch(payload);
-    const int32_t t_grav_roll = lookup_grav_roll(payload);
-    const int32_t t_roll_level = lookup_roll_level(payload);
-    const int32_t t_roll_slope = lookup_roll_slope(payload);
+    int32_t t_sin_pitch;
+    int32_t t_cos_pitch;
+    {
+        /* sin_pitch and cos_pitch of pitch, sharing |x| and the piece choice */
+        const int32_t x = (pitch < 0) ? -pitch : pitch;
+        {
+            const int32_t d = x;
+            const int32_t i = d >> 6;
+            const int32_t f = d & 0x3F;
+            const int32_t lo = larkspur_tab_sin_pitch_0[i];
+            t_sin_pitch = lo + (((larkspur_tab_sin_pitch_0[i + 1] - lo) * f + 32) >> 6);
+        }
+        {
+            const int32_t d = x;
+            const int32_t i = d >> 6;
+            const int32_t f = d & 0x3F;
+            const int32_t lo = larkspur_tab_cos_pitch_0[i];
+            t_cos_pitch = lo + (((larkspur_tab_cos_pitch_0[i + 1] - lo) * f + 32) >> 6);
+        }
+        if (pitch < 0) {
+            t_sin_pitch = -t_sin_pitch;
+        }
+    }
+    int32_t t_sin_roll;
+    int32_t t_cos_roll;
+    {
+        /* sin_roll and cos_roll of roll, sharing |x| and the piece choice */
+        const int32_t x = (roll < 0) ? -roll : roll;
+        {
+            /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
+            const int32_t d = x;
+            t_sin_roll = larkspur_tab_sin_roll_0[0] + (((larkspur_tab_sin_roll_0[1] - larkspur_tab_sin_roll_0[0]) * d + 64) >> 7);
+        }
+        {
+            const int32_t d = x;
+            const int32_t i = d >> 6;
+            const int32_t f = d & 0x3F;
+            const int32_t lo = larkspur_tab_cos_roll_0[i];
+            t_cos_roll = lo + (((larkspur_tab_cos_roll_0[i + 1] - lo) * f + 32) >> 6);
+        }
+        if (roll < 0) {
+            t_sin_roll = -t_sin_roll;
+        }
+    }
+    int32_t t_cor;
+    int32_t t_grav_pitch;
+    int32_t t_grav_roll;
+    int32_t t_roll_level;
+    int32_t t_roll_slope;
+    {
+        /* cor and grav_pitch and grav_roll and roll_level and roll_slope of payload, sharing the piece choice */
+        const int32_t x = payload;
+        {
+            /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
+            const int32_t d = x;
+            t_cor = larkspur_tab_cor_0[0] + (((larkspur_tab_cor_0[1] - larkspur_tab_cor_0[0]) * d + 512) >> 10);
+        }
+        {
+            /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
+            const int32_t d = x;
+            t_grav_pitch = larkspur_tab_grav_pitch_0[0] + (((larkspur_tab_grav_pitch_0[1] - larkspur_tab_grav_pitch_0[0]) * d + 512) >> 10);
+        }
+        {
+            /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
+            const int32_t d = x;
+            t_grav_roll = larkspur_tab_grav_roll_0[0] + (((larkspur_tab_grav_roll_0[1] - larkspur_tab_grav_roll_0[0]) * d + 512) >> 10);
+        }
+        {
+            /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
+            const int32_t d = x;
+            t_roll_level = larkspur_tab_roll_level_0[0] + (((larkspur_tab_roll_level_0[1] - larkspur_tab_roll_level_0[0]) * d + 512) >> 10);
+        }
+        {
+            /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
+            const int32_t d = x;
+            t_roll_slope = larkspur_tab_roll_slope_0[0] + (((larkspur_tab_roll_slope_0[1] - larkspur_tab_roll_slope_0[0]) * d + 512) >> 10);
+        }
+    }
     const int32_t g_pitch = (t_grav_pitch * t_sin_pitch + 4) >> 3;
     const int32_t cos_sin = (t_cos_pitch * t_sin_roll + 8192) >> 14;
     const int32_t g_roll = (t_grav_roll * cos_sin + 32) >> 6;
@@ -800,14 +1018,65 @@ void larkspur_forward(const larkspur_fwd_in_t *in, larkspur_fwd_out_t *out)
     const int32_t r_down = (t_roll_slope * t_sin_pitch + 1024) >> 11;
     const int32_t r_level = r_up - r_down;
     const int32_t d_speed = speed_r - speed_l;
-    const int32_t t_minv11 = lookup_minv11(payload);
-    const int32_t t_minv12 = lookup_minv12(payload);
+    int32_t t_minv11;
+    int32_t t_minv12;
+    {
+        /* minv11 and minv12 of payload, sharing the piece choice */
+        const int32_t x = payload;
+        {
+            const int32_t d = x;
+            const int32_t i = d >> 4;
+            const int32_t f = d & 0xF;
+            const int32_t lo = larkspur_tab_minv11_0[i];
+            t_minv11 = lo + (((larkspur_tab_minv11_0[i + 1] - lo) * f + 8) >> 4);
+        }
+        {
+            const int32_t d = x;
+            const int32_t i = d >> 5;
+            const int32_t f = d & 0x1F;
+            const int32_t lo = larkspur_tab_minv12_0[i];
+            t_minv12 = lo + (((larkspur_tab_minv12_0[i + 1] - lo) * f + 16) >> 5);
+        }
+    }
     const int32_t turn_r = d_speed * speed_l;
     const int32_t turn_r_s6 = (turn_r + 32) >> 6;
     const int32_t cor_r = (t_cor * turn_r_s6 + 32) >> 6;
-    const int32_t t_fric_r = lookup_friction(speed_r);
+    int32_t t_fric_r;
+    int32_t t_shape_r;
+    {
+        /* friction and shape of speed_r, sharing |x| and the piece choice */
+        const int32_t x = (speed_r < 0) ? -speed_r : speed_r;
+        if (x <= 30) {
+            {
+                const int32_t d = x;
+                const int32_t i = d >> 4;
+                const int32_t f = d & 0xF;
+                const int32_t lo = larkspur_tab_friction_0[i];
+                t_fric_r = lo + (((larkspur_tab_friction_0[i + 1] - lo) * f + 8) >> 4);
+            }
+            {
+                /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
+                const int32_t d = x;
+                t_shape_r = larkspur_tab_shape_0[0] + (((larkspur_tab_shape_0[1] - larkspur_tab_shape_0[0]) * d + 16) >> 5);
+            }
+        } else {
+            {
+                const int32_t d = x - 31;
+                const int32_t i = d >> 6;
+                const int32_t f = d & 0x3F;
+                const int32_t lo = larkspur_tab_friction_1[i];
+                t_fric_r = lo + (((larkspur_tab_friction_1[i + 1] - lo) * f + 32) >> 6);
+            }
+            {
+                t_shape_r = larkspur_tab_shape_1[0];
+            }
+        }
+        if (speed_r < 0) {
+            t_fric_r = -t_fric_r;
+            t_shape_r = -t_shape_r;
+        }
+    }
     const int32_t fric_r = t_fric_r * 128;
-    const int32_t t_shape_r = lookup_shape(speed_r);
     const int32_t r_level_s5 = (r_level + 16) >> 5;
     const int32_t roll_r = (r_level_s5 * t_shape_r + 128) >> 8;
     const int32_t passive_r = cor_r + fric_r + roll_r + g_pitch + g_roll;
@@ -830,9 +1099,42 @@ void larkspur_forward(const larkspur_fwd_in_t *in, larkspur_fwd_out_t *out)
     const int32_t turn_l = d_speed * speed_r;
     const int32_t turn_l_s6 = (turn_l + 32) >> 6;
     const int32_t cor_l = (t_cor * turn_l_s6 + 32) >> 6;
-    const int32_t t_fric_l = lookup_friction(speed_l);
+    int32_t t_fric_l;
+    int32_t t_shape_l;
+    {
+        /* friction and shape of speed_l, sharing |x| and the piece choice */
+        const int32_t x = (speed_l < 0) ? -speed_l : speed_l;
+        if (x <= 30) {
+            {
+                const int32_t d = x;
+                const int32_t i = d >> 4;
+                const int32_t f = d & 0xF;
+                const int32_t lo = larkspur_tab_friction_0[i];
+                t_fric_l = lo + (((larkspur_tab_friction_0[i + 1] - lo) * f + 8) >> 4);
+            }
+            {
+                /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
+                const int32_t d = x;
+                t_shape_l = larkspur_tab_shape_0[0] + (((larkspur_tab_shape_0[1] - larkspur_tab_shape_0[0]) * d + 16) >> 5);
+            }
+        } else {
+            {
+                const int32_t d = x - 31;
+                const int32_t i = d >> 6;
+                const int32_t f = d & 0x3F;
+                const int32_t lo = larkspur_tab_friction_1[i];
+                t_fric_l = lo + (((larkspur_tab_friction_1[i + 1] - lo) * f + 32) >> 6);
+            }
+            {
+                t_shape_l = larkspur_tab_shape_1[0];
+            }
+        }
+        if (speed_l < 0) {
+            t_fric_l = -t_fric_l;
+            t_shape_l = -t_shape_l;
+        }
+    }
     const int32_t fric_l = t_fric_l * 128;
-    const int32_t t_shape_l = lookup_shape(speed_l);
     const int32_t roll_l = (r_level_s5 * t_shape_l + 128) >> 8;
     const int32_t passive_l = -cor_l + fric_l + roll_l + g_pitch - g_roll;
     int32_t cur_l = in->current[1];
