@@ -209,8 +209,7 @@ def _envelope_table(v: model.Vehicle, rep: envelope.EnvelopeReport) -> str:
 def _synthesise(v: model.Vehicle):
     from generator import synthesis
 
-    rep = envelope.analyse(v)
-    for problem in rep.problems:
+    for problem in envelope.corner_peaks(v)[3]:
         click.echo(f"warning: {v.source}: envelope: {problem}", err=True)
     return synthesis.synthesise(v)
 

@@ -150,9 +150,8 @@ def _peak(values: tuple[np.ndarray, np.ndarray], pts: list[tuple[float, ...]]) -
     return float(values[1][k_l]), _describe(pts[k_l], "left")
 
 
-def analyse(v: Vehicle) -> EnvelopeReport:
-    """Rows per payload plus peak current/voltage/traction over the envelope corners."""
-    rows = [payload_row(v, float(p)) for p in np.linspace(0, v.payload.mass_max_kg, PAYLOAD_STEPS)]
+def corner_peaks(v: Vehicle) -> tuple[Peak, Peak, Peak, list[str]]:
+    """Peak current, voltage and traction use over the envelope corners, and the limits they break."""
     op, pts = _corners(v)
     mr, ml = margins(v, op)
     cur, cur_at = _peak((mr.current, ml.current), pts)
@@ -167,5 +166,12 @@ def analyse(v: Vehicle) -> EnvelopeReport:
                         f"{v.drive.supply_voltage_v:g} V ({volt_at})")
     if trac > 1:
         problems.append(f"traction demand {trac:.2f} x the grip limit: the wheel slips ({trac_at})")
-    return EnvelopeReport(rows, Peak(cur * v.drive.current_limit_a, cur_at),
-                          Peak(volt * v.drive.supply_voltage_v, volt_at), Peak(trac, trac_at), problems)
+    return (Peak(cur * v.drive.current_limit_a, cur_at), Peak(volt * v.drive.supply_voltage_v, volt_at),
+            Peak(trac, trac_at), problems)
+
+
+def analyse(v: Vehicle) -> EnvelopeReport:
+    """Rows per payload plus peak current/voltage/traction over the envelope corners."""
+    rows = [payload_row(v, float(p)) for p in np.linspace(0, v.payload.mass_max_kg, PAYLOAD_STEPS)]
+    current, voltage, traction, problems = corner_peaks(v)
+    return EnvelopeReport(rows, current, voltage, traction, problems)

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 from importlib import resources
 from pathlib import Path
 
@@ -19,9 +20,21 @@ def template_dir() -> Path:
     return Path(__file__).resolve().parent.parent / "templates"
 
 
+def _bytecode_cache() -> jinja2.BytecodeCache | None:
+    """Compiled templates in the user's cache folder (keyed by template source, so never stale);
+    saves ~0.1 s per build. No cache when the folder cannot be made."""
+    base = Path(os.environ.get("XDG_CACHE_HOME") or Path.home() / ".cache") / "kinetab" / "templates"
+    try:
+        base.mkdir(parents=True, exist_ok=True)
+    except OSError:
+        return None
+    return jinja2.FileSystemBytecodeCache(str(base))
+
+
 def environment() -> jinja2.Environment:
     return jinja2.Environment(loader=jinja2.FileSystemLoader(str(template_dir())), undefined=jinja2.StrictUndefined,
-                              keep_trailing_newline=True, trim_blocks=True, lstrip_blocks=True, autoescape=False)
+                              keep_trailing_newline=True, trim_blocks=True, lstrip_blocks=True, autoescape=False,
+                              bytecode_cache=_bytecode_cache())
 
 
 def _tidy(text: str) -> str:
