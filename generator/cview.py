@@ -176,10 +176,14 @@ def program_view(prog: Program, proof, prefix: str, tables: dict[str, dict[str, 
             j += 1
         if j - k > 1:
             members = [{"dst": op.dst, "t": tables[op.table]} for op in ops[k:j]]
-            views.append({"kind": "group", "src": key[0], "abs": key[1], "split": key[2], "members": members})
+            needs_x = key[2] is not None or any(m["t"]["needs_x"] for m in members)
+            views.append({"kind": "group", "src": key[0], "abs": key[1], "split": key[2], "members": members,
+                          "needs_x": needs_x})
         else:
             views.append(_op_view(ops[k], proof, prefix))
         k = j
+    last = max(i for i, v in enumerate(views) if v["kind"] == "clamp")
+    views.insert(last + 1, {"kind": "flags"})
     return {"name": prog.name, "ops": views}
 
 

@@ -318,13 +318,17 @@ FF_BITS = {"speed": (0, 1), "accel": (2, 3), "pitch": 4, "roll": 5, "payload": 6
 FWD_BITS = {"current": (0, 1), "speed": (2, 3), "pitch": 4, "roll": 5, "payload": 6}
 
 
-def _common(bd: _Builder, lim: Limits, bits: dict) -> None:
-    """Clamped pitch/roll/payload, their lookups, gravity and the rolling-resistance level."""
+def _common(bd: _Builder, lim: Limits, bits: dict, pair: tuple[str, int, int]) -> None:
+    """All clamps first (the flags are then final and leave the registers), then the pitch/roll/payload
+    lookups, gravity and the rolling-resistance level. `pair` is the other two-wheel input."""
     bd.clamp("pitch", "pitch", None, -lim.pitch, lim.pitch, bits["pitch"])
     bd.clamp("roll", "roll", None, -lim.roll, lim.roll, bits["roll"])
     bd.clamp("payload", "payload", None, 0, lim.payload, bits["payload"])
     for u, side in (("speed_r", 0), ("speed_l", 1)):
         bd.clamp(u, "speed", side, -lim.speed, lim.speed, bits["speed"][side])
+    name, lo, hi = pair
+    for side, suffix in ((0, "r"), (1, "l")):
+        bd.clamp(f"{'cur' if name == 'current' else name}_{suffix}", name, side, lo, hi, bits[name][side])
     s = bd.specs
     for name, src in (("sin_pitch", "pitch"), ("cos_pitch", "pitch"), ("sin_roll", "roll"), ("cos_roll", "roll"),
                       ("cor", "payload"), ("grav_pitch", "payload"), ("grav_roll", "payload"),
@@ -358,9 +362,7 @@ def _feedforward(v: Vehicle, specs: dict[str, tb.TableSpec], lim: Limits, guard:
     prog = Program("feedforward", (("speed", 2), ("accel", 2), ("pitch", 1), ("roll", 1), ("payload", 1)),
                    (("current", 2),), "current_lsb")
     bd = _Builder(prog, specs, specs["m11"].bits)
-    _common(bd, lim, FF_BITS)
-    for side in (0, 1):
-        bd.clamp(("accel_r", "accel_l")[side], "accel", side, -lim.accel, lim.accel, FF_BITS["accel"][side])
+    _common(bd, lim, FF_BITS, ("accel", -lim.accel, lim.accel))
     bd.lookup("t_m11", "m11", "payload")
     bd.lookup("t_m12", "m12", "payload")
     for side, sign, other, idx in (("r", 1, "l", 0), ("l", -1, "r", 1)):
@@ -378,12 +380,11 @@ def _forward(v: Vehicle, specs: dict[str, tb.TableSpec], lim: Limits, guard: int
     prog = Program("forward", (("current", 2), ("speed", 2), ("pitch", 1), ("roll", 1), ("payload", 1)),
                    (("accel", 2),), "accel_lsb")
     bd = _Builder(prog, specs, specs["m11"].bits)
-    _common(bd, lim, FWD_BITS)
+    _common(bd, lim, FWD_BITS, ("current", -lim.current, lim.current))
     bd.lookup("t_minv11", "minv11", "payload")
     bd.lookup("t_minv12", "minv12", "payload")
     for side, sign, other, idx in (("r", 1, "l", 0), ("l", -1, "r", 1)):
         passive = _passive(bd, side, sign, other)
-        bd.clamp(f"cur_{side}", "current", idx, -lim.current, lim.current, FWD_BITS["current"][idx])
         bd.mul(f"cur_acc_{side}", f"cur_{side}", 1, -guard)
         bd.backdrive(f"effort_{side}", f"cur_acc_{side}", f"speed_{side}",
                      1 / (v.drive.efficiency * v.drive.backdrive_efficiency))

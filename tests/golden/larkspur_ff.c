@@ -665,6 +665,23 @@ void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out)
         speed_l = 1600;
         clamped |= 0x02u;
     }
+    int32_t accel_r = in->accel[0];
+    if (accel_r < -500) {
+        accel_r = -500;
+        clamped |= 0x04u;
+    } else if (accel_r > 500) {
+        accel_r = 500;
+        clamped |= 0x04u;
+    }
+    int32_t accel_l = in->accel[1];
+    if (accel_l < -500) {
+        accel_l = -500;
+        clamped |= 0x08u;
+    } else if (accel_l > 500) {
+        accel_l = 500;
+        clamped |= 0x08u;
+    }
+    out->clamped = clamped; /* every input is clamped by now */
     int32_t t_sin_pitch;
     int32_t t_cos_pitch;
     {
@@ -751,22 +768,6 @@ void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out)
     const int32_t r_down = (t_roll_slope * t_sin_pitch + 1024) >> 11;
     const int32_t r_level = r_up - r_down;
     const int32_t d_speed = speed_r - speed_l;
-    int32_t accel_r = in->accel[0];
-    if (accel_r < -500) {
-        accel_r = -500;
-        clamped |= 0x04u;
-    } else if (accel_r > 500) {
-        accel_r = 500;
-        clamped |= 0x04u;
-    }
-    int32_t accel_l = in->accel[1];
-    if (accel_l < -500) {
-        accel_l = -500;
-        clamped |= 0x08u;
-    } else if (accel_l > 500) {
-        accel_l = 500;
-        clamped |= 0x08u;
-    }
     int32_t t_m11;
     int32_t t_m12;
     {
@@ -829,7 +830,7 @@ void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out)
     const int32_t in_other_r = (t_m12 * accel_l + 16) >> 5;
     const int32_t total_r = in_self_r + in_other_r + passive_r;
     int32_t motor_r = total_r;
-    if ((total_r > 0 && speed_r < 0) || (total_r < 0 && speed_r > 0)) {
+    if (speed_r != 0 && (total_r ^ speed_r) < 0) { /* moving, and force against the motion */
         /* back-driven: scale by 0.68 (11141 / 2^14) */
         /* exact in two 32-bit parts: high bits times k, plus the rounded low bits times k */
         motor_r = (total_r >> 14) * 11141 + (((total_r & 0x3FFF) * 11141 + 8192) >> 14);
@@ -880,13 +881,12 @@ void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out)
     const int32_t in_other_l = (t_m12 * accel_r + 16) >> 5;
     const int32_t total_l = in_self_l + in_other_l + passive_l;
     int32_t motor_l = total_l;
-    if ((total_l > 0 && speed_l < 0) || (total_l < 0 && speed_l > 0)) {
+    if (speed_l != 0 && (total_l ^ speed_l) < 0) { /* moving, and force against the motion */
         /* back-driven: scale by 0.68 (11141 / 2^14) */
         /* exact in two 32-bit parts: high bits times k, plus the rounded low bits times k */
         motor_l = (total_l >> 14) * 11141 + (((total_l & 0x3FFF) * 11141 + 8192) >> 14);
     }
     out->current[1] = (motor_l + 2048) >> 12;
-    out->clamped = clamped;
 }
 
 void larkspur_forward(const larkspur_fwd_in_t *in, larkspur_fwd_out_t *out)
@@ -932,6 +932,23 @@ void larkspur_forward(const larkspur_fwd_in_t *in, larkspur_fwd_out_t *out)
         speed_l = 1600;
         clamped |= 0x08u;
     }
+    int32_t cur_r = in->current[0];
+    if (cur_r < -14000) {
+        cur_r = -14000;
+        clamped |= 0x01u;
+    } else if (cur_r > 14000) {
+        cur_r = 14000;
+        clamped |= 0x01u;
+    }
+    int32_t cur_l = in->current[1];
+    if (cur_l < -14000) {
+        cur_l = -14000;
+        clamped |= 0x02u;
+    } else if (cur_l > 14000) {
+        cur_l = 14000;
+        clamped |= 0x02u;
+    }
+    out->clamped = clamped; /* every input is clamped by now */
     int32_t t_sin_pitch;
     int32_t t_cos_pitch;
     {
@@ -1080,17 +1097,9 @@ void larkspur_forward(const larkspur_fwd_in_t *in, larkspur_fwd_out_t *out)
     const int32_t r_level_s5 = (r_level + 16) >> 5;
     const int32_t roll_r = (r_level_s5 * t_shape_r + 128) >> 8;
     const int32_t passive_r = cor_r + fric_r + roll_r + g_pitch + g_roll;
-    int32_t cur_r = in->current[0];
-    if (cur_r < -14000) {
-        cur_r = -14000;
-        clamped |= 0x01u;
-    } else if (cur_r > 14000) {
-        cur_r = 14000;
-        clamped |= 0x01u;
-    }
     const int32_t cur_acc_r = cur_r * 4096;
     int32_t effort_r = cur_acc_r;
-    if ((cur_acc_r > 0 && speed_r < 0) || (cur_acc_r < 0 && speed_r > 0)) {
+    if (speed_r != 0 && (cur_acc_r ^ speed_r) < 0) { /* moving, and force against the motion */
         /* back-driven: scale by 1.47059 (12047 / 2^13) */
         /* exact in two 32-bit parts: high bits times k, plus the rounded low bits times k */
         effort_r = (cur_acc_r >> 13) * 12047 + (((cur_acc_r & 0x1FFF) * 12047 + 4096) >> 13);
@@ -1137,17 +1146,9 @@ void larkspur_forward(const larkspur_fwd_in_t *in, larkspur_fwd_out_t *out)
     const int32_t fric_l = t_fric_l * 128;
     const int32_t roll_l = (r_level_s5 * t_shape_l + 128) >> 8;
     const int32_t passive_l = -cor_l + fric_l + roll_l + g_pitch - g_roll;
-    int32_t cur_l = in->current[1];
-    if (cur_l < -14000) {
-        cur_l = -14000;
-        clamped |= 0x02u;
-    } else if (cur_l > 14000) {
-        cur_l = 14000;
-        clamped |= 0x02u;
-    }
     const int32_t cur_acc_l = cur_l * 4096;
     int32_t effort_l = cur_acc_l;
-    if ((cur_acc_l > 0 && speed_l < 0) || (cur_acc_l < 0 && speed_l > 0)) {
+    if (speed_l != 0 && (cur_acc_l ^ speed_l) < 0) { /* moving, and force against the motion */
         /* back-driven: scale by 1.47059 (12047 / 2^13) */
         /* exact in two 32-bit parts: high bits times k, plus the rounded low bits times k */
         effort_l = (cur_acc_l >> 13) * 12047 + (((cur_acc_l & 0x1FFF) * 12047 + 4096) >> 13);
@@ -1165,5 +1166,4 @@ void larkspur_forward(const larkspur_fwd_in_t *in, larkspur_fwd_out_t *out)
     const int32_t acc_other_l = (t_minv12 * net_r_s12 + 1024) >> 11;
     const int32_t accel_l = acc_self_l + acc_other_l;
     out->accel[1] = (accel_l + 128) >> 8;
-    out->clamped = clamped;
 }
