@@ -78,7 +78,7 @@ def markdown(r: dict) -> str:
         lines.append(f"| {label} | {x['median']:.0f} | {x['max']} | {x['flash']} | {x['cycles_est']:.0f} | "
                      f"{err_ma:.2f} | {x['mismatches']} |")
     m0 = c["float_soft_m0plus"]["median"] / c["int_cortex_m0plus"]["median"]
-    lines += ["", f"Soft float / integer on M0+: {m0:.1f}x fewer instructions for the tables.",
+    lines += ["", f"Soft float / integer on M0+: {m0:.2f}x fewer instructions for the tables.",
               "Float baseline: tests/benchmarks/float_ff.c, float-only polynomial sinf/cosf/expf, reciprocals "
               "for constant divisions; its 'mismatches' are rounding differences against the integer result, "
               "expected and not an error (both stay within the budget of the float model). Cycle estimates use a per-class table (loads/stores 2, taken "
