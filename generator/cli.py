@@ -135,7 +135,7 @@ def _fill_fixed(v: model.Vehicle, op: dynamics.OperatingPoint, doc: dict[str, An
 
     try:
         fw = synthesis.synthesise(v)
-    except CheckFailed as exc:
+    except (CheckFailed, UserError) as exc:
         click.echo(f"warning: current_fixed unavailable: {exc}", err=True)
         return
     inp = synthesis.firmware_inputs(v, op)

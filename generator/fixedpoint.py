@@ -24,6 +24,16 @@ def word_min(bits: int) -> int:
     return -(1 << (bits - 1))
 
 
+def steps_within(limit: float, lsb: float) -> int:
+    """Largest k with k * lsb <= limit, decided in float exactly as a reference computing k * lsb would."""
+    k = math.floor(limit / lsb)
+    while (k + 1) * lsb <= limit:
+        k += 1
+    while k > 0 and k * lsb > limit:
+        k -= 1
+    return k
+
+
 def shift_round(x: np.ndarray | int, shift: int) -> np.ndarray | int:
     """floor((x + 2^(shift-1)) / 2^shift) for shift > 0; x * 2^-shift for shift <= 0 (exact)."""
     if shift > 0:

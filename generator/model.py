@@ -15,6 +15,7 @@ from typing import Any, Callable
 
 from generator import units
 from generator.errors import ModelError
+from generator.fixedpoint import steps_within
 
 RATIO = units.Kind("a bare number", "", "0.85")
 CHOICE = units.Kind("one of the listed words", "", "'ramp'")
@@ -313,6 +314,9 @@ def _cross_checks(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any]) -
     if fr["deadband"] >= env["speed_max"]:
         raise ModelError(src, "friction.deadband", f"a speed below envelope.speed_max ({env['speed_max']:g} m/s)",
                          _describe(raw["friction"]["deadband"]))
+    if steps_within(fr["deadband"], fw["speed_lsb"]) >= steps_within(env["speed_max"], fw["speed_lsb"]):
+        raise ModelError(src, "friction.deadband", "a deadband at least one firmware.speed_lsb step below "
+                         "envelope.speed_max", _describe(raw["friction"]["deadband"]))
     steps = [("speed_lsb", env["speed_max"], "envelope.speed_max"), ("accel_lsb", env["accel_max"], "envelope.accel_max"),
              ("angle_lsb", max(env["pitch_max"], env["roll_max"]), "the larger of pitch_max and roll_max"),
              ("mass_lsb", s["payload"]["mass_max"], "payload.mass_max"),

@@ -119,14 +119,7 @@ class Design:
     amps_per_acc: float
 
 
-def steps_within(limit: float, lsb: float) -> int:
-    """Largest k with k * lsb <= limit, decided in float exactly as a reference would compute k * lsb."""
-    k = math.floor(limit / lsb)
-    while (k + 1) * lsb <= limit:
-        k += 1
-    while k > 0 and k * lsb > limit:
-        k -= 1
-    return k
+steps_within = fx.steps_within
 
 
 def limits_of(v: Vehicle) -> Limits:

@@ -119,3 +119,13 @@ def test_bad_option_quantity_is_one_line(capsys):
 
     code, out, err = _run(["predict", str(DEMO_PATH), "--pitch", "3 kg"], capsys)
     assert code == 2 and out == "" and len(err.strip().splitlines()) == 1 and "--pitch" in err
+
+
+def test_deadband_needs_a_speed_step_below_speed_max(tmp_path, capsys):
+    doc = demo_doc()
+    doc["envelope"]["speed_max"] = "0.85 m/s"
+    doc["friction"]["deadband"] = "0.81 m/s"     # same 0.1 m/s step as speed_max
+    doc["firmware"]["speed_lsb"] = "0.1 m/s"
+    path = write_model(tmp_path, doc)
+    code, _, err = _run(["predict", str(path)], capsys)
+    assert code == 2 and "friction.deadband" in err and "one firmware.speed_lsb step" in err
