@@ -376,7 +376,7 @@ def _forward(v: Vehicle, specs: dict[str, tb.TableSpec], lim: Limits, guard: int
     _common(bd, lim, FWD_BITS, ("current", -lim.current, lim.current))
     bd.lookup("t_minv11", "minv11", "payload")
     bd.lookup("t_minv12", "minv12", "payload")
-    for side, sign, other, idx in (("r", 1, "l", 0), ("l", -1, "r", 1)):
+    for side, sign, other in (("r", 1, "l"), ("l", -1, "r")):
         passive = _passive(bd, side, sign, other)
         bd.mul(f"cur_acc_{side}", f"cur_{side}", 1, -guard)
         bd.backdrive(f"effort_{side}", f"cur_acc_{side}", f"speed_{side}",

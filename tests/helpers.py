@@ -79,3 +79,30 @@ def random_doc(draw_float, shape: str = "ramp") -> dict[str, Any]:
     doc["envelope"].update(speed_max=f"{speed_max} m/s", accel_max=f"{draw_float(0.1, 3)} m/s^2",
                            pitch_max=f"{draw_float(0, 8)} deg", roll_max=f"{draw_float(0, 5)} deg")
     return doc
+
+
+def random_firmware_strategy(name: str = "veh"):
+    """Hypothesis strategy: synthesised firmware of a random valid, stable vehicle with a random budget.
+
+    Models whose budget cannot be met or that tip are rejected (assume), so only valid ones count."""
+    from hypothesis import assume
+    from hypothesis import strategies as st
+
+    from generator import stability, synthesis
+    from generator.errors import CheckFailed, ModelError
+
+    @st.composite
+    def build(draw):
+        pick = lambda lo, hi: draw(st.floats(lo, hi, allow_nan=False, allow_infinity=False))  # noqa: E731
+        doc = random_doc(pick, draw(st.sampled_from(["ramp", "gap"])))
+        doc["name"] = name
+        doc["firmware"]["current_budget"] = f"{pick(15, 80)} mA"
+        doc["firmware"]["word"] = draw(st.sampled_from(["int16", "int32"]))
+        try:
+            v = vehicle_from(doc)
+            stability.check(v)
+            return synthesis.synthesise(v)
+        except (ModelError, CheckFailed):
+            assume(False)
+
+    return build()

@@ -8,14 +8,12 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from hypothesis import HealthCheck, assume, given, settings
-from hypothesis import strategies as st
+from hypothesis import HealthCheck, given, settings
 
-from generator import accuracy, emulate, model, render, stability, synthesis, vectors
-from generator.errors import CheckFailed, ModelError
+from generator import accuracy, emulate, model, render, synthesis, vectors
 from tests import cortexm
 from tests.firmware_fixtures import demo_files, demo_firmware
-from tests.helpers import demo_doc, random_doc, vehicle_from
+from tests.helpers import demo_doc, random_firmware_strategy, vehicle_from
 
 HARNESS = Path(__file__).parent / "c" / "harness.c"
 needs_gcc = pytest.mark.skipif(not cortexm.gcc_available(), reason="gcc is required (apt install gcc)")
@@ -119,26 +117,11 @@ def test_cortex_m_same_integers_as_host(demo_dir, target, tmp_path):
         assert cortexm.unpack_outputs(out) == tuple(int(x) for x in row[7:]), row
 
 
-@st.composite
-def random_firmware(draw):
-    pick = lambda lo, hi: draw(st.floats(lo, hi, allow_nan=False, allow_infinity=False))  # noqa: E731
-    doc = random_doc(pick, draw(st.sampled_from(["ramp", "gap"])))
-    doc["name"] = "veh"
-    doc["firmware"]["current_budget"] = f"{pick(15, 80)} mA"
-    doc["firmware"]["word"] = draw(st.sampled_from(["int16", "int32"]))
-    try:
-        v = vehicle_from(doc)
-        stability.check(v)
-        return synthesis.synthesise(v)
-    except (ModelError, CheckFailed):
-        assume(False)
-
-
 @needs_gcc
 @pytest.mark.slow
 @settings(max_examples=6, deadline=None, suppress_health_check=[HealthCheck.too_slow, HealthCheck.filter_too_much,
                                                               HealthCheck.function_scoped_fixture])
-@given(fw=random_firmware())
+@given(fw=random_firmware_strategy())
 def test_compiled_c_within_budget_of_float_model_on_random_models(fw, tmp_path_factory):
     folder = write_files(tmp_path_factory.mktemp("rand_c"), render.render(fw))
     exe = build_harness(folder, "veh")

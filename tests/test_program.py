@@ -4,13 +4,12 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from hypothesis import HealthCheck, assume, given, settings
+from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from generator import accuracy, analysis, emulate, stability, synthesis
-from generator.errors import CheckFailed, ModelError
+from generator import accuracy, analysis, emulate
 from tests.firmware_fixtures import demo_firmware
-from tests.helpers import random_doc, vehicle_from
+from tests.helpers import random_firmware_strategy
 
 
 def _random_inputs(lim, n, rng):
@@ -75,22 +74,8 @@ def test_worst_int32_inputs_do_not_wrap():
     emulate.run(fw.design.forward, fw.tables, fin)
 
 
-@st.composite
-def firmwares(draw):
-    pick = lambda lo, hi: draw(st.floats(lo, hi, allow_nan=False, allow_infinity=False))  # noqa: E731
-    doc = random_doc(pick, draw(st.sampled_from(["ramp", "gap"])))
-    doc["firmware"]["current_budget"] = f"{pick(15, 80)} mA"
-    doc["firmware"]["word"] = draw(st.sampled_from(["int16", "int32"]))
-    try:
-        v = vehicle_from(doc)
-        stability.check(v)
-        return synthesis.synthesise(v)
-    except (ModelError, CheckFailed):
-        assume(False)
-
-
 @settings(max_examples=15, deadline=None, suppress_health_check=[HealthCheck.too_slow, HealthCheck.filter_too_much])
-@given(fw=firmwares(), seed=st.integers(0, 2**31))
+@given(fw=random_firmware_strategy("larkspur"), seed=st.integers(0, 2**31))
 def test_random_models_no_wrap_clamp_and_stay_within_promised_bound(fw, seed):
     rng = np.random.default_rng(seed)
     lim = fw.design.limits
