@@ -13,6 +13,7 @@ from typing import Callable
 import numpy as np
 
 from generator import fixedpoint as fx
+from generator.errors import CheckFailed
 
 Func = Callable[[np.ndarray], np.ndarray]
 EXHAUSTIVE_POINTS = 1 << 21
@@ -88,10 +89,20 @@ def extended_end(piece: Piece) -> int:
 def make_spec(name: str, source: str, symmetry: str, pieces: tuple[Piece, ...], bits: int, unit: str,
               meaning: str, si_scale: float = 1.0, si_unit: str = "1") -> TableSpec:
     """Choose the Q format from the value range over every breakpoint any size could use."""
-    peak = 0.0
+    peak, sampled = 0.0, False
     for p in pieces:
-        xs = np.unique(np.linspace(p.x0, extended_end(p), 4097).round().astype(np.int64))
-        peak = max(peak, float(np.max(np.abs(p.func(xs)))))
+        end = extended_end(p)
+        if end - p.x0 + 1 <= EXHAUSTIVE_POINTS:  # every input a breakpoint could sit on
+            xs = np.arange(p.x0, end + 1, dtype=np.int64)
+        else:
+            xs = np.unique(np.linspace(p.x0, end, EXHAUSTIVE_POINTS).round().astype(np.int64))
+            sampled = True
+        values = p.func(xs)
+        if not np.all(np.isfinite(values)):
+            raise CheckFailed(f"table {name}: the model gives a non-finite value on {p.label or 'its range'}")
+        peak = max(peak, float(np.max(np.abs(values))))
+    if sampled:
+        peak *= 1.01  # sampled: leave room for a peak between samples
     return TableSpec(name, source, symmetry, pieces, fx.frac_bits_for(peak, bits), bits, unit, meaning, peak,
                      si_scale, si_unit)
 
@@ -126,8 +137,13 @@ def build_piece(spec: TableSpec, piece: Piece, segments: int) -> PieceData:
         return PieceData(0, 0, ints, bool(sat.any()))
     s = shift_for(piece.span, segments)
     xs = piece.x0 + (np.arange(segments + 1, dtype=np.int64) << s)
-    ints, sat = fx.quantise(piece.func(xs), spec.frac_bits, spec.bits)
-    return PieceData(segments, s, ints, bool(sat.any()))
+    values = piece.func(xs)
+    ints, sat = fx.quantise(values, spec.frac_bits, spec.bits)
+    if sat.any():  # the Q format comes from the range, so this means the range estimate was wrong
+        k = int(np.argmax(sat))
+        raise CheckFailed(f"table {spec.name}: value {values[k] * spec.si_scale:.6g} {spec.si_unit} at input "
+                          f"{int(xs[k])} does not fit {fx.q_name(spec.frac_bits, spec.bits)}")
+    return PieceData(segments, s, ints, False)
 
 
 def build(spec: TableSpec, segments: tuple[int, ...]) -> Table:
