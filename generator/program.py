@@ -187,6 +187,19 @@ class _Builder:
         self.rng[dst] = prod.shift_round(shift)
         return dst
 
+    def product(self, dst: str, a: str, b: str) -> tuple[str, int]:
+        """a * b kept in 32 bits: when the exact product could not fit, the operands are rounded down
+        first (one bit at a time from the larger); returns the product and the bits dropped in all."""
+        ka = kb = 0
+        while not _fits32(self.rng[a].shift_round(ka) * self.rng[b].shift_round(kb), 0):
+            if self.rng[a].shift_round(ka).magnitude() >= self.rng[b].shift_round(kb).magnitude():
+                ka += 1
+            else:
+                kb += 1
+        a2 = self._shifted(a, ka) if ka else a
+        b2 = self._shifted(b, kb) if kb else b
+        return self.mul(dst, a2, b2, 0), ka + kb
+
     def _shifted(self, src: str, pre: int) -> str:
         """src rounded down by `pre` bits, computed once however many products use it."""
         name = f"{src}_s{pre}"
@@ -341,8 +354,8 @@ def _passive(bd: _Builder, side: str, sign: int, other: str) -> str:
     """Coriolis + friction + rolling + gravity at one wheel, accumulator steps."""
     s = bd.specs
     u = f"speed_{side}"
-    bd.mul(f"turn_{side}", "d_speed", f"speed_{other}", 0)
-    bd.mul(f"cor_{side}", "t_cor", f"turn_{side}", s["cor"].frac_bits)
+    turn, dropped = bd.product(f"turn_{side}", "d_speed", f"speed_{other}")
+    bd.mul(f"cor_{side}", "t_cor", turn, s["cor"].frac_bits - dropped)
     bd.lookup(f"t_fric_{side}", "friction", u)  # adjacent lookups of one input share abs and split in C
     bd.lookup(f"t_shape_{side}", "shape", u)
     bd.mul(f"fric_{side}", f"t_fric_{side}", 1, s["friction"].frac_bits)

@@ -95,7 +95,7 @@ def make_spec(name: str, source: str, symmetry: str, pieces: tuple[Piece, ...], 
         if end - p.x0 + 1 <= EXHAUSTIVE_POINTS:  # every input a breakpoint could sit on
             xs = np.arange(p.x0, end + 1, dtype=np.int64)
         else:
-            xs = np.unique(np.linspace(p.x0, end, EXHAUSTIVE_POINTS).round().astype(np.int64))
+            xs = np.linspace(p.x0, end, EXHAUSTIVE_POINTS).round().astype(np.int64)  # spacing > 1: distinct
             sampled = True
         values = p.func(xs)
         if not np.all(np.isfinite(values)):
@@ -219,7 +219,7 @@ def _domain(piece: Piece) -> np.ndarray:
     """The piece's integer inputs: all of them, or an even sample of EXHAUSTIVE_POINTS when more."""
     if piece.span + 1 <= EXHAUSTIVE_POINTS:
         return np.arange(piece.x0, piece.x1 + 1, dtype=np.int64)
-    return np.unique(np.linspace(piece.x0, piece.x1, EXHAUSTIVE_POINTS).round().astype(np.int64))
+    return np.linspace(piece.x0, piece.x1, EXHAUSTIVE_POINTS).round().astype(np.int64)  # spacing > 1: distinct
 
 
 @dataclass(frozen=True)
@@ -232,10 +232,13 @@ class PieceError:
     exhaustive: bool
 
 
-def piece_error(spec: TableSpec, piece: Piece, data: PieceData) -> PieceError:
-    """Evaluate the bit-exact lookup against the function on every input (or a dense sample + margin)."""
-    xs = _domain(piece)
-    exact = piece.func(xs)
+def piece_error(spec: TableSpec, piece: Piece, data: PieceData,
+                domain: tuple[np.ndarray, np.ndarray] | None = None) -> PieceError:
+    """Evaluate the bit-exact lookup against the function on every input (or a dense sample + margin).
+
+    domain: the inputs and the function's values there, when the caller already has them."""
+    xs, exact = domain if domain is not None else (_domain(piece), None)
+    exact = piece.func(xs) if exact is None else exact
     got = lookup_piece(data, piece.x0, xs).astype(float) / 2.0**spec.frac_bits
     real = _interp_real(spec, piece, data, xs, quantised=False) / 2.0**spec.frac_bits
     err = np.abs(got - exact)
@@ -265,9 +268,11 @@ def piece_candidates(spec: TableSpec, piece: Piece) -> Candidates:
     """Every useful size: each kept one is at least 10 % more accurate than the cheaper ones."""
     out = Candidates()
     best = float("inf")
+    xs = _domain(piece)
+    domain = (xs, piece.func(xs))
     for n in candidate_segments(piece):
         data = build_piece(spec, piece, n)
-        err = piece_error(spec, piece, data)
+        err = piece_error(spec, piece, data, domain)
         if err.total < KEEP_RATIO * best:
             out.segments.append(n)
             out.errors.append(err)

@@ -7,7 +7,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from generator import accuracy, analysis, emulate
+from generator import accuracy, analysis, emulate, synthesis
 from tests.firmware_fixtures import demo_firmware
 from tests.helpers import random_firmware_strategy
 
@@ -89,3 +89,15 @@ def test_random_models_no_wrap_clamp_and_stay_within_promised_bound(fw, seed):
            for k, a in inp.items()}
     out = emulate.run(fw.design.feedforward, fw.tables, big)
     assert np.all(out["clamped"] == 0x7F)
+
+
+def test_fine_speed_steps_keep_products_in_32_bits_and_the_bound():
+    """1 um/s speed steps: d * u would pass 2^31, so both are rounded down first; the bound still holds."""
+    from tests.helpers import demo_doc, vehicle_from
+
+    doc = demo_doc()
+    doc["firmware"].update(speed_lsb="1 um/s", accel_lsb="0.01 mm/s^2", mass_lsb="1 g")
+    fw = synthesis.synthesise(vehicle_from(doc))
+    assert any(op.dst.startswith("speed_") and "_s" in op.dst for op in fw.design.feedforward.ops)
+    acc = accuracy.measure(fw, count=20_000)
+    assert acc.total.max <= fw.ff_bound_a <= fw.vehicle.firmware.current_budget_a
