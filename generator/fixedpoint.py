@@ -60,8 +60,12 @@ def frac_bits_for(max_abs: float, bits: int) -> int:
 
 
 def q_name(frac_bits: int, bits: int) -> str:
-    """TI-style Qm.n (sign bit not counted in m); m may be negative for small-valued tables."""
-    return f"Q{bits - 1 - frac_bits}.{frac_bits}"
+    """TI-style Qm.n (sign bit not counted in m) when both m and n are >= 0; otherwise the word and its
+    step as a power of two (e.g. "int16 x 2^14"), since Q notation has no negative field widths."""
+    m = bits - 1 - frac_bits
+    if m >= 0 and frac_bits >= 0:
+        return f"Q{m}.{frac_bits}"
+    return f"int{bits} x 2^{-frac_bits}"
 
 
 @dataclass(frozen=True)

@@ -126,3 +126,9 @@ def test_constant_piece_error_is_half_the_range():
     vals = piece.func(np.arange(piece.x0, piece.x1 + 1))
     err = tb.piece_error(spec, piece, data)
     assert err.total == pytest.approx((vals.max() - vals.min()) / 2, abs=2.0**-spec.frac_bits)
+
+
+def test_q_name_outside_q_notation():
+    assert fx.q_name(-14, 16) == "int16 x 2^14"     # large values: step of 2^14
+    assert fx.q_name(17, 16) == "int16 x 2^-17"     # values below 0.25: all bits fractional and more
+    assert fx.q_name(30, 32) == "Q1.30"

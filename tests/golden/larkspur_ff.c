@@ -136,7 +136,7 @@ int32_t larkspur_table_cor(int32_t payload)
 /*
  * Table grav_pitch: gravity m g / 2.
  *   input: payload (0.1 kg per step)
- *   stored: int16_t Q29.-14, one step = 2^14 accumulator step at sin = 1 = 0.047328 N
+ *   stored: int16_t int16 x 2^14, one step = 2^14 accumulator step at sin = 1 = 0.047328 N
  *   piece 0: x in 0..600 steps (0..60 kg); 1 segment of 1024 steps, breakpoints at x0 + k*1024
  *            worst error 0.028786 N (every input checked)
  *   from: body.mass = 38 kg, body.cog_ahead = -0.05 m, body.cog_height = 0.18 m,
@@ -173,7 +173,7 @@ int32_t larkspur_table_grav_pitch(int32_t payload)
 /*
  * Table grav_roll: roll gravity m c g / (2 b).
  *   input: payload (0.1 kg per step)
- *   stored: int16_t Q27.-12, one step = 2^12 accumulator step at cos*sin = 1 = 0.011832 N
+ *   stored: int16_t int16 x 2^12, one step = 2^12 accumulator step at cos*sin = 1 = 0.011832 N
  *   piece 0: x in 0..600 steps (0..60 kg); 1 segment of 1024 steps, breakpoints at x0 + k*1024
  *            worst error 0.0110187 N (every input checked)
  *   from: body.mass = 38 kg, body.cog_ahead = -0.05 m, body.cog_height = 0.18 m,
@@ -210,7 +210,7 @@ int32_t larkspur_table_grav_roll(int32_t payload)
 /*
  * Table roll_level: rolling resistance on cos(pitch) cos(roll).
  *   input: payload (0.1 kg per step)
- *   stored: int16_t Q22.-7, one step = 2^7 accumulator step at cos*cos = 1 = 0.00036975 N
+ *   stored: int16_t int16 x 2^7, one step = 2^7 accumulator step at cos*cos = 1 = 0.00036975 N
  *   piece 0: x in 0..600 steps (0..60 kg); 1 segment of 1024 steps, breakpoints at x0 + k*1024
  *            worst error 0.000248717 N (every input checked)
  *   from: body.mass = 38 kg, body.cog_ahead = -0.05 m, body.cog_height = 0.18 m,
@@ -249,7 +249,7 @@ int32_t larkspur_table_roll_level(int32_t payload)
 /*
  * Table roll_slope: rolling-resistance load transfer on sin(pitch).
  *   input: payload (0.1 kg per step)
- *   stored: int16_t Q21.-6, one step = 2^6 accumulator step at sin = 1 = 0.000184875 N
+ *   stored: int16_t int16 x 2^6, one step = 2^6 accumulator step at sin = 1 = 0.000184875 N
  *   piece 0: x in 0..600 steps (0..60 kg); 1 segment of 1024 steps, breakpoints at x0 + k*1024
  *            worst error 0.00018001 N (every input checked)
  *   from: body.mass = 38 kg, body.cog_ahead = -0.05 m, body.cog_height = 0.18 m,
@@ -288,7 +288,7 @@ int32_t larkspur_table_roll_slope(int32_t payload)
 /*
  * Table sin_pitch: sin(pitch).
  *   input: pitch (0.0005 rad per step), odd in pitch: |x| is stored
- *   stored: int16_t Q-2.17, one step = 2^-17 1 = 7.62939e-06 1
+ *   stored: int16_t int16 x 2^-17, one step = 2^-17 1 = 7.62939e-06 1
  *   piece 0: |x| in 0..174 steps (0..0.087 rad); 4 segments of 64 steps, breakpoints at x0 + k*64
  *            worst error 1.17958e-05 1 (every input checked)
  *   from: firmware.angle_lsb = 0.0005 rad, envelope.pitch_max = 0.0872665 rad
@@ -362,7 +362,7 @@ int32_t larkspur_table_cos_pitch(int32_t pitch)
 /*
  * Table sin_roll: sin(roll).
  *   input: roll (0.0005 rad per step), odd in roll: |x| is stored
- *   stored: int16_t Q-3.18, one step = 2^-18 1 = 3.8147e-06 1
+ *   stored: int16_t int16 x 2^-18, one step = 2^-18 1 = 3.8147e-06 1
  *   piece 0: |x| in 0..104 steps (0..0.052 rad); 1 segment of 128 steps, breakpoints at x0 + k*128
  *            worst error 1.5953e-05 1 (every input checked)
  *   from: firmware.angle_lsb = 0.0005 rad, envelope.roll_max = 0.0523599 rad
@@ -434,7 +434,7 @@ int32_t larkspur_table_cos_roll(int32_t roll)
 /*
  * Table friction: drivetrain friction F(u).
  *   input: speed (0.0005 m/s per step), odd in speed: |x| is stored
- *   stored: int16_t Q22.-7, one step = 2^7 accumulator step = 0.00036975 N
+ *   stored: int16_t int16 x 2^7, one step = 2^7 accumulator step = 0.00036975 N
  *   piece 0: |x| in 0..30 steps (0..0.015 m/s), inside the deadband; 2 segments of 16 steps, breakpoints at x0 + k*16
  *            worst error 0.0640071 N (every input checked)
  *   piece 1: |x| in 31..1600 steps (0.0155..0.8 m/s), outside the deadband; 32 segments of 64 steps, breakpoints at x0 + k*64
@@ -531,7 +531,7 @@ int32_t larkspur_table_shape(int32_t speed)
 /*
  * Table minv11: inverse mass matrix entry 11.
  *   input: payload (0.1 kg per step)
- *   stored: int16_t Q-12.27, one step = 2^-27 accel step per accumulator step = 2.57924e-06 1/kg
+ *   stored: int16_t int16 x 2^-27, one step = 2^-27 accel step per accumulator step = 2.57924e-06 1/kg
  *   piece 0: x in 0..600 steps (0..60 kg); 64 segments of 16 steps, breakpoints at x0 + k*16
  *            worst error 1.18825e-05 1/kg (every input checked)
  *   from: body.mass = 38 kg, body.cog_ahead = -0.05 m, body.cog_height = 0.18 m,
@@ -580,7 +580,7 @@ int32_t larkspur_table_minv11(int32_t payload)
 /*
  * Table minv12: inverse mass matrix entry 12.
  *   input: payload (0.1 kg per step)
- *   stored: int16_t Q-16.31, one step = 2^-31 accel step per accumulator step = 1.61203e-07 1/kg
+ *   stored: int16_t int16 x 2^-31, one step = 2^-31 accel step per accumulator step = 1.61203e-07 1/kg
  *   piece 0: x in 0..600 steps (0..60 kg); 32 segments of 32 steps, breakpoints at x0 + k*32
  *            worst error 1.42503e-05 1/kg (every input checked)
  *   from: body.mass = 38 kg, body.cog_ahead = -0.05 m, body.cog_height = 0.18 m,

@@ -94,18 +94,18 @@ void larkspur_forward(const larkspur_fwd_in_t *in, larkspur_fwd_out_t *out);
 int32_t larkspur_table_m11(int32_t payload); /* mass matrix M11 = M22, Q15.0: 0.00288867 kg per step */
 int32_t larkspur_table_m12(int32_t payload); /* mass matrix M12 = M21, Q10.5: 9.0271e-05 kg per step */
 int32_t larkspur_table_cor(int32_t payload); /* Coriolis coefficient m c / (4 b^2), Q3.12: 0.00282097 kg/m per step */
-int32_t larkspur_table_grav_pitch(int32_t payload); /* gravity m g / 2, Q29.-14: 0.047328 N per step */
-int32_t larkspur_table_grav_roll(int32_t payload); /* roll gravity m c g / (2 b), Q27.-12: 0.011832 N per step */
-int32_t larkspur_table_roll_level(int32_t payload); /* rolling resistance on cos(pitch) cos(roll), Q22.-7: 0.00036975 N per step */
-int32_t larkspur_table_roll_slope(int32_t payload); /* rolling-resistance load transfer on sin(pitch), Q21.-6: 0.000184875 N per step */
-int32_t larkspur_table_sin_pitch(int32_t pitch); /* sin(pitch), Q-2.17: 7.62939e-06 1 per step */
+int32_t larkspur_table_grav_pitch(int32_t payload); /* gravity m g / 2, int16 x 2^14: 0.047328 N per step */
+int32_t larkspur_table_grav_roll(int32_t payload); /* roll gravity m c g / (2 b), int16 x 2^12: 0.011832 N per step */
+int32_t larkspur_table_roll_level(int32_t payload); /* rolling resistance on cos(pitch) cos(roll), int16 x 2^7: 0.00036975 N per step */
+int32_t larkspur_table_roll_slope(int32_t payload); /* rolling-resistance load transfer on sin(pitch), int16 x 2^6: 0.000184875 N per step */
+int32_t larkspur_table_sin_pitch(int32_t pitch); /* sin(pitch), int16 x 2^-17: 7.62939e-06 1 per step */
 int32_t larkspur_table_cos_pitch(int32_t pitch); /* cos(pitch), Q1.14: 6.10352e-05 1 per step */
-int32_t larkspur_table_sin_roll(int32_t roll); /* sin(roll), Q-3.18: 3.8147e-06 1 per step */
+int32_t larkspur_table_sin_roll(int32_t roll); /* sin(roll), int16 x 2^-18: 3.8147e-06 1 per step */
 int32_t larkspur_table_cos_roll(int32_t roll); /* cos(roll), Q1.14: 6.10352e-05 1 per step */
-int32_t larkspur_table_friction(int32_t speed); /* drivetrain friction F(u), Q22.-7: 0.00036975 N per step */
+int32_t larkspur_table_friction(int32_t speed); /* drivetrain friction F(u), int16 x 2^7: 0.00036975 N per step */
 int32_t larkspur_table_shape(int32_t speed); /* deadband shape s(u), ramp, Q2.13: 0.00012207 1 per step */
-int32_t larkspur_table_minv11(int32_t payload); /* inverse mass matrix entry 11, Q-12.27: 2.57924e-06 1/kg per step */
-int32_t larkspur_table_minv12(int32_t payload); /* inverse mass matrix entry 12, Q-16.31: 1.61203e-07 1/kg per step */
+int32_t larkspur_table_minv11(int32_t payload); /* inverse mass matrix entry 11, int16 x 2^-27: 2.57924e-06 1/kg per step */
+int32_t larkspur_table_minv12(int32_t payload); /* inverse mass matrix entry 12, int16 x 2^-31: 1.61203e-07 1/kg per step */
 
 #ifdef __cplusplus
 }
