@@ -62,19 +62,14 @@ def init(path: str, force: bool) -> None:
     target = Path(path)
     if target.exists() and not force:
         raise UserError(f"{path}: file exists; pass --force to overwrite it")
+    from generator import outputs
+
     text = resources.files("generator.demos").joinpath(DEMO).read_text(encoding="utf-8")
-    _write_atomically(target, text)
-    click.echo(f"wrote {path} (invented demo vehicle; edit every value for your own)")
-
-
-def _write_atomically(target: Path, text: str) -> None:
-    tmp = target.with_name(f".{target.name}.tmp")
     try:
-        tmp.write_text(text, encoding="utf-8", newline="\n")
-        tmp.replace(target)
+        outputs.write_atomically(target, text)
     except OSError as exc:
-        tmp.unlink(missing_ok=True)
-        raise UserError(f"{target}: cannot write ({exc.strerror})") from None
+        raise UserError(f"{path}: cannot write ({exc.strerror})") from None
+    click.echo(f"wrote {path} (invented demo vehicle; edit every value for your own)")
 
 
 def _point_options(func):  # type: ignore[no-untyped-def]

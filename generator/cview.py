@@ -132,7 +132,7 @@ def _rows(values: list[int], per_row: int = 8) -> list[str]:
     return [", ".join(cells[i:i + per_row]) for i in range(0, len(cells), per_row)]
 
 
-def _op_view(op, proof, prefix: str) -> dict[str, Any]:
+def _op_view(op, proof) -> dict[str, Any]:
     if isinstance(op, Clamp):
         where = f"{op.field}[{op.index}]" if op.index is not None else op.field
         return {"kind": "clamp", "dst": op.dst, "src": where, "lo": op.lo, "hi": op.hi, "bit": f"0x{1 << op.bit:02X}u"}
@@ -163,7 +163,7 @@ def _group_key(op, tables: dict[str, dict[str, Any]]) -> tuple | None:
     return (op.src, t["symmetry"] != "none", t["split"])
 
 
-def program_view(prog: Program, proof, prefix: str, tables: dict[str, dict[str, Any]]) -> dict[str, Any]:
+def program_view(prog: Program, proof, tables: dict[str, dict[str, Any]]) -> dict[str, Any]:
     """One view per op; adjacent lookups of the same input with the same split share one inline block
     (one |x|, one comparison), which the compiler cannot merge across two calls on its own."""
     views: list[dict[str, Any]] = []
@@ -180,7 +180,7 @@ def program_view(prog: Program, proof, prefix: str, tables: dict[str, dict[str, 
             views.append({"kind": "group", "src": key[0], "abs": key[1], "split": key[2], "members": members,
                           "needs_x": needs_x})
         else:
-            views.append(_op_view(ops[k], proof, prefix))
+            views.append(_op_view(ops[k], proof))
         k = j
     last = max(i for i, v in enumerate(views) if v["kind"] == "clamp")
     views.insert(last + 1, {"kind": "flags"})
@@ -200,8 +200,8 @@ def context(fw: Firmware) -> dict[str, Any]:
         "fingerprint": f"0x{fw.fingerprint:08X}u", "caution": CAUTION,
         "header": f"{prefix}_ff.h", "guard": f"{prefix.upper()}_FF_H",
         "tables": list(tables.values()),
-        "feedforward": program_view(fw.design.feedforward, fw.ff_proof, prefix, tables),
-        "forward": program_view(fw.design.forward, fw.fwd_proof, prefix, tables),
+        "feedforward": program_view(fw.design.feedforward, fw.ff_proof, tables),
+        "forward": program_view(fw.design.forward, fw.fwd_proof, tables),
         "clamp_bits": clamp_bits,
         "limits": [("SPEED_MAX", lim.speed, f"{_num(lim.speed * f.speed_lsb_mps)} m/s"),
                    ("ACCEL_MAX", lim.accel, f"{_num(lim.accel * f.accel_lsb_mps2)} m/s^2"),

@@ -119,19 +119,16 @@ class Design:
     amps_per_acc: float
 
 
-steps_within = fx.steps_within
-
-
 def limits_of(v: Vehicle) -> Limits:
     fw, env = v.firmware, v.envelope
     lim = Limits(
-        speed=steps_within(env.speed_max_mps, fw.speed_lsb_mps),
-        accel=steps_within(env.accel_max_mps2, fw.accel_lsb_mps2),
-        pitch=steps_within(env.pitch_max_rad, fw.angle_lsb_rad),
-        roll=steps_within(env.roll_max_rad, fw.angle_lsb_rad),
-        payload=steps_within(v.payload.mass_max_kg, fw.mass_lsb_kg),
-        deadband=steps_within(v.friction.deadband_mps, fw.speed_lsb_mps),
-        current=steps_within(v.drive.current_limit_a, fw.current_lsb_a),
+        speed=fx.steps_within(env.speed_max_mps, fw.speed_lsb_mps),
+        accel=fx.steps_within(env.accel_max_mps2, fw.accel_lsb_mps2),
+        pitch=fx.steps_within(env.pitch_max_rad, fw.angle_lsb_rad),
+        roll=fx.steps_within(env.roll_max_rad, fw.angle_lsb_rad),
+        payload=fx.steps_within(v.payload.mass_max_kg, fw.mass_lsb_kg),
+        deadband=fx.steps_within(v.friction.deadband_mps, fw.speed_lsb_mps),
+        current=fx.steps_within(v.drive.current_limit_a, fw.current_lsb_a),
     )
     if lim.deadband >= lim.speed:
         raise UserError(f"{v.source}: friction.deadband: expected at least one firmware.speed_lsb step below "
