@@ -65,10 +65,7 @@ def init(path: str, force: bool) -> None:
     from generator import outputs
 
     text = resources.files("generator.demos").joinpath(DEMO).read_text(encoding="utf-8")
-    try:
-        outputs.write_atomically(target, text)
-    except OSError as exc:
-        raise UserError(f"{path}: cannot write ({exc.strerror})") from None
+    outputs.write_file(target, text)
     click.echo(f"wrote {path} (invented demo vehicle; edit every value for your own)")
 
 
@@ -223,7 +220,7 @@ def build(model_path: str, out_dir: str, vectors_path: str | None) -> None:
     files = render.render(fw)
     outputs.write_all(Path(out_dir), files)
     if vectors_path:
-        outputs.write_atomically(Path(vectors_path), vectors.to_csv(fw, vectors.feedforward_table(fw)))
+        outputs.write_file(Path(vectors_path), vectors.to_csv(fw, vectors.feedforward_table(fw)))
     click.echo(f"wrote {', '.join(str(Path(out_dir) / n) for n in files)}: tables {fw.total_bytes} bytes, "
                f"proven error {fw.ff_bound_a * 1000:.3f} mA of {v.firmware.current_budget_a * 1000:.3f} mA budget")
 
@@ -247,9 +244,9 @@ def verify(model_path: str, out_dir: str, report_path: str | None, junit_path: s
     statuses = [outputs.check_file(Path(out_dir), name, text) for name, text in files.items()]
     doc = outputs.report(fw, accuracy.measure(fw), statuses)
     if report_path:
-        outputs.write_atomically(Path(report_path), json.dumps(doc, indent=2) + "\n")
+        outputs.write_file(Path(report_path), json.dumps(doc, indent=2) + "\n")
     if junit_path:
-        outputs.write_atomically(Path(junit_path), outputs.junit(doc))
+        outputs.write_file(Path(junit_path), outputs.junit(doc))
     for s in statuses:
         click.echo(s.detail)
     click.echo(f"error: proven {fw.ff_bound_a * 1000:.3f} mA, measured max {doc['max_error'] * 1000:.3f} mA, "
@@ -264,14 +261,14 @@ def _write_failed_reports(v: model.Vehicle, exc: CheckFailed, report_path: str |
 
     doc = {"ok": False, "model": v.source, "budget": v.firmware.current_budget_a, "error": str(exc), "tables": []}
     if report_path:
-        outputs.write_atomically(Path(report_path), json.dumps(doc, indent=2) + "\n")
+        outputs.write_file(Path(report_path), json.dumps(doc, indent=2) + "\n")
     if junit_path:
         import xml.etree.ElementTree as ET
 
         suite = ET.Element("testsuite", name="kinetab verify", tests="1", failures="1")
         case = ET.SubElement(suite, "testcase", classname="kinetab", name="error budget")
         ET.SubElement(case, "failure", message=str(exc)).text = str(exc)
-        outputs.write_atomically(Path(junit_path), ET.tostring(suite, encoding="unicode") + "\n")
+        outputs.write_file(Path(junit_path), ET.tostring(suite, encoding="unicode") + "\n")
 
 
 @cli.command()

@@ -28,6 +28,16 @@ def write_atomically(path: Path, text: str) -> None:
         raise
 
 
+def write_file(path: Path, text: str) -> None:
+    """write_atomically, with a failure reported as one user-facing line (exit 2)."""
+    if path.is_dir():
+        raise UserError(f"{path}: expected a file name, found a folder")
+    try:
+        write_atomically(path, text)
+    except OSError as exc:
+        raise UserError(f"{path}: cannot write ({exc.strerror})") from None
+
+
 def write_all(folder: Path, files: dict[str, str]) -> None:
     if folder.exists() and not folder.is_dir():
         raise UserError(f"{folder}: expected an output folder, found a file")

@@ -114,3 +114,13 @@ def test_report_renders(tmp_path, capsys):
     html = (tmp_path / "rep" / "index.html").read_text()
     for png in ("error.png", "envelope.png", "table_friction.png"):
         assert png in html and (tmp_path / "rep" / png).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_unwritable_outputs_are_one_line_errors(tmp_path, capsys):
+    blocker = tmp_path / "file"
+    blocker.write_text("x")
+    code, _, err = run(["build", str(DEMO_PATH), "-o", str(blocker)], capsys)
+    assert code == 2 and err.count("\n") == 1 and "--out" in err and "is a file" in err
+    code, _, err = run(["build", str(DEMO_PATH), "-o", str(tmp_path / "g"), "--vectors", str(tmp_path)], capsys)
+    assert code == 2 and err.count("\n") == 1 and "--vectors" in err and "Traceback" not in err
+    assert not (tmp_path / "g").exists()

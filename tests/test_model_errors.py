@@ -44,7 +44,7 @@ BAD = [
     ("friction.deadband", "0 m/s", "> 0"),
     ("friction.breakaway", "1 N", ">= friction.coulomb"),     # breakaway below coulomb
     ("friction.deadband_shape", "ramps", "did you mean 'ramp'"),
-    ("body.gyration_radius", "3 m", "2 x wheels.track"),       # implausible for the track
+    ("body.gyration_radius", "3 m", "3 x wheels.track"),       # implausible for the track
     ("envelope.pitch_max", "6", "an angle"),                   # angle without unit
     ("envelope.pitch_max", "10 %", "an angle"),                # a grade is not an angle
     ("envelope.pitch_max", "50 deg", "45 deg"),
