@@ -257,18 +257,14 @@ def verify(model_path: str, out_dir: str, report_path: str | None, junit_path: s
 
 
 def _write_failed_reports(v: model.Vehicle, exc: CheckFailed, report_path: str | None, junit_path: str | None) -> None:
+    """Reports for a model whose budget cannot be met: the same files, saying why."""
     from generator import outputs
 
-    doc = {"ok": False, "model": v.source, "budget": v.firmware.current_budget_a, "error": str(exc), "tables": []}
+    doc = outputs.failed_report(v.source, v.firmware.current_budget_a, str(exc))
     if report_path:
         outputs.write_file(Path(report_path), json.dumps(doc, indent=2) + "\n")
     if junit_path:
-        import xml.etree.ElementTree as ET
-
-        suite = ET.Element("testsuite", name="kinetab verify", tests="1", failures="1")
-        case = ET.SubElement(suite, "testcase", classname="kinetab", name="error budget")
-        ET.SubElement(case, "failure", message=str(exc)).text = str(exc)
-        outputs.write_file(Path(junit_path), ET.tostring(suite, encoding="unicode") + "\n")
+        outputs.write_file(Path(junit_path), outputs.junit(doc))
 
 
 @cli.command()
