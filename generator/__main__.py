@@ -1,5 +1,5 @@
-"""Allow `python -m generator` as an alias of the `kinetab` console script."""
+"""`python -m kinetab.generator`: the same as the `kinetab` console script."""
 
-from generator.cli import main
+from kinetab import main
 
 main()

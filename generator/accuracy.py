@@ -12,9 +12,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from generator import dynamics, emulate
-from generator.synthesis import Firmware
-from generator.vectors import feedforward_inputs, split_columns
+from . import dynamics, emulate
+from .synthesis import Firmware
+from .vectors import feedforward_inputs, split_columns
 
 
 @dataclass(frozen=True)

@@ -13,10 +13,10 @@ from typing import Mapping
 
 import numpy as np
 
-from generator import fixedpoint as fx
-from generator import tables as tb
-from generator.errors import CheckFailed
-from generator.program import Backdrive, Clamp, Lookup, Mul, Program, Store, Sum
+from . import fixedpoint as fx
+from . import tables as tb
+from .errors import CheckFailed
+from .program import Backdrive, Clamp, Lookup, Mul, Program, Store, Sum
 
 I32 = fx.Interval(fx.word_min(32), fx.word_max(32))
 I64 = fx.Interval(fx.word_min(64), fx.word_max(64))

@@ -12,46 +12,25 @@ from typing import Any
 import click
 import numpy as np
 
-from generator import __version__, dynamics, emulate, envelope, model, stability, units
-from generator.errors import CheckFailed, UserError
+from . import __version__, dynamics, emulate, envelope, model, units
+from .cli_support import LazyGroup, QuantityType, run
+from .errors import CheckFailed, UserError
+from .vehicle import Vehicle
 
 DEMO = "larkspur.toml"
 
 
-class QuantityType(click.ParamType):
-    """A click option value: any pint quantity of one kind; a bare number is in `bare_unit`."""
-
-    name = "quantity"
-
-    def __init__(self, kind: units.Kind, bare_unit: str) -> None:
-        self.kind, self.bare_unit = kind, bare_unit
-
-    def convert(self, value: Any, param: click.Parameter | None, ctx: click.Context | None) -> float:
-        if isinstance(value, float):
-            return value
-        text = str(value).strip()
-        try:
-            float(text)
-            text = f"{text} {self.bare_unit}"
-        except ValueError:
-            pass
-        try:
-            return units.parse(text, self.kind)
-        except ValueError:
-            self.fail(f"expected {self.kind.name} such as {self.kind.example}, found {value!r}", param, ctx)
-
-
-def open_model(path: str) -> model.Vehicle:
-    """Load, validate and stability-check a model file (raises ModelError)."""
-    vehicle = model.load(path)
-    stability.check(vehicle)
-    return vehicle
-
-
-@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+@click.group(cls=LazyGroup, context_settings={"help_option_names": ["-h", "--help"]})
 @click.version_option(__version__, "--version", prog_name="kinetab")
-def cli() -> None:
+@click.option("--debug", is_flag=True, help="Show the traceback of an error instead of one line (bug reports).")
+def cli(debug: bool) -> None:
     """Vehicle model -> dynamics -> fixed-point feed-forward tables and C for drive controllers."""
+
+
+def register_lazy(name: str, module: str, attr: str, short_help: str) -> None:
+    """Add a command group from another package, imported only when it is used."""
+    assert isinstance(cli, LazyGroup)
+    cli.add_lazy(name, module, attr, short_help)
 
 
 @cli.command()
@@ -62,9 +41,9 @@ def init(path: str, force: bool) -> None:
     target = Path(path)
     if target.exists() and not force:
         raise UserError(f"{path}: file exists; pass --force to overwrite it")
-    from generator import outputs
+    from . import outputs
 
-    text = resources.files("generator.demos").joinpath(DEMO).read_text(encoding="utf-8")
+    text = resources.files(__package__ + ".demos").joinpath(DEMO).read_text(encoding="utf-8")
     outputs.write_file(target, text)
     click.echo(f"wrote {path} (invented demo vehicle; edit every value for your own)")
 
@@ -84,7 +63,7 @@ def _point_options(func):  # type: ignore[no-untyped-def]
     return func
 
 
-def predict_point(v: model.Vehicle, op: dynamics.OperatingPoint) -> dict[str, Any]:
+def predict_point(v: Vehicle, op: dynamics.OperatingPoint) -> dict[str, Any]:
     """The predict JSON document (SI units) for one operating point; current_fixed filled later."""
     right, left = dynamics.wheel_forces(v, op)
     doc: dict[str, Any] = {
@@ -111,7 +90,7 @@ def predict_point(v: model.Vehicle, op: dynamics.OperatingPoint) -> dict[str, An
 def predict(model_path: str, payload: float, speed_right: float, speed_left: float, accel_right: float,
             accel_left: float, pitch: float, roll: float, as_json: bool) -> None:
     """Evaluate the model at one operating point: forces, torque, current and voltage per wheel."""
-    v = open_model(model_path)
+    v = model.load(model_path)
     op = dynamics.OperatingPoint(payload, speed_right, speed_left, accel_right, accel_left, pitch, roll)
     doc = predict_point(v, op)
     _fill_fixed(v, op, doc)
@@ -121,9 +100,9 @@ def predict(model_path: str, payload: float, speed_right: float, speed_left: flo
     click.echo(_predict_table(doc))
 
 
-def _fill_fixed(v: model.Vehicle, op: dynamics.OperatingPoint, doc: dict[str, Any]) -> None:
+def _fill_fixed(v: Vehicle, op: dynamics.OperatingPoint, doc: dict[str, Any]) -> None:
     """current_fixed: the bit-exact firmware result at the inputs rounded to firmware steps."""
-    from generator import synthesis
+    from . import synthesis
 
     try:
         fw = synthesis.synthesise(v)
@@ -157,7 +136,7 @@ def _predict_table(doc: dict[str, Any]) -> str:
 @click.option("--json", "as_json", is_flag=True, help="Print JSON (SI units: rad, m/s^2, A, V).")
 def envelope_cmd(model_path: str, as_json: bool) -> None:
     """Gradeability, acceleration on pitch_max and peak current/voltage; exit 1 if infeasible."""
-    v = open_model(model_path)
+    v = model.load(model_path)
     rep = envelope.analyse(v)
     click.echo(json.dumps(_envelope_doc(rep), indent=2) if as_json else _envelope_table(v, rep))
     if not rep.feasible:
@@ -180,7 +159,7 @@ def _deg(rad: float) -> str:
     return "   none" if rad < 0 else f"{math.degrees(rad):7.2f}"
 
 
-def _envelope_table(v: model.Vehicle, rep: envelope.EnvelopeReport) -> str:
+def _envelope_table(v: Vehicle, rep: envelope.EnvelopeReport) -> str:
     env = v.envelope
     lines = [f"envelope of '{v.name}': speed_max {env.speed_max_mps:g} m/s, accel_max {env.accel_max_mps2:g} m/s^2, "
              f"pitch_max {math.degrees(env.pitch_max_rad):g} deg, roll_max {math.degrees(env.roll_max_rad):g} deg",
@@ -198,8 +177,8 @@ def _envelope_table(v: model.Vehicle, rep: envelope.EnvelopeReport) -> str:
     return "\n".join(lines)
 
 
-def _synthesise(v: model.Vehicle):
-    from generator import synthesis
+def _synthesise(v: Vehicle):
+    from . import synthesis
 
     for problem in envelope.corner_peaks(v)[3]:
         click.echo(f"warning: {v.source}: envelope: {problem}", err=True)
@@ -213,9 +192,9 @@ def _synthesise(v: model.Vehicle):
               help="Also write golden vectors (CSV: inputs and expected outputs in firmware steps).")
 def build(model_path: str, out_dir: str, vectors_path: str | None) -> None:
     """Generate <name>_ff.h and <name>_ff.c into OUT (atomically); exit 1 if the budget cannot be met."""
-    from generator import outputs, render, vectors
+    from . import outputs, render, vectors
 
-    v = open_model(model_path)
+    v = model.load(model_path)
     fw = _synthesise(v)
     files = render.render(fw)
     outputs.write_all(Path(out_dir), files)
@@ -232,9 +211,9 @@ def build(model_path: str, out_dir: str, vectors_path: str | None) -> None:
 @click.option("--junit", "junit_path", type=click.Path(dir_okay=False), help="Write JUnit XML for CI.")
 def verify(model_path: str, out_dir: str, report_path: str | None, junit_path: str | None) -> None:
     """Exit 0 when DIR holds exactly what build writes now and the error budget holds, else 1."""
-    from generator import accuracy, outputs, render, synthesis
+    from . import accuracy, outputs, render, synthesis
 
-    v = open_model(model_path)
+    v = model.load(model_path)
     try:
         fw = synthesis.synthesise(v)
     except CheckFailed as exc:
@@ -256,9 +235,9 @@ def verify(model_path: str, out_dir: str, report_path: str | None, junit_path: s
         raise CheckFailed(bad[0].detail)
 
 
-def _write_failed_reports(v: model.Vehicle, exc: CheckFailed, report_path: str | None, junit_path: str | None) -> None:
+def _write_failed_reports(v: Vehicle, exc: CheckFailed, report_path: str | None, junit_path: str | None) -> None:
     """Reports for a model whose budget cannot be met: the same files, saying why."""
-    from generator import outputs
+    from . import outputs
 
     doc = outputs.failed_report(v.source, v.firmware.current_budget_a, str(exc))
     if report_path:
@@ -272,36 +251,14 @@ def _write_failed_reports(v: model.Vehicle, exc: CheckFailed, report_path: str |
 @click.option("-o", "--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Output folder.")
 def report(model_path: str, out_dir: str) -> None:
     """Plots (PNG) of every table, the error distribution and the envelope, with an index.html."""
-    from generator import accuracy, plots
+    from . import accuracy, plots
 
-    v = open_model(model_path)
+    v = model.load(model_path)
     fw = _synthesise(v)
     names = plots.write_report(fw, accuracy.measure(fw), envelope.analyse(v), Path(out_dir))
     click.echo(f"wrote {len(names)} files to {out_dir} (open index.html)")
 
 
 def main(argv: list[str] | None = None) -> None:
-    """Console entry point: user mistakes print one line and exit 2, failed checks exit 1."""
-    debug = "--debug" in (argv if argv is not None else sys.argv[1:])
-    args = [a for a in (argv if argv is not None else sys.argv[1:]) if a != "--debug"]
-    try:
-        code = cli.main(args=args, prog_name="kinetab", standalone_mode=False)
-        if isinstance(code, int) and code != 0:
-            sys.exit(code)
-    except click.exceptions.Exit as exc:
-        sys.exit(exc.exit_code)
-    except click.exceptions.Abort:
-        click.echo("kinetab: aborted", err=True)
-        sys.exit(130)
-    except click.UsageError as exc:
-        where = f"kinetab {exc.ctx.info_name}" if exc.ctx and exc.ctx.info_name != "kinetab" else "kinetab"
-        click.echo(f"{where}: {exc.format_message()}".replace("\n", " "), err=True)
-        sys.exit(2)
-    except click.ClickException as exc:
-        click.echo(f"kinetab: {exc.format_message()}", err=True)
-        sys.exit(exc.exit_code)
-    except (UserError, CheckFailed) as exc:
-        if debug:
-            raise
-        click.echo(str(exc), err=True)
-        sys.exit(exc.exit_code)
+    """Run the commands with the project's exit codes (see cli_support.run)."""
+    run(cli, argv)

@@ -11,7 +11,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from generator.model import Vehicle
+from .vehicle import Vehicle
 
 G_N = 9.80665  # standard gravity, m/s^2 (3rd CGPM 1901, exact)
 

@@ -12,9 +12,9 @@ from typing import Mapping
 
 import numpy as np
 
-from generator import fixedpoint as fx
-from generator import tables as tb
-from generator.program import Backdrive, Clamp, Lookup, Mul, Program, Store, Sum
+from . import fixedpoint as fx
+from . import tables as tb
+from .program import Backdrive, Clamp, Lookup, Mul, Program, Store, Sum
 
 INT32 = (fx.word_min(32), fx.word_max(32))
 

@@ -12,9 +12,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from generator import dynamics
-from generator.dynamics import OperatingPoint
-from generator.model import Vehicle
+from . import dynamics
+from .dynamics import OperatingPoint
+from .vehicle import Vehicle
 
 PAYLOAD_STEPS = 5  # empty, quarter, half, three quarters, full
 PITCH_CEILING = math.radians(44.9)

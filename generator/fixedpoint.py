@@ -50,10 +50,13 @@ def quantise(values: np.ndarray, frac_bits: int, bits: int) -> tuple[np.ndarray,
 
 
 def frac_bits_for(max_abs: float, bits: int) -> int:
-    """Largest n with round(max_abs * 2^n) inside the word: the Q format that keeps most precision."""
+    """Largest n with round(max_abs * 2^n) inside the word: the Q format that keeps most precision.
+
+    At most bits + 32 fraction bits: a coefficient that is zero but for float noise (a difference of
+    two equal coefficients, 1e-305) stores zeros instead of asking for an infinite shift."""
     if max_abs <= 0 or not math.isfinite(max_abs):
         return 0
-    n = math.floor(math.log2(word_max(bits) / max_abs))
+    n = min(bits + 32, math.floor(math.log2(word_max(bits)) - math.log2(max_abs)))
     while math.floor(max_abs * 2.0**n + 0.5) > word_max(bits):
         n -= 1
     return n

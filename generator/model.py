@@ -9,13 +9,15 @@ import difflib
 import math
 import re
 import tomllib
-from dataclasses import asdict, dataclass
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Callable
 
-from generator import units
-from generator.errors import ModelError
-from generator.fixedpoint import steps_within
+from . import units
+from .errors import ModelError
+from . import stability
+from .fixedpoint import steps_within
+from .vehicle import SECTION_TYPES, Vehicle
 
 RATIO = units.Kind("a bare number", "", "0.85")
 CHOICE = units.Kind("one of the listed words", "", "'ramp'")
@@ -32,9 +34,10 @@ MAX_STEPS = 2**30
 
 @dataclass(frozen=True)
 class Key:
-    """One model key: its unit kind, default (None = required), a range check and its meaning."""
+    """One model key: unit kind, the Vehicle field it fills, default (None = required), range, meaning."""
 
     kind: units.Kind
+    field: str
     default: Any
     check: Callable[[float], bool] | None
     expect: str
@@ -42,180 +45,122 @@ class Key:
     choices: tuple[str, ...] = ()
 
 
-def _gt0(v: float) -> bool:
-    return v > 0
+def _within(lo: float | None, hi: float, unit: str, lo_open: bool = True) -> tuple[Callable[[float], bool], str]:
+    """A range check and its text. Upper limits are what is plausible for a wheeled vehicle (common
+    practice, not a physical law): they catch a unit slip such as grams for kilograms early."""
+    if lo is None:
+        return (lambda v: abs(v) <= hi), f"between -{hi:g} and {hi:g} {unit}".rstrip()
+    low = (lambda v: v > lo) if lo_open else (lambda v: v >= lo)
+    text = f"{'>' if lo_open else '>='} {lo:g} and <= {hi:g} {unit}".rstrip()
+    return (lambda v: low(v) and v <= hi), text
 
 
-def _ge0(v: float) -> bool:
-    return v >= 0
+def _key(kind: units.Kind, field: str, rng: tuple[Callable[[float], bool], str] | None, meaning: str,
+         default: Any = None, choices: tuple[str, ...] = ()) -> Key:
+    check, expect = rng if rng is not None else (None, "")
+    return Key(kind, field, default, check, expect, meaning, choices)
 
 
-def _eff(v: float) -> bool:
-    return 0 < v <= 1
+def _eff() -> tuple[Callable[[float], bool], str]:
+    return (lambda v: 0 < v <= 1), "in (0, 1]"
 
 
-def _angle_max(v: float) -> bool:
-    return 0 <= v < math.radians(45)
+def _angle() -> tuple[Callable[[float], bool], str]:
+    return (lambda v: 0 <= v < math.radians(45)), "in [0, 45 deg)"
 
 
+def _nonzero(hi: float) -> tuple[Callable[[float], bool], str]:
+    return (lambda v: v != 0 and abs(v) <= hi), f"!= 0 and between -{hi:g} and {hi:g} m"
+
+
+L, U, K = units, _within, _key
 SCHEMA: dict[str, dict[str, Key]] = {
     "body": {
-        "mass": Key(units.MASS, None, _gt0, "> 0", "mass of the empty vehicle"),
-        "cog_ahead": Key(units.LENGTH, None, None, "", "CoG ahead of the axle midpoint P (negative = behind)"),
-        "cog_height": Key(units.LENGTH, None, _ge0, ">= 0", "CoG height above the floor"),
-        "gyration_radius": Key(units.LENGTH, None, _gt0, "> 0", "yaw radius of gyration about the body's own CoG"),
+        "mass": K(L.MASS, "mass_kg", U(0, 5000, "kg"), "mass of the empty vehicle"),
+        "cog_ahead": K(L.LENGTH, "cog_ahead_m", U(None, 5, "m"), "CoG ahead of the axle midpoint P (negative = behind)"),
+        "cog_height": K(L.LENGTH, "cog_height_m", U(0, 5, "m", False), "CoG height above the floor"),
+        "gyration_radius": K(L.LENGTH, "gyration_radius_m", U(0, 5, "m"),
+                             "yaw radius of gyration about the body's own CoG"),
     },
     "payload": {
-        "mass_max": Key(units.MASS, None, _gt0, "> 0", "largest payload; tables span 0 .. mass_max"),
-        "cog_ahead": Key(units.LENGTH, None, None, "", "payload CoG ahead of P (negative = behind)"),
-        "cog_height": Key(units.LENGTH, None, _ge0, ">= 0", "payload CoG height above the floor"),
-        "gyration_radius": Key(units.LENGTH, None, _ge0, ">= 0", "payload yaw radius of gyration about its own CoG"),
+        "mass_max": K(L.MASS, "mass_max_kg", U(0, 10000, "kg"), "largest payload; tables span 0 .. mass_max"),
+        "cog_ahead": K(L.LENGTH, "cog_ahead_m", U(None, 5, "m"), "payload CoG ahead of P (negative = behind)"),
+        "cog_height": K(L.LENGTH, "cog_height_m", U(0, 5, "m", False), "payload CoG height above the floor"),
+        "gyration_radius": K(L.LENGTH, "gyration_radius_m", U(0, 5, "m", False),
+                             "payload yaw radius of gyration about its own CoG"),
     },
     "wheels": {
-        "track": Key(units.LENGTH, None, _gt0, "> 0", "distance between the drive-wheel contact centres (b = track/2)"),
-        "diameter": Key(units.LENGTH, None, _gt0, "> 0", "drive-wheel rolling diameter"),
-        "inertia": Key(units.INERTIA, None, _ge0, ">= 0", "inertia of one drive wheel about its axle"),
-        "rolling_resistance": Key(RATIO, None, lambda v: 0 <= v <= 0.5, "in [0, 0.5]", "drive-wheel rolling-resistance coefficient C_rr"),
-        "grip": Key(RATIO, None, lambda v: 0 < v <= 2, "in (0, 2]", "tyre-floor friction coefficient (traction limit)"),
+        "track": K(L.LENGTH, "track_m", U(0.05, 5, "m", False),
+                   "distance between the drive-wheel contact centres (b = track/2)"),
+        "diameter": K(L.LENGTH, "diameter_m", U(0.01, 2, "m", False), "drive-wheel rolling diameter"),
+        "inertia": K(L.INERTIA, "inertia_kgm2", U(0, 100, "kg*m^2", False), "inertia of one drive wheel about its axle"),
+        "rolling_resistance": K(RATIO, "rolling_resistance", U(0, 0.5, "", False),
+                                "drive-wheel rolling-resistance coefficient C_rr"),
+        "grip": K(RATIO, "grip", U(0, 2, ""), "tyre-floor friction coefficient (traction limit)"),
     },
     "casters": {
-        "behind_axle": Key(units.LENGTH, None, lambda v: v != 0, "!= 0", "caster contacts behind the drive axle (negative = ahead)"),
-        "rolling_resistance": Key(RATIO, None, lambda v: 0 <= v <= 0.5, "in [0, 0.5]", "caster rolling-resistance coefficient C_rr"),
+        "behind_axle": K(L.LENGTH, "behind_axle_m", _nonzero(5), "caster contacts behind the drive axle (negative = ahead)"),
+        "rolling_resistance": K(RATIO, "rolling_resistance", U(0, 0.5, "", False),
+                                "caster rolling-resistance coefficient C_rr"),
     },
     "drive": {
-        "gear_ratio": Key(RATIO, None, _gt0, "> 0", "motor turns per wheel turn"),
-        "efficiency": Key(RATIO, None, _eff, "in (0, 1]", "gearbox efficiency when the motor drives"),
-        "backdrive_efficiency": Key(RATIO, "efficiency", _eff, "in (0, 1]", "gearbox efficiency when the wheel drives the motor (default: efficiency)"),
-        "rotor_inertia": Key(units.INERTIA, None, _ge0, ">= 0", "motor rotor inertia"),
-        "torque_constant": Key(units.TORQUE_CONSTANT, None, _gt0, "> 0", "motor torque constant k_t (= k_e in SI)"),
-        "winding_resistance": Key(units.RESISTANCE, None, _ge0, ">= 0", "motor winding resistance, terminal to terminal"),
-        "current_limit": Key(units.CURRENT, None, _gt0, "> 0", "largest motor current the drive allows"),
-        "supply_voltage": Key(units.VOLTAGE, None, _gt0, "> 0", "drive supply (bus) voltage"),
+        "gear_ratio": K(RATIO, "gear_ratio", U(0, 1000, ""), "motor turns per wheel turn"),
+        "efficiency": K(RATIO, "efficiency", _eff(), "gearbox efficiency when the motor drives"),
+        "backdrive_efficiency": K(RATIO, "backdrive_efficiency", _eff(),
+                                  "gearbox efficiency when the wheel drives the motor (default: efficiency)",
+                                  default="efficiency"),
+        "rotor_inertia": K(L.INERTIA, "rotor_inertia_kgm2", U(0, 1, "kg*m^2", False), "motor rotor inertia"),
+        "torque_constant": K(L.TORQUE_CONSTANT, "torque_constant_nm_per_a", U(0, 100, "N*m/A"),
+                             "motor torque constant k_t (= k_e in SI)"),
+        "winding_resistance": K(L.RESISTANCE, "winding_resistance_ohm", U(0, 1000, "ohm", False),
+                                "motor winding resistance, terminal to terminal"),
+        "current_limit": K(L.CURRENT, "current_limit_a", U(0, 10000, "A"), "largest motor current the drive allows"),
+        "supply_voltage": K(L.VOLTAGE, "supply_voltage_v", U(0, 2000, "V"), "drive supply (bus) voltage"),
     },
     "friction": {
-        "coulomb": Key(units.FORCE, None, _ge0, ">= 0", "drivetrain Coulomb friction per wheel, at the rim"),
-        "breakaway": Key(units.FORCE, "coulomb", _ge0, ">= coulomb", "friction at zero speed, at the rim (default: coulomb)"),
-        "stribeck_speed": Key(units.SPEED, None, _gt0, "> 0", "rim speed where the Stribeck bump decays"),
-        "viscous": Key(units.DAMPING, None, _ge0, ">= 0", "viscous friction per wheel, at the rim"),
-        "deadband": Key(units.SPEED, None, _gt0, "> 0", "rim speed below which friction is shaped by deadband_shape"),
-        "deadband_shape": Key(CHOICE, "ramp", None, "", "'ramp': friction grows linearly up to deadband; 'gap': none until deadband", ("ramp", "gap")),
+        "coulomb": K(L.FORCE, "coulomb_n", U(0, 10000, "N", False), "drivetrain Coulomb friction per wheel, at the rim"),
+        "breakaway": K(L.FORCE, "breakaway_n", (lambda v: 0 <= v <= 10000, ">= coulomb and <= 10000 N"),
+                       "friction at zero speed, at the rim (default: coulomb)", default="coulomb"),
+        "stribeck_speed": K(L.SPEED, "stribeck_speed_mps", U(0, 10, "m/s"),
+                            "rim speed where the Stribeck bump decays"),
+        "viscous": K(L.DAMPING, "viscous_ns_per_m", U(0, 100000, "N*s/m", False),
+                     "viscous friction per wheel, at the rim"),
+        "deadband": K(L.SPEED, "deadband_mps", U(0, 10, "m/s"),
+                      "rim speed below which friction is shaped by deadband_shape"),
+        "deadband_shape": K(CHOICE, "deadband_shape", None,
+                            "'ramp': friction grows linearly up to deadband; 'gap': none until deadband",
+                            default="ramp", choices=("ramp", "gap")),
     },
     "envelope": {
-        "speed_max": Key(units.SPEED, None, _gt0, "> 0", "largest rim speed of either wheel"),
-        "accel_max": Key(units.ACCEL, None, _gt0, "> 0", "largest rim acceleration of either wheel"),
-        "pitch_max": Key(units.ANGLE, None, _angle_max, "in [0, 45 deg)", "steepest pitch either way (front up > 0)"),
-        "roll_max": Key(units.ANGLE, None, _angle_max, "in [0, 45 deg)", "steepest roll either way (left up > 0)"),
+        "speed_max": K(L.SPEED, "speed_max_mps", U(0, 30, "m/s"), "largest rim speed of either wheel"),
+        "accel_max": K(L.ACCEL, "accel_max_mps2", U(0, 50, "m/s^2"), "largest rim acceleration of either wheel"),
+        "pitch_max": K(L.ANGLE, "pitch_max_rad", _angle(), "steepest pitch either way (front up > 0)"),
+        "roll_max": K(L.ANGLE, "roll_max_rad", _angle(), "steepest roll either way (left up > 0)"),
     },
     "firmware": {
-        "speed_lsb": Key(units.SPEED, None, _gt0, "> 0", "rim speed of one firmware speed step"),
-        "accel_lsb": Key(units.ACCEL, None, _gt0, "> 0", "rim acceleration of one firmware step"),
-        "angle_lsb": Key(units.ANGLE, None, _gt0, "> 0", "angle of one firmware pitch/roll step"),
-        "mass_lsb": Key(units.MASS, None, _gt0, "> 0", "payload mass of one firmware step"),
-        "current_lsb": Key(units.CURRENT, None, _gt0, "> 0", "motor current of one firmware output step"),
-        "current_budget": Key(units.CURRENT, None, _gt0, "> 0", "largest allowed |firmware - float model| current"),
-        "word": Key(CHOICE, "int16", None, "", "storage word of table entries", ("int16", "int32")),
+        "speed_lsb": K(L.SPEED, "speed_lsb_mps", U(0, 30, "m/s"), "rim speed of one firmware speed step"),
+        "accel_lsb": K(L.ACCEL, "accel_lsb_mps2", U(0, 50, "m/s^2"), "rim acceleration of one firmware step"),
+        "angle_lsb": K(L.ANGLE, "angle_lsb_rad", U(0, 1, "rad"), "angle of one firmware pitch/roll step"),
+        "mass_lsb": K(L.MASS, "mass_lsb_kg", U(0, 10000, "kg"), "payload mass of one firmware step"),
+        "current_lsb": K(L.CURRENT, "current_lsb_a", U(0, 10000, "A"), "motor current of one firmware output step"),
+        "current_budget": K(L.CURRENT, "current_budget_a", U(0, 10000, "A"),
+                            "largest allowed |firmware - float model| current"),
+        "word": K(CHOICE, "word", None, "storage word of table entries", default="int16", choices=("int16", "int32")),
     },
 }
+del L, U, K
+
+FIELDS: dict[str, tuple[str, str]] = {f"{sec}.{key}": (sec, spec.field) for sec, keys in SCHEMA.items()
+                                       for key, spec in keys.items()}
+"""Model key ("body.mass") -> (Vehicle attribute, field): the one map from file keys to dataclass fields."""
 
 
-@dataclass(frozen=True)
-class Body:
-    mass_kg: float
-    cog_ahead_m: float
-    cog_height_m: float
-    gyration_radius_m: float
-
-
-@dataclass(frozen=True)
-class Payload:
-    mass_max_kg: float
-    cog_ahead_m: float
-    cog_height_m: float
-    gyration_radius_m: float
-
-
-@dataclass(frozen=True)
-class Wheels:
-    track_m: float
-    diameter_m: float
-    inertia_kgm2: float
-    rolling_resistance: float
-    grip: float
-
-
-@dataclass(frozen=True)
-class Casters:
-    behind_axle_m: float
-    rolling_resistance: float
-
-
-@dataclass(frozen=True)
-class Drive:
-    gear_ratio: float
-    efficiency: float
-    backdrive_efficiency: float
-    rotor_inertia_kgm2: float
-    torque_constant_nm_per_a: float
-    winding_resistance_ohm: float
-    current_limit_a: float
-    supply_voltage_v: float
-
-
-@dataclass(frozen=True)
-class Friction:
-    coulomb_n: float
-    breakaway_n: float
-    stribeck_speed_mps: float
-    viscous_ns_per_m: float
-    deadband_mps: float
-    deadband_shape: str
-
-
-@dataclass(frozen=True)
-class Envelope:
-    speed_max_mps: float
-    accel_max_mps2: float
-    pitch_max_rad: float
-    roll_max_rad: float
-
-
-@dataclass(frozen=True)
-class Firmware:
-    speed_lsb_mps: float
-    accel_lsb_mps2: float
-    angle_lsb_rad: float
-    mass_lsb_kg: float
-    current_lsb_a: float
-    current_budget_a: float
-    word: str
-
-
-@dataclass(frozen=True)
-class Vehicle:
-    """A validated vehicle model, SI units throughout."""
-
-    name: str
-    body: Body
-    payload: Payload
-    wheels: Wheels
-    casters: Casters
-    drive: Drive
-    friction: Friction
-    envelope: Envelope
-    firmware: Firmware
-    source: str = "<model>"
-
-    def normalised(self) -> dict[str, Any]:
-        """The model as plain SI numbers (no source path): what the fingerprint hashes."""
-        data = asdict(self)
-        data.pop("source")
-        return data
-
-
-_SECTION_TYPES = {
-    "body": Body, "payload": Payload, "wheels": Wheels, "casters": Casters, "drive": Drive,
-    "friction": Friction, "envelope": Envelope, "firmware": Firmware,
-}
+def value(v: Vehicle, dotted: str) -> float | str:
+    """The SI value (or choice word) of a model key in a validated vehicle."""
+    section, field = FIELDS[dotted]
+    result = getattr(getattr(v, section), field)
+    assert isinstance(result, (float, str))
+    return result
 
 
 def _suggest(word: str, options: list[str]) -> str:
@@ -329,7 +274,8 @@ def _cross_checks(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any]) -
 
 
 def parse_document(doc: dict[str, Any], source: str) -> Vehicle:
-    """Validate a parsed TOML document and build the Vehicle (raises ModelError)."""
+    """Validate a parsed TOML document (every key, every cross rule, static stability) and build the
+    Vehicle; raises ModelError, one line naming the key."""
     for key in doc:
         if key != "name" and key not in SCHEMA:
             raise ModelError(source, key, "a known section or 'name'", "an unknown key" + _suggest(key, ["name", *SCHEMA]))
@@ -340,12 +286,16 @@ def parse_document(doc: dict[str, Any], source: str) -> Vehicle:
             raise ModelError(source, section, f"a [{section}] section", "nothing (the section is required)")
         sections[section] = _read_section(source, section, doc[section])
     _cross_checks(source, sections, doc)
-    built = {sec: _SECTION_TYPES[sec](*sections[sec].values()) for sec in SCHEMA}
-    return Vehicle(name=name, source=source, **built)
+    built = {sec: SECTION_TYPES[sec](**{SCHEMA[sec][key].field: val for key, val in sections[sec].items()})
+             for sec in SCHEMA}
+    vehicle = Vehicle(name=name, source=source, **built)
+    stability.check(vehicle)
+    return vehicle
 
 
 def load(path: str | Path) -> Vehicle:
-    """Read and validate a model file; every problem is one ModelError line naming the key."""
+    """The one way to get a vehicle from a file: read, validate every key and cross rule, check static
+    stability; every problem is one ModelError line naming the file and the key."""
     path = Path(path)
     src = str(path)
     try:
@@ -354,6 +304,7 @@ def load(path: str | Path) -> Vehicle:
         raise ModelError(src, "file", "an existing model file", "no such file") from None
     except (OSError, UnicodeDecodeError) as exc:
         raise ModelError(src, "file", "a readable UTF-8 TOML file", type(exc).__name__) from None
+    text = text.removeprefix("\ufeff")  # a UTF-8 byte-order mark, as some Windows editors write
     try:
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:

@@ -9,10 +9,10 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from generator import fixedpoint as fx
-from generator.accuracy import Accuracy
-from generator.errors import UserError
-from generator.synthesis import Firmware
+from . import fixedpoint as fx
+from .accuracy import Accuracy
+from .errors import UserError
+from .synthesis import Firmware
 
 
 def write_atomically(path: Path, text: str) -> None:

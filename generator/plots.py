@@ -9,10 +9,10 @@ from pathlib import Path
 
 import numpy as np
 
-from generator import emulate, envelope
-from generator import tables as tb
-from generator.accuracy import Accuracy, envelope_points, operating_point, reference_current
-from generator.synthesis import Firmware
+from . import emulate, envelope
+from . import tables as tb
+from .accuracy import Accuracy, envelope_points, operating_point, reference_current
+from .synthesis import Firmware
 
 
 def _pyplot():

@@ -12,11 +12,11 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from generator import dynamics
-from generator import fixedpoint as fx
-from generator import tables as tb
-from generator.errors import UserError
-from generator.model import Vehicle
+from . import dynamics
+from . import fixedpoint as fx
+from . import tables as tb
+from .errors import UserError
+from .vehicle import Vehicle
 
 INT32_MAX = fx.word_max(32)
 

@@ -14,10 +14,10 @@ from typing import Callable, Mapping
 
 import numpy as np
 
-from generator import analysis
-from generator import tables as tb
-from generator.errors import CheckFailed
-from generator.program import Program
+from . import analysis
+from . import tables as tb
+from .errors import CheckFailed
+from .program import Program
 
 
 Bound = Callable[[Mapping[str, object]], object]

@@ -6,9 +6,9 @@ import math
 
 import numpy as np
 
-from generator import dynamics
-from generator.errors import ModelError
-from generator.model import Vehicle
+from . import dynamics
+from .errors import ModelError
+from .vehicle import Vehicle
 
 
 def _grid(v: Vehicle) -> tuple[np.ndarray, np.ndarray, np.ndarray]:

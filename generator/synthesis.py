@@ -8,10 +8,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from generator import __version__, analysis, dynamics, program, sizing
-from generator import tables as tb
-from generator.errors import CheckFailed
-from generator.model import Vehicle
+from . import __version__, analysis, dynamics, program, sizing
+from . import tables as tb
+from .errors import CheckFailed
+from .vehicle import Vehicle
 
 FORMAT_VERSION = 1
 FORWARD_BUDGET_FACTOR = 2.0

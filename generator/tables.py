@@ -12,8 +12,8 @@ from typing import Callable
 
 import numpy as np
 
-from generator import fixedpoint as fx
-from generator.errors import CheckFailed
+from . import fixedpoint as fx
+from .errors import CheckFailed
 
 Func = Callable[[np.ndarray], np.ndarray]
 EXHAUSTIVE_POINTS = 1 << 21

@@ -10,9 +10,9 @@ import itertools
 
 import numpy as np
 
-from generator import emulate
-from generator.program import Limits
-from generator.synthesis import Firmware
+from . import emulate
+from .program import Limits
+from .synthesis import Firmware
 
 FF_COLUMNS = ("speed_right", "speed_left", "accel_right", "accel_left", "pitch", "roll", "payload")
 

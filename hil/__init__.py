@@ -1,4 +1,3 @@
-"""Bench side of kinetab (DESIGN §8): serial framing, messages, sessions and parameter fits.
-
-Not built yet: this package exists so the wheel layout is final; see DEVELOPERS.md for the plan.
-"""
+"""Bench side of kinetab: serial framing, messages, the session with the drive controller, the
+simulated controller, test plans, comparison and parameter fits. Reads the model and the generated
+fingerprint; the feed-forward side never imports it."""

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from functools import lru_cache
 
-from generator import model, render, synthesis
+from kinetab.generator import model, render, synthesis
 from tests.helpers import DEMO_PATH
 
 

@@ -8,9 +8,9 @@ from importlib import resources
 from pathlib import Path
 from typing import Any
 
-from generator import model
+from kinetab.generator import model
 
-DEMO_PATH = Path(str(resources.files("generator.demos").joinpath("larkspur.toml")))
+DEMO_PATH = Path(str(resources.files("kinetab.generator.demos").joinpath("larkspur.toml")))
 
 
 def demo_doc() -> dict[str, Any]:
@@ -88,8 +88,8 @@ def random_firmware_strategy(name: str = "veh"):
     from hypothesis import assume
     from hypothesis import strategies as st
 
-    from generator import stability, synthesis
-    from generator.errors import CheckFailed, ModelError
+    from kinetab.generator import stability, synthesis
+    from kinetab.generator.errors import CheckFailed, ModelError
 
     @st.composite
     def build(draw):

@@ -7,7 +7,7 @@ import xml.etree.ElementTree as ET
 
 import pytest
 
-from generator import cli
+from kinetab.generator import cli
 from tests.helpers import DEMO_PATH, demo_doc, write_model
 
 

@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings
 
-from generator import accuracy, emulate, model, render, synthesis, vectors
+from kinetab.generator import accuracy, emulate, model, render, synthesis, vectors
 from tests import cortexm
 from tests.firmware_fixtures import demo_files, demo_firmware
 from tests.helpers import demo_doc, random_firmware_strategy, vehicle_from

@@ -8,7 +8,7 @@ import math
 import numpy as np
 import pytest
 
-from generator import cli, dynamics, model
+from kinetab.generator import cli, dynamics, model
 from tests.helpers import DEMO_PATH, demo_doc, write_model
 
 
@@ -91,7 +91,7 @@ def test_envelope_voltage_limit(tmp_path, capsys):
 
 def test_envelope_hold_pitch_by_hand():
     """Standing still, the held pitch satisfies m g sin(theta)/2 per wheel = current limit (statics)."""
-    from generator import envelope
+    from kinetab.generator import envelope
 
     doc = demo_doc()
     doc["wheels"]["grip"] = 2.0           # traction no limit

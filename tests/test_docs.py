@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from generator.model import SCHEMA
+from kinetab.generator.model import SCHEMA
 
 ROOT = Path(__file__).resolve().parents[1]
 

@@ -12,9 +12,9 @@ import pytest
 from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 
-from generator import dynamics, stability
-from generator.dynamics import OperatingPoint
-from generator.errors import ModelError
+from kinetab.generator import dynamics, stability
+from kinetab.generator.dynamics import OperatingPoint
+from kinetab.generator.errors import ModelError
 from tests.helpers import random_doc, vehicle_from
 
 SETTINGS = settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])

@@ -8,9 +8,9 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from generator import emulate
-from generator import fixedpoint as fx
-from generator import tables as tb
+from kinetab.generator import emulate
+from kinetab.generator import fixedpoint as fx
+from kinetab.generator import tables as tb
 from tests.firmware_fixtures import demo_firmware
 
 

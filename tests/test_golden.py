@@ -12,7 +12,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from generator import accuracy, vectors
+from kinetab.generator import accuracy, vectors
 from tests.firmware_fixtures import demo_files, demo_firmware
 from tests.test_c_generated import build_harness, needs_gcc, run_harness
 

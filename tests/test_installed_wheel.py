@@ -38,9 +38,20 @@ def _kinetab(installed, *args, check=True):
 def test_wheel_contains_templates_and_demo(installed):
     wheel = installed[0]
     names = zipfile.ZipFile(wheel).namelist()
-    assert "generator/demos/larkspur.toml" in names
-    assert {"generator/templates/ff.h.j2", "generator/templates/ff.c.j2", "generator/templates/ops.j2"} <= set(names)
-    assert any(n.startswith("hil/") for n in names)
+    assert "kinetab/generator/demos/larkspur.toml" in names
+    assert {"kinetab/generator/templates/ff/ff.h.j2", "kinetab/generator/templates/ff/ff.c.j2"} <= set(names)
+    assert "kinetab/__init__.py" in names
+    assert any(n.startswith("kinetab/hil/") for n in names)
+
+
+@pytest.mark.slow
+def test_wheel_installs_no_generic_top_level_name(installed):
+    """Regression: the wheel used to install top-level `generator` and `hil` packages, names any other
+    distribution may claim; everything must live under the one package `kinetab`."""
+    names = zipfile.ZipFile(installed[0]).namelist()
+    top = {n.split("/")[0] for n in names if not n.split("/")[0].endswith((".dist-info", ".data"))}
+    assert top == {"kinetab"}
+    assert sorted(p.name for p in installed[1].iterdir() if not p.name.endswith(".dist-info")) == ["bin", "kinetab"]
 
 
 @pytest.mark.slow
@@ -48,7 +59,7 @@ def test_installed_commands_run(installed):
     work = installed[3]
     result = _kinetab(installed, "init", "cart.toml")
     assert (work / "cart.toml").exists(), result.stderr
-    where = subprocess.run([sys.executable, "-c", "import generator; print(generator.__file__)"], cwd=work,
+    where = subprocess.run([sys.executable, "-c", "import kinetab.generator as g; print(g.__file__)"], cwd=work,
                            env=installed[2], capture_output=True, text=True, check=True).stdout
     assert str(installed[1]) in where  # imported from the installed wheel, not the source tree
     doc = json.loads(_kinetab(installed, "predict", "cart.toml", "--speed-right", "0.3", "--json").stdout)

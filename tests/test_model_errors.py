@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import pytest
 
-from generator import cli
+from kinetab.generator import cli
 from tests.helpers import demo_doc, write_model
 
 

@@ -7,7 +7,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from generator import accuracy, analysis, emulate, synthesis
+from kinetab.generator import accuracy, analysis, emulate, synthesis
 from tests.firmware_fixtures import demo_firmware
 from tests.helpers import random_firmware_strategy
 
@@ -28,7 +28,7 @@ def test_program_algebra_equals_float_model():
 
 
 def test_forward_program_algebra_equals_float_forward_dynamics():
-    from generator import dynamics
+    from kinetab.generator import dynamics
 
     fw = demo_firmware()
     v = fw.vehicle

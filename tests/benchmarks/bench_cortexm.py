@@ -8,7 +8,7 @@ from pathlib import Path
 
 import numpy as np
 
-from generator import accuracy, program, render, synthesis, vectors
+from kinetab.generator import accuracy, program, render, synthesis, vectors
 from tests import cortexm
 
 HERE = Path(__file__).parent
@@ -25,7 +25,7 @@ def _bounds(fw: synthesis.Firmware, field: str) -> tuple[int, int]:
 
 def float_params(fw: synthesis.Firmware) -> str:
     v, lim, f = fw.vehicle, fw.design.limits, fw.vehicle.firmware
-    from generator import dynamics as dy
+    from kinetab.generator import dynamics as dy
 
     b, lc = dy.half_track(v), v.casters.behind_axle_m
     k = program.motor_gain(v)

@@ -13,8 +13,8 @@ import time
 
 import numpy as np
 
-from generator import accuracy, analysis, program, synthesis
-from generator import tables as tb
+from kinetab.generator import accuracy, analysis, program, synthesis
+from kinetab.generator import tables as tb
 
 
 def _units(des: program.Design, names: list[str]) -> list[tuple[str, int, list[int], list[float]]]:

@@ -17,7 +17,7 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 
-from generator import model, synthesis  # noqa: E402
+from kinetab.generator import model, synthesis  # noqa: E402
 from tests.benchmarks import bench_cortexm, bench_tables  # noqa: E402
 from tests.helpers import DEMO_PATH  # noqa: E402
 
@@ -33,7 +33,7 @@ def wall(cmd: list[str], repeat: int = 5) -> float:
 
 def build_time() -> dict[str, float]:
     with tempfile.TemporaryDirectory() as tmp:
-        build = wall([sys.executable, "-m", "generator", "build", str(DEMO_PATH), "-o", tmp])
+        build = wall([sys.executable, "-m", "kinetab.generator", "build", str(DEMO_PATH), "-o", tmp])
     numpy = wall([sys.executable, "-c", "import numpy"])
     return {"build_s": build, "import_numpy_s": numpy, "ratio": build / numpy}
 

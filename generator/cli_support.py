@@ -1,0 +1,138 @@
+"""Command-line plumbing both command groups share: the quantity option type, a group whose
+subcommands load on first use, and the one mapping from errors to exit codes (0 ok, 1 check
+failed, 2 bad input or usage, 130 interrupted)."""
+
+from __future__ import annotations
+
+import importlib
+import os
+import signal
+import sys
+from collections.abc import Callable
+from typing import Any
+
+import click
+
+from . import units
+from .errors import CheckFailed, UserError
+
+
+class QuantityType(click.ParamType):
+    """A click option value: any pint quantity of one kind; a bare number is in `bare_unit`."""
+
+    name = "quantity"
+
+    def __init__(self, kind: units.Kind, bare_unit: str) -> None:
+        self.kind, self.bare_unit = kind, bare_unit
+
+    def convert(self, value: Any, param: click.Parameter | None, ctx: click.Context | None) -> float:
+        if isinstance(value, float):
+            return value
+        text = str(value).strip()
+        try:
+            float(text)
+            text = f"{text} {self.bare_unit}"
+        except ValueError:
+            pass
+        try:
+            return units.parse(text, self.kind)
+        except ValueError:
+            self.fail(f"expected {self.kind.name} such as {self.kind.example}, found {value!r}", param, ctx)
+
+
+class LazyGroup(click.Group):
+    """A click group whose registered subgroups are imported only when named on the command line,
+    so `kinetab build` never imports the bench side (and the bench side can live in its own package)."""
+
+    def __init__(self, *args: Any, **kwargs: Any) -> None:
+        super().__init__(*args, **kwargs)
+        self.lazy: dict[str, tuple[str, str, str]] = {}
+
+    def add_lazy(self, name: str, module: str, attr: str, short_help: str) -> None:
+        """Register `name` as `module.attr`, imported on first use; `short_help` shows in the list."""
+        self.lazy[name] = (module, attr, short_help)
+
+    def list_commands(self, ctx: click.Context) -> list[str]:
+        return sorted([*super().list_commands(ctx), *self.lazy])
+
+    def get_command(self, ctx: click.Context, cmd_name: str) -> click.Command | None:
+        if cmd_name in self.lazy and cmd_name not in self.commands:
+            module, attr, _ = self.lazy[cmd_name]
+            command = getattr(importlib.import_module(module), attr)
+            self.add_command(command, cmd_name)
+        return super().get_command(ctx, cmd_name)
+
+    def format_commands(self, ctx: click.Context, formatter: click.HelpFormatter) -> None:
+        """The command list without importing lazy groups: their short help is registered with them."""
+        rows = []
+        for name in self.list_commands(ctx):
+            if name in self.lazy and name not in self.commands:
+                rows.append((name, self.lazy[name][2]))
+                continue
+            cmd = self.commands.get(name)
+            if cmd is not None and not cmd.hidden:
+                rows.append((name, cmd.get_short_help_str(limit=200)))
+        if rows:
+            with formatter.section("Commands"):
+                formatter.write_dl(rows)
+
+
+def _interrupted(_signum: int, _frame: object) -> None:
+    """SIGINT while modules are still loading: nothing is written yet, so leave at once."""
+    sys.stderr.write("kinetab: interrupted\n")
+    os._exit(130)
+
+
+def run(group: click.Group, argv: list[str] | None, load: Callable[[], None] | None = None) -> None:
+    """Run a click group with the project's exit codes: returns on success; user mistakes print one
+    line (exit 2), failed checks exit 1, Ctrl-C exits 130. With the group's `--debug` option a user
+    error shows its traceback instead. `load` runs first with Ctrl-C mapped to a clean exit."""
+    args = list(sys.argv[1:] if argv is None else argv)
+    debug = "--debug" in args[: _first_command(group, args)]
+    previous = signal.signal(signal.SIGINT, _interrupted)
+    try:
+        if load is not None:
+            load()
+    finally:
+        signal.signal(signal.SIGINT, previous)
+    try:
+        _invoke(group, args, debug)
+    except KeyboardInterrupt:
+        click.echo("kinetab: interrupted", err=True)
+        sys.exit(130)
+
+
+def _first_command(group: click.Group, args: list[str]) -> int:
+    """Index of the subcommand name in args (top-level options such as --debug come before it)."""
+    for k, arg in enumerate(args):
+        if not arg.startswith("-"):
+            return k
+    return len(args)
+
+
+def _invoke(group: click.Group, args: list[str], debug: bool) -> None:
+    """One call of the group; every expected exception becomes its exit code (a SystemExit)."""
+    if not args:  # plain help, as `--help` prints it
+        click.echo(group.get_help(click.Context(group, info_name="kinetab")))
+        return
+    try:
+        code = group.main(args=args, prog_name="kinetab", standalone_mode=False)
+    except click.exceptions.Exit as exc:
+        sys.exit(exc.exit_code)
+    except click.exceptions.Abort:
+        click.echo("kinetab: aborted", err=True)
+        sys.exit(130)
+    except click.UsageError as exc:
+        where = f"kinetab {exc.ctx.info_name}" if exc.ctx and exc.ctx.info_name != "kinetab" else "kinetab"
+        click.echo(f"{where}: {exc.format_message()}".replace("\n", " "), err=True)
+        sys.exit(2)
+    except click.ClickException as exc:
+        click.echo(f"kinetab: {exc.format_message()}", err=True)
+        sys.exit(exc.exit_code)
+    except (UserError, CheckFailed) as exc:
+        if debug:
+            raise
+        click.echo(str(exc), err=True)
+        sys.exit(exc.exit_code)
+    if isinstance(code, int) and code != 0:
+        sys.exit(code)

@@ -1,0 +1,106 @@
+"""The validated vehicle as frozen dataclasses in SI units (built only by `model`, by keyword)."""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass
+from typing import Any
+
+@dataclass(frozen=True)
+class Body:
+    mass_kg: float
+    cog_ahead_m: float
+    cog_height_m: float
+    gyration_radius_m: float
+
+
+@dataclass(frozen=True)
+class Payload:
+    mass_max_kg: float
+    cog_ahead_m: float
+    cog_height_m: float
+    gyration_radius_m: float
+
+
+@dataclass(frozen=True)
+class Wheels:
+    track_m: float
+    diameter_m: float
+    inertia_kgm2: float
+    rolling_resistance: float
+    grip: float
+
+
+@dataclass(frozen=True)
+class Casters:
+    behind_axle_m: float
+    rolling_resistance: float
+
+
+@dataclass(frozen=True)
+class Drive:
+    gear_ratio: float
+    efficiency: float
+    backdrive_efficiency: float
+    rotor_inertia_kgm2: float
+    torque_constant_nm_per_a: float
+    winding_resistance_ohm: float
+    current_limit_a: float
+    supply_voltage_v: float
+
+
+@dataclass(frozen=True)
+class Friction:
+    coulomb_n: float
+    breakaway_n: float
+    stribeck_speed_mps: float
+    viscous_ns_per_m: float
+    deadband_mps: float
+    deadband_shape: str
+
+
+@dataclass(frozen=True)
+class Envelope:
+    speed_max_mps: float
+    accel_max_mps2: float
+    pitch_max_rad: float
+    roll_max_rad: float
+
+
+@dataclass(frozen=True)
+class Firmware:
+    speed_lsb_mps: float
+    accel_lsb_mps2: float
+    angle_lsb_rad: float
+    mass_lsb_kg: float
+    current_lsb_a: float
+    current_budget_a: float
+    word: str
+
+
+@dataclass(frozen=True)
+class Vehicle:
+    """A validated vehicle model, SI units throughout."""
+
+    name: str
+    body: Body
+    payload: Payload
+    wheels: Wheels
+    casters: Casters
+    drive: Drive
+    friction: Friction
+    envelope: Envelope
+    firmware: Firmware
+    source: str = "<model>"
+
+    def normalised(self) -> dict[str, Any]:
+        """The model as plain SI numbers (no source path): what the fingerprint hashes."""
+        data = asdict(self)
+        data.pop("source")
+        return data
+
+
+
+SECTION_TYPES: dict[str, type] = {
+    "body": Body, "payload": Payload, "wheels": Wheels, "casters": Casters, "drive": Drive,
+    "friction": Friction, "envelope": Envelope, "firmware": Firmware,
+}

@@ -1,0 +1,23 @@
+"""kinetab: vehicle model -> dynamics -> fixed-point feed-forward C, and the bench link.
+
+The installed wheel holds this file as the package `kinetab/__init__.py`, with `generator` and `hil`
+inside it (so the wheel claims no generic top-level name). In a source checkout this file stands
+beside those folders and points the package path at them, so `import kinetab.generator` works from
+the repository root without installing. It also composes the command line: the feed-forward
+commands from `generator` and the `bench` group from `hil`, neither importing the other's CLI.
+"""
+
+from __future__ import annotations
+
+import os
+
+__path__ = [os.path.dirname(os.path.abspath(__file__))]
+
+
+def main(argv: list[str] | None = None) -> None:
+    """The `kinetab` console script: every command, with the bench group loaded only when used."""
+    from kinetab.generator import cli
+
+    cli.register_lazy("bench", "kinetab.hil.commands", "bench",
+                      "Bench link: plan, simulate, run (see hil/PROTOCOL.md).")
+    cli.main(argv)
