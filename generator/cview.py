@@ -9,10 +9,11 @@ import math
 from dataclasses import dataclass
 from typing import Any
 
-from generator import __version__
-from generator import fixedpoint as fx
-from generator.program import Backdrive, Clamp, Lookup, Mul, Program, Store, Sum
-from generator.synthesis import FORMAT_VERSION, Firmware
+from . import __version__, interface, model
+from .cformat import num, rows, wrap
+from . import fixedpoint as fx
+from .program import Backdrive, Clamp, Lookup, Mul, Program, Store, Sum
+from .synthesis import FORMAT_VERSION, Firmware
 
 CAUTION = (
     "CAUTION: feed-forward computed from wrong parameters can make a vehicle move unexpectedly.",
@@ -42,10 +43,6 @@ def _sources(fw: Firmware) -> dict[str, Source]:
             "payload": Source(f.mass_lsb_kg, "kg"), "current": Source(f.current_lsb_a, "A")}
 
 
-def _num(x: float) -> str:
-    return f"{x:.6g}"
-
-
 MODEL_KEYS = {
     "payload": ("body.mass", "body.cog_ahead", "body.cog_height", "body.gyration_radius", "payload.mass_max",
                 "payload.cog_ahead", "payload.cog_height", "payload.gyration_radius", "wheels.track"),
@@ -61,31 +58,14 @@ EXTRA_KEYS = {
 }
 
 
-UNIT_SUFFIX = {"kg": "kg", "m": "m", "kgm2": "kg*m^2", "n": "N", "mps": "m/s", "mps2": "m/s^2",
-               "ns_per_m": "N*s/m", "rad": "rad", "nm_per_a": "N*m/A", "ohm": "ohm", "a": "A", "v": "V"}
-
-
 def _model_value(fw: Firmware, dotted: str) -> str:
     """`section.key = value unit` from the validated model (SI), for table comments."""
-    sec, key = dotted.split(".")
-    obj = getattr(fw.vehicle, sec)
-    for field in obj.__dataclass_fields__:
-        if field == key or field.startswith(key + "_"):
-            value = getattr(obj, field)
-            unit = UNIT_SUFFIX[field[len(key) + 1:]] if field != key else ""
-            return f"{dotted} = {_num(value) if isinstance(value, float) else value}{' ' + unit if unit else ''}"
-    raise KeyError(dotted)
-
-
-def _wrap(items: list[str], width: int = 92) -> list[str]:
-    lines, line = [], ""
-    for item in items:
-        if line and len(line) + len(item) + 2 > width:
-            lines.append(line + ",")
-            line = item
-        else:
-            line = f"{line}, {item}" if line else item
-    return lines + [line] if line else lines
+    section, key = dotted.split(".")
+    spec = model.SCHEMA[section][key]
+    value = model.value(fw.vehicle, dotted)
+    unit = spec.kind.si.replace("**", "^")
+    text = num(value) if isinstance(value, float) else value
+    return f"{dotted} = {text}{' ' + unit if unit else ''}"
 
 
 def table_view(fw: Firmware, name: str, prefix: str) -> dict[str, Any]:
@@ -104,14 +84,14 @@ def table_view(fw: Firmware, name: str, prefix: str) -> dict[str, Any]:
             "segments": data.segments, "shift": data.shift, "mask": f"0x{data.mask:X}",
             "half": (1 << (data.shift - 1)) if data.shift > 0 else 0, "wide": fw.ff_proof.lookup_wide[name][k],
             "constant": data.segments == 0, "value": int(data.entries[0]),
-            "entries": _rows([int(e) for e in data.entries]),
+            "entries": rows([int(e) for e in data.entries]),
             "describe": (f"{'|x|' if spec.symmetry != 'none' else 'x'} in {piece.x0}..{piece.x1} steps "
-                         f"({_num(piece.x0 * src.lsb)}..{_num(piece.x1 * src.lsb)} {src.unit})"
+                         f"({num(piece.x0 * src.lsb)}..{num(piece.x1 * src.lsb)} {src.unit})"
                          + (f", {piece.label}" if piece.label else "")),
             "layout": ("constant" if data.segments == 0 else
                        f"{data.segments} segment{'s' if data.segments > 1 else ''} of {width} steps, "
                        f"breakpoints at x0 + k*{width}"),
-            "error": f"{_num(err.total * spec.si_scale)} {spec.si_unit}"
+            "error": f"{num(err.total * spec.si_scale)} {spec.si_unit}"
                      + (" (every input checked)" if err.exhaustive else " (dense sample plus slope margin)"),
         })
     return {
@@ -119,17 +99,12 @@ def table_view(fw: Firmware, name: str, prefix: str) -> dict[str, Any]:
         "needs_x": spec.split_at is not None or any(p.segments > 0 for p in table.pieces),
         "meaning": spec.meaning, "q": fx.q_name(spec.frac_bits, spec.bits),
         "lsb": f"2^-{spec.frac_bits}" if spec.frac_bits >= 0 else f"2^{-spec.frac_bits}",
-        "lsb_si": f"{_num(2.0**-spec.frac_bits * spec.si_scale)} {spec.si_unit}", "unit": spec.unit,
-        "input": spec.source, "input_lsb": f"{_num(src.lsb)} {src.unit}", "pieces": pieces,
-        "models": _wrap([_model_value(fw, key) for key in keys]), "bytes": table.bytes,
+        "lsb_si": f"{num(2.0**-spec.frac_bits * spec.si_scale)} {spec.si_unit}", "unit": spec.unit,
+        "input": spec.source, "input_lsb": f"{num(src.lsb)} {src.unit}", "pieces": pieces,
+        "models": wrap([_model_value(fw, key) for key in keys]), "bytes": table.bytes,
         "lo": spec.pieces[0].x0, "hi": spec.pieces[-1].x1,
         "public": f"{prefix}_table_{name}",
     }
-
-
-def _rows(values: list[int], per_row: int = 8) -> list[str]:
-    cells = [f"{v}" for v in values]
-    return [", ".join(cells[i:i + per_row]) for i in range(0, len(cells), per_row)]
 
 
 def _op_view(op, proof) -> dict[str, Any]:
@@ -149,7 +124,7 @@ def _op_view(op, proof) -> dict[str, Any]:
     if isinstance(op, Backdrive):
         return {"kind": "backdrive", "dst": op.dst, "src": op.src, "speed": op.speed, "k": op.k, "shift": op.shift,
                 "half": 1 << (op.shift - 1), "wide": proof.wide[op.dst], "split": proof.split[op.dst],
-                "mask": f"0x{(1 << op.shift) - 1:X}", "k_exact": _num(op.k_exact)}
+                "mask": f"0x{(1 << op.shift) - 1:X}", "k_exact": num(op.k_exact)}
     if isinstance(op, Store):
         return {"kind": "store", "dst": f"{op.field}[{op.index}]", "src": op.src, "shift": op.shift,
                 "half": (1 << (op.shift - 1)) if op.shift > 0 else 0}
@@ -203,17 +178,17 @@ def context(fw: Firmware) -> dict[str, Any]:
         "feedforward": program_view(fw.design.feedforward, fw.ff_proof, tables),
         "forward": program_view(fw.design.forward, fw.fwd_proof, tables),
         "clamp_bits": clamp_bits,
-        "limits": [("SPEED_MAX", lim.speed, f"{_num(lim.speed * f.speed_lsb_mps)} m/s"),
-                   ("ACCEL_MAX", lim.accel, f"{_num(lim.accel * f.accel_lsb_mps2)} m/s^2"),
-                   ("PITCH_MAX", lim.pitch, f"{_num(math.degrees(lim.pitch * f.angle_lsb_rad))} deg"),
-                   ("ROLL_MAX", lim.roll, f"{_num(math.degrees(lim.roll * f.angle_lsb_rad))} deg"),
-                   ("PAYLOAD_MAX", lim.payload, f"{_num(lim.payload * f.mass_lsb_kg)} kg"),
-                   ("CURRENT_MAX", lim.current, f"{_num(lim.current * f.current_lsb_a)} A")],
-        "lsbs": [("speed", f"{_num(f.speed_lsb_mps)} m/s"), ("accel", f"{_num(f.accel_lsb_mps2)} m/s^2"),
-                 ("pitch, roll", f"{_num(f.angle_lsb_rad)} rad"), ("payload", f"{_num(f.mass_lsb_kg)} kg"),
-                 ("current", f"{_num(f.current_lsb_a)} A")],
-        "ff_bound": f"{_num(fw.ff_bound_a)} A (budget {_num(f.current_budget_a)} A)",
-        "fwd_bound": f"{_num(fw.fwd_bound_mps2)} m/s^2 (goal {_num(fw.fwd_budget_mps2)} m/s^2)",
+        "limits": [("SPEED_MAX", lim.speed, f"{num(lim.speed * f.speed_lsb_mps)} m/s"),
+                   ("ACCEL_MAX", lim.accel, f"{num(lim.accel * f.accel_lsb_mps2)} m/s^2"),
+                   ("PITCH_MAX", lim.pitch, f"{num(math.degrees(lim.pitch * f.angle_lsb_rad))} deg"),
+                   ("ROLL_MAX", lim.roll, f"{num(math.degrees(lim.roll * f.angle_lsb_rad))} deg"),
+                   ("PAYLOAD_MAX", lim.payload, f"{num(lim.payload * f.mass_lsb_kg)} kg"),
+                   ("CURRENT_MAX", lim.current, f"{num(lim.current * f.current_lsb_a)} A")],
+        "lsbs": [("speed", f"{num(f.speed_lsb_mps)} m/s"), ("accel", f"{num(f.accel_lsb_mps2)} m/s^2"),
+                 ("pitch, roll", f"{num(f.angle_lsb_rad)} rad"), ("payload", f"{num(f.mass_lsb_kg)} kg"),
+                 ("current", f"{num(f.current_lsb_a)} A")],
+        "ff_bound": f"{num(fw.ff_bound_a)} A (budget {num(f.current_budget_a)} A)",
+        "fwd_bound": f"{num(fw.fwd_bound_mps2)} m/s^2 (goal {num(fw.fwd_budget_mps2)} m/s^2)",
         "total_bytes": fw.total_bytes,
-        "acc_step": f"{_num(fw.design.amps_per_acc)} A (current step / 2^{fw.design.guard_bits})",
+        "acc_step": f"{num(fw.design.amps_per_acc)} A (current step / 2^{fw.design.guard_bits})",
     }

@@ -1,56 +1,72 @@
-"""Render the C files from the jinja2 templates shipped with the package: {filename: text}."""
+"""Render generated files from the jinja2 template sets shipped with the package: {filename: text}.
+
+One loader over the template folder; a template set per output (the feed-forward files, the
+controller link files), each file named by `interface.file_names`. Templates only lay out text.
+"""
 
 from __future__ import annotations
 
 import os
+from dataclasses import dataclass
 from importlib import resources
 from pathlib import Path
+from typing import Any
 
 import jinja2
 
-from generator import cview
-from generator.synthesis import Firmware
+from . import cformat, interface
+
+CACHE_ENV = "KINETAB_TEMPLATE_CACHE"
+"""Folder for compiled templates (opt-in; saves about 0.1 s per build). Unset: no cache is written."""
+
+
+@dataclass(frozen=True)
+class TemplateSet:
+    """The templates of one output: (file role in interface.file_names, template path)."""
+
+    files: tuple[tuple[str, str], ...]
+
+
+FEEDFORWARD = TemplateSet((("ff_header", "ff/ff.h.j2"), ("ff_source", "ff/ff.c.j2")))
+LINK = TemplateSet((("link_header", "link/link.h.j2"), ("link_source", "link/link.c.j2")))
 
 
 def template_dir() -> Path:
     """Templates inside the installed wheel (generator/templates), else the source tree's templates/."""
-    packaged = resources.files("generator").joinpath("templates")
+    packaged = resources.files(__package__).joinpath("templates")
     if packaged.is_dir():
         return Path(str(packaged))
     return Path(__file__).resolve().parent.parent / "templates"
 
 
 def _bytecode_cache() -> jinja2.BytecodeCache | None:
-    """Compiled templates in the user's cache folder (keyed by template source, so never stale);
-    saves ~0.1 s per build. No cache when the folder cannot be made."""
-    base = Path(os.environ.get("XDG_CACHE_HOME") or Path.home() / ".cache") / "kinetab" / "templates"
+    """Compiled templates in the folder named by KINETAB_TEMPLATE_CACHE, when set and writable."""
+    folder = os.environ.get(CACHE_ENV)
+    if not folder:
+        return None
     try:
-        base.mkdir(parents=True, exist_ok=True)
+        Path(folder).mkdir(parents=True, exist_ok=True)
     except OSError:
         return None
-    return jinja2.FileSystemBytecodeCache(str(base))
+    return jinja2.FileSystemBytecodeCache(folder)
 
 
 def environment() -> jinja2.Environment:
+    """The one template loader: strict (a missing variable is an error), no autoescape, LF kept."""
     return jinja2.Environment(loader=jinja2.FileSystemLoader(str(template_dir())), undefined=jinja2.StrictUndefined,
                               keep_trailing_newline=True, trim_blocks=True, lstrip_blocks=True, autoescape=False,
                               bytecode_cache=_bytecode_cache())
 
 
-def _tidy(text: str) -> str:
-    """LF endings, no trailing spaces, at most one blank line in a row, one final newline."""
-    lines = [line.rstrip() for line in text.replace("\r\n", "\n").split("\n")]
-    out: list[str] = []
-    for line in lines:
-        if line == "" and out and out[-1] == "":
-            continue
-        out.append(line)
-    return "\n".join(out).strip("\n") + "\n"
-
-
-def render(fw: Firmware) -> dict[str, str]:
-    """The generated files of one vehicle, byte-identical for identical input."""
+def render_set(tset: TemplateSet, prefix: str, context: dict[str, Any]) -> dict[str, str]:
+    """Every file of a template set, named for the vehicle prefix, byte-identical for identical input."""
     env = environment()
-    ctx = cview.context(fw)
-    return {name: _tidy(env.get_template(tpl).render(**ctx))
-            for name, tpl in ((f"{fw.vehicle.name}_ff.h", "ff.h.j2"), (f"{fw.vehicle.name}_ff.c", "ff.c.j2"))}
+    names = interface.file_names(prefix)
+    return {names[role]: cformat.tidy(env.get_template(path).render(**context)) for role, path in tset.files}
+
+
+def render(fw: Any) -> dict[str, str]:
+    """The feed-forward files of one synthesised vehicle (`synthesis.Firmware`)."""
+    from . import cview
+
+    return render_set(FEEDFORWARD, fw.vehicle.name, cview.context(fw))

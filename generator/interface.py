@@ -1,0 +1,174 @@
+"""The firmware interface, described once: the C structs of the feed-forward and forward-dynamics
+calls (members, order, C types, physical units, the model key of each member's step, clamp bits),
+the C identifiers and the generated file names.
+
+The templates render the structs from this, the golden vectors take their columns from it, the
+SI <-> firmware-step conversions and the Cortex-M input packing read it, and the bench messages pack
+their setpoints from it. Nothing else restates the order of the inputs.
+"""
+
+from __future__ import annotations
+
+import struct as _struct
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from . import model
+from .vehicle import Vehicle
+
+SIDES = ("right", "left")  # index 0 and 1 of every two-wheel member
+
+
+@dataclass(frozen=True)
+class Member:
+    """One struct member: `count` is 2 for a per-wheel pair (right, left), else 1."""
+
+    name: str
+    count: int
+    what: str            # the physical quantity, for comments
+    unit: str            # SI unit of one step's value
+    lsb_key: str         # model key of one step ("firmware.speed_lsb")
+    limit: str           # Limits field of its envelope edge ("speed")
+    signed: bool = True  # False: the envelope is 0..limit (payload)
+    si: tuple[str, ...] = ()  # OperatingPoint attributes, one per column
+
+    @property
+    def columns(self) -> tuple[str, ...]:
+        """Flat column names: `speed_right, speed_left` for a pair, `pitch` for a scalar."""
+        return tuple(f"{self.name}_{s}" for s in SIDES) if self.count == 2 else (self.name,)
+
+    def c_decl(self) -> str:
+        return f"int32_t {self.name}[2];" if self.count == 2 else f"int32_t {self.name};"
+
+
+@dataclass(frozen=True)
+class Struct:
+    """A C struct `<prefix>_<tag>_t`; output structs end with `uint32_t clamped` (one bit per input)."""
+
+    tag: str
+    members: tuple[Member, ...]
+    clamped: bool = False
+
+    @property
+    def columns(self) -> tuple[str, ...]:
+        return tuple(c for m in self.members for c in m.columns)
+
+    def c_type(self, prefix: str) -> str:
+        return f"{prefix}_{self.tag}_t"
+
+    def pack_format(self) -> str:
+        """struct-module format of the struct in memory on a little-endian 32-bit target."""
+        return "<" + "i" * len(self.columns) + ("I" if self.clamped else "")
+
+    def pack(self, row: Any) -> bytes:
+        return _struct.pack(self.pack_format(), *(int(x) for x in row))
+
+    def unpack(self, data: bytes) -> tuple[int, ...]:
+        return _struct.unpack(self.pack_format(), data)
+
+    @property
+    def size(self) -> int:
+        return _struct.calcsize(self.pack_format())
+
+    def member(self, name: str) -> Member:
+        return next(m for m in self.members if m.name == name)
+
+
+SPEED = Member("speed", 2, "rim speed per wheel", "m/s", "firmware.speed_lsb", "speed",
+               si=("speed_right", "speed_left"))
+ACCEL = Member("accel", 2, "rim acceleration per wheel", "m/s^2", "firmware.accel_lsb", "accel",
+               si=("accel_right", "accel_left"))
+PITCH = Member("pitch", 1, "pitch, front up > 0", "rad", "firmware.angle_lsb", "pitch", si=("pitch_rad",))
+ROLL = Member("roll", 1, "roll, left side up > 0", "rad", "firmware.angle_lsb", "roll", si=("roll_rad",))
+PAYLOAD = Member("payload", 1, "payload mass", "kg", "firmware.mass_lsb", "payload", signed=False,
+                 si=("payload_kg",))
+CURRENT_IN = Member("current", 2, "measured motor current per wheel", "A", "firmware.current_lsb", "current")
+CURRENT_OUT = Member("current", 2, "feed-forward motor current per wheel", "A", "firmware.current_lsb", "current")
+ACCEL_OUT = Member("accel", 2, "predicted rim acceleration per wheel", "m/s^2", "firmware.accel_lsb", "accel")
+
+FF_IN = Struct("ff_in", (SPEED, ACCEL, PITCH, ROLL, PAYLOAD))
+FF_OUT = Struct("ff_out", (CURRENT_OUT,), clamped=True)
+FWD_IN = Struct("fwd_in", (CURRENT_IN, SPEED, PITCH, ROLL, PAYLOAD))
+FWD_OUT = Struct("fwd_out", (ACCEL_OUT,), clamped=True)
+
+
+@dataclass(frozen=True)
+class Call:
+    """One generated C function with its input and output structs and the prefix of its clamp bits."""
+
+    name: str       # the program's name and the C function's suffix
+    inputs: Struct
+    outputs: Struct
+    clamp_tag: str  # CLAMPED or FWD_CLAMPED
+
+    def clamp_bit(self, column: str) -> int:
+        """Bit number of an input column in `clamped`: its position in the input struct."""
+        return self.inputs.columns.index(column)
+
+    def clamp_names(self, prefix: str) -> list[tuple[str, int]]:
+        """(`<PREFIX>_CLAMPED_SPEED_RIGHT`, mask) per input column, in bit order."""
+        return [(f"{prefix.upper()}_{self.clamp_tag}_{c.upper()}", 1 << k) for k, c in enumerate(self.inputs.columns)]
+
+
+FEEDFORWARD = Call("feedforward", FF_IN, FF_OUT, "CLAMPED")
+FORWARD = Call("forward", FWD_IN, FWD_OUT, "FWD_CLAMPED")
+CALLS = (FEEDFORWARD, FORWARD)
+
+
+def file_names(prefix: str) -> dict[str, str]:
+    """Every generated file name, by template-set role."""
+    return {"ff_header": f"{prefix}_ff.h", "ff_source": f"{prefix}_ff.c",
+            "link_header": f"{prefix}_link.h", "link_source": f"{prefix}_link.c"}
+
+
+def lsb(v: Vehicle, member: Member) -> float:
+    """SI value of one step of the member."""
+    result = model.value(v, member.lsb_key)
+    assert isinstance(result, float)
+    return result
+
+
+def rows_to_fields(st: Struct, rows: np.ndarray) -> dict[str, np.ndarray]:
+    """Rows of flat columns (n, len(columns)) -> {member: (n, 2) or (n,)} as the programs take them."""
+    out, k = {}, 0
+    for m in st.members:
+        out[m.name] = rows[..., k:k + 2] if m.count == 2 else rows[..., k]
+        k += m.count
+    return out
+
+
+def fields_to_rows(st: Struct, fields: dict[str, np.ndarray]) -> np.ndarray:
+    """The inverse of rows_to_fields: one flat column per struct column."""
+    cols = []
+    for m in st.members:
+        a = np.asarray(fields[m.name])
+        cols += [a[..., 0], a[..., 1]] if m.count == 2 else [a]
+    return np.stack(cols, axis=-1)
+
+
+def to_steps(v: Vehicle, st: Struct, si: dict[str, Any]) -> dict[str, np.ndarray]:
+    """SI values keyed by OperatingPoint attribute -> firmware steps (round to nearest, ties up).
+
+    A value that does not fit the firmware's int32 raises ValueError naming the column."""
+    out = {}
+    for m in st.members:
+        cols = []
+        for attr, col in zip(m.si, m.columns):
+            steps = np.floor(np.asarray(si[attr], dtype=float) / lsb(v, m) + 0.5)
+            if not np.all(np.abs(steps) <= 2**31 - 1):
+                raise ValueError(f"{col}: beyond the firmware's int32 steps ({lsb(v, m):g} {m.unit} per step)")
+            cols.append(steps.astype(np.int64))
+        out[m.name] = np.stack(cols, -1) if m.count == 2 else cols[0]
+    return out
+
+
+def to_si(v: Vehicle, st: Struct, steps: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+    """Firmware steps -> SI values keyed by OperatingPoint attribute (exact products)."""
+    out = {}
+    for m in st.members:
+        a = np.asarray(steps[m.name], dtype=float) * lsb(v, m)
+        for k, attr in enumerate(m.si):
+            out[attr] = a[..., k] if m.count == 2 else a
+    return out
