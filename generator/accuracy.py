@@ -12,9 +12,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import dynamics, emulate
+from . import dynamics, emulate, interface
 from .synthesis import Firmware
-from .vectors import feedforward_inputs, split_columns
+from .interface import FF_IN
+from .vectors import feedforward_inputs
 
 
 @dataclass(frozen=True)
@@ -38,11 +39,8 @@ class Accuracy:
 
 
 def operating_point(fw: Firmware, inp: dict[str, np.ndarray]) -> dynamics.OperatingPoint:
-    f = fw.vehicle.firmware
-    return dynamics.OperatingPoint(inp["payload"] * f.mass_lsb_kg, inp["speed"][..., 0] * f.speed_lsb_mps,
-                                   inp["speed"][..., 1] * f.speed_lsb_mps, inp["accel"][..., 0] * f.accel_lsb_mps2,
-                                   inp["accel"][..., 1] * f.accel_lsb_mps2, inp["pitch"] * f.angle_lsb_rad,
-                                   inp["roll"] * f.angle_lsb_rad)
+    """Feed-forward inputs in firmware steps -> the SI operating point they stand for (exact)."""
+    return dynamics.OperatingPoint(**interface.to_si(fw.vehicle, FF_IN, inp))
 
 
 def reference_current(fw: Firmware, op: dynamics.OperatingPoint) -> np.ndarray:
@@ -60,12 +58,10 @@ def _stat(err: np.ndarray) -> Stat:
 def envelope_points(fw: Firmware, count: int, seed: int) -> dict[str, np.ndarray]:
     """Corners and deadband cases (inside the envelope only) plus `count` random points."""
     lim = fw.design.limits
-    inp = feedforward_inputs(lim, count + 3000, seed)
-    rows = np.column_stack([inp["speed"], inp["accel"], inp["pitch"], inp["roll"], inp["payload"]])
-    hi = np.array([lim.speed, lim.speed, lim.accel, lim.accel, lim.pitch, lim.roll, lim.payload])
-    lo = np.array([-lim.speed, -lim.speed, -lim.accel, -lim.accel, -lim.pitch, -lim.roll, 0])
+    rows = interface.fields_to_rows(FF_IN, feedforward_inputs(lim, count + 3000, seed))
+    lo, hi = interface.column_edges(lim, FF_IN)
     inside = np.all((rows >= lo) & (rows <= hi), axis=1)
-    return split_columns(rows[inside])
+    return interface.rows_to_fields(FF_IN, rows[inside])
 
 
 def _describe(fw: Firmware, inp: dict[str, np.ndarray], k: int, side: int) -> str:
@@ -78,12 +74,11 @@ def _describe(fw: Firmware, inp: dict[str, np.ndarray], k: int, side: int) -> st
 
 def _clamping(fw: Firmware, seed: int) -> Stat:
     """Error from clamping: points up to 10 % beyond the envelope against the unclamped float model."""
-    lim = fw.design.limits
     rng = np.random.default_rng(seed + 1)
     n = 2000
-    grow = lambda m, lo=None: rng.integers(-(m + m // 10) if lo is None else 0, m + m // 10 + 1, n)  # noqa: E731
-    inp = {"speed": np.stack([grow(lim.speed), grow(lim.speed)], -1), "accel": np.stack([grow(lim.accel), grow(lim.accel)], -1),
-           "pitch": grow(lim.pitch), "roll": grow(lim.roll), "payload": grow(lim.payload, 0)}
+    lo, hi = interface.column_edges(fw.design.limits, FF_IN)
+    rows = np.stack([rng.integers(a - (a != 0) * (b // 10), b + b // 10 + 1, n) for a, b in zip(lo, hi)], -1)
+    inp = interface.rows_to_fields(FF_IN, rows)
     got = emulate.run(fw.design.feedforward, fw.tables, inp)["current"] * fw.vehicle.firmware.current_lsb_a
     return _stat(got - reference_current(fw, operating_point(fw, inp)))
 
@@ -92,7 +87,7 @@ def _input_resolution(fw: Firmware, inp: dict[str, np.ndarray]) -> dict[str, flo
     """Largest current change from moving one input by half its firmware step (what the LSB choice costs)."""
     base = reference_current(fw, operating_point(fw, inp))
     out = {}
-    for name in ("speed", "accel", "pitch", "roll", "payload"):
+    for name in (m.name for m in FF_IN.members):
         moved = {k: v.astype(float) for k, v in inp.items()}
         moved[name] = moved[name] + 0.5
         out[name] = float(np.max(np.abs(reference_current(fw, operating_point(fw, moved)) - base)))

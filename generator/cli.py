@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import json
 import math
-import sys
 from importlib import resources
 from pathlib import Path
 from typing import Any

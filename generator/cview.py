@@ -22,9 +22,9 @@ CAUTION = (
     "and licensed practice. Test with the wheels off the floor or the vehicle restrained first.",
 )
 
-CLAMP_NAMES = {
-    "feedforward": ("SPEED_RIGHT", "SPEED_LEFT", "ACCEL_RIGHT", "ACCEL_LEFT", "PITCH", "ROLL", "PAYLOAD"),
-    "forward": ("CURRENT_RIGHT", "CURRENT_LEFT", "SPEED_RIGHT", "SPEED_LEFT", "PITCH", "ROLL", "PAYLOAD"),
+CALL_TITLES = {
+    "feedforward": "Feed-forward: motor currents for the planned motion.",
+    "forward": "Forward dynamics: predicted rim accelerations from measured motor currents (uses M^-1).",
 }
 
 
@@ -162,13 +162,25 @@ def program_view(prog: Program, proof, tables: dict[str, dict[str, Any]]) -> dic
     return {"name": prog.name, "ops": views}
 
 
+def _struct_view(st: interface.Struct, prefix: str, clamp_text: str = "") -> dict[str, Any]:
+    members = [(m.c_decl().ljust(19), m.c_comment()) for m in st.members]
+    if st.clamped:
+        members.append(("uint32_t clamped;".ljust(19), clamp_text))
+    return {"ctype": st.c_type(prefix), "members": members}
+
+
+def _call_view(call: interface.Call, prefix: str) -> dict[str, Any]:
+    """The structs and clamp-bit names of one generated function, from the interface description."""
+    return {"title": CALL_TITLES[call.name], "inputs": _struct_view(call.inputs, prefix),
+            "outputs": _struct_view(call.outputs, prefix, f"{prefix.upper()}_{call.clamp_tag}_* bits"),
+            "clamp_bits": [(name, f"0x{mask:02X}u") for name, mask in call.clamp_names(prefix)]}
+
+
 def context(fw: Firmware) -> dict[str, Any]:
     """The whole template context for one vehicle."""
     v = fw.vehicle
     prefix = v.name
     lim, f = fw.design.limits, v.firmware
-    clamp_bits = {prog: [(f"{prefix.upper()}_CLAMPED_{n}", f"0x{1 << i:02X}u") for i, n in enumerate(names)]
-                  for prog, names in CLAMP_NAMES.items()}
     tables = {n: table_view(fw, n, prefix) for n in fw.tables}
     return {
         "prefix": prefix, "PREFIX": prefix.upper(), "version": __version__, "format": FORMAT_VERSION,
@@ -177,7 +189,7 @@ def context(fw: Firmware) -> dict[str, Any]:
         "tables": list(tables.values()),
         "feedforward": program_view(fw.design.feedforward, fw.ff_proof, tables),
         "forward": program_view(fw.design.forward, fw.fwd_proof, tables),
-        "clamp_bits": clamp_bits,
+        "calls": [_call_view(call, prefix) for call in interface.CALLS],
         "limits": [("SPEED_MAX", lim.speed, f"{num(lim.speed * f.speed_lsb_mps)} m/s"),
                    ("ACCEL_MAX", lim.accel, f"{num(lim.accel * f.accel_lsb_mps2)} m/s^2"),
                    ("PITCH_MAX", lim.pitch, f"{num(math.degrees(lim.pitch * f.angle_lsb_rad))} deg"),

@@ -39,7 +39,7 @@ def run(program: Program, tables: Mapping[str, tb.Table], inputs: Mapping[str, n
     exact = mode == "int"
     env: dict[str, np.ndarray] = {}
     flags = None
-    out: dict[str, list] = {name: [None] * count for name, count in program.out_fields}
+    out: dict[str, list] = {m.name: [None] * m.count for m in program.call.outputs.members}
     for op in program.ops:
         if isinstance(op, Clamp):
             raw = _input(inputs, op)

@@ -33,6 +33,7 @@ class Member:
     limit: str           # Limits field of its envelope edge ("speed")
     signed: bool = True  # False: the envelope is 0..limit (payload)
     si: tuple[str, ...] = ()  # OperatingPoint attributes, one per column
+    steps: str = ""      # the name of its firmware step, for comments ("speed steps")
 
     @property
     def columns(self) -> tuple[str, ...]:
@@ -41,6 +42,9 @@ class Member:
 
     def c_decl(self) -> str:
         return f"int32_t {self.name}[2];" if self.count == 2 else f"int32_t {self.name};"
+
+    def c_comment(self) -> str:
+        return f"{self.what}, {self.steps}"
 
 
 @dataclass(frozen=True)
@@ -76,17 +80,22 @@ class Struct:
         return next(m for m in self.members if m.name == name)
 
 
-SPEED = Member("speed", 2, "rim speed per wheel", "m/s", "firmware.speed_lsb", "speed",
+SPEED = Member("speed", 2, "rim speed per wheel", "m/s", "firmware.speed_lsb", "speed", steps="speed steps",
                si=("speed_right", "speed_left"))
-ACCEL = Member("accel", 2, "rim acceleration per wheel", "m/s^2", "firmware.accel_lsb", "accel",
+ACCEL = Member("accel", 2, "rim acceleration per wheel", "m/s^2", "firmware.accel_lsb", "accel", steps="accel steps",
                si=("accel_right", "accel_left"))
-PITCH = Member("pitch", 1, "pitch, front up > 0", "rad", "firmware.angle_lsb", "pitch", si=("pitch_rad",))
-ROLL = Member("roll", 1, "roll, left side up > 0", "rad", "firmware.angle_lsb", "roll", si=("roll_rad",))
+PITCH = Member("pitch", 1, "front up > 0", "rad", "firmware.angle_lsb", "pitch", si=("pitch_rad",),
+               steps="angle steps")
+ROLL = Member("roll", 1, "left side up > 0", "rad", "firmware.angle_lsb", "roll", si=("roll_rad",),
+              steps="angle steps")
 PAYLOAD = Member("payload", 1, "payload mass", "kg", "firmware.mass_lsb", "payload", signed=False,
-                 si=("payload_kg",))
-CURRENT_IN = Member("current", 2, "measured motor current per wheel", "A", "firmware.current_lsb", "current")
-CURRENT_OUT = Member("current", 2, "feed-forward motor current per wheel", "A", "firmware.current_lsb", "current")
-ACCEL_OUT = Member("accel", 2, "predicted rim acceleration per wheel", "m/s^2", "firmware.accel_lsb", "accel")
+                 si=("payload_kg",), steps="mass steps")
+CURRENT_IN = Member("current", 2, "measured motor current per wheel", "A", "firmware.current_lsb", "current",
+                    steps="current steps")
+CURRENT_OUT = Member("current", 2, "feed-forward motor current per wheel", "A", "firmware.current_lsb", "current",
+                     steps="current steps")
+ACCEL_OUT = Member("accel", 2, "predicted rim acceleration per wheel", "m/s^2", "firmware.accel_lsb", "accel",
+                   steps="accel steps")
 
 FF_IN = Struct("ff_in", (SPEED, ACCEL, PITCH, ROLL, PAYLOAD))
 FF_OUT = Struct("ff_out", (CURRENT_OUT,), clamped=True)
@@ -121,6 +130,18 @@ def file_names(prefix: str) -> dict[str, str]:
     """Every generated file name, by template-set role."""
     return {"ff_header": f"{prefix}_ff.h", "ff_source": f"{prefix}_ff.c",
             "link_header": f"{prefix}_link.h", "link_source": f"{prefix}_link.c"}
+
+
+def edges(limits: Any, member: Member) -> tuple[int, int]:
+    """The member's envelope in steps, from a `program.Limits`: (-limit, limit), or (0, limit)."""
+    hi = int(getattr(limits, member.limit))
+    return (-hi if member.signed else 0), hi
+
+
+def column_edges(limits: Any, st: Struct) -> tuple[np.ndarray, np.ndarray]:
+    """Lower and upper envelope edge of every column of the struct, in steps."""
+    pairs = [edges(limits, m) for m in st.members for _ in m.columns]
+    return np.array([lo for lo, _ in pairs]), np.array([hi for _, hi in pairs])
 
 
 def lsb(v: Vehicle, member: Member) -> float:

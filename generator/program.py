@@ -12,7 +12,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from . import dynamics
+from . import dynamics, interface
 from . import fixedpoint as fx
 from . import tables as tb
 from .errors import UserError
@@ -83,13 +83,14 @@ Op = Clamp | Lookup | Mul | Sum | Backdrive | Store
 
 @dataclass
 class Program:
-    """One C function: its input fields, output fields and ops; ranges/magnitudes per signal."""
+    """One C function (its structs described in `interface`) as a list of ops."""
 
-    name: str
-    in_fields: tuple[tuple[str, int], ...]   # (field, count: 1 or 2)
-    out_fields: tuple[tuple[str, int], ...]
-    out_unit: str
+    call: interface.Call
     ops: list[Op] = field(default_factory=list)
+
+    @property
+    def name(self) -> str:
+        return self.call.name
 
 
 @dataclass(frozen=True)
@@ -317,21 +318,25 @@ def _specs(v: Vehicle, lim: Limits, acc_amps: float) -> dict[str, tb.TableSpec]:
             for name, src, sym, pieces, unit, meaning, si, si_unit in rows}
 
 
-FF_BITS = {"speed": (0, 1), "accel": (2, 3), "pitch": 4, "roll": 5, "payload": 6}
-FWD_BITS = {"current": (0, 1), "speed": (2, 3), "pitch": 4, "roll": 5, "payload": 6}
+SIGNAL = {"speed": "speed", "accel": "accel", "current": "cur", "pitch": "pitch", "roll": "roll",
+          "payload": "payload"}  # member -> the program's signal name of its clamped value
 
 
-def _common(bd: _Builder, lim: Limits, bits: dict, pair: tuple[str, int, int]) -> None:
+def _clamps(bd: _Builder, lim: Limits, call: interface.Call, order: tuple[str, ...]) -> None:
+    """Clamp every input member in `order`; bounds and flag bits come from the interface."""
+    for name in order:
+        m = call.inputs.member(name)
+        hi = getattr(lim, m.limit)
+        lo = -hi if m.signed else 0
+        for side, column in enumerate(m.columns):
+            dst = f"{SIGNAL[name]}_{'rl'[side]}" if m.count == 2 else SIGNAL[name]
+            bd.clamp(dst, name, side if m.count == 2 else None, lo, hi, call.clamp_bit(column))
+
+
+def _common(bd: _Builder, lim: Limits, call: interface.Call, pair: str) -> None:
     """All clamps first (the flags are then final and leave the registers), then the pitch/roll/payload
     lookups, gravity and the rolling-resistance level. `pair` is the other two-wheel input."""
-    bd.clamp("pitch", "pitch", None, -lim.pitch, lim.pitch, bits["pitch"])
-    bd.clamp("roll", "roll", None, -lim.roll, lim.roll, bits["roll"])
-    bd.clamp("payload", "payload", None, 0, lim.payload, bits["payload"])
-    for u, side in (("speed_r", 0), ("speed_l", 1)):
-        bd.clamp(u, "speed", side, -lim.speed, lim.speed, bits["speed"][side])
-    name, lo, hi = pair
-    for side, suffix in ((0, "r"), (1, "l")):
-        bd.clamp(f"{'cur' if name == 'current' else name}_{suffix}", name, side, lo, hi, bits[name][side])
+    _clamps(bd, lim, call, ("pitch", "roll", "payload", "speed", pair))
     s = bd.specs
     for name, src in (("sin_pitch", "pitch"), ("cos_pitch", "pitch"), ("sin_roll", "roll"), ("cos_roll", "roll"),
                       ("cor", "payload"), ("grav_pitch", "payload"), ("grav_roll", "payload"),
@@ -362,10 +367,9 @@ def _passive(bd: _Builder, side: str, sign: int, other: str) -> str:
 
 
 def _feedforward(v: Vehicle, specs: dict[str, tb.TableSpec], lim: Limits, guard: int) -> Program:
-    prog = Program("feedforward", (("speed", 2), ("accel", 2), ("pitch", 1), ("roll", 1), ("payload", 1)),
-                   (("current", 2),), "current_lsb")
+    prog = Program(interface.FEEDFORWARD)
     bd = _Builder(prog, specs, specs["m11"].bits)
-    _common(bd, lim, FF_BITS, ("accel", -lim.accel, lim.accel))
+    _common(bd, lim, prog.call, "accel")
     bd.lookup("t_m11", "m11", "payload")
     bd.lookup("t_m12", "m12", "payload")
     for side, sign, other, idx in (("r", 1, "l", 0), ("l", -1, "r", 1)):
@@ -380,10 +384,9 @@ def _feedforward(v: Vehicle, specs: dict[str, tb.TableSpec], lim: Limits, guard:
 
 
 def _forward(v: Vehicle, specs: dict[str, tb.TableSpec], lim: Limits, guard: int, aguard: int) -> Program:
-    prog = Program("forward", (("current", 2), ("speed", 2), ("pitch", 1), ("roll", 1), ("payload", 1)),
-                   (("accel", 2),), "accel_lsb")
+    prog = Program(interface.FORWARD)
     bd = _Builder(prog, specs, specs["m11"].bits)
-    _common(bd, lim, FWD_BITS, ("current", -lim.current, lim.current))
+    _common(bd, lim, prog.call, "current")
     bd.lookup("t_minv11", "minv11", "payload")
     bd.lookup("t_minv12", "minv12", "payload")
     for side, sign, other in (("r", 1, "l"), ("l", -1, "r")):

@@ -2,13 +2,14 @@
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 import json
 from dataclasses import dataclass
 
 import numpy as np
 
-from . import __version__, analysis, dynamics, program, sizing
+from . import __version__, analysis, dynamics, interface, program, sizing
 from . import tables as tb
 from .errors import CheckFailed
 from .vehicle import Vehicle
@@ -82,13 +83,7 @@ def synthesise(v: Vehicle) -> Firmware:
 
 
 def firmware_inputs(v: Vehicle, op: dynamics.OperatingPoint) -> dict[str, np.ndarray]:
-    """SI operating point(s) -> feed-forward inputs in firmware steps (round to nearest, ties up)."""
-    fw = v.firmware
-    q = lambda x, lsb: np.floor(np.asarray(x, dtype=float) / lsb + 0.5).astype(np.int64)  # noqa: E731
-    return {
-        "speed": np.stack([q(op.speed_right, fw.speed_lsb_mps), q(op.speed_left, fw.speed_lsb_mps)], -1),
-        "accel": np.stack([q(op.accel_right, fw.accel_lsb_mps2), q(op.accel_left, fw.accel_lsb_mps2)], -1),
-        "pitch": q(op.pitch_rad, fw.angle_lsb_rad),
-        "roll": q(op.roll_rad, fw.angle_lsb_rad),
-        "payload": q(op.payload_kg, fw.mass_lsb_kg),
-    }
+    """SI operating point(s) -> feed-forward inputs in firmware steps (round to nearest, ties up);
+    ValueError names an input beyond the firmware's int32 steps."""
+    si = {f.name: getattr(op, f.name) for f in dataclasses.fields(op)}
+    return interface.to_steps(v, interface.FF_IN, si)

@@ -1,62 +1,80 @@
 """Golden vectors: firmware inputs (random, corners, deadband, clamping) with the emulator's outputs.
 
-The CSV is for the firmware's own unit tests: one row per call of <name>_feedforward.
+The CSV is for the firmware's own unit tests: one row per call of <name>_feedforward; its columns
+are the interface's struct columns in order.
 """
 
 from __future__ import annotations
 
 import io
 import itertools
+from typing import Any
 
 import numpy as np
 
-from . import emulate
-from .program import Limits
-from .synthesis import Firmware
-
-FF_COLUMNS = ("speed_right", "speed_left", "accel_right", "accel_left", "pitch", "roll", "payload")
+from . import emulate, interface
+from .interface import FF_IN, FF_OUT
 
 
-def feedforward_inputs(lim: Limits, count: int = 10_000, seed: int = 20261202) -> dict[str, np.ndarray]:
+def _corners(lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
+    """Every combination of edges: -max, 0, max for per-wheel inputs; both edges for the others."""
+    choices = []
+    pairs = [m.count == 2 for m in FF_IN.members for _ in m.columns]
+    for k, pair in enumerate(pairs):
+        choices.append((lo[k], 0, hi[k]) if pair else (lo[k], hi[k]))
+    return np.array(list(itertools.product(*choices)))
+
+
+def _special_rows(lim: Any, lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
+    """Deadband edges on both speeds (at half payload), and rows beyond the envelope and int32."""
+    cols, db = FF_IN.columns, lim.deadband
+    speed = [cols.index(c) for c in FF_IN.member("speed").columns]
+    pay = cols.index("payload")
+    edge = np.array([-db - 1, -db, -db + 1, -1, 0, 1, db - 1, db, db + 1])
+    dead = np.zeros((len(edge) ** 2, len(cols)), dtype=np.int64)
+    dead[:, speed[0]], dead[:, speed[1]] = np.repeat(edge, len(edge)), np.tile(edge, len(edge))
+    dead[:, pay] = hi[pay] // 2
+    big = np.iinfo(np.int32)
+    alternate = np.arange(len(cols)) % 2 == 0
+    outside = np.stack([np.where(alternate, hi + 1, lo - 1), np.where(alternate, big.max, big.min),
+                        np.where(alternate, big.min, big.max), np.zeros(len(cols), dtype=np.int64)])
+    outside[3, speed] = 2 * hi[speed]
+    outside[3, pay] = -1
+    return np.concatenate([dead, outside])
+
+
+def feedforward_inputs(lim: Any, count: int = 10_000, seed: int = 20261202) -> dict[str, np.ndarray]:
     """Inputs in firmware steps: every corner, the deadband edges, clamping cases, then random points."""
     rng = np.random.default_rng(seed)
-    s, a, p, r, m, db = lim.speed, lim.accel, lim.pitch, lim.roll, lim.payload, lim.deadband
-    corners = np.array(list(itertools.product((-s, 0, s), (-s, 0, s), (-a, 0, a), (-a, 0, a), (-p, p), (-r, r), (0, m))))
-    edge = np.array([-db - 1, -db, -db + 1, -1, 0, 1, db - 1, db, db + 1])
-    dead = np.array([[u, w, 0, 0, 0, 0, m // 2] for u in edge for w in edge])
-    big = np.iinfo(np.int32)
-    outside = np.array([[s + 1, -s - 1, a + 1, -a - 1, p + 1, -r - 1, m + 1],
-                        [big.max, big.min, big.max, big.min, big.max, big.min, big.max],
-                        [big.min, big.max, big.min, big.max, big.min, big.max, big.min],
-                        [2 * s, 2 * s, 0, 0, 0, 0, -1]])
-    fixed = np.concatenate([corners, dead, outside])
+    lo, hi = interface.column_edges(lim, FF_IN)
+    fixed = np.concatenate([_corners(lo, hi), _special_rows(lim, lo, hi)])
     n = max(count - len(fixed), 0)
-    rand = np.stack([rng.integers(-s, s + 1, n), rng.integers(-s, s + 1, n), rng.integers(-a, a + 1, n),
-                     rng.integers(-a, a + 1, n), rng.integers(-p, p + 1, n), rng.integers(-r, r + 1, n),
-                     rng.integers(0, m + 1, n)], axis=-1)
-    near = rng.integers(-2 * db - 2, 2 * db + 3, (n // 10, 2))
-    rand[: n // 10, :2] = near
+    rand = np.stack([rng.integers(a, b + 1, n) for a, b in zip(lo, hi)], axis=-1)
+    db = lim.deadband
+    speed = [FF_IN.columns.index(c) for c in FF_IN.member("speed").columns]
+    rand[: n // 10, speed] = rng.integers(-2 * db - 2, 2 * db + 3, (n // 10, 2))
     rows = np.concatenate([fixed, rand]).astype(np.int64)
-    return split_columns(rows)
+    return interface.rows_to_fields(FF_IN, rows)
 
 
-def split_columns(rows: np.ndarray) -> dict[str, np.ndarray]:
-    return {"speed": rows[:, 0:2], "accel": rows[:, 2:4], "pitch": rows[:, 4], "roll": rows[:, 5], "payload": rows[:, 6]}
-
-
-def feedforward_table(fw: Firmware, count: int = 10_000) -> np.ndarray:
-    """Rows of inputs and expected outputs (current right, left, clamped bits), int64."""
+def feedforward_table(fw: Any, count: int = 10_000) -> np.ndarray:
+    """Rows of inputs and expected outputs (the FF_OUT columns, then the clamp bits), int64."""
     inp = feedforward_inputs(fw.design.limits, count)
     out = emulate.run(fw.design.feedforward, fw.tables, inp)
-    return np.column_stack([inp["speed"], inp["accel"], inp["pitch"], inp["roll"], inp["payload"],
-                            out["current"], out["clamped"]])
+    return np.column_stack([interface.fields_to_rows(FF_IN, inp), interface.fields_to_rows(FF_OUT, out),
+                            out["clamped"]])
 
 
-def to_csv(fw: Firmware, rows: np.ndarray) -> str:
+def header() -> tuple[str, ...]:
+    """The CSV column names: inputs, outputs, clamp bits."""
+    return FF_IN.columns + FF_OUT.columns + ("clamped",)
+
+
+def to_csv(fw: Any, rows: np.ndarray) -> str:
     buf = io.StringIO()
     buf.write(f"# {fw.vehicle.name}_feedforward golden vectors, fingerprint 0x{fw.fingerprint:08X}; "
               "firmware steps (see the header for units)\n")
-    buf.write(",".join(FF_COLUMNS + ("current_right", "current_left", "clamped")) + "\n")
+    buf.write(",".join(header()) + "\n")
     for row in rows:
         buf.write(",".join(str(int(x)) for x in row) + "\n")
     return buf.getvalue()

@@ -7,14 +7,13 @@ are loaded with pyelftools and the function is called with LR at a sentinel addr
 
 from __future__ import annotations
 
-import shutil
-import struct
 import subprocess
 import sys
 from dataclasses import dataclass
+
+from kinetab.generator.hostc import STRICT
 from pathlib import Path
 
-STRICT = ["-std=c99", "-Wall", "-Wextra", "-Wpedantic", "-Wconversion", "-Wsign-conversion", "-Werror"]
 TARGETS = {
     "cortex_m0plus": ["-target", "thumb-freestanding-eabi", "-mcpu=cortex_m0plus"],
     "cortex_m4": ["-target", "thumb-freestanding-eabi", "-mcpu=cortex_m4"],
@@ -96,16 +95,3 @@ class Machine:
         self.count = 0
         uc.emu_start(self.entry | 1, SENTINEL, count=100_000)
         return bytes(uc.mem_read(RAM + 0x100, out_size)), self.count
-
-
-def pack_inputs(row) -> bytes:
-    return struct.pack("<7i", *(int(x) for x in row))
-
-
-def unpack_outputs(data: bytes) -> tuple[int, int, int]:
-    a, b, flags = struct.unpack("<iiI", data)
-    return a, b, flags
-
-
-def gcc_available() -> bool:
-    return shutil.which("gcc") is not None

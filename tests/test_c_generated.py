@@ -4,41 +4,16 @@ vectors (gcc), the same integers on Cortex-M0+/M4 (zig cc + unicorn), determinis
 from __future__ import annotations
 
 import subprocess
-from pathlib import Path
 
 import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings
 
-from kinetab.generator import accuracy, emulate, model, render, synthesis, vectors
+from kinetab.generator import accuracy, emulate, hostc, interface, model, render, synthesis, vectors
 from tests import cortexm
+from tests.csteps import build_harness, needs_gcc, run_harness, write_files
 from tests.firmware_fixtures import demo_files, demo_firmware
 from tests.helpers import demo_doc, random_firmware_strategy, vehicle_from
-
-HARNESS = Path(__file__).parent / "c" / "harness.c"
-needs_gcc = pytest.mark.skipif(not cortexm.gcc_available(), reason="gcc is required (apt install gcc)")
-
-
-def write_files(folder: Path, files: dict[str, str]) -> Path:
-    folder.mkdir(parents=True, exist_ok=True)
-    for name, text in files.items():
-        (folder / name).write_text(text)
-    return folder
-
-
-def build_harness(folder: Path, prefix: str) -> Path:
-    exe = folder / "harness"
-    subprocess.run(["gcc", *cortexm.STRICT, "-O2", f"-I{folder}", f'-DKT_HEADER="{prefix}_ff.h"',
-                    f"-DKT_PREFIX={prefix}", str(HARNESS), str(folder / f"{prefix}_ff.c"), "-o", str(exe)],
-                   check=True, capture_output=True, text=True)
-    return exe
-
-
-def run_harness(exe: Path, rows: np.ndarray, mode: str = "ff") -> np.ndarray:
-    text = "\n".join(" ".join(str(int(x)) for x in r) for r in rows) + "\n"
-    out = subprocess.run([str(exe), mode], input=text, capture_output=True, text=True, check=True).stdout
-    return np.array([[int(x) for x in line.split()] for line in out.strip().splitlines()], dtype=np.int64)
-
 
 @pytest.fixture(scope="module")
 def demo_dir(tmp_path_factory):
@@ -47,8 +22,7 @@ def demo_dir(tmp_path_factory):
 
 @needs_gcc
 def test_strict_host_compile_and_cxx_header(demo_dir):
-    subprocess.run(["gcc", *cortexm.STRICT, "-O2", "-c", str(demo_dir / "larkspur_ff.c"), "-o", str(demo_dir / "a.o")],
-                   check=True, capture_output=True, text=True)
+    hostc.compile_c([demo_dir / "larkspur_ff.c"], demo_dir / "a.o", extra=["-c"])
     subprocess.run(["g++", "-x", "c++", "-std=c++11", "-Wall", "-Wextra", "-Wpedantic", "-Wconversion",
                     "-Wsign-conversion", "-Werror", "-fsyntax-only", str(demo_dir / "larkspur_ff.h")],
                    check=True, capture_output=True, text=True)
@@ -79,16 +53,14 @@ def test_host_bit_exact_with_emulation_on_golden_vectors(demo_dir):
     rows = vectors.feedforward_table(fw, 10_000)
     assert len(rows) >= 10_000
     exe = build_harness(demo_dir, "larkspur")
-    got = run_harness(exe, rows[:, :7])
-    assert np.array_equal(got, rows[:, 7:])
+    n = len(interface.FF_IN.columns)
+    assert np.array_equal(run_harness(exe, rows[:, :n]), rows[:, n:])
     # the forward-dynamics helper too
     rng = np.random.default_rng(5)
     lim = fw.design.limits
-    fin = np.column_stack([rng.integers(-lim.current - 50, lim.current + 50, (4000, 2)),
-                           rng.integers(-lim.speed - 5, lim.speed + 5, (4000, 2)), rng.integers(-lim.pitch, lim.pitch, 4000),
-                           rng.integers(-lim.roll, lim.roll, 4000), rng.integers(0, lim.payload, 4000)])
-    out = emulate.run(fw.design.forward, fw.tables, {"current": fin[:, :2], "speed": fin[:, 2:4], "pitch": fin[:, 4],
-                                                     "roll": fin[:, 5], "payload": fin[:, 6]})
+    lo, hi = interface.column_edges(lim, interface.FWD_IN)
+    fin = np.stack([rng.integers(a - 50, b + 50, 4000) for a, b in zip(lo, hi)], axis=-1)
+    out = emulate.run(fw.design.forward, fw.tables, interface.rows_to_fields(interface.FWD_IN, fin))
     expect = np.column_stack([out["accel"], out["clamped"]])
     assert np.array_equal(run_harness(exe, fin, "fwd"), expect)
 
@@ -113,8 +85,9 @@ def test_cortex_m_same_integers_as_host(demo_dir, target, tmp_path):
     elf = cortexm.compile_elf([demo_dir / "larkspur_ff.c"], target, "larkspur_feedforward", tmp_path / "ff.elf")
     machine = cortexm.Machine.load(elf, target)
     for row in rows:
-        out, _ = machine.call(cortexm.pack_inputs(row[:7]), 12)
-        assert cortexm.unpack_outputs(out) == tuple(int(x) for x in row[7:]), row
+        n = len(interface.FF_IN.columns)
+        out, _ = machine.call(interface.FF_IN.pack(row[:n]), interface.FF_OUT.size)
+        assert interface.FF_OUT.unpack(out) == tuple(int(x) for x in row[n:]), row
 
 
 @needs_gcc
@@ -126,8 +99,7 @@ def test_compiled_c_within_budget_of_float_model_on_random_models(fw, tmp_path_f
     folder = write_files(tmp_path_factory.mktemp("rand_c"), render.render(fw))
     exe = build_harness(folder, "veh")
     inp = accuracy.envelope_points(fw, 5000, 11)
-    rows = np.column_stack([inp["speed"], inp["accel"], inp["pitch"], inp["roll"], inp["payload"]])
-    ints = run_harness(exe, rows)
+    ints = run_harness(exe, interface.fields_to_rows(interface.FF_IN, inp))
     assert np.array_equal(ints[:, :2], emulate.run(fw.design.feedforward, fw.tables, inp)["current"])
     got = ints[:, :2] * fw.vehicle.firmware.current_lsb_a
     ref = accuracy.reference_current(fw, accuracy.operating_point(fw, inp))

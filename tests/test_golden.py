@@ -12,9 +12,9 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from kinetab.generator import accuracy, vectors
+from kinetab.generator import accuracy, interface, vectors
 from tests.firmware_fixtures import demo_files, demo_firmware
-from tests.test_c_generated import build_harness, needs_gcc, run_harness
+from tests.csteps import build_harness, needs_gcc, run_harness
 
 GOLDEN = Path(__file__).parent / "golden"
 
@@ -34,10 +34,10 @@ def test_golden_c_is_right_independently(tmp_path):
         (tmp_path / name).write_bytes((GOLDEN / name).read_bytes())
     fw = demo_firmware()
     rows = vectors.feedforward_table(fw, 3000)
-    got = run_harness(build_harness(tmp_path, "larkspur"), rows[:, :7])
-    assert np.array_equal(got, rows[:, 7:])
+    n = len(interface.FF_IN.columns)
+    assert np.array_equal(run_harness(build_harness(tmp_path, "larkspur"), rows[:, :n]), rows[:, n:])
     inp = accuracy.envelope_points(fw, 3000, 21)
-    grid = np.column_stack([inp["speed"], inp["accel"], inp["pitch"], inp["roll"], inp["payload"]])
+    grid = interface.fields_to_rows(interface.FF_IN, inp)
     amps = run_harness(build_harness(tmp_path, "larkspur"), grid)[:, :2] * fw.vehicle.firmware.current_lsb_a
     ref = accuracy.reference_current(fw, accuracy.operating_point(fw, inp))
     assert np.max(np.abs(amps - ref)) <= fw.vehicle.firmware.current_budget_a

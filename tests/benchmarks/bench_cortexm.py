@@ -8,7 +8,8 @@ from pathlib import Path
 
 import numpy as np
 
-from kinetab.generator import accuracy, program, render, synthesis, vectors
+from kinetab.generator import accuracy, interface, program, render, synthesis, vectors
+from kinetab.generator.interface import FF_IN, FF_OUT
 from tests import cortexm
 
 HERE = Path(__file__).parent
@@ -17,10 +18,11 @@ HERE = Path(__file__).parent
 CYCLES = {"ldr": 2, "str": 2, "ldm": 3, "stm": 3, "push": 3, "pop": 4, "b": 2, "bl": 3, "bx": 3}
 
 
+N_IN = len(FF_IN.columns)
+
+
 def _bounds(fw: synthesis.Firmware, field: str) -> tuple[int, int]:
-    lim = fw.design.limits
-    top = {"speed": lim.speed, "accel": lim.accel, "pitch": lim.pitch, "roll": lim.roll, "payload": lim.payload}[field]
-    return (0 if field == "payload" else -top), top
+    return interface.edges(fw.design.limits, FF_IN.member(field))
 
 
 def float_params(fw: synthesis.Firmware) -> str:
@@ -79,9 +81,9 @@ def count(elf: Path, target: str, rows: np.ndarray, want: np.ndarray, ref_steps:
     m.uc.hook_add(UC_HOOK_CODE, hook)
     counts, mismatches, worst = [], 0, 0.0
     for i, row in enumerate(rows):
-        out, n = m.call(cortexm.pack_inputs(row[:7]), 12)
+        out, n = m.call(FF_IN.pack(row[:N_IN]), FF_OUT.size)
         counts.append(n)
-        got = cortexm.unpack_outputs(out)[:2]
+        got = FF_OUT.unpack(out)[:2]
         mismatches += got != tuple(int(x) for x in want[i][:2])
         worst = max(worst, float(np.max(np.abs(np.array(got) - ref_steps[i]))))
     sizes = cortexm.elf_sizes(elf)
@@ -93,7 +95,7 @@ def count(elf: Path, target: str, rows: np.ndarray, want: np.ndarray, ref_steps:
 
 def run(fw: synthesis.Firmware, n_vectors: int = 1000) -> dict[str, object]:
     rows = vectors.feedforward_table(fw, n_vectors)
-    inp = vectors.split_columns(rows[:, :7])
+    inp = interface.rows_to_fields(FF_IN, rows[:, :N_IN])
     clamped = {k: np.clip(a, *_bounds(fw, k)) for k, a in inp.items()}
     ref = accuracy.reference_current(fw, accuracy.operating_point(fw, clamped)) / fw.vehicle.firmware.current_lsb_a
     out: dict[str, object] = {}
@@ -106,10 +108,10 @@ def run(fw: synthesis.Firmware, n_vectors: int = 1000) -> dict[str, object]:
         entry = f"{fw.vehicle.name}_feedforward"
         for target in ("cortex_m0plus", "cortex_m4"):
             elf = cortexm.compile_elf([src], target, entry, folder / f"{target}.elf")
-            out[f"int_{target}"] = count(elf, target, rows, rows[:, 7:], ref)
+            out[f"int_{target}"] = count(elf, target, rows, rows[:, N_IN:], ref)
         for target, label in (("cortex_m0plus", "float_soft_m0plus"), ("cortex_m4f", "float_fpu_m4f")):
             elf = cortexm.compile_elf([HERE / "float_ff.c"], target, "bl_feedforward", folder / f"{label}.elf",
                                       extra=[f"-I{folder}", "-Wno-double-promotion"])
             # the float version rounds differently: its mismatches with the integer result are expected
-            out[label] = count(elf, "cortex_m0plus" if "m0" in target else "cortex_m4", rows, rows[:, 7:], ref)
+            out[label] = count(elf, "cortex_m0plus" if "m0" in target else "cortex_m4", rows, rows[:, N_IN:], ref)
     return out

@@ -40,15 +40,7 @@ extern "C" {
 
 enum { LARKSPUR_RIGHT = 0, LARKSPUR_LEFT = 1 };
 
-/* Bits of `clamped`: which inputs were outside the envelope (feed-forward). */
-#define LARKSPUR_CLAMPED_SPEED_RIGHT 0x01u
-#define LARKSPUR_CLAMPED_SPEED_LEFT 0x02u
-#define LARKSPUR_CLAMPED_ACCEL_RIGHT 0x04u
-#define LARKSPUR_CLAMPED_ACCEL_LEFT 0x08u
-#define LARKSPUR_CLAMPED_PITCH 0x10u
-#define LARKSPUR_CLAMPED_ROLL 0x20u
-#define LARKSPUR_CLAMPED_PAYLOAD 0x40u
-
+/* Feed-forward: motor currents for the planned motion. */
 typedef struct {
     int32_t speed[2];   /* rim speed per wheel, speed steps */
     int32_t accel[2];   /* rim acceleration per wheel, accel steps */
@@ -62,20 +54,30 @@ typedef struct {
     uint32_t clamped;   /* LARKSPUR_CLAMPED_* bits */
 } larkspur_ff_out_t;
 
+/* Bits of `clamped` in larkspur_ff_out_t: which inputs were outside the envelope. */
+#define LARKSPUR_CLAMPED_SPEED_RIGHT 0x01u
+#define LARKSPUR_CLAMPED_SPEED_LEFT 0x02u
+#define LARKSPUR_CLAMPED_ACCEL_RIGHT 0x04u
+#define LARKSPUR_CLAMPED_ACCEL_LEFT 0x08u
+#define LARKSPUR_CLAMPED_PITCH 0x10u
+#define LARKSPUR_CLAMPED_ROLL 0x20u
+#define LARKSPUR_CLAMPED_PAYLOAD 0x40u
+
 /* Forward dynamics: predicted rim accelerations from measured motor currents (uses M^-1). */
 typedef struct {
     int32_t current[2]; /* measured motor current per wheel, current steps */
     int32_t speed[2];   /* rim speed per wheel, speed steps */
-    int32_t pitch;
-    int32_t roll;
-    int32_t payload;
+    int32_t pitch;      /* front up > 0, angle steps */
+    int32_t roll;       /* left side up > 0, angle steps */
+    int32_t payload;    /* payload mass, mass steps */
 } larkspur_fwd_in_t;
 
 typedef struct {
     int32_t accel[2];   /* predicted rim acceleration per wheel, accel steps */
-    uint32_t clamped;   /* bits below */
+    uint32_t clamped;   /* LARKSPUR_FWD_CLAMPED_* bits */
 } larkspur_fwd_out_t;
 
+/* Bits of `clamped` in larkspur_fwd_out_t: which inputs were outside the envelope. */
 #define LARKSPUR_FWD_CLAMPED_CURRENT_RIGHT 0x01u
 #define LARKSPUR_FWD_CLAMPED_CURRENT_LEFT 0x02u
 #define LARKSPUR_FWD_CLAMPED_SPEED_RIGHT 0x04u

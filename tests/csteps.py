@@ -1,0 +1,63 @@
+"""Shared test steps for generated C: write files, render and compile the harness, run it, compare.
+
+The harness is rendered from the interface description, so its input order is the structs' order.
+"""
+
+from __future__ import annotations
+
+import subprocess
+from pathlib import Path
+
+import jinja2
+import numpy as np
+import pytest
+
+from kinetab.generator import hostc, interface
+
+HARNESS = Path(__file__).parent / "c" / "harness.c.j2"
+MODES = {"feedforward": "ff", "forward": "fwd"}
+needs_gcc = pytest.mark.skipif(hostc.compiler() is None, reason="a C compiler is required (apt install gcc)")
+
+
+def _lvalues(st: interface.Struct) -> list[str]:
+    return [f"{m.name}[{k}]" if m.count == 2 else m.name for m in st.members for k in range(m.count)]
+
+
+def _call_view(call: interface.Call, prefix: str) -> dict[str, object]:
+    ins, outs = _lvalues(call.inputs), _lvalues(call.outputs)
+    return {"name": call.name, "mode": MODES[call.name], "inputs": ins,
+            "in_type": call.inputs.c_type(prefix), "out_type": call.outputs.c_type(prefix),
+            "function": f"{prefix}_{call.name}", "scan": " ".join(["%ld"] * len(ins)),
+            "refs": ", ".join(f"&v[{k}]" for k in range(len(ins))),
+            "fmt": " ".join(["%ld"] * len(outs) + ["%lu"]),
+            "prints": ", ".join([f"(long)out.{o}" for o in outs] + ["(unsigned long)out.clamped"])}
+
+
+def harness_source(prefix: str) -> str:
+    """The harness C for a vehicle prefix."""
+    tpl = jinja2.Template(HARNESS.read_text(), undefined=jinja2.StrictUndefined, trim_blocks=True,
+                          lstrip_blocks=True, keep_trailing_newline=True)
+    return tpl.render(header=interface.file_names(prefix)["ff_header"],
+                      calls=[_call_view(c, prefix) for c in interface.CALLS])
+
+
+def write_files(folder: Path, files: dict[str, str]) -> Path:
+    folder.mkdir(parents=True, exist_ok=True)
+    for name, text in files.items():
+        (folder / name).write_text(text)
+    return folder
+
+
+def build_harness(folder: Path, prefix: str) -> Path:
+    """Compile the harness with the generated feed-forward C of `prefix` in `folder` (strict flags)."""
+    src = folder / "harness.c"
+    src.write_text(harness_source(prefix))
+    return hostc.compile_c([src, folder / interface.file_names(prefix)["ff_source"]], folder / "harness",
+                           include=[folder])
+
+
+def run_harness(exe: Path, rows: np.ndarray, mode: str = "ff") -> np.ndarray:
+    """Feed integer rows to the harness; returns its output rows (outputs, then the clamp bits)."""
+    text = "\n".join(" ".join(str(int(x)) for x in r) for r in rows) + "\n"
+    out = subprocess.run([str(exe), mode], input=text, capture_output=True, text=True, check=True).stdout
+    return np.array([[int(x) for x in line.split()] for line in out.strip().splitlines()], dtype=np.int64)
