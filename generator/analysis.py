@@ -1,22 +1,21 @@
 """Proofs over a sized program: integer ranges (no overflow, which products need 64 bits) and a
 worst-case error bound of the integer result against the exact model, by interval arithmetic.
 
-Error propagation per op (integer units of each signal; A, B ideal values, e their errors):
-  a*b/2^s: (|A| e_b + |B| e_a + e_a e_b) / 2^s + 1/2 (rounding, when s > 0)
-  sum: the sum of errors;  lookup: the table's measured worst error;  store: e/2^s + 1/2.
+Error propagation per op: see _error_step, the one place that states it.
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Mapping
+from collections.abc import Callable, Mapping
+from typing import Any, assert_never
 
 import numpy as np
 
 from . import fixedpoint as fx
 from . import tables as tb
 from .errors import CheckFailed
-from .program import Backdrive, Clamp, Lookup, Mul, Program, Store, Sum
+from .program import Backdrive, Clamp, Lookup, Mul, Op, Program, Store, Sum, op_range, rounding_half
 
 I32 = fx.Interval(fx.word_min(32), fx.word_max(32))
 I64 = fx.Interval(fx.word_min(64), fx.word_max(64))
@@ -59,42 +58,52 @@ def prove(program: Program, tables: Mapping[str, tb.Table]) -> Proof:
     split: dict[str, bool] = {}
     outputs: dict[tuple[str, int], fx.Interval] = {}
     for op in program.ops:
-        if isinstance(op, Clamp):
-            rng[op.dst] = fx.Interval(op.lo, op.hi)
-        elif isinstance(op, Lookup):
-            rng[op.dst] = _table_range(tables[op.table])
-        elif isinstance(op, Mul):
+        _check_op(program, op, rng, wide, split)
+        result = op_range(op, rng, lambda lk: _table_range(tables[lk.table]))
+        if isinstance(op, Store):
+            outputs[(op.field, op.index)] = rng[op.src].shift_round(op.shift)
+            continue
+        assert result is not None
+        if not result.fits(32):
+            raise _fail(program, f"signal {op.dst}", result)
+        rng[op.dst] = result
+    lookup_wide = {name: tuple(_interp_wide(p) for p in t.pieces) for name, t in tables.items()}
+    return Proof(rng, wide, split, lookup_wide, outputs)
+
+
+def _with_half(prod: fx.Interval, shift: int) -> fx.Interval:
+    """A product plus the rounding half added before the shift: what the C must hold."""
+    return fx.Interval(prod.lo, prod.hi + rounding_half(shift))
+
+
+def _check_op(program: Program, op: Op, rng: dict[str, fx.Interval], wide: dict[str, bool],
+              split: dict[str, bool]) -> None:
+    """What each op needs beyond its result range: which products need 64 bits, which partial sums and
+    roundings would overflow (CheckFailed)."""
+    match op:
+        case Clamp() | Lookup():
+            pass
+        case Mul():
             rb = rng[op.b] if isinstance(op.b, str) else fx.Interval(op.b, op.b)
-            prod = rng[op.a] * rb
-            half = (1 << (op.shift - 1)) if op.shift > 0 else 0
-            with_half = fx.Interval(prod.lo, prod.hi + half)
+            with_half = _with_half(rng[op.a] * rb, op.shift)
             if not with_half.fits(64):
                 raise _fail(program, f"product {op.dst}", with_half)
             wide[op.dst] = not with_half.fits(32)
-            rng[op.dst] = prod.shift_round(op.shift)
-        elif isinstance(op, Sum):
+        case Sum():
             total = fx.Interval(0, 0)
             for sign, name in op.terms:
                 total = total + (rng[name] if sign > 0 else -rng[name])
                 if not total.fits(32):
                     raise _fail(program, f"partial sum of {op.dst}", total)
-            rng[op.dst] = total
-        elif isinstance(op, Backdrive):
-            prod = rng[op.src] * fx.Interval(op.k, op.k)
-            with_half = fx.Interval(prod.lo, prod.hi + (1 << (op.shift - 1)))
-            wide[op.dst] = not with_half.fits(32)
+        case Backdrive():
+            wide[op.dst] = not _with_half(rng[op.src] * fx.Interval(op.k, op.k), op.shift).fits(32)
             split[op.dst] = wide[op.dst] and _split_fits(rng[op.src], op.k, op.shift)
-            rng[op.dst] = rng[op.src].hull(prod.shift_round(op.shift))
-        elif isinstance(op, Store):
-            with_half = fx.Interval(rng[op.src].lo, rng[op.src].hi + ((1 << (op.shift - 1)) if op.shift > 0 else 0))
+        case Store():
+            with_half = _with_half(rng[op.src], op.shift)
             if not with_half.fits(32):
                 raise _fail(program, f"rounding of {op.field}[{op.index}]", with_half)
-            outputs[(op.field, op.index)] = rng[op.src].shift_round(op.shift)
-            continue
-        if not rng[op.dst].fits(32):
-            raise _fail(program, f"signal {op.dst}", rng[op.dst])
-    lookup_wide = {name: tuple(_interp_wide(p) for p in t.pieces) for name, t in tables.items()}
-    return Proof(rng, wide, split, lookup_wide, outputs)
+        case _:
+            assert_never(op)
 
 
 def _split_fits(src: fx.Interval, k: int, shift: int) -> bool:
@@ -105,100 +114,105 @@ def _split_fits(src: fx.Interval, k: int, shift: int) -> bool:
     return high.fits(32) and low <= fx.word_max(32) and k >= 0
 
 
-def error_bound(program: Program, specs: Mapping[str, tb.TableSpec], table_error: Mapping[str, object],
-                parts: bool = False):
-    """Worst |integer output - exact model| in output steps (max over outputs); arrays broadcast.
+TableErrors = Mapping[str, Any]
+"""Per table, its worst error in target units: a float, or a numpy array of candidates (broadcast)."""
+Step = Callable[[dict[str, Any], TableErrors], Any]
 
-    table_error: per table, its worst error in target units (a float or a numpy array of candidates).
-    With parts=True also returns the rounding-only bound (all table errors zero).
-    """
-    mag: dict[str, float] = {}
-    err: dict[str, object] = {}
-    worst: object = 0.0
-    for op in program.ops:
-        if isinstance(op, Clamp):
-            mag[op.dst], err[op.dst] = float(max(abs(op.lo), abs(op.hi))), 0.0
-        elif isinstance(op, Lookup):
-            spec = specs[op.table]
-            scale = 2.0**spec.frac_bits
-            mag[op.dst], err[op.dst] = spec.max_abs * scale, np.asarray(table_error[op.table]) * scale
-        elif isinstance(op, Mul):
-            ma, ea = mag[op.a], err[op.a]
-            mb, eb = (mag[op.b], err[op.b]) if isinstance(op.b, str) else (float(abs(op.b)), 0.0)
-            scale = 2.0**-op.shift
+
+def _error_step(op: Op, specs: Mapping[str, tb.TableSpec], mag: dict[str, float], zero: set[str]) -> Step | None:
+    """One op's error propagation (integer units of each signal; A, B ideal values, e their errors):
+      a*b/2^s: (|A| e_b + |B| e_a + e_a e_b) / 2^s + 1/2 when s > 0;  sum: the sum of the errors;
+      lookup: the table's worst error;  backdrive: e*max(1, k) + |k_int - k|(|A| + e) + 1/2;
+      store: e/2^s + 1/2 when s > 0.
+    Records the result's magnitude in `mag`; signals known to be exact go in `zero` and their terms are
+    left out (adding an exact 0.0 changes no float), which makes the bound fast enough for sizing."""
+    e = lambda err, name: 0.0 if name in zero else err[name]  # noqa: E731
+    match op:
+        case Clamp():
+            mag[op.dst] = float(max(abs(op.lo), abs(op.hi)))
+            zero.add(op.dst)
+            return None
+        case Lookup():
+            scale = 2.0**specs[op.table].frac_bits
+            mag[op.dst] = specs[op.table].max_abs * scale
+            return lambda err, E: np.asarray(E[op.table]) * scale
+        case Mul():
+            ma, bname = mag[op.a], op.b if isinstance(op.b, str) else None
+            mb = mag[bname] if bname is not None else float(abs(op.b))  # type: ignore[arg-type]
+            scale, half = 2.0**-op.shift, 0.5 if op.shift > 0 else 0.0
             mag[op.dst] = ma * mb * scale
-            err[op.dst] = (ma * eb + mb * ea + ea * eb) * scale + (0.5 if op.shift > 0 else 0.0)
-        elif isinstance(op, Sum):
+            if op.a in zero and (bname is None or bname in zero) and half == 0:
+                zero.add(op.dst)
+                return None
+            if bname is None:
+                return lambda err, E: (mb * e(err, op.a)) * scale + half
+            return lambda err, E: (ma * e(err, bname) + mb * e(err, op.a)
+                                   + e(err, op.a) * e(err, bname)) * scale + half
+        case Sum():
             mag[op.dst] = sum(mag[n] for _, n in op.terms)
-            err[op.dst] = sum(err[n] for _, n in op.terms)
-        elif isinstance(op, Backdrive):
-            gain = max(1.0, op.k_exact)
-            dk = abs(op.k * 2.0**-op.shift - op.k_exact)
-            mag[op.dst] = mag[op.src] * gain
-            err[op.dst] = err[op.src] * gain + dk * (mag[op.src] + err[op.src]) + 0.5
-        elif isinstance(op, Store):
-            worst = np.maximum(worst, err[op.src] * 2.0**-op.shift + (0.5 if op.shift > 0 else 0.0))
-    return worst
+            live = [n for _, n in op.terms if n not in zero]
+            if not live:
+                zero.add(op.dst)
+                return None
+            return _sum_step(live)
+        case Backdrive():
+            gain, dk, ms = max(1.0, op.k_exact), abs(op.k * 2.0**-op.shift - op.k_exact), mag[op.src]
+            mag[op.dst] = ms * gain
+            return lambda err, E: e(err, op.src) * gain + dk * (ms + e(err, op.src)) + 0.5
+        case Store():
+            scale, half = 2.0**-op.shift, 0.5 if op.shift > 0 else 0.0
+            return lambda err, E: e(err, op.src) * scale + half
+        case _:
+            assert_never(op)
+
+
+def _sum_step(live: list[str]) -> Step:
+    """The errors of a sum's inexact terms, added left to right."""
+
+    def step(err: dict[str, Any], _tables: TableErrors) -> Any:
+        total = err[live[0]]
+        for name in live[1:]:
+            total = total + err[name]
+        return total
+
+    return step
+
+
+@dataclass(frozen=True)
+class ErrorBound:
+    """The error bound of one program as a callable: table errors -> worst output error in steps."""
+
+    steps: tuple[tuple[Op, Step], ...]
+
+    def __call__(self, table_error: TableErrors) -> Any:
+        err: dict[str, Any] = {}
+        worst: Any = 0.0
+        for op, step in self.steps:
+            value = step(err, table_error)
+            if isinstance(op, Store):
+                worst = np.maximum(worst, value)
+            else:
+                err[op.dst] = value
+        return worst
+
+
+def compile_bound(program: Program, specs: Mapping[str, tb.TableSpec]) -> ErrorBound:
+    """The program's error propagation with every magnitude folded in once (sizing calls it often)."""
+    mag: dict[str, float] = {}
+    zero: set[str] = set()
+    steps = []
+    for op in program.ops:
+        step = _error_step(op, specs, mag, zero)
+        if step is not None:
+            steps.append((op, step))
+    return ErrorBound(tuple(steps))
+
+
+def error_bound(program: Program, specs: Mapping[str, tb.TableSpec], table_error: TableErrors) -> Any:
+    """Worst |integer output - exact model| in output steps (max over outputs); arrays broadcast."""
+    return compile_bound(program, specs)(table_error)
 
 
 def table_errors(tables: Mapping[str, tb.Table], errors: Mapping[str, tuple[tb.PieceError, ...]]) -> dict[str, float]:
     """A table's worst error is the worst of its pieces."""
     return {name: max(e.total for e in errors[name]) for name in tables}
-
-
-def compile_bound(program: Program, specs: Mapping[str, tb.TableSpec]):
-    """error_bound as generated Python: the same propagation, constants folded (sizing calls it often).
-
-    Returns f(table_error) with the same meaning and result as error_bound(program, specs, table_error).
-    """
-    mag: dict[str, float] = {}
-    zero: set[str] = set()
-    lines = ["def bound(E):", "    worst = 0.0"]
-    var = lambda name: "e_" + name  # noqa: E731
-    for op in program.ops:
-        if isinstance(op, Clamp):
-            mag[op.dst] = float(max(abs(op.lo), abs(op.hi)))
-            zero.add(op.dst)
-        elif isinstance(op, Lookup):
-            spec = specs[op.table]
-            mag[op.dst] = spec.max_abs * 2.0**spec.frac_bits
-            lines.append(f"    {var(op.dst)} = E[{op.table!r}] * {2.0**spec.frac_bits!r}")
-        elif isinstance(op, Mul):
-            ma = mag[op.a]
-            mb = mag[op.b] if isinstance(op.b, str) else float(abs(op.b))
-            za, zb = op.a in zero, (not isinstance(op.b, str)) or op.b in zero
-            terms = []
-            if not zb:
-                terms.append(f"{ma!r} * {var(op.b)}")
-            if not za:
-                terms.append(f"{mb!r} * {var(op.a)}")
-            if not za and not zb:
-                terms.append(f"{var(op.a)} * {var(op.b)}")
-            mag[op.dst] = ma * mb * 2.0**-op.shift
-            half = 0.5 if op.shift > 0 else 0.0
-            if not terms and half == 0:
-                zero.add(op.dst)
-                continue
-            body = f"({' + '.join(terms)}) * {2.0**-op.shift!r}" if terms else "0.0"
-            lines.append(f"    {var(op.dst)} = {body} + {half!r}")
-        elif isinstance(op, Sum):
-            mag[op.dst] = sum(mag[n] for _, n in op.terms)
-            live = [var(n) for _, n in op.terms if n not in zero]
-            if not live:
-                zero.add(op.dst)
-                continue
-            lines.append(f"    {var(op.dst)} = {' + '.join(live)}")
-        elif isinstance(op, Backdrive):
-            gain = max(1.0, op.k_exact)
-            dk = abs(op.k * 2.0**-op.shift - op.k_exact)
-            src = "0.0" if op.src in zero else var(op.src)
-            lines.append(f"    {var(op.dst)} = {src} * {gain!r} + {dk!r} * ({mag[op.src]!r} + {src}) + 0.5")
-            mag[op.dst] = mag[op.src] * gain
-        elif isinstance(op, Store):
-            src = "0.0" if op.src in zero else var(op.src)
-            half = 0.5 if op.shift > 0 else 0.0
-            lines.append(f"    worst = _max(worst, {src} * {2.0**-op.shift!r} + {half!r})")
-    lines.append("    return worst")
-    scope: dict[str, object] = {"_max": np.maximum}
-    exec(compile("\n".join(lines), f"<bound of {program.name}>", "exec"), scope)  # noqa: S102
-    return scope["bound"]

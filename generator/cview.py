@@ -7,12 +7,13 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, assert_never
 
 from . import __version__, interface, model
 from .cformat import num, rows, wrap
 from . import fixedpoint as fx
-from .program import Backdrive, Clamp, Lookup, Mul, Program, Store, Sum
+from .analysis import Proof
+from .program import Backdrive, Clamp, Lookup, Mul, Op, Program, Store, Sum, rounding_half
 from .synthesis import FORMAT_VERSION, Firmware
 
 CAUTION = (
@@ -107,28 +108,31 @@ def table_view(fw: Firmware, name: str, prefix: str) -> dict[str, Any]:
     }
 
 
-def _op_view(op, proof) -> dict[str, Any]:
-    if isinstance(op, Clamp):
-        where = f"{op.field}[{op.index}]" if op.index is not None else op.field
-        return {"kind": "clamp", "dst": op.dst, "src": where, "lo": op.lo, "hi": op.hi, "bit": f"0x{1 << op.bit:02X}u"}
-    if isinstance(op, Lookup):
-        return {"kind": "lookup", "dst": op.dst, "func": f"lookup_{op.table}", "src": op.src}
-    if isinstance(op, Mul):
-        const = not isinstance(op.b, str)
-        return {"kind": "mul", "dst": op.dst, "a": op.a, "b": str(op.b), "b_one": const and op.b == 1,
-                "shift": max(op.shift, 0), "scale": 1 << max(-op.shift, 0), "up": op.shift < 0,
-                "half": (1 << (op.shift - 1)) if op.shift > 0 else 0, "wide": proof.wide[op.dst]}
-    if isinstance(op, Sum):
-        terms = [("-" if s < 0 else ("" if i == 0 else "+"), n) for i, (s, n) in enumerate(op.terms)]
-        return {"kind": "sum", "dst": op.dst, "terms": terms}
-    if isinstance(op, Backdrive):
-        return {"kind": "backdrive", "dst": op.dst, "src": op.src, "speed": op.speed, "k": op.k, "shift": op.shift,
-                "half": 1 << (op.shift - 1), "wide": proof.wide[op.dst], "split": proof.split[op.dst],
-                "mask": f"0x{(1 << op.shift) - 1:X}", "k_exact": num(op.k_exact)}
-    if isinstance(op, Store):
-        return {"kind": "store", "dst": f"{op.field}[{op.index}]", "src": op.src, "shift": op.shift,
-                "half": (1 << (op.shift - 1)) if op.shift > 0 else 0}
-    raise TypeError(op)
+def _op_view(op: Op, proof: Proof, clamp_names: list[str]) -> dict[str, Any]:
+    """What ops.j2 prints for one op (the C form of each op kind lives in that template)."""
+    match op:
+        case Clamp():
+            where = f"{op.field}[{op.index}]" if op.index is not None else op.field
+            return {"kind": "clamp", "dst": op.dst, "src": where, "lo": op.lo, "hi": op.hi, "bit": clamp_names[op.bit]}
+        case Lookup():
+            return {"kind": "lookup", "dst": op.dst, "func": f"lookup_{op.table}", "src": op.src}
+        case Mul():
+            const = not isinstance(op.b, str)
+            return {"kind": "mul", "dst": op.dst, "a": op.a, "b": str(op.b), "b_one": const and op.b == 1,
+                    "shift": max(op.shift, 0), "scale": 1 << max(-op.shift, 0), "up": op.shift < 0,
+                    "half": rounding_half(op.shift), "wide": proof.wide[op.dst]}
+        case Sum():
+            terms = [("-" if s < 0 else ("" if i == 0 else "+"), n) for i, (s, n) in enumerate(op.terms)]
+            return {"kind": "sum", "dst": op.dst, "terms": terms}
+        case Backdrive():
+            return {"kind": "backdrive", "dst": op.dst, "src": op.src, "speed": op.speed, "k": op.k,
+                    "shift": op.shift, "half": rounding_half(op.shift), "wide": proof.wide[op.dst],
+                    "split": proof.split[op.dst], "mask": f"0x{(1 << op.shift) - 1:X}", "k_exact": num(op.k_exact)}
+        case Store():
+            return {"kind": "store", "dst": f"{op.field}[{op.index}]", "src": op.src, "shift": op.shift,
+                    "half": rounding_half(op.shift)}
+        case _:
+            assert_never(op)
 
 
 def _group_key(op, tables: dict[str, dict[str, Any]]) -> tuple | None:
@@ -138,7 +142,7 @@ def _group_key(op, tables: dict[str, dict[str, Any]]) -> tuple | None:
     return (op.src, t["symmetry"] != "none", t["split"])
 
 
-def program_view(prog: Program, proof, tables: dict[str, dict[str, Any]]) -> dict[str, Any]:
+def program_view(prog: Program, proof: Proof, tables: dict[str, dict[str, Any]], prefix: str) -> dict[str, Any]:
     """One view per op; adjacent lookups of the same input with the same split share one inline block
     (one |x|, one comparison), which the compiler cannot merge across two calls on its own."""
     views: list[dict[str, Any]] = []
@@ -155,7 +159,7 @@ def program_view(prog: Program, proof, tables: dict[str, dict[str, Any]]) -> dic
             views.append({"kind": "group", "src": key[0], "abs": key[1], "split": key[2], "members": members,
                           "needs_x": needs_x})
         else:
-            views.append(_op_view(ops[k], proof))
+            views.append(_op_view(ops[k], proof, [n for n, _ in prog.call.clamp_names(prefix)]))
         k = j
     last = max(i for i, v in enumerate(views) if v["kind"] == "clamp")
     views.insert(last + 1, {"kind": "flags"})
@@ -187,8 +191,8 @@ def context(fw: Firmware) -> dict[str, Any]:
         "fingerprint": f"0x{fw.fingerprint:08X}u", "caution": CAUTION,
         "header": f"{prefix}_ff.h", "guard": f"{prefix.upper()}_FF_H",
         "tables": list(tables.values()),
-        "feedforward": program_view(fw.design.feedforward, fw.ff_proof, tables),
-        "forward": program_view(fw.design.forward, fw.fwd_proof, tables),
+        "feedforward": program_view(fw.design.feedforward, fw.ff_proof, tables, prefix),
+        "forward": program_view(fw.design.forward, fw.fwd_proof, tables, prefix),
         "calls": [_call_view(call, prefix) for call in interface.CALLS],
         "limits": [("SPEED_MAX", lim.speed, f"{num(lim.speed * f.speed_lsb_mps)} m/s"),
                    ("ACCEL_MAX", lim.accel, f"{num(lim.accel * f.accel_lsb_mps2)} m/s^2"),

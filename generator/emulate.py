@@ -8,13 +8,14 @@ equal the float model), "interp" interpolates unrounded breakpoints, "quant" the
 
 from __future__ import annotations
 
-from typing import Mapping
+from collections.abc import Mapping
+from typing import assert_never
 
 import numpy as np
 
 from . import fixedpoint as fx
 from . import tables as tb
-from .program import Backdrive, Clamp, Lookup, Mul, Program, Store, Sum
+from .program import Backdrive, Clamp, Lookup, Mul, Op, Program, Store, Sum
 
 INT32 = (fx.word_min(32), fx.word_max(32))
 
@@ -33,49 +34,66 @@ def _input(inputs: Mapping[str, np.ndarray], op: Clamp) -> np.ndarray:
     return raw[..., op.index] if op.index is not None else raw
 
 
-def run(program: Program, tables: Mapping[str, tb.Table], inputs: Mapping[str, np.ndarray],
-        mode: str = "int") -> dict[str, np.ndarray]:
-    """Evaluate a program on arrays of inputs; returns output fields (shape (n, 2)) and 'clamped'."""
+def _step(op: Op, env: dict[str, np.ndarray], tables: Mapping[str, tb.Table], inputs: Mapping[str, np.ndarray],
+          mode: str) -> np.ndarray:
+    """One op's result: integers exactly as the C computes them (mode "int"), or real values."""
     exact = mode == "int"
-    env: dict[str, np.ndarray] = {}
-    flags = None
-    out: dict[str, list] = {m.name: [None] * m.count for m in program.call.outputs.members}
-    for op in program.ops:
-        if isinstance(op, Clamp):
-            raw = _input(inputs, op)
-            _check32(op.field, raw)
-            bit = ((raw < op.lo) | (raw > op.hi)).astype(np.int64) << op.bit
-            flags = bit if flags is None else flags | bit
-            val = np.clip(raw, op.lo, op.hi)
-            env[op.dst] = val if exact else val.astype(float)
-        elif isinstance(op, Lookup):
+    match op:
+        case Clamp():
+            val = np.clip(_input(inputs, op), op.lo, op.hi)
+            return val if exact else val.astype(float)
+        case Lookup():
             src = np.asarray(env[op.src], dtype=np.int64)
             table = tables[op.table]
-            env[op.dst] = tb.lookup(table, src) if exact else tb.lookup_real(table, src, mode)
-        elif isinstance(op, Mul):
+            return tb.lookup(table, src) if exact else tb.lookup_real(table, src, mode)
+        case Mul():
             a = env[op.a]
             b = env[op.b] if isinstance(op.b, str) else op.b
-            env[op.dst] = fx.shift_round(a * b, op.shift) if exact else a * b * 2.0**-op.shift
-        elif isinstance(op, Sum):
-            total = 0
+            return fx.shift_round(a * b, op.shift) if exact else a * b * 2.0**-op.shift
+        case Sum():
+            total: np.ndarray | int = 0
             for sign, name in op.terms:
                 total = total + sign * env[name]
-            env[op.dst] = total
-        elif isinstance(op, Backdrive):
+            return np.asarray(total)
+        case Backdrive():
             src, speed = env[op.src], env[op.speed]
             opposed = ((src > 0) & (speed < 0)) | ((src < 0) & (speed > 0))
             if exact:
                 scaled = fx.shift_round(src * op.k, op.shift)
             else:
                 scaled = src * (op.k * 2.0**-op.shift if mode == "quant" else op.k_exact)
-            env[op.dst] = np.where(opposed, scaled, src)
-        elif isinstance(op, Store):
+            return np.where(opposed, scaled, src)
+        case Store():
             src = env[op.src]
-            out[op.field][op.index] = fx.shift_round(src, op.shift) if exact else src * 2.0**-op.shift
+            return np.asarray(fx.shift_round(src, op.shift) if exact else src * 2.0**-op.shift)
+        case _:
+            assert_never(op)
+
+
+def _flag(op: Clamp, inputs: Mapping[str, np.ndarray]) -> np.ndarray:
+    raw = _input(inputs, op)
+    _check32(op.field, raw)
+    return ((raw < op.lo) | (raw > op.hi)).astype(np.int64) << op.bit
+
+
+def run(program: Program, tables: Mapping[str, tb.Table], inputs: Mapping[str, np.ndarray],
+        mode: str = "int") -> dict[str, np.ndarray]:
+    """Evaluate a program on arrays of inputs; returns output fields (shape (n, 2)) and 'clamped'."""
+    env: dict[str, np.ndarray] = {}
+    flags: np.ndarray | None = None
+    out: dict[str, list[np.ndarray | None]] = {m.name: [None] * m.count for m in program.call.outputs.members}
+    for op in program.ops:
+        if isinstance(op, Clamp):
+            bit = _flag(op, inputs)
+            flags = bit if flags is None else flags | bit
+        value = _step(op, env, tables, inputs, mode)
+        if isinstance(op, Store):
+            out[op.field][op.index] = value
             continue
-        if exact:
-            env[op.dst] = np.asarray(env[op.dst], dtype=np.int64)
-            _check32(op.dst, env[op.dst])
+        if mode == "int":
+            value = np.asarray(value, dtype=np.int64)
+            _check32(op.dst, value)
+        env[op.dst] = value
     result = {name: np.stack(vals, axis=-1) for name, vals in out.items()}
     result["clamped"] = flags if flags is not None else np.zeros(1, dtype=np.int64)
     return result

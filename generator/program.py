@@ -8,7 +8,9 @@ analysis proves them, and the templates print one C statement per op.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass, field
+from typing import assert_never
 
 import numpy as np
 
@@ -79,6 +81,39 @@ class Store:
 
 
 Op = Clamp | Lookup | Mul | Sum | Backdrive | Store
+"""Every op kind. A new kind is added here, then wherever `assert_never` fails the type check:
+op_range (below), emulate.run, analysis.prove, analysis._error_step, cview._op_view, ff/ops.j2."""
+
+
+def rounding_half(shift: int) -> int:
+    """What "add half, then shift right" adds: 2^(shift-1) for shift > 0, else nothing."""
+    return (1 << (shift - 1)) if shift > 0 else 0
+
+
+def op_range(op: Op, rng: dict[str, fx.Interval], lookup: Callable[[Lookup], fx.Interval]) -> fx.Interval | None:
+    """The value range an op's result can take, from the ranges of its operands (None for a Store,
+    which writes an output instead of a signal). `lookup` gives a table's range: estimated while
+    building, exact once the tables are sized."""
+    match op:
+        case Clamp():
+            return fx.Interval(op.lo, op.hi)
+        case Lookup():
+            return lookup(op)
+        case Mul():
+            rb = rng[op.b] if isinstance(op.b, str) else fx.Interval(op.b, op.b)
+            return (rng[op.a] * rb).shift_round(op.shift)
+        case Sum():
+            total = fx.Interval(0, 0)
+            for sign, name in op.terms:
+                total = total + (rng[name] if sign > 0 else -rng[name])
+            return total
+        case Backdrive():
+            r = rng[op.src]
+            return r.hull((r * fx.Interval(op.k, op.k)).shift_round(op.shift))
+        case Store():
+            return None
+        case _:
+            assert_never(op)
 
 
 @dataclass
@@ -149,16 +184,25 @@ class _Builder:
         self.p, self.specs, self.bits = program, specs, bits
         self.rng: dict[str, fx.Interval] = {}
 
+    def _add(self, op: Op) -> None:
+        """Append an op and record its result's range by the one range rule (op_range)."""
+        self.p.ops.append(op)
+        r = op_range(op, self.rng, self._estimate)
+        if r is not None:
+            self.rng[op.dst] = r  # type: ignore[union-attr]  # every op with a range has a dst
+
+    def _estimate(self, op: Lookup) -> fx.Interval:
+        """A table's range before it is sized: its largest value, one step of margin."""
+        spec = self.specs[op.table]
+        top = math.ceil(spec.max_abs * 2.0**spec.frac_bits) + 1
+        return fx.Interval(-top, top)
+
     def clamp(self, dst: str, fieldname: str, index: int | None, lo: int, hi: int, bit: int) -> str:
-        self.p.ops.append(Clamp(dst, fieldname, index, lo, hi, bit))
-        self.rng[dst] = fx.Interval(lo, hi)
+        self._add(Clamp(dst, fieldname, index, lo, hi, bit))
         return dst
 
     def lookup(self, dst: str, table: str, src: str) -> str:
-        spec = self.specs[table]
-        top = math.ceil(spec.max_abs * 2.0**spec.frac_bits) + 1
-        self.p.ops.append(Lookup(dst, table, src))
-        self.rng[dst] = fx.Interval(-top, top)
+        self._add(Lookup(dst, table, src))
         return dst
 
     def mul(self, dst: str, a: str, b: str | int, shift: int) -> str:
@@ -179,10 +223,8 @@ class _Builder:
                     else:
                         b = self._shifted(b, pre)
                     shift -= pre
-                    prod = moved
                     break
-        self.p.ops.append(Mul(dst, a, b, shift))
-        self.rng[dst] = prod.shift_round(shift)
+        self._add(Mul(dst, a, b, shift))
         return dst
 
     def product(self, dst: str, a: str, b: str) -> tuple[str, int]:
@@ -204,11 +246,7 @@ class _Builder:
         return name if name in self.rng else self.mul(name, src, 1, pre)
 
     def sum(self, dst: str, *terms: tuple[int, str]) -> str:
-        self.p.ops.append(Sum(dst, tuple(terms)))
-        total = fx.Interval(0, 0)
-        for sign, name in terms:
-            total = total + (self.rng[name] if sign > 0 else -self.rng[name])
-        self.rng[dst] = total
+        self._add(Sum(dst, tuple(terms)))
         return dst
 
     def backdrive(self, dst: str, src: str, speed: str, k_exact: float) -> str:
@@ -216,17 +254,15 @@ class _Builder:
         if k_exact > 1:
             kbits -= math.ceil(math.log2(k_exact))
         k = int(math.floor(k_exact * 2.0**kbits + 0.5))
-        self.p.ops.append(Backdrive(dst, src, speed, k, kbits, k_exact))
-        r = self.rng[src]
-        self.rng[dst] = r.hull((r * fx.Interval(k, k)).shift_round(kbits))
+        self._add(Backdrive(dst, src, speed, k, kbits, k_exact))
         return dst
 
     def store(self, fieldname: str, index: int, src: str, shift: int) -> None:
-        self.p.ops.append(Store(fieldname, index, src, shift))
+        self._add(Store(fieldname, index, src, shift))
 
 
 def _fits32(prod: fx.Interval, shift: int) -> bool:
-    half = (1 << (shift - 1)) if shift > 0 else 0
+    half = rounding_half(shift)
     return prod.lo >= -INT32_MAX - 1 and prod.hi + half <= INT32_MAX
 
 

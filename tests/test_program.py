@@ -7,7 +7,8 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from kinetab.generator import accuracy, analysis, emulate, synthesis
+from kinetab.generator import accuracy, analysis, emulate, interface, program, synthesis
+from kinetab.generator import tables as tb
 from tests.firmware_fixtures import demo_firmware
 from tests.helpers import random_firmware_strategy
 
@@ -48,12 +49,27 @@ def test_forward_program_algebra_equals_float_forward_dynamics():
     assert np.max(np.abs(fixed - ref)) <= fw.fwd_bound_mps2
 
 
-def test_compiled_bound_equals_reference_walk():
-    fw = demo_firmware()
-    errs = analysis.table_errors(fw.tables, fw.errors)
-    for prog in (fw.design.feedforward, fw.design.forward):
-        ref = analysis.error_bound(prog, fw.design.specs, errs)
-        assert float(analysis.compile_bound(prog, fw.design.specs)(errs)) == pytest.approx(float(ref), rel=1e-12)
+def test_error_propagation_rules_on_a_small_program():
+    """The bound of clamp -> lookup -> product -> sum -> store, worked by hand: the error of a product
+    |A| e_b + |B| e_a + e_a e_b and of a sum e_a + e_b (interval arithmetic; propagated error as in
+    Burden & Faires, Numerical Analysis, ch. 1, from memory) plus 1/2 step per rounding shift
+    (round to nearest, Oppenheim & Schafer, from memory)."""
+    spec = tb.make_spec("t", "x", "none", (tb.Piece(0, 100, lambda x: 3.0 + 0.0 * x),), 16, "1", "three")
+    prog = program.Program(interface.FEEDFORWARD, [
+        program.Clamp("x", "pitch", None, -100, 100, 4),
+        program.Lookup("t_x", "t", "x"),
+        program.Mul("p", "t_x", "x", 4),
+        program.Sum("s", ((1, "p"), (-1, "p"))),
+        program.Store("current", 0, "s", 2),
+    ])
+    scale = 2.0**spec.frac_bits
+    e_t = 0.25  # table error, target units
+    e_p = (100 * e_t * scale) / 2**4 + 0.5   # |x| e_t, x exact, then the rounding of >> 4
+    expected = (2 * e_p) / 2**2 + 0.5        # the sum adds both errors; the store rounds again
+    bound = analysis.compile_bound(prog, {"t": spec})
+    assert float(bound({"t": e_t})) == pytest.approx(expected, rel=1e-15)
+    many = bound({"t": np.array([0.0, e_t, 2 * e_t])})  # sizing passes candidate arrays: broadcast
+    assert many == pytest.approx([float(bound({"t": x})) for x in (0.0, e_t, 2 * e_t)], rel=1e-15)
 
 
 def test_demo_measured_error_within_proven_bound_within_budget():

@@ -628,58 +628,58 @@ void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out)
     int32_t pitch = in->pitch;
     if (pitch < -174) {
         pitch = -174;
-        clamped |= 0x10u;
+        clamped |= LARKSPUR_CLAMPED_PITCH;
     } else if (pitch > 174) {
         pitch = 174;
-        clamped |= 0x10u;
+        clamped |= LARKSPUR_CLAMPED_PITCH;
     }
     int32_t roll = in->roll;
     if (roll < -104) {
         roll = -104;
-        clamped |= 0x20u;
+        clamped |= LARKSPUR_CLAMPED_ROLL;
     } else if (roll > 104) {
         roll = 104;
-        clamped |= 0x20u;
+        clamped |= LARKSPUR_CLAMPED_ROLL;
     }
     int32_t payload = in->payload;
     if (payload < 0) {
         payload = 0;
-        clamped |= 0x40u;
+        clamped |= LARKSPUR_CLAMPED_PAYLOAD;
     } else if (payload > 600) {
         payload = 600;
-        clamped |= 0x40u;
+        clamped |= LARKSPUR_CLAMPED_PAYLOAD;
     }
     int32_t speed_r = in->speed[0];
     if (speed_r < -1600) {
         speed_r = -1600;
-        clamped |= 0x01u;
+        clamped |= LARKSPUR_CLAMPED_SPEED_RIGHT;
     } else if (speed_r > 1600) {
         speed_r = 1600;
-        clamped |= 0x01u;
+        clamped |= LARKSPUR_CLAMPED_SPEED_RIGHT;
     }
     int32_t speed_l = in->speed[1];
     if (speed_l < -1600) {
         speed_l = -1600;
-        clamped |= 0x02u;
+        clamped |= LARKSPUR_CLAMPED_SPEED_LEFT;
     } else if (speed_l > 1600) {
         speed_l = 1600;
-        clamped |= 0x02u;
+        clamped |= LARKSPUR_CLAMPED_SPEED_LEFT;
     }
     int32_t accel_r = in->accel[0];
     if (accel_r < -500) {
         accel_r = -500;
-        clamped |= 0x04u;
+        clamped |= LARKSPUR_CLAMPED_ACCEL_RIGHT;
     } else if (accel_r > 500) {
         accel_r = 500;
-        clamped |= 0x04u;
+        clamped |= LARKSPUR_CLAMPED_ACCEL_RIGHT;
     }
     int32_t accel_l = in->accel[1];
     if (accel_l < -500) {
         accel_l = -500;
-        clamped |= 0x08u;
+        clamped |= LARKSPUR_CLAMPED_ACCEL_LEFT;
     } else if (accel_l > 500) {
         accel_l = 500;
-        clamped |= 0x08u;
+        clamped |= LARKSPUR_CLAMPED_ACCEL_LEFT;
     }
     out->clamped = clamped; /* every input is clamped by now */
     int32_t t_sin_pitch;
@@ -895,58 +895,58 @@ void larkspur_forward(const larkspur_fwd_in_t *in, larkspur_fwd_out_t *out)
     int32_t pitch = in->pitch;
     if (pitch < -174) {
         pitch = -174;
-        clamped |= 0x10u;
+        clamped |= LARKSPUR_FWD_CLAMPED_PITCH;
     } else if (pitch > 174) {
         pitch = 174;
-        clamped |= 0x10u;
+        clamped |= LARKSPUR_FWD_CLAMPED_PITCH;
     }
     int32_t roll = in->roll;
     if (roll < -104) {
         roll = -104;
-        clamped |= 0x20u;
+        clamped |= LARKSPUR_FWD_CLAMPED_ROLL;
     } else if (roll > 104) {
         roll = 104;
-        clamped |= 0x20u;
+        clamped |= LARKSPUR_FWD_CLAMPED_ROLL;
     }
     int32_t payload = in->payload;
     if (payload < 0) {
         payload = 0;
-        clamped |= 0x40u;
+        clamped |= LARKSPUR_FWD_CLAMPED_PAYLOAD;
     } else if (payload > 600) {
         payload = 600;
-        clamped |= 0x40u;
+        clamped |= LARKSPUR_FWD_CLAMPED_PAYLOAD;
     }
     int32_t speed_r = in->speed[0];
     if (speed_r < -1600) {
         speed_r = -1600;
-        clamped |= 0x04u;
+        clamped |= LARKSPUR_FWD_CLAMPED_SPEED_RIGHT;
     } else if (speed_r > 1600) {
         speed_r = 1600;
-        clamped |= 0x04u;
+        clamped |= LARKSPUR_FWD_CLAMPED_SPEED_RIGHT;
     }
     int32_t speed_l = in->speed[1];
     if (speed_l < -1600) {
         speed_l = -1600;
-        clamped |= 0x08u;
+        clamped |= LARKSPUR_FWD_CLAMPED_SPEED_LEFT;
     } else if (speed_l > 1600) {
         speed_l = 1600;
-        clamped |= 0x08u;
+        clamped |= LARKSPUR_FWD_CLAMPED_SPEED_LEFT;
     }
     int32_t cur_r = in->current[0];
     if (cur_r < -14000) {
         cur_r = -14000;
-        clamped |= 0x01u;
+        clamped |= LARKSPUR_FWD_CLAMPED_CURRENT_RIGHT;
     } else if (cur_r > 14000) {
         cur_r = 14000;
-        clamped |= 0x01u;
+        clamped |= LARKSPUR_FWD_CLAMPED_CURRENT_RIGHT;
     }
     int32_t cur_l = in->current[1];
     if (cur_l < -14000) {
         cur_l = -14000;
-        clamped |= 0x02u;
+        clamped |= LARKSPUR_FWD_CLAMPED_CURRENT_LEFT;
     } else if (cur_l > 14000) {
         cur_l = 14000;
-        clamped |= 0x02u;
+        clamped |= LARKSPUR_FWD_CLAMPED_CURRENT_LEFT;
     }
     out->clamped = clamped; /* every input is clamped by now */
     int32_t t_sin_pitch;
