@@ -45,10 +45,7 @@ def operating_point(fw: Firmware, inp: dict[str, np.ndarray]) -> dynamics.Operat
 
 def reference_current(fw: Firmware, op: dynamics.OperatingPoint) -> np.ndarray:
     """Float-model motor current of both wheels, A, shape (n, 2)."""
-    v = fw.vehicle
-    right, left = dynamics.wheel_forces(v, op)
-    return np.stack([dynamics.motor_current(v, right.total, op.speed_right),
-                     dynamics.motor_current(v, left.total, op.speed_left)], axis=-1)
+    return dynamics.wheel_currents(fw.vehicle, op)
 
 
 def _stat(err: np.ndarray) -> Stat:

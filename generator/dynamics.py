@@ -111,33 +111,74 @@ def inverse_mass_matrix(v: Vehicle, payload_kg: ArrayLike) -> Array:
     return np.stack([np.stack([d, o], -1), np.stack([o, d], -1)], -2)
 
 
-def coriolis(v: Vehicle, payload_kg: ArrayLike, speed_right: ArrayLike, speed_left: ArrayLike) -> tuple[Array, Array]:
-    """Centrifugal/Coriolis rim forces of an offset CoG, N: V = -m c w^2/2 +- m c v w/(2b)."""
+def coriolis_coefficient(v: Vehicle, payload_kg: ArrayLike) -> Array:
+    """K = m c / (4 b^2), kg/m: the centrifugal/Coriolis forces are V_R = K (u_R - u_L) u_L and
+    V_L = -K (u_R - u_L) u_R (DESIGN's V = -m c w^2/2 +- m c v w/(2b), multiplied out)."""
     body = combined(v, payload_kg)
     b = half_track(v)
+    return body.mass_kg * body.cog_ahead_m / (4 * b * b)
+
+
+def coriolis(v: Vehicle, payload_kg: ArrayLike, speed_right: ArrayLike, speed_left: ArrayLike) -> tuple[Array, Array]:
+    """Centrifugal/Coriolis rim forces of an offset CoG, N: V = -m c w^2/2 +- m c v w/(2b)."""
+    k = coriolis_coefficient(v, payload_kg)
     ur, ul = np.asarray(speed_right, float), np.asarray(speed_left, float)
-    vel, omega = (ur + ul) / 2, (ur - ul) / (2 * b)
-    mc = body.mass_kg * body.cog_ahead_m
-    common = -0.5 * mc * omega**2
-    turn = mc * vel * omega / (2 * b)
-    return common + turn, common - turn
+    turn = ur - ul
+    return k * turn * ul, -k * turn * ur
+
+
+def gravity_coefficients(v: Vehicle, payload_kg: ArrayLike) -> tuple[Array, Array]:
+    """(m g / 2, m c g / (2 b)), N: per-wheel gravity is the first times sin(pitch), plus (right) or
+    minus (left) the second times cos(pitch) sin(roll)."""
+    body = combined(v, payload_kg)
+    moment = body.mass_kg * body.cog_ahead_m
+    return 0.5 * (body.mass_kg * G_N), moment * G_N / (2 * half_track(v))
+
+
+def rolling_coefficients(v: Vehicle, payload_kg: ArrayLike) -> tuple[Array, Array]:
+    """(level, transfer), N: per-wheel rolling resistance is level cos(pitch) cos(roll) - transfer
+    sin(pitch), times the deadband shape. From the static loads (wheel_loads) with half of each
+    caster's resistance referred to each drive wheel:
+    level = g/2 ((C_w - C_c)(m c + m L_c)/L_c + C_c m), transfer = g/2 (C_w - C_c) m h / L_c."""
+    body = combined(v, payload_kg)
+    lc, cw, cc = v.casters.behind_axle_m, v.wheels.rolling_resistance, v.casters.rolling_resistance
+    m = body.mass_kg
+    level = 0.5 * G_N * ((cw - cc) * (m * body.cog_ahead_m + m * lc) / lc + cc * m)
+    transfer = 0.5 * G_N * (cw - cc) * (m * body.cog_height_m) / lc
+    return level, transfer
+
+
+def deadband_inside(v: Vehicle, speed: ArrayLike) -> Array:
+    """s(u) for 0 <= u <= deadband, continued smoothly beyond it: u/deadband ('ramp') or 0 ('gap')."""
+    u = np.asarray(speed, dtype=float)
+    if v.friction.deadband_shape == "ramp":
+        return u / v.friction.deadband_mps
+    return np.zeros(np.shape(u))
 
 
 def deadband_shape(v: Vehicle, speed: ArrayLike) -> Array:
     """s(u): 'ramp' sign(u)*min(1, |u|/deadband); 'gap' sign(u)*[|u| > deadband]."""
     u = np.asarray(speed, dtype=float)
-    db = v.friction.deadband_mps
-    if v.friction.deadband_shape == "ramp":
-        return np.sign(u) * np.minimum(1.0, np.abs(u) / db)
-    return np.sign(u) * (np.abs(u) > db)
+    a = np.abs(u)
+    return np.sign(u) * np.where(a > v.friction.deadband_mps, 1.0, deadband_inside(v, a))
+
+
+def stribeck_level(v: Vehicle, speed: ArrayLike) -> Array:
+    """F_c + (F_s - F_c) exp(-(u/v_s)^2), N: the friction level before the deadband shape."""
+    u = np.asarray(speed, dtype=float)
+    f = v.friction
+    return f.coulomb_n + (f.breakaway_n - f.coulomb_n) * np.exp(-((u / f.stribeck_speed_mps) ** 2))
+
+
+def friction_force(v: Vehicle, speed: ArrayLike, shape: ArrayLike) -> Array:
+    """Stribeck level times a given deadband shape value plus viscous friction, N."""
+    u = np.asarray(speed, dtype=float)
+    return stribeck_level(v, u) * np.asarray(shape, dtype=float) + v.friction.viscous_ns_per_m * u
 
 
 def drivetrain_friction(v: Vehicle, speed: ArrayLike) -> Array:
     """F(u) = [F_c + (F_s - F_c) exp(-(u/v_s)^2)] s(u) + b_v u per wheel at the rim, N."""
-    u = np.asarray(speed, dtype=float)
-    f = v.friction
-    level = f.coulomb_n + (f.breakaway_n - f.coulomb_n) * np.exp(-((u / f.stribeck_speed_mps) ** 2))
-    return level * deadband_shape(v, u) + f.viscous_ns_per_m * u
+    return friction_force(v, speed, deadband_shape(v, speed))
 
 
 def wheel_loads(v: Vehicle, payload_kg: ArrayLike, pitch_rad: ArrayLike, roll_rad: ArrayLike) -> tuple[Array, Array]:
@@ -156,23 +197,17 @@ def wheel_loads(v: Vehicle, payload_kg: ArrayLike, pitch_rad: ArrayLike, roll_ra
 
 def rolling_resistance(v: Vehicle, payload_kg: ArrayLike, pitch_rad: ArrayLike, roll_rad: ArrayLike,
                        speed: ArrayLike) -> Array:
-    """Per drive wheel: (C_rr,wheel N_drive/2 + C_rr,caster N_caster/2) s(u), N.
-
-    Half of the casters' resistance is referred to each drive wheel and shaped by that wheel's speed.
-    """
-    drive, caster = wheel_loads(v, payload_kg, pitch_rad, roll_rad)
-    level = v.wheels.rolling_resistance * drive / 2 + v.casters.rolling_resistance * caster / 2
-    return level * deadband_shape(v, speed)
+    """Per drive wheel: (C_rr,wheel N_drive/2 + C_rr,caster N_caster/2) s(u), N (see rolling_coefficients)."""
+    level, transfer = rolling_coefficients(v, payload_kg)
+    th, ph = np.asarray(pitch_rad, float), np.asarray(roll_rad, float)
+    return (level * np.cos(th) * np.cos(ph) - transfer * np.sin(th)) * deadband_shape(v, speed)
 
 
 def gravity(v: Vehicle, payload_kg: ArrayLike, pitch_rad: ArrayLike, roll_rad: ArrayLike) -> tuple[Array, Array]:
     """G_R,L = m g sin(theta)/2 +- (c/(2b)) m g cos(theta) sin(phi), N."""
-    body = combined(v, payload_kg)
+    slope, side = gravity_coefficients(v, payload_kg)
     th, ph = np.asarray(pitch_rad, float), np.asarray(roll_rad, float)
-    weight = body.mass_kg * G_N
-    slope = 0.5 * weight * np.sin(th)
-    side = body.cog_ahead_m / (2 * half_track(v)) * weight * np.cos(th) * np.sin(ph)
-    return slope + side, slope - side
+    return slope * np.sin(th) + side * np.cos(th) * np.sin(ph), slope * np.sin(th) - side * np.cos(th) * np.sin(ph)
 
 
 def wheel_forces(v: Vehicle, op: OperatingPoint) -> tuple[WheelForces, WheelForces]:
@@ -191,11 +226,38 @@ def wheel_forces(v: Vehicle, op: OperatingPoint) -> tuple[WheelForces, WheelForc
     return sides[0], sides[1]
 
 
+def motor_gain(v: Vehicle) -> float:
+    """Motor current per rim force when motoring, A/N: r / (i eta k_t)."""
+    return wheel_radius(v) / (v.drive.gear_ratio * v.drive.efficiency * v.drive.torque_constant_nm_per_a)
+
+
+def wheel_currents(v: Vehicle, op: OperatingPoint) -> Array:
+    """Float-model motor current of both wheels, A, shape (..., 2), right then left."""
+    right, left = wheel_forces(v, op)
+    return np.stack([motor_current(v, right.total, op.speed_right), motor_current(v, left.total, op.speed_left)], -1)
+
+
+def traction_use(v: Vehicle, side: WheelForces, accel: ArrayLike, drive_load: ArrayLike) -> Array:
+    """|contact force| / (grip N_drive / 2): the rim force less what stays inside the wheel (drivetrain
+    friction, reflected wheel and rotor inertia), against the traction limit; inf without load."""
+    contact = side.total - side.friction - reflected_mass(v) * np.asarray(accel, float)
+    limit = v.wheels.grip * np.maximum(np.asarray(drive_load, float), 0.0) / 2
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(limit > 0, np.abs(contact) / limit, np.inf)
+
+
+def opposed(effort: ArrayLike, speed: ArrayLike) -> NDArray[np.bool_]:
+    """True where effort and speed have strictly opposite signs (the wheel drives the motor). Compared
+    by sign, not by the product, which underflows to -0.0 for tiny values and would flip the choice."""
+    q, u = np.asarray(effort, float), np.asarray(speed, float)
+    return ((q > 0) & (u < 0)) | ((q < 0) & (u > 0))
+
+
 def motor_torque(v: Vehicle, force: ArrayLike, speed: ArrayLike) -> Array:
     """Motor torque, N*m: Q r/(i eta) when Q*u >= 0 (motoring, standstill), Q r eta_back/i otherwise."""
     q, u = np.asarray(force, float), np.asarray(speed, float)
     r, i = wheel_radius(v), v.drive.gear_ratio
-    motoring = q * u >= 0
+    motoring = ~opposed(q, u)
     return np.where(motoring, q * r / (i * v.drive.efficiency), q * r * v.drive.backdrive_efficiency / i)
 
 
@@ -215,7 +277,7 @@ def force_from_current(v: Vehicle, current: ArrayLike, speed: ArrayLike) -> Arra
     i_m, u = np.asarray(current, float), np.asarray(speed, float)
     r, i = wheel_radius(v), v.drive.gear_ratio
     torque = i_m * v.drive.torque_constant_nm_per_a
-    motoring = i_m * u >= 0
+    motoring = ~opposed(i_m, u)
     return np.where(motoring, torque * i * v.drive.efficiency / r, torque * i / (r * v.drive.backdrive_efficiency))
 
 

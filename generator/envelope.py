@@ -64,16 +64,12 @@ def margins(v: Vehicle, op: OperatingPoint) -> tuple[Margins, Margins]:
     """Per-wheel limit use (current, traction, voltage, tipping) at the operating points."""
     right, left = dynamics.wheel_forces(v, op)
     drive_load, caster_load = dynamics.wheel_loads(v, op.payload_kg, op.pitch_rad, op.roll_rad)
-    grip_limit = v.wheels.grip * np.maximum(drive_load, 0.0) / 2
     tip = np.maximum(-np.minimum(drive_load, caster_load), 0.0) + (np.minimum(drive_load, caster_load) <= 0)
     out = []
     for side, speed, accel in ((right, op.speed_right, op.accel_right), (left, op.speed_left, op.accel_left)):
         current = dynamics.motor_current(v, side.total, speed)
         voltage = dynamics.motor_voltage(v, current, speed)
-        contact = side.total - side.friction - dynamics.reflected_mass(v) * np.asarray(accel, float)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            traction = np.where(grip_limit > 0, np.abs(contact) / grip_limit, np.inf)
-        out.append(Margins(np.abs(current) / v.drive.current_limit_a, traction,
+        out.append(Margins(np.abs(current) / v.drive.current_limit_a, dynamics.traction_use(v, side, accel, drive_load),
                            np.abs(voltage) / v.drive.supply_voltage_v, tip))
     return out[0], out[1]
 

@@ -172,11 +172,6 @@ def limits_of(v: Vehicle) -> Limits:
     return lim
 
 
-def motor_gain(v: Vehicle) -> float:
-    """Motor current per rim force when motoring, A/N: r / (i eta k_t)."""
-    return dynamics.wheel_radius(v) / (v.drive.gear_ratio * v.drive.efficiency * v.drive.torque_constant_nm_per_a)
-
-
 class _Builder:
     """Appends ops and keeps a conservative integer range per signal (for pre-shift decisions)."""
 
@@ -267,91 +262,97 @@ def _fits32(prod: fx.Interval, shift: int) -> bool:
 
 
 def _speed_pieces(v: Vehicle, lim: Limits, scale: float) -> tuple[tb.Piece, tb.Piece, tb.Piece, tb.Piece]:
-    """Friction and deadband-shape pieces of |u| in steps, split exactly at the deadband edge."""
-    f, lsb = v.friction, v.firmware.speed_lsb_mps
+    """Friction and deadband-shape pieces of |u| in steps, split exactly at the deadband edge; each
+    piece's function continues smoothly past its end (breakpoints may sit there)."""
+    lsb = v.firmware.speed_lsb_mps
 
-    def level(x: np.ndarray) -> np.ndarray:
-        u = x * lsb
-        return f.coulomb_n + (f.breakaway_n - f.coulomb_n) * np.exp(-((u / f.stribeck_speed_mps) ** 2))
+    def inside(x: np.ndarray) -> np.ndarray:
+        return dynamics.deadband_inside(v, x * lsb)
 
-    ramp = f.deadband_shape == "ramp"
-    inside_shape = (lambda x: x * lsb / f.deadband_mps) if ramp else (lambda x: np.zeros(np.shape(x)))
-    fric_in = tb.Piece(0, lim.deadband, lambda x: (level(x) * inside_shape(x) + f.viscous_ns_per_m * x * lsb) * scale,
+    fric_in = tb.Piece(0, lim.deadband, lambda x: dynamics.friction_force(v, x * lsb, inside(x)) * scale,
                        "inside the deadband")
-    fric_out = tb.Piece(lim.deadband + 1, lim.speed, lambda x: (level(x) + f.viscous_ns_per_m * x * lsb) * scale,
+    fric_out = tb.Piece(lim.deadband + 1, lim.speed, lambda x: dynamics.friction_force(v, x * lsb, 1.0) * scale,
                         "outside the deadband")
-    shape_in = tb.Piece(0, lim.deadband, inside_shape, "inside the deadband")
+    shape_in = tb.Piece(0, lim.deadband, inside, "inside the deadband")
     shape_out = tb.Piece(lim.deadband + 1, lim.speed, lambda x: np.ones(np.shape(x)), "outside the deadband")
     return fric_in, fric_out, shape_in, shape_out
+
+
+@dataclass(frozen=True)
+class _Row:
+    """One table: its input, symmetry, pieces, stored unit and meaning, SI scale and unit."""
+
+    source: str
+    symmetry: str
+    pieces: tuple[tb.Piece, ...]
+    unit: str
+    meaning: str
+    si_scale: float
+    si_unit: str
+
+
+def _payload_rows(v: Vehicle, lim: Limits, k: float) -> dict[str, _Row]:
+    """Payload tables: the dynamics' coefficients scaled to accumulator steps (k per newton)."""
+    fw = v.firmware
+    kg = lambda x: x * fw.mass_lsb_kg  # noqa: E731
+    per_accel, per_speed2 = fw.accel_lsb_mps2 * k, fw.speed_lsb_mps**2 * k
+
+    def P(f: tb.Func) -> tuple[tb.Piece, ...]:
+        return (tb.Piece(0, lim.payload, f),)
+
+    acc = "accumulator step"
+    return {
+        "m11": _Row("payload", "none", P(lambda x: dynamics.mass_matrix_entries(v, kg(x))[0] * per_accel),
+                    f"{acc} per accel step", "mass matrix M11 = M22", 1 / per_accel, "kg"),
+        "m12": _Row("payload", "none", P(lambda x: dynamics.mass_matrix_entries(v, kg(x))[1] * per_accel),
+                    f"{acc} per accel step", "mass matrix M12 = M21", 1 / per_accel, "kg"),
+        "cor": _Row("payload", "none", P(lambda x: dynamics.coriolis_coefficient(v, kg(x)) * per_speed2),
+                    f"{acc} per speed step^2", "Coriolis coefficient m c / (4 b^2)", 1 / per_speed2, "kg/m"),
+        "grav_pitch": _Row("payload", "none", P(lambda x: dynamics.gravity_coefficients(v, kg(x))[0] * k),
+                           f"{acc} at sin = 1", "gravity m g / 2", 1 / k, "N"),
+        "grav_roll": _Row("payload", "none", P(lambda x: dynamics.gravity_coefficients(v, kg(x))[1] * k),
+                          f"{acc} at cos*sin = 1", "roll gravity m c g / (2 b)", 1 / k, "N"),
+        "roll_level": _Row("payload", "none", P(lambda x: dynamics.rolling_coefficients(v, kg(x))[0] * k),
+                           f"{acc} at cos*cos = 1", "rolling resistance on cos(pitch) cos(roll)", 1 / k, "N"),
+        "roll_slope": _Row("payload", "none", P(lambda x: dynamics.rolling_coefficients(v, kg(x))[1] * k),
+                           f"{acc} at sin = 1", "rolling-resistance load transfer on sin(pitch)", 1 / k, "N"),
+    }
+
+
+def _angle_rows(v: Vehicle, lim: Limits) -> dict[str, _Row]:
+    ang = v.firmware.angle_lsb_rad
+    rows = {}
+    for name, source, top in (("pitch", "pitch", lim.pitch), ("roll", "roll", lim.roll)):
+        rows[f"sin_{name}"] = _Row(source, "odd", (tb.Piece(0, top, lambda x: np.sin(x * ang)),), "1",
+                                   f"sin({name})", 1.0, "1")
+        rows[f"cos_{name}"] = _Row(source, "even", (tb.Piece(0, top, lambda x: np.cos(x * ang)),), "1",
+                                   f"cos({name})", 1.0, "1")
+    return {n: rows[n] for n in ("sin_pitch", "cos_pitch", "sin_roll", "cos_roll")}
 
 
 def _specs(v: Vehicle, lim: Limits, acc_amps: float) -> dict[str, tb.TableSpec]:
     """Every table's function, in units that make each product land on the accumulator scale."""
     fw, bits = v.firmware, fx.WORD_BITS[v.firmware.word]
-    k = motor_gain(v) / acc_amps  # accumulator steps per newton at the rim
-    b, g = dynamics.half_track(v), dynamics.G_N
-    lc, cw, cc = v.casters.behind_axle_m, v.wheels.rolling_resistance, v.casters.rolling_resistance
-
-    def mass(x: np.ndarray) -> dynamics.Combined:
-        return dynamics.combined(v, x * fw.mass_lsb_kg)
-
-    def m11(x):
-        return dynamics.mass_matrix_entries(v, x * fw.mass_lsb_kg)[0] * fw.accel_lsb_mps2 * k
-
-    def m12(x):
-        return dynamics.mass_matrix_entries(v, x * fw.mass_lsb_kg)[1] * fw.accel_lsb_mps2 * k
-
-    def minv(entry: int):
-        scale = acc_amps / motor_gain(v) / fw.accel_lsb_mps2  # accel steps per (1/kg * accumulator step)
-        return lambda x: dynamics.inverse_mass_matrix_entries(v, x * fw.mass_lsb_kg)[entry] * scale
-
-    def moment(x):  # m c, kg*m
-        c = mass(x)
-        return c.mass_kg * c.cog_ahead_m
-
-    def weight(x):
-        return mass(x).mass_kg * g
-
-    def height_moment(x):
-        c = mass(x)
-        return c.mass_kg * c.cog_height_m
-
-    ramp_up = lambda x: 0.5 * g * ((cw - cc) * (moment(x) + mass(x).mass_kg * lc) / lc + cc * mass(x).mass_kg) * k  # noqa: E731
-    ramp_down = lambda x: 0.5 * g * (cw - cc) * height_moment(x) / lc * k  # noqa: E731
-    ang = fw.angle_lsb_rad
+    k = dynamics.motor_gain(v) / acc_amps  # accumulator steps per newton at the rim
     fric_in, fric_out, shape_in, shape_out = _speed_pieces(v, lim, k)
-    P = lambda f, label="": (tb.Piece(0, lim.payload, f, label),)  # noqa: E731
-    per_accel = fw.accel_lsb_mps2 * k    # kg -> accumulator steps per accel step
-    per_speed2 = fw.speed_lsb_mps**2 * k  # kg/m -> accumulator steps per speed step^2
-    inv = acc_amps / motor_gain(v) / fw.accel_lsb_mps2
-    acc_unit = "accumulator step"
-    rows = [
-        ("m11", "payload", "none", P(m11), f"{acc_unit} per accel step", "mass matrix M11 = M22", 1 / per_accel, "kg"),
-        ("m12", "payload", "none", P(m12), f"{acc_unit} per accel step", "mass matrix M12 = M21", 1 / per_accel, "kg"),
-        ("cor", "payload", "none", P(lambda x: moment(x) / (4 * b * b) * per_speed2),
-         f"{acc_unit} per speed step^2", "Coriolis coefficient m c / (4 b^2)", 1 / per_speed2, "kg/m"),
-        ("grav_pitch", "payload", "none", P(lambda x: 0.5 * weight(x) * k), f"{acc_unit} at sin = 1",
-         "gravity m g / 2", 1 / k, "N"),
-        ("grav_roll", "payload", "none", P(lambda x: moment(x) * g / (2 * b) * k), f"{acc_unit} at cos*sin = 1",
-         "roll gravity m c g / (2 b)", 1 / k, "N"),
-        ("roll_level", "payload", "none", P(ramp_up), f"{acc_unit} at cos*cos = 1",
-         "rolling resistance on cos(pitch) cos(roll)", 1 / k, "N"),
-        ("roll_slope", "payload", "none", P(ramp_down), f"{acc_unit} at sin = 1",
-         "rolling-resistance load transfer on sin(pitch)", 1 / k, "N"),
-        ("sin_pitch", "pitch", "odd", (tb.Piece(0, lim.pitch, lambda x: np.sin(x * ang)),), "1", "sin(pitch)", 1.0, "1"),
-        ("cos_pitch", "pitch", "even", (tb.Piece(0, lim.pitch, lambda x: np.cos(x * ang)),), "1", "cos(pitch)", 1.0, "1"),
-        ("sin_roll", "roll", "odd", (tb.Piece(0, lim.roll, lambda x: np.sin(x * ang)),), "1", "sin(roll)", 1.0, "1"),
-        ("cos_roll", "roll", "even", (tb.Piece(0, lim.roll, lambda x: np.cos(x * ang)),), "1", "cos(roll)", 1.0, "1"),
-        ("friction", "speed", "odd", (fric_in, fric_out), acc_unit, "drivetrain friction F(u)", 1 / k, "N"),
-        ("shape", "speed", "odd", (shape_in, shape_out), "1", f"deadband shape s(u), {v.friction.deadband_shape}",
-         1.0, "1"),
-        ("minv11", "payload", "none", P(minv(0)), "accel step per accumulator step", "inverse mass matrix entry 11",
-         1 / inv, "1/kg"),
-        ("minv12", "payload", "none", P(minv(1)), "accel step per accumulator step", "inverse mass matrix entry 12",
-         1 / inv, "1/kg"),
-    ]
-    return {name: tb.make_spec(name, src, sym, pieces, bits, unit, meaning, si, si_unit)
-            for name, src, sym, pieces, unit, meaning, si, si_unit in rows}
+    inv = acc_amps / dynamics.motor_gain(v) / fw.accel_lsb_mps2  # accel steps per (1/kg * accumulator step)
+
+    def minv(entry: int) -> tb.Func:
+        return lambda x: dynamics.inverse_mass_matrix_entries(v, x * fw.mass_lsb_kg)[entry] * inv
+
+    payload = _payload_rows(v, lim, k)
+    rows = {n: payload[n] for n in ("m11", "m12", "cor", "grav_pitch", "grav_roll", "roll_level", "roll_slope")}
+    rows |= _angle_rows(v, lim)
+    rows["friction"] = _Row("speed", "odd", (fric_in, fric_out), "accumulator step", "drivetrain friction F(u)",
+                            1 / k, "N")
+    rows["shape"] = _Row("speed", "odd", (shape_in, shape_out), "1",
+                         f"deadband shape s(u), {v.friction.deadband_shape}", 1.0, "1")
+    for entry in (0, 1):
+        rows[f"minv1{entry + 1}"] = _Row("payload", "none", (tb.Piece(0, lim.payload, minv(entry)),),
+                                         "accel step per accumulator step", f"inverse mass matrix entry 1{entry + 1}",
+                                         1 / inv, "1/kg")
+    return {name: tb.make_spec(name, r.source, r.symmetry, r.pieces, bits, r.unit, r.meaning, r.si_scale, r.si_unit)
+            for name, r in rows.items()}
 
 
 SIGNAL = {"speed": "speed", "accel": "accel", "current": "cur", "pitch": "pitch", "roll": "roll",

@@ -54,7 +54,7 @@ def forward_budget(v: Vehicle) -> float:
     on both wheels (so the prediction is as good as the feed-forward it is compared against)."""
     pay = np.linspace(0, v.payload.mass_max_kg, 257)
     d, o = dynamics.inverse_mass_matrix_entries(v, pay)
-    force = v.firmware.current_budget_a / program.motor_gain(v) / (v.drive.efficiency * v.drive.backdrive_efficiency)
+    force = v.firmware.current_budget_a / dynamics.motor_gain(v) / (v.drive.efficiency * v.drive.backdrive_efficiency)
     return FORWARD_BUDGET_FACTOR * float(np.max(np.abs(d) + np.abs(o))) * force
 
 

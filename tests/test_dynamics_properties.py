@@ -15,7 +15,7 @@ from hypothesis import strategies as st
 from kinetab.generator import dynamics, stability
 from kinetab.generator.dynamics import OperatingPoint
 from kinetab.generator.errors import ModelError
-from tests.helpers import random_doc, vehicle_from
+from tests.helpers import demo_doc, random_doc, vehicle_from
 
 SETTINGS = settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 
@@ -89,3 +89,14 @@ def test_forward_dynamics_inverts_inverse_dynamics(data):
         current = dynamics.motor_current(v, side.total, speed)
         back = dynamics.force_from_current(v, current, speed)
         assert back == pytest.approx(side.total, rel=1e-12, abs=1e-12)
+
+
+def test_tiny_speed_does_not_flip_motoring_and_backdriving():
+    """Regression: a speed of 5e-324 m/s against a force of -1e-300 N made the product underflow to
+    -0.0, which counted as motoring; the choice is made by the signs (wheel drives the motor here)."""
+    v = vehicle_from(demo_doc())
+    force, speed = -1e-300, 5e-324
+    r, i = v.wheels.diameter_m / 2, v.drive.gear_ratio
+    assert float(dynamics.motor_torque(v, force, speed)) == force * r * v.drive.backdrive_efficiency / i
+    current = dynamics.motor_current(v, force, speed)
+    assert float(dynamics.force_from_current(v, current, speed)) == pytest.approx(force, rel=1e-12)

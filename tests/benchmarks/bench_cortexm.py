@@ -30,7 +30,7 @@ def float_params(fw: synthesis.Firmware) -> str:
     from kinetab.generator import dynamics as dy
 
     b, lc = dy.half_track(v), v.casters.behind_axle_m
-    k = program.motor_gain(v)
+    k = dynamics.motor_gain(v)
     vals = {
         "SPEED_MAX": lim.speed, "ACCEL_MAX": lim.accel, "PITCH_MAX": lim.pitch, "ROLL_MAX": lim.roll,
         "PAYLOAD_MAX": lim.payload, "SPEED_LSB": f.speed_lsb_mps, "ACCEL_LSB": f.accel_lsb_mps2,
