@@ -8,7 +8,7 @@ from pathlib import Path
 
 import numpy as np
 
-from kinetab.generator import accuracy, interface, program, render, synthesis, vectors
+from kinetab.generator import accuracy, interface, render, synthesis, vectors
 from kinetab.generator.interface import FF_IN, FF_OUT
 from tests import cortexm
 
@@ -30,7 +30,7 @@ def float_params(fw: synthesis.Firmware) -> str:
     from kinetab.generator import dynamics as dy
 
     b, lc = dy.half_track(v), v.casters.behind_axle_m
-    k = dynamics.motor_gain(v)
+    k = dy.motor_gain(v)
     vals = {
         "SPEED_MAX": lim.speed, "ACCEL_MAX": lim.accel, "PITCH_MAX": lim.pitch, "ROLL_MAX": lim.roll,
         "PAYLOAD_MAX": lim.payload, "SPEED_LSB": f.speed_lsb_mps, "ACCEL_LSB": f.accel_lsb_mps2,
