@@ -18,6 +18,7 @@ def main(argv: list[str] | None = None) -> None:
     """The `kinetab` console script: every command, with the bench group loaded only when used."""
     from kinetab.generator import cli
 
-    cli.register_lazy("bench", "kinetab.hil.commands", "bench",
-                      "Bench link: plan, simulate, run (see hil/PROTOCOL.md).")
+    cli.register_lazy(
+        "bench", "kinetab.hil.commands", "bench", "Bench link: plan, simulate, run (see hil/PROTOCOL.md)."
+    )
     cli.main(argv)

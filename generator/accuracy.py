@@ -13,8 +13,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from . import dynamics, emulate, interface
-from .synthesis import Firmware
 from .interface import FF_IN
+from .synthesis import Firmware
 from .vectors import feedforward_inputs
 
 
@@ -63,10 +63,12 @@ def envelope_points(fw: Firmware, count: int, seed: int) -> dict[str, np.ndarray
 
 def _describe(fw: Firmware, inp: dict[str, np.ndarray], k: int, side: int) -> str:
     op = operating_point(fw, {n: a[k] for n, a in inp.items()})
-    return (f"{('right', 'left')[side]} wheel at payload {float(op.payload_kg):.4g} kg, speed "
-            f"{float(op.speed_right):+.4g}/{float(op.speed_left):+.4g} m/s, accel {float(op.accel_right):+.4g}/"
-            f"{float(op.accel_left):+.4g} m/s^2, pitch {np.degrees(float(op.pitch_rad)):+.3f} deg, roll "
-            f"{np.degrees(float(op.roll_rad)):+.3f} deg")
+    return (
+        f"{('right', 'left')[side]} wheel at payload {float(op.payload_kg):.4g} kg, speed "
+        f"{float(op.speed_right):+.4g}/{float(op.speed_left):+.4g} m/s, accel {float(op.accel_right):+.4g}/"
+        f"{float(op.accel_left):+.4g} m/s^2, pitch {np.degrees(float(op.pitch_rad)):+.3f} deg, roll "
+        f"{np.degrees(float(op.roll_rad)):+.3f} deg"
+    )
 
 
 def _clamping(fw: Firmware, seed: int) -> Stat:
@@ -100,5 +102,13 @@ def measure(fw: Firmware, count: int = 100_000, seed: int = 7) -> Accuracy:
     got, quant, interp = run("int"), run("quant"), run("interp")
     err = got - ref
     k, side = np.unravel_index(int(np.argmax(np.abs(err))), err.shape)
-    return Accuracy(len(inp["pitch"]), _stat(err), _stat(interp - ref), _stat(quant - interp), _stat(got - quant),
-                    _describe(fw, inp, int(k), int(side)), _clamping(fw, seed), _input_resolution(fw, inp))
+    return Accuracy(
+        len(inp["pitch"]),
+        _stat(err),
+        _stat(interp - ref),
+        _stat(quant - interp),
+        _stat(got - quant),
+        _describe(fw, inp, int(k), int(side)),
+        _clamping(fw, seed),
+        _input_resolution(fw, inp),
+    )

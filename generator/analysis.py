@@ -6,8 +6,8 @@ Error propagation per op: see _error_step, the one place that states it.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 from collections.abc import Callable, Mapping
+from dataclasses import dataclass
 from typing import Any, assert_never
 
 import numpy as np
@@ -26,15 +26,17 @@ class Proof:
     """Proven value range of every signal, and which products must be computed in 64 bits."""
 
     ranges: dict[str, fx.Interval]
-    wide: dict[str, bool]                 # Mul / Backdrive dst -> product needs int64
-    split: dict[str, bool]                # Backdrive dst -> exact 32-bit two-part product instead
+    wide: dict[str, bool]  # Mul / Backdrive dst -> product needs int64
+    split: dict[str, bool]  # Backdrive dst -> exact 32-bit two-part product instead
     lookup_wide: dict[str, tuple[bool, ...]]  # table -> per piece: interpolation product needs int64
     outputs: dict[tuple[str, int], fx.Interval]
 
 
 def _fail(program: Program, what: str, interval: fx.Interval) -> CheckFailed:
-    return CheckFailed(f"{program.name}: {what} can reach [{interval.lo}, {interval.hi}], outside int32: "
-                       "the model's values cannot fit this firmware format")
+    return CheckFailed(
+        f"{program.name}: {what} can reach [{interval.lo}, {interval.hi}], outside int32: "
+        "the model's values cannot fit this firmware format"
+    )
 
 
 def _table_range(table: tb.Table) -> fx.Interval:
@@ -76,8 +78,9 @@ def _with_half(prod: fx.Interval, shift: int) -> fx.Interval:
     return fx.Interval(prod.lo, prod.hi + rounding_half(shift))
 
 
-def _check_op(program: Program, op: Op, rng: dict[str, fx.Interval], wide: dict[str, bool],
-              split: dict[str, bool]) -> None:
+def _check_op(
+    program: Program, op: Op, rng: dict[str, fx.Interval], wide: dict[str, bool], split: dict[str, bool]
+) -> None:
     """What each op needs beyond its result range: which products need 64 bits, which partial sums and
     roundings would overflow (CheckFailed)."""
     match op:
@@ -133,7 +136,7 @@ def _error_step(op: Op, specs: Mapping[str, tb.TableSpec], mag: dict[str, float]
             zero.add(op.dst)
             return None
         case Lookup():
-            scale = 2.0**specs[op.table].frac_bits
+            scale = 2.0 ** specs[op.table].frac_bits
             mag[op.dst] = specs[op.table].max_abs * scale
             return lambda err, E: np.asarray(E[op.table]) * scale
         case Mul():
@@ -146,8 +149,7 @@ def _error_step(op: Op, specs: Mapping[str, tb.TableSpec], mag: dict[str, float]
                 return None
             if bname is None:
                 return lambda err, E: (mb * e(err, op.a)) * scale + half
-            return lambda err, E: (ma * e(err, bname) + mb * e(err, op.a)
-                                   + e(err, op.a) * e(err, bname)) * scale + half
+            return lambda err, E: (ma * e(err, bname) + mb * e(err, op.a) + e(err, op.a) * e(err, bname)) * scale + half
         case Sum():
             mag[op.dst] = sum(mag[n] for _, n in op.terms)
             live = [n for _, n in op.terms if n not in zero]

@@ -11,7 +11,7 @@ def num(x: float) -> str:
 def rows(values: list[int], per_row: int = 8) -> list[str]:
     """Integer array entries, `per_row` to a line."""
     cells = [f"{v}" for v in values]
-    return [", ".join(cells[i:i + per_row]) for i in range(0, len(cells), per_row)]
+    return [", ".join(cells[i : i + per_row]) for i in range(0, len(cells), per_row)]
 
 
 def wrap(items: list[str], width: int = 92) -> list[str]:

@@ -73,7 +73,10 @@ def predict_point(v: Vehicle, op: dynamics.OperatingPoint) -> dict[str, Any]:
         torque = dynamics.motor_torque(v, side.total, speed)
         current = dynamics.motor_current(v, side.total, speed)
         doc[name] = {
-            "force": {key: float(getattr(side, key)) for key in ("inertia", "coriolis", "friction", "rolling", "gravity", "total")},
+            "force": {
+                key: float(getattr(side, key))
+                for key in ("inertia", "coriolis", "friction", "rolling", "gravity", "total")
+            },
             "motor_torque": float(torque),
             "current": float(current),
             "voltage": float(dynamics.motor_voltage(v, current, speed)),
@@ -86,8 +89,17 @@ def predict_point(v: Vehicle, op: dynamics.OperatingPoint) -> dict[str, Any]:
 @click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
 @_point_options
 @click.option("--json", "as_json", is_flag=True, help="Print JSON (SI units) instead of a table.")
-def predict(model_path: str, payload: float, speed_right: float, speed_left: float, accel_right: float,
-            accel_left: float, pitch: float, roll: float, as_json: bool) -> None:
+def predict(
+    model_path: str,
+    payload: float,
+    speed_right: float,
+    speed_left: float,
+    accel_right: float,
+    accel_left: float,
+    pitch: float,
+    roll: float,
+    as_json: bool,
+) -> None:
     """Evaluate the model at one operating point: forces, torque, current and voltage per wheel."""
     v = model.load(model_path)
     op = dynamics.OperatingPoint(payload, speed_right, speed_left, accel_right, accel_left, pitch, roll)
@@ -145,8 +157,15 @@ def envelope_cmd(model_path: str, as_json: bool) -> None:
 def _envelope_doc(rep: envelope.EnvelopeReport) -> dict[str, Any]:
     return {
         "feasible": rep.feasible,
-        "payloads": [{"payload": r.payload_kg, "hold_pitch": r.hold_pitch_rad, "climb_pitch": r.climb_pitch_rad,
-                      "accel_on_pitch_max": r.accel_on_pitch_max_mps2} for r in rep.rows],
+        "payloads": [
+            {
+                "payload": r.payload_kg,
+                "hold_pitch": r.hold_pitch_rad,
+                "climb_pitch": r.climb_pitch_rad,
+                "accel_on_pitch_max": r.accel_on_pitch_max_mps2,
+            }
+            for r in rep.rows
+        ],
         "peak_current": {"value": rep.peak_current.value, "where": rep.peak_current.where},
         "peak_voltage": {"value": rep.peak_voltage.value, "where": rep.peak_voltage.where},
         "peak_traction": {"value": rep.peak_traction.value, "where": rep.peak_traction.where},
@@ -160,18 +179,27 @@ def _deg(rad: float) -> str:
 
 def _envelope_table(v: Vehicle, rep: envelope.EnvelopeReport) -> str:
     env = v.envelope
-    lines = [f"envelope of '{v.name}': speed_max {env.speed_max_mps:g} m/s, accel_max {env.accel_max_mps2:g} m/s^2, "
-             f"pitch_max {math.degrees(env.pitch_max_rad):g} deg, roll_max {math.degrees(env.roll_max_rad):g} deg",
-             "", f"{'payload':>9} {'hold pitch':>11} {'climb pitch':>12} {'accel on':>10}",
-             f"{'[kg]':>9} {'[deg]':>11} {'[deg]':>12} {'pitch_max':>10}"]
+    lines = [
+        f"envelope of '{v.name}': speed_max {env.speed_max_mps:g} m/s, accel_max {env.accel_max_mps2:g} m/s^2, "
+        f"pitch_max {math.degrees(env.pitch_max_rad):g} deg, roll_max {math.degrees(env.roll_max_rad):g} deg",
+        "",
+        f"{'payload':>9} {'hold pitch':>11} {'climb pitch':>12} {'accel on':>10}",
+        f"{'[kg]':>9} {'[deg]':>11} {'[deg]':>12} {'pitch_max':>10}",
+    ]
     for r in rep.rows:
         acc = "   none" if r.accel_on_pitch_max_mps2 < 0 else f"{r.accel_on_pitch_max_mps2:7.3f}"
         lines.append(f"{r.payload_kg:9.2f} {_deg(r.hold_pitch_rad):>11} {_deg(r.climb_pitch_rad):>12} {acc:>10}")
-    lines += ["", "hold: standing still either way at roll_max; climb: at accel_max, 0..speed_max;",
-              "accel on pitch_max: m/s^2, straight climb; limits: current, grip, voltage, tipping.", "",
-              f"peak current  {rep.peak_current.value:8.2f} A  of {v.drive.current_limit_a:g} A   ({rep.peak_current.where})",
-              f"peak voltage  {rep.peak_voltage.value:8.2f} V  of {v.drive.supply_voltage_v:g} V   ({rep.peak_voltage.where})",
-              f"peak traction {rep.peak_traction.value:8.2f} of the grip limit ({rep.peak_traction.where})", ""]
+    lines += [
+        "",
+        "hold: standing still either way at roll_max; climb: at accel_max, 0..speed_max;",
+        "accel on pitch_max: m/s^2, straight climb; limits: current, grip, voltage, tipping.",
+        "",
+        f"peak current  {rep.peak_current.value:8.2f} A  of {v.drive.current_limit_a:g} A   ({rep.peak_current.where})",
+        f"peak voltage  {rep.peak_voltage.value:8.2f} V  of {v.drive.supply_voltage_v:g} V "
+        f"  ({rep.peak_voltage.where})",
+        f"peak traction {rep.peak_traction.value:8.2f} of the grip limit ({rep.peak_traction.where})",
+        "",
+    ]
     lines.append("feasible" if rep.feasible else "INFEASIBLE: " + "; ".join(rep.problems))
     return "\n".join(lines)
 
@@ -187,8 +215,12 @@ def _synthesise(v: Vehicle):
 @cli.command()
 @click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
 @click.option("-o", "--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Output folder.")
-@click.option("--vectors", "vectors_path", type=click.Path(dir_okay=False),
-              help="Also write golden vectors (CSV: inputs and expected outputs in firmware steps).")
+@click.option(
+    "--vectors",
+    "vectors_path",
+    type=click.Path(dir_okay=False),
+    help="Also write golden vectors (CSV: inputs and expected outputs in firmware steps).",
+)
 def build(model_path: str, out_dir: str, vectors_path: str | None) -> None:
     """Generate <name>_ff.h and <name>_ff.c into OUT (atomically); exit 1 if the budget cannot be met."""
     from . import outputs, render, vectors
@@ -199,8 +231,10 @@ def build(model_path: str, out_dir: str, vectors_path: str | None) -> None:
     outputs.write_all(Path(out_dir), files)
     if vectors_path:
         outputs.write_file(Path(vectors_path), vectors.to_csv(fw, vectors.feedforward_table(fw)))
-    click.echo(f"wrote {', '.join(str(Path(out_dir) / n) for n in files)}: tables {fw.total_bytes} bytes, "
-               f"proven error {fw.ff_bound_a * 1000:.3f} mA of {v.firmware.current_budget_a * 1000:.3f} mA budget")
+    click.echo(
+        f"wrote {', '.join(str(Path(out_dir) / n) for n in files)}: tables {fw.total_bytes} bytes, "
+        f"proven error {fw.ff_bound_a * 1000:.3f} mA of {v.firmware.current_budget_a * 1000:.3f} mA budget"
+    )
 
 
 @cli.command()
@@ -227,8 +261,10 @@ def verify(model_path: str, out_dir: str, report_path: str | None, junit_path: s
         outputs.write_file(Path(junit_path), outputs.junit(doc))
     for s in statuses:
         click.echo(s.detail)
-    click.echo(f"error: proven {fw.ff_bound_a * 1000:.3f} mA, measured max {doc['max_error'] * 1000:.3f} mA, "
-               f"budget {v.firmware.current_budget_a * 1000:.3f} mA")
+    click.echo(
+        f"error: proven {fw.ff_bound_a * 1000:.3f} mA, measured max {doc['max_error'] * 1000:.3f} mA, "
+        f"budget {v.firmware.current_budget_a * 1000:.3f} mA"
+    )
     bad = [s for s in statuses if not s.ok]
     if bad:
         raise CheckFailed(bad[0].detail)

@@ -10,9 +10,9 @@ from dataclasses import dataclass
 from typing import Any, assert_never
 
 from . import __version__, interface, model
-from .cformat import num, rows, wrap
 from . import fixedpoint as fx
 from .analysis import Proof
+from .cformat import num, rows, wrap
 from .program import Backdrive, Clamp, Lookup, Mul, Op, Program, Store, Sum, rounding_half
 from .synthesis import FORMAT_VERSION, Firmware
 
@@ -39,18 +39,38 @@ class Source:
 
 def _sources(fw: Firmware) -> dict[str, Source]:
     f = fw.vehicle.firmware
-    return {"speed": Source(f.speed_lsb_mps, "m/s"), "accel": Source(f.accel_lsb_mps2, "m/s^2"),
-            "pitch": Source(f.angle_lsb_rad, "rad"), "roll": Source(f.angle_lsb_rad, "rad"),
-            "payload": Source(f.mass_lsb_kg, "kg"), "current": Source(f.current_lsb_a, "A")}
+    return {
+        "speed": Source(f.speed_lsb_mps, "m/s"),
+        "accel": Source(f.accel_lsb_mps2, "m/s^2"),
+        "pitch": Source(f.angle_lsb_rad, "rad"),
+        "roll": Source(f.angle_lsb_rad, "rad"),
+        "payload": Source(f.mass_lsb_kg, "kg"),
+        "current": Source(f.current_lsb_a, "A"),
+    }
 
 
 MODEL_KEYS = {
-    "payload": ("body.mass", "body.cog_ahead", "body.cog_height", "body.gyration_radius", "payload.mass_max",
-                "payload.cog_ahead", "payload.cog_height", "payload.gyration_radius", "wheels.track"),
+    "payload": (
+        "body.mass",
+        "body.cog_ahead",
+        "body.cog_height",
+        "body.gyration_radius",
+        "payload.mass_max",
+        "payload.cog_ahead",
+        "payload.cog_height",
+        "payload.gyration_radius",
+        "wheels.track",
+    ),
     "pitch": ("firmware.angle_lsb", "envelope.pitch_max"),
     "roll": ("firmware.angle_lsb", "envelope.roll_max"),
-    "speed": ("friction.coulomb", "friction.breakaway", "friction.stribeck_speed", "friction.viscous",
-              "friction.deadband", "friction.deadband_shape"),
+    "speed": (
+        "friction.coulomb",
+        "friction.breakaway",
+        "friction.stribeck_speed",
+        "friction.viscous",
+        "friction.deadband",
+        "friction.deadband_shape",
+    ),
 }
 EXTRA_KEYS = {
     "m11": ("wheels.diameter", "wheels.inertia", "drive.gear_ratio", "drive.rotor_inertia"),
@@ -74,36 +94,61 @@ def table_view(fw: Firmware, name: str, prefix: str) -> dict[str, Any]:
     spec = table.spec
     src = _sources(fw)[spec.source]
     ctype = f"int{spec.bits}_t"
-    keys = MODEL_KEYS[spec.source] + EXTRA_KEYS.get(name, EXTRA_KEYS["m11"] if name in ("m12", "minv11", "minv12") else ())
+    keys = MODEL_KEYS[spec.source] + EXTRA_KEYS.get(
+        name, EXTRA_KEYS["m11"] if name in ("m12", "minv11", "minv12") else ()
+    )
     if name == "shape":
         keys = ("friction.deadband", "friction.deadband_shape")
     pieces = []
     for k, (piece, data, err) in enumerate(zip(spec.pieces, table.pieces, fw.errors[name])):
         width = 1 << data.shift
-        pieces.append({
-            "array": f"{prefix}_tab_{name}_{k}", "count": len(data.entries), "x0": piece.x0, "x1": piece.x1,
-            "segments": data.segments, "shift": data.shift, "mask": f"0x{data.mask:X}",
-            "half": (1 << (data.shift - 1)) if data.shift > 0 else 0, "wide": fw.ff_proof.lookup_wide[name][k],
-            "constant": data.segments == 0, "value": int(data.entries[0]),
-            "entries": rows([int(e) for e in data.entries]),
-            "describe": (f"{'|x|' if spec.symmetry != 'none' else 'x'} in {piece.x0}..{piece.x1} steps "
-                         f"({num(piece.x0 * src.lsb)}..{num(piece.x1 * src.lsb)} {src.unit})"
-                         + (f", {piece.label}" if piece.label else "")),
-            "layout": ("constant" if data.segments == 0 else
-                       f"{data.segments} segment{'s' if data.segments > 1 else ''} of {width} steps, "
-                       f"breakpoints at x0 + k*{width}"),
-            "error": f"{num(err.total * spec.si_scale)} {spec.si_unit}"
-                     + (" (every input checked)" if err.exhaustive else " (dense sample plus slope margin)"),
-        })
+        pieces.append(
+            {
+                "array": f"{prefix}_tab_{name}_{k}",
+                "count": len(data.entries),
+                "x0": piece.x0,
+                "x1": piece.x1,
+                "segments": data.segments,
+                "shift": data.shift,
+                "mask": f"0x{data.mask:X}",
+                "half": (1 << (data.shift - 1)) if data.shift > 0 else 0,
+                "wide": fw.ff_proof.lookup_wide[name][k],
+                "constant": data.segments == 0,
+                "value": int(data.entries[0]),
+                "entries": rows([int(e) for e in data.entries]),
+                "describe": (
+                    f"{'|x|' if spec.symmetry != 'none' else 'x'} in {piece.x0}..{piece.x1} steps "
+                    f"({num(piece.x0 * src.lsb)}..{num(piece.x1 * src.lsb)} {src.unit})"
+                    + (f", {piece.label}" if piece.label else "")
+                ),
+                "layout": (
+                    "constant"
+                    if data.segments == 0
+                    else f"{data.segments} segment{'s' if data.segments > 1 else ''} of {width} steps, "
+                    f"breakpoints at x0 + k*{width}"
+                ),
+                "error": f"{num(err.total * spec.si_scale)} {spec.si_unit}"
+                + (" (every input checked)" if err.exhaustive else " (dense sample plus slope margin)"),
+            }
+        )
     return {
-        "name": name, "ctype": ctype, "symmetry": spec.symmetry, "split": spec.split_at,
+        "name": name,
+        "ctype": ctype,
+        "symmetry": spec.symmetry,
+        "split": spec.split_at,
         "needs_x": spec.split_at is not None or any(p.segments > 0 for p in table.pieces),
-        "meaning": spec.meaning, "q": fx.q_name(spec.frac_bits, spec.bits),
+        "meaning": spec.meaning,
+        "q": fx.q_name(spec.frac_bits, spec.bits),
         "lsb": f"2^-{spec.frac_bits}" if spec.frac_bits >= 0 else f"2^{-spec.frac_bits}",
-        "lsb_si": f"{num(2.0**-spec.frac_bits * spec.si_scale)} {spec.si_unit}", "unit": spec.unit,
-        "input": spec.source, "input_lsb": f"{num(src.lsb)} {src.unit}", "pieces": pieces,
-        "models": wrap([_model_value(fw, key) for key in keys]), "bytes": table.bytes,
-        "lo": spec.pieces[0].x0, "hi": spec.pieces[-1].x1,
+        "lsb_si": f"{num(2.0**-spec.frac_bits * spec.si_scale)} {spec.si_unit}",
+        "unit": spec.unit,
+        "input": spec.source,
+        "input_lsb": f"{num(src.lsb)} {src.unit}",
+        "pieces": pieces,
+        "models": wrap([_model_value(fw, key) for key in keys]),
+        "bytes": table.bytes,
+        "lo": spec.pieces[0].x0,
+        "hi": spec.pieces[-1].x1,
         "public": f"{prefix}_table_{name}",
     }
 
@@ -118,19 +163,43 @@ def _op_view(op: Op, proof: Proof, clamp_names: list[str]) -> dict[str, Any]:
             return {"kind": "lookup", "dst": op.dst, "func": f"lookup_{op.table}", "src": op.src}
         case Mul():
             const = not isinstance(op.b, str)
-            return {"kind": "mul", "dst": op.dst, "a": op.a, "b": str(op.b), "b_one": const and op.b == 1,
-                    "shift": max(op.shift, 0), "scale": 1 << max(-op.shift, 0), "up": op.shift < 0,
-                    "half": rounding_half(op.shift), "wide": proof.wide[op.dst]}
+            return {
+                "kind": "mul",
+                "dst": op.dst,
+                "a": op.a,
+                "b": str(op.b),
+                "b_one": const and op.b == 1,
+                "shift": max(op.shift, 0),
+                "scale": 1 << max(-op.shift, 0),
+                "up": op.shift < 0,
+                "half": rounding_half(op.shift),
+                "wide": proof.wide[op.dst],
+            }
         case Sum():
             terms = [("-" if s < 0 else ("" if i == 0 else "+"), n) for i, (s, n) in enumerate(op.terms)]
             return {"kind": "sum", "dst": op.dst, "terms": terms}
         case Backdrive():
-            return {"kind": "backdrive", "dst": op.dst, "src": op.src, "speed": op.speed, "k": op.k,
-                    "shift": op.shift, "half": rounding_half(op.shift), "wide": proof.wide[op.dst],
-                    "split": proof.split[op.dst], "mask": f"0x{(1 << op.shift) - 1:X}", "k_exact": num(op.k_exact)}
+            return {
+                "kind": "backdrive",
+                "dst": op.dst,
+                "src": op.src,
+                "speed": op.speed,
+                "k": op.k,
+                "shift": op.shift,
+                "half": rounding_half(op.shift),
+                "wide": proof.wide[op.dst],
+                "split": proof.split[op.dst],
+                "mask": f"0x{(1 << op.shift) - 1:X}",
+                "k_exact": num(op.k_exact),
+            }
         case Store():
-            return {"kind": "store", "dst": f"{op.field}[{op.index}]", "src": op.src, "shift": op.shift,
-                    "half": rounding_half(op.shift)}
+            return {
+                "kind": "store",
+                "dst": f"{op.field}[{op.index}]",
+                "src": op.src,
+                "shift": op.shift,
+                "half": rounding_half(op.shift),
+            }
         case _:
             assert_never(op)
 
@@ -156,8 +225,9 @@ def program_view(prog: Program, proof: Proof, tables: dict[str, dict[str, Any]],
         if j - k > 1:
             members = [{"dst": op.dst, "t": tables[op.table]} for op in ops[k:j]]
             needs_x = key[2] is not None or any(m["t"]["needs_x"] for m in members)
-            views.append({"kind": "group", "src": key[0], "abs": key[1], "split": key[2], "members": members,
-                          "needs_x": needs_x})
+            views.append(
+                {"kind": "group", "src": key[0], "abs": key[1], "split": key[2], "members": members, "needs_x": needs_x}
+            )
         else:
             views.append(_op_view(ops[k], proof, [n for n, _ in prog.call.clamp_names(prefix)]))
         k = j
@@ -175,9 +245,12 @@ def _struct_view(st: interface.Struct, prefix: str, clamp_text: str = "") -> dic
 
 def _call_view(call: interface.Call, prefix: str) -> dict[str, Any]:
     """The structs and clamp-bit names of one generated function, from the interface description."""
-    return {"title": CALL_TITLES[call.name], "inputs": _struct_view(call.inputs, prefix),
-            "outputs": _struct_view(call.outputs, prefix, f"{prefix.upper()}_{call.clamp_tag}_* bits"),
-            "clamp_bits": [(name, f"0x{mask:02X}u") for name, mask in call.clamp_names(prefix)]}
+    return {
+        "title": CALL_TITLES[call.name],
+        "inputs": _struct_view(call.inputs, prefix),
+        "outputs": _struct_view(call.outputs, prefix, f"{prefix.upper()}_{call.clamp_tag}_* bits"),
+        "clamp_bits": [(name, f"0x{mask:02X}u") for name, mask in call.clamp_names(prefix)],
+    }
 
 
 def context(fw: Firmware) -> dict[str, Any]:
@@ -187,22 +260,33 @@ def context(fw: Firmware) -> dict[str, Any]:
     lim, f = fw.design.limits, v.firmware
     tables = {n: table_view(fw, n, prefix) for n in fw.tables}
     return {
-        "prefix": prefix, "PREFIX": prefix.upper(), "version": __version__, "format": FORMAT_VERSION,
-        "fingerprint": f"0x{fw.fingerprint:08X}u", "caution": CAUTION,
-        "header": f"{prefix}_ff.h", "guard": f"{prefix.upper()}_FF_H",
+        "prefix": prefix,
+        "PREFIX": prefix.upper(),
+        "version": __version__,
+        "format": FORMAT_VERSION,
+        "fingerprint": f"0x{fw.fingerprint:08X}u",
+        "caution": CAUTION,
+        "header": f"{prefix}_ff.h",
+        "guard": f"{prefix.upper()}_FF_H",
         "tables": list(tables.values()),
         "feedforward": program_view(fw.design.feedforward, fw.ff_proof, tables, prefix),
         "forward": program_view(fw.design.forward, fw.fwd_proof, tables, prefix),
         "calls": [_call_view(call, prefix) for call in interface.CALLS],
-        "limits": [("SPEED_MAX", lim.speed, f"{num(lim.speed * f.speed_lsb_mps)} m/s"),
-                   ("ACCEL_MAX", lim.accel, f"{num(lim.accel * f.accel_lsb_mps2)} m/s^2"),
-                   ("PITCH_MAX", lim.pitch, f"{num(math.degrees(lim.pitch * f.angle_lsb_rad))} deg"),
-                   ("ROLL_MAX", lim.roll, f"{num(math.degrees(lim.roll * f.angle_lsb_rad))} deg"),
-                   ("PAYLOAD_MAX", lim.payload, f"{num(lim.payload * f.mass_lsb_kg)} kg"),
-                   ("CURRENT_MAX", lim.current, f"{num(lim.current * f.current_lsb_a)} A")],
-        "lsbs": [("speed", f"{num(f.speed_lsb_mps)} m/s"), ("accel", f"{num(f.accel_lsb_mps2)} m/s^2"),
-                 ("pitch, roll", f"{num(f.angle_lsb_rad)} rad"), ("payload", f"{num(f.mass_lsb_kg)} kg"),
-                 ("current", f"{num(f.current_lsb_a)} A")],
+        "limits": [
+            ("SPEED_MAX", lim.speed, f"{num(lim.speed * f.speed_lsb_mps)} m/s"),
+            ("ACCEL_MAX", lim.accel, f"{num(lim.accel * f.accel_lsb_mps2)} m/s^2"),
+            ("PITCH_MAX", lim.pitch, f"{num(math.degrees(lim.pitch * f.angle_lsb_rad))} deg"),
+            ("ROLL_MAX", lim.roll, f"{num(math.degrees(lim.roll * f.angle_lsb_rad))} deg"),
+            ("PAYLOAD_MAX", lim.payload, f"{num(lim.payload * f.mass_lsb_kg)} kg"),
+            ("CURRENT_MAX", lim.current, f"{num(lim.current * f.current_lsb_a)} A"),
+        ],
+        "lsbs": [
+            ("speed", f"{num(f.speed_lsb_mps)} m/s"),
+            ("accel", f"{num(f.accel_lsb_mps2)} m/s^2"),
+            ("pitch, roll", f"{num(f.angle_lsb_rad)} rad"),
+            ("payload", f"{num(f.mass_lsb_kg)} kg"),
+            ("current", f"{num(f.current_lsb_a)} A"),
+        ],
         "ff_bound": f"{num(fw.ff_bound_a)} A (budget {num(f.current_budget_a)} A)",
         "fwd_bound": f"{num(fw.fwd_bound_mps2)} m/s^2 (goal {num(fw.fwd_budget_mps2)} m/s^2)",
         "total_bytes": fw.total_bytes,

@@ -71,9 +71,7 @@ def combined(v: Vehicle, payload_kg: ArrayLike) -> Combined:
     m = b.mass_kg + p
     c = (b.mass_kg * b.cog_ahead_m + p * q.cog_ahead_m) / m
     h = (b.mass_kg * b.cog_height_m + p * q.cog_height_m) / m
-    inertia = b.mass_kg * (b.gyration_radius_m**2 + b.cog_ahead_m**2) + p * (
-        q.gyration_radius_m**2 + q.cog_ahead_m**2
-    )
+    inertia = b.mass_kg * (b.gyration_radius_m**2 + b.cog_ahead_m**2) + p * (q.gyration_radius_m**2 + q.cog_ahead_m**2)
     return Combined(m, c, h, inertia)
 
 
@@ -195,8 +193,9 @@ def wheel_loads(v: Vehicle, payload_kg: ArrayLike, pitch_rad: ArrayLike, roll_ra
     return drive, weight * upright - drive
 
 
-def rolling_resistance(v: Vehicle, payload_kg: ArrayLike, pitch_rad: ArrayLike, roll_rad: ArrayLike,
-                       speed: ArrayLike) -> Array:
+def rolling_resistance(
+    v: Vehicle, payload_kg: ArrayLike, pitch_rad: ArrayLike, roll_rad: ArrayLike, speed: ArrayLike
+) -> Array:
     """Per drive wheel: (C_rr,wheel N_drive/2 + C_rr,caster N_caster/2) s(u), N (see rolling_coefficients)."""
     level, transfer = rolling_coefficients(v, payload_kg)
     th, ph = np.asarray(pitch_rad, float), np.asarray(roll_rad, float)
@@ -217,12 +216,19 @@ def wheel_forces(v: Vehicle, op: OperatingPoint) -> tuple[WheelForces, WheelForc
     vr, vl = coriolis(v, op.payload_kg, op.speed_right, op.speed_left)
     gr, gl = gravity(v, op.payload_kg, op.pitch_rad, op.roll_rad)
     sides = []
-    for inertia, cor, grav, speed in ((d * ar + o * al, vr, gr, op.speed_right), (o * ar + d * al, vl, gl, op.speed_left)):
-        sides.append(WheelForces(
-            inertia=np.asarray(inertia, float), coriolis=np.asarray(cor, float),
-            friction=drivetrain_friction(v, speed),
-            rolling=rolling_resistance(v, op.payload_kg, op.pitch_rad, op.roll_rad, speed),
-            gravity=np.asarray(grav, float)))
+    for inertia, cor, grav, speed in (
+        (d * ar + o * al, vr, gr, op.speed_right),
+        (o * ar + d * al, vl, gl, op.speed_left),
+    ):
+        sides.append(
+            WheelForces(
+                inertia=np.asarray(inertia, float),
+                coriolis=np.asarray(cor, float),
+                friction=drivetrain_friction(v, speed),
+                rolling=rolling_resistance(v, op.payload_kg, op.pitch_rad, op.roll_rad, speed),
+                gravity=np.asarray(grav, float),
+            )
+        )
     return sides[0], sides[1]
 
 

@@ -34,8 +34,9 @@ def _input(inputs: Mapping[str, np.ndarray], op: Clamp) -> np.ndarray:
     return raw[..., op.index] if op.index is not None else raw
 
 
-def _step(op: Op, env: dict[str, np.ndarray], tables: Mapping[str, tb.Table], inputs: Mapping[str, np.ndarray],
-          mode: str) -> np.ndarray:
+def _step(
+    op: Op, env: dict[str, np.ndarray], tables: Mapping[str, tb.Table], inputs: Mapping[str, np.ndarray], mode: str
+) -> np.ndarray:
     """One op's result: integers exactly as the C computes them (mode "int"), or real values."""
     exact = mode == "int"
     match op:
@@ -76,8 +77,9 @@ def _flag(op: Clamp, inputs: Mapping[str, np.ndarray]) -> np.ndarray:
     return ((raw < op.lo) | (raw > op.hi)).astype(np.int64) << op.bit
 
 
-def run(program: Program, tables: Mapping[str, tb.Table], inputs: Mapping[str, np.ndarray],
-        mode: str = "int") -> dict[str, np.ndarray]:
+def run(
+    program: Program, tables: Mapping[str, tb.Table], inputs: Mapping[str, np.ndarray], mode: str = "int"
+) -> dict[str, np.ndarray]:
     """Evaluate a program on arrays of inputs; returns output fields (shape (n, 2)) and 'clamped'."""
     env: dict[str, np.ndarray] = {}
     flags: np.ndarray | None = None

@@ -69,13 +69,20 @@ def margins(v: Vehicle, op: OperatingPoint) -> tuple[Margins, Margins]:
     for side, speed, accel in ((right, op.speed_right, op.accel_right), (left, op.speed_left, op.accel_left)):
         current = dynamics.motor_current(v, side.total, speed)
         voltage = dynamics.motor_voltage(v, current, speed)
-        out.append(Margins(np.abs(current) / v.drive.current_limit_a, dynamics.traction_use(v, side, accel, drive_load),
-                           np.abs(voltage) / v.drive.supply_voltage_v, tip))
+        out.append(
+            Margins(
+                np.abs(current) / v.drive.current_limit_a,
+                dynamics.traction_use(v, side, accel, drive_load),
+                np.abs(voltage) / v.drive.supply_voltage_v,
+                tip,
+            )
+        )
     return out[0], out[1]
 
 
-def _straight(v: Vehicle, payload: float, pitch: np.ndarray, roll: np.ndarray, accel: np.ndarray,
-              speeds: np.ndarray) -> np.ndarray:
+def _straight(
+    v: Vehicle, payload: float, pitch: np.ndarray, roll: np.ndarray, accel: np.ndarray, speeds: np.ndarray
+) -> np.ndarray:
     """Per candidate (pitch, accel) pair: driving straight at every speed and roll stays within limits."""
     th, a, s, r = np.meshgrid(np.atleast_1d(pitch), np.atleast_1d(accel), speeds, roll, indexing="ij", sparse=False)
     op = OperatingPoint(payload, s, s, a, a, th, r)
@@ -115,8 +122,10 @@ def payload_row(v: Vehicle, payload: float) -> PayloadRow:
     roll = np.array([-env.roll_max_rad, 0.0, env.roll_max_rad])
     speeds = _speed_sweep(v)
     still = np.array([0.0])
-    hold = _largest(lambda th: _straight(v, payload, th, roll, 0.0, still)
-                    & _straight(v, payload, -th, roll, 0.0, still), PITCH_CEILING)
+    hold = _largest(
+        lambda th: _straight(v, payload, th, roll, 0.0, still) & _straight(v, payload, -th, roll, 0.0, still),
+        PITCH_CEILING,
+    )
     climb = _largest(lambda th: _straight(v, payload, th, roll, env.accel_max_mps2, speeds), PITCH_CEILING)
     accel = _largest(lambda a: _straight(v, payload, env.pitch_max_rad, roll, a, speeds), 50.0)
     return PayloadRow(payload, hold, climb, accel)
@@ -135,8 +144,10 @@ def _corners(v: Vehicle) -> tuple[OperatingPoint, list[tuple[float, ...]]]:
 
 def _describe(pt: tuple[float, ...], wheel: str) -> str:
     p, sr, sl, ar, al, th, ph = pt
-    return (f"{wheel} wheel at payload {p:g} kg, speed {sr:+.3g}/{sl:+.3g} m/s, accel {ar:+.3g}/{al:+.3g} m/s^2, "
-            f"pitch {math.degrees(th):+.2f} deg, roll {math.degrees(ph):+.2f} deg")
+    return (
+        f"{wheel} wheel at payload {p:g} kg, speed {sr:+.3g}/{sl:+.3g} m/s, accel {ar:+.3g}/{al:+.3g} m/s^2, "
+        f"pitch {math.degrees(th):+.2f} deg, roll {math.degrees(ph):+.2f} deg"
+    )
 
 
 def _peak(values: tuple[np.ndarray, np.ndarray], pts: list[tuple[float, ...]]) -> tuple[float, str]:
@@ -155,15 +166,23 @@ def corner_peaks(v: Vehicle) -> tuple[Peak, Peak, Peak, list[str]]:
     trac, trac_at = _peak((mr.traction, ml.traction), pts)
     problems = []
     if cur > 1:
-        problems.append(f"current {cur * v.drive.current_limit_a:.2f} A exceeds drive.current_limit "
-                        f"{v.drive.current_limit_a:g} A ({cur_at})")
+        problems.append(
+            f"current {cur * v.drive.current_limit_a:.2f} A exceeds drive.current_limit "
+            f"{v.drive.current_limit_a:g} A ({cur_at})"
+        )
     if volt > 1:
-        problems.append(f"voltage {volt * v.drive.supply_voltage_v:.2f} V exceeds drive.supply_voltage "
-                        f"{v.drive.supply_voltage_v:g} V ({volt_at})")
+        problems.append(
+            f"voltage {volt * v.drive.supply_voltage_v:.2f} V exceeds drive.supply_voltage "
+            f"{v.drive.supply_voltage_v:g} V ({volt_at})"
+        )
     if trac > 1:
         problems.append(f"traction demand {trac:.2f} x the grip limit: the wheel slips ({trac_at})")
-    return (Peak(cur * v.drive.current_limit_a, cur_at), Peak(volt * v.drive.supply_voltage_v, volt_at),
-            Peak(trac, trac_at), problems)
+    return (
+        Peak(cur * v.drive.current_limit_a, cur_at),
+        Peak(volt * v.drive.supply_voltage_v, volt_at),
+        Peak(trac, trac_at),
+        problems,
+    )
 
 
 def analyse(v: Vehicle) -> EnvelopeReport:

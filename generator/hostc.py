@@ -26,14 +26,30 @@ def compiler() -> str | None:
     return shutil.which("gcc") or shutil.which("cc")
 
 
-def compile_c(sources: Sequence[Path], out: Path, *, include: Sequence[Path] = (),
-              defines: Sequence[str] = (), extra: Sequence[str] = (), opt: str = "-O2") -> Path:
+def compile_c(
+    sources: Sequence[Path],
+    out: Path,
+    *,
+    include: Sequence[Path] = (),
+    defines: Sequence[str] = (),
+    extra: Sequence[str] = (),
+    opt: str = "-O2",
+) -> Path:
     """Compile and link `sources` into `out` with the strict flags; CompileFailed says why not."""
     cc = compiler()
     if cc is None:
         raise CompileFailed("no C compiler found: install gcc (for example: apt-get install gcc)")
-    cmd = [cc, *STRICT, opt, *(f"-I{p}" for p in include), *(f"-D{d}" for d in defines), *extra,
-           *map(str, sources), "-o", str(out)]
+    cmd = [
+        cc,
+        *STRICT,
+        opt,
+        *(f"-I{p}" for p in include),
+        *(f"-D{d}" for d in defines),
+        *extra,
+        *map(str, sources),
+        "-o",
+        str(out),
+    ]
     done = subprocess.run(cmd, capture_output=True, text=True, check=False)
     if done.returncode != 0:
         first = next((line for line in done.stderr.splitlines() if "error" in line), done.stderr.strip()[:300])

@@ -27,13 +27,13 @@ class Member:
 
     name: str
     count: int
-    what: str            # the physical quantity, for comments
-    unit: str            # SI unit of one step's value
-    lsb_key: str         # model key of one step ("firmware.speed_lsb")
-    limit: str           # Limits field of its envelope edge ("speed")
+    what: str  # the physical quantity, for comments
+    unit: str  # SI unit of one step's value
+    lsb_key: str  # model key of one step ("firmware.speed_lsb")
+    limit: str  # Limits field of its envelope edge ("speed")
     signed: bool = True  # False: the envelope is 0..limit (payload)
     si: tuple[str, ...] = ()  # OperatingPoint attributes, one per column
-    steps: str = ""      # the name of its firmware step, for comments ("speed steps")
+    steps: str = ""  # the name of its firmware step, for comments ("speed steps")
 
     @property
     def columns(self) -> tuple[str, ...]:
@@ -80,22 +80,48 @@ class Struct:
         return next(m for m in self.members if m.name == name)
 
 
-SPEED = Member("speed", 2, "rim speed per wheel", "m/s", "firmware.speed_lsb", "speed", steps="speed steps",
-               si=("speed_right", "speed_left"))
-ACCEL = Member("accel", 2, "rim acceleration per wheel", "m/s^2", "firmware.accel_lsb", "accel", steps="accel steps",
-               si=("accel_right", "accel_left"))
-PITCH = Member("pitch", 1, "front up > 0", "rad", "firmware.angle_lsb", "pitch", si=("pitch_rad",),
-               steps="angle steps")
-ROLL = Member("roll", 1, "left side up > 0", "rad", "firmware.angle_lsb", "roll", si=("roll_rad",),
-              steps="angle steps")
-PAYLOAD = Member("payload", 1, "payload mass", "kg", "firmware.mass_lsb", "payload", signed=False,
-                 si=("payload_kg",), steps="mass steps")
-CURRENT_IN = Member("current", 2, "measured motor current per wheel", "A", "firmware.current_lsb", "current",
-                    steps="current steps")
-CURRENT_OUT = Member("current", 2, "feed-forward motor current per wheel", "A", "firmware.current_lsb", "current",
-                     steps="current steps")
-ACCEL_OUT = Member("accel", 2, "predicted rim acceleration per wheel", "m/s^2", "firmware.accel_lsb", "accel",
-                   steps="accel steps")
+SPEED = Member(
+    "speed",
+    2,
+    "rim speed per wheel",
+    "m/s",
+    "firmware.speed_lsb",
+    "speed",
+    steps="speed steps",
+    si=("speed_right", "speed_left"),
+)
+ACCEL = Member(
+    "accel",
+    2,
+    "rim acceleration per wheel",
+    "m/s^2",
+    "firmware.accel_lsb",
+    "accel",
+    steps="accel steps",
+    si=("accel_right", "accel_left"),
+)
+PITCH = Member("pitch", 1, "front up > 0", "rad", "firmware.angle_lsb", "pitch", si=("pitch_rad",), steps="angle steps")
+ROLL = Member("roll", 1, "left side up > 0", "rad", "firmware.angle_lsb", "roll", si=("roll_rad",), steps="angle steps")
+PAYLOAD = Member(
+    "payload",
+    1,
+    "payload mass",
+    "kg",
+    "firmware.mass_lsb",
+    "payload",
+    signed=False,
+    si=("payload_kg",),
+    steps="mass steps",
+)
+CURRENT_IN = Member(
+    "current", 2, "measured motor current per wheel", "A", "firmware.current_lsb", "current", steps="current steps"
+)
+CURRENT_OUT = Member(
+    "current", 2, "feed-forward motor current per wheel", "A", "firmware.current_lsb", "current", steps="current steps"
+)
+ACCEL_OUT = Member(
+    "accel", 2, "predicted rim acceleration per wheel", "m/s^2", "firmware.accel_lsb", "accel", steps="accel steps"
+)
 
 FF_IN = Struct("ff_in", (SPEED, ACCEL, PITCH, ROLL, PAYLOAD))
 FF_OUT = Struct("ff_out", (CURRENT_OUT,), clamped=True)
@@ -107,7 +133,7 @@ FWD_OUT = Struct("fwd_out", (ACCEL_OUT,), clamped=True)
 class Call:
     """One generated C function with its input and output structs and the prefix of its clamp bits."""
 
-    name: str       # the program's name and the C function's suffix
+    name: str  # the program's name and the C function's suffix
     inputs: Struct
     outputs: Struct
     clamp_tag: str  # CLAMPED or FWD_CLAMPED
@@ -128,8 +154,12 @@ CALLS = (FEEDFORWARD, FORWARD)
 
 def file_names(prefix: str) -> dict[str, str]:
     """Every generated file name, by template-set role."""
-    return {"ff_header": f"{prefix}_ff.h", "ff_source": f"{prefix}_ff.c",
-            "link_header": f"{prefix}_link.h", "link_source": f"{prefix}_link.c"}
+    return {
+        "ff_header": f"{prefix}_ff.h",
+        "ff_source": f"{prefix}_ff.c",
+        "link_header": f"{prefix}_link.h",
+        "link_source": f"{prefix}_link.c",
+    }
 
 
 def edges(limits: Any, member: Member) -> tuple[int, int]:
@@ -155,7 +185,7 @@ def rows_to_fields(st: Struct, rows: np.ndarray) -> dict[str, np.ndarray]:
     """Rows of flat columns (n, len(columns)) -> {member: (n, 2) or (n,)} as the programs take them."""
     out, k = {}, 0
     for m in st.members:
-        out[m.name] = rows[..., k:k + 2] if m.count == 2 else rows[..., k]
+        out[m.name] = rows[..., k : k + 2] if m.count == 2 else rows[..., k]
         k += m.count
     return out
 

@@ -9,13 +9,13 @@ import difflib
 import math
 import re
 import tomllib
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any
 
-from . import units
+from . import stability, units
 from .errors import ModelError
-from . import stability
 from .fixedpoint import steps_within
 from .vehicle import SECTION_TYPES, Vehicle
 
@@ -55,8 +55,14 @@ def _within(lo: float | None, hi: float, unit: str, lo_open: bool = True) -> tup
     return (lambda v: low(v) and v <= hi), text
 
 
-def _key(kind: units.Kind, field: str, rng: tuple[Callable[[float], bool], str] | None, meaning: str,
-         default: Any = None, choices: tuple[str, ...] = ()) -> Key:
+def _key(
+    kind: units.Kind,
+    field: str,
+    rng: tuple[Callable[[float], bool], str] | None,
+    meaning: str,
+    default: Any = None,
+    choices: tuple[str, ...] = (),
+) -> Key:
     check, expect = rng if rng is not None else (None, "")
     return Key(kind, field, default, check, expect, meaning, choices)
 
@@ -77,59 +83,95 @@ L, U, K = units, _within, _key
 SCHEMA: dict[str, dict[str, Key]] = {
     "body": {
         "mass": K(L.MASS, "mass_kg", U(0, 5000, "kg"), "mass of the empty vehicle"),
-        "cog_ahead": K(L.LENGTH, "cog_ahead_m", U(None, 5, "m"), "CoG ahead of the axle midpoint P (negative = behind)"),
+        "cog_ahead": K(
+            L.LENGTH, "cog_ahead_m", U(None, 5, "m"), "CoG ahead of the axle midpoint P (negative = behind)"
+        ),
         "cog_height": K(L.LENGTH, "cog_height_m", U(0, 5, "m", False), "CoG height above the floor"),
-        "gyration_radius": K(L.LENGTH, "gyration_radius_m", U(0, 5, "m"),
-                             "yaw radius of gyration about the body's own CoG"),
+        "gyration_radius": K(
+            L.LENGTH, "gyration_radius_m", U(0, 5, "m"), "yaw radius of gyration about the body's own CoG"
+        ),
     },
     "payload": {
         "mass_max": K(L.MASS, "mass_max_kg", U(0, 10000, "kg"), "largest payload; tables span 0 .. mass_max"),
         "cog_ahead": K(L.LENGTH, "cog_ahead_m", U(None, 5, "m"), "payload CoG ahead of P (negative = behind)"),
         "cog_height": K(L.LENGTH, "cog_height_m", U(0, 5, "m", False), "payload CoG height above the floor"),
-        "gyration_radius": K(L.LENGTH, "gyration_radius_m", U(0, 5, "m", False),
-                             "payload yaw radius of gyration about its own CoG"),
+        "gyration_radius": K(
+            L.LENGTH, "gyration_radius_m", U(0, 5, "m", False), "payload yaw radius of gyration about its own CoG"
+        ),
     },
     "wheels": {
-        "track": K(L.LENGTH, "track_m", U(0.05, 5, "m", False),
-                   "distance between the drive-wheel contact centres (b = track/2)"),
+        "track": K(
+            L.LENGTH,
+            "track_m",
+            U(0.05, 5, "m", False),
+            "distance between the drive-wheel contact centres (b = track/2)",
+        ),
         "diameter": K(L.LENGTH, "diameter_m", U(0.01, 2, "m", False), "drive-wheel rolling diameter"),
-        "inertia": K(L.INERTIA, "inertia_kgm2", U(0, 100, "kg*m^2", False), "inertia of one drive wheel about its axle"),
-        "rolling_resistance": K(RATIO, "rolling_resistance", U(0, 0.5, "", False),
-                                "drive-wheel rolling-resistance coefficient C_rr"),
+        "inertia": K(
+            L.INERTIA, "inertia_kgm2", U(0, 100, "kg*m^2", False), "inertia of one drive wheel about its axle"
+        ),
+        "rolling_resistance": K(
+            RATIO, "rolling_resistance", U(0, 0.5, "", False), "drive-wheel rolling-resistance coefficient C_rr"
+        ),
         "grip": K(RATIO, "grip", U(0, 2, ""), "tyre-floor friction coefficient (traction limit)"),
     },
     "casters": {
-        "behind_axle": K(L.LENGTH, "behind_axle_m", _nonzero(5), "caster contacts behind the drive axle (negative = ahead)"),
-        "rolling_resistance": K(RATIO, "rolling_resistance", U(0, 0.5, "", False),
-                                "caster rolling-resistance coefficient C_rr"),
+        "behind_axle": K(
+            L.LENGTH, "behind_axle_m", _nonzero(5), "caster contacts behind the drive axle (negative = ahead)"
+        ),
+        "rolling_resistance": K(
+            RATIO, "rolling_resistance", U(0, 0.5, "", False), "caster rolling-resistance coefficient C_rr"
+        ),
     },
     "drive": {
         "gear_ratio": K(RATIO, "gear_ratio", U(0, 1000, ""), "motor turns per wheel turn"),
         "efficiency": K(RATIO, "efficiency", _eff(), "gearbox efficiency when the motor drives"),
-        "backdrive_efficiency": K(RATIO, "backdrive_efficiency", _eff(),
-                                  "gearbox efficiency when the wheel drives the motor (default: efficiency)",
-                                  default="efficiency"),
+        "backdrive_efficiency": K(
+            RATIO,
+            "backdrive_efficiency",
+            _eff(),
+            "gearbox efficiency when the wheel drives the motor (default: efficiency)",
+            default="efficiency",
+        ),
         "rotor_inertia": K(L.INERTIA, "rotor_inertia_kgm2", U(0, 1, "kg*m^2", False), "motor rotor inertia"),
-        "torque_constant": K(L.TORQUE_CONSTANT, "torque_constant_nm_per_a", U(0, 100, "N*m/A"),
-                             "motor torque constant k_t (= k_e in SI)"),
-        "winding_resistance": K(L.RESISTANCE, "winding_resistance_ohm", U(0, 1000, "ohm", False),
-                                "motor winding resistance, terminal to terminal"),
+        "torque_constant": K(
+            L.TORQUE_CONSTANT, "torque_constant_nm_per_a", U(0, 100, "N*m/A"), "motor torque constant k_t (= k_e in SI)"
+        ),
+        "winding_resistance": K(
+            L.RESISTANCE,
+            "winding_resistance_ohm",
+            U(0, 1000, "ohm", False),
+            "motor winding resistance, terminal to terminal",
+        ),
         "current_limit": K(L.CURRENT, "current_limit_a", U(0, 10000, "A"), "largest motor current the drive allows"),
         "supply_voltage": K(L.VOLTAGE, "supply_voltage_v", U(0, 2000, "V"), "drive supply (bus) voltage"),
     },
     "friction": {
-        "coulomb": K(L.FORCE, "coulomb_n", U(0, 10000, "N", False), "drivetrain Coulomb friction per wheel, at the rim"),
-        "breakaway": K(L.FORCE, "breakaway_n", (lambda v: 0 <= v <= 10000, ">= coulomb and <= 10000 N"),
-                       "friction at zero speed, at the rim (default: coulomb)", default="coulomb"),
-        "stribeck_speed": K(L.SPEED, "stribeck_speed_mps", U(0, 10, "m/s"),
-                            "rim speed where the Stribeck bump decays"),
-        "viscous": K(L.DAMPING, "viscous_ns_per_m", U(0, 100000, "N*s/m", False),
-                     "viscous friction per wheel, at the rim"),
-        "deadband": K(L.SPEED, "deadband_mps", U(0, 10, "m/s"),
-                      "rim speed below which friction is shaped by deadband_shape"),
-        "deadband_shape": K(CHOICE, "deadband_shape", None,
-                            "'ramp': friction grows linearly up to deadband; 'gap': none until deadband",
-                            default="ramp", choices=("ramp", "gap")),
+        "coulomb": K(
+            L.FORCE, "coulomb_n", U(0, 10000, "N", False), "drivetrain Coulomb friction per wheel, at the rim"
+        ),
+        "breakaway": K(
+            L.FORCE,
+            "breakaway_n",
+            (lambda v: 0 <= v <= 10000, ">= coulomb and <= 10000 N"),
+            "friction at zero speed, at the rim (default: coulomb)",
+            default="coulomb",
+        ),
+        "stribeck_speed": K(L.SPEED, "stribeck_speed_mps", U(0, 10, "m/s"), "rim speed where the Stribeck bump decays"),
+        "viscous": K(
+            L.DAMPING, "viscous_ns_per_m", U(0, 100000, "N*s/m", False), "viscous friction per wheel, at the rim"
+        ),
+        "deadband": K(
+            L.SPEED, "deadband_mps", U(0, 10, "m/s"), "rim speed below which friction is shaped by deadband_shape"
+        ),
+        "deadband_shape": K(
+            CHOICE,
+            "deadband_shape",
+            None,
+            "'ramp': friction grows linearly up to deadband; 'gap': none until deadband",
+            default="ramp",
+            choices=("ramp", "gap"),
+        ),
     },
     "envelope": {
         "speed_max": K(L.SPEED, "speed_max_mps", U(0, 30, "m/s"), "largest rim speed of either wheel"),
@@ -143,15 +185,17 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "angle_lsb": K(L.ANGLE, "angle_lsb_rad", U(0, 1, "rad"), "angle of one firmware pitch/roll step"),
         "mass_lsb": K(L.MASS, "mass_lsb_kg", U(0, 10000, "kg"), "payload mass of one firmware step"),
         "current_lsb": K(L.CURRENT, "current_lsb_a", U(0, 10000, "A"), "motor current of one firmware output step"),
-        "current_budget": K(L.CURRENT, "current_budget_a", U(0, 10000, "A"),
-                            "largest allowed |firmware - float model| current"),
+        "current_budget": K(
+            L.CURRENT, "current_budget_a", U(0, 10000, "A"), "largest allowed |firmware - float model| current"
+        ),
         "word": K(CHOICE, "word", None, "storage word of table entries", default="int16", choices=("int16", "int32")),
     },
 }
 del L, U, K
 
-FIELDS: dict[str, tuple[str, str]] = {f"{sec}.{key}": (sec, spec.field) for sec, keys in SCHEMA.items()
-                                       for key, spec in keys.items()}
+FIELDS: dict[str, tuple[str, str]] = {
+    f"{sec}.{key}": (sec, spec.field) for sec, keys in SCHEMA.items() for key, spec in keys.items()
+}
 """Model key ("body.mass") -> (Vehicle attribute, field): the one map from file keys to dataclass fields."""
 
 
@@ -216,14 +260,17 @@ def _read_section(src: str, name: str, table: Any) -> dict[str, Any]:
         raise ModelError(src, name, "a [section] table", _describe(table))
     for key in table:
         if key not in schema:
-            raise ModelError(src, f"{name}.{key}", f"one of the keys of [{name}]",
-                             "an unknown key" + _suggest(key, list(schema)))
+            raise ModelError(
+                src, f"{name}.{key}", f"one of the keys of [{name}]", "an unknown key" + _suggest(key, list(schema))
+            )
     values: dict[str, Any] = {}
     for key, spec in schema.items():
         where = f"{name}.{key}"
         if key not in table:
             if spec.default is None:
-                raise ModelError(src, where, f"{spec.kind.name} such as {spec.kind.example}", "nothing (the key is required)")
+                raise ModelError(
+                    src, where, f"{spec.kind.name} such as {spec.kind.example}", "nothing (the key is required)"
+                )
             continue
         values[key] = _read_value(src, where, spec, table[key])
         _check_range(src, where, spec, values[key], table[key])
@@ -248,29 +295,51 @@ def _cross_checks(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any]) -
     """Relations between keys: breakaway >= coulomb, plausible gyration radii, firmware steps."""
     fr, env, fw, wh = s["friction"], s["envelope"], s["firmware"], s["wheels"]
     if fr["breakaway"] < fr["coulomb"]:
-        raise ModelError(src, "friction.breakaway", f"a force >= friction.coulomb ({fr['coulomb']:g} N)",
-                         _describe(raw["friction"]["breakaway"]))
+        raise ModelError(
+            src,
+            "friction.breakaway",
+            f"a force >= friction.coulomb ({fr['coulomb']:g} N)",
+            _describe(raw["friction"]["breakaway"]),
+        )
     for part in ("body", "payload"):
         limit = 3 * wh["track"]  # a long cart on a narrow track still passes
         if s[part]["gyration_radius"] > limit:
-            raise ModelError(src, f"{part}.gyration_radius",
-                             f"a radius up to 3 x wheels.track ({limit:g} m) for this vehicle",
-                             _describe(raw[part]["gyration_radius"]))
+            raise ModelError(
+                src,
+                f"{part}.gyration_radius",
+                f"a radius up to 3 x wheels.track ({limit:g} m) for this vehicle",
+                _describe(raw[part]["gyration_radius"]),
+            )
     if fr["deadband"] >= env["speed_max"]:
-        raise ModelError(src, "friction.deadband", f"a speed below envelope.speed_max ({env['speed_max']:g} m/s)",
-                         _describe(raw["friction"]["deadband"]))
+        raise ModelError(
+            src,
+            "friction.deadband",
+            f"a speed below envelope.speed_max ({env['speed_max']:g} m/s)",
+            _describe(raw["friction"]["deadband"]),
+        )
     if steps_within(fr["deadband"], fw["speed_lsb"]) >= steps_within(env["speed_max"], fw["speed_lsb"]):
-        raise ModelError(src, "friction.deadband", "a deadband at least one firmware.speed_lsb step below "
-                         "envelope.speed_max", _describe(raw["friction"]["deadband"]))
-    steps = [("speed_lsb", env["speed_max"], "envelope.speed_max"), ("accel_lsb", env["accel_max"], "envelope.accel_max"),
-             ("angle_lsb", max(env["pitch_max"], env["roll_max"]), "the larger of pitch_max and roll_max"),
-             ("mass_lsb", s["payload"]["mass_max"], "payload.mass_max"),
-             ("speed_lsb", fr["deadband"], "friction.deadband")]
+        raise ModelError(
+            src,
+            "friction.deadband",
+            "a deadband at least one firmware.speed_lsb step below envelope.speed_max",
+            _describe(raw["friction"]["deadband"]),
+        )
+    steps = [
+        ("speed_lsb", env["speed_max"], "envelope.speed_max"),
+        ("accel_lsb", env["accel_max"], "envelope.accel_max"),
+        ("angle_lsb", max(env["pitch_max"], env["roll_max"]), "the larger of pitch_max and roll_max"),
+        ("mass_lsb", s["payload"]["mass_max"], "payload.mass_max"),
+        ("speed_lsb", fr["deadband"], "friction.deadband"),
+    ]
     for key, span, what in steps:
         count = span / fw[key]
         if count > MAX_STEPS or (span > 0 and count < 1):
-            raise ModelError(src, f"firmware.{key}", f"a step that puts {what} between 1 and 2^30 steps",
-                             f"{_describe(raw['firmware'][key])} ({count:.3g} steps)")
+            raise ModelError(
+                src,
+                f"firmware.{key}",
+                f"a step that puts {what} between 1 and 2^30 steps",
+                f"{_describe(raw['firmware'][key])} ({count:.3g} steps)",
+            )
 
 
 def parse_document(doc: dict[str, Any], source: str) -> Vehicle:
@@ -278,7 +347,9 @@ def parse_document(doc: dict[str, Any], source: str) -> Vehicle:
     Vehicle; raises ModelError, one line naming the key."""
     for key in doc:
         if key != "name" and key not in SCHEMA:
-            raise ModelError(source, key, "a known section or 'name'", "an unknown key" + _suggest(key, ["name", *SCHEMA]))
+            raise ModelError(
+                source, key, "a known section or 'name'", "an unknown key" + _suggest(key, ["name", *SCHEMA])
+            )
     name = _read_name(source, doc)
     sections: dict[str, dict[str, Any]] = {}
     for section in SCHEMA:
@@ -286,8 +357,9 @@ def parse_document(doc: dict[str, Any], source: str) -> Vehicle:
             raise ModelError(source, section, f"a [{section}] section", "nothing (the section is required)")
         sections[section] = _read_section(source, section, doc[section])
     _cross_checks(source, sections, doc)
-    built = {sec: SECTION_TYPES[sec](**{SCHEMA[sec][key].field: val for key, val in sections[sec].items()})
-             for sec in SCHEMA}
+    built = {
+        sec: SECTION_TYPES[sec](**{SCHEMA[sec][key].field: val for key, val in sections[sec].items()}) for sec in SCHEMA
+    }
     vehicle = Vehicle(name=name, source=source, **built)
     stability.check(vehicle)
     return vehicle

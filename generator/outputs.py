@@ -69,11 +69,16 @@ def check_file(folder: Path, name: str, expected: str) -> FileStatus:
     exp_lines, got_lines = expected.split("\n"), found.split("\n")
     for i, (e, g) in enumerate(zip(exp_lines, got_lines), start=1):
         if e != g:
-            return FileStatus(name, False, f"{path}:{i}: stale or edited: expected {e.strip()[:60]!r}, "
-                                           f"found {g.strip()[:60]!r}")
+            return FileStatus(
+                name, False, f"{path}:{i}: stale or edited: expected {e.strip()[:60]!r}, found {g.strip()[:60]!r}"
+            )
     line = min(len(exp_lines), len(got_lines)) + 1
-    return FileStatus(name, False, f"{path}:{line}: stale or edited: the file is "
-                                   f"{'shorter' if len(got_lines) < len(exp_lines) else 'longer'} than a fresh build")
+    return FileStatus(
+        name,
+        False,
+        f"{path}:{line}: stale or edited: the file is "
+        f"{'shorter' if len(got_lines) < len(exp_lines) else 'longer'} than a fresh build",
+    )
 
 
 def report(fw: Firmware, acc: Accuracy, files: list[FileStatus]) -> dict[str, Any]:
@@ -90,16 +95,25 @@ def report(fw: Firmware, acc: Accuracy, files: list[FileStatus]) -> dict[str, An
         "rms_error": acc.total.rms,
         "worst_case": acc.where,
         "points": acc.points,
-        "split": {name: {"max": getattr(acc, name).max, "rms": getattr(acc, name).rms}
-                  for name in ("interpolation", "quantisation", "arithmetic")},
+        "split": {
+            name: {"max": getattr(acc, name).max, "rms": getattr(acc, name).rms}
+            for name in ("interpolation", "quantisation", "arithmetic")
+        },
         "clamping": {"max": acc.clamping.max, "rms": acc.clamping.rms},
         "input_resolution": acc.input_resolution,
         "forward": {"bound": fw.fwd_bound_mps2, "goal": fw.fwd_budget_mps2},
         "total_bytes": fw.total_bytes,
-        "tables": [{"name": n, "segments": [p.segments for p in t.pieces],
-                    "q_format": fx.q_name(t.spec.frac_bits, t.spec.bits), "bytes": t.bytes,
-                    "max_error": max(e.total for e in fw.errors[n]) * t.spec.si_scale, "unit": t.spec.si_unit}
-                   for n, t in fw.tables.items()],
+        "tables": [
+            {
+                "name": n,
+                "segments": [p.segments for p in t.pieces],
+                "q_format": fx.q_name(t.spec.frac_bits, t.spec.bits),
+                "bytes": t.bytes,
+                "max_error": max(e.total for e in fw.errors[n]) * t.spec.si_scale,
+                "unit": t.spec.si_unit,
+            }
+            for n, t in fw.tables.items()
+        ],
         "files": [{"name": s.name, "ok": s.ok, "detail": s.detail} for s in files],
     }
 
@@ -118,9 +132,14 @@ def junit(doc: dict[str, Any]) -> str:
     if "error" in doc:
         cases.append(("error budget", False, doc["error"]))
     else:
-        cases.append(("error budget", doc["bound"] <= doc["budget"],
-                      f"proven bound {doc['bound']:.6g} A, measured max {doc['max_error']:.6g} A, "
-                      f"budget {doc['budget']:.6g} A"))
+        cases.append(
+            (
+                "error budget",
+                doc["bound"] <= doc["budget"],
+                f"proven bound {doc['bound']:.6g} A, measured max {doc['max_error']:.6g} A, "
+                f"budget {doc['budget']:.6g} A",
+            )
+        )
     for name, ok, detail in cases:
         case = ET.SubElement(suite, "testcase", classname="kinetab", name=name)
         if not ok:

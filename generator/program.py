@@ -167,8 +167,10 @@ def limits_of(v: Vehicle) -> Limits:
         current=fx.steps_within(v.drive.current_limit_a, fw.current_lsb_a),
     )
     if lim.deadband >= lim.speed:
-        raise UserError(f"{v.source}: friction.deadband: expected at least one firmware.speed_lsb step below "
-                        f"envelope.speed_max, found {lim.deadband} steps for both")
+        raise UserError(
+            f"{v.source}: friction.deadband: expected at least one firmware.speed_lsb step below "
+            f"envelope.speed_max, found {lim.deadband} steps for both"
+        )
     return lim
 
 
@@ -269,10 +271,12 @@ def _speed_pieces(v: Vehicle, lim: Limits, scale: float) -> tuple[tb.Piece, tb.P
     def inside(x: np.ndarray) -> np.ndarray:
         return dynamics.deadband_inside(v, x * lsb)
 
-    fric_in = tb.Piece(0, lim.deadband, lambda x: dynamics.friction_force(v, x * lsb, inside(x)) * scale,
-                       "inside the deadband")
-    fric_out = tb.Piece(lim.deadband + 1, lim.speed, lambda x: dynamics.friction_force(v, x * lsb, 1.0) * scale,
-                        "outside the deadband")
+    fric_in = tb.Piece(
+        0, lim.deadband, lambda x: dynamics.friction_force(v, x * lsb, inside(x)) * scale, "inside the deadband"
+    )
+    fric_out = tb.Piece(
+        lim.deadband + 1, lim.speed, lambda x: dynamics.friction_force(v, x * lsb, 1.0) * scale, "outside the deadband"
+    )
     shape_in = tb.Piece(0, lim.deadband, inside, "inside the deadband")
     shape_out = tb.Piece(lim.deadband + 1, lim.speed, lambda x: np.ones(np.shape(x)), "outside the deadband")
     return fric_in, fric_out, shape_in, shape_out
@@ -302,20 +306,69 @@ def _payload_rows(v: Vehicle, lim: Limits, k: float) -> dict[str, _Row]:
 
     acc = "accumulator step"
     return {
-        "m11": _Row("payload", "none", P(lambda x: dynamics.mass_matrix_entries(v, kg(x))[0] * per_accel),
-                    f"{acc} per accel step", "mass matrix M11 = M22", 1 / per_accel, "kg"),
-        "m12": _Row("payload", "none", P(lambda x: dynamics.mass_matrix_entries(v, kg(x))[1] * per_accel),
-                    f"{acc} per accel step", "mass matrix M12 = M21", 1 / per_accel, "kg"),
-        "cor": _Row("payload", "none", P(lambda x: dynamics.coriolis_coefficient(v, kg(x)) * per_speed2),
-                    f"{acc} per speed step^2", "Coriolis coefficient m c / (4 b^2)", 1 / per_speed2, "kg/m"),
-        "grav_pitch": _Row("payload", "none", P(lambda x: dynamics.gravity_coefficients(v, kg(x))[0] * k),
-                           f"{acc} at sin = 1", "gravity m g / 2", 1 / k, "N"),
-        "grav_roll": _Row("payload", "none", P(lambda x: dynamics.gravity_coefficients(v, kg(x))[1] * k),
-                          f"{acc} at cos*sin = 1", "roll gravity m c g / (2 b)", 1 / k, "N"),
-        "roll_level": _Row("payload", "none", P(lambda x: dynamics.rolling_coefficients(v, kg(x))[0] * k),
-                           f"{acc} at cos*cos = 1", "rolling resistance on cos(pitch) cos(roll)", 1 / k, "N"),
-        "roll_slope": _Row("payload", "none", P(lambda x: dynamics.rolling_coefficients(v, kg(x))[1] * k),
-                           f"{acc} at sin = 1", "rolling-resistance load transfer on sin(pitch)", 1 / k, "N"),
+        "m11": _Row(
+            "payload",
+            "none",
+            P(lambda x: dynamics.mass_matrix_entries(v, kg(x))[0] * per_accel),
+            f"{acc} per accel step",
+            "mass matrix M11 = M22",
+            1 / per_accel,
+            "kg",
+        ),
+        "m12": _Row(
+            "payload",
+            "none",
+            P(lambda x: dynamics.mass_matrix_entries(v, kg(x))[1] * per_accel),
+            f"{acc} per accel step",
+            "mass matrix M12 = M21",
+            1 / per_accel,
+            "kg",
+        ),
+        "cor": _Row(
+            "payload",
+            "none",
+            P(lambda x: dynamics.coriolis_coefficient(v, kg(x)) * per_speed2),
+            f"{acc} per speed step^2",
+            "Coriolis coefficient m c / (4 b^2)",
+            1 / per_speed2,
+            "kg/m",
+        ),
+        "grav_pitch": _Row(
+            "payload",
+            "none",
+            P(lambda x: dynamics.gravity_coefficients(v, kg(x))[0] * k),
+            f"{acc} at sin = 1",
+            "gravity m g / 2",
+            1 / k,
+            "N",
+        ),
+        "grav_roll": _Row(
+            "payload",
+            "none",
+            P(lambda x: dynamics.gravity_coefficients(v, kg(x))[1] * k),
+            f"{acc} at cos*sin = 1",
+            "roll gravity m c g / (2 b)",
+            1 / k,
+            "N",
+        ),
+        "roll_level": _Row(
+            "payload",
+            "none",
+            P(lambda x: dynamics.rolling_coefficients(v, kg(x))[0] * k),
+            f"{acc} at cos*cos = 1",
+            "rolling resistance on cos(pitch) cos(roll)",
+            1 / k,
+            "N",
+        ),
+        "roll_slope": _Row(
+            "payload",
+            "none",
+            P(lambda x: dynamics.rolling_coefficients(v, kg(x))[1] * k),
+            f"{acc} at sin = 1",
+            "rolling-resistance load transfer on sin(pitch)",
+            1 / k,
+            "N",
+        ),
     }
 
 
@@ -323,10 +376,12 @@ def _angle_rows(v: Vehicle, lim: Limits) -> dict[str, _Row]:
     ang = v.firmware.angle_lsb_rad
     rows = {}
     for name, source, top in (("pitch", "pitch", lim.pitch), ("roll", "roll", lim.roll)):
-        rows[f"sin_{name}"] = _Row(source, "odd", (tb.Piece(0, top, lambda x: np.sin(x * ang)),), "1",
-                                   f"sin({name})", 1.0, "1")
-        rows[f"cos_{name}"] = _Row(source, "even", (tb.Piece(0, top, lambda x: np.cos(x * ang)),), "1",
-                                   f"cos({name})", 1.0, "1")
+        rows[f"sin_{name}"] = _Row(
+            source, "odd", (tb.Piece(0, top, lambda x: np.sin(x * ang)),), "1", f"sin({name})", 1.0, "1"
+        )
+        rows[f"cos_{name}"] = _Row(
+            source, "even", (tb.Piece(0, top, lambda x: np.cos(x * ang)),), "1", f"cos({name})", 1.0, "1"
+        )
     return {n: rows[n] for n in ("sin_pitch", "cos_pitch", "sin_roll", "cos_roll")}
 
 
@@ -343,20 +398,36 @@ def _specs(v: Vehicle, lim: Limits, acc_amps: float) -> dict[str, tb.TableSpec]:
     payload = _payload_rows(v, lim, k)
     rows = {n: payload[n] for n in ("m11", "m12", "cor", "grav_pitch", "grav_roll", "roll_level", "roll_slope")}
     rows |= _angle_rows(v, lim)
-    rows["friction"] = _Row("speed", "odd", (fric_in, fric_out), "accumulator step", "drivetrain friction F(u)",
-                            1 / k, "N")
-    rows["shape"] = _Row("speed", "odd", (shape_in, shape_out), "1",
-                         f"deadband shape s(u), {v.friction.deadband_shape}", 1.0, "1")
+    rows["friction"] = _Row(
+        "speed", "odd", (fric_in, fric_out), "accumulator step", "drivetrain friction F(u)", 1 / k, "N"
+    )
+    rows["shape"] = _Row(
+        "speed", "odd", (shape_in, shape_out), "1", f"deadband shape s(u), {v.friction.deadband_shape}", 1.0, "1"
+    )
     for entry in (0, 1):
-        rows[f"minv1{entry + 1}"] = _Row("payload", "none", (tb.Piece(0, lim.payload, minv(entry)),),
-                                         "accel step per accumulator step", f"inverse mass matrix entry 1{entry + 1}",
-                                         1 / inv, "1/kg")
-    return {name: tb.make_spec(name, r.source, r.symmetry, r.pieces, bits, r.unit, r.meaning, r.si_scale, r.si_unit)
-            for name, r in rows.items()}
+        rows[f"minv1{entry + 1}"] = _Row(
+            "payload",
+            "none",
+            (tb.Piece(0, lim.payload, minv(entry)),),
+            "accel step per accumulator step",
+            f"inverse mass matrix entry 1{entry + 1}",
+            1 / inv,
+            "1/kg",
+        )
+    return {
+        name: tb.make_spec(name, r.source, r.symmetry, r.pieces, bits, r.unit, r.meaning, r.si_scale, r.si_unit)
+        for name, r in rows.items()
+    }
 
 
-SIGNAL = {"speed": "speed", "accel": "accel", "current": "cur", "pitch": "pitch", "roll": "roll",
-          "payload": "payload"}  # member -> the program's signal name of its clamped value
+SIGNAL = {
+    "speed": "speed",
+    "accel": "accel",
+    "current": "cur",
+    "pitch": "pitch",
+    "roll": "roll",
+    "payload": "payload",
+}  # member -> the program's signal name of its clamped value
 
 
 def _clamps(bd: _Builder, lim: Limits, call: interface.Call, order: tuple[str, ...]) -> None:
@@ -375,9 +446,17 @@ def _common(bd: _Builder, lim: Limits, call: interface.Call, pair: str) -> None:
     lookups, gravity and the rolling-resistance level. `pair` is the other two-wheel input."""
     _clamps(bd, lim, call, ("pitch", "roll", "payload", "speed", pair))
     s = bd.specs
-    for name, src in (("sin_pitch", "pitch"), ("cos_pitch", "pitch"), ("sin_roll", "roll"), ("cos_roll", "roll"),
-                      ("cor", "payload"), ("grav_pitch", "payload"), ("grav_roll", "payload"),
-                      ("roll_level", "payload"), ("roll_slope", "payload")):
+    for name, src in (
+        ("sin_pitch", "pitch"),
+        ("cos_pitch", "pitch"),
+        ("sin_roll", "roll"),
+        ("cos_roll", "roll"),
+        ("cor", "payload"),
+        ("grav_pitch", "payload"),
+        ("grav_roll", "payload"),
+        ("roll_level", "payload"),
+        ("roll_slope", "payload"),
+    ):
         bd.lookup(f"t_{name}", name, src)
     bd.mul("g_pitch", "t_grav_pitch", "t_sin_pitch", s["grav_pitch"].frac_bits + s["sin_pitch"].frac_bits)
     bd.mul("cos_sin", "t_cos_pitch", "t_sin_roll", s["cos_pitch"].frac_bits)
@@ -399,8 +478,14 @@ def _passive(bd: _Builder, side: str, sign: int, other: str) -> str:
     bd.lookup(f"t_shape_{side}", "shape", u)
     bd.mul(f"fric_{side}", f"t_fric_{side}", 1, s["friction"].frac_bits)
     bd.mul(f"roll_{side}", "r_level", f"t_shape_{side}", s["shape"].frac_bits)
-    return bd.sum(f"passive_{side}", (sign, f"cor_{side}"), (1, f"fric_{side}"), (1, f"roll_{side}"),
-                  (1, "g_pitch"), (sign, "g_roll"))
+    return bd.sum(
+        f"passive_{side}",
+        (sign, f"cor_{side}"),
+        (1, f"fric_{side}"),
+        (1, f"roll_{side}"),
+        (1, "g_pitch"),
+        (sign, "g_roll"),
+    )
 
 
 def _feedforward(v: Vehicle, specs: dict[str, tb.TableSpec], lim: Limits, guard: int) -> Program:
@@ -414,8 +499,9 @@ def _feedforward(v: Vehicle, specs: dict[str, tb.TableSpec], lim: Limits, guard:
         bd.mul(f"in_self_{side}", "t_m11", f"accel_{side}", specs["m11"].frac_bits)
         bd.mul(f"in_other_{side}", "t_m12", f"accel_{other}", specs["m12"].frac_bits)
         bd.sum(f"total_{side}", (1, f"in_self_{side}"), (1, f"in_other_{side}"), (1, passive))
-        bd.backdrive(f"motor_{side}", f"total_{side}", f"speed_{side}",
-                     v.drive.efficiency * v.drive.backdrive_efficiency)
+        bd.backdrive(
+            f"motor_{side}", f"total_{side}", f"speed_{side}", v.drive.efficiency * v.drive.backdrive_efficiency
+        )
         bd.store("current", idx, f"motor_{side}", guard)
     return prog
 
@@ -429,8 +515,12 @@ def _forward(v: Vehicle, specs: dict[str, tb.TableSpec], lim: Limits, guard: int
     for side, sign, other in (("r", 1, "l"), ("l", -1, "r")):
         passive = _passive(bd, side, sign, other)
         bd.mul(f"cur_acc_{side}", f"cur_{side}", 1, -guard)
-        bd.backdrive(f"effort_{side}", f"cur_acc_{side}", f"speed_{side}",
-                     1 / (v.drive.efficiency * v.drive.backdrive_efficiency))
+        bd.backdrive(
+            f"effort_{side}",
+            f"cur_acc_{side}",
+            f"speed_{side}",
+            1 / (v.drive.efficiency * v.drive.backdrive_efficiency),
+        )
         bd.sum(f"net_{side}", (1, f"effort_{side}"), (-1, passive))
     for side, other, idx in (("r", "l", 0), ("l", "r", 1)):
         bd.mul(f"acc_self_{side}", "t_minv11", f"net_{side}", specs["minv11"].frac_bits - aguard)
@@ -453,8 +543,15 @@ def _peak_current_steps(v: Vehicle, lim: Limits) -> float:
     specs = _specs(v, lim, fw.current_lsb_a)
     mx = {n: s.max_abs for n, s in specs.items()}
     a, u = lim.accel, lim.speed
-    return (mx["m11"] + mx["m12"]) * a + mx["cor"] * 2 * u * u + mx["friction"] + mx["roll_level"] + mx["roll_slope"] \
-        + mx["grav_pitch"] + mx["grav_roll"]
+    return (
+        (mx["m11"] + mx["m12"]) * a
+        + mx["cor"] * 2 * u * u
+        + mx["friction"]
+        + mx["roll_level"]
+        + mx["roll_slope"]
+        + mx["grav_pitch"]
+        + mx["grav_roll"]
+    )
 
 
 def design(v: Vehicle) -> Design:
@@ -467,5 +564,13 @@ def design(v: Vehicle) -> Design:
     specs = _specs(v, lim, acc_amps)
     accel_peak = (specs["minv11"].max_abs + specs["minv12"].max_abs) * (peak + lim.current) * 2.0**guard * 2
     aguard = _guard_bits(accel_peak, top=8)
-    return Design(v, specs, _feedforward(v, specs, lim, guard), _forward(v, specs, lim, guard, aguard), lim,
-                  guard, aguard, acc_amps)
+    return Design(
+        v,
+        specs,
+        _feedforward(v, specs, lim, guard),
+        _forward(v, specs, lim, guard, aguard),
+        lim,
+        guard,
+        aguard,
+        acc_amps,
+    )

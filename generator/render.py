@@ -53,9 +53,15 @@ def _bytecode_cache() -> jinja2.BytecodeCache | None:
 
 def environment() -> jinja2.Environment:
     """The one template loader: strict (a missing variable is an error), no autoescape, LF kept."""
-    return jinja2.Environment(loader=jinja2.FileSystemLoader(str(template_dir())), undefined=jinja2.StrictUndefined,
-                              keep_trailing_newline=True, trim_blocks=True, lstrip_blocks=True, autoescape=False,
-                              bytecode_cache=_bytecode_cache())
+    return jinja2.Environment(
+        loader=jinja2.FileSystemLoader(str(template_dir())),
+        undefined=jinja2.StrictUndefined,
+        keep_trailing_newline=True,
+        trim_blocks=True,
+        lstrip_blocks=True,
+        autoescape=False,
+        bytecode_cache=_bytecode_cache(),
+    )
 
 
 def render_set(tset: TemplateSet, prefix: str, context: dict[str, Any]) -> dict[str, str]:

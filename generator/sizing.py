@@ -9,8 +9,8 @@ pieces would miss the budget (the bound grows with every table error, so this cu
 
 from __future__ import annotations
 
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
-from typing import Callable, Mapping
 
 import numpy as np
 
@@ -18,7 +18,6 @@ from . import analysis
 from . import tables as tb
 from .errors import CheckFailed
 from .program import Program
-
 
 Bound = Callable[[Mapping[str, object]], object]
 
@@ -47,8 +46,11 @@ class Sizing:
 
 
 def units_for(specs: Mapping[str, tb.TableSpec], names: list[str]) -> list[Unit]:
-    return [Unit(n, k, tb.piece_candidates(specs[n], p), specs[n].bits // 8)
-            for n in names for k, p in enumerate(specs[n].pieces)]
+    return [
+        Unit(n, k, tb.piece_candidates(specs[n], p), specs[n].bits // 8)
+        for n in names
+        for k, p in enumerate(specs[n].pieces)
+    ]
 
 
 def _merge(units: list[Unit], choice: list, fixed: Mapping[str, float]) -> dict[str, object]:
@@ -60,8 +62,7 @@ def _merge(units: list[Unit], choice: list, fixed: Mapping[str, float]) -> dict[
     return errs
 
 
-def search(bound: Bound, units: list[Unit], budget: float,
-           fixed: Mapping[str, float]) -> tuple[list[int] | None, int]:
+def search(bound: Bound, units: list[Unit], budget: float, fixed: Mapping[str, float]) -> tuple[list[int] | None, int]:
     """Branch and bound: the candidate index per unit with the fewest bytes and bound <= budget.
 
     Units whose largest size costs most are decided first: their choice moves the byte total most,
@@ -76,8 +77,7 @@ def search(bound: Bound, units: list[Unit], budget: float,
     return out, visited
 
 
-def _search(units: list[Unit], bound: Bound, budget: float,
-            fixed: Mapping[str, float]) -> tuple[list[int] | None, int]:
+def _search(units: list[Unit], bound: Bound, budget: float, fixed: Mapping[str, float]) -> tuple[list[int] | None, int]:
     best_err = [u.error(len(u.cands.segments) - 1) for u in units]
     lowest = _lowest_feasible(bound, units, budget, fixed, best_err)
     if lowest is None:
@@ -98,7 +98,7 @@ def _search(units: list[Unit], bound: Bound, budget: float,
             return
         u = units[k]
         errs = np.array([e.total for e in u.cands.errors])
-        trial = [units[j].error(c) for j, c in enumerate(choice)] + [errs] + best_err[k + 1:]
+        trial = [units[j].error(c) for j, c in enumerate(choice)] + [errs] + best_err[k + 1 :]
         bounds = bound(_merge(units, trial, fixed))
         bounds = np.broadcast_to(bounds, errs.shape)
         for c in range(lowest[k], len(errs)):
@@ -112,24 +112,23 @@ def _search(units: list[Unit], bound: Bound, budget: float,
     return best["choice"], visited  # type: ignore[return-value]
 
 
-def _lowest_feasible(bound: Bound, units: list[Unit], budget: float,
-                     fixed: Mapping[str, float], best_err: list[float]) -> list[int] | None:
+def _lowest_feasible(
+    bound: Bound, units: list[Unit], budget: float, fixed: Mapping[str, float], best_err: list[float]
+) -> list[int] | None:
     """Per unit, its cheapest candidate that meets the budget with every other unit most accurate:
     no cheaper candidate can be part of any answer."""
     out = []
     for k, u in enumerate(units):
         errs = np.array([e.total for e in u.cands.errors])
-        trial = best_err[:k] + [errs] + best_err[k + 1:]
-        ok = np.flatnonzero(np.broadcast_to(bound(_merge(units, trial, fixed)),
-                                            errs.shape) <= budget)
+        trial = best_err[:k] + [errs] + best_err[k + 1 :]
+        ok = np.flatnonzero(np.broadcast_to(bound(_merge(units, trial, fixed)), errs.shape) <= budget)
         if ok.size == 0:
             return None
         out.append(int(ok[0]))
     return out
 
 
-def _greedy(bound: Bound, units: list[Unit], budget: float,
-            fixed: Mapping[str, float]) -> list[int] | None:
+def _greedy(bound: Bound, units: list[Unit], budget: float, fixed: Mapping[str, float]) -> list[int] | None:
     """A good first answer for the search to beat: from most accurate, keep taking the downgrade
     that saves the most bytes while the bound still holds."""
     choice = [len(u.cands.segments) - 1 for u in units]
@@ -143,7 +142,7 @@ def _greedy(bound: Bound, units: list[Unit], budget: float,
         moves = []
         for j, u in enumerate(units):
             for c in range(choice[j]):
-                trial = choice[:j] + [c] + choice[j + 1:]
+                trial = choice[:j] + [c] + choice[j + 1 :]
                 if at(trial) <= budget:
                     moves.append((u.bytes(choice[j]) - u.bytes(c), j, c))
                     break  # the cheapest feasible downgrade of this unit
@@ -153,8 +152,7 @@ def _greedy(bound: Bound, units: list[Unit], budget: float,
         choice[j] = c
 
 
-def limiting_table(bound: Bound, units: list[Unit],
-                   fixed: Mapping[str, float]) -> tuple[float, str]:
+def limiting_table(bound: Bound, units: list[Unit], fixed: Mapping[str, float]) -> tuple[float, str]:
     """The bound with every piece at its most accurate size, and the table whose error costs most."""
     best = [u.error(len(u.cands.segments) - 1) for u in units]
     full = float(bound(_merge(units, best, fixed)))
@@ -167,9 +165,15 @@ def limiting_table(bound: Bound, units: list[Unit],
     return full, worst if full - floor > 1e-12 else "(arithmetic rounding)"
 
 
-def size(program: Program, specs: Mapping[str, tb.TableSpec], names: list[str], budget_steps: float,
-         fixed: Mapping[str, tb.Table] | None = None, fixed_errors: Mapping[str, tuple[tb.PieceError, ...]] | None = None,
-         what: str = "budget") -> Sizing:
+def size(
+    program: Program,
+    specs: Mapping[str, tb.TableSpec],
+    names: list[str],
+    budget_steps: float,
+    fixed: Mapping[str, tb.Table] | None = None,
+    fixed_errors: Mapping[str, tuple[tb.PieceError, ...]] | None = None,
+    what: str = "budget",
+) -> Sizing:
     """Size the named tables (others fixed) so the program's error bound stays within budget_steps."""
     fixed = dict(fixed or {})
     fixed_errors = dict(fixed_errors or {})
@@ -179,8 +183,10 @@ def size(program: Program, specs: Mapping[str, tb.TableSpec], names: list[str], 
     choice, visited = search(bound, units, budget_steps, fixed_max)
     if choice is None:
         achievable, table = limiting_table(bound, units, fixed_max)
-        raise CheckFailed(f"{what} cannot be met: the best achievable bound is {achievable:.4g} output steps "
-                          f"(limited by table '{table}') against a budget of {budget_steps:.4g} steps")
+        raise CheckFailed(
+            f"{what} cannot be met: the best achievable bound is {achievable:.4g} output steps "
+            f"(limited by table '{table}') against a budget of {budget_steps:.4g} steps"
+        )
     built: dict[str, list[tb.PieceData]] = {n: [] for n in names}
     errors: dict[str, list[tb.PieceError]] = {n: [] for n in names}
     for u, c in zip(units, choice):

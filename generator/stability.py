@@ -34,11 +34,19 @@ def check(v: Vehicle) -> None:
         bad = np.flatnonzero(values <= 0)
         if bad.size:
             k = bad[np.argmin(values[bad])]
-            raise ModelError(v.source, "envelope.pitch_max", "positive wheel and caster loads over the envelope",
-                             f"{what} {values[k]:.1f} N at payload {p[k]:g} kg, pitch {math.degrees(th[k]):+.2f} deg, "
-                             f"roll {math.degrees(ph[k]):+.2f} deg (the vehicle tips)")
+            raise ModelError(
+                v.source,
+                "envelope.pitch_max",
+                "positive wheel and caster loads over the envelope",
+                f"{what} {values[k]:.1f} N at payload {p[k]:g} kg, pitch {math.degrees(th[k]):+.2f} deg, "
+                f"roll {math.degrees(ph[k]):+.2f} deg (the vehicle tips)",
+            )
     bad = np.flatnonzero(side <= 0)
     if bad.size:
         k = bad[np.argmin(side[bad])]
-        raise ModelError(v.source, "envelope.roll_max", "a roll the vehicle can stand on sideways",
-                         f"centre of gravity outside the track at payload {p[k]:g} kg, roll {math.degrees(ph[k]):+.2f} deg")
+        raise ModelError(
+            v.source,
+            "envelope.roll_max",
+            "a roll the vehicle can stand on sideways",
+            f"centre of gravity outside the track at payload {p[k]:g} kg, roll {math.degrees(ph[k]):+.2f} deg",
+        )

@@ -38,14 +38,19 @@ class Firmware:
         return sum(t.bytes for t in self.tables.values())
 
     def __repr__(self) -> str:
-        return (f"Firmware({self.vehicle.name!r}, {self.total_bytes} bytes, bound {self.ff_bound_a:.4g} A, "
-                f"fingerprint 0x{self.fingerprint:08X})")
+        return (
+            f"Firmware({self.vehicle.name!r}, {self.total_bytes} bytes, bound {self.ff_bound_a:.4g} A, "
+            f"fingerprint 0x{self.fingerprint:08X})"
+        )
 
 
 def fingerprint(v: Vehicle) -> int:
     """32-bit hash of the normalised model and the generator version (stable across runs)."""
-    text = json.dumps({"model": v.normalised(), "generator": __version__, "format": FORMAT_VERSION},
-                      sort_keys=True, separators=(",", ":"))
+    text = json.dumps(
+        {"model": v.normalised(), "generator": __version__, "format": FORMAT_VERSION},
+        sort_keys=True,
+        separators=(",", ":"),
+    )
     return int(hashlib.sha256(text.encode()).hexdigest()[:8], 16)
 
 
@@ -71,15 +76,31 @@ def synthesise(v: Vehicle) -> Firmware:
         raise CheckFailed(f"{where}: {exc} of {fw.current_lsb_a:g} A (current_lsb)") from None
     fwd_budget = forward_budget(v)
     try:
-        fwd = sizing.size(des.forward, des.specs, ["minv11", "minv12"], fwd_budget / fw.accel_lsb_mps2,
-                          fixed=ff.tables, fixed_errors=ff.errors, what=f"forward dynamics {fwd_budget:.4g} m/s^2")
+        fwd = sizing.size(
+            des.forward,
+            des.specs,
+            ["minv11", "minv12"],
+            fwd_budget / fw.accel_lsb_mps2,
+            fixed=ff.tables,
+            fixed_errors=ff.errors,
+            what=f"forward dynamics {fwd_budget:.4g} m/s^2",
+        )
     except CheckFailed as exc:
         raise CheckFailed(f"{where}: {exc} of {fw.accel_lsb_mps2:g} m/s^2 (accel_lsb)") from None
     tables = {n: fwd.tables[n] for n in des.specs}
     errors = {n: fwd.errors[n] for n in des.specs}
-    return Firmware(v, des, tables, errors, analysis.prove(des.feedforward, tables),
-                    analysis.prove(des.forward, tables), ff.bound_steps * fw.current_lsb_a,
-                    fwd.bound_steps * fw.accel_lsb_mps2, fwd_budget, fingerprint(v))
+    return Firmware(
+        v,
+        des,
+        tables,
+        errors,
+        analysis.prove(des.feedforward, tables),
+        analysis.prove(des.forward, tables),
+        ff.bound_steps * fw.current_lsb_a,
+        fwd.bound_steps * fw.accel_lsb_mps2,
+        fwd_budget,
+        fingerprint(v),
+    )
 
 
 def firmware_inputs(v: Vehicle, op: dynamics.OperatingPoint) -> dict[str, np.ndarray]:

@@ -7,8 +7,8 @@ and a symmetry: odd and even tables store |x| only.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
-from typing import Callable
 
 import numpy as np
 
@@ -39,14 +39,14 @@ class TableSpec:
     """Everything about a table except its segment counts: those the sizing picks."""
 
     name: str
-    source: str          # the clamped input signal it is indexed by
-    symmetry: str        # "none", "odd" or "even"
+    source: str  # the clamped input signal it is indexed by
+    symmetry: str  # "none", "odd" or "even"
     pieces: tuple[Piece, ...]
     frac_bits: int
     bits: int
-    unit: str            # what one stored step means, for the C comment
-    meaning: str         # the model quantity it holds
-    max_abs: float       # largest |value| over the extended domain, target units
+    unit: str  # what one stored step means, for the C comment
+    meaning: str  # the model quantity it holds
+    max_abs: float  # largest |value| over the extended domain, target units
     si_scale: float = 1.0  # SI value = target value * si_scale
     si_unit: str = "1"
 
@@ -57,8 +57,8 @@ class TableSpec:
 
 @dataclass(frozen=True)
 class PieceData:
-    segments: int        # 0: one constant entry
-    shift: int           # log2 of the segment width in input steps
+    segments: int  # 0: one constant entry
+    shift: int  # log2 of the segment width in input steps
     entries: np.ndarray  # int64, segments + 1 entries (1 when constant)
     saturated: bool = False
 
@@ -86,8 +86,17 @@ def extended_end(piece: Piece) -> int:
     return piece.x0 + 2 * piece.span + 2
 
 
-def make_spec(name: str, source: str, symmetry: str, pieces: tuple[Piece, ...], bits: int, unit: str,
-              meaning: str, si_scale: float = 1.0, si_unit: str = "1") -> TableSpec:
+def make_spec(
+    name: str,
+    source: str,
+    symmetry: str,
+    pieces: tuple[Piece, ...],
+    bits: int,
+    unit: str,
+    meaning: str,
+    si_scale: float = 1.0,
+    si_unit: str = "1",
+) -> TableSpec:
     """Choose the Q format from the value range over every breakpoint any size could use."""
     peak, sampled = 0.0, False
     for p in pieces:
@@ -103,8 +112,9 @@ def make_spec(name: str, source: str, symmetry: str, pieces: tuple[Piece, ...], 
         peak = max(peak, float(np.max(np.abs(values))))
     if sampled:
         peak *= 1.01  # sampled: leave room for a peak between samples
-    return TableSpec(name, source, symmetry, pieces, fx.frac_bits_for(peak, bits), bits, unit, meaning, peak,
-                     si_scale, si_unit)
+    return TableSpec(
+        name, source, symmetry, pieces, fx.frac_bits_for(peak, bits), bits, unit, meaning, peak, si_scale, si_unit
+    )
 
 
 def shift_for(span: int, segments: int) -> int:
@@ -141,8 +151,10 @@ def build_piece(spec: TableSpec, piece: Piece, segments: int) -> PieceData:
     ints, sat = fx.quantise(values, spec.frac_bits, spec.bits)
     if sat.any():  # the Q format comes from the range, so this means the range estimate was wrong
         k = int(np.argmax(sat))
-        raise CheckFailed(f"table {spec.name}: value {values[k] * spec.si_scale:.6g} {spec.si_unit} at input "
-                          f"{int(xs[k])} does not fit {fx.q_name(spec.frac_bits, spec.bits)}")
+        raise CheckFailed(
+            f"table {spec.name}: value {values[k] * spec.si_scale:.6g} {spec.si_unit} at input "
+            f"{int(xs[k])} does not fit {fx.q_name(spec.frac_bits, spec.bits)}"
+        )
     return PieceData(segments, s, ints, False)
 
 
@@ -232,8 +244,9 @@ class PieceError:
     exhaustive: bool
 
 
-def piece_error(spec: TableSpec, piece: Piece, data: PieceData,
-                domain: tuple[np.ndarray, np.ndarray] | None = None) -> PieceError:
+def piece_error(
+    spec: TableSpec, piece: Piece, data: PieceData, domain: tuple[np.ndarray, np.ndarray] | None = None
+) -> PieceError:
     """Evaluate the bit-exact lookup against the function on every input (or a dense sample + margin).
 
     domain: the inputs and the function's values there, when the caller already has them."""

@@ -36,8 +36,14 @@ def _special_rows(lim: Any, lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
     dead[:, pay] = hi[pay] // 2
     big = np.iinfo(np.int32)
     alternate = np.arange(len(cols)) % 2 == 0
-    outside = np.stack([np.where(alternate, hi + 1, lo - 1), np.where(alternate, big.max, big.min),
-                        np.where(alternate, big.min, big.max), np.zeros(len(cols), dtype=np.int64)])
+    outside = np.stack(
+        [
+            np.where(alternate, hi + 1, lo - 1),
+            np.where(alternate, big.max, big.min),
+            np.where(alternate, big.min, big.max),
+            np.zeros(len(cols), dtype=np.int64),
+        ]
+    )
     outside[3, speed] = 2 * hi[speed]
     outside[3, pay] = -1
     return np.concatenate([dead, outside])
@@ -61,8 +67,9 @@ def feedforward_table(fw: Any, count: int = 10_000) -> np.ndarray:
     """Rows of inputs and expected outputs (the FF_OUT columns, then the clamp bits), int64."""
     inp = feedforward_inputs(fw.design.limits, count)
     out = emulate.run(fw.design.feedforward, fw.tables, inp)
-    return np.column_stack([interface.fields_to_rows(FF_IN, inp), interface.fields_to_rows(FF_OUT, out),
-                            out["clamped"]])
+    return np.column_stack(
+        [interface.fields_to_rows(FF_IN, inp), interface.fields_to_rows(FF_OUT, out), out["clamped"]]
+    )
 
 
 def header() -> tuple[str, ...]:
@@ -72,8 +79,10 @@ def header() -> tuple[str, ...]:
 
 def to_csv(fw: Any, rows: np.ndarray) -> str:
     buf = io.StringIO()
-    buf.write(f"# {fw.vehicle.name}_feedforward golden vectors, fingerprint 0x{fw.fingerprint:08X}; "
-              "firmware steps (see the header for units)\n")
+    buf.write(
+        f"# {fw.vehicle.name}_feedforward golden vectors, fingerprint 0x{fw.fingerprint:08X}; "
+        "firmware steps (see the header for units)\n"
+    )
     buf.write(",".join(header()) + "\n")
     for row in rows:
         buf.write(",".join(str(int(x)) for x in row) + "\n")

@@ -5,6 +5,7 @@ from __future__ import annotations
 from dataclasses import asdict, dataclass
 from typing import Any
 
+
 @dataclass(frozen=True)
 class Body:
     mass_kg: float
@@ -99,8 +100,13 @@ class Vehicle:
         return data
 
 
-
 SECTION_TYPES: dict[str, type] = {
-    "body": Body, "payload": Payload, "wheels": Wheels, "casters": Casters, "drive": Drive,
-    "friction": Friction, "envelope": Envelope, "firmware": Firmware,
+    "body": Body,
+    "payload": Payload,
+    "wheels": Wheels,
+    "casters": Casters,
+    "drive": Drive,
+    "friction": Friction,
+    "envelope": Envelope,
+    "firmware": Firmware,
 }

@@ -4,5 +4,9 @@ from __future__ import annotations
 
 
 def pytest_addoption(parser):
-    parser.addoption("--refresh-golden", action="store_true", default=False,
-                     help="rewrite tests/golden/ from the current generator instead of comparing")
+    parser.addoption(
+        "--refresh-golden",
+        action="store_true",
+        default=False,
+        help="rewrite tests/golden/ from the current generator instead of comparing",
+    )

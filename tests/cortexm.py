@@ -10,9 +10,9 @@ from __future__ import annotations
 import subprocess
 import sys
 from dataclasses import dataclass
+from pathlib import Path
 
 from kinetab.generator.hostc import STRICT
-from pathlib import Path
 
 TARGETS = {
     "cortex_m0plus": ["-target", "thumb-freestanding-eabi", "-mcpu=cortex_m0plus"],
@@ -33,9 +33,24 @@ def zig_available() -> bool:
 
 def compile_elf(sources: list[Path], target: str, entry: str, out: Path, extra: list[str] | None = None) -> Path:
     """One standalone ELF per entry function (-O2, sections garbage-collected)."""
-    cmd = [sys.executable, "-m", "ziglang", "cc", *TARGETS[target], *STRICT, "-O2", "-g", "-ffunction-sections",
-           "-fdata-sections", "-Wl,--gc-sections", f"-Wl,--entry={entry}", *(extra or []), *map(str, sources),
-           "-o", str(out)]
+    cmd = [
+        sys.executable,
+        "-m",
+        "ziglang",
+        "cc",
+        *TARGETS[target],
+        *STRICT,
+        "-O2",
+        "-g",
+        "-ffunction-sections",
+        "-fdata-sections",
+        "-Wl,--gc-sections",
+        f"-Wl,--entry={entry}",
+        *(extra or []),
+        *map(str, sources),
+        "-o",
+        str(out),
+    ]
     subprocess.run(cmd, check=True, capture_output=True, text=True)
     return out
 
@@ -76,8 +91,10 @@ class Machine:
         uc.mem_map(RAM, RAM_SIZE)
         m = cls(uc, entry)
         if count:
+
             def hook(_uc, _addr, _size, machine):
                 machine.count += 1
+
             uc.hook_add(UC_HOOK_CODE, hook, m, begin=lo, end=hi)
         return m
 

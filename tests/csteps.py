@@ -11,7 +11,6 @@ from pathlib import Path
 import jinja2
 import numpy as np
 import pytest
-
 from kinetab.generator import hostc, interface
 
 HARNESS = Path(__file__).parent / "c" / "harness.c.j2"
@@ -25,20 +24,32 @@ def _lvalues(st: interface.Struct) -> list[str]:
 
 def _call_view(call: interface.Call, prefix: str) -> dict[str, object]:
     ins, outs = _lvalues(call.inputs), _lvalues(call.outputs)
-    return {"name": call.name, "mode": MODES[call.name], "inputs": ins,
-            "in_type": call.inputs.c_type(prefix), "out_type": call.outputs.c_type(prefix),
-            "function": f"{prefix}_{call.name}", "scan": " ".join(["%ld"] * len(ins)),
-            "refs": ", ".join(f"&v[{k}]" for k in range(len(ins))),
-            "fmt": " ".join(["%ld"] * len(outs) + ["%lu"]),
-            "prints": ", ".join([f"(long)out.{o}" for o in outs] + ["(unsigned long)out.clamped"])}
+    return {
+        "name": call.name,
+        "mode": MODES[call.name],
+        "inputs": ins,
+        "in_type": call.inputs.c_type(prefix),
+        "out_type": call.outputs.c_type(prefix),
+        "function": f"{prefix}_{call.name}",
+        "scan": " ".join(["%ld"] * len(ins)),
+        "refs": ", ".join(f"&v[{k}]" for k in range(len(ins))),
+        "fmt": " ".join(["%ld"] * len(outs) + ["%lu"]),
+        "prints": ", ".join([f"(long)out.{o}" for o in outs] + ["(unsigned long)out.clamped"]),
+    }
 
 
 def harness_source(prefix: str) -> str:
     """The harness C for a vehicle prefix."""
-    tpl = jinja2.Template(HARNESS.read_text(), undefined=jinja2.StrictUndefined, trim_blocks=True,
-                          lstrip_blocks=True, keep_trailing_newline=True)
-    return tpl.render(header=interface.file_names(prefix)["ff_header"],
-                      calls=[_call_view(c, prefix) for c in interface.CALLS])
+    tpl = jinja2.Template(
+        HARNESS.read_text(),
+        undefined=jinja2.StrictUndefined,
+        trim_blocks=True,
+        lstrip_blocks=True,
+        keep_trailing_newline=True,
+    )
+    return tpl.render(
+        header=interface.file_names(prefix)["ff_header"], calls=[_call_view(c, prefix) for c in interface.CALLS]
+    )
 
 
 def write_files(folder: Path, files: dict[str, str]) -> Path:
@@ -52,8 +63,9 @@ def build_harness(folder: Path, prefix: str) -> Path:
     """Compile the harness with the generated feed-forward C of `prefix` in `folder` (strict flags)."""
     src = folder / "harness.c"
     src.write_text(harness_source(prefix))
-    return hostc.compile_c([src, folder / interface.file_names(prefix)["ff_source"]], folder / "harness",
-                           include=[folder])
+    return hostc.compile_c(
+        [src, folder / interface.file_names(prefix)["ff_source"]], folder / "harness", include=[folder]
+    )
 
 
 def run_harness(exe: Path, rows: np.ndarray, mode: str = "ff") -> np.ndarray:

@@ -2,17 +2,18 @@
 
 from __future__ import annotations
 
-from functools import lru_cache
+from functools import cache
 
 from kinetab.generator import model, render, synthesis
+
 from tests.helpers import DEMO_PATH
 
 
-@lru_cache(maxsize=None)
+@cache
 def demo_firmware() -> synthesis.Firmware:
     return synthesis.synthesise(model.load(DEMO_PATH))
 
 
-@lru_cache(maxsize=None)
+@cache
 def demo_files() -> dict[str, str]:
     return render.render(demo_firmware())

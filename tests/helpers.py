@@ -58,26 +58,51 @@ def random_doc(draw_float, shape: str = "ramp") -> dict[str, Any]:
     """
     doc = demo_doc()
     caster = draw_float(0.25, 0.8)
-    doc["body"].update(mass=f"{draw_float(8, 300)} kg", cog_ahead=f"{-draw_float(0.25, 0.6) * caster} m",
-                       cog_height=f"{draw_float(0.05, 0.4)} m", gyration_radius=f"{draw_float(0.05, 0.5)} m")
-    doc["payload"].update(mass_max=f"{draw_float(1, 300)} kg", cog_ahead=f"{-draw_float(0.25, 0.6) * caster} m",
-                          cog_height=f"{draw_float(0.05, 0.6)} m", gyration_radius=f"{draw_float(0.0, 0.5)} m")
-    doc["wheels"].update(track=f"{draw_float(0.3, 0.9)} m", diameter=f"{draw_float(0.06, 0.4)} m",
-                         inertia=f"{draw_float(0, 0.02)} kg*m^2", rolling_resistance=draw_float(0, 0.05),
-                         grip=draw_float(0.3, 1.2))
+    doc["body"].update(
+        mass=f"{draw_float(8, 300)} kg",
+        cog_ahead=f"{-draw_float(0.25, 0.6) * caster} m",
+        cog_height=f"{draw_float(0.05, 0.4)} m",
+        gyration_radius=f"{draw_float(0.05, 0.5)} m",
+    )
+    doc["payload"].update(
+        mass_max=f"{draw_float(1, 300)} kg",
+        cog_ahead=f"{-draw_float(0.25, 0.6) * caster} m",
+        cog_height=f"{draw_float(0.05, 0.6)} m",
+        gyration_radius=f"{draw_float(0.0, 0.5)} m",
+    )
+    doc["wheels"].update(
+        track=f"{draw_float(0.3, 0.9)} m",
+        diameter=f"{draw_float(0.06, 0.4)} m",
+        inertia=f"{draw_float(0, 0.02)} kg*m^2",
+        rolling_resistance=draw_float(0, 0.05),
+        grip=draw_float(0.3, 1.2),
+    )
     doc["casters"].update(behind_axle=f"{caster} m", rolling_resistance=draw_float(0, 0.05))
     eff = draw_float(0.5, 1.0)
-    doc["drive"].update(gear_ratio=draw_float(3, 60), efficiency=eff, backdrive_efficiency=draw_float(0.4, 1.0),
-                        rotor_inertia=f"{draw_float(0, 1e-4)} kg*m^2",
-                        torque_constant=f"{draw_float(0.01, 0.5)} N*m/A",
-                        winding_resistance=f"{draw_float(0.05, 3)} ohm")
+    doc["drive"].update(
+        gear_ratio=draw_float(3, 60),
+        efficiency=eff,
+        backdrive_efficiency=draw_float(0.4, 1.0),
+        rotor_inertia=f"{draw_float(0, 1e-4)} kg*m^2",
+        torque_constant=f"{draw_float(0.01, 0.5)} N*m/A",
+        winding_resistance=f"{draw_float(0.05, 3)} ohm",
+    )
     coulomb = draw_float(0, 20)
     speed_max = draw_float(0.3, 3.0)
-    doc["friction"].update(coulomb=f"{coulomb} N", breakaway=f"{coulomb + draw_float(0, 10)} N",
-                           stribeck_speed=f"{draw_float(0.002, 0.2)} m/s", viscous=f"{draw_float(0, 10)} N*s/m",
-                           deadband=f"{draw_float(0.003, 0.1) * speed_max} m/s", deadband_shape=shape)
-    doc["envelope"].update(speed_max=f"{speed_max} m/s", accel_max=f"{draw_float(0.1, 3)} m/s^2",
-                           pitch_max=f"{draw_float(0, 8)} deg", roll_max=f"{draw_float(0, 5)} deg")
+    doc["friction"].update(
+        coulomb=f"{coulomb} N",
+        breakaway=f"{coulomb + draw_float(0, 10)} N",
+        stribeck_speed=f"{draw_float(0.002, 0.2)} m/s",
+        viscous=f"{draw_float(0, 10)} N*s/m",
+        deadband=f"{draw_float(0.003, 0.1) * speed_max} m/s",
+        deadband_shape=shape,
+    )
+    doc["envelope"].update(
+        speed_max=f"{speed_max} m/s",
+        accel_max=f"{draw_float(0.1, 3)} m/s^2",
+        pitch_max=f"{draw_float(0, 8)} deg",
+        roll_max=f"{draw_float(0, 5)} deg",
+    )
     return doc
 
 
@@ -87,7 +112,6 @@ def random_firmware_strategy(name: str = "veh"):
     Models whose budget cannot be met or that tip are rejected (assume), so only valid ones count."""
     from hypothesis import assume
     from hypothesis import strategies as st
-
     from kinetab.generator import stability, synthesis
     from kinetab.generator.errors import CheckFailed, ModelError
 

@@ -6,8 +6,8 @@ import json
 import xml.etree.ElementTree as ET
 
 import pytest
-
 from kinetab.generator import cli
+
 from tests.helpers import DEMO_PATH, demo_doc, write_model
 
 
@@ -55,7 +55,7 @@ def test_verify_tampered_table(built, tmp_path, capsys):
     text = src.read_text()
     start = text.index("larkspur_tab_friction_1[")
     line_start = text.index("\n", text.index("{", start)) + 1
-    first = text[line_start:text.index(",", line_start)].strip()
+    first = text[line_start : text.index(",", line_start)].strip()
     src.write_text(text[:line_start] + text[line_start:].replace(first, str(int(first) + 1), 1))
     jun = tmp_path / "j.xml"
     code, _, err = run(["verify", str(DEMO_PATH), str(built), "--junit", str(jun)], capsys)
@@ -101,8 +101,27 @@ def test_bad_model_writes_nothing(tmp_path, capsys):
 
 
 def test_predict_current_fixed_within_budget(capsys):
-    cli.main(["predict", str(DEMO_PATH), "--payload", "24 kg", "--speed-right", "0.35", "--speed-left", "0.1",
-              "--accel-right", "0.2", "--accel-left", "-0.1", "--pitch", "0.05 rad", "--roll", "0.01 rad", "--json"])
+    cli.main(
+        [
+            "predict",
+            str(DEMO_PATH),
+            "--payload",
+            "24 kg",
+            "--speed-right",
+            "0.35",
+            "--speed-left",
+            "0.1",
+            "--accel-right",
+            "0.2",
+            "--accel-left",
+            "-0.1",
+            "--pitch",
+            "0.05 rad",
+            "--roll",
+            "0.01 rad",
+            "--json",
+        ]
+    )
     doc = json.loads(capsys.readouterr().out)
     for side in ("right", "left"):
         assert abs(doc[side]["current_fixed"] - doc[side]["current"]) <= 0.02

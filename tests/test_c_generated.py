@@ -8,12 +8,13 @@ import subprocess
 import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings
-
 from kinetab.generator import accuracy, emulate, hostc, interface, model, render, synthesis, vectors
+
 from tests import cortexm
 from tests.csteps import build_harness, needs_gcc, run_harness, write_files
 from tests.firmware_fixtures import demo_files, demo_firmware
 from tests.helpers import demo_doc, random_firmware_strategy, vehicle_from
+
 
 @pytest.fixture(scope="module")
 def demo_dir(tmp_path_factory):
@@ -23,9 +24,25 @@ def demo_dir(tmp_path_factory):
 @needs_gcc
 def test_strict_host_compile_and_cxx_header(demo_dir):
     hostc.compile_c([demo_dir / "larkspur_ff.c"], demo_dir / "a.o", extra=["-c"])
-    subprocess.run(["g++", "-x", "c++", "-std=c++11", "-Wall", "-Wextra", "-Wpedantic", "-Wconversion",
-                    "-Wsign-conversion", "-Werror", "-fsyntax-only", str(demo_dir / "larkspur_ff.h")],
-                   check=True, capture_output=True, text=True)
+    subprocess.run(
+        [
+            "g++",
+            "-x",
+            "c++",
+            "-std=c++11",
+            "-Wall",
+            "-Wextra",
+            "-Wpedantic",
+            "-Wconversion",
+            "-Wsign-conversion",
+            "-Werror",
+            "-fsyntax-only",
+            str(demo_dir / "larkspur_ff.h"),
+        ],
+        check=True,
+        capture_output=True,
+        text=True,
+    )
 
 
 def test_generated_c_contract(demo_dir):
@@ -34,14 +51,22 @@ def test_generated_c_contract(demo_dir):
     c = (demo_dir / "larkspur_ff.c").read_text()
     assert "#ifndef LARKSPUR_FF_H" in h and 'extern "C"' in h and "#include <stdint.h>" in h
     assert "typedef struct { int32_t speed[2]" not in h  # laid out one field per line, same members:
-    for member in ("int32_t speed[2];", "int32_t accel[2];", "int32_t pitch;", "int32_t roll;", "int32_t payload;",
-                   "int32_t current[2];", "uint32_t clamped;"):
+    for member in (
+        "int32_t speed[2];",
+        "int32_t accel[2];",
+        "int32_t pitch;",
+        "int32_t roll;",
+        "int32_t payload;",
+        "int32_t current[2];",
+        "uint32_t clamped;",
+    ):
         assert member in h
     assert "enum { LARKSPUR_RIGHT = 0, LARKSPUR_LEFT = 1 };" in h
     assert "void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out);" in h
     assert "#define LARKSPUR_FINGERPRINT 0x" in h
-    code = "\n".join(line for line in c.splitlines()
-                     if not line.lstrip().startswith(("/*", "*")) and "sizeof(" not in line)  # static size checks
+    code = "\n".join(
+        line for line in c.splitlines() if not line.lstrip().startswith(("/*", "*")) and "sizeof(" not in line
+    )  # static size checks
     for banned in ("float", "double", "malloc", " / ", "#include <math.h>", "for (", "while ("):
         assert banned not in code, banned
     assert c.count("#include") == 1 and "\r" not in c + h
@@ -92,8 +117,11 @@ def test_cortex_m_same_integers_as_host(demo_dir, target, tmp_path):
 
 @needs_gcc
 @pytest.mark.slow
-@settings(max_examples=6, deadline=None, suppress_health_check=[HealthCheck.too_slow, HealthCheck.filter_too_much,
-                                                              HealthCheck.function_scoped_fixture])
+@settings(
+    max_examples=6,
+    deadline=None,
+    suppress_health_check=[HealthCheck.too_slow, HealthCheck.filter_too_much, HealthCheck.function_scoped_fixture],
+)
 @given(fw=random_firmware_strategy())
 def test_compiled_c_within_budget_of_float_model_on_random_models(fw, tmp_path_factory):
     folder = write_files(tmp_path_factory.mktemp("rand_c"), render.render(fw))

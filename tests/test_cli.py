@@ -7,8 +7,8 @@ import math
 
 import numpy as np
 import pytest
-
 from kinetab.generator import cli, dynamics, model
+
 from tests.helpers import DEMO_PATH, demo_doc, write_model
 
 
@@ -43,9 +43,26 @@ def test_init_writes_loadable_model_and_refuses_overwrite(tmp_path, capsys):
 
 
 def test_predict_json_shape_and_values(capsys):
-    out = run_ok(["predict", str(DEMO_PATH), "--payload", "30 kg", "--speed-right", "50 cm/s",
-                  "--speed-left", "0.4", "--accel-right", "0.3 m/s^2", "--pitch", "3 deg", "--roll", "0.02 rad",
-                  "--json"], capsys)
+    out = run_ok(
+        [
+            "predict",
+            str(DEMO_PATH),
+            "--payload",
+            "30 kg",
+            "--speed-right",
+            "50 cm/s",
+            "--speed-left",
+            "0.4",
+            "--accel-right",
+            "0.3 m/s^2",
+            "--pitch",
+            "3 deg",
+            "--roll",
+            "0.02 rad",
+            "--json",
+        ],
+        capsys,
+    )
     doc = json.loads(out)
     assert set(doc) == {"mass_matrix", "inverse_mass_matrix", "right", "left"}
     for side in ("right", "left"):
@@ -94,13 +111,18 @@ def test_envelope_hold_pitch_by_hand():
     from kinetab.generator import envelope
 
     doc = demo_doc()
-    doc["wheels"]["grip"] = 2.0           # traction no limit
+    doc["wheels"]["grip"] = 2.0  # traction no limit
     doc["drive"]["current_limit"] = "4 A"  # the current binds first
     doc["envelope"]["roll_max"] = "0 deg"
     doc["body"]["cog_ahead"] = "-100 mm"  # no tipping before the current limit
     doc["payload"]["cog_ahead"] = "-100 mm"
     v = model.parse_document(doc, "<t>")
     row = envelope.payload_row(v, 0.0)
-    force = v.drive.current_limit_a * v.drive.torque_constant_nm_per_a * v.drive.gear_ratio * v.drive.efficiency / (
-        v.wheels.diameter_m / 2)
+    force = (
+        v.drive.current_limit_a
+        * v.drive.torque_constant_nm_per_a
+        * v.drive.gear_ratio
+        * v.drive.efficiency
+        / (v.wheels.diameter_m / 2)
+    )
     assert row.hold_pitch_rad == pytest.approx(math.asin(2 * force / (38.0 * 9.80665)), rel=1e-6)

@@ -11,10 +11,10 @@ import numpy as np
 import pytest
 from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
-
 from kinetab.generator import dynamics, stability
 from kinetab.generator.dynamics import OperatingPoint
 from kinetab.generator.errors import ModelError
+
 from tests.helpers import demo_doc, random_doc, vehicle_from
 
 SETTINGS = settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
@@ -36,10 +36,15 @@ def vehicles(draw, shape=None):
 def points(draw, v):
     f = lambda lo, hi: draw(st.floats(lo, hi, allow_nan=False))  # noqa: E731
     env = v.envelope
-    return OperatingPoint(f(0, v.payload.mass_max_kg), f(-env.speed_max_mps, env.speed_max_mps),
-                          f(-env.speed_max_mps, env.speed_max_mps), f(-env.accel_max_mps2, env.accel_max_mps2),
-                          f(-env.accel_max_mps2, env.accel_max_mps2), f(-env.pitch_max_rad, env.pitch_max_rad),
-                          f(-env.roll_max_rad, env.roll_max_rad))
+    return OperatingPoint(
+        f(0, v.payload.mass_max_kg),
+        f(-env.speed_max_mps, env.speed_max_mps),
+        f(-env.speed_max_mps, env.speed_max_mps),
+        f(-env.accel_max_mps2, env.accel_max_mps2),
+        f(-env.accel_max_mps2, env.accel_max_mps2),
+        f(-env.pitch_max_rad, env.pitch_max_rad),
+        f(-env.roll_max_rad, env.roll_max_rad),
+    )
 
 
 @SETTINGS

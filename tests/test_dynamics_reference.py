@@ -8,10 +8,10 @@ import math
 import numpy as np
 import pytest
 import sympy as sp
-from sympy.physics import mechanics as me
-
 from kinetab.generator import dynamics, model, units
 from kinetab.generator.dynamics import OperatingPoint
+from sympy.physics import mechanics as me
+
 from tests.helpers import demo_doc, vehicle_from
 
 
@@ -32,8 +32,12 @@ def _vehicle(**changes):
 def test_alpha_one_gives_half_mass_per_wheel():
     """alpha = I_P/(m b^2) = 1 => M = (m/2) I: a rule of thumb of the trade (common practice, no source)."""
     # Empty vehicle with its CoG on P: I_P = m r_b^2, so r_b = b gives alpha = 1.
-    v = _vehicle(body__cog_ahead="0 m", body__gyration_radius="210 mm", wheels__inertia="0 kg*m^2",
-                 drive__rotor_inertia="0 kg*m^2")
+    v = _vehicle(
+        body__cog_ahead="0 m",
+        body__gyration_radius="210 mm",
+        wheels__inertia="0 kg*m^2",
+        drive__rotor_inertia="0 kg*m^2",
+    )
     m = dynamics.mass_matrix(v, 0.0)
     assert m == pytest.approx(np.array([[19.0, 0.0], [0.0, 19.0]]), rel=1e-12, abs=1e-12)
 
@@ -55,8 +59,11 @@ def kane():
     origin.set_vel(n, 0)
     pivot = origin.locatenew("P", x * n.x + y * n.y)
     vel, omega = (u1 + u2) / 2, (u1 - u2) / (2 * b)
-    kd = [x.diff() - (vel * sp.cos(psi) - u3 * sp.sin(psi)), y.diff() - (vel * sp.sin(psi) + u3 * sp.cos(psi)),
-          psi.diff() - omega]
+    kd = [
+        x.diff() - (vel * sp.cos(psi) - u3 * sp.sin(psi)),
+        y.diff() - (vel * sp.sin(psi) + u3 * sp.cos(psi)),
+        psi.diff() - omega,
+    ]
     pivot.set_vel(n, vel * frame.x + u3 * frame.y)
     frame.set_ang_vel(n, omega * n.z)
     parts, loads = [], []
@@ -74,8 +81,7 @@ def kane():
         parts.append(me.RigidBody("w" + label, pivot, wheel, 0, (me.inertia(frame, 0, jw, 0), pivot)))
         parts.append(me.RigidBody("m" + label, pivot, rotor, 0, (me.inertia(frame, 0, jm, 0), pivot)))
         loads.append((wheel, force * r * frame.y))
-    km = me.KanesMethod(n, q_ind=[x, y, psi], u_ind=[u1, u2], u_dependent=[u3], kd_eqs=kd,
-                        velocity_constraints=[u3])
+    km = me.KanesMethod(n, q_ind=[x, y, psi], u_ind=[u1, u2], u_dependent=[u3], kd_eqs=kd, velocity_constraints=[u3])
     km.kanes_equations(parts, loads)
     # u3 = 0 at all times, so only the upper-left 2x2 block and the first two forcing rows matter.
     mass = km.mass_matrix[:2, :2]
@@ -84,13 +90,19 @@ def kane():
 
 
 def _random_vehicle(rng):
-    return _vehicle(body__mass=f"{rng.uniform(10, 200)} kg", body__cog_ahead=f"{rng.uniform(-0.3, 0.3)} m",
-                    body__gyration_radius=f"{rng.uniform(0.05, 0.5)} m",
-                    payload__mass_max=f"{rng.uniform(1, 200)} kg", payload__cog_ahead=f"{rng.uniform(-0.3, 0.3)} m",
-                    payload__gyration_radius=f"{rng.uniform(0.0, 0.5)} m",
-                    wheels__track=f"{rng.uniform(0.25, 0.8)} m", wheels__diameter=f"{rng.uniform(0.05, 0.4)} m",
-                    wheels__inertia=f"{rng.uniform(0, 0.05)} kg*m^2", drive__gear_ratio=rng.uniform(1, 60),
-                    drive__rotor_inertia=f"{rng.uniform(0, 1e-4)} kg*m^2")
+    return _vehicle(
+        body__mass=f"{rng.uniform(10, 200)} kg",
+        body__cog_ahead=f"{rng.uniform(-0.3, 0.3)} m",
+        body__gyration_radius=f"{rng.uniform(0.05, 0.5)} m",
+        payload__mass_max=f"{rng.uniform(1, 200)} kg",
+        payload__cog_ahead=f"{rng.uniform(-0.3, 0.3)} m",
+        payload__gyration_radius=f"{rng.uniform(0.0, 0.5)} m",
+        wheels__track=f"{rng.uniform(0.25, 0.8)} m",
+        wheels__diameter=f"{rng.uniform(0.05, 0.4)} m",
+        wheels__inertia=f"{rng.uniform(0, 0.05)} kg*m^2",
+        drive__gear_ratio=rng.uniform(1, 60),
+        drive__rotor_inertia=f"{rng.uniform(0, 1e-4)} kg*m^2",
+    )
 
 
 @pytest.mark.parametrize("seed", range(5))
@@ -102,10 +114,26 @@ def test_closed_forms_match_kane_derivation(kane, seed):
     p = rng.uniform(0, v.payload.mass_max_kg)
     sr, sl = rng.uniform(-2, 2, 2)
     pitch, roll = rng.uniform(-0.5, 0.5, 2)
-    subs = {mb: v.body.mass_kg, mp: p, cb: v.body.cog_ahead_m, cp: v.payload.cog_ahead_m,
-            rb: v.body.gyration_radius_m, rp: v.payload.gyration_radius_m, b: v.wheels.track_m / 2,
-            r: v.wheels.diameter_m / 2, jw: v.wheels.inertia_kgm2, jm: v.drive.rotor_inertia_kgm2,
-            i: v.drive.gear_ratio, g: 9.80665, th: pitch, ph: roll, qr: 0, ql: 0, u1: sr, u2: sl}
+    subs = {
+        mb: v.body.mass_kg,
+        mp: p,
+        cb: v.body.cog_ahead_m,
+        cp: v.payload.cog_ahead_m,
+        rb: v.body.gyration_radius_m,
+        rp: v.payload.gyration_radius_m,
+        b: v.wheels.track_m / 2,
+        r: v.wheels.diameter_m / 2,
+        jw: v.wheels.inertia_kgm2,
+        jm: v.drive.rotor_inertia_kgm2,
+        i: v.drive.gear_ratio,
+        g: 9.80665,
+        th: pitch,
+        ph: roll,
+        qr: 0,
+        ql: 0,
+        u1: sr,
+        u2: sl,
+    }
     m_ref = np.array(mass.subs(subs).evalf(30), dtype=float)
     f_ref = np.array(forcing.subs(subs).evalf(30), dtype=float).ravel()  # = -(V + G) with Q = 0
     assert dynamics.mass_matrix(v, p) == pytest.approx(m_ref, rel=1e-9)
@@ -190,7 +218,8 @@ def test_standard_gravity():
 def test_torque_constant_equals_back_emf_constant_in_si():
     """k_t [N*m/A] = k_e [V*s/rad]; k_e = 60/(2 pi Kv) from a speed constant in rpm/V (motor-constant relations)."""
     assert units.parse("0.058 N*m/A", units.TORQUE_CONSTANT) == pytest.approx(
-        units.parse("0.058 V*s/rad", units.TORQUE_CONSTANT), rel=1e-15)
+        units.parse("0.058 V*s/rad", units.TORQUE_CONSTANT), rel=1e-15
+    )
     kv_rpm_per_v = 165.0
     ke = 60 / (2 * math.pi * kv_rpm_per_v)
     doc = demo_doc()
@@ -210,14 +239,21 @@ def test_reflected_inertia_matches_drive_engineering_formula():
     assert dynamics.reflected_mass(v) == pytest.approx(mass_equivalent, rel=2e-4)  # 91.2 = (60/2pi)^2 rounded
     exact = (60 / (2 * math.pi)) ** 2
     assert dynamics.reflected_mass(v) == pytest.approx(
-        v.drive.rotor_inertia_kgm2 * motor_rpm**2 / (exact * speed**2), rel=1e-12)
+        v.drive.rotor_inertia_kgm2 * motor_rpm**2 / (exact * speed**2), rel=1e-12
+    )
 
 
 def test_stribeck_check_values_canudas_de_wit_1995():
     """Table I of Canudas de Wit et al. (1995): F_C 1 N, F_S 1.5 N, v_s 1 mm/s, sigma_2 0.4 N*s/m."""
-    v = _vehicle(friction__coulomb="1 N", friction__breakaway="1.5 N", friction__stribeck_speed="0.001 m/s",
-                 friction__viscous="0.4 N*s/m", friction__deadband="1e-8 m/s", friction__deadband_shape="gap",
-                 firmware__speed_lsb="1e-9 m/s")
+    v = _vehicle(
+        friction__coulomb="1 N",
+        friction__breakaway="1.5 N",
+        friction__stribeck_speed="0.001 m/s",
+        friction__viscous="0.4 N*s/m",
+        friction__deadband="1e-8 m/s",
+        friction__deadband_shape="gap",
+        firmware__speed_lsb="1e-9 m/s",
+    )
     assert float(dynamics.drivetrain_friction(v, 1.0001e-8)) == pytest.approx(1.5, abs=1e-5)  # F(0+)
     assert float(dynamics.drivetrain_friction(v, 0.001)) == pytest.approx(1.18434, abs=5e-6)
     assert float(dynamics.drivetrain_friction(v, -0.001)) == pytest.approx(-1.18434, abs=5e-6)

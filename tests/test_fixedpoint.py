@@ -7,18 +7,22 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
-
 from kinetab.generator import emulate
 from kinetab.generator import fixedpoint as fx
 from kinetab.generator import tables as tb
+
 from tests.firmware_fixtures import demo_firmware
 
 
 def _apy_quantise(value: float, frac_bits: int, bits: int) -> int:
     """Round to nearest, ties toward +inf (QuantizationMode.TIES_POS), saturate (OverflowMode.SAT)."""
     wide = apy.APyFixed.from_float(value, int_bits=80, frac_bits=90)
-    out = wide.cast(int_bits=bits - frac_bits, frac_bits=frac_bits, quantization=apy.QuantizationMode.TIES_POS,
-                    overflow=apy.OverflowMode.SAT)
+    out = wide.cast(
+        int_bits=bits - frac_bits,
+        frac_bits=frac_bits,
+        quantization=apy.QuantizationMode.TIES_POS,
+        overflow=apy.OverflowMode.SAT,
+    )
     return int(float(out) * 2.0**frac_bits)
 
 
@@ -50,7 +54,7 @@ def test_q_format_keeps_the_largest_value_inside_the_word():
     """Q notation (TI): Qm.n leaves the sign bit out of m; Q15 = 16-bit word (REFERENCES.md)."""
     assert fx.q_name(15, 16) == "Q0.15"
     assert fx.frac_bits_for(0.99, 16) == 15
-    assert fx.frac_bits_for(1.0, 16) == 14       # 1.0 * 2^15 = 32768 does not fit
+    assert fx.frac_bits_for(1.0, 16) == 14  # 1.0 * 2^15 = 32768 does not fit
     n = fx.frac_bits_for(123.4, 16)
     assert 123.4 * 2**n <= 32767 < 123.4 * 2 ** (n + 1)
 
@@ -60,11 +64,20 @@ def test_clamping_follows_the_cmsis_dsp_convention():
     and set the input's bit in `clamped`."""
     fw = demo_firmware()
     lim = fw.design.limits
-    edge = {"speed": np.array([[lim.speed, -lim.speed]]), "accel": np.array([[lim.accel, -lim.accel]]),
-            "pitch": np.array([lim.pitch]), "roll": np.array([-lim.roll]), "payload": np.array([lim.payload])}
-    beyond = {"speed": np.array([[lim.speed + 7, -(2**31)]]), "accel": np.array([[2**31 - 1, -lim.accel - 1]]),
-              "pitch": np.array([lim.pitch + 1]), "roll": np.array([-lim.roll - 100]),
-              "payload": np.array([lim.payload + 5])}
+    edge = {
+        "speed": np.array([[lim.speed, -lim.speed]]),
+        "accel": np.array([[lim.accel, -lim.accel]]),
+        "pitch": np.array([lim.pitch]),
+        "roll": np.array([-lim.roll]),
+        "payload": np.array([lim.payload]),
+    }
+    beyond = {
+        "speed": np.array([[lim.speed + 7, -(2**31)]]),
+        "accel": np.array([[2**31 - 1, -lim.accel - 1]]),
+        "pitch": np.array([lim.pitch + 1]),
+        "roll": np.array([-lim.roll - 100]),
+        "payload": np.array([lim.payload + 5]),
+    }
     a = emulate.run(fw.design.feedforward, fw.tables, edge)
     b = emulate.run(fw.design.feedforward, fw.tables, beyond)
     assert a["current"].tolist() == b["current"].tolist()
@@ -129,6 +142,6 @@ def test_constant_piece_error_is_half_the_range():
 
 
 def test_q_name_outside_q_notation():
-    assert fx.q_name(-14, 16) == "int16 x 2^14"     # large values: step of 2^14
-    assert fx.q_name(17, 16) == "int16 x 2^-17"     # values below 0.25: all bits fractional and more
+    assert fx.q_name(-14, 16) == "int16 x 2^14"  # large values: step of 2^14
+    assert fx.q_name(17, 16) == "int16 x 2^-17"  # values below 0.25: all bits fractional and more
     assert fx.q_name(30, 32) == "Q1.30"

@@ -11,10 +11,10 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-
 from kinetab.generator import accuracy, interface, vectors
-from tests.firmware_fixtures import demo_files, demo_firmware
+
 from tests.csteps import build_harness, needs_gcc, run_harness
+from tests.firmware_fixtures import demo_files, demo_firmware
 
 GOLDEN = Path(__file__).parent / "golden"
 

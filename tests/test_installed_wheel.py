@@ -18,20 +18,35 @@ ROOT = Path(__file__).resolve().parents[1]
 def installed(tmp_path_factory):
     """Build the wheel from the source tree and install it, without deps, into a private target dir."""
     work = tmp_path_factory.mktemp("wheel")
-    subprocess.run([sys.executable, "-m", "pip", "wheel", "--no-deps", "--no-build-isolation", "-q",
-                    "-w", str(work / "dist"), str(ROOT)], check=True)
+    subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "pip",
+            "wheel",
+            "--no-deps",
+            "--no-build-isolation",
+            "-q",
+            "-w",
+            str(work / "dist"),
+            str(ROOT),
+        ],
+        check=True,
+    )
     wheel = next((work / "dist").glob("kinetab-*.whl"))
     target = work / "site"
-    subprocess.run([sys.executable, "-m", "pip", "install", "--no-deps", "-q", "--target", str(target), str(wheel)],
-                   check=True)
+    subprocess.run(
+        [sys.executable, "-m", "pip", "install", "--no-deps", "-q", "--target", str(target), str(wheel)], check=True
+    )
     env = {**os.environ, "PYTHONPATH": str(target)}
     return wheel, target, env, work
 
 
 def _kinetab(installed, *args, check=True):
     _, target, env, work = installed
-    return subprocess.run([str(target / "bin" / "kinetab"), *args], cwd=work, env=env, capture_output=True,
-                          text=True, check=check)
+    return subprocess.run(
+        [str(target / "bin" / "kinetab"), *args], cwd=work, env=env, capture_output=True, text=True, check=check
+    )
 
 
 @pytest.mark.slow
@@ -59,8 +74,14 @@ def test_installed_commands_run(installed):
     work = installed[3]
     result = _kinetab(installed, "init", "cart.toml")
     assert (work / "cart.toml").exists(), result.stderr
-    where = subprocess.run([sys.executable, "-c", "import kinetab.generator as g; print(g.__file__)"], cwd=work,
-                           env=installed[2], capture_output=True, text=True, check=True).stdout
+    where = subprocess.run(
+        [sys.executable, "-c", "import kinetab.generator as g; print(g.__file__)"],
+        cwd=work,
+        env=installed[2],
+        capture_output=True,
+        text=True,
+        check=True,
+    ).stdout
     assert str(installed[1]) in where  # imported from the installed wheel, not the source tree
     doc = json.loads(_kinetab(installed, "predict", "cart.toml", "--speed-right", "0.3", "--json").stdout)
     assert doc["right"]["current"] > 0

@@ -8,13 +8,19 @@ from __future__ import annotations
 import tomllib
 
 import pytest
-
 from kinetab.generator import model, model_edit, units
 from kinetab.generator.errors import ModelError
+
 from tests.helpers import DEMO_PATH
 
-CHANGES = {"body.mass": 41.3, "friction.coulomb": 3.6, "friction.stribeck_speed": 0.025,
-           "drive.rotor_inertia": 2.5e-5, "drive.gear_ratio": 18.5, "friction.deadband_shape": "gap"}
+CHANGES = {
+    "body.mass": 41.3,
+    "friction.coulomb": 3.6,
+    "friction.stribeck_speed": 0.025,
+    "drive.rotor_inertia": 2.5e-5,
+    "drive.gear_ratio": 18.5,
+    "friction.deadband_shape": "gap",
+}
 
 
 def test_values_change_and_everything_else_stays():
@@ -28,10 +34,10 @@ def test_values_change_and_everything_else_stays():
         if key not in edited:
             assert a == b  # comments, blank lines, untouched keys: byte for byte
         elif "#" in a:
-            assert b.index("#") == a.index("#") and a[a.index("#"):] == b[b.index("#"):]  # comment kept in place
+            assert b.index("#") == a.index("#") and a[a.index("#") :] == b[b.index("#") :]  # comment kept in place
     doc = tomllib.loads(new)  # read back with the standard library
     assert doc["body"]["mass"] == "41.3 kg"
-    assert doc["friction"]["stribeck_speed"] == "25 mm/s"          # the user's unit, not SI
+    assert doc["friction"]["stribeck_speed"] == "25 mm/s"  # the user's unit, not SI
     assert doc["drive"]["rotor_inertia"] == "250 g*cm^2"
     assert doc["drive"]["gear_ratio"] == 18.5 and doc["friction"]["deadband_shape"] == "gap"
     assert units.parse(doc["friction"]["coulomb"], units.FORCE) == pytest.approx(3.6, rel=1e-12)

@@ -3,8 +3,8 @@
 from __future__ import annotations
 
 import pytest
-
 from kinetab.generator import cli
+
 from tests.helpers import demo_doc, write_model
 
 
@@ -31,29 +31,29 @@ def _set(doc, dotted, value):
 
 BAD = [
     # (key, value, text that must appear in the message)
-    ("body.mass", 38, "with a unit"),                          # bare number for a dimensional key
-    ("body.mass", "38 m", "a mass"),                           # wrong unit kind
-    ("body.mass", "-3 kg", "> 0"),                             # range
-    ("body.mass", "abc kg", "a mass"),                         # unreadable quantity
-    ("body.mass", "inf kg", "a mass"),                         # not finite
-    ("wheels.grip", float("nan"), "finite"),                   # not finite ratio
-    ("wheels.grip", "0.6", "bare number"),                     # ratio given as string
-    ("wheels.grip", True, "bare number"),                      # boolean
-    ("drive.efficiency", 1.2, "(0, 1]"),                       # efficiency range
+    ("body.mass", 38, "with a unit"),  # bare number for a dimensional key
+    ("body.mass", "38 m", "a mass"),  # wrong unit kind
+    ("body.mass", "-3 kg", "> 0"),  # range
+    ("body.mass", "abc kg", "a mass"),  # unreadable quantity
+    ("body.mass", "inf kg", "a mass"),  # not finite
+    ("wheels.grip", float("nan"), "finite"),  # not finite ratio
+    ("wheels.grip", "0.6", "bare number"),  # ratio given as string
+    ("wheels.grip", True, "bare number"),  # boolean
+    ("drive.efficiency", 1.2, "(0, 1]"),  # efficiency range
     ("drive.backdrive_efficiency", 0, "(0, 1]"),
     ("friction.deadband", "0 m/s", "> 0"),
-    ("friction.breakaway", "1 N", ">= friction.coulomb"),     # breakaway below coulomb
+    ("friction.breakaway", "1 N", ">= friction.coulomb"),  # breakaway below coulomb
     ("friction.deadband_shape", "ramps", "did you mean 'ramp'"),
-    ("body.gyration_radius", "3 m", "3 x wheels.track"),       # implausible for the track
-    ("envelope.pitch_max", "6", "an angle"),                   # angle without unit
-    ("envelope.pitch_max", "10 %", "an angle"),                # a grade is not an angle
+    ("body.gyration_radius", "3 m", "3 x wheels.track"),  # implausible for the track
+    ("envelope.pitch_max", "6", "an angle"),  # angle without unit
+    ("envelope.pitch_max", "10 %", "an angle"),  # a grade is not an angle
     ("envelope.pitch_max", "50 deg", "45 deg"),
-    ("firmware.speed_lsb", "0.1 nm/s", "2^30"),                  # too fine for int32
+    ("firmware.speed_lsb", "0.1 nm/s", "2^30"),  # too fine for int32
     ("firmware.word", "int8", "'int16' or 'int32'"),
-    ("wheels.trak", "1 m", "did you mean 'track'"),            # unknown key with suggestion
-    ("casters.behind_axle", None, "required"),                 # missing key
-    ("name", "int", "keyword"),                                # C keyword
-    ("name", "Cart-1", "[a-z]"),                               # not C-safe
+    ("wheels.trak", "1 m", "did you mean 'track'"),  # unknown key with suggestion
+    ("casters.behind_axle", None, "required"),  # missing key
+    ("name", "int", "keyword"),  # C keyword
+    ("name", "Cart-1", "[a-z]"),  # not C-safe
     ("name", None, "required"),
 ]
 
@@ -124,7 +124,7 @@ def test_bad_option_quantity_is_one_line(capsys):
 def test_deadband_needs_a_speed_step_below_speed_max(tmp_path, capsys):
     doc = demo_doc()
     doc["envelope"]["speed_max"] = "0.85 m/s"
-    doc["friction"]["deadband"] = "0.81 m/s"     # same 0.1 m/s step as speed_max
+    doc["friction"]["deadband"] = "0.81 m/s"  # same 0.1 m/s step as speed_max
     doc["firmware"]["speed_lsb"] = "0.1 m/s"
     path = write_model(tmp_path, doc)
     code, _, err = _run(["predict", str(path)], capsys)

@@ -6,17 +6,21 @@ import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-
 from kinetab.generator import accuracy, analysis, emulate, interface, program, synthesis
 from kinetab.generator import tables as tb
+
 from tests.firmware_fixtures import demo_firmware
 from tests.helpers import random_firmware_strategy
 
 
 def _random_inputs(lim, n, rng):
-    return {"speed": rng.integers(-lim.speed, lim.speed + 1, (n, 2)), "accel": rng.integers(-lim.accel, lim.accel + 1, (n, 2)),
-            "pitch": rng.integers(-lim.pitch, lim.pitch + 1, n), "roll": rng.integers(-lim.roll, lim.roll + 1, n),
-            "payload": rng.integers(0, lim.payload + 1, n)}
+    return {
+        "speed": rng.integers(-lim.speed, lim.speed + 1, (n, 2)),
+        "accel": rng.integers(-lim.accel, lim.accel + 1, (n, 2)),
+        "pitch": rng.integers(-lim.pitch, lim.pitch + 1, n),
+        "roll": rng.integers(-lim.roll, lim.roll + 1, n),
+        "payload": rng.integers(0, lim.payload + 1, n),
+    }
 
 
 def test_program_algebra_equals_float_model():
@@ -55,17 +59,20 @@ def test_error_propagation_rules_on_a_small_program():
     Burden & Faires, Numerical Analysis, ch. 1, from memory) plus 1/2 step per rounding shift
     (round to nearest, Oppenheim & Schafer, from memory)."""
     spec = tb.make_spec("t", "x", "none", (tb.Piece(0, 100, lambda x: 3.0 + 0.0 * x),), 16, "1", "three")
-    prog = program.Program(interface.FEEDFORWARD, [
-        program.Clamp("x", "pitch", None, -100, 100, 4),
-        program.Lookup("t_x", "t", "x"),
-        program.Mul("p", "t_x", "x", 4),
-        program.Sum("s", ((1, "p"), (-1, "p"))),
-        program.Store("current", 0, "s", 2),
-    ])
+    prog = program.Program(
+        interface.FEEDFORWARD,
+        [
+            program.Clamp("x", "pitch", None, -100, 100, 4),
+            program.Lookup("t_x", "t", "x"),
+            program.Mul("p", "t_x", "x", 4),
+            program.Sum("s", ((1, "p"), (-1, "p"))),
+            program.Store("current", 0, "s", 2),
+        ],
+    )
     scale = 2.0**spec.frac_bits
     e_t = 0.25  # table error, target units
-    e_p = (100 * e_t * scale) / 2**4 + 0.5   # |x| e_t, x exact, then the rounding of >> 4
-    expected = (2 * e_p) / 2**2 + 0.5        # the sum adds both errors; the store rounds again
+    e_p = (100 * e_t * scale) / 2**4 + 0.5  # |x| e_t, x exact, then the rounding of >> 4
+    expected = (2 * e_p) / 2**2 + 0.5  # the sum adds both errors; the store rounds again
     bound = analysis.compile_bound(prog, {"t": spec})
     assert float(bound({"t": e_t})) == pytest.approx(expected, rel=1e-15)
     many = bound({"t": np.array([0.0, e_t, 2 * e_t])})  # sizing passes candidate arrays: broadcast
@@ -86,7 +93,13 @@ def test_worst_int32_inputs_do_not_wrap():
     grid = np.array(np.meshgrid(vals, vals, vals, vals, vals, vals, vals)).reshape(7, -1).T
     inp = {"speed": grid[:, :2], "accel": grid[:, 2:4], "pitch": grid[:, 4], "roll": grid[:, 5], "payload": grid[:, 6]}
     emulate.run(fw.design.feedforward, fw.tables, inp)  # raises WrapError on any 32-bit overflow
-    fin = {"current": grid[:, :2], "speed": grid[:, 2:4], "pitch": grid[:, 4], "roll": grid[:, 5], "payload": grid[:, 6]}
+    fin = {
+        "current": grid[:, :2],
+        "speed": grid[:, 2:4],
+        "pitch": grid[:, 4],
+        "roll": grid[:, 5],
+        "payload": grid[:, 6],
+    }
     emulate.run(fw.design.forward, fw.tables, fin)
 
 
@@ -101,8 +114,10 @@ def test_random_models_no_wrap_clamp_and_stay_within_promised_bound(fw, seed):
     err = np.max(np.abs(got["current"] * fw.vehicle.firmware.current_lsb_a - ref))
     assert err <= fw.ff_bound_a <= fw.vehicle.firmware.current_budget_a
     assert int(np.max(got["clamped"])) == 0
-    big = {k: np.where(rng.random(np.shape(a)) < 0.5, np.iinfo(np.int32).max, np.iinfo(np.int32).min)
-           for k, a in inp.items()}
+    big = {
+        k: np.where(rng.random(np.shape(a)) < 0.5, np.iinfo(np.int32).max, np.iinfo(np.int32).min)
+        for k, a in inp.items()
+    }
     out = emulate.run(fw.design.feedforward, fw.tables, big)
     assert np.all(out["clamped"] == 0x7F)
 

@@ -7,9 +7,9 @@ import tempfile
 from pathlib import Path
 
 import numpy as np
-
 from kinetab.generator import accuracy, interface, render, synthesis, vectors
 from kinetab.generator.interface import FF_IN, FF_OUT
+
 from tests import cortexm
 
 HERE = Path(__file__).parent
@@ -32,19 +32,38 @@ def float_params(fw: synthesis.Firmware) -> str:
     b, lc = dy.half_track(v), v.casters.behind_axle_m
     k = dy.motor_gain(v)
     vals = {
-        "SPEED_MAX": lim.speed, "ACCEL_MAX": lim.accel, "PITCH_MAX": lim.pitch, "ROLL_MAX": lim.roll,
-        "PAYLOAD_MAX": lim.payload, "SPEED_LSB": f.speed_lsb_mps, "ACCEL_LSB": f.accel_lsb_mps2,
-        "ANGLE_LSB": f.angle_lsb_rad, "MASS_LSB": f.mass_lsb_kg, "BODY_MASS": v.body.mass_kg,
-        "BODY_MC": v.body.mass_kg * v.body.cog_ahead_m, "PAY_CP": v.payload.cog_ahead_m,
-        "BODY_MH": v.body.mass_kg * v.body.cog_height_m, "PAY_HP": v.payload.cog_height_m,
+        "SPEED_MAX": lim.speed,
+        "ACCEL_MAX": lim.accel,
+        "PITCH_MAX": lim.pitch,
+        "ROLL_MAX": lim.roll,
+        "PAYLOAD_MAX": lim.payload,
+        "SPEED_LSB": f.speed_lsb_mps,
+        "ACCEL_LSB": f.accel_lsb_mps2,
+        "ANGLE_LSB": f.angle_lsb_rad,
+        "MASS_LSB": f.mass_lsb_kg,
+        "BODY_MASS": v.body.mass_kg,
+        "BODY_MC": v.body.mass_kg * v.body.cog_ahead_m,
+        "PAY_CP": v.payload.cog_ahead_m,
+        "BODY_MH": v.body.mass_kg * v.body.cog_height_m,
+        "PAY_HP": v.payload.cog_height_m,
         "BODY_IP": v.body.mass_kg * (v.body.gyration_radius_m**2 + v.body.cog_ahead_m**2),
-        "PAY_IP": v.payload.gyration_radius_m**2 + v.payload.cog_ahead_m**2, "INV_4B2": 1 / (4 * b * b),
-        "MROT": dy.reflected_mass(v), "G": dy.G_N, "LC": lc, "INV_LC": 1 / lc, "INV_2B": 1 / (2 * b),
-        "CRR_W": v.wheels.rolling_resistance, "CRR_C": v.casters.rolling_resistance,
-        "RAMP": 1 if v.friction.deadband_shape == "ramp" else 0, "DEADBAND": v.friction.deadband_mps,
-        "INV_DEADBAND": 1 / v.friction.deadband_mps, "INV_STRIBECK": 1 / v.friction.stribeck_speed_mps,
-        "COULOMB": v.friction.coulomb_n, "STRIBECK_BUMP": v.friction.breakaway_n - v.friction.coulomb_n,
-        "VISCOUS": v.friction.viscous_ns_per_m, "K_MOT": k / f.current_lsb_a,
+        "PAY_IP": v.payload.gyration_radius_m**2 + v.payload.cog_ahead_m**2,
+        "INV_4B2": 1 / (4 * b * b),
+        "MROT": dy.reflected_mass(v),
+        "G": dy.G_N,
+        "LC": lc,
+        "INV_LC": 1 / lc,
+        "INV_2B": 1 / (2 * b),
+        "CRR_W": v.wheels.rolling_resistance,
+        "CRR_C": v.casters.rolling_resistance,
+        "RAMP": 1 if v.friction.deadband_shape == "ramp" else 0,
+        "DEADBAND": v.friction.deadband_mps,
+        "INV_DEADBAND": 1 / v.friction.deadband_mps,
+        "INV_STRIBECK": 1 / v.friction.stribeck_speed_mps,
+        "COULOMB": v.friction.coulomb_n,
+        "STRIBECK_BUMP": v.friction.breakaway_n - v.friction.coulomb_n,
+        "VISCOUS": v.friction.viscous_ns_per_m,
+        "K_MOT": k / f.current_lsb_a,
         "K_BACK": k * v.drive.efficiency * v.drive.backdrive_efficiency / f.current_lsb_a,
     }
     lines = [f"#define KT_{n} {val}" if isinstance(val, int) else f"#define KT_{n} {val!r}f" for n, val in vals.items()]
@@ -87,10 +106,14 @@ def count(elf: Path, target: str, rows: np.ndarray, want: np.ndarray, ref_steps:
         mismatches += got != tuple(int(x) for x in want[i][:2])
         worst = max(worst, float(np.max(np.abs(np.array(got) - ref_steps[i]))))
     sizes = cortexm.elf_sizes(elf)
-    return {"median": float(np.median(counts)), "max": int(max(counts)), "mismatches": mismatches,
-            "model_error_steps": worst,
-            "flash": sizes.get(".text", 0) + sizes.get(".rodata", 0),
-            "cycles_est": _cycles(mix) / len(rows)}
+    return {
+        "median": float(np.median(counts)),
+        "max": int(max(counts)),
+        "mismatches": mismatches,
+        "model_error_steps": worst,
+        "flash": sizes.get(".text", 0) + sizes.get(".rodata", 0),
+        "cycles_est": _cycles(mix) / len(rows),
+    }
 
 
 def run(fw: synthesis.Firmware, n_vectors: int = 1000) -> dict[str, object]:
@@ -110,8 +133,13 @@ def run(fw: synthesis.Firmware, n_vectors: int = 1000) -> dict[str, object]:
             elf = cortexm.compile_elf([src], target, entry, folder / f"{target}.elf")
             out[f"int_{target}"] = count(elf, target, rows, rows[:, N_IN:], ref)
         for target, label in (("cortex_m0plus", "float_soft_m0plus"), ("cortex_m4f", "float_fpu_m4f")):
-            elf = cortexm.compile_elf([HERE / "float_ff.c"], target, "bl_feedforward", folder / f"{label}.elf",
-                                      extra=[f"-I{folder}", "-Wno-double-promotion"])
+            elf = cortexm.compile_elf(
+                [HERE / "float_ff.c"],
+                target,
+                "bl_feedforward",
+                folder / f"{label}.elf",
+                extra=[f"-I{folder}", "-Wno-double-promotion"],
+            )
             # the float version rounds differently: its mismatches with the integer result are expected
             out[label] = count(elf, "cortex_m0plus" if "m0" in target else "cortex_m4", rows, rows[:, N_IN:], ref)
     return out

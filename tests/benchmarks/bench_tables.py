@@ -12,7 +12,6 @@ from __future__ import annotations
 import time
 
 import numpy as np
-
 from kinetab.generator import accuracy, analysis, program, synthesis
 from kinetab.generator import tables as tb
 
@@ -50,7 +49,7 @@ def exhaustive(fw: synthesis.Firmware, chunk: int = 2_000_000) -> dict[str, floa
     best_err = [e[-1] for *_, e in units]
     kept = []
     for k, (_, _, segs, errs) in enumerate(units):
-        trial = best_err[:k] + [np.array(errs)] + best_err[k + 1:]
+        trial = best_err[:k] + [np.array(errs)] + best_err[k + 1 :]
         ok = np.broadcast_to(bound(_merge(units, trial)), (len(errs),)) <= budget
         kept.append(([s for s, o in zip(segs, ok) if o], [e for e, o in zip(errs, ok) if o]))
     radix = np.array([len(s) for s, _ in kept], dtype=np.int64)
@@ -102,6 +101,13 @@ def run(fw: synthesis.Firmware) -> dict[str, object]:
     ff_bytes = sum(fw.tables[n].bytes for n in fw.tables if not n.startswith("minv"))
     acc = accuracy.measure(fw)
     budget = fw.vehicle.firmware.current_budget_a
-    return {"ours_bytes": ff_bytes, "forward_bytes": fw.total_bytes - ff_bytes, "exhaustive": exhaustive(fw),
-            "naive256": naive(fw), "uniform": uniform(fw), "max_error_over_budget": acc.total.max / budget,
-            "bound_over_budget": fw.ff_bound_a / budget, "points": acc.points}
+    return {
+        "ours_bytes": ff_bytes,
+        "forward_bytes": fw.total_bytes - ff_bytes,
+        "exhaustive": exhaustive(fw),
+        "naive256": naive(fw),
+        "uniform": uniform(fw),
+        "max_error_over_budget": acc.total.max / budget,
+        "bound_over_budget": fw.ff_bound_a / budget,
+        "points": acc.points,
+    }

@@ -1,7 +1,7 @@
 """Run every benchmark on the demo model and write tests/benchmarks/results.md (and .json).
 
-    python tests/benchmarks/run.py            # all: about nine minutes on a plain 2-core machine
-    python tests/benchmarks/run.py cortexm    # one part (tables, build, cortexm), others kept from results.json
+python tests/benchmarks/run.py            # all: about nine minutes on a plain 2-core machine
+python tests/benchmarks/run.py cortexm    # one part (tables, build, cortexm), others kept from results.json
 """
 
 from __future__ import annotations
@@ -18,6 +18,7 @@ ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 
 from kinetab.generator import model, synthesis  # noqa: E402
+
 from tests.benchmarks import bench_cortexm, bench_tables  # noqa: E402
 from tests.helpers import DEMO_PATH  # noqa: E402
 
@@ -42,10 +43,13 @@ def main() -> None:
     fw = synthesis.synthesise(model.load(DEMO_PATH))
     only = sys.argv[1:] or ["tables", "build", "cortexm"]
     old = json.loads((Path(__file__).parent / "results.json").read_text()) if len(only) < 3 else {}
-    results = {"model": "larkspur (bundled demo)", "current_lsb_a": fw.vehicle.firmware.current_lsb_a,
-               "tables": bench_tables.run(fw) if "tables" in only else old["tables"],
-               "build": build_time() if "build" in only else old["build"],
-               "cortexm": bench_cortexm.run(fw) if "cortexm" in only else old["cortexm"]}
+    results = {
+        "model": "larkspur (bundled demo)",
+        "current_lsb_a": fw.vehicle.firmware.current_lsb_a,
+        "tables": bench_tables.run(fw) if "tables" in only else old["tables"],
+        "build": build_time() if "build" in only else old["build"],
+        "cortexm": bench_cortexm.run(fw) if "cortexm" in only else old["cortexm"],
+    }
     out = Path(__file__).parent
     (out / "results.json").write_text(json.dumps(results, indent=2) + "\n")
     (out / "results.md").write_text(markdown(results))
@@ -56,8 +60,10 @@ def markdown(r: dict) -> str:
     t, b, c = r["tables"], r["build"], r["cortexm"]
     ex, nv, un = t["exhaustive"], t["naive256"], t["uniform"]
     lines = [
-        f"# Benchmarks on {r['model']}", "",
-        "| measure | value |", "|---|---|",
+        f"# Benchmarks on {r['model']}",
+        "",
+        "| measure | value |",
+        "|---|---|",
         f"| feed-forward table bytes, our sizing | {t['ours_bytes']} |",
         f"| same, exhaustive search ({ex['combinations']:,} combinations, {ex['seconds']:.0f} s) | {ex['bytes']} |",
         f"| same, naive 256 segments per piece | {nv['bytes']} (bound {nv['bound_a'] * 1000:.2f} mA) |",
@@ -66,23 +72,35 @@ def markdown(r: dict) -> str:
         f"| end-to-end max error / budget ({t['points']:,} points) | {t['max_error_over_budget']:.3f} |",
         f"| proven bound / budget | {t['bound_over_budget']:.3f} |",
         f"| `kinetab build` wall time / `python -c 'import numpy'` | {b['ratio']:.1f} ({b['build_s']:.2f} s / "
-        f"{b['import_numpy_s']:.3f} s) |", "",
+        f"{b['import_numpy_s']:.3f} s) |",
+        "",
         "| instructions per feed-forward call (both wheels) | median | max | flash bytes | est. cycles | "
         "worst error vs float model [mA] | differs from emulation |",
         "|---|---|---|---|---|---|---|",
     ]
-    for key, label in (("int_cortex_m0plus", "integer tables, Cortex-M0+"), ("float_soft_m0plus", "float, soft float, M0+"),
-                       ("int_cortex_m4", "integer tables, Cortex-M4"), ("float_fpu_m4f", "float, FPU, M4F")):
+    for key, label in (
+        ("int_cortex_m0plus", "integer tables, Cortex-M0+"),
+        ("float_soft_m0plus", "float, soft float, M0+"),
+        ("int_cortex_m4", "integer tables, Cortex-M4"),
+        ("float_fpu_m4f", "float, FPU, M4F"),
+    ):
         x = c[key]
         err_ma = x["model_error_steps"] * r["current_lsb_a"] * 1000
-        lines.append(f"| {label} | {x['median']:.0f} | {x['max']} | {x['flash']} | {x['cycles_est']:.0f} | "
-                     f"{err_ma:.2f} | {x['mismatches']} |")
+        lines.append(
+            f"| {label} | {x['median']:.0f} | {x['max']} | {x['flash']} | {x['cycles_est']:.0f} | "
+            f"{err_ma:.2f} | {x['mismatches']} |"
+        )
     m0 = c["float_soft_m0plus"]["median"] / c["int_cortex_m0plus"]["median"]
-    lines += ["", f"Soft float / integer on M0+: {m0:.2f}x fewer instructions for the tables.",
-              "Float baseline: tests/benchmarks/float_ff.c, float-only polynomial sinf/cosf/expf, reciprocals "
-              "for constant divisions; its 'mismatches' are rounding differences against the integer result, "
-              "expected and not an error (both stay within the budget of the float model). Cycle estimates use a per-class table (loads/stores 2, taken "
-              "branches 2, push/pop 3-4, others 1) from the Arm technical reference manuals [memory].", ""]
+    lines += [
+        "",
+        f"Soft float / integer on M0+: {m0:.2f}x fewer instructions for the tables.",
+        "Float baseline: tests/benchmarks/float_ff.c, float-only polynomial sinf/cosf/expf, reciprocals "
+        "for constant divisions; its 'mismatches' are rounding differences against the integer result, "
+        "expected and not an error (both stay within the budget of the float model). "
+        "Cycle estimates use a per-class table (loads/stores 2, taken "
+        "branches 2, push/pop 3-4, others 1) from the Arm technical reference manuals [memory].",
+        "",
+    ]
     return "\n".join(lines)
 
 
