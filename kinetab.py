@@ -16,8 +16,9 @@ __path__ = [os.path.dirname(os.path.abspath(__file__))]
 
 def main(argv: list[str] | None = None) -> None:
     """The `kinetab` console script: every command, with the bench group loaded only when used."""
-    from kinetab.generator import cli
+    import importlib
 
+    cli = importlib.import_module("kinetab.generator.cli")
     cli.register_lazy(
         "bench", "kinetab.hil.commands", "bench", "Bench link: plan, simulate, run (see hil/PROTOCOL.md)."
     )

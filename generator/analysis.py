@@ -60,7 +60,7 @@ def prove(program: Program, tables: Mapping[str, tb.Table]) -> Proof:
     split: dict[str, bool] = {}
     outputs: dict[tuple[str, int], fx.Interval] = {}
     for op in program.ops:
-        _check_op(program, op, rng, wide, split)
+        _check_op(program, op, rng, wide=wide, split=split)
         result = op_range(op, rng, lambda lk: _table_range(tables[lk.table]))
         if isinstance(op, Store):
             outputs[(op.field, op.index)] = rng[op.src].shift_round(op.shift)
@@ -79,7 +79,7 @@ def _with_half(prod: fx.Interval, shift: int) -> fx.Interval:
 
 
 def _check_op(
-    program: Program, op: Op, rng: dict[str, fx.Interval], wide: dict[str, bool], split: dict[str, bool]
+    program: Program, op: Op, rng: dict[str, fx.Interval], *, wide: dict[str, bool], split: dict[str, bool]
 ) -> None:
     """What each op needs beyond its result range: which products need 64 bits, which partial sums and
     roundings would overflow (CheckFailed)."""

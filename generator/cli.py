@@ -204,7 +204,7 @@ def _envelope_table(v: Vehicle, rep: envelope.EnvelopeReport) -> str:
     return "\n".join(lines)
 
 
-def _synthesise(v: Vehicle):
+def _synthesise(v: Vehicle) -> Any:
     from . import synthesis
 
     for problem in envelope.corner_peaks(v)[3]:

@@ -89,51 +89,54 @@ def _model_value(fw: Firmware, dotted: str) -> str:
     return f"{dotted} = {text}{' ' + unit if unit else ''}"
 
 
+def _piece_view(fw: Firmware, name: str, prefix: str, k: int) -> dict[str, Any]:
+    """One piece of a table: its array, indexing constants and the comment lines about it."""
+    spec, data, err = fw.tables[name].spec, fw.tables[name].pieces[k], fw.errors[name][k]
+    piece, src = spec.pieces[k], _sources(fw)[spec.source]
+    width = 1 << data.shift
+    plural = "s" if data.segments > 1 else ""
+    return {
+        "array": f"{prefix}_tab_{name}_{k}",
+        "count": len(data.entries),
+        "x0": piece.x0,
+        "x1": piece.x1,
+        "segments": data.segments,
+        "shift": data.shift,
+        "mask": f"0x{data.mask:X}",
+        "half": rounding_half(data.shift),
+        "wide": fw.ff_proof.lookup_wide[name][k],
+        "constant": data.segments == 0,
+        "value": int(data.entries[0]),
+        "entries": rows([int(e) for e in data.entries]),
+        "describe": (
+            f"{'|x|' if spec.symmetry != 'none' else 'x'} in {piece.x0}..{piece.x1} steps "
+            f"({num(piece.x0 * src.lsb)}..{num(piece.x1 * src.lsb)} {src.unit})"
+            + (f", {piece.label}" if piece.label else "")
+        ),
+        "layout": "constant"
+        if data.segments == 0
+        else f"{data.segments} segment{plural} of {width} steps, breakpoints at x0 + k*{width}",
+        "error": f"{num(err.total * spec.si_scale)} {spec.si_unit}"
+        + (" (every input checked)" if err.exhaustive else " (dense sample plus slope margin)"),
+    }
+
+
+def _model_keys(name: str, source: str) -> tuple[str, ...]:
+    """The model keys a table's values come from, for its comment."""
+    if name == "shape":
+        return ("friction.deadband", "friction.deadband_shape")
+    extra = EXTRA_KEYS.get(name, EXTRA_KEYS["m11"] if name in ("m12", "minv11", "minv12") else ())
+    return MODEL_KEYS[source] + extra
+
+
 def table_view(fw: Firmware, name: str, prefix: str) -> dict[str, Any]:
+    """Everything the templates print about one table: arrays, lookup constants, comments."""
     table = fw.tables[name]
     spec = table.spec
     src = _sources(fw)[spec.source]
-    ctype = f"int{spec.bits}_t"
-    keys = MODEL_KEYS[spec.source] + EXTRA_KEYS.get(
-        name, EXTRA_KEYS["m11"] if name in ("m12", "minv11", "minv12") else ()
-    )
-    if name == "shape":
-        keys = ("friction.deadband", "friction.deadband_shape")
-    pieces = []
-    for k, (piece, data, err) in enumerate(zip(spec.pieces, table.pieces, fw.errors[name])):
-        width = 1 << data.shift
-        pieces.append(
-            {
-                "array": f"{prefix}_tab_{name}_{k}",
-                "count": len(data.entries),
-                "x0": piece.x0,
-                "x1": piece.x1,
-                "segments": data.segments,
-                "shift": data.shift,
-                "mask": f"0x{data.mask:X}",
-                "half": (1 << (data.shift - 1)) if data.shift > 0 else 0,
-                "wide": fw.ff_proof.lookup_wide[name][k],
-                "constant": data.segments == 0,
-                "value": int(data.entries[0]),
-                "entries": rows([int(e) for e in data.entries]),
-                "describe": (
-                    f"{'|x|' if spec.symmetry != 'none' else 'x'} in {piece.x0}..{piece.x1} steps "
-                    f"({num(piece.x0 * src.lsb)}..{num(piece.x1 * src.lsb)} {src.unit})"
-                    + (f", {piece.label}" if piece.label else "")
-                ),
-                "layout": (
-                    "constant"
-                    if data.segments == 0
-                    else f"{data.segments} segment{'s' if data.segments > 1 else ''} of {width} steps, "
-                    f"breakpoints at x0 + k*{width}"
-                ),
-                "error": f"{num(err.total * spec.si_scale)} {spec.si_unit}"
-                + (" (every input checked)" if err.exhaustive else " (dense sample plus slope margin)"),
-            }
-        )
     return {
         "name": name,
-        "ctype": ctype,
+        "ctype": f"int{spec.bits}_t",
         "symmetry": spec.symmetry,
         "split": spec.split_at,
         "needs_x": spec.split_at is not None or any(p.segments > 0 for p in table.pieces),
@@ -144,8 +147,8 @@ def table_view(fw: Firmware, name: str, prefix: str) -> dict[str, Any]:
         "unit": spec.unit,
         "input": spec.source,
         "input_lsb": f"{num(src.lsb)} {src.unit}",
-        "pieces": pieces,
-        "models": wrap([_model_value(fw, key) for key in keys]),
+        "pieces": [_piece_view(fw, name, prefix, k) for k in range(len(table.pieces))],
+        "models": wrap([_model_value(fw, key) for key in _model_keys(name, spec.source)]),
         "bytes": table.bytes,
         "lo": spec.pieces[0].x0,
         "hi": spec.pieces[-1].x1,
@@ -204,7 +207,11 @@ def _op_view(op: Op, proof: Proof, clamp_names: list[str]) -> dict[str, Any]:
             assert_never(op)
 
 
-def _group_key(op, tables: dict[str, dict[str, Any]]) -> tuple | None:
+GroupKey = tuple[str, bool, int | None]
+
+
+def _group_key(op: Op, tables: dict[str, dict[str, Any]]) -> GroupKey | None:
+    """Lookups that may share one inline block: same input, same symmetry class, same split."""
     if not isinstance(op, Lookup):
         return None
     t = tables[op.table]
@@ -222,8 +229,10 @@ def program_view(prog: Program, proof: Proof, tables: dict[str, dict[str, Any]],
         j = k + 1
         while key is not None and j < len(ops) and _group_key(ops[j], tables) == key:
             j += 1
-        if j - k > 1:
-            members = [{"dst": op.dst, "t": tables[op.table]} for op in ops[k:j]]
+        if key is not None and j - k > 1:
+            members: list[dict[str, Any]] = [
+                {"dst": op.dst, "t": tables[op.table]} for op in ops[k:j] if isinstance(op, Lookup)
+            ]
             needs_x = key[2] is not None or any(m["t"]["needs_x"] for m in members)
             views.append(
                 {"kind": "group", "src": key[0], "abs": key[1], "split": key[2], "members": members, "needs_x": needs_x}

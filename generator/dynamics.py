@@ -194,7 +194,7 @@ def wheel_loads(v: Vehicle, payload_kg: ArrayLike, pitch_rad: ArrayLike, roll_ra
 
 
 def rolling_resistance(
-    v: Vehicle, payload_kg: ArrayLike, pitch_rad: ArrayLike, roll_rad: ArrayLike, speed: ArrayLike
+    v: Vehicle, payload_kg: ArrayLike, pitch_rad: ArrayLike, roll_rad: ArrayLike, *, speed: ArrayLike
 ) -> Array:
     """Per drive wheel: (C_rr,wheel N_drive/2 + C_rr,caster N_caster/2) s(u), N (see rolling_coefficients)."""
     level, transfer = rolling_coefficients(v, payload_kg)
@@ -225,7 +225,7 @@ def wheel_forces(v: Vehicle, op: OperatingPoint) -> tuple[WheelForces, WheelForc
                 inertia=np.asarray(inertia, float),
                 coriolis=np.asarray(cor, float),
                 friction=drivetrain_friction(v, speed),
-                rolling=rolling_resistance(v, op.payload_kg, op.pitch_rad, op.roll_rad, speed),
+                rolling=rolling_resistance(v, op.payload_kg, op.pitch_rad, op.roll_rad, speed=speed),
                 gravity=np.asarray(grav, float),
             )
         )

@@ -35,7 +35,7 @@ def _input(inputs: Mapping[str, np.ndarray], op: Clamp) -> np.ndarray:
 
 
 def _step(
-    op: Op, env: dict[str, np.ndarray], tables: Mapping[str, tb.Table], inputs: Mapping[str, np.ndarray], mode: str
+    op: Op, env: dict[str, np.ndarray], tables: Mapping[str, tb.Table], inputs: Mapping[str, np.ndarray], *, mode: str
 ) -> np.ndarray:
     """One op's result: integers exactly as the C computes them (mode "int"), or real values."""
     exact = mode == "int"
@@ -46,16 +46,17 @@ def _step(
         case Lookup():
             src = np.asarray(env[op.src], dtype=np.int64)
             table = tables[op.table]
-            return tb.lookup(table, src) if exact else tb.lookup_real(table, src, mode)
+            return np.asarray(tb.lookup(table, src) if exact else tb.lookup_real(table, src, mode))
         case Mul():
             a = env[op.a]
             b = env[op.b] if isinstance(op.b, str) else op.b
-            return fx.shift_round(a * b, op.shift) if exact else a * b * 2.0**-op.shift
+            return np.asarray(fx.shift_round(a * b, op.shift) if exact else a * b * 2.0**-op.shift)
         case Sum():
-            total: np.ndarray | int = 0
-            for sign, name in op.terms:
+            (sign0, first), rest = op.terms[0], op.terms[1:]
+            total = sign0 * env[first]
+            for sign, name in rest:
                 total = total + sign * env[name]
-            return np.asarray(total)
+            return total
         case Backdrive():
             src, speed = env[op.src], env[op.speed]
             opposed = ((src > 0) & (speed < 0)) | ((src < 0) & (speed > 0))
@@ -83,12 +84,12 @@ def run(
     """Evaluate a program on arrays of inputs; returns output fields (shape (n, 2)) and 'clamped'."""
     env: dict[str, np.ndarray] = {}
     flags: np.ndarray | None = None
-    out: dict[str, list[np.ndarray | None]] = {m.name: [None] * m.count for m in program.call.outputs.members}
+    out: dict[str, list[np.ndarray]] = {m.name: [np.zeros(0)] * m.count for m in program.call.outputs.members}
     for op in program.ops:
         if isinstance(op, Clamp):
             bit = _flag(op, inputs)
             flags = bit if flags is None else flags | bit
-        value = _step(op, env, tables, inputs, mode)
+        value = _step(op, env, tables, inputs, mode=mode)
         if isinstance(op, Store):
             out[op.field][op.index] = value
             continue

@@ -8,9 +8,11 @@ from __future__ import annotations
 
 import itertools
 import math
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 from . import dynamics
 from .dynamics import OperatingPoint
@@ -81,7 +83,7 @@ def margins(v: Vehicle, op: OperatingPoint) -> tuple[Margins, Margins]:
 
 
 def _straight(
-    v: Vehicle, payload: float, pitch: np.ndarray, roll: np.ndarray, accel: np.ndarray, speeds: np.ndarray
+    v: Vehicle, payload: float, pitch: ArrayLike, roll: np.ndarray, *, accel: ArrayLike, speeds: np.ndarray
 ) -> np.ndarray:
     """Per candidate (pitch, accel) pair: driving straight at every speed and roll stays within limits."""
     th, a, s, r = np.meshgrid(np.atleast_1d(pitch), np.atleast_1d(accel), speeds, roll, indexing="ij", sparse=False)
@@ -92,7 +94,7 @@ def _straight(
     return ok.all(axis=(2, 3)).ravel()
 
 
-def _largest(ok, hi: float, steps: int = 64, rounds: int = 4) -> float:
+def _largest(ok: Callable[[np.ndarray], np.ndarray], hi: float, steps: int = 64, rounds: int = 4) -> float:
     """Largest x in [0, hi] with ok(x) (ok is vectorised and monotone); -1 when even ok(0) fails.
 
     A grid of `steps` points, then the bracket of the last passing point again, `rounds` times:
@@ -123,11 +125,14 @@ def payload_row(v: Vehicle, payload: float) -> PayloadRow:
     speeds = _speed_sweep(v)
     still = np.array([0.0])
     hold = _largest(
-        lambda th: _straight(v, payload, th, roll, 0.0, still) & _straight(v, payload, -th, roll, 0.0, still),
+        lambda th: (
+            _straight(v, payload, th, roll, accel=0.0, speeds=still)
+            & _straight(v, payload, -th, roll, accel=0.0, speeds=still)
+        ),
         PITCH_CEILING,
     )
-    climb = _largest(lambda th: _straight(v, payload, th, roll, env.accel_max_mps2, speeds), PITCH_CEILING)
-    accel = _largest(lambda a: _straight(v, payload, env.pitch_max_rad, roll, a, speeds), 50.0)
+    climb = _largest(lambda th: _straight(v, payload, th, roll, accel=env.accel_max_mps2, speeds=speeds), PITCH_CEILING)
+    accel = _largest(lambda a: _straight(v, payload, env.pitch_max_rad, roll, accel=a, speeds=speeds), 50.0)
     return PayloadRow(payload, hold, climb, accel)
 
 
@@ -137,7 +142,9 @@ def _corners(v: Vehicle) -> tuple[OperatingPoint, list[tuple[float, ...]]]:
     accels = (-env.accel_max_mps2, 0.0, env.accel_max_mps2)
     pitches = (-env.pitch_max_rad, 0.0, env.pitch_max_rad)
     rolls = (-env.roll_max_rad, 0.0, env.roll_max_rad)
-    pts = list(itertools.product((0.0, v.payload.mass_max_kg), speeds, speeds, accels, accels, pitches, rolls))
+    pts: list[tuple[float, ...]] = list(
+        itertools.product((0.0, v.payload.mass_max_kg), speeds, speeds, accels, accels, pitches, rolls)
+    )
     cols = np.array(pts).T
     return OperatingPoint(*cols), pts
 

@@ -60,6 +60,7 @@ def _key(
     field: str,
     rng: tuple[Callable[[float], bool], str] | None,
     meaning: str,
+    *,
     default: Any = None,
     choices: tuple[str, ...] = (),
 ) -> Key:
@@ -248,8 +249,8 @@ def _read_value(src: str, where: str, spec: Key, raw: Any) -> float | str:
         raise ModelError(src, where, f"{spec.kind.name}, such as {spec.kind.example}", _describe(raw)) from None
 
 
-def _check_range(src: str, where: str, spec: Key, value: float | str, raw: Any) -> None:
-    if spec.check is not None and not spec.check(value):
+def _check_range(src: str, where: str, spec: Key, value: float | str, *, raw: Any) -> None:
+    if spec.check is not None and isinstance(value, float) and not spec.check(value):
         raise ModelError(src, where, f"a value {spec.expect}", _describe(raw))
 
 
@@ -273,7 +274,7 @@ def _read_section(src: str, name: str, table: Any) -> dict[str, Any]:
                 )
             continue
         values[key] = _read_value(src, where, spec, table[key])
-        _check_range(src, where, spec, values[key], table[key])
+        _check_range(src, where, spec, values[key], raw=table[key])
     for key, spec in schema.items():
         if key not in values:
             values[key] = values[spec.default] if spec.default in schema else spec.default

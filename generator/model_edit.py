@@ -40,6 +40,7 @@ def _in_unit_of(old_text: str, si_value: float, kind: units.Kind) -> str:
 
 def _new_item(spec: model.Key, old: Item | None, value: float | str) -> Item:
     """The TOML item for a new value, with the old item's comment kept in its column."""
+    new: Item
     if spec.kind is model.RATIO:
         new = tomlkit.item(float(number(float(value))))
     elif spec.kind is model.CHOICE:

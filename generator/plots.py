@@ -6,6 +6,7 @@ from __future__ import annotations
 import html
 import math
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -15,7 +16,7 @@ from .accuracy import Accuracy, envelope_points, operating_point, reference_curr
 from .synthesis import Firmware
 
 
-def _pyplot():
+def _pyplot() -> Any:
     import matplotlib
 
     matplotlib.use("Agg")

@@ -194,7 +194,7 @@ class _Builder:
         top = math.ceil(spec.max_abs * 2.0**spec.frac_bits) + 1
         return fx.Interval(-top, top)
 
-    def clamp(self, dst: str, fieldname: str, index: int | None, lo: int, hi: int, bit: int) -> str:
+    def clamp(self, dst: str, fieldname: str, index: int | None, *, lo: int, hi: int, bit: int) -> str:
         self._add(Clamp(dst, fieldname, index, lo, hi, bit))
         return dst
 
@@ -298,76 +298,40 @@ class _Row:
 def _payload_rows(v: Vehicle, lim: Limits, k: float) -> dict[str, _Row]:
     """Payload tables: the dynamics' coefficients scaled to accumulator steps (k per newton)."""
     fw = v.firmware
-    kg = lambda x: x * fw.mass_lsb_kg  # noqa: E731
     per_accel, per_speed2 = fw.accel_lsb_mps2 * k, fw.speed_lsb_mps**2 * k
-
-    def P(f: tb.Func) -> tuple[tb.Piece, ...]:
-        return (tb.Piece(0, lim.payload, f),)
-
     acc = "accumulator step"
+
+    def row(f: Callable[[np.ndarray], np.ndarray], scale: float, unit: str, *, meaning: str, si: str) -> _Row:
+        """A one-piece payload table of f(payload in kg) * scale."""
+        piece = tb.Piece(0, lim.payload, lambda x: f(x * fw.mass_lsb_kg) * scale)
+        return _Row("payload", "none", (piece,), unit, meaning, 1 / scale, si)
+
+    def mass(entry: int) -> Callable[[np.ndarray], np.ndarray]:
+        return lambda p: dynamics.mass_matrix_entries(v, p)[entry]
+
+    def grav(entry: int) -> Callable[[np.ndarray], np.ndarray]:
+        return lambda p: dynamics.gravity_coefficients(v, p)[entry]
+
+    def rolling(entry: int) -> Callable[[np.ndarray], np.ndarray]:
+        return lambda p: dynamics.rolling_coefficients(v, p)[entry]
+
     return {
-        "m11": _Row(
-            "payload",
-            "none",
-            P(lambda x: dynamics.mass_matrix_entries(v, kg(x))[0] * per_accel),
-            f"{acc} per accel step",
-            "mass matrix M11 = M22",
-            1 / per_accel,
-            "kg",
-        ),
-        "m12": _Row(
-            "payload",
-            "none",
-            P(lambda x: dynamics.mass_matrix_entries(v, kg(x))[1] * per_accel),
-            f"{acc} per accel step",
-            "mass matrix M12 = M21",
-            1 / per_accel,
-            "kg",
-        ),
-        "cor": _Row(
-            "payload",
-            "none",
-            P(lambda x: dynamics.coriolis_coefficient(v, kg(x)) * per_speed2),
+        "m11": row(mass(0), per_accel, f"{acc} per accel step", meaning="mass matrix M11 = M22", si="kg"),
+        "m12": row(mass(1), per_accel, f"{acc} per accel step", meaning="mass matrix M12 = M21", si="kg"),
+        "cor": row(
+            lambda p: dynamics.coriolis_coefficient(v, p),
+            per_speed2,
             f"{acc} per speed step^2",
-            "Coriolis coefficient m c / (4 b^2)",
-            1 / per_speed2,
-            "kg/m",
+            meaning="Coriolis coefficient m c / (4 b^2)",
+            si="kg/m",
         ),
-        "grav_pitch": _Row(
-            "payload",
-            "none",
-            P(lambda x: dynamics.gravity_coefficients(v, kg(x))[0] * k),
-            f"{acc} at sin = 1",
-            "gravity m g / 2",
-            1 / k,
-            "N",
+        "grav_pitch": row(grav(0), k, f"{acc} at sin = 1", meaning="gravity m g / 2", si="N"),
+        "grav_roll": row(grav(1), k, f"{acc} at cos*sin = 1", meaning="roll gravity m c g / (2 b)", si="N"),
+        "roll_level": row(
+            rolling(0), k, f"{acc} at cos*cos = 1", meaning="rolling resistance on cos(pitch) cos(roll)", si="N"
         ),
-        "grav_roll": _Row(
-            "payload",
-            "none",
-            P(lambda x: dynamics.gravity_coefficients(v, kg(x))[1] * k),
-            f"{acc} at cos*sin = 1",
-            "roll gravity m c g / (2 b)",
-            1 / k,
-            "N",
-        ),
-        "roll_level": _Row(
-            "payload",
-            "none",
-            P(lambda x: dynamics.rolling_coefficients(v, kg(x))[0] * k),
-            f"{acc} at cos*cos = 1",
-            "rolling resistance on cos(pitch) cos(roll)",
-            1 / k,
-            "N",
-        ),
-        "roll_slope": _Row(
-            "payload",
-            "none",
-            P(lambda x: dynamics.rolling_coefficients(v, kg(x))[1] * k),
-            f"{acc} at sin = 1",
-            "rolling-resistance load transfer on sin(pitch)",
-            1 / k,
-            "N",
+        "roll_slope": row(
+            rolling(1), k, f"{acc} at sin = 1", meaning="rolling-resistance load transfer on sin(pitch)", si="N"
         ),
     }
 
@@ -415,7 +379,17 @@ def _specs(v: Vehicle, lim: Limits, acc_amps: float) -> dict[str, tb.TableSpec]:
             "1/kg",
         )
     return {
-        name: tb.make_spec(name, r.source, r.symmetry, r.pieces, bits, r.unit, r.meaning, r.si_scale, r.si_unit)
+        name: tb.make_spec(
+            name,
+            r.source,
+            r.symmetry,
+            r.pieces,
+            bits=bits,
+            unit=r.unit,
+            meaning=r.meaning,
+            si_scale=r.si_scale,
+            si_unit=r.si_unit,
+        )
         for name, r in rows.items()
     }
 
@@ -438,7 +412,7 @@ def _clamps(bd: _Builder, lim: Limits, call: interface.Call, order: tuple[str, .
         lo = -hi if m.signed else 0
         for side, column in enumerate(m.columns):
             dst = f"{SIGNAL[name]}_{'rl'[side]}" if m.count == 2 else SIGNAL[name]
-            bd.clamp(dst, name, side if m.count == 2 else None, lo, hi, call.clamp_bit(column))
+            bd.clamp(dst, name, side if m.count == 2 else None, lo=lo, hi=hi, bit=call.clamp_bit(column))
 
 
 def _common(bd: _Builder, lim: Limits, call: interface.Call, pair: str) -> None:
@@ -506,7 +480,7 @@ def _feedforward(v: Vehicle, specs: dict[str, tb.TableSpec], lim: Limits, guard:
     return prog
 
 
-def _forward(v: Vehicle, specs: dict[str, tb.TableSpec], lim: Limits, guard: int, aguard: int) -> Program:
+def _forward(v: Vehicle, specs: dict[str, tb.TableSpec], lim: Limits, *, guard: int, aguard: int) -> Program:
     prog = Program(interface.FORWARD)
     bd = _Builder(prog, specs, specs["m11"].bits)
     _common(bd, lim, prog.call, "current")
@@ -568,7 +542,7 @@ def design(v: Vehicle) -> Design:
         v,
         specs,
         _feedforward(v, specs, lim, guard),
-        _forward(v, specs, lim, guard, aguard),
+        _forward(v, specs, lim, guard=guard, aguard=aguard),
         lim,
         guard,
         aguard,

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -19,7 +20,7 @@ from . import tables as tb
 from .errors import CheckFailed
 from .program import Program
 
-Bound = Callable[[Mapping[str, object]], object]
+Bound = Callable[[Mapping[str, Any]], Any]
 
 
 @dataclass(frozen=True)
@@ -53,8 +54,8 @@ def units_for(specs: Mapping[str, tb.TableSpec], names: list[str]) -> list[Unit]
     ]
 
 
-def _merge(units: list[Unit], choice: list, fixed: Mapping[str, float]) -> dict[str, object]:
-    errs: dict[str, object] = dict(fixed)
+def _merge(units: list[Unit], choice: list, fixed: Mapping[str, float]) -> dict[str, Any]:
+    errs: dict[str, Any] = dict(fixed)
     seen: set[str] = set()
     for u, e in zip(units, choice):
         errs[u.table] = np.maximum(errs[u.table], e) if u.table in seen else e
@@ -79,12 +80,12 @@ def search(bound: Bound, units: list[Unit], budget: float, fixed: Mapping[str, f
 
 def _search(units: list[Unit], bound: Bound, budget: float, fixed: Mapping[str, float]) -> tuple[list[int] | None, int]:
     best_err = [u.error(len(u.cands.segments) - 1) for u in units]
-    lowest = _lowest_feasible(bound, units, budget, fixed, best_err)
+    lowest = _lowest_feasible(bound, units, budget, fixed, best_err=best_err)
     if lowest is None:
         return None, 0
     min_bytes = [u.bytes(c) for u, c in zip(units, lowest)]
     rest_bytes = np.concatenate([np.cumsum(min_bytes[::-1])[::-1], [0]])
-    best: dict[str, object] = {"bytes": float("inf"), "choice": None}
+    best: dict[str, Any] = {"bytes": float("inf"), "choice": None}
     start = _greedy(bound, units, budget, fixed)
     if start is not None:
         best["bytes"], best["choice"] = sum(u.bytes(c) for u, c in zip(units, start)) + 1, start
@@ -109,11 +110,11 @@ def _search(units: list[Unit], bound: Bound, budget: float, fixed: Mapping[str, 
                 dfs(k + 1, choice + [c], used + u.bytes(c))
 
     dfs(0, [], 0)
-    return best["choice"], visited  # type: ignore[return-value]
+    return best["choice"], visited
 
 
 def _lowest_feasible(
-    bound: Bound, units: list[Unit], budget: float, fixed: Mapping[str, float], best_err: list[float]
+    bound: Bound, units: list[Unit], budget: float, fixed: Mapping[str, float], *, best_err: list[float]
 ) -> list[int] | None:
     """Per unit, its cheapest candidate that meets the budget with every other unit most accurate:
     no cheaper candidate can be part of any answer."""
@@ -161,7 +162,7 @@ def limiting_table(bound: Bound, units: list[Unit], fixed: Mapping[str, float]) 
         trial = [0.0 if u.table == name else e for u, e in zip(units, best)]
         gains[name] = full - float(bound(_merge(units, trial, fixed)))
     floor = float(bound(_merge(units, [0.0] * len(units), fixed)))
-    worst = max(gains, key=gains.get) if gains and max(gains.values()) > 0 else "(output rounding)"
+    worst = max(gains, key=lambda n: gains[n]) if gains and max(gains.values()) > 0 else "(output rounding)"
     return full, worst if full - floor > 1e-12 else "(arithmetic rounding)"
 
 
@@ -170,6 +171,7 @@ def size(
     specs: Mapping[str, tb.TableSpec],
     names: list[str],
     budget_steps: float,
+    *,
     fixed: Mapping[str, tb.Table] | None = None,
     fixed_errors: Mapping[str, tuple[tb.PieceError, ...]] | None = None,
     what: str = "budget",

@@ -16,7 +16,8 @@ def _grid(v: Vehicle) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     payload = np.linspace(0.0, v.payload.mass_max_kg, 5)
     pitch = np.linspace(-v.envelope.pitch_max_rad, v.envelope.pitch_max_rad, 41)
     roll = np.array([-v.envelope.roll_max_rad, 0.0, v.envelope.roll_max_rad])
-    return tuple(a.ravel() for a in np.meshgrid(payload, pitch, roll, indexing="ij"))  # type: ignore[return-value]
+    p, th, ph = np.meshgrid(payload, pitch, roll, indexing="ij")
+    return p.ravel(), th.ravel(), ph.ravel()
 
 
 def lateral_margin(v: Vehicle, payload_kg: np.ndarray, roll_rad: np.ndarray) -> np.ndarray:

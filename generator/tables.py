@@ -91,6 +91,7 @@ def make_spec(
     source: str,
     symmetry: str,
     pieces: tuple[Piece, ...],
+    *,
     bits: int,
     unit: str,
     meaning: str,
@@ -213,7 +214,7 @@ def lookup_real(table: Table, x: np.ndarray, mode: str) -> np.ndarray:
     return np.where(x < 0, -out, out) if spec.symmetry == "odd" else out
 
 
-def _interp_real(spec: TableSpec, piece: Piece, data: PieceData, xs: np.ndarray, quantised: bool) -> np.ndarray:
+def _interp_real(spec: TableSpec, piece: Piece, data: PieceData, xs: np.ndarray, *, quantised: bool) -> np.ndarray:
     if data.segments == 0:
         value = data.entries[0] if quantised else _constant_real(spec, piece)
         return np.full(np.shape(xs), float(value))

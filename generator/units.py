@@ -5,6 +5,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 from functools import lru_cache
+from typing import Any
 
 import pint
 
@@ -48,7 +49,7 @@ def parse(text: str, kind: Kind) -> float:
     """Parse `text` as a quantity of `kind` and return its SI magnitude; ValueError says why."""
     ureg = registry()
     try:
-        q = ureg.Quantity(text)
+        q: Any = ureg.Quantity(text)
     except Exception as exc:  # pint raises many types for bad text
         raise ValueError(f"cannot read {text!r} as a quantity ({type(exc).__name__})") from None
     if not isinstance(q, pint.Quantity):

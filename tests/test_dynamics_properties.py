@@ -78,7 +78,7 @@ def test_friction_and_rolling_dissipate(data):
     op = data.draw(points(v))
     for speed in (op.speed_right, op.speed_left):
         assert dynamics.drivetrain_friction(v, speed) * speed >= 0
-        assert dynamics.rolling_resistance(v, op.payload_kg, op.pitch_rad, op.roll_rad, speed) * speed >= 0
+        assert dynamics.rolling_resistance(v, op.payload_kg, op.pitch_rad, op.roll_rad, speed=speed) * speed >= 0
 
 
 @SETTINGS

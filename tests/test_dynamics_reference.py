@@ -265,7 +265,7 @@ def test_rolling_resistance_from_wheel_loads_on_the_level():
     drive, caster = dynamics.wheel_loads(v, 0.0, 0.0, 0.0)
     assert drive == pytest.approx(38.0 * 9.80665 * (0.42 - 0.05) / 0.42, rel=1e-12)
     assert drive + caster == pytest.approx(38.0 * 9.80665, rel=1e-12)
-    rolling = dynamics.rolling_resistance(v, 0.0, 0.0, 0.0, 0.5)
+    rolling = dynamics.rolling_resistance(v, 0.0, 0.0, 0.0, speed=0.5)
     assert rolling == pytest.approx(0.012 * drive / 2 + 0.02 * caster / 2, rel=1e-12)
 
 

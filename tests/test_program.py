@@ -58,7 +58,9 @@ def test_error_propagation_rules_on_a_small_program():
     |A| e_b + |B| e_a + e_a e_b and of a sum e_a + e_b (interval arithmetic; propagated error as in
     Burden & Faires, Numerical Analysis, ch. 1, from memory) plus 1/2 step per rounding shift
     (round to nearest, Oppenheim & Schafer, from memory)."""
-    spec = tb.make_spec("t", "x", "none", (tb.Piece(0, 100, lambda x: 3.0 + 0.0 * x),), 16, "1", "three")
+    spec = tb.make_spec(
+        "t", "x", "none", (tb.Piece(0, 100, lambda x: 3.0 + 0.0 * x),), bits=16, unit="1", meaning="three"
+    )
     prog = program.Program(
         interface.FEEDFORWARD,
         [
