@@ -19,7 +19,5 @@ def main(argv: list[str] | None = None) -> None:
     import importlib
 
     cli = importlib.import_module("kinetab.generator.cli")
-    cli.register_lazy(
-        "bench", "kinetab.hil.commands", "bench", "Bench link: plan, simulate, run (see hil/PROTOCOL.md)."
-    )
+    cli.register_lazy("bench", "kinetab.hil.commands", "bench", "Bench link to the drive controller: serial ports.")
     cli.main(argv)

@@ -1,4 +1,4 @@
-"""The `kinetab` command line: thin click commands over pure functions (DESIGN §7)."""
+"""The `kinetab` command line: thin click commands over pure functions (README: command line)."""
 
 from __future__ import annotations
 

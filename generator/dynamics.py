@@ -1,4 +1,4 @@
-"""Floating-point rigid-body dynamics of the vehicle in rim-distance wheel coordinates (DESIGN §4).
+"""Floating-point rigid-body dynamics of the vehicle in rim-distance wheel coordinates (docs/physics.md).
 
 Every function takes numpy-broadcastable arrays, so the same code evaluates one operating point for
 `predict` and a hundred thousand for the error analysis. Index 0 is the right wheel, 1 the left.
@@ -43,7 +43,7 @@ class OperatingPoint:
 
 @dataclass(frozen=True)
 class WheelForces:
-    """Longitudinal force terms at one wheel's rim, N (DESIGN §4: Q = M q'' + V + F + R + G)."""
+    """Longitudinal force terms at one wheel's rim, N (Q = M q'' + V + F + R + G)."""
 
     inertia: Array
     coriolis: Array
@@ -111,7 +111,7 @@ def inverse_mass_matrix(v: Vehicle, payload_kg: ArrayLike) -> Array:
 
 def coriolis_coefficient(v: Vehicle, payload_kg: ArrayLike) -> Array:
     """K = m c / (4 b^2), kg/m: the centrifugal/Coriolis forces are V_R = K (u_R - u_L) u_L and
-    V_L = -K (u_R - u_L) u_R (DESIGN's V = -m c w^2/2 +- m c v w/(2b), multiplied out)."""
+    V_L = -K (u_R - u_L) u_R (V = -m c w^2/2 +- m c v w/(2b), multiplied out)."""
     body = combined(v, payload_kg)
     b = half_track(v)
     return body.mass_kg * body.cog_ahead_m / (4 * b * b)

@@ -1,6 +1,6 @@
 """Vehicle model file: TOML with units -> a validated, frozen Vehicle in SI units.
 
-The key table below is the contract of DESIGN §3; README's model reference is written from it.
+The key table below is the model-file contract; README's model reference is written from it.
 """
 
 from __future__ import annotations
@@ -383,3 +383,24 @@ def load(path: str | Path) -> Vehicle:
     except tomllib.TOMLDecodeError as exc:
         raise ModelError(src, "syntax", "valid TOML", str(exc)) from None
     return parse_document(doc, src)
+
+
+def reference_rows() -> list[str]:
+    """README's model reference table, one Markdown row per key, written from the schema above."""
+    rows = ["| key | unit kind | default | meaning and sign convention | accepted values |", "|---|---|---|---|---|"]
+    rows.append(
+        "| `name` | C identifier `[a-z][a-z0-9_]{0,31}`, no C/C++ keyword | required "
+        "| prefix of every generated C symbol | |"
+    )
+    for section, keys in SCHEMA.items():
+        for key, spec in keys.items():
+            if spec.kind is CHOICE:
+                kind = " or ".join(f"`{c}`" for c in spec.choices)
+            elif spec.kind is RATIO:
+                kind = "bare number"
+            else:
+                kind = f"{spec.kind.name.split(' ', 1)[1]} (e.g. {spec.kind.example})"
+            default = "required" if spec.default is None else f"= `{spec.default}`"
+            meaning = spec.meaning.replace("|", "\\|")
+            rows.append(f"| `{section}.{key}` | {kind} | {default} | {meaning} | {spec.expect} |")
+    return rows

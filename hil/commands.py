@@ -9,7 +9,7 @@ import click
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})
 def bench() -> None:
-    """Bench link: find ports, plan, simulate and run trajectories on the drive controller."""
+    """Bench link to the drive controller: serial ports."""
 
 
 @bench.command(short_help="List serial ports with USB VID:PID, serial number and description.")

@@ -1,6 +1,6 @@
 """Cross-compile generated C for Cortex-M with zig (pip: ziglang) and run it in unicorn (pip).
 
-Facts from ../shared/TOOLCHAIN.md: no -nostdlib (64-bit helpers come from compiler-rt); the CPU model
+Facts recorded in DEVELOPERS.md (cross-compiling): no -nostdlib (64-bit helpers come from compiler-rt); the CPU model
 is set with ctl_set_cpu_model (UC_MODE_MCLASS would silently run a Cortex-M33); PT_LOAD segments
 are loaded with pyelftools and the function is called with LR at a sentinel address.
 """

@@ -46,7 +46,7 @@ def test_strict_host_compile_and_cxx_header(demo_dir):
 
 
 def test_generated_c_contract(demo_dir):
-    """DESIGN §6: stdint only, guards, prefixed API, no float/double/malloc/division, no time stamp."""
+    """The C contract in README: stdint only, guards, prefixed API, no float/double/malloc/division, no time stamp."""
     h = (demo_dir / "larkspur_ff.h").read_text()
     c = (demo_dir / "larkspur_ff.c").read_text()
     assert "#ifndef LARKSPUR_FF_H" in h and 'extern "C"' in h and "#include <stdint.h>" in h
@@ -104,7 +104,7 @@ def test_two_builds_byte_identical_and_fingerprint_follows_the_model():
 @pytest.mark.skipif(not cortexm.zig_available(), reason="pip install ziglang")
 @pytest.mark.parametrize("target", ["cortex_m0plus", "cortex_m4"])
 def test_cortex_m_same_integers_as_host(demo_dir, target, tmp_path):
-    """Strict flags for the target, then run in unicorn with the matching CPU model (TOOLCHAIN.md)."""
+    """Strict flags for the target, then run in unicorn with the matching CPU model (DEVELOPERS.md, cross-compiling)."""
     fw = demo_firmware()
     rows = vectors.feedforward_table(fw, 1500)
     elf = cortexm.compile_elf([demo_dir / "larkspur_ff.c"], target, "larkspur_feedforward", tmp_path / "ff.elf")

@@ -146,7 +146,7 @@ def test_closed_forms_match_kane_derivation(kane, seed):
 
 
 def _dhaouadi(v, payload):
-    """Dhaouadi & Abu Hatab (2013), Adv. Robot. Autom. 2:107, wheel-angle coordinates (REFERENCES.md).
+    """Dhaouadi & Abu Hatab (2013), Adv. Robot. Autom. 2:107, wheel-angle coordinates (docs/references.md).
 
     Their m_c*d is our combined m*c (wheel masses sit on the axle), I is the yaw inertia about A = P,
     and I_w is the wheel inertia including the reflected rotor.
@@ -209,7 +209,7 @@ def test_standard_gravity():
     """g_n = 9.80665 m/s^2 exactly (3rd CGPM 1901; NIST SP 330)."""
     assert dynamics.G_N == 9.80665
     v = _vehicle()
-    grade = math.atan(0.10)  # 10 % grade = 5.7106 deg (REFERENCES.md, run)
+    grade = math.atan(0.10)  # 10 % grade = 5.7106 deg (atan, run)
     assert math.degrees(grade) == pytest.approx(5.7106, abs=1e-4)
     gr, gl = dynamics.gravity(v, 0.0, grade, 0.0)
     assert gr + gl == pytest.approx(38.0 * 9.80665 * math.sin(grade), rel=1e-12)
@@ -270,7 +270,7 @@ def test_rolling_resistance_from_wheel_loads_on_the_level():
 
 
 def test_motor_direction_rule():
-    """Motoring divides by eta, back-driving multiplies by eta_back (gear-drive technical data, REFERENCES.md)."""
+    """Motoring divides by eta, back-driving multiplies by eta_back (gear-drive technical data sheets)."""
     v = _vehicle()
     r, i = v.wheels.diameter_m / 2, v.drive.gear_ratio
     assert dynamics.motor_torque(v, 100.0, 0.5) == pytest.approx(100 * r / (i * 0.85), rel=1e-12)

@@ -51,7 +51,7 @@ def test_ties_go_up_not_to_even():
 
 
 def test_q_format_keeps_the_largest_value_inside_the_word():
-    """Q notation (TI): Qm.n leaves the sign bit out of m; Q15 = 16-bit word (REFERENCES.md)."""
+    """Q notation (TI): Qm.n leaves the sign bit out of m; Q15 = 16-bit word (TI convention)."""
     assert fx.q_name(15, 16) == "Q0.15"
     assert fx.frac_bits_for(0.99, 16) == 15
     assert fx.frac_bits_for(1.0, 16) == 14  # 1.0 * 2^15 = 32768 does not fit
@@ -60,7 +60,7 @@ def test_q_format_keeps_the_largest_value_inside_the_word():
 
 
 def test_clamping_follows_the_cmsis_dsp_convention():
-    """Out-of-range inputs give the end entries (CMSIS-DSP linear interpolation clamps, REFERENCES.md)
+    """Out-of-range inputs give the end entries (CMSIS-DSP linear interpolation clamps)
     and set the input's bit in `clamped`."""
     fw = demo_firmware()
     lim = fw.design.limits
