@@ -9,7 +9,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import __version__, analysis, dynamics, interface, program, sizing
+from . import __version__, analysis, dynamics, interface, program, sizing, stability
 from . import tables as tb
 from .errors import CheckFailed
 from .vehicle import Vehicle
@@ -64,7 +64,9 @@ def forward_budget(v: Vehicle) -> float:
 
 
 def synthesise(v: Vehicle) -> Firmware:
-    """Design the programs, size every table to the budget, prove ranges; CheckFailed when impossible."""
+    """Design the programs, size every table to the budget, prove ranges; CheckFailed when impossible.
+    A vehicle that tips over its envelope is refused here too (ModelError), however it was built."""
+    stability.check(v)
     des = program.design(v)
     fw = v.firmware
     ff_names = [n for n in des.specs if not n.startswith("minv")]

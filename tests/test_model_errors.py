@@ -5,7 +5,7 @@ from __future__ import annotations
 import pytest
 from kinetab.generator import cli
 
-from tests.helpers import demo_doc, write_model
+from tests.helpers import DEMO_PATH, demo_doc, write_model
 
 
 def _run(args, capsys):
@@ -129,3 +129,26 @@ def test_deadband_needs_a_speed_step_below_speed_max(tmp_path, capsys):
     path = write_model(tmp_path, doc)
     code, _, err = _run(["predict", str(path)], capsys)
     assert code == 2 and "friction.deadband" in err and "one firmware.speed_lsb step" in err
+
+
+def test_library_refuses_a_tipping_vehicle_with_the_cli_message(tmp_path, capsys):
+    """Regression: only the CLI checked stability, so the library synthesised tables for a vehicle that
+    tips. The loader and synthesise now refuse it with the same one line the CLI prints."""
+    import dataclasses
+
+    from kinetab.generator import model, synthesis
+    from kinetab.generator.errors import ModelError
+
+    doc = demo_doc()
+    doc["payload"]["cog_ahead"] = "0 mm"
+    doc["payload"]["cog_height"] = "0.9 m"
+    path = write_model(tmp_path, doc)
+    code, _, err = _run(["build", str(path), "-o", str(tmp_path / "out")], capsys)
+    assert code == 2 and not (tmp_path / "out").exists()
+    with pytest.raises(ModelError) as loaded:
+        model.load(path)
+    assert str(loaded.value) == err.strip()
+    ok = model.load(DEMO_PATH)
+    tipping = dataclasses.replace(ok, payload=dataclasses.replace(ok.payload, cog_ahead_m=0.0, cog_height_m=0.9))
+    with pytest.raises(ModelError, match="the vehicle tips"):
+        synthesis.synthesise(tipping)
