@@ -204,93 +204,147 @@ def _envelope_table(v: Vehicle, rep: envelope.EnvelopeReport) -> str:
     return "\n".join(lines)
 
 
-def _synthesise(v: Vehicle) -> Any:
-    from . import synthesis
-
-    for problem in envelope.corner_peaks(v)[3]:
-        click.echo(f"warning: {v.source}: envelope: {problem}", err=True)
-    return synthesis.synthesise(v)
+def _out_dir(text: str) -> Path:
+    if not text.strip():
+        raise UserError("-o/--out: expected an output folder, found an empty name (use '.' for this folder)")
+    return Path(text)
 
 
-@cli.command()
+def _envelope_gate(v: Vehicle, allow: bool) -> None:
+    """build refuses an infeasible envelope unless the user accepts it, and says so either way."""
+    from . import gate
+
+    check, problems = gate.envelope_check(v, allow=allow)
+    if not check.ok:
+        raise CheckFailed(check.detail)
+    if problems:
+        click.echo(f"warning: {check.detail}", err=True)
+
+
+ALLOW_HELP = "Build or pass even when the envelope exceeds the drive's current, voltage or grip limits."
+
+
+@cli.command(short_help="Generate the feed-forward C files for a model.")
 @click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
 @click.option("-o", "--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Output folder.")
 @click.option(
     "--vectors",
     "vectors_path",
-    type=click.Path(dir_okay=False),
-    help="Also write golden vectors (CSV: inputs and expected outputs in firmware steps).",
+    type=click.Path(dir_okay=False, allow_dash=True),
+    help="Also write golden vectors (CSV, firmware steps); '-' prints them on standard output.",
 )
-def build(model_path: str, out_dir: str, vectors_path: str | None) -> None:
-    """Generate <name>_ff.h and <name>_ff.c into OUT (atomically); exit 1 if the budget cannot be met."""
-    from . import outputs, render, vectors
+@click.option("--allow-infeasible-envelope", "allow", is_flag=True, help=ALLOW_HELP)
+def build(model_path: str, out_dir: str, vectors_path: str | None, allow: bool) -> None:
+    """Generate <name>_ff.h and <name>_ff.c into OUT, all files or none; exit 1 if the envelope is
+    infeasible (unless accepted) or the budget cannot be met."""
+    from . import outputs, render, synthesis, vectors
 
+    folder = _out_dir(out_dir)
     v = model.load(model_path)
-    fw = _synthesise(v)
-    files = render.render(fw)
-    outputs.write_all(Path(out_dir), files)
-    if vectors_path:
-        outputs.write_file(Path(vectors_path), vectors.to_csv(fw, vectors.feedforward_table(fw)))
+    _envelope_gate(v, allow)
+    fw = synthesis.synthesise(v)
+    files = {folder / name: text for name, text in render.render(fw).items()}
+    csv = vectors.to_csv(fw, vectors.feedforward_table(fw)) if vectors_path else None
+    if csv is not None and vectors_path != "-":
+        files[Path(str(vectors_path))] = csv
+    outputs.write_set(files)
+    if csv is not None and vectors_path == "-":
+        click.echo(csv, nl=False)
     click.echo(
-        f"wrote {', '.join(str(Path(out_dir) / n) for n in files)}: tables {fw.total_bytes} bytes, "
-        f"proven error {fw.ff_bound_a * 1000:.3f} mA of {v.firmware.current_budget_a * 1000:.3f} mA budget"
+        f"wrote {', '.join(str(p) for p in files)}: tables {fw.total_bytes} bytes, proven error "
+        f"{fw.ff_bound_a * 1000:.3f} mA of {v.firmware.current_budget_a * 1000:.3f} mA budget",
+        err=vectors_path == "-",
     )
 
 
-@cli.command()
+@cli.command(short_help="CI gate: generated files fresh, envelope feasible, error within budget.")
 @click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
 @click.argument("out_dir", metavar="DIR", type=click.Path(file_okay=False))
 @click.option("--report", "report_path", type=click.Path(dir_okay=False), help="Write a JSON report (SI units).")
 @click.option("--junit", "junit_path", type=click.Path(dir_okay=False), help="Write JUnit XML for CI.")
-def verify(model_path: str, out_dir: str, report_path: str | None, junit_path: str | None) -> None:
-    """Exit 0 when DIR holds exactly what build writes now and the error budget holds, else 1."""
-    from . import accuracy, outputs, render, synthesis
+@click.option(
+    "--vectors",
+    "vectors_path",
+    type=click.Path(dir_okay=False),
+    help="Golden vectors to check (default: DIR/vectors.csv when it exists).",
+)
+@click.option("--allow-infeasible-envelope", "allow", is_flag=True, help=ALLOW_HELP)
+def verify(
+    model_path: str,
+    out_dir: str,
+    report_path: str | None,
+    junit_path: str | None,
+    vectors_path: str | None,
+    allow: bool,
+) -> None:
+    """Exit 0 when DIR holds exactly what build writes now, the envelope is feasible and the error
+    budget holds; else 1, with one line per failed check."""
+    from . import accuracy, gate, outputs, synthesis
 
+    folder = _out_dir(out_dir)
     v = model.load(model_path)
+    env, problems = gate.envelope_check(v, allow=allow)
     try:
         fw = synthesis.synthesise(v)
     except CheckFailed as exc:
-        _write_failed_reports(v, exc, report_path, junit_path)
-        raise
-    files = render.render(fw)
-    statuses = [outputs.check_file(Path(out_dir), name, text) for name, text in files.items()]
-    doc = outputs.report(fw, accuracy.measure(fw), statuses)
-    if report_path:
-        outputs.write_file(Path(report_path), json.dumps(doc, indent=2) + "\n")
-    if junit_path:
-        outputs.write_file(Path(junit_path), outputs.junit(doc))
-    for s in statuses:
-        click.echo(s.detail)
+        checks = [env, outputs.Check("error budget", False, str(exc))]
+        _write_reports(outputs.failed_report(v.source, v.firmware.current_budget_a, checks), report_path, junit_path)
+        _finish(checks, v.source)
+        return
+    rebuild = f"kinetab build {model_path} -o {out_dir}"
+    checks = [
+        *gate.file_checks(fw, folder, Path(vectors_path) if vectors_path else None, rebuild),
+        env,
+        gate.budget_check(fw),
+    ]
+    doc = outputs.report(fw, accuracy.measure(fw), checks, problems)
+    _write_reports(doc, report_path, junit_path)
     click.echo(
-        f"error: proven {fw.ff_bound_a * 1000:.3f} mA, measured max {doc['max_error'] * 1000:.3f} mA, "
-        f"budget {v.firmware.current_budget_a * 1000:.3f} mA"
+        f"accuracy: proven bound {fw.ff_bound_a * 1000:.3f} mA, measured max "
+        f"{doc['max_error_a'] * 1000:.3f} mA, budget {v.firmware.current_budget_a * 1000:.3f} mA"
     )
-    bad = [s for s in statuses if not s.ok]
-    if bad:
-        raise CheckFailed(bad[0].detail)
+    _finish(checks, v.source)
 
 
-def _write_failed_reports(v: Vehicle, exc: CheckFailed, report_path: str | None, junit_path: str | None) -> None:
-    """Reports for a model whose budget cannot be met: the same files, saying why."""
+def _write_reports(doc: dict[str, Any], report_path: str | None, junit_path: str | None) -> None:
     from . import outputs
 
-    doc = outputs.failed_report(v.source, v.firmware.current_budget_a, str(exc))
+    files = {}
     if report_path:
-        outputs.write_file(Path(report_path), json.dumps(doc, indent=2) + "\n")
+        files[Path(report_path)] = json.dumps(doc, indent=2) + "\n"
     if junit_path:
-        outputs.write_file(Path(junit_path), outputs.junit(doc))
+        files[Path(junit_path)] = outputs.junit(doc)
+    outputs.write_set(files)
 
 
-@cli.command()
+def _finish(checks: list[Any], source: str) -> None:
+    """One line per check (passes on stdout, failures on stderr), then the verdict."""
+    from . import gate
+
+    for c in checks:
+        click.echo(f"{'ok' if c.ok else 'FAILED'}: {c.detail}", err=not c.ok)
+    if not all(c.ok for c in checks):
+        raise CheckFailed(gate.summary(checks, source))
+    click.echo(gate.summary(checks, source))
+
+
+@cli.command(short_help="Plots of every table, the error and the envelope.")
 @click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
 @click.option("-o", "--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Output folder.")
 def report(model_path: str, out_dir: str) -> None:
     """Plots (PNG) of every table, the error distribution and the envelope, with an index.html."""
-    from . import accuracy, plots
+    from . import accuracy, outputs, plots, synthesis
 
+    folder = _out_dir(out_dir)
     v = model.load(model_path)
-    fw = _synthesise(v)
-    names = plots.write_report(fw, accuracy.measure(fw), envelope.analyse(v), Path(out_dir))
+    for problem in envelope.corner_peaks(v)[3]:
+        click.echo(f"warning: {v.source}: envelope: {problem}", err=True)
+    fw = synthesis.synthesise(v)
+    outputs.check_folder(folder)
+    try:
+        names = plots.write_report(fw, accuracy.measure(fw), envelope.analyse(v), folder)
+    except OSError as exc:
+        raise UserError(f"{exc.filename or folder}: cannot write ({exc.strerror})") from None
     click.echo(f"wrote {len(names)} files to {out_dir} (open index.html)")
 
 

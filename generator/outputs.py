@@ -1,10 +1,12 @@
-"""Generated files on disk: atomic writes, freshness checks, and the verify report (JSON, JUnit)."""
+"""Generated files on disk: atomic writes of a whole set, freshness checks, and the verify report
+(JSON, JUnit) built from the list of checks verify ran."""
 
 from __future__ import annotations
 
 import os
 import tempfile
 import xml.etree.ElementTree as ET
+from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -15,93 +17,137 @@ from .errors import UserError
 from .synthesis import Firmware
 
 
-def write_atomically(path: Path, text: str) -> None:
-    """Write via a temporary file in the same folder and rename, so readers never see half a file."""
-    path.parent.mkdir(parents=True, exist_ok=True)
+def _umask() -> int:
+    """The process umask (read by setting it and putting it back)."""
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
+
+
+def _temporary(path: Path, text: str) -> Path:
+    """`text` in a temporary file beside `path`, with the mode a plain new file would get (0666 less
+    the umask: mkstemp's 0600 would hide the headers from a build server's other users)."""
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     try:
         with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as fh:
             fh.write(text)
-        os.replace(tmp, path)
+        os.chmod(tmp, 0o666 & ~_umask())
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
         raise
+    return Path(tmp)
+
+
+def _check_target(path: Path) -> None:
+    """A path we are about to write: not a folder, and its folder exists or can be made and written."""
+    if path.is_dir():
+        raise UserError(f"{path}: expected a file name, found a folder")
+    folder = path.parent
+    probe = folder
+    while not probe.exists():
+        probe = probe.parent
+    if not probe.is_dir():
+        raise UserError(f"{path}: cannot write: {probe} is a file, not a folder")
+    if not os.access(probe, os.W_OK | os.X_OK):
+        raise UserError(f"{path}: cannot write: permission denied in {probe}")
+
+
+def check_folder(folder: Path) -> None:
+    """A folder we are about to fill: a folder (or creatable) and writable, else one line (exit 2)."""
+    if folder.exists() and not folder.is_dir():
+        raise UserError(f"{folder}: expected an output folder, found a file")
+    _check_target(folder / "index.html")
+
+
+def write_set(files: Mapping[Path, str]) -> None:
+    """Write several files so that readers see either the old set or the new one: every target is
+    checked first, every text goes to a temporary file, and only then are they renamed into place.
+    A failure before the renames leaves every old file untouched (one user-facing line, exit 2)."""
+    for path in files:
+        _check_target(path)
+    temps: dict[Path, Path] = {}
+    try:
+        for path, text in files.items():
+            path.parent.mkdir(parents=True, exist_ok=True)
+            temps[path] = _temporary(path, text)
+        for path, tmp in temps.items():
+            os.replace(tmp, path)
+    except OSError as exc:
+        raise UserError(f"{exc.filename or 'output'}: cannot write ({exc.strerror})") from None
+    finally:
+        for tmp in temps.values():
+            tmp.unlink(missing_ok=True)
 
 
 def write_file(path: Path, text: str) -> None:
-    """write_atomically, with a failure reported as one user-facing line (exit 2)."""
-    if path.is_dir():
-        raise UserError(f"{path}: expected a file name, found a folder")
-    try:
-        write_atomically(path, text)
-    except OSError as exc:
-        raise UserError(f"{path}: cannot write ({exc.strerror})") from None
-
-
-def write_all(folder: Path, files: dict[str, str]) -> None:
-    if folder.exists() and not folder.is_dir():
-        raise UserError(f"{folder}: expected an output folder, found a file")
-    try:
-        for name, text in files.items():
-            write_atomically(folder / name, text)
-    except OSError as exc:
-        raise UserError(f"{folder}: cannot write ({exc.strerror})") from None
+    """One file, atomically (see write_set)."""
+    write_set({path: text})
 
 
 @dataclass(frozen=True)
-class FileStatus:
+class Check:
+    """One verdict of verify: a JUnit test case and a JSON entry."""
+
     name: str
     ok: bool
     detail: str
 
 
-def check_file(folder: Path, name: str, expected: str) -> FileStatus:
-    """Fresh, or the first difference (line and both texts), or missing."""
-    path = folder / name
+def check_file(path: Path, expected: str, rebuild: str) -> Check:
+    """Fresh, or missing, or the first difference (line and both texts); `rebuild` is the command
+    that brings it up to date."""
+    name = f"file {path.name} is fresh"
     if not path.is_file():
-        return FileStatus(name, False, f"{path}: missing (run kinetab build)")
+        return Check(name, False, f"{path}: missing; run: {rebuild}")
     try:
         found = path.read_bytes().decode("utf-8")
     except (OSError, UnicodeDecodeError):
-        return FileStatus(name, False, f"{path}: unreadable")
+        return Check(name, False, f"{path}: unreadable; run: {rebuild}")
     if found == expected:
-        return FileStatus(name, True, f"{path}: fresh")
+        return Check(name, True, f"{path}: fresh")
+    if found.replace("\r\n", "\n") == expected:
+        return Check(
+            name,
+            False,
+            f"{path}: line endings changed (CRLF); check it out with LF line endings "
+            f"(git: `*.c *.h text eol=lf` in .gitattributes) or run: {rebuild}",
+        )
     exp_lines, got_lines = expected.split("\n"), found.split("\n")
     for i, (e, g) in enumerate(zip(exp_lines, got_lines), start=1):
         if e != g:
-            return FileStatus(
-                name, False, f"{path}:{i}: stale or edited: expected {e.strip()[:60]!r}, found {g.strip()[:60]!r}"
+            return Check(
+                name,
+                False,
+                f"{path}:{i}: stale or edited: expected {e.strip()[:60]!r}, found {g.strip()[:60]!r}; run: {rebuild}",
             )
+    longer = "shorter" if len(got_lines) < len(exp_lines) else "longer"
     line = min(len(exp_lines), len(got_lines)) + 1
-    return FileStatus(
-        name,
-        False,
-        f"{path}:{line}: stale or edited: the file is "
-        f"{'shorter' if len(got_lines) < len(exp_lines) else 'longer'} than a fresh build",
+    return Check(
+        name, False, f"{path}:{line}: stale or edited: the file is {longer} than a fresh build; run: {rebuild}"
     )
 
 
-def report(fw: Firmware, acc: Accuracy, files: list[FileStatus]) -> dict[str, Any]:
-    """The verify JSON: SI units (A for currents; each table's own unit for its error)."""
+def report(fw: Firmware, acc: Accuracy, checks: list[Check], problems: list[str]) -> dict[str, Any]:
+    """The verify JSON (README lists every field): currents in A, each table's error in its own unit."""
     f = fw.vehicle.firmware
-    budget_ok = fw.ff_bound_a <= f.current_budget_a
     return {
-        "ok": budget_ok and all(s.ok for s in files),
+        "ok": all(c.ok for c in checks),
         "model": fw.vehicle.source,
         "fingerprint": f"0x{fw.fingerprint:08X}",
-        "budget": f.current_budget_a,
-        "bound": fw.ff_bound_a,
-        "max_error": acc.total.max,
-        "rms_error": acc.total.rms,
+        "budget_a": f.current_budget_a,
+        "bound_a": fw.ff_bound_a,
+        "max_error_a": acc.total.max,
+        "rms_error_a": acc.total.rms,
         "worst_case": acc.where,
         "points": acc.points,
-        "split": {
+        "split_a": {
             name: {"max": getattr(acc, name).max, "rms": getattr(acc, name).rms}
             for name in ("interpolation", "quantisation", "arithmetic")
         },
-        "clamping": {"max": acc.clamping.max, "rms": acc.clamping.rms},
-        "input_resolution": acc.input_resolution,
-        "forward": {"bound": fw.fwd_bound_mps2, "goal": fw.fwd_budget_mps2},
+        "clamping_a": {"max": acc.clamping.max, "rms": acc.clamping.rms},
+        "input_resolution_a": acc.input_resolution,
+        "envelope_problems": problems,
+        "forward_mps2": {"bound": fw.fwd_bound_mps2, "goal": fw.fwd_budget_mps2},
         "total_bytes": fw.total_bytes,
         "tables": [
             {
@@ -114,38 +160,30 @@ def report(fw: Firmware, acc: Accuracy, files: list[FileStatus]) -> dict[str, An
             }
             for n, t in fw.tables.items()
         ],
-        "files": [{"name": s.name, "ok": s.ok, "detail": s.detail} for s in files],
+        "checks": [{"name": c.name, "ok": c.ok, "detail": c.detail} for c in checks],
     }
 
 
-def failed_report(source: str, budget: float, error: str) -> dict[str, Any]:
-    """The verify JSON when the budget cannot be met at all (no tables to report)."""
-    return {"ok": False, "model": source, "budget": budget, "error": error, "tables": [], "files": []}
+def failed_report(source: str, budget: float, checks: list[Check]) -> dict[str, Any]:
+    """The verify JSON when no tables could be made (the budget cannot be met at all)."""
+    return {
+        "ok": False,
+        "model": source,
+        "budget_a": budget,
+        "tables": [],
+        "checks": [{"name": c.name, "ok": c.ok, "detail": c.detail} for c in checks],
+    }
 
 
 def junit(doc: dict[str, Any]) -> str:
-    """JUnit XML: one case per generated file and one for the error budget."""
+    """JUnit XML: one test case per check verify ran."""
     suite = ET.Element("testsuite", name="kinetab verify")
-    cases = []
-    for f in doc["files"]:
-        cases.append((f"file {f['name']} is fresh", f["ok"], f["detail"]))
-    if "error" in doc:
-        cases.append(("error budget", False, doc["error"]))
-    else:
-        cases.append(
-            (
-                "error budget",
-                doc["bound"] <= doc["budget"],
-                f"proven bound {doc['bound']:.6g} A, measured max {doc['max_error']:.6g} A, "
-                f"budget {doc['budget']:.6g} A",
-            )
-        )
-    for name, ok, detail in cases:
-        case = ET.SubElement(suite, "testcase", classname="kinetab", name=name)
-        if not ok:
-            ET.SubElement(case, "failure", message=detail).text = detail
+    for c in doc["checks"]:
+        case = ET.SubElement(suite, "testcase", classname="kinetab", name=c["name"])
+        if not c["ok"]:
+            ET.SubElement(case, "failure", message=c["detail"]).text = c["detail"]
         else:
-            ET.SubElement(case, "system-out").text = detail
-    suite.set("tests", str(len(cases)))
-    suite.set("failures", str(sum(1 for _, ok, _ in cases if not ok)))
+            ET.SubElement(case, "system-out").text = c["detail"]
+    suite.set("tests", str(len(doc["checks"])))
+    suite.set("failures", str(sum(1 for c in doc["checks"] if not c["ok"])))
     return ET.tostring(suite, encoding="unicode") + "\n"

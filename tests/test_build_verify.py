@@ -41,13 +41,14 @@ def test_verify_fresh_with_reports(built, tmp_path, capsys):
     code, out, _ = run(["verify", str(DEMO_PATH), str(built), "--report", str(rep), "--junit", str(jun)], capsys)
     assert code == 0 and "fresh" in out
     doc = json.loads(rep.read_text())
-    for key in ("ok", "budget", "max_error", "rms_error", "total_bytes", "tables"):
+    for key in ("ok", "budget_a", "max_error_a", "rms_error_a", "total_bytes", "tables", "checks"):
         assert key in doc
-    assert doc["ok"] is True and doc["max_error"] <= doc["bound"] <= doc["budget"] == 0.02
+    assert doc["ok"] is True and doc["max_error_a"] <= doc["bound_a"] <= doc["budget_a"] == 0.02
     assert {"name", "segments", "q_format", "bytes", "max_error"} <= set(doc["tables"][0])
     assert sum(t["bytes"] for t in doc["tables"]) == doc["total_bytes"]
     suite = ET.parse(jun).getroot()
-    assert suite.tag == "testsuite" and suite.get("failures") == "0" and int(suite.get("tests")) == 3
+    assert suite.tag == "testsuite" and suite.get("failures") == "0" and int(suite.get("tests")) == 4
+    assert [c.get("name") for c in suite] == [c["name"] for c in doc["checks"]]
 
 
 def test_verify_tampered_table(built, tmp_path, capsys):
@@ -143,3 +144,106 @@ def test_unwritable_outputs_are_one_line_errors(tmp_path, capsys):
     code, _, err = run(["build", str(DEMO_PATH), "-o", str(tmp_path / "g"), "--vectors", str(tmp_path)], capsys)
     assert code == 2 and err.count("\n") == 1 and "--vectors" in err and "Traceback" not in err
     assert not (tmp_path / "g").exists()
+
+
+def _infeasible(tmp_path):
+    doc = demo_doc()
+    doc["drive"]["current_limit"] = "3 A"  # the demo needs about 7 A at accel_max on pitch_max
+    return write_model(tmp_path, doc, "hot.toml")
+
+
+def test_infeasible_envelope_fails_verify_and_build_unless_accepted(tmp_path, capsys):
+    """Regression: verify passed and build only warned for a peak current above drive.current_limit."""
+    path = _infeasible(tmp_path)
+    out = tmp_path / "gen"
+    code, _, err = run(["build", str(path), "-o", str(out)], capsys)
+    assert code == 1 and "envelope infeasible" in err and "--allow-infeasible-envelope" in err
+    assert not out.exists()
+    code, _, err = run(["build", str(path), "-o", str(out), "--allow-infeasible-envelope"], capsys)
+    assert code == 0 and "accepted by --allow-infeasible-envelope" in err and (out / "larkspur_ff.h").exists()
+    rep, jun = tmp_path / "r.json", tmp_path / "j.xml"
+    code, _, err = run(["verify", str(path), str(out), "--report", str(rep), "--junit", str(jun)], capsys)
+    assert code == 1 and "envelope infeasible" in err
+    cases = {c.get("name"): c.find("failure") is not None for c in ET.parse(jun).getroot()}
+    assert cases["envelope within the drive's limits"] is True and cases["error budget"] is False
+    assert json.loads(rep.read_text())["envelope_problems"]
+    code, _, _ = run(["verify", str(path), str(out), "--allow-infeasible-envelope"], capsys)
+    assert code == 0
+
+
+def test_verify_checks_golden_vectors(tmp_path, capsys):
+    """Regression: a stale vectors.csv passed verify."""
+    out = tmp_path / "gen"
+    assert run(["build", str(DEMO_PATH), "-o", str(out), "--vectors", str(out / "vectors.csv")], capsys)[0] == 0
+    assert run(["verify", str(DEMO_PATH), str(out)], capsys)[0] == 0
+    vec = out / "vectors.csv"
+    lines = vec.read_text().splitlines()
+    lines[5] = lines[5].replace(",", ",1", 1)
+    vec.write_text("\n".join(lines) + "\n")
+    code, _, err = run(["verify", str(DEMO_PATH), str(out)], capsys)
+    assert code == 1 and "vectors.csv:6: stale or edited" in err and "--vectors" in err
+    code, _, err = run(["verify", str(DEMO_PATH), str(out), "--vectors", str(tmp_path / "none.csv")], capsys)
+    assert code == 1 and "none.csv: missing" in err
+
+
+def test_verify_output_truthful(built, capsys):
+    """Regression: success printed a line starting 'error:', a CRLF file was reported as 'expected /*,
+    found /*', the first failure was printed twice, and a stale file did not say what to run."""
+    code, out, err = run(["verify", str(DEMO_PATH), str(built)], capsys)
+    assert code == 0 and not any(line.startswith("error") for line in (out + err).splitlines())
+    assert "all 4 checks passed" in out
+    header = built / "larkspur_ff.h"
+    header.write_bytes(header.read_bytes().replace(b"\n", b"\r\n"))
+    code, out, err = run(["verify", str(DEMO_PATH), str(built)], capsys)
+    assert code == 1 and "line endings changed (CRLF)" in err
+    failing = [line for line in err.splitlines() if "larkspur_ff.h" in line]
+    assert len(failing) == 1 and f"kinetab build {DEMO_PATH} -o {built}" in failing[0]
+    assert err.strip().splitlines()[-1].endswith("1 of 4 checks failed")
+
+
+def test_written_files_honour_the_umask(tmp_path, capsys):
+    """Regression: every atomically written file came out 0600 (the temporary file's mode)."""
+    import os
+
+    old = os.umask(0o022)
+    try:
+        assert run(["build", str(DEMO_PATH), "-o", str(tmp_path / "g")], capsys)[0] == 0
+    finally:
+        os.umask(old)
+    assert (tmp_path / "g" / "larkspur_ff.h").stat().st_mode & 0o777 == 0o644
+
+
+def test_unwritable_vectors_leave_the_old_set_in_place(built, tmp_path, capsys):
+    """Regression: an unwritable --vectors path exited 2 after the C files were already written."""
+    import os
+
+    if os.geteuid() == 0:
+        blocked = tmp_path / "file_not_folder" / "v.csv"  # root can write anywhere: use a file as the folder
+        (tmp_path / "file_not_folder").write_text("x")
+    else:
+        locked = tmp_path / "locked"
+        locked.mkdir(mode=0o500)
+        blocked = locked / "v.csv"
+    before = {p.name: p.read_bytes() for p in built.iterdir()}
+    doc = demo_doc()
+    doc["friction"]["coulomb"] = "4.6 N"  # a different model: its files would differ
+    path = write_model(tmp_path, doc)
+    code, _, err = run(["build", str(path), "-o", str(built), "--vectors", str(blocked)], capsys)
+    assert code == 2 and err.count("\n") == 1 and "v.csv" in err
+    assert {p.name: p.read_bytes() for p in built.iterdir()} == before
+
+
+def test_vectors_dash_prints_csv_and_empty_out_is_refused(tmp_path, capsys, monkeypatch):
+    monkeypatch.chdir(tmp_path)
+    code, out, err = run(["build", str(DEMO_PATH), "-o", "gen", "--vectors", "-"], capsys)
+    assert code == 0 and out.splitlines()[1].startswith("speed_right,") and not (tmp_path / "-").exists()
+    assert "wrote" in err
+    code, _, err = run(["build", str(DEMO_PATH), "-o", ""], capsys)
+    assert code == 2 and "empty name" in err and sorted(p.name for p in tmp_path.iterdir()) == ["gen"]
+
+
+def test_report_into_an_unwritable_place_is_one_line(tmp_path, capsys):
+    blocker = tmp_path / "file"
+    blocker.write_text("x")
+    code, _, err = run(["report", str(DEMO_PATH), "-o", str(blocker / "sub")], capsys)
+    assert code == 2 and err.count("\n") == 1 and "Traceback" not in err
