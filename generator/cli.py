@@ -11,7 +11,7 @@ from typing import Any
 import click
 import numpy as np
 
-from . import __version__, dynamics, emulate, envelope, model, units
+from . import __version__, dynamics, emulate, envelope, interface, model, units
 from .cli_support import LazyGroup, QuantityType, run
 from .errors import CheckFailed, UserError
 from .vehicle import Vehicle
@@ -43,8 +43,14 @@ def init(path: str, force: bool) -> None:
     from . import outputs
 
     text = resources.files(__package__ + ".demos").joinpath(DEMO).read_text(encoding="utf-8")
+    name = target.stem
+    if model.NAME_PATTERN.fullmatch(name) and name not in model.C_KEYWORDS:
+        text = text.replace('name = "larkspur"', f'name = "{name}"', 1)
+        note = f"C prefix '{name}' from the file name"
+    else:
+        note = f"'{name}' is not a C name ([a-z][a-z0-9_]{{0,31}}), so the C prefix stays 'larkspur'"
     outputs.write_file(target, text)
-    click.echo(f"wrote {path} (invented demo vehicle; edit every value for your own)")
+    click.echo(f"wrote {path} (invented demo vehicle; edit every value for your own; {note})")
 
 
 def _point_options(func):  # type: ignore[no-untyped-def]
@@ -120,10 +126,17 @@ def _fill_fixed(v: Vehicle, op: dynamics.OperatingPoint, doc: dict[str, Any]) ->
     except (CheckFailed, UserError) as exc:
         click.echo(f"warning: current_fixed unavailable: {exc}", err=True)
         return
-    inp = synthesis.firmware_inputs(v, op)
+    try:
+        inp = synthesis.firmware_inputs(v, op)
+    except ValueError as exc:  # "speed_right: beyond ..." names the column, which is the option
+        column, why = str(exc).split(": ", 1)
+        raise UserError(f"kinetab predict: --{column.replace('_', '-')}: {why}") from None
     out = emulate.run(fw.design.feedforward, fw.tables, {k: np.atleast_1d(a) for k, a in inp.items()})
-    if int(out["clamped"][0]):
-        click.echo("warning: operating point outside the envelope; current_fixed uses the clamped inputs", err=True)
+    flags = int(out["clamped"][0])
+    if flags:
+        cols = interface.FF_IN.columns
+        names = ", ".join(f"--{c.replace('_', '-')}" for k, c in enumerate(cols) if flags >> k & 1)
+        click.echo(f"warning: {names} outside the envelope; current_fixed uses the envelope edge", err=True)
     for i, side in enumerate(("right", "left")):
         doc[side]["current_fixed"] = float(out["current"][0][i]) * v.firmware.current_lsb_a
 

@@ -34,6 +34,17 @@ def steps_within(limit: float, lsb: float) -> int:
     return k
 
 
+def steps_covering(limit: float, lsb: float) -> int:
+    """Smallest k with k * lsb >= limit: an envelope edge in steps that contains the stated limit, so an
+    input of exactly the limit, rounded to steps, is never outside it."""
+    k = math.ceil(limit / lsb)
+    while k > 0 and (k - 1) * lsb >= limit:
+        k -= 1
+    while k * lsb < limit:
+        k += 1
+    return k
+
+
 def shift_round(x: np.ndarray | int, shift: int) -> np.ndarray | int:
     """floor((x + 2^(shift-1)) / 2^shift) for shift > 0; x * 2^-shift for shift <= 0 (exact)."""
     if shift > 0:

@@ -16,7 +16,6 @@ from typing import Any
 
 from . import stability, units
 from .errors import ModelError
-from .fixedpoint import steps_within
 from .vehicle import SECTION_TYPES, Vehicle
 
 RATIO = units.Kind("a bare number", "", "0.85")
@@ -294,7 +293,7 @@ def _read_name(src: str, doc: dict[str, Any]) -> str:
 
 def _cross_checks(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any]) -> None:
     """Relations between keys: breakaway >= coulomb, plausible gyration radii, firmware steps."""
-    fr, env, fw, wh = s["friction"], s["envelope"], s["firmware"], s["wheels"]
+    fr, wh = s["friction"], s["wheels"]
     if fr["breakaway"] < fr["coulomb"]:
         raise ModelError(
             src,
@@ -311,20 +310,14 @@ def _cross_checks(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any]) -
                 f"a radius up to 3 x wheels.track ({limit:g} m) for this vehicle",
                 _describe(raw[part]["gyration_radius"]),
             )
-    if fr["deadband"] >= env["speed_max"]:
-        raise ModelError(
-            src,
-            "friction.deadband",
-            f"a speed below envelope.speed_max ({env['speed_max']:g} m/s)",
-            _describe(raw["friction"]["deadband"]),
-        )
-    if steps_within(fr["deadband"], fw["speed_lsb"]) >= steps_within(env["speed_max"], fw["speed_lsb"]):
-        raise ModelError(
-            src,
-            "friction.deadband",
-            "a deadband at least one firmware.speed_lsb step below envelope.speed_max",
-            _describe(raw["friction"]["deadband"]),
-        )
+    _firmware_steps(src, s, raw)
+    _deadband_rules(src, s, raw)
+
+
+def _firmware_steps(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any]) -> None:
+    """Every span the firmware counts in steps lies between 1 and 2^30 of them (checked before the
+    deadband rules, so a step coarser than the envelope names the step, not the deadband)."""
+    fr, env, fw = s["friction"], s["envelope"], s["firmware"]
     steps = [
         ("speed_lsb", env["speed_max"], "envelope.speed_max"),
         ("accel_lsb", env["accel_max"], "envelope.accel_max"),
@@ -341,6 +334,19 @@ def _cross_checks(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any]) -
                 f"a step that puts {what} between 1 and 2^30 steps",
                 f"{_describe(raw['firmware'][key])} ({count:.3g} steps)",
             )
+
+
+def _deadband_rules(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any]) -> None:
+    """The deadband ends below speed_max. In steps it then ends at least one step below the envelope
+    edge, which rounds up while the deadband edge rounds down (program.limits_of)."""
+    fr, env = s["friction"], s["envelope"]
+    if fr["deadband"] >= env["speed_max"]:
+        raise ModelError(
+            src,
+            "friction.deadband",
+            f"a speed below envelope.speed_max ({env['speed_max']:g} m/s)",
+            _describe(raw["friction"]["deadband"]),
+        )
 
 
 def parse_document(doc: dict[str, Any], source: str) -> Vehicle:

@@ -17,7 +17,6 @@ import numpy as np
 from . import dynamics, interface
 from . import fixedpoint as fx
 from . import tables as tb
-from .errors import UserError
 from .vehicle import Vehicle
 
 INT32_MAX = fx.word_max(32)
@@ -130,7 +129,7 @@ class Program:
 
 @dataclass(frozen=True)
 class Limits:
-    """Envelope edges in firmware steps (largest step count inside each limit)."""
+    """Envelope edges in firmware steps (see limits_of)."""
 
     speed: int
     accel: int
@@ -156,21 +155,19 @@ class Design:
 
 
 def limits_of(v: Vehicle) -> Limits:
+    """Envelope edges in steps, each containing its stated limit (rounded up), so an input of exactly the
+    limit is inside; the deadband edge is the last step inside the deadband (rounded down)."""
     fw, env = v.firmware, v.envelope
     lim = Limits(
-        speed=fx.steps_within(env.speed_max_mps, fw.speed_lsb_mps),
-        accel=fx.steps_within(env.accel_max_mps2, fw.accel_lsb_mps2),
-        pitch=fx.steps_within(env.pitch_max_rad, fw.angle_lsb_rad),
-        roll=fx.steps_within(env.roll_max_rad, fw.angle_lsb_rad),
-        payload=fx.steps_within(v.payload.mass_max_kg, fw.mass_lsb_kg),
+        speed=fx.steps_covering(env.speed_max_mps, fw.speed_lsb_mps),
+        accel=fx.steps_covering(env.accel_max_mps2, fw.accel_lsb_mps2),
+        pitch=fx.steps_covering(env.pitch_max_rad, fw.angle_lsb_rad),
+        roll=fx.steps_covering(env.roll_max_rad, fw.angle_lsb_rad),
+        payload=fx.steps_covering(v.payload.mass_max_kg, fw.mass_lsb_kg),
         deadband=fx.steps_within(v.friction.deadband_mps, fw.speed_lsb_mps),
-        current=fx.steps_within(v.drive.current_limit_a, fw.current_lsb_a),
+        current=fx.steps_covering(v.drive.current_limit_a, fw.current_lsb_a),
     )
-    if lim.deadband >= lim.speed:
-        raise UserError(
-            f"{v.source}: friction.deadband: expected at least one firmware.speed_lsb step below "
-            f"envelope.speed_max, found {lim.deadband} steps for both"
-        )
+    assert lim.deadband < lim.speed, "the loader keeps the deadband below speed_max"
     return lim
 
 

@@ -13,10 +13,14 @@ from tests.helpers import DEMO_PATH, demo_doc, write_model
 
 
 def run(args, capsys):
-    with pytest.raises(SystemExit) as exc:
+    """(exit code, stdout, stderr) of one command; 0 when it returns normally."""
+    try:
         cli.main(args)
+        code = 0
+    except SystemExit as exc:
+        code = exc.code
     out = capsys.readouterr()
-    return exc.value.code, out.out, out.err
+    return code, out.out, out.err
 
 
 def run_ok(args, capsys):
@@ -31,15 +35,40 @@ def test_version(capsys):
 
 def test_init_writes_loadable_model_and_refuses_overwrite(tmp_path, capsys):
     target = tmp_path / "cart.toml"
+    demo = DEMO_PATH.read_text().replace('name = "larkspur"', 'name = "cart"')
     run_ok(["init", str(target)], capsys)
-    assert target.read_text() == DEMO_PATH.read_text()
+    assert target.read_text() == demo
     assert "INVENTED DEMO" in target.read_text()
     model.load(target)
     target.write_text("mine")
     code, _, err = run(["init", str(target)], capsys)
     assert code == 2 and "--force" in err and target.read_text() == "mine"
     run_ok(["init", str(target), "--force"], capsys)
-    assert target.read_text() == DEMO_PATH.read_text()
+    assert target.read_text() == demo
+
+
+def test_init_names_the_model_after_its_file(tmp_path, capsys):
+    """Regression: `init cart.toml` wrote name = "larkspur", so the tour's cart_ff.h never appeared."""
+    out = run_ok(["init", str(tmp_path / "cart.toml")], capsys)
+    assert model.load(tmp_path / "cart.toml").name == "cart" and "from the file name" in out
+    out = run_ok(["init", str(tmp_path / "My Cart.toml")], capsys)
+    assert model.load(tmp_path / "My Cart.toml").name == "larkspur" and "stays 'larkspur'" in out
+
+
+def test_predict_beyond_int32_names_the_option(capsys):
+    """Regression: predict --speed-right 1e30 and --payload '1e30 kg' ended in tracebacks."""
+    for option, value in (("--speed-right", "1e30"), ("--payload", "1e30 kg")):
+        code, out, err = run(["predict", str(DEMO_PATH), option, value], capsys)
+        assert code == 2 and out == "" and len(err.strip().splitlines()) == 1 and option in err, err
+
+
+def test_envelope_limit_in_steps_contains_the_stated_limit(capsys):
+    """Regression: --pitch 5 at pitch_max = 5 deg warned 'outside the envelope' (174.5 steps rounded up
+    to 175 while the edge was 174); the warning now also names the input that is out."""
+    code, _, err = run(["predict", str(DEMO_PATH), "--pitch", "5", "--roll", "-3", "--payload", "60"], capsys)
+    assert code == 0 and "warning" not in err
+    code, _, err = run(["predict", str(DEMO_PATH), "--pitch", "5.1", "--speed-left", "0.9"], capsys)
+    assert code == 0 and "--speed-left, --pitch outside the envelope" in err
 
 
 def test_predict_json_shape_and_values(capsys):

@@ -87,5 +87,5 @@ def test_installed_commands_run(installed):
     assert doc["right"]["current"] > 0
     assert "feasible" in _kinetab(installed, "envelope", "cart.toml").stdout
     _kinetab(installed, "build", "cart.toml", "-o", "gen")  # renders from the templates inside the wheel
-    assert (work / "gen" / "larkspur_ff.h").read_text().startswith("/*")
+    assert (work / "gen" / "cart_ff.h").read_text().startswith("/*")  # init names the model after its file
     assert _kinetab(installed, "verify", "cart.toml", "gen").returncode == 0

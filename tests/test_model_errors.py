@@ -121,14 +121,21 @@ def test_bad_option_quantity_is_one_line(capsys):
     assert code == 2 and out == "" and len(err.strip().splitlines()) == 1 and "--pitch" in err
 
 
-def test_deadband_needs_a_speed_step_below_speed_max(tmp_path, capsys):
+def test_deadband_just_below_speed_max_stays_a_step_below_the_edge(tmp_path):
+    """The envelope edge in steps rounds up (it contains speed_max) and the deadband edge rounds down, so
+    a deadband below speed_max always ends at least one speed step below the edge (0.81 -> 8 steps,
+    0.85 -> 9 steps of 0.1 m/s); a deadband at speed_max is refused."""
+    from kinetab.generator import model, program
+
     doc = demo_doc()
     doc["envelope"]["speed_max"] = "0.85 m/s"
-    doc["friction"]["deadband"] = "0.81 m/s"  # same 0.1 m/s step as speed_max
+    doc["friction"]["deadband"] = "0.81 m/s"
     doc["firmware"]["speed_lsb"] = "0.1 m/s"
-    path = write_model(tmp_path, doc)
-    code, _, err = _run(["predict", str(path)], capsys)
-    assert code == 2 and "friction.deadband" in err and "one firmware.speed_lsb step" in err
+    lim = program.limits_of(model.load(write_model(tmp_path, doc)))
+    assert (lim.deadband, lim.speed) == (8, 9)
+    doc["friction"]["deadband"] = "0.85 m/s"
+    with pytest.raises(model.ModelError, match="friction.deadband: expected a speed below envelope.speed_max"):
+        model.load(write_model(tmp_path, doc))
 
 
 def test_library_refuses_a_tipping_vehicle_with_the_cli_message(tmp_path, capsys):
@@ -152,3 +159,33 @@ def test_library_refuses_a_tipping_vehicle_with_the_cli_message(tmp_path, capsys
     tipping = dataclasses.replace(ok, payload=dataclasses.replace(ok.payload, cog_ahead_m=0.0, cog_height_m=0.9))
     with pytest.raises(ModelError, match="the vehicle tips"):
         synthesis.synthesise(tipping)
+
+
+def test_speed_step_coarser_than_speed_max_names_the_step(tmp_path, capsys):
+    """Regression: speed_lsb > speed_max was blamed on friction.deadband."""
+    doc = demo_doc()
+    doc["firmware"]["speed_lsb"] = "1 m/s"
+    path = write_model(tmp_path, doc)
+    code, _, err = _run(["predict", str(path)], capsys)
+    assert code == 2 and err.startswith(f"{path}: firmware.speed_lsb: ") and "envelope.speed_max" in err
+
+
+@pytest.mark.parametrize("dotted,value", [("body.mass", "1e30 kg"), ("wheels.track", "1e30 m")])
+def test_absurd_values_are_refused_up_front(tmp_path, capsys, dotted, value):
+    """Regression: absurd values ended deep in synthesis ('product cos_sin_s76 ... outside int32') or in
+    screens of warnings; a plausible range per key (common practice) refuses them naming the key."""
+    path = write_model(tmp_path, _set(demo_doc(), dotted, value))
+    code, out, err = _run(["build", str(path), "-o", str(tmp_path / "g")], capsys)
+    assert code == 2 and out == "" and len(err.strip().splitlines()) == 1
+    assert err.startswith(f"{path}: {dotted}: expected a value >") and " and <= " in err
+
+
+def test_byte_order_mark_is_accepted(tmp_path):
+    """Regression: a UTF-8 byte-order mark was rejected as a TOML syntax error."""
+    from kinetab.generator import model
+
+    from tests.helpers import DEMO_PATH
+
+    path = tmp_path / "bom.toml"
+    path.write_bytes(b"\xef\xbb\xbf" + DEMO_PATH.read_bytes())
+    assert model.load(path).name == "larkspur"

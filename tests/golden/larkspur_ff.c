@@ -289,7 +289,7 @@ int32_t larkspur_table_roll_slope(int32_t payload)
  * Table sin_pitch: sin(pitch).
  *   input: pitch (0.0005 rad per step), odd in pitch: |x| is stored
  *   stored: int16_t int16 x 2^-17, one step = 2^-17 1 = 7.62939e-06 1
- *   piece 0: |x| in 0..174 steps (0..0.087 rad); 4 segments of 64 steps, breakpoints at x0 + k*64
+ *   piece 0: |x| in 0..175 steps (0..0.0875 rad); 4 segments of 64 steps, breakpoints at x0 + k*64
  *            worst error 1.17958e-05 1 (every input checked)
  *   from: firmware.angle_lsb = 0.0005 rad, envelope.pitch_max = 0.0872665 rad
  */
@@ -314,10 +314,10 @@ static int32_t lookup_sin_pitch(int32_t v)
 
 int32_t larkspur_table_sin_pitch(int32_t pitch)
 {
-    if (pitch < -174) {
-        pitch = -174;
-    } else if (pitch > 174) {
-        pitch = 174;
+    if (pitch < -175) {
+        pitch = -175;
+    } else if (pitch > 175) {
+        pitch = 175;
     }
     return lookup_sin_pitch(pitch);
 }
@@ -326,7 +326,7 @@ int32_t larkspur_table_sin_pitch(int32_t pitch)
  * Table cos_pitch: cos(pitch).
  *   input: pitch (0.0005 rad per step), even in pitch: |x| is stored
  *   stored: int16_t Q1.14, one step = 2^-14 1 = 6.10352e-05 1
- *   piece 0: |x| in 0..174 steps (0..0.087 rad); 4 segments of 64 steps, breakpoints at x0 + k*64
+ *   piece 0: |x| in 0..175 steps (0..0.0875 rad); 4 segments of 64 steps, breakpoints at x0 + k*64
  *            worst error 0.00015532 1 (every input checked)
  *   from: firmware.angle_lsb = 0.0005 rad, envelope.pitch_max = 0.0872665 rad
  */
@@ -351,10 +351,10 @@ static int32_t lookup_cos_pitch(int32_t v)
 
 int32_t larkspur_table_cos_pitch(int32_t pitch)
 {
-    if (pitch < -174) {
-        pitch = -174;
-    } else if (pitch > 174) {
-        pitch = 174;
+    if (pitch < -175) {
+        pitch = -175;
+    } else if (pitch > 175) {
+        pitch = 175;
     }
     return lookup_cos_pitch(pitch);
 }
@@ -363,7 +363,7 @@ int32_t larkspur_table_cos_pitch(int32_t pitch)
  * Table sin_roll: sin(roll).
  *   input: roll (0.0005 rad per step), odd in roll: |x| is stored
  *   stored: int16_t int16 x 2^-18, one step = 2^-18 1 = 3.8147e-06 1
- *   piece 0: |x| in 0..104 steps (0..0.052 rad); 1 segment of 128 steps, breakpoints at x0 + k*128
+ *   piece 0: |x| in 0..105 steps (0..0.0525 rad); 1 segment of 128 steps, breakpoints at x0 + k*128
  *            worst error 1.5953e-05 1 (every input checked)
  *   from: firmware.angle_lsb = 0.0005 rad, envelope.roll_max = 0.0523599 rad
  */
@@ -386,10 +386,10 @@ static int32_t lookup_sin_roll(int32_t v)
 
 int32_t larkspur_table_sin_roll(int32_t roll)
 {
-    if (roll < -104) {
-        roll = -104;
-    } else if (roll > 104) {
-        roll = 104;
+    if (roll < -105) {
+        roll = -105;
+    } else if (roll > 105) {
+        roll = 105;
     }
     return lookup_sin_roll(roll);
 }
@@ -398,7 +398,7 @@ int32_t larkspur_table_sin_roll(int32_t roll)
  * Table cos_roll: cos(roll).
  *   input: roll (0.0005 rad per step), even in roll: |x| is stored
  *   stored: int16_t Q1.14, one step = 2^-14 1 = 6.10352e-05 1
- *   piece 0: |x| in 0..104 steps (0..0.052 rad); 2 segments of 64 steps, breakpoints at x0 + k*64
+ *   piece 0: |x| in 0..105 steps (0..0.0525 rad); 2 segments of 64 steps, breakpoints at x0 + k*64
  *            worst error 0.000154069 1 (every input checked)
  *   from: firmware.angle_lsb = 0.0005 rad, envelope.roll_max = 0.0523599 rad
  */
@@ -423,10 +423,10 @@ static int32_t lookup_cos_roll(int32_t v)
 
 int32_t larkspur_table_cos_roll(int32_t roll)
 {
-    if (roll < -104) {
-        roll = -104;
-    } else if (roll > 104) {
-        roll = 104;
+    if (roll < -105) {
+        roll = -105;
+    } else if (roll > 105) {
+        roll = 105;
     }
     return lookup_cos_roll(roll);
 }
@@ -626,19 +626,19 @@ void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out)
 {
     uint32_t clamped = 0u;
     int32_t pitch = in->pitch;
-    if (pitch < -174) {
-        pitch = -174;
+    if (pitch < -175) {
+        pitch = -175;
         clamped |= LARKSPUR_CLAMPED_PITCH;
-    } else if (pitch > 174) {
-        pitch = 174;
+    } else if (pitch > 175) {
+        pitch = 175;
         clamped |= LARKSPUR_CLAMPED_PITCH;
     }
     int32_t roll = in->roll;
-    if (roll < -104) {
-        roll = -104;
+    if (roll < -105) {
+        roll = -105;
         clamped |= LARKSPUR_CLAMPED_ROLL;
-    } else if (roll > 104) {
-        roll = 104;
+    } else if (roll > 105) {
+        roll = 105;
         clamped |= LARKSPUR_CLAMPED_ROLL;
     }
     int32_t payload = in->payload;
@@ -893,19 +893,19 @@ void larkspur_forward(const larkspur_fwd_in_t *in, larkspur_fwd_out_t *out)
 {
     uint32_t clamped = 0u;
     int32_t pitch = in->pitch;
-    if (pitch < -174) {
-        pitch = -174;
+    if (pitch < -175) {
+        pitch = -175;
         clamped |= LARKSPUR_FWD_CLAMPED_PITCH;
-    } else if (pitch > 174) {
-        pitch = 174;
+    } else if (pitch > 175) {
+        pitch = 175;
         clamped |= LARKSPUR_FWD_CLAMPED_PITCH;
     }
     int32_t roll = in->roll;
-    if (roll < -104) {
-        roll = -104;
+    if (roll < -105) {
+        roll = -105;
         clamped |= LARKSPUR_FWD_CLAMPED_ROLL;
-    } else if (roll > 104) {
-        roll = 104;
+    } else if (roll > 105) {
+        roll = 105;
         clamped |= LARKSPUR_FWD_CLAMPED_ROLL;
     }
     int32_t payload = in->payload;

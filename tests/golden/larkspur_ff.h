@@ -29,13 +29,13 @@ extern "C" {
 /* Envelope edges in steps; inputs beyond them are clamped and flagged. */
 #define LARKSPUR_SPEED_MAX 1600 /* 0.8 m/s */
 #define LARKSPUR_ACCEL_MAX 500 /* 0.5 m/s^2 */
-#define LARKSPUR_PITCH_MAX 174 /* 4.98473 deg */
-#define LARKSPUR_ROLL_MAX 104 /* 2.97938 deg */
+#define LARKSPUR_PITCH_MAX 175 /* 5.01338 deg */
+#define LARKSPUR_ROLL_MAX 105 /* 3.00803 deg */
 #define LARKSPUR_PAYLOAD_MAX 600 /* 60 kg */
 #define LARKSPUR_CURRENT_MAX 14000 /* 14 A */
 
-/* Proven worst-case error of larkspur_feedforward against the floating-point model: 0.0194683 A (budget 0.02 A).
- * Proven worst-case error of larkspur_forward: 0.0242988 m/s^2 (goal 0.0330371 m/s^2).
+/* Proven worst-case error of larkspur_feedforward against the floating-point model: 0.0194751 A (budget 0.02 A).
+ * Proven worst-case error of larkspur_forward: 0.024328 m/s^2 (goal 0.0330371 m/s^2).
  * Table storage: 332 bytes. */
 
 enum { LARKSPUR_RIGHT = 0, LARKSPUR_LEFT = 1 };
