@@ -10,14 +10,26 @@ commands from `generator` and the `bench` group from `hil`, neither importing th
 from __future__ import annotations
 
 import os
+import signal
+import sys
 
 __path__ = [os.path.dirname(os.path.abspath(__file__))]
+
+
+def _interrupted(_signum: int, _frame: object) -> None:
+    """Ctrl-C while the modules are still loading: nothing is written yet, so leave at once."""
+    sys.stderr.write("kinetab: interrupted\n")
+    os._exit(130)
 
 
 def main(argv: list[str] | None = None) -> None:
     """The `kinetab` console script: every command, with the bench group loaded only when used."""
     import importlib
 
-    cli = importlib.import_module("kinetab.generator.cli")
-    cli.register_lazy("bench", "kinetab.hil.commands", "bench", "Bench link to the drive controller: serial ports.")
+    previous = signal.signal(signal.SIGINT, _interrupted)
+    try:
+        cli = importlib.import_module("kinetab.generator.cli")
+        cli.register_lazy("bench", "kinetab.hil.commands", "bench", "Bench link to the drive controller: serial ports.")
+    finally:
+        signal.signal(signal.SIGINT, previous)
     cli.main(argv)

@@ -32,7 +32,7 @@ def register_lazy(name: str, module: str, attr: str, short_help: str) -> None:
     cli.add_lazy(name, module, attr, short_help)
 
 
-@cli.command()
+@cli.command(short_help="Write a commented starter model (invented demo vehicle).")
 @click.argument("path", type=click.Path(dir_okay=False), default="vehicle.toml")
 @click.option("--force", is_flag=True, help="Overwrite PATH if it exists.")
 def init(path: str, force: bool) -> None:
@@ -91,7 +91,7 @@ def predict_point(v: Vehicle, op: dynamics.OperatingPoint) -> dict[str, Any]:
     return doc
 
 
-@cli.command()
+@cli.command(short_help="Forces, torque, current and voltage at one operating point.")
 @click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
 @_point_options
 @click.option("--json", "as_json", is_flag=True, help="Print JSON (SI units) instead of a table.")
@@ -155,7 +155,7 @@ def _predict_table(doc: dict[str, Any]) -> str:
     return "\n".join(lines)
 
 
-@cli.command("envelope")
+@cli.command("envelope", short_help="Gradeability, acceleration and peak current and voltage.")
 @click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
 @click.option("--json", "as_json", is_flag=True, help="Print JSON (SI units: rad, m/s^2, A, V).")
 def envelope_cmd(model_path: str, as_json: bool) -> None:
@@ -270,7 +270,7 @@ def build(model_path: str, out_dir: str, vectors_path: str | None, allow: bool) 
     )
 
 
-@cli.command(short_help="CI gate: generated files fresh, envelope feasible, error within budget.")
+@cli.command(short_help="CI gate: files fresh, envelope feasible, error in budget.")
 @click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
 @click.argument("out_dir", metavar="DIR", type=click.Path(file_okay=False))
 @click.option("--report", "report_path", type=click.Path(dir_okay=False), help="Write a JSON report (SI units).")

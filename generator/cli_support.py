@@ -5,10 +5,9 @@ failed, 2 bad input or usage, 130 interrupted)."""
 from __future__ import annotations
 
 import importlib
-import os
 import signal
 import sys
-from collections.abc import Callable
+import threading
 from typing import Any
 
 import click
@@ -77,29 +76,31 @@ class LazyGroup(click.Group):
                 formatter.write_dl(rows)
 
 
-def _interrupted(_signum: int, _frame: object) -> None:
-    """SIGINT while modules are still loading: nothing is written yet, so leave at once."""
-    sys.stderr.write("kinetab: interrupted\n")
-    os._exit(130)
-
-
-def run(group: click.Group, argv: list[str] | None, load: Callable[[], None] | None = None) -> None:
+def run(group: click.Group, argv: list[str] | None) -> None:
     """Run a click group with the project's exit codes: returns on success; user mistakes print one
     line (exit 2), failed checks exit 1, Ctrl-C exits 130. With the group's `--debug` option a user
-    error shows its traceback instead. `load` runs first with Ctrl-C mapped to a clean exit."""
+    error shows its traceback instead."""
     args = list(sys.argv[1:] if argv is None else argv)
     debug = "--debug" in args[: _first_command(group, args)]
-    previous = signal.signal(signal.SIGINT, _interrupted)
-    try:
-        if load is not None:
-            load()
-    finally:
-        signal.signal(signal.SIGINT, previous)
+    main_thread = threading.current_thread() is threading.main_thread()  # only it may set handlers
+    previous = signal.signal(signal.SIGINT, _raise_interrupted) if main_thread else None
     try:
         _invoke(group, args, debug)
-    except KeyboardInterrupt:
+    except Interrupted:
         click.echo("kinetab: interrupted", err=True)
         sys.exit(130)
+    finally:
+        if main_thread:
+            signal.signal(signal.SIGINT, previous)
+
+
+class Interrupted(BaseException):
+    """Ctrl-C during a command. Not a KeyboardInterrupt, which click would turn into its own abort
+    message; `finally` blocks still run, so half-written temporary files are removed."""
+
+
+def _raise_interrupted(_signum: int, _frame: object) -> None:
+    raise Interrupted
 
 
 def _first_command(group: click.Group, args: list[str]) -> int:
@@ -113,7 +114,8 @@ def _first_command(group: click.Group, args: list[str]) -> int:
 def _invoke(group: click.Group, args: list[str], debug: bool) -> None:
     """One call of the group; every expected exception becomes its exit code (a SystemExit)."""
     if not args:  # plain help, as `--help` prints it
-        click.echo(group.get_help(click.Context(group, info_name="kinetab")))
+        with group.make_context("kinetab", ["--help"], resilient_parsing=True) as ctx:
+            click.echo(ctx.get_help())
         return
     try:
         code = group.main(args=args, prog_name="kinetab", standalone_mode=False)

@@ -155,3 +155,25 @@ def test_envelope_hold_pitch_by_hand():
         / (v.wheels.diameter_m / 2)
     )
     assert row.hold_pitch_rad == pytest.approx(math.asin(2 * force / (38.0 * 9.80665)), rel=1e-6)
+
+
+def test_no_arguments_prints_normal_help(capsys):
+    """Regression: `kinetab` alone printed its whole help folded onto one line of stderr, and the
+    command list cut every description short."""
+    import kinetab
+
+    kinetab.main([])  # the composed command line, with the lazily loaded bench group
+    out, err = capsys.readouterr()
+    assert err == "" and out.startswith("Usage: kinetab") and len(out.splitlines()) > 10
+    listing = out[out.index("Commands:") :].splitlines()[1:]
+    assert {line.split()[0] for line in listing if line.startswith("  ") and not line.startswith("   ")} >= {
+        "build",
+        "verify",
+        "predict",
+        "envelope",
+        "init",
+        "report",
+        "bench",
+    }
+    assert not any(line.rstrip().endswith("...") for line in listing)
+    assert all(len(line) <= 100 for line in out.splitlines())
