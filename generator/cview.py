@@ -11,6 +11,7 @@ from typing import Any, assert_never
 
 from . import __version__, interface, model
 from . import fixedpoint as fx
+from . import tables as tb
 from .analysis import Proof
 from .cformat import num, rows, wrap
 from .program import Backdrive, Clamp, Lookup, Mul, Op, Program, Store, Sum, rounding_half
@@ -141,10 +142,10 @@ def table_view(fw: Firmware, name: str, prefix: str) -> dict[str, Any]:
         "split": spec.split_at,
         "needs_x": spec.split_at is not None or any(p.segments > 0 for p in table.pieces),
         "meaning": spec.meaning,
-        "q": fx.q_name(spec.frac_bits, spec.bits),
-        "lsb": f"2^-{spec.frac_bits}" if spec.frac_bits >= 0 else f"2^{-spec.frac_bits}",
-        "lsb_si": f"{num(2.0**-spec.frac_bits * spec.si_scale)} {spec.si_unit}",
-        "unit": spec.unit,
+        "stored": _stored_text(spec),
+        "step_si": _si_text(2.0**-spec.frac_bits * spec.si_scale, spec.si_unit),
+        "q_note": _q_note(spec),
+        "helper": f"{prefix}_lookup_{name}",
         "input": spec.source,
         "input_lsb": f"{num(src.lsb)} {src.unit}",
         "pieces": [_piece_view(fw, name, prefix, k) for k in range(len(table.pieces))],
@@ -156,14 +157,37 @@ def table_view(fw: Firmware, name: str, prefix: str) -> dict[str, Any]:
     }
 
 
-def _op_view(op: Op, proof: Proof, clamp_names: list[str]) -> dict[str, Any]:
+def _power_of_two(exp: int) -> str:
+    return "1" if exp == 0 else f"2^{exp}"
+
+
+def _si_text(value: float, unit: str) -> str:
+    """A value with its unit; a pure number stays a number (no '1' as a unit)."""
+    return num(value) if unit == "1" else f"{num(value)} {unit}"
+
+
+def _q_note(spec: tb.TableSpec) -> str:
+    """Q notation when it fits (Q15.0), else the word and the weight of its step (int16, steps of 2^14)."""
+    q = fx.q_name(spec.frac_bits, spec.bits)
+    return q if q.startswith("Q") else f"int{spec.bits}, steps of {_power_of_two(-spec.frac_bits)}"
+
+
+def _stored_text(spec: tb.TableSpec) -> str:
+    """What one stored integer step is worth: in the table's working unit and in SI."""
+    q = fx.q_name(spec.frac_bits, spec.bits)
+    fmt = f"int{spec.bits}_t entries in {q}" if q.startswith("Q") else f"int{spec.bits}_t entries"
+    working = f"{_power_of_two(-spec.frac_bits)} {spec.unit}" if spec.unit != "1" else _power_of_two(-spec.frac_bits)
+    return f"{fmt}; one stored step = {working} = {_si_text(2.0**-spec.frac_bits * spec.si_scale, spec.si_unit)}"
+
+
+def _op_view(op: Op, proof: Proof, clamp_names: list[str], prefix: str) -> dict[str, Any]:
     """What ops.j2 prints for one op (the C form of each op kind lives in that template)."""
     match op:
         case Clamp():
             where = f"{op.field}[{op.index}]" if op.index is not None else op.field
             return {"kind": "clamp", "dst": op.dst, "src": where, "lo": op.lo, "hi": op.hi, "bit": clamp_names[op.bit]}
         case Lookup():
-            return {"kind": "lookup", "dst": op.dst, "func": f"lookup_{op.table}", "src": op.src}
+            return {"kind": "lookup", "dst": op.dst, "func": f"{prefix}_lookup_{op.table}", "src": op.src}
         case Mul():
             const = not isinstance(op.b, str)
             return {
@@ -238,7 +262,7 @@ def program_view(prog: Program, proof: Proof, tables: dict[str, dict[str, Any]],
                 {"kind": "group", "src": key[0], "abs": key[1], "split": key[2], "members": members, "needs_x": needs_x}
             )
         else:
-            views.append(_op_view(ops[k], proof, [n for n, _ in prog.call.clamp_names(prefix)]))
+            views.append(_op_view(ops[k], proof, [n for n, _ in prog.call.clamp_names(prefix)], prefix))
         k = j
     last = max(i for i, v in enumerate(views) if v["kind"] == "clamp")
     views.insert(last + 1, {"kind": "flags"})

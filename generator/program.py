@@ -319,11 +319,17 @@ def _payload_rows(v: Vehicle, lim: Limits, k: float) -> dict[str, _Row]:
             lambda p: dynamics.coriolis_coefficient(v, p),
             per_speed2,
             f"{acc} per speed step^2",
-            meaning="Coriolis coefficient m c / (4 b^2)",
+            meaning="Coriolis coefficient m c / (4 b^2) (m: vehicle plus payload, c: their CoG ahead of P, b: half track)",
             si="kg/m",
         ),
-        "grav_pitch": row(grav(0), k, f"{acc} at sin = 1", meaning="gravity m g / 2", si="N"),
-        "grav_roll": row(grav(1), k, f"{acc} at cos*sin = 1", meaning="roll gravity m c g / (2 b)", si="N"),
+        "grav_pitch": row(grav(0), k, f"{acc} at sin = 1", meaning="gravity m g / 2 (m: vehicle plus payload)", si="N"),
+        "grav_roll": row(
+            grav(1),
+            k,
+            f"{acc} at cos*sin = 1",
+            meaning="roll gravity m c g / (2 b) (m: vehicle plus payload, c: their CoG ahead of P, b: half track)",
+            si="N",
+        ),
         "roll_level": row(
             rolling(0), k, f"{acc} at cos*cos = 1", meaning="rolling resistance on cos(pitch) cos(roll)", si="N"
         ),

@@ -21,7 +21,7 @@ typedef char larkspur_check_format[(LARKSPUR_FF_FORMAT == 1u) ? 1 : -1];
 /*
  * Table m11: mass matrix M11 = M22.
  *   input: payload (0.1 kg per step)
- *   stored: int16_t Q15.0, one step = 2^-0 accumulator step per accel step = 0.00288867 kg
+ *   stored: int16_t entries in Q15.0; one stored step = 1 accumulator step per accel step = 0.00288867 kg
  *   piece 0: x in 0..600 steps (0..60 kg); 1 segment of 1024 steps, breakpoints at x0 + k*1024
  *            worst error 0.00235229 kg (every input checked)
  *   from: body.mass = 38 kg, body.cog_ahead = -0.05 m, body.cog_height = 0.18 m,
@@ -35,7 +35,7 @@ static const int16_t larkspur_tab_m11_0[2] = {
 };
 typedef char larkspur_tab_m11_0_size_check[(sizeof(larkspur_tab_m11_0) / sizeof(larkspur_tab_m11_0[0]) == 2) ? 1 : -1];
 
-static int32_t lookup_m11(int32_t v)
+static int32_t larkspur_lookup_m11(int32_t v)
 {
     const int32_t x = v;
     int32_t y;
@@ -54,13 +54,13 @@ int32_t larkspur_table_m11(int32_t payload)
     } else if (payload > 600) {
         payload = 600;
     }
-    return lookup_m11(payload);
+    return larkspur_lookup_m11(payload);
 }
 
 /*
  * Table m12: mass matrix M12 = M21.
  *   input: payload (0.1 kg per step)
- *   stored: int16_t Q10.5, one step = 2^-5 accumulator step per accel step = 9.0271e-05 kg
+ *   stored: int16_t entries in Q10.5; one stored step = 2^-5 accumulator step per accel step = 9.0271e-05 kg
  *   piece 0: x in 0..600 steps (0..60 kg); 1 segment of 1024 steps, breakpoints at x0 + k*1024
  *            worst error 6.63329e-05 kg (every input checked)
  *   from: body.mass = 38 kg, body.cog_ahead = -0.05 m, body.cog_height = 0.18 m,
@@ -74,7 +74,7 @@ static const int16_t larkspur_tab_m12_0[2] = {
 };
 typedef char larkspur_tab_m12_0_size_check[(sizeof(larkspur_tab_m12_0) / sizeof(larkspur_tab_m12_0[0]) == 2) ? 1 : -1];
 
-static int32_t lookup_m12(int32_t v)
+static int32_t larkspur_lookup_m12(int32_t v)
 {
     const int32_t x = v;
     int32_t y;
@@ -93,13 +93,13 @@ int32_t larkspur_table_m12(int32_t payload)
     } else if (payload > 600) {
         payload = 600;
     }
-    return lookup_m12(payload);
+    return larkspur_lookup_m12(payload);
 }
 
 /*
- * Table cor: Coriolis coefficient m c / (4 b^2).
+ * Table cor: Coriolis coefficient m c / (4 b^2) (m: vehicle plus payload, c: their CoG ahead of P, b: half track).
  *   input: payload (0.1 kg per step)
- *   stored: int16_t Q3.12, one step = 2^-12 accumulator step per speed step^2 = 0.00282097 kg/m
+ *   stored: int16_t entries in Q3.12; one stored step = 2^-12 accumulator step per speed step^2 = 0.00282097 kg/m
  *   piece 0: x in 0..600 steps (0..60 kg); 1 segment of 1024 steps, breakpoints at x0 + k*1024
  *            worst error 0.0019074 kg/m (every input checked)
  *   from: body.mass = 38 kg, body.cog_ahead = -0.05 m, body.cog_height = 0.18 m,
@@ -111,7 +111,7 @@ static const int16_t larkspur_tab_cor_0[2] = {
 };
 typedef char larkspur_tab_cor_0_size_check[(sizeof(larkspur_tab_cor_0) / sizeof(larkspur_tab_cor_0[0]) == 2) ? 1 : -1];
 
-static int32_t lookup_cor(int32_t v)
+static int32_t larkspur_lookup_cor(int32_t v)
 {
     const int32_t x = v;
     int32_t y;
@@ -130,13 +130,13 @@ int32_t larkspur_table_cor(int32_t payload)
     } else if (payload > 600) {
         payload = 600;
     }
-    return lookup_cor(payload);
+    return larkspur_lookup_cor(payload);
 }
 
 /*
- * Table grav_pitch: gravity m g / 2.
+ * Table grav_pitch: gravity m g / 2 (m: vehicle plus payload).
  *   input: payload (0.1 kg per step)
- *   stored: int16_t int16 x 2^14, one step = 2^14 accumulator step at sin = 1 = 0.047328 N
+ *   stored: int16_t entries; one stored step = 2^14 accumulator step at sin = 1 = 0.047328 N
  *   piece 0: x in 0..600 steps (0..60 kg); 1 segment of 1024 steps, breakpoints at x0 + k*1024
  *            worst error 0.028786 N (every input checked)
  *   from: body.mass = 38 kg, body.cog_ahead = -0.05 m, body.cog_height = 0.18 m,
@@ -148,7 +148,7 @@ static const int16_t larkspur_tab_grav_pitch_0[2] = {
 };
 typedef char larkspur_tab_grav_pitch_0_size_check[(sizeof(larkspur_tab_grav_pitch_0) / sizeof(larkspur_tab_grav_pitch_0[0]) == 2) ? 1 : -1];
 
-static int32_t lookup_grav_pitch(int32_t v)
+static int32_t larkspur_lookup_grav_pitch(int32_t v)
 {
     const int32_t x = v;
     int32_t y;
@@ -167,13 +167,13 @@ int32_t larkspur_table_grav_pitch(int32_t payload)
     } else if (payload > 600) {
         payload = 600;
     }
-    return lookup_grav_pitch(payload);
+    return larkspur_lookup_grav_pitch(payload);
 }
 
 /*
- * Table grav_roll: roll gravity m c g / (2 b).
+ * Table grav_roll: roll gravity m c g / (2 b) (m: vehicle plus payload, c: their CoG ahead of P, b: half track).
  *   input: payload (0.1 kg per step)
- *   stored: int16_t int16 x 2^12, one step = 2^12 accumulator step at cos*sin = 1 = 0.011832 N
+ *   stored: int16_t entries; one stored step = 2^12 accumulator step at cos*sin = 1 = 0.011832 N
  *   piece 0: x in 0..600 steps (0..60 kg); 1 segment of 1024 steps, breakpoints at x0 + k*1024
  *            worst error 0.0110187 N (every input checked)
  *   from: body.mass = 38 kg, body.cog_ahead = -0.05 m, body.cog_height = 0.18 m,
@@ -185,7 +185,7 @@ static const int16_t larkspur_tab_grav_roll_0[2] = {
 };
 typedef char larkspur_tab_grav_roll_0_size_check[(sizeof(larkspur_tab_grav_roll_0) / sizeof(larkspur_tab_grav_roll_0[0]) == 2) ? 1 : -1];
 
-static int32_t lookup_grav_roll(int32_t v)
+static int32_t larkspur_lookup_grav_roll(int32_t v)
 {
     const int32_t x = v;
     int32_t y;
@@ -204,13 +204,13 @@ int32_t larkspur_table_grav_roll(int32_t payload)
     } else if (payload > 600) {
         payload = 600;
     }
-    return lookup_grav_roll(payload);
+    return larkspur_lookup_grav_roll(payload);
 }
 
 /*
  * Table roll_level: rolling resistance on cos(pitch) cos(roll).
  *   input: payload (0.1 kg per step)
- *   stored: int16_t int16 x 2^7, one step = 2^7 accumulator step at cos*cos = 1 = 0.00036975 N
+ *   stored: int16_t entries; one stored step = 2^7 accumulator step at cos*cos = 1 = 0.00036975 N
  *   piece 0: x in 0..600 steps (0..60 kg); 1 segment of 1024 steps, breakpoints at x0 + k*1024
  *            worst error 0.000248717 N (every input checked)
  *   from: body.mass = 38 kg, body.cog_ahead = -0.05 m, body.cog_height = 0.18 m,
@@ -224,7 +224,7 @@ static const int16_t larkspur_tab_roll_level_0[2] = {
 };
 typedef char larkspur_tab_roll_level_0_size_check[(sizeof(larkspur_tab_roll_level_0) / sizeof(larkspur_tab_roll_level_0[0]) == 2) ? 1 : -1];
 
-static int32_t lookup_roll_level(int32_t v)
+static int32_t larkspur_lookup_roll_level(int32_t v)
 {
     const int32_t x = v;
     int32_t y;
@@ -243,13 +243,13 @@ int32_t larkspur_table_roll_level(int32_t payload)
     } else if (payload > 600) {
         payload = 600;
     }
-    return lookup_roll_level(payload);
+    return larkspur_lookup_roll_level(payload);
 }
 
 /*
  * Table roll_slope: rolling-resistance load transfer on sin(pitch).
  *   input: payload (0.1 kg per step)
- *   stored: int16_t int16 x 2^6, one step = 2^6 accumulator step at sin = 1 = 0.000184875 N
+ *   stored: int16_t entries; one stored step = 2^6 accumulator step at sin = 1 = 0.000184875 N
  *   piece 0: x in 0..600 steps (0..60 kg); 1 segment of 1024 steps, breakpoints at x0 + k*1024
  *            worst error 0.00018001 N (every input checked)
  *   from: body.mass = 38 kg, body.cog_ahead = -0.05 m, body.cog_height = 0.18 m,
@@ -263,7 +263,7 @@ static const int16_t larkspur_tab_roll_slope_0[2] = {
 };
 typedef char larkspur_tab_roll_slope_0_size_check[(sizeof(larkspur_tab_roll_slope_0) / sizeof(larkspur_tab_roll_slope_0[0]) == 2) ? 1 : -1];
 
-static int32_t lookup_roll_slope(int32_t v)
+static int32_t larkspur_lookup_roll_slope(int32_t v)
 {
     const int32_t x = v;
     int32_t y;
@@ -282,13 +282,13 @@ int32_t larkspur_table_roll_slope(int32_t payload)
     } else if (payload > 600) {
         payload = 600;
     }
-    return lookup_roll_slope(payload);
+    return larkspur_lookup_roll_slope(payload);
 }
 
 /*
  * Table sin_pitch: sin(pitch).
  *   input: pitch (0.0005 rad per step), odd in pitch: |x| is stored
- *   stored: int16_t int16 x 2^-17, one step = 2^-17 1 = 7.62939e-06 1
+ *   stored: int16_t entries; one stored step = 2^-17 = 7.62939e-06
  *   piece 0: |x| in 0..175 steps (0..0.0875 rad); 4 segments of 64 steps, breakpoints at x0 + k*64
  *            worst error 1.17958e-05 1 (every input checked)
  *   from: firmware.angle_lsb = 0.0005 rad, envelope.pitch_max = 0.0872665 rad
@@ -298,7 +298,7 @@ static const int16_t larkspur_tab_sin_pitch_0[5] = {
 };
 typedef char larkspur_tab_sin_pitch_0_size_check[(sizeof(larkspur_tab_sin_pitch_0) / sizeof(larkspur_tab_sin_pitch_0[0]) == 5) ? 1 : -1];
 
-static int32_t lookup_sin_pitch(int32_t v)
+static int32_t larkspur_lookup_sin_pitch(int32_t v)
 {
     const int32_t x = (v < 0) ? -v : v;
     int32_t y;
@@ -319,13 +319,13 @@ int32_t larkspur_table_sin_pitch(int32_t pitch)
     } else if (pitch > 175) {
         pitch = 175;
     }
-    return lookup_sin_pitch(pitch);
+    return larkspur_lookup_sin_pitch(pitch);
 }
 
 /*
  * Table cos_pitch: cos(pitch).
  *   input: pitch (0.0005 rad per step), even in pitch: |x| is stored
- *   stored: int16_t Q1.14, one step = 2^-14 1 = 6.10352e-05 1
+ *   stored: int16_t entries in Q1.14; one stored step = 2^-14 = 6.10352e-05
  *   piece 0: |x| in 0..175 steps (0..0.0875 rad); 4 segments of 64 steps, breakpoints at x0 + k*64
  *            worst error 0.00015532 1 (every input checked)
  *   from: firmware.angle_lsb = 0.0005 rad, envelope.pitch_max = 0.0872665 rad
@@ -335,7 +335,7 @@ static const int16_t larkspur_tab_cos_pitch_0[5] = {
 };
 typedef char larkspur_tab_cos_pitch_0_size_check[(sizeof(larkspur_tab_cos_pitch_0) / sizeof(larkspur_tab_cos_pitch_0[0]) == 5) ? 1 : -1];
 
-static int32_t lookup_cos_pitch(int32_t v)
+static int32_t larkspur_lookup_cos_pitch(int32_t v)
 {
     const int32_t x = (v < 0) ? -v : v;
     int32_t y;
@@ -356,13 +356,13 @@ int32_t larkspur_table_cos_pitch(int32_t pitch)
     } else if (pitch > 175) {
         pitch = 175;
     }
-    return lookup_cos_pitch(pitch);
+    return larkspur_lookup_cos_pitch(pitch);
 }
 
 /*
  * Table sin_roll: sin(roll).
  *   input: roll (0.0005 rad per step), odd in roll: |x| is stored
- *   stored: int16_t int16 x 2^-18, one step = 2^-18 1 = 3.8147e-06 1
+ *   stored: int16_t entries; one stored step = 2^-18 = 3.8147e-06
  *   piece 0: |x| in 0..105 steps (0..0.0525 rad); 1 segment of 128 steps, breakpoints at x0 + k*128
  *            worst error 1.5953e-05 1 (every input checked)
  *   from: firmware.angle_lsb = 0.0005 rad, envelope.roll_max = 0.0523599 rad
@@ -372,7 +372,7 @@ static const int16_t larkspur_tab_sin_roll_0[2] = {
 };
 typedef char larkspur_tab_sin_roll_0_size_check[(sizeof(larkspur_tab_sin_roll_0) / sizeof(larkspur_tab_sin_roll_0[0]) == 2) ? 1 : -1];
 
-static int32_t lookup_sin_roll(int32_t v)
+static int32_t larkspur_lookup_sin_roll(int32_t v)
 {
     const int32_t x = (v < 0) ? -v : v;
     int32_t y;
@@ -391,13 +391,13 @@ int32_t larkspur_table_sin_roll(int32_t roll)
     } else if (roll > 105) {
         roll = 105;
     }
-    return lookup_sin_roll(roll);
+    return larkspur_lookup_sin_roll(roll);
 }
 
 /*
  * Table cos_roll: cos(roll).
  *   input: roll (0.0005 rad per step), even in roll: |x| is stored
- *   stored: int16_t Q1.14, one step = 2^-14 1 = 6.10352e-05 1
+ *   stored: int16_t entries in Q1.14; one stored step = 2^-14 = 6.10352e-05
  *   piece 0: |x| in 0..105 steps (0..0.0525 rad); 2 segments of 64 steps, breakpoints at x0 + k*64
  *            worst error 0.000154069 1 (every input checked)
  *   from: firmware.angle_lsb = 0.0005 rad, envelope.roll_max = 0.0523599 rad
@@ -407,7 +407,7 @@ static const int16_t larkspur_tab_cos_roll_0[3] = {
 };
 typedef char larkspur_tab_cos_roll_0_size_check[(sizeof(larkspur_tab_cos_roll_0) / sizeof(larkspur_tab_cos_roll_0[0]) == 3) ? 1 : -1];
 
-static int32_t lookup_cos_roll(int32_t v)
+static int32_t larkspur_lookup_cos_roll(int32_t v)
 {
     const int32_t x = (v < 0) ? -v : v;
     int32_t y;
@@ -428,13 +428,13 @@ int32_t larkspur_table_cos_roll(int32_t roll)
     } else if (roll > 105) {
         roll = 105;
     }
-    return lookup_cos_roll(roll);
+    return larkspur_lookup_cos_roll(roll);
 }
 
 /*
  * Table friction: drivetrain friction F(u).
  *   input: speed (0.0005 m/s per step), odd in speed: |x| is stored
- *   stored: int16_t int16 x 2^7, one step = 2^7 accumulator step = 0.00036975 N
+ *   stored: int16_t entries; one stored step = 2^7 accumulator step = 0.00036975 N
  *   piece 0: |x| in 0..30 steps (0..0.015 m/s), inside the deadband; 2 segments of 16 steps, breakpoints at x0 + k*16
  *            worst error 0.0640071 N (every input checked)
  *   piece 1: |x| in 31..1600 steps (0.0155..0.8 m/s), outside the deadband; 32 segments of 64 steps, breakpoints at x0 + k*64
@@ -455,7 +455,7 @@ static const int16_t larkspur_tab_friction_1[33] = {
 };
 typedef char larkspur_tab_friction_1_size_check[(sizeof(larkspur_tab_friction_1) / sizeof(larkspur_tab_friction_1[0]) == 33) ? 1 : -1];
 
-static int32_t lookup_friction(int32_t v)
+static int32_t larkspur_lookup_friction(int32_t v)
 {
     const int32_t x = (v < 0) ? -v : v;
     int32_t y;
@@ -482,13 +482,13 @@ int32_t larkspur_table_friction(int32_t speed)
     } else if (speed > 1600) {
         speed = 1600;
     }
-    return lookup_friction(speed);
+    return larkspur_lookup_friction(speed);
 }
 
 /*
  * Table shape: deadband shape s(u), ramp.
  *   input: speed (0.0005 m/s per step), odd in speed: |x| is stored
- *   stored: int16_t Q2.13, one step = 2^-13 1 = 0.00012207 1
+ *   stored: int16_t entries in Q2.13; one stored step = 2^-13 = 0.00012207
  *   piece 0: |x| in 0..30 steps (0..0.015 m/s), inside the deadband; 1 segment of 32 steps, breakpoints at x0 + k*32
  *            worst error 6.51042e-05 1 (every input checked)
  *   piece 1: |x| in 31..1600 steps (0.0155..0.8 m/s), outside the deadband; constant
@@ -504,7 +504,7 @@ static const int16_t larkspur_tab_shape_1[1] = {
 };
 typedef char larkspur_tab_shape_1_size_check[(sizeof(larkspur_tab_shape_1) / sizeof(larkspur_tab_shape_1[0]) == 1) ? 1 : -1];
 
-static int32_t lookup_shape(int32_t v)
+static int32_t larkspur_lookup_shape(int32_t v)
 {
     const int32_t x = (v < 0) ? -v : v;
     int32_t y;
@@ -525,13 +525,13 @@ int32_t larkspur_table_shape(int32_t speed)
     } else if (speed > 1600) {
         speed = 1600;
     }
-    return lookup_shape(speed);
+    return larkspur_lookup_shape(speed);
 }
 
 /*
  * Table minv11: inverse mass matrix entry 11.
  *   input: payload (0.1 kg per step)
- *   stored: int16_t int16 x 2^-27, one step = 2^-27 accel step per accumulator step = 2.57924e-06 1/kg
+ *   stored: int16_t entries; one stored step = 2^-27 accel step per accumulator step = 2.57924e-06 1/kg
  *   piece 0: x in 0..600 steps (0..60 kg); 64 segments of 16 steps, breakpoints at x0 + k*16
  *            worst error 1.18825e-05 1/kg (every input checked)
  *   from: body.mass = 38 kg, body.cog_ahead = -0.05 m, body.cog_height = 0.18 m,
@@ -553,7 +553,7 @@ static const int16_t larkspur_tab_minv11_0[65] = {
 };
 typedef char larkspur_tab_minv11_0_size_check[(sizeof(larkspur_tab_minv11_0) / sizeof(larkspur_tab_minv11_0[0]) == 65) ? 1 : -1];
 
-static int32_t lookup_minv11(int32_t v)
+static int32_t larkspur_lookup_minv11(int32_t v)
 {
     const int32_t x = v;
     int32_t y;
@@ -574,13 +574,13 @@ int32_t larkspur_table_minv11(int32_t payload)
     } else if (payload > 600) {
         payload = 600;
     }
-    return lookup_minv11(payload);
+    return larkspur_lookup_minv11(payload);
 }
 
 /*
  * Table minv12: inverse mass matrix entry 12.
  *   input: payload (0.1 kg per step)
- *   stored: int16_t int16 x 2^-31, one step = 2^-31 accel step per accumulator step = 1.61203e-07 1/kg
+ *   stored: int16_t entries; one stored step = 2^-31 accel step per accumulator step = 1.61203e-07 1/kg
  *   piece 0: x in 0..600 steps (0..60 kg); 32 segments of 32 steps, breakpoints at x0 + k*32
  *            worst error 1.42503e-05 1/kg (every input checked)
  *   from: body.mass = 38 kg, body.cog_ahead = -0.05 m, body.cog_height = 0.18 m,
@@ -598,7 +598,7 @@ static const int16_t larkspur_tab_minv12_0[33] = {
 };
 typedef char larkspur_tab_minv12_0_size_check[(sizeof(larkspur_tab_minv12_0) / sizeof(larkspur_tab_minv12_0[0]) == 33) ? 1 : -1];
 
-static int32_t lookup_minv12(int32_t v)
+static int32_t larkspur_lookup_minv12(int32_t v)
 {
     const int32_t x = v;
     int32_t y;
@@ -619,7 +619,7 @@ int32_t larkspur_table_minv12(int32_t payload)
     } else if (payload > 600) {
         payload = 600;
     }
-    return lookup_minv12(payload);
+    return larkspur_lookup_minv12(payload);
 }
 
 void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out)

@@ -92,22 +92,38 @@ void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out);
 /* Wheel accelerations predicted from measured currents (slip and collision detection). */
 void larkspur_forward(const larkspur_fwd_in_t *in, larkspur_fwd_out_t *out);
 
-/* Table lookups: input in its firmware steps (clamped to the envelope), result in the table's Q format. */
-int32_t larkspur_table_m11(int32_t payload); /* mass matrix M11 = M22, Q15.0: 0.00288867 kg per step */
-int32_t larkspur_table_m12(int32_t payload); /* mass matrix M12 = M21, Q10.5: 9.0271e-05 kg per step */
-int32_t larkspur_table_cor(int32_t payload); /* Coriolis coefficient m c / (4 b^2), Q3.12: 0.00282097 kg/m per step */
-int32_t larkspur_table_grav_pitch(int32_t payload); /* gravity m g / 2, int16 x 2^14: 0.047328 N per step */
-int32_t larkspur_table_grav_roll(int32_t payload); /* roll gravity m c g / (2 b), int16 x 2^12: 0.011832 N per step */
-int32_t larkspur_table_roll_level(int32_t payload); /* rolling resistance on cos(pitch) cos(roll), int16 x 2^7: 0.00036975 N per step */
-int32_t larkspur_table_roll_slope(int32_t payload); /* rolling-resistance load transfer on sin(pitch), int16 x 2^6: 0.000184875 N per step */
-int32_t larkspur_table_sin_pitch(int32_t pitch); /* sin(pitch), int16 x 2^-17: 7.62939e-06 1 per step */
-int32_t larkspur_table_cos_pitch(int32_t pitch); /* cos(pitch), Q1.14: 6.10352e-05 1 per step */
-int32_t larkspur_table_sin_roll(int32_t roll); /* sin(roll), int16 x 2^-18: 3.8147e-06 1 per step */
-int32_t larkspur_table_cos_roll(int32_t roll); /* cos(roll), Q1.14: 6.10352e-05 1 per step */
-int32_t larkspur_table_friction(int32_t speed); /* drivetrain friction F(u), int16 x 2^7: 0.00036975 N per step */
-int32_t larkspur_table_shape(int32_t speed); /* deadband shape s(u), ramp, Q2.13: 0.00012207 1 per step */
-int32_t larkspur_table_minv11(int32_t payload); /* inverse mass matrix entry 11, int16 x 2^-27: 2.57924e-06 1/kg per step */
-int32_t larkspur_table_minv12(int32_t payload); /* inverse mass matrix entry 12, int16 x 2^-31: 1.61203e-07 1/kg per step */
+/* Table lookups: the input in its firmware steps (clamped to the envelope); the result in the table's
+ * own integer format, whose step is stated beside each. */
+/* mass matrix M11 = M22; result step 0.00288867 kg (Q15.0) */
+int32_t larkspur_table_m11(int32_t payload);
+/* mass matrix M12 = M21; result step 9.0271e-05 kg (Q10.5) */
+int32_t larkspur_table_m12(int32_t payload);
+/* Coriolis coefficient m c / (4 b^2) (m: vehicle plus payload, c: their CoG ahead of P, b: half track); result step 0.00282097 kg/m (Q3.12) */
+int32_t larkspur_table_cor(int32_t payload);
+/* gravity m g / 2 (m: vehicle plus payload); result step 0.047328 N (int16, steps of 2^14) */
+int32_t larkspur_table_grav_pitch(int32_t payload);
+/* roll gravity m c g / (2 b) (m: vehicle plus payload, c: their CoG ahead of P, b: half track); result step 0.011832 N (int16, steps of 2^12) */
+int32_t larkspur_table_grav_roll(int32_t payload);
+/* rolling resistance on cos(pitch) cos(roll); result step 0.00036975 N (int16, steps of 2^7) */
+int32_t larkspur_table_roll_level(int32_t payload);
+/* rolling-resistance load transfer on sin(pitch); result step 0.000184875 N (int16, steps of 2^6) */
+int32_t larkspur_table_roll_slope(int32_t payload);
+/* sin(pitch); result step 7.62939e-06 (int16, steps of 2^-17) */
+int32_t larkspur_table_sin_pitch(int32_t pitch);
+/* cos(pitch); result step 6.10352e-05 (Q1.14) */
+int32_t larkspur_table_cos_pitch(int32_t pitch);
+/* sin(roll); result step 3.8147e-06 (int16, steps of 2^-18) */
+int32_t larkspur_table_sin_roll(int32_t roll);
+/* cos(roll); result step 6.10352e-05 (Q1.14) */
+int32_t larkspur_table_cos_roll(int32_t roll);
+/* drivetrain friction F(u); result step 0.00036975 N (int16, steps of 2^7) */
+int32_t larkspur_table_friction(int32_t speed);
+/* deadband shape s(u), ramp; result step 0.00012207 (Q2.13) */
+int32_t larkspur_table_shape(int32_t speed);
+/* inverse mass matrix entry 11; result step 2.57924e-06 1/kg (int16, steps of 2^-27) */
+int32_t larkspur_table_minv11(int32_t payload);
+/* inverse mass matrix entry 12; result step 1.61203e-07 1/kg (int16, steps of 2^-31) */
+int32_t larkspur_table_minv12(int32_t payload);
 
 #ifdef __cplusplus
 }
