@@ -75,7 +75,7 @@ def synthesise(v: Vehicle) -> Firmware:
     try:
         ff = sizing.size(des.feedforward, des.specs, ff_names, budget_steps, what=f"{fw.current_budget_a:g} A")
     except CheckFailed as exc:
-        raise CheckFailed(f"{where}: {exc} of {fw.current_lsb_a:g} A (current_lsb)") from None
+        raise CheckFailed(f"{where}: {exc} of {fw.current_lsb_a:g} A (current_lsb); {levers(v)}") from None
     fwd_budget = forward_budget(v)
     try:
         fwd = sizing.size(
@@ -103,6 +103,30 @@ def synthesise(v: Vehicle) -> Firmware:
         fwd_budget,
         fingerprint(v),
     )
+
+
+def best_bound_a(v: Vehicle) -> float:
+    """The smallest proven feed-forward bound any table sizes reach for this vehicle, A (every piece at
+    its most accurate candidate): what a budget must allow at least."""
+    des = program.design(v)
+    names = [n for n in des.specs if not n.startswith("minv")]
+    units = sizing.units_for(des.specs, names)
+    achievable, _ = sizing.limiting_table(analysis.compile_bound(des.feedforward, des.specs), units, {})
+    return achievable * v.firmware.current_lsb_a
+
+
+def levers(v: Vehicle) -> str:
+    """What makes a budget reachable, each with the best bound it gives (cheap: no search)."""
+    fw = v.firmware
+    finer = dataclasses.replace(v, firmware=dataclasses.replace(fw, current_lsb_a=fw.current_lsb_a / 4))
+    parts = [
+        f"a budget of at least {best_bound_a(v):.3g} A",
+        f"firmware.current_lsb = {finer.firmware.current_lsb_a:g} A (best bound {best_bound_a(finer):.3g} A)",
+    ]
+    if fw.word == "int16":
+        wider = dataclasses.replace(v, firmware=dataclasses.replace(fw, word="int32"))
+        parts.append(f'firmware.word = "int32" (best bound {best_bound_a(wider):.3g} A)')
+    return "levers: " + "; ".join(parts)
 
 
 def firmware_inputs(v: Vehicle, op: dynamics.OperatingPoint) -> dict[str, np.ndarray]:

@@ -43,3 +43,20 @@ def test_documents_cite_only_files_the_clone_holds():
         for cited in set(re.findall(r"\b[\w./-]+\.md\b", text)):
             here = [ROOT / cited, path.parent / cited]
             assert any(p.is_file() for p in here), f"{path.name} cites {cited}, which the repository lacks"
+
+
+def test_readme_lists_every_verify_report_field(tmp_path):
+    """Regression: report fields had no units (`input_resolution`, `clamping`) and README listed few."""
+    import json
+
+    from kinetab.generator import cli
+
+    rep = tmp_path / "r.json"
+    cli.main(["build", str(ROOT / "generator/demos/larkspur.toml"), "-o", str(tmp_path / "g")])
+    cli.main(["verify", str(ROOT / "generator/demos/larkspur.toml"), str(tmp_path / "g"), "--report", str(rep)])
+    doc = json.loads(rep.read_text())
+    readme = (ROOT / "README.md").read_text()
+    for key in doc:
+        assert f"`{key}`" in readme, key
+    for key in ("input_resolution_a", "clamping_a", "split_a", "budget_a", "bound_a", "forward_mps2"):
+        assert key in doc
