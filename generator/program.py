@@ -292,6 +292,9 @@ class _Row:
     si_unit: str
 
 
+SYMBOLS = "(m: vehicle plus payload, c: their CoG ahead of P, b: half track)"
+
+
 def _payload_rows(v: Vehicle, lim: Limits, k: float) -> dict[str, _Row]:
     """Payload tables: the dynamics' coefficients scaled to accumulator steps (k per newton)."""
     fw = v.firmware
@@ -319,7 +322,7 @@ def _payload_rows(v: Vehicle, lim: Limits, k: float) -> dict[str, _Row]:
             lambda p: dynamics.coriolis_coefficient(v, p),
             per_speed2,
             f"{acc} per speed step^2",
-            meaning="Coriolis coefficient m c / (4 b^2) (m: vehicle plus payload, c: their CoG ahead of P, b: half track)",
+            meaning=f"Coriolis coefficient m c / (4 b^2) {SYMBOLS}",
             si="kg/m",
         ),
         "grav_pitch": row(grav(0), k, f"{acc} at sin = 1", meaning="gravity m g / 2 (m: vehicle plus payload)", si="N"),
@@ -327,7 +330,7 @@ def _payload_rows(v: Vehicle, lim: Limits, k: float) -> dict[str, _Row]:
             grav(1),
             k,
             f"{acc} at cos*sin = 1",
-            meaning="roll gravity m c g / (2 b) (m: vehicle plus payload, c: their CoG ahead of P, b: half track)",
+            meaning=f"roll gravity m c g / (2 b) {SYMBOLS}",
             si="N",
         ),
         "roll_level": row(
