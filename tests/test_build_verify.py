@@ -250,3 +250,19 @@ def test_report_into_an_unwritable_place_is_one_line(tmp_path, capsys):
     blocker.write_text("x")
     code, _, err = run(["report", str(DEMO_PATH), "-o", str(blocker / "sub")], capsys)
     assert code == 2 and err.count("\n") == 1 and "Traceback" not in err
+
+
+def test_report_zooms_into_the_deadband_and_speaks_degrees(tmp_path, capsys):
+    """Regression: the friction table's structure sat in 2 % of the axis, and angle axes were in radians
+    while the command line speaks degrees: split tables get a second, zoomed column; angles are degrees."""
+    import struct
+
+    from kinetab.generator import plots
+
+    assert run(["report", str(DEMO_PATH), "-o", str(tmp_path / "rep")], capsys)[0] == 0
+
+    def width(name):
+        return struct.unpack(">I", (tmp_path / "rep" / name).read_bytes()[16:20])[0]
+
+    assert width("table_friction.png") > 1.4 * width("table_m11.png")
+    assert plots.AXIS["pitch"][0] == "deg" and plots.AXIS["roll"][0] == "deg"
