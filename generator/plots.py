@@ -59,7 +59,7 @@ def _breakpoints(fw: Firmware, name: str) -> np.ndarray:
     return np.concatenate([-bx, bx]) if table.spec.symmetry != "none" else bx
 
 
-def _panel(fw: Firmware, name: str, axes: tuple[Any, Any], lo: int, hi: int) -> None:
+def _panel(fw: Firmware, name: str, axes: tuple[Any, Any], *, lo: int, hi: int) -> None:
     """Model and table (breakpoints marked) on top, their difference below, on inputs lo..hi."""
     spec = fw.tables[name].spec
     per_step, unit = _input_axis(fw, spec.source)
@@ -85,11 +85,11 @@ def table_plot(fw: Firmware, name: str, path: Path) -> None:
     lo = -hi if spec.symmetry != "none" else spec.pieces[0].x0
     zoom = spec.split_at
     fig, axes = plt.subplots(2, 2 if zoom else 1, figsize=(11 if zoom else 7, 5.5), squeeze=False)
-    _panel(fw, name, (axes[0][0], axes[1][0]), lo, hi)
+    _panel(fw, name, (axes[0][0], axes[1][0]), lo=lo, hi=hi)
     axes[0][0].set_title(f"{name}: {spec.meaning}", fontsize=9)
     if zoom:
         edge = min(hi, 3 * zoom + 2)
-        _panel(fw, name, (axes[0][1], axes[1][1]), -edge, edge)
+        _panel(fw, name, (axes[0][1], axes[1][1]), lo=-edge, hi=edge)
         axes[0][1].set_title("near zero speed (the deadband, zoomed)", fontsize=9)
     fig.tight_layout()
     fig.savefig(path, dpi=90)
