@@ -83,24 +83,29 @@ def run(group: click.Group, argv: list[str] | None) -> None:
     args = list(sys.argv[1:] if argv is None else argv)
     debug = "--debug" in args[: _first_command(group, args)]
     main_thread = threading.current_thread() is threading.main_thread()  # only it may set handlers
-    previous = signal.signal(signal.SIGINT, _raise_interrupted) if main_thread else None
+    previous = {s: signal.signal(s, _raise_interrupted) for s in (signal.SIGINT, signal.SIGTERM)} if main_thread else {}
     try:
         _invoke(group, args, debug)
-    except Interrupted:
-        click.echo("kinetab: interrupted", err=True)
-        sys.exit(130)
+    except Interrupted as exc:
+        click.echo("kinetab: interrupted" if exc.signum == signal.SIGINT else "kinetab: terminated", err=True)
+        sys.exit(128 + exc.signum)
     finally:
-        if main_thread:
-            signal.signal(signal.SIGINT, previous)
+        for sig, handler in previous.items():
+            signal.signal(sig, handler)
 
 
 class Interrupted(BaseException):
-    """Ctrl-C during a command. Not a KeyboardInterrupt, which click would turn into its own abort
-    message; `finally` blocks still run, so half-written temporary files are removed."""
+    """Ctrl-C (SIGINT) or SIGTERM during a command. Not a KeyboardInterrupt, which click would turn into
+    its own abort message; `finally` blocks still run, so temporary files are removed and a bench run
+    halts the motors."""
+
+    def __init__(self, signum: int) -> None:
+        super().__init__(signum)
+        self.signum = signum
 
 
-def _raise_interrupted(_signum: int, _frame: object) -> None:
-    raise Interrupted
+def _raise_interrupted(signum: int, _frame: object) -> None:
+    raise Interrupted(signum)
 
 
 def _first_command(group: click.Group, args: list[str]) -> int:

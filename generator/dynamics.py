@@ -295,3 +295,34 @@ def forward_accel(v: Vehicle, op: OperatingPoint, force_right: ArrayLike, force_
     rest_l = np.asarray(force_left, float) - left.total
     d, o = inverse_mass_matrix_entries(v, op.payload_kg)
     return d * rest_r + o * rest_l, o * rest_r + d * rest_l
+
+
+RIGS = ("on-floor", "wheels-up")
+"""Where the vehicle is on the bench: on its wheels, or lifted (wheels off the floor)."""
+
+
+def rig_wheel_forces(v: Vehicle, op: OperatingPoint, rig: str) -> tuple[WheelForces, WheelForces]:
+    """wheel_forces on the floor; with the wheels up only the rotating parts (the reflected wheel and
+    rotor inertia) and the drivetrain friction act: no vehicle mass, no ground, no gravity."""
+    if rig == "on-floor":
+        return wheel_forces(v, op)
+    m_rot, zero = reflected_mass(v), np.zeros(np.shape(np.asarray(op.speed_right, float)))
+    sides = []
+    for speed, accel in ((op.speed_right, op.accel_right), (op.speed_left, op.accel_left)):
+        inertia = m_rot * np.asarray(accel, float) + zero
+        sides.append(WheelForces(inertia, zero, drivetrain_friction(v, speed), zero, zero))
+    return sides[0], sides[1]
+
+
+def rig_forward_accel(
+    v: Vehicle, op: OperatingPoint, force_right: ArrayLike, force_left: ArrayLike, rig: str
+) -> tuple[Array, Array]:
+    """forward_accel for the rig: on the floor M^-1 (Q - V - F - R - G); wheels up (Q - F) / m_rot."""
+    if rig == "on-floor":
+        return forward_accel(v, op, force_right, force_left)
+    m_rot = reflected_mass(v)
+    if m_rot <= 0:
+        raise ValueError("wheels up needs a wheel or rotor inertia above zero")
+    ar = (np.asarray(force_right, float) - drivetrain_friction(v, op.speed_right)) / m_rot
+    al = (np.asarray(force_left, float) - drivetrain_friction(v, op.speed_left)) / m_rot
+    return ar, al

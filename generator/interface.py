@@ -127,6 +127,8 @@ FF_IN = Struct("ff_in", (SPEED, ACCEL, PITCH, ROLL, PAYLOAD))
 FF_OUT = Struct("ff_out", (CURRENT_OUT,), clamped=True)
 FWD_IN = Struct("fwd_in", (CURRENT_IN, SPEED, PITCH, ROLL, PAYLOAD))
 FWD_OUT = Struct("fwd_out", (ACCEL_OUT,), clamped=True)
+MEASURED = Struct("link_measured", (CURRENT_IN, SPEED))
+"""What the drive firmware measures for the bench link each tick (motor currents, rim speeds)."""
 
 
 @dataclass(frozen=True)
@@ -159,6 +161,7 @@ def file_names(prefix: str) -> dict[str, str]:
         "ff_source": f"{prefix}_ff.c",
         "link_header": f"{prefix}_link.h",
         "link_source": f"{prefix}_link.c",
+        "sim_source": f"{prefix}_sim.c",
     }
 
 

@@ -38,7 +38,7 @@ def _temporary(path: Path, text: str) -> Path:
     return Path(tmp)
 
 
-def _check_target(path: Path) -> None:
+def check_target(path: Path) -> None:
     """A path we are about to write: not a folder, and its folder exists or can be made and written."""
     if path.is_dir():
         raise UserError(f"{path}: expected a file name, found a folder")
@@ -56,7 +56,7 @@ def check_folder(folder: Path) -> None:
     """A folder we are about to fill: a folder (or creatable) and writable, else one line (exit 2)."""
     if folder.exists() and not folder.is_dir():
         raise UserError(f"{folder}: expected an output folder, found a file")
-    _check_target(folder / "index.html")
+    check_target(folder / "index.html")
 
 
 def write_set(files: Mapping[Path, str]) -> None:
@@ -64,7 +64,7 @@ def write_set(files: Mapping[Path, str]) -> None:
     checked first, every text goes to a temporary file, and only then are they renamed into place.
     A failure before the renames leaves every old file untouched (one user-facing line, exit 2)."""
     for path in files:
-        _check_target(path)
+        check_target(path)
     temps: dict[Path, Path] = {}
     try:
         for path, text in files.items():

@@ -29,6 +29,7 @@ class TemplateSet:
 
 FEEDFORWARD = TemplateSet((("ff_header", "ff/ff.h.j2"), ("ff_source", "ff/ff.c.j2")))
 LINK = TemplateSet((("link_header", "link/link.h.j2"), ("link_source", "link/link.c.j2")))
+SIM = TemplateSet((("sim_source", "sim/sim.c.j2"),))
 
 
 def template_dir() -> Path:

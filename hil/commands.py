@@ -3,13 +3,29 @@
 from __future__ import annotations
 
 import json
+import sys
+import tempfile
+from pathlib import Path
+from typing import Any
 
 import click
+from kinetab.generator import model, units
+from kinetab.generator.cli_support import QuantityType
+from kinetab.generator.errors import UserError
+
+CAUTION = (
+    "CAUTION: a bench run moves the motors. Lift the wheels off the floor or restrain the vehicle, keep an\n"
+    "emergency stop within reach, set the current limits in the drive, and keep people out of the path.\n"
+    "Feed-forward from wrong parameters can move a vehicle unexpectedly; these values are engineering\n"
+    "estimates, not a safety function. Follow the applicable standards (e.g. ISO 3691-4, IEC 61508,\n"
+    "ISO 13849, IEC 61800-5-2) and local regulations and licensed practice."
+)
+RIG = click.Choice(["on-floor", "wheels-up"])
 
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})
 def bench() -> None:
-    """Bench link to the drive controller: serial ports."""
+    """Bench link to the drive controller: plan, simulate, run, list serial ports."""
 
 
 @bench.command(short_help="List serial ports with USB VID:PID, serial number and description.")
@@ -23,3 +39,163 @@ def ports(as_json: bool) -> None:
         click.echo(json.dumps([p.as_dict() for p in found], indent=2))
         return
     click.echo(portlist.table(found))
+
+
+@bench.command(short_help="Write a jerk-limited test trajectory (CSV) inside the envelope.")
+@click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
+@click.option("-o", "--out", "out_path", required=True, type=click.Path(dir_okay=False), help="Plan CSV to write.")
+@click.option(
+    "--duration",
+    type=QuantityType(units.Kind("a duration", "s", "'60 s'"), "s"),
+    default="60",
+    show_default=True,
+    help="Length of the plan (bare number: s).",
+)
+@click.option(
+    "--period",
+    type=QuantityType(units.Kind("a duration", "s", "'1 ms'"), "ms"),
+    default="1",
+    show_default=True,
+    help="Control period, one row each (bare number: ms).",
+)
+@click.option("--rig", type=RIG, default="on-floor", show_default=True, help="Wheels on the floor or lifted.")
+@click.option(
+    "--payload",
+    type=QuantityType(units.MASS, "kg"),
+    default="0",
+    show_default=True,
+    help="Payload during the run (bare number: kg).",
+)
+def plan(model_path: str, out_path: str, duration: float, period: float, rig: str, payload: float) -> None:
+    """Write PLAN.csv: both directions, several speeds and accelerations, turns, spin in place and slow
+    zero crossings, checked with the float model against the envelope and 90 % of the current limit."""
+    from kinetab.generator import outputs
+
+    from . import planfile, planner
+
+    v = model.load(model_path)
+    if not 0.0001 <= period <= 0.1:
+        raise UserError("bench plan: --period: expected between 0.1 ms and 100 ms")
+    p = planner.make_plan(v, duration_s=duration, period_s=period, rig=rig, payload=payload)
+    outputs.write_file(Path(out_path), planfile.to_csv(p))
+    use = planner.peak_current_use(v, _profile(p), rig=rig, payload=payload, pitch=0.0, roll=0.0)
+    click.echo(f"wrote {out_path}: {len(p)} rows of {period * 1000:g} ms, peak current {use:.0%} of the limit ({rig})")
+
+
+def _profile(p: Any) -> Any:
+    import numpy as np
+
+    c = p.columns
+    return np.column_stack([c["speed_right"], c["speed_left"], c["accel_right"], c["accel_left"]])
+
+
+@bench.command(short_help="Serve a simulated controller on a pseudo-terminal.")
+@click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
+@click.option("--truth", "truth_path", type=click.Path(dir_okay=False), help="The true vehicle (default: MODEL).")
+@click.option(
+    "--noise",
+    type=QuantityType(units.CURRENT, "A"),
+    default="0",
+    show_default=True,
+    help="Standard deviation of the measured current (bare number: A).",
+)
+@click.option(
+    "--period",
+    type=QuantityType(units.Kind("a duration", "s", "'1 ms'"), "ms"),
+    default="1",
+    show_default=True,
+    help="Control period (bare number: ms).",
+)
+@click.option("--rig", type=RIG, default="on-floor", show_default=True, help="Wheels on the floor or lifted.")
+@click.option(
+    "--encoder-counts",
+    type=click.IntRange(16, 1 << 24),
+    default=4096,
+    show_default=True,
+    help="Encoder counts per motor turn (speed quantisation).",
+)
+@click.option(
+    "--fifo-depth",
+    type=click.IntRange(2, 4096),
+    default=64,
+    show_default=True,
+    help="Setpoint FIFO depth of the controller.",
+)
+@click.option("--drop-rate", type=click.FloatRange(0, 1), default=0.0, help="Test faults: drop bytes (probability).")
+@click.option("--corrupt-rate", type=click.FloatRange(0, 1), default=0.0, help="Test faults: flip a bit (probability).")
+@click.option(
+    "--delay",
+    type=QuantityType(units.Kind("a duration", "s", "'5 ms'"), "ms"),
+    default="0",
+    help="Test faults: hold every byte to the controller this long (bare number: ms).",
+)
+@click.option(
+    "--garbage-every",
+    type=QuantityType(units.Kind("a duration", "s", "'1 s'"), "s"),
+    default="0",
+    help="Test faults: a burst of random bytes both ways at this interval (bare number: s).",
+)
+@click.option("--seed", type=int, default=1, show_default=True, help="Seed of the noise and the faults.")
+def simulate(
+    model_path: str,
+    truth_path: str | None,
+    noise: float,
+    period: float,
+    rig: str,
+    encoder_counts: int,
+    fifo_depth: int,
+    drop_rate: float,
+    corrupt_rate: float,
+    delay: float,
+    garbage_every: float,
+    seed: int,
+) -> None:
+    """Compile the link and feed-forward C of MODEL for this host, drive a simulated vehicle (TRUE_MODEL's
+    physics under a velocity PI loop plus the feed-forward) and serve it on a pseudo-terminal, whose path
+    is the first line printed. Runs until the motors are halted, or until killed."""
+    from kinetab.generator import synthesis
+
+    from .plant import PlantOptions
+    from .simulator import LinkFaults, Simulator
+
+    v = model.load(model_path)
+    truth = model.load(truth_path) if truth_path else v
+    if not 0.0001 <= period <= 0.1:
+        raise UserError("bench simulate: --period: expected between 0.1 ms and 100 ms")
+    fw = synthesis.synthesise(v)
+    opts = PlantOptions(period_s=period, rig=rig, current_noise_a=noise, encoder_counts=encoder_counts, seed=seed)
+    faults = LinkFaults(drop_rate, corrupt_rate, delay, garbage_every, seed)
+    with tempfile.TemporaryDirectory(prefix="kinetab-sim-") as tmp:
+        sim = Simulator(fw, truth, options=opts, faults=faults, fifo_depth=fifo_depth, folder=Path(tmp))
+        code = sim.run()
+    sys.exit(code)
+
+
+@bench.command(short_help="Stream a plan to the controller and log what it measures.")
+@click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
+@click.option("--port", "url", required=True, help="Serial port or pyserial URL (pty path, socket://, loop://).")
+@click.option("--plan", "plan_path", required=True, type=click.Path(dir_okay=False), help="Plan CSV (bench plan).")
+@click.option("--log", "log_path", required=True, type=click.Path(dir_okay=False), help="Log CSV to write.")
+@click.option("--baud", type=int, default=1_000_000, show_default=True, help="Baud rate (ignored by USB CDC).")
+@click.option("--yes", is_flag=True, help="Skip the confirmation of the cautions (they are still printed).")
+def run(model_path: str, url: str, plan_path: str, log_path: str, baud: int, yes: bool) -> None:
+    """Handshake, arm, stream PLAN one setpoint per control tick and log one row per sample; the motors
+    are halted on every way out. Exit 0 when the plan completed, 1 on a fault, timeout or mismatch."""
+    from . import runner
+
+    runner.bench_run(
+        model_path,
+        url=url,
+        plan_path=Path(plan_path),
+        log_path=Path(log_path),
+        baud=baud,
+        confirm=None if yes else _confirm,
+    )
+
+
+def _confirm() -> None:
+    click.echo(CAUTION, err=True)
+    if not sys.stdin or not sys.stdin.isatty():
+        raise UserError("bench run: confirm the cautions at a terminal, or pass --yes")
+    if not click.confirm("Start the run?", default=False, err=True):
+        raise UserError("bench run: not confirmed; nothing was sent")

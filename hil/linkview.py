@@ -1,0 +1,60 @@
+"""The controller side of the bench link as C: the context of the link template set and its files."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from kinetab.generator import __version__, cview, interface, render
+from kinetab.generator.synthesis import Firmware
+
+from . import framing, messages
+
+FIFO_DEPTH = 64
+"""Default setpoint FIFO depth: 64 ms at 1 kHz, three times the longest host stall measured on a
+pseudo-terminal (21 ms); 64 x 32 bytes of RAM. Firmware may override it with -D<NAME>_LINK_FIFO_DEPTH."""
+PERIOD_US = 1000
+WATCHDOG_TICKS = 100
+
+
+def _lvalues(st: interface.Struct) -> list[str]:
+    return [f"{m.name}[{k}]" if m.count == 2 else m.name for m in st.members for k in range(m.count)]
+
+
+def context(fw: Firmware, *, period_us: int = PERIOD_US, fifo_depth: int = FIFO_DEPTH) -> dict[str, Any]:
+    """Everything the link templates print; message layouts come from hil.messages."""
+    prefix = fw.vehicle.name
+    names = interface.file_names(prefix)
+    kinds = [(k.name, f"0x{int(k):02X}", 1 + messages.struct.calcsize(messages.LAYOUT[k][1])) for k in messages.Kind]
+    measured = [(m.c_decl().ljust(19), m.c_comment()) for m in interface.MEASURED.members]
+    return {
+        "prefix": prefix,
+        "PREFIX": prefix.upper(),
+        "version": __version__,
+        "fingerprint": f"0x{fw.fingerprint:08X}u",
+        "caution": cview.CAUTION,
+        "header": names["link_header"],
+        "source": names["link_source"],
+        "ff_header": names["ff_header"],
+        "guard": f"{prefix.upper()}_LINK_H",
+        "protocol": messages.PROTOCOL_VERSION,
+        "fifo_depth": fifo_depth,
+        "period_us": period_us,
+        "watchdog_ticks": WATCHDOG_TICKS,
+        "max_frame": framing.MAX_FRAME,
+        "kinds": kinds,
+        "fault_codes": [(c.name, int(c)) for c in messages.FaultCode],
+        "flag_last": messages.LAST,
+        "status_measured": messages.STATUS_MEASURED,
+        "status_clamped": messages.STATUS_CLAMPED,
+        "status_last": messages.STATUS_LAST,
+        "measured": {"ctype": interface.MEASURED.c_type(prefix), "members": measured},
+        "setpoint_fields": _lvalues(interface.FF_IN),
+        "ff_fields": _lvalues(interface.FF_OUT),
+        "measured_fields": _lvalues(interface.MEASURED),
+    }
+
+
+def render_link(fw: Firmware, *, period_us: int = PERIOD_US, fifo_depth: int = FIFO_DEPTH) -> dict[str, str]:
+    """`<name>_link.h` and `<name>_link.c`: the controller side, for the same vehicle as its _ff files."""
+    ctx = context(fw, period_us=period_us, fifo_depth=fifo_depth)
+    return render.render_set(render.LINK, fw.vehicle.name, ctx)

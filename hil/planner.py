@@ -1,0 +1,141 @@
+"""Bench test plans: jerk-limited wheel-speed segments (ruckig, a time-optimal jerk-limited trajectory
+generator) covering both directions, several speeds and accelerations, turns, spin in place and slow
+zero crossings through the deadband, checked against the envelope and the current limit with the float
+model, and slowed where a segment would exceed it."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from kinetab.generator import dynamics
+from kinetab.generator.errors import UserError
+from kinetab.generator.vehicle import Vehicle
+from ruckig import ControlInterface, InputParameter, OutputParameter, Result, Ruckig
+
+from .planfile import PLAN_COLUMNS, Plan, phase_of
+
+JERK_TIME_S = 0.1  # time to reach the acceleration limit: jerk = accel / 0.1 s (a gentle bench ramp)
+
+
+@dataclass(frozen=True)
+class Segment:
+    """Go to these rim speeds (fractions of speed_max) with this fraction of accel_max, then hold."""
+
+    right: float
+    left: float
+    accel: float
+    hold_s: float
+
+
+def _segments(v: Vehicle) -> list[Segment]:
+    """One cycle of the plan: every phase the comparison reports, in both directions."""
+    crawl = min(0.5, 2.5 * v.friction.deadband_mps / v.envelope.speed_max_mps)  # just past the deadband
+    out = [
+        Segment(0, 0, 0.2, 0.5),
+        Segment(crawl, crawl, 0.05, 0.5),
+        Segment(-crawl, -crawl, 0.05, 0.5),
+        Segment(0, 0, 0.05, 0.3),
+    ]
+    for direction in (1, -1):
+        for level, accel in ((0.25, 0.3), (0.5, 0.6), (0.75, 1.0), (1.0, 1.0), (0.5, 0.6), (0.0, 1.0)):
+            out.append(Segment(direction * level, direction * level, accel, 0.6))
+    out += [
+        Segment(0.5, 0.25, 0.6, 0.8),
+        Segment(0.25, 0.5, 0.6, 0.8),
+        Segment(-0.5, -0.3, 0.6, 0.8),
+        Segment(0, 0, 0.6, 0.3),
+        Segment(0.3, -0.3, 0.4, 0.8),
+        Segment(-0.3, 0.3, 0.4, 0.8),
+        Segment(0, 0, 0.4, 0.5),
+    ]
+    return out
+
+
+def _profile(v: Vehicle, segments: list[Segment], *, period_s: float, duration_s: float, scale: float) -> np.ndarray:
+    """Rim speeds and accelerations (n, 4) along the segments, repeated until duration_s, stopped at the end."""
+    env = v.envelope
+    otg, inp, out = Ruckig(2, period_s), InputParameter(2), OutputParameter(2)
+    inp.control_interface = ControlInterface.Velocity
+    inp.current_position, inp.current_velocity, inp.current_acceleration = [0.0, 0.0], [0.0, 0.0], [0.0, 0.0]
+    inp.max_velocity = [env.speed_max_mps] * 2
+    rows: list[list[float]] = []
+    n_total = int(round(duration_s / period_s))
+    k = 0
+    while len(rows) < n_total:
+        seg = segments[k % len(segments)]
+        stopping = len(rows) >= n_total - int(3 / period_s)  # leave room to stop
+        target = [0.0, 0.0] if stopping else [seg.right * env.speed_max_mps, seg.left * env.speed_max_mps]
+        accel = max(seg.accel, 0.2) * env.accel_max_mps2 * scale
+        inp.target_velocity, inp.target_acceleration = target, [0.0, 0.0]
+        inp.max_acceleration, inp.max_jerk = [accel] * 2, [accel / JERK_TIME_S] * 2
+        result = Result.Working
+        while result == Result.Working and len(rows) < n_total:
+            result = otg.update(inp, out)
+            rows.append([*out.new_velocity, *out.new_acceleration])
+            out.pass_to_input(inp)
+        for _ in range(int(seg.hold_s / period_s)):
+            if len(rows) >= n_total:
+                break
+            rows.append([*inp.current_velocity, 0.0, 0.0])
+        k += 1
+        if stopping:
+            rows.extend([[0.0, 0.0, 0.0, 0.0]] * max(0, n_total - len(rows)))
+    prof = np.array(rows[:n_total])
+    prof[:, :2] = np.clip(prof[:, :2], -env.speed_max_mps, env.speed_max_mps)  # float dust past the limit
+    return prof
+
+
+def peak_current_use(v: Vehicle, profile: np.ndarray, *, rig: str, payload: float, pitch: float, roll: float) -> float:
+    """Largest |current| / current_limit along a profile with the float model of the rig."""
+    op = dynamics.OperatingPoint(payload, profile[:, 0], profile[:, 1], profile[:, 2], profile[:, 3], pitch, roll)
+    right, left = dynamics.rig_wheel_forces(v, op, rig)
+    cur = np.maximum(
+        np.abs(dynamics.motor_current(v, right.total, profile[:, 0])),
+        np.abs(dynamics.motor_current(v, left.total, profile[:, 1])),
+    )
+    return float(np.max(cur)) / v.drive.current_limit_a
+
+
+def make_plan(
+    v: Vehicle,
+    *,
+    duration_s: float,
+    period_s: float,
+    rig: str,
+    payload: float = 0.0,
+    pitch: float = 0.0,
+    roll: float = 0.0,
+) -> Plan:
+    """A plan inside the envelope and, by the float model, within 90 % of the current limit."""
+    env = v.envelope
+    if not (
+        0 <= payload <= v.payload.mass_max_kg and abs(pitch) <= env.pitch_max_rad and abs(roll) <= env.roll_max_rad
+    ):
+        raise UserError("bench plan: --payload, --pitch and --roll must lie inside the model's envelope")
+    if duration_s < 5:
+        raise UserError("bench plan: --duration: expected at least 5 s (room to start and stop)")
+    segments, scale = _segments(v), 1.0
+    while True:
+        profile = _profile(v, segments, period_s=period_s, duration_s=duration_s, scale=scale)
+        use = peak_current_use(v, profile, rig=rig, payload=payload, pitch=pitch, roll=roll)
+        if use <= 0.9:
+            break
+        if scale < 0.05:
+            raise UserError(
+                f"bench plan: even at 5 % of accel_max the current reaches {use:.0%} of drive.current_limit"
+            )
+        scale *= 0.8  # slow down: a smaller acceleration and jerk everywhere
+    n = len(profile)
+    cols = {
+        "t": np.arange(n) * period_s,
+        "speed_right": profile[:, 0],
+        "speed_left": profile[:, 1],
+        "accel_right": profile[:, 2],
+        "accel_left": profile[:, 3],
+        "pitch": np.full(n, pitch),
+        "roll": np.full(n, roll),
+        "payload": np.full(n, payload),
+    }
+    assert tuple(cols) == PLAN_COLUMNS
+    return Plan(cols, phase_of(profile[:, :2], profile[:, 2:], v.friction.deadband_mps))

@@ -1,0 +1,148 @@
+"""`kinetab bench run` from start to end: read the model and plan, open the port, run the session with
+a progress line, write LOG.csv as samples arrive and LOG.json at the end, halt the motors always."""
+
+from __future__ import annotations
+
+import json
+import sys
+import time
+from collections.abc import Callable
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+from kinetab.generator import interface, model, outputs, synthesis
+from kinetab.generator.errors import UserError
+
+from . import messages, planfile, session
+from .benchlog import LogWriter
+
+
+def plan_steps(v: Any, plan: planfile.Plan, source: Path) -> np.ndarray:
+    """The plan in firmware steps, one FF_IN row per setpoint; one line naming the column if it cannot be."""
+    try:
+        fields = interface.to_steps(v, interface.FF_IN, plan.si())
+    except ValueError as exc:
+        raise UserError(f"{source}: {exc}") from None
+    return interface.fields_to_rows(interface.FF_IN, fields).astype(np.int64)
+
+
+def _open(url: str, baud: int) -> Any:
+    import serial
+
+    try:
+        return serial.serial_for_url(url, baudrate=baud, timeout=0.05, write_timeout=2.0)
+    except (serial.SerialException, ValueError, OSError) as exc:
+        raise UserError(f"--port {url}: cannot open: {exc}") from None
+
+
+class Progress:
+    """One status line on stderr: rewritten in place at a terminal, a line every 5 s otherwise."""
+
+    def __init__(self, total: int) -> None:
+        self.total, self.start, self.shown = total, time.monotonic(), 0.0
+        self.tty = sys.stderr.isatty()
+
+    def show(self, c: session.Counters, drops: int, *, final: bool = False) -> None:
+        now = time.monotonic()
+        if not final and now - self.shown < (0.25 if self.tty else 5.0):
+            return
+        self.shown = now
+        rate = c.samples / max(now - self.start, 1e-9)
+        bar = "#" * int(20 * c.samples / max(self.total, 1))
+        fifo = c.fifo_depth - c.fifo_free if c.fifo_depth else 0
+        text = f"[{bar:<20}] {c.samples}/{self.total} samples, {rate:.0f}/s, drops {drops}, fifo {fifo}/{c.fifo_depth}"
+        sys.stderr.write(("\r" + text + ("\n" if final else "")) if self.tty else text + "\n")
+        sys.stderr.flush()
+
+
+def bench_run(
+    model_path: str, *, url: str, plan_path: Path, log_path: Path, baud: int, confirm: Callable[[], None] | None
+) -> None:
+    """The whole run; BenchFailed (exit 1) on a fault, timeout or mismatch, UserError (2) on bad input."""
+    v = model.load(model_path)
+    plan = planfile.read_plan(plan_path)
+    steps = plan_steps(v, plan, plan_path)
+    fingerprint = synthesis.fingerprint(v)
+    for path in (log_path, log_path.with_suffix(".json")):
+        outputs.check_target(path)
+    if confirm is not None:
+        confirm()
+    port = _open(url, baud)
+    log = LogWriter(log_path, v, plan, steps)
+    link, counters = session.Link(port), session.Counters()
+    meta: dict[str, Any] = {
+        "model": str(model_path),
+        "fingerprint": f"0x{fingerprint:08X}",
+        "port": url,
+        "plan": str(plan_path),
+        "rows": len(plan),
+        "started": _now(),
+    }
+    progress = Progress(len(plan))
+    reason = "error"
+    try:
+        ident = session.handshake(link, url)
+        meta["controller"] = {
+            "fingerprint": f"0x{ident.fingerprint:08X}",
+            "protocol": ident.version,
+            "period_us": ident.period_us,
+            "fifo_depth": ident.fifo_depth,
+            "watchdog_ms": ident.watchdog_ms,
+        }
+        session.check_identity(ident, fingerprint, url)
+
+        def on_sample(index: int, sample: messages.Sample) -> None:
+            log.add(index, sample)
+            progress.show(counters, link.drops.total())
+
+        reason = session.run(
+            link,
+            [tuple(int(x) for x in r) for r in steps],
+            ident=ident,
+            on_sample=on_sample,
+            counters=counters,
+            port_name=url,
+        )
+    except session.BenchFailed as exc:
+        reason = str(exc)
+        raise
+    except BaseException as exc:  # Ctrl-C, SIGTERM, a lost port: halt first, then let it through
+        reason = f"interrupted ({type(exc).__name__})"
+        raise
+    finally:
+        _halt(link)
+        log.close()
+        progress.show(counters, link.drops.total(), final=True)
+        meta.update(_summary(counters, link, reason, log.rows))
+        outputs.write_file(log_path.with_suffix(".json"), json.dumps(meta, indent=2) + "\n")
+        port.close()
+
+
+def _halt(link: session.Link) -> None:
+    """HALT twice (a corrupted byte must not keep the motors running); errors of a dead port ignored."""
+    for _ in range(2):
+        try:
+            link.send(messages.Halt())
+            link.port.flush()
+        except Exception:  # noqa: BLE001 - the port may be gone; there is nothing else to try
+            return
+
+
+def _summary(c: session.Counters, link: session.Link, reason: str, rows: int) -> dict[str, Any]:
+    d = link.drops
+    return {
+        "finished": _now(),
+        "exit_reason": reason,
+        "samples": c.samples,
+        "log_rows": rows,
+        "missing_samples": c.missing,
+        "setpoints_sent": c.sent,
+        "faults": c.faults,
+        "drops": {"crc": d.crc, "length": d.length, "unknown_type": d.unknown_type, "out_of_order": d.out_of_order},
+    }
+
+
+def _now() -> str:
+    return datetime.now(UTC).isoformat(timespec="seconds")

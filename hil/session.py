@@ -1,0 +1,230 @@
+"""The host side of a bench run: handshake, arm, stream setpoints with credit flow control, collect one
+sample per setpoint, and halt the motors on every way out.
+
+The controller owns the clock and consumes one setpoint per tick; the host only keeps its FIFO topped
+up from the free-slot count each sample reports, so host and USB jitter never reach the motors.
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import Any
+
+from kinetab.generator.errors import CheckFailed
+
+from . import framing, messages
+from .messages import FaultCode
+
+ANSWER_TIMEOUT_S = 2.0  # no frame from the controller this long while running: it stopped answering
+HELLO_TRIES = 3
+HELLO_WAIT_S = 1.0
+RESEND_S = 0.02  # a setpoint not received this long after sending is sent again (with all after it)
+
+
+class BenchFailed(CheckFailed):
+    """A bench run that could not start or did not complete (exit 1)."""
+
+
+@dataclass
+class Counters:
+    """What the run has seen so far (for the progress line and the log's side file)."""
+
+    sent: int = 0
+    samples: int = 0
+    fifo_free: int = 0
+    fifo_depth: int = 0
+    missing: int = 0  # samples lost on the way (their rows have no measurement)
+    faults: list[str] = field(default_factory=list)
+
+
+class Link:
+    """Frames and messages over an open pyserial port; bad frames are counted, never raised."""
+
+    def __init__(self, port: Any) -> None:
+        self.port = port
+        self.reader = framing.FrameReader()
+
+    @property
+    def drops(self) -> framing.Drops:
+        return self.reader.drops
+
+    def send(self, msg: messages.Message) -> None:
+        self.port.write(framing.frame(messages.encode(msg)))
+
+    def send_many(self, msgs: list[messages.Message]) -> None:
+        if msgs:
+            self.port.write(b"".join(framing.frame(messages.encode(m)) for m in msgs))
+
+    def receive(self, wait_s: float) -> list[messages.Message]:
+        """Messages that arrived, waiting up to wait_s for the first bytes."""
+        self.port.timeout = wait_s
+        data = self.port.read(max(1, self.port.in_waiting))
+        if data and self.port.in_waiting:
+            data += self.port.read(self.port.in_waiting)
+        out = []
+        for payload in self.reader.feed(data):
+            msg = messages.decode(payload)
+            if isinstance(msg, str):
+                setattr(self.drops, msg, getattr(self.drops, msg) + 1)
+            else:
+                out.append(msg)
+        return out
+
+
+def handshake(link: Link, port_name: str) -> messages.Identify:
+    """HELLO until the controller identifies itself; BenchFailed when nothing answers."""
+    for _ in range(HELLO_TRIES):
+        link.send(messages.Hello())
+        deadline = time.monotonic() + HELLO_WAIT_S
+        while time.monotonic() < deadline:
+            for msg in link.receive(0.05):
+                if isinstance(msg, messages.Identify):
+                    return msg
+    raise BenchFailed(
+        f"{port_name}: nothing answers: no identify message after {HELLO_TRIES} hellos "
+        f"({HELLO_TRIES * HELLO_WAIT_S:g} s); check the port, the cable and the controller"
+    )
+
+
+def check_identity(ident: messages.Identify, fingerprint: int, port_name: str) -> None:
+    """Stop before arming when the controller speaks another protocol or runs another model."""
+    if ident.version != messages.PROTOCOL_VERSION:
+        raise BenchFailed(
+            f"{port_name}: the controller speaks bench protocol {ident.version}, this kinetab "
+            f"speaks {messages.PROTOCOL_VERSION}; regenerate the link files or update kinetab"
+        )
+    if ident.fingerprint != fingerprint:
+        raise BenchFailed(
+            f"{port_name}: fingerprint mismatch: the controller runs 0x{ident.fingerprint:08X}, the "
+            f"model is 0x{fingerprint:08X}; rebuild and flash the firmware from this model"
+        )
+
+
+Rows = list[tuple[int, ...]]  # setpoints: interface.FF_IN columns in firmware steps
+
+
+@dataclass
+class Stream:
+    """Credit flow control and repair: how many setpoints may be sent now without overflowing the
+    FIFO, and sending again from the controller's last received setpoint when one was lost."""
+
+    rows: Rows
+    first_seq: int
+    next_index: int = 0  # the next row to send
+    free: int = 0  # free slots the controller last reported
+    acked: int = -1  # index of the newest setpoint the controller had received then
+    sent_at: list[float] = field(default_factory=list)
+
+    def credit(self) -> int:
+        """Free slots less the setpoints sent since the report."""
+        return max(0, self.free - (self.next_index - 1 - self.acked))
+
+    def report(self, free: int, last_rx: int) -> None:
+        """A sample's free slots and last received sequence number (unwrapped near what was sent)."""
+        self.free = free
+        behind = (self.first_seq + self.next_index - 1 - last_rx) & 0xFFFF
+        self.acked = max(self.acked, self.next_index - 1 - behind)
+
+    def repair(self, now: float) -> None:
+        """Go back to the first setpoint not received, when it has been on its way for RESEND_S."""
+        first_missing = self.acked + 1
+        if first_missing < self.next_index and now - self.sent_at[first_missing] > RESEND_S:
+            self.next_index = first_missing
+
+    def take(self, most: int, now: float) -> list[messages.Message]:
+        n = min(self.credit(), most, len(self.rows) - self.next_index)
+        out: list[messages.Message] = []
+        for k in range(self.next_index, self.next_index + n):
+            flags = messages.LAST if k == len(self.rows) - 1 else 0
+            out.append(messages.Setpoint((self.first_seq + k) & 0xFFFF, flags, self.rows[k]))
+            if k < len(self.sent_at):
+                self.sent_at[k] = now
+            else:
+                self.sent_at.append(now)
+        self.next_index += n
+        return out
+
+
+def run(
+    link: Link,
+    rows: Rows,
+    *,
+    ident: messages.Identify,
+    on_sample: Callable[[int, messages.Sample], None],
+    counters: Counters,
+    port_name: str,
+) -> str:
+    """Arm and stream every row; calls on_sample(row index, sample) for each sample in order (a sample
+    lost on the way is counted and skipped). Returns "completed" or raises BenchFailed; the caller sends
+    HALT on every way out."""
+    first = 1
+    stream = Stream(rows, first)
+    armed = _arm(link, min(max(1, ident.fifo_depth // 2), len(rows)), port_name)
+    stream.free, counters.fifo_depth, counters.fifo_free = armed.free, ident.fifo_depth, armed.free
+    expected, last_heard = 0, time.monotonic()
+    while True:
+        now = time.monotonic()
+        stream.repair(now)
+        link.send_many(stream.take(32, now))
+        counters.sent = max(counters.sent, stream.next_index)
+        msgs = link.receive(0.002)
+        if msgs:
+            last_heard = time.monotonic()
+        elif time.monotonic() - last_heard > ANSWER_TIMEOUT_S:
+            raise BenchFailed(
+                f"{port_name}: the controller stopped answering ({ANSWER_TIMEOUT_S:g} s without a frame) "
+                f"after {expected} of {len(rows)} samples"
+            )
+        for msg in msgs:
+            if isinstance(msg, messages.Sample):
+                ahead = (msg.seq - first - expected) & 0xFFFF
+                if ahead >= 0x8000 or expected + ahead >= len(rows):
+                    link.drops.out_of_order += 1  # a repeat, or nothing we sent
+                    continue
+                counters.missing += ahead
+                expected += ahead
+                on_sample(expected, msg)
+                expected += 1
+                counters.samples, counters.fifo_free = counters.samples + 1, msg.free
+                stream.report(msg.free, msg.last_rx)
+            elif isinstance(msg, messages.Fault):
+                if msg.code == FaultCode.END and msg.seq == (first + len(rows) - 1) & 0xFFFF:
+                    counters.missing += len(rows) - expected  # the last samples lost on the way
+                    counters.faults.append(fault_text(msg))
+                    return "completed"
+                return _on_fault(msg, expected, len(rows), counters, port_name)
+
+
+def _arm(link: Link, prefill: int, port_name: str) -> messages.Armed:
+    """ARM (again, when the answer is lost) until ARMED; BenchFailed when refused or unanswered."""
+    for _ in range(HELLO_TRIES):
+        link.send(messages.Arm(1, prefill))
+        try:
+            return _await_armed(link, port_name, HELLO_WAIT_S)
+        except TimeoutError:
+            continue
+    raise BenchFailed(f"{port_name}: no answer to arm after {HELLO_TRIES} tries")
+
+
+def _await_armed(link: Link, port_name: str, wait_s: float) -> messages.Armed:
+    deadline = time.monotonic() + wait_s
+    while time.monotonic() < deadline:
+        for msg in link.receive(0.05):
+            if isinstance(msg, messages.Armed):
+                return msg
+            if isinstance(msg, messages.Fault) and msg.code != FaultCode.HALT:
+                raise BenchFailed(f"{port_name}: the controller refused to arm: {fault_text(msg)}")
+    raise TimeoutError
+
+
+def fault_text(msg: messages.Fault) -> str:
+    name = FaultCode(msg.code).name.lower().replace("_", " ") if msg.code in FaultCode._value2member_map_ else "unknown"
+    return f"{name} (code {msg.code}) at sequence {msg.seq}"
+
+
+def _on_fault(msg: messages.Fault, received: int, total: int, counters: Counters, port_name: str) -> str:
+    text = fault_text(msg)
+    counters.faults.append(text)
+    raise BenchFailed(f"{port_name}: the controller halted the motors: {text}, after {received} of {total} samples")

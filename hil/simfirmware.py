@@ -1,0 +1,92 @@
+"""The generated feed-forward and link C, compiled for this host and loaded with ctypes: the firmware
+half of the simulated controller, running the same files a drive controller runs."""
+
+from __future__ import annotations
+
+import ctypes
+from dataclasses import dataclass
+from pathlib import Path
+
+from kinetab.generator import hostc, interface, render
+from kinetab.generator.synthesis import Firmware
+
+from . import linkview
+
+N_IN = len(interface.FF_IN.columns)
+N_OUT = len(interface.FF_OUT.columns)
+N_MEAS = len(interface.MEASURED.columns)
+STATE_NAMES = ("idle", "armed", "running", "halted")
+
+
+@dataclass(frozen=True)
+class LinkStatus:
+    """The link's state and counters, read from the C."""
+
+    state: str
+    fifo_count: int
+    frames_ok: int
+    drop_crc: int
+    drop_length: int
+    drop_unknown: int
+    tx_lost: int
+    drop_order: int
+
+
+def sources(fw: Firmware, *, period_us: int, fifo_depth: int) -> dict[str, str]:
+    """Every C file of the simulated controller: feed-forward, link and the hook glue."""
+    files = dict(render.render(fw))
+    files.update(linkview.render_link(fw, period_us=period_us, fifo_depth=fifo_depth))
+    ctx = linkview.context(fw, period_us=period_us, fifo_depth=fifo_depth)
+    ctx.update(
+        source=interface.file_names(fw.vehicle.name)["sim_source"],
+        link_header=interface.file_names(fw.vehicle.name)["link_header"],
+        measured_type=interface.MEASURED.c_type(fw.vehicle.name),
+    )
+    files.update(render.render_set(render.SIM, fw.vehicle.name, ctx))
+    return files
+
+
+class SimFirmware:
+    """The compiled library: feed it received bytes, tick it, take what it transmits."""
+
+    def __init__(self, fw: Firmware, folder: Path, *, period_us: int, fifo_depth: int) -> None:
+        names = interface.file_names(fw.vehicle.name)
+        for name, text in sources(fw, period_us=period_us, fifo_depth=fifo_depth).items():
+            (folder / name).write_text(text, encoding="utf-8")
+        c_files = [folder / names[k] for k in ("ff_source", "link_source", "sim_source")]
+        lib = hostc.compile_c(c_files, folder / "libsimfw.so", include=[folder], extra=["-shared", "-fPIC"])
+        self.lib = ctypes.CDLL(str(lib))
+        self.lib.sim_tx_take.restype = ctypes.c_uint32
+        self.lib.sim_applied.restype = ctypes.c_uint32
+        self._tx = ctypes.create_string_buffer(8192)
+        self._inputs = (ctypes.c_int32 * N_IN)()
+        self._ff = (ctypes.c_int32 * N_OUT)()
+        self._halted = ctypes.c_int()
+        self._status = (ctypes.c_uint32 * 8)()
+        self.lib.sim_init()
+
+    def receive(self, data: bytes) -> None:
+        if data:
+            self.lib.sim_rx(data, ctypes.c_uint32(len(data)))
+
+    def tick(self) -> None:
+        self.lib.sim_tick()
+
+    def transmit(self) -> bytes:
+        n = self.lib.sim_tx_take(self._tx, ctypes.c_uint32(len(self._tx)))
+        return self._tx.raw[:n]
+
+    def applied(self) -> tuple[int, tuple[int, ...], tuple[int, ...], bool]:
+        """(count of applies so far, setpoint FF_IN columns, feed-forward FF_OUT columns, halted)."""
+        count = self.lib.sim_applied(self._inputs, self._ff, ctypes.byref(self._halted))
+        return int(count), tuple(self._inputs), tuple(self._ff), bool(self._halted.value)
+
+    def set_measured(self, values: tuple[int, ...], *, ok: bool = True) -> None:
+        """What the next measure hook returns (MEASURED columns in firmware steps)."""
+        arr = (ctypes.c_int32 * N_MEAS)(*values)
+        self.lib.sim_set_measured(arr, 0 if ok else 1)
+
+    def status(self) -> LinkStatus:
+        self.lib.sim_status(self._status)
+        s = list(self._status)
+        return LinkStatus(STATE_NAMES[s[0]] if s[0] < 4 else str(s[0]), *s[1:])
