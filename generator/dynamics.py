@@ -315,7 +315,7 @@ def rig_wheel_forces(v: Vehicle, op: OperatingPoint, rig: str) -> tuple[WheelFor
 
 
 def rig_forward_accel(
-    v: Vehicle, op: OperatingPoint, force_right: ArrayLike, force_left: ArrayLike, rig: str
+    v: Vehicle, op: OperatingPoint, force_right: ArrayLike, force_left: ArrayLike, *, rig: str
 ) -> tuple[Array, Array]:
     """forward_accel for the rig: on the floor M^-1 (Q - V - F - R - G); wheels up (Q - F) / m_rot."""
     if rig == "on-floor":

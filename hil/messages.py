@@ -136,9 +136,14 @@ def encode(msg: Message) -> bytes:
     return bytes([kind]) + struct.pack(fmt, *fields)
 
 
-def decode(payload: bytes) -> Message | str:
-    """A message, or the cause it is dropped for: "unknown_type" or "length". Never raises."""
-    if not payload or payload[0] not in Kind._value2member_map_:
+TO_CONTROLLER = frozenset({Kind.HELLO, Kind.ARM, Kind.SETPOINT, Kind.HALT})
+TO_HOST = frozenset({Kind.IDENTIFY, Kind.ARMED, Kind.SAMPLE, Kind.FAULT})
+
+
+def decode(payload: bytes, kinds: frozenset[Kind] = TO_HOST) -> Message | str:
+    """A message of one of `kinds` (what this side receives), or the cause it is dropped for:
+    "unknown_type" or "length". Never raises."""
+    if not payload or payload[0] not in {int(k) for k in kinds}:
         return "unknown_type"
     kind = Kind(payload[0])
     cls, fmt = LAYOUT[kind]

@@ -84,7 +84,7 @@ class Plant:
         op = dynamics.OperatingPoint(
             sp["payload_kg"], self.speed[0], self.speed[1], 0.0, 0.0, sp["pitch_rad"], sp["roll_rad"]
         )
-        ar, al = dynamics.rig_forward_accel(v, op, force[0], force[1], self.options.rig)
+        ar, al = dynamics.rig_forward_accel(v, op, force[0], force[1], rig=self.options.rig)
         self.speed = self.speed + dt * np.array([float(ar), float(al)])
         self._position = self._position + dt * self.speed
 

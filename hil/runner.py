@@ -84,13 +84,7 @@ def bench_run(
     reason = "error"
     try:
         ident = session.handshake(link, url)
-        meta["controller"] = {
-            "fingerprint": f"0x{ident.fingerprint:08X}",
-            "protocol": ident.version,
-            "period_us": ident.period_us,
-            "fifo_depth": ident.fifo_depth,
-            "watchdog_ms": ident.watchdog_ms,
-        }
+        meta["controller"] = _controller(ident)
         session.check_identity(ident, fingerprint, url)
 
         def on_sample(index: int, sample: messages.Sample) -> None:
@@ -112,12 +106,36 @@ def bench_run(
         reason = f"interrupted ({type(exc).__name__})"
         raise
     finally:
-        _halt(link)
-        log.close()
-        progress.show(counters, link.drops.total(), final=True)
-        meta.update(_summary(counters, link, reason, log.rows))
-        outputs.write_file(log_path.with_suffix(".json"), json.dumps(meta, indent=2) + "\n")
-        port.close()
+        _finish(link, log, progress, counters, meta=meta, reason=reason)
+
+
+def _controller(ident: messages.Identify) -> dict[str, Any]:
+    """What the controller said of itself, for LOG.json."""
+    return {
+        "fingerprint": f"0x{ident.fingerprint:08X}",
+        "protocol": ident.version,
+        "period_us": ident.period_us,
+        "fifo_depth": ident.fifo_depth,
+        "watchdog_ms": ident.watchdog_ms,
+    }
+
+
+def _finish(
+    link: session.Link,
+    log: LogWriter,
+    progress: Progress,
+    counters: session.Counters,
+    *,
+    meta: dict[str, Any],
+    reason: str,
+) -> None:
+    """Every way out: halt the motors, close the log, write LOG.json, close the port."""
+    _halt(link)
+    log.close()
+    progress.show(counters, link.drops.total(), final=True)
+    meta.update(_summary(counters, link, reason, log.rows))
+    outputs.write_file(log.path.with_suffix(".json"), json.dumps(meta, indent=2) + "\n")
+    link.port.close()
 
 
 def _halt(link: session.Link) -> None:

@@ -194,7 +194,7 @@ def run(
                     counters.missing += len(rows) - expected  # the last samples lost on the way
                     counters.faults.append(fault_text(msg))
                     return "completed"
-                return _on_fault(msg, expected, len(rows), counters, port_name)
+                return _on_fault(msg, expected, len(rows), counters, port_name=port_name)
 
 
 def _arm(link: Link, prefill: int, port_name: str) -> messages.Armed:
@@ -224,7 +224,7 @@ def fault_text(msg: messages.Fault) -> str:
     return f"{name} (code {msg.code}) at sequence {msg.seq}"
 
 
-def _on_fault(msg: messages.Fault, received: int, total: int, counters: Counters, port_name: str) -> str:
+def _on_fault(msg: messages.Fault, received: int, total: int, counters: Counters, *, port_name: str) -> str:
     text = fault_text(msg)
     counters.faults.append(text)
     raise BenchFailed(f"{port_name}: the controller halted the motors: {text}, after {received} of {total} samples")

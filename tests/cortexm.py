@@ -31,6 +31,11 @@ def zig_available() -> bool:
     return True
 
 
+def zig_cc(target: str) -> list[str]:
+    """The zig cc command for a target with the strict flags."""
+    return [sys.executable, "-m", "ziglang", "cc", *TARGETS[target], *STRICT]
+
+
 def compile_elf(sources: list[Path], target: str, entry: str, out: Path, extra: list[str] | None = None) -> Path:
     """One standalone ELF per entry function (-O2, sections garbage-collected)."""
     cmd = [

@@ -1,0 +1,190 @@
+"""The bench end to end without hardware: `bench plan`, `bench simulate` on a pseudo-terminal and
+`bench run`, as real processes, with the faults a bench sees."""
+
+from __future__ import annotations
+
+import csv
+import json
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+from kinetab.generator import emulate, interface
+from kinetab.hil import messages, planfile, session
+
+from tests.csteps import needs_gcc
+from tests.firmware_fixtures import demo_firmware
+from tests.helpers import DEMO_PATH, demo_doc, write_model
+
+ROOT = Path(__file__).resolve().parents[1]
+KINETAB = [sys.executable, "-m", "kinetab.generator"]
+pytestmark = [pytest.mark.slow, needs_gcc]
+
+
+class Sim:
+    """A `bench simulate` process; `port` is the first line it prints."""
+
+    def __init__(self, model: Path, *extra: str) -> None:
+        self.proc = subprocess.Popen(
+            [*KINETAB, "bench", "simulate", str(model), *extra],
+            cwd=ROOT,
+            stdout=subprocess.PIPE,
+            stderr=subprocess.PIPE,
+            text=True,
+        )
+        assert self.proc.stdout is not None
+        self.port = self.proc.stdout.readline().strip()
+        assert self.port.startswith("/dev/"), self.proc.stderr.read() if self.proc.stderr else ""
+
+    def finish(self, timeout: float = 10) -> tuple[int, str]:
+        try:
+            _, err = self.proc.communicate(timeout=timeout)
+        except subprocess.TimeoutExpired:
+            self.proc.kill()
+            _, err = self.proc.communicate()
+        return self.proc.returncode, err
+
+
+def _plan(tmp_path: Path, seconds: float) -> Path:
+    path = tmp_path / "plan.csv"
+    subprocess.run(
+        [*KINETAB, "bench", "plan", str(DEMO_PATH), "-o", str(path), "--duration", str(seconds)],
+        cwd=ROOT,
+        check=True,
+        capture_output=True,
+    )
+    return path
+
+
+def _run(port: str, plan: Path, log: Path, model: Path = DEMO_PATH, **kw) -> subprocess.Popen:
+    return subprocess.Popen(
+        [*KINETAB, "bench", "run", str(model), "--port", port, "--plan", str(plan), "--log", str(log), "--yes"],
+        cwd=ROOT,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+        **kw,
+    )
+
+
+def _log_rows(log: Path) -> list[dict[str, str]]:
+    with log.open() as fh:
+        return list(csv.DictReader(fh))
+
+
+def test_sixty_seconds_at_one_kilohertz(tmp_path):
+    """Every setpoint answered exactly once and in order, no drops, no underrun, and the feed-forward
+    current the C computed equals the Python emulation on every row."""
+    plan, log = _plan(tmp_path, 60), tmp_path / "log.csv"
+    sim = Sim(DEMO_PATH, "--noise", "0.02")
+    run = _run(sim.port, plan, log)
+    _, err = run.communicate(timeout=120)
+    assert run.returncode == 0, err
+    code, sim_err = sim.finish()
+    assert code == 0 and "halted: end" in sim_err
+    meta = json.loads(log.with_suffix(".json").read_text())
+    assert meta["exit_reason"] == "completed" and meta["samples"] == 60_000 == meta["log_rows"]
+    assert meta["drops"] == {"crc": 0, "length": 0, "unknown_type": 0, "out_of_order": 0}
+    assert meta["missing_samples"] == 0 and "fifo dry" not in " ".join(meta["faults"])
+    rows = _log_rows(log)
+    assert [int(r["seq"]) for r in rows] == list(range(1, 60_001))
+    fw = demo_firmware()
+    si = {planfile.SI_NAME[c]: np.array([float(r[c]) for r in rows]) for c in planfile.PLAN_COLUMNS[1:]}
+    steps = interface.to_steps(fw.vehicle, interface.FF_IN, si)
+    want = emulate.run(fw.design.feedforward, fw.tables, steps)["current"]  # current steps
+    amps = np.array([[float(r["ff_current_right"]), float(r["ff_current_left"])] for r in rows])
+    got = np.round(amps / fw.vehicle.firmware.current_lsb_a).astype(np.int64)  # the log holds steps x step
+    assert np.array_equal(got, want) and np.abs(want).max() > 1000
+
+
+def test_controller_killed_mid_run(tmp_path):
+    plan, log = _plan(tmp_path, 20), tmp_path / "log.csv"
+    sim = Sim(DEMO_PATH)
+    run = _run(sim.port, plan, log)
+    time.sleep(3)
+    sim.proc.kill()
+    killed = time.monotonic()
+    run.communicate(timeout=30)
+    assert run.returncode == 1 and time.monotonic() - killed < 2.5
+    meta = json.loads(log.with_suffix(".json").read_text())
+    assert 1000 < meta["samples"] == len(_log_rows(log)) < 20_000
+
+
+def test_garbage_and_corruption_both_ways_are_counted_and_the_run_completes(tmp_path):
+    plan, log = _plan(tmp_path, 10), tmp_path / "log.csv"
+    sim = Sim(DEMO_PATH, "--corrupt-rate", "0.0003", "--garbage-every", "0.5")
+    run = _run(sim.port, plan, log)
+    _, err = run.communicate(timeout=60)
+    assert run.returncode == 0, err
+    meta = json.loads(log.with_suffix(".json").read_text())
+    assert sum(meta["drops"].values()) > 0 and meta["exit_reason"] == "completed"
+    assert meta["samples"] + meta["missing_samples"] == 10_000
+    _, sim_err = sim.finish()
+    assert "halted: end" in sim_err and "dropped 0 crc" not in sim_err  # the controller counted its drops
+
+
+def test_host_silent_the_controller_halts_on_its_watchdog(tmp_path):
+    import serial
+
+    sim = Sim(DEMO_PATH)
+    port = serial.serial_for_url(sim.port, timeout=0.1)
+    link = session.Link(port)
+    ident = session.handshake(link, sim.port)
+    link.send(messages.Arm(1, 32))
+    link.send_many([messages.Setpoint(k, 0, (0,) * messages.N_IN) for k in range(1, 6)])  # then silence
+    deadline, faults = time.monotonic() + 3, []
+    while time.monotonic() < deadline and not faults:
+        faults = [m for m in link.receive(0.1) if isinstance(m, messages.Fault)]
+    port.close()
+    assert faults == [messages.Fault(messages.FaultCode.WATCHDOG, 5)] and ident.watchdog_ms == 100
+    code, err = sim.finish()
+    assert code == 1 and "halted: watchdog" in err
+
+
+def test_fingerprint_mismatch_is_refused_before_arming(tmp_path):
+    doc = demo_doc()
+    doc["friction"]["coulomb"] = "4.4 N"
+    other = write_model(tmp_path, doc, "other.toml")
+    plan, log = _plan(tmp_path, 5), tmp_path / "log.csv"
+    sim = Sim(other)
+    run = _run(sim.port, plan, log)
+    _, err = run.communicate(timeout=30)
+    assert run.returncode == 1 and "fingerprint mismatch" in err and "0x52C36C54" in err
+    assert sim.proc.poll() is None  # never armed, never halted: still waiting
+    sim.proc.kill()
+    assert json.loads(log.with_suffix(".json").read_text())["samples"] == 0
+
+
+def test_nothing_answers(tmp_path):
+    plan, log = _plan(tmp_path, 5), tmp_path / "log.csv"
+    master, slave = os.openpty()
+    try:
+        run = _run(os.ttyname(slave), plan, log)
+        _, err = run.communicate(timeout=30)
+    finally:
+        os.close(master)
+        os.close(slave)
+    assert run.returncode == 1 and "nothing answers" in err
+    run = _run("loop://", plan, log)  # our own bytes come back: still nobody answers
+    _, err = run.communicate(timeout=30)
+    assert run.returncode == 1 and "nothing answers" in err
+
+
+@pytest.mark.parametrize("sig,code", [(signal.SIGINT, 130), (signal.SIGTERM, 143)])
+def test_interrupted_run_halts_and_keeps_the_log(tmp_path, sig, code):
+    plan, log = _plan(tmp_path, 20), tmp_path / "log.csv"
+    sim = Sim(DEMO_PATH)
+    run = _run(sim.port, plan, log)
+    time.sleep(3)
+    run.send_signal(sig)
+    _, err = run.communicate(timeout=30)
+    assert run.returncode == code, err
+    sim_code, sim_err = sim.finish()
+    assert sim_code == 0 and "halted: halt" in sim_err  # the host's HALT reached the controller
+    meta = json.loads(log.with_suffix(".json").read_text())
+    assert meta["exit_reason"].startswith("interrupted") and meta["samples"] == len(_log_rows(log)) > 500

@@ -1,0 +1,188 @@
+"""The controller side of the bench link (generated C): strict flags on the host and Cortex-M0+/M4, the
+parser under 100,000 random and mutated frames with AddressSanitizer and UndefinedBehaviorSanitizer
+(same verdict as the Python reader), and its behaviour through the simulated controller's library."""
+
+from __future__ import annotations
+
+import subprocess
+
+import jinja2
+import numpy as np
+import pytest
+from kinetab.generator import emulate, hostc, interface
+from kinetab.hil import framing, linkview, messages, simfirmware
+
+from tests import cortexm
+from tests.csteps import needs_gcc, write_files
+from tests.firmware_fixtures import demo_files, demo_firmware
+
+FUZZ = __import__("pathlib").Path(__file__).parent / "c" / "link_fuzz.c.j2"
+
+
+@pytest.fixture(scope="module")
+def link_dir(tmp_path_factory):
+    fw = demo_firmware()
+    return write_files(tmp_path_factory.mktemp("link"), {**demo_files(), **linkview.render_link(fw)})
+
+
+def _fuzz_source() -> str:
+    tpl = jinja2.Template(FUZZ.read_text(), undefined=jinja2.StrictUndefined)
+    return tpl.render(
+        prefix="larkspur", link_header="larkspur_link.h", measured_type=interface.MEASURED.c_type("larkspur")
+    )
+
+
+def _python_verdicts(stream: bytes) -> list[str]:
+    """What the Python reader says of every non-empty frame, as the controller receives them."""
+    out = []
+    for raw in stream.split(b"\x00")[:-1]:
+        if not raw:
+            continue
+        reader = framing.FrameReader()
+        got = reader.feed(raw + b"\x00")
+        if got:
+            msg = messages.decode(got[0], messages.TO_CONTROLLER)
+            out.append(msg if isinstance(msg, str) else "ok")
+        else:
+            out.append("crc" if reader.drops.crc else "length")
+    return out
+
+
+def _frames(rng: np.random.Generator, n: int) -> bytes:
+    """Valid frames of every kind, each mutated (flips, cuts, inserts, swaps) or left whole, and noise."""
+    kinds = [
+        messages.Hello(),
+        messages.Arm(1, 8),
+        messages.Halt(),
+        messages.Setpoint(1, 0, (5,) * messages.N_IN),
+        messages.Sample(1, 1, 3, 1, 0, (1, 2), (3, 4, 5, 6)),
+        messages.Fault(2, 9),
+    ]
+    parts = []
+    for _ in range(n):
+        wire = bytearray(framing.frame(messages.encode(kinds[int(rng.integers(len(kinds)))]))[:-1])
+        what = int(rng.integers(6))
+        if what == 1:
+            wire[int(rng.integers(len(wire)))] ^= 1 << int(rng.integers(8))
+        elif what == 2:
+            del wire[int(rng.integers(len(wire))) :]
+        elif what == 3:
+            wire.insert(int(rng.integers(len(wire) + 1)), int(rng.integers(1, 256)))
+        elif what == 4:
+            wire = bytearray(rng.integers(1, 256, int(rng.integers(1, 90)), dtype=np.uint8).tobytes())
+        parts.append(bytes(wire).replace(b"\x00", b"\x01") if what == 4 else bytes(wire))
+    return b"\x00".join(parts) + b"\x00"
+
+
+@needs_gcc
+@pytest.mark.slow
+def test_parser_under_sanitizers_agrees_with_python(link_dir):
+    src = link_dir / "fuzz.c"
+    src.write_text(_fuzz_source())
+    exe = hostc.compile_c(
+        [src, link_dir / "larkspur_link.c", link_dir / "larkspur_ff.c"],
+        link_dir / "fuzz",
+        include=[link_dir],
+        opt="-O1",
+        extra=["-g", "-fsanitize=address,undefined", "-fno-sanitize-recover=all"],
+    )
+    stream = _frames(np.random.default_rng(2026), 103_000)  # some mutations leave an empty frame
+    done = subprocess.run([str(exe)], input=stream, capture_output=True, check=True)
+    assert done.stderr == b""  # no sanitizer report
+    got = done.stdout.decode().split()
+    want = _python_verdicts(stream)
+    assert len(got) == len(want) >= 100_000
+    assert got == want
+    assert want.count("ok") > 10_000 and {"crc", "length", "unknown_type"} <= set(want)
+
+
+@needs_gcc
+def test_link_strict_on_the_host(link_dir):
+    for name in ("larkspur_link.c",):
+        hostc.compile_c([link_dir / name], link_dir / "link.o", include=[link_dir], extra=["-c"])
+
+
+@pytest.mark.slow
+@pytest.mark.skipif(not cortexm.zig_available(), reason="pip install ziglang")
+@pytest.mark.parametrize("target", ["cortex_m0plus", "cortex_m4"])
+def test_link_strict_on_cortex_m(link_dir, target, tmp_path):
+    obj = tmp_path / "link.o"
+    cmd = [*cortexm.zig_cc(target), "-O2", "-c", f"-I{link_dir}", str(link_dir / "larkspur_link.c"), "-o", str(obj)]
+    subprocess.run(cmd, check=True, capture_output=True, text=True)
+    assert obj.stat().st_size > 0
+
+
+@pytest.fixture()
+def firmware(tmp_path):
+    return simfirmware.SimFirmware(demo_firmware(), tmp_path, period_us=1000, fifo_depth=8)
+
+
+def _send(fwlib, *msgs):
+    fwlib.receive(b"".join(framing.frame(messages.encode(m)) for m in msgs))
+
+
+def _received(fwlib) -> list:
+    reader = framing.FrameReader()
+    return [messages.decode(p) for p in reader.feed(fwlib.transmit())]
+
+
+def test_identify_arm_stream_and_end(firmware):
+    """One sample per setpoint, in order, with the feed-forward the Python emulation computes; the
+    sample of the last setpoint ends the run with a halt of code END."""
+    fw = demo_firmware()
+    _send(firmware, messages.Hello())
+    (ident,) = _received(firmware)
+    assert ident == messages.Identify(1, fw.fingerprint, 1000, 8, 100)
+    _send(firmware, messages.Arm(1, 3))
+    assert _received(firmware) == [messages.Armed(1, 8)]
+    rows = np.array([[400 * k, -300, 50, -20, 100, -40, 300] for k in range(5)], dtype=np.int64)
+    _send(
+        firmware,
+        *[
+            messages.Setpoint(k + 1, messages.LAST if k == 4 else 0, tuple(int(x) for x in r))
+            for k, r in enumerate(rows)
+        ],
+    )
+    firmware.set_measured((11, 12, 13, 14))
+    out = []
+    for _ in range(7):
+        firmware.tick()
+        out += _received(firmware)
+    samples = [m for m in out if isinstance(m, messages.Sample)]
+    assert [s.seq for s in samples] == [1, 2, 3, 4, 5] and samples[-1].status & messages.STATUS_LAST
+    want = emulate.run(fw.design.feedforward, fw.tables, interface.rows_to_fields(interface.FF_IN, rows))["current"]
+    assert [s.ff for s in samples] == [tuple(int(x) for x in w) for w in want]
+    assert samples[0].measured == (11, 12, 13, 14)
+    assert out[-1] == messages.Fault(messages.FaultCode.END, 5) and firmware.applied()[3] is True
+
+
+def test_safety_halts(firmware):
+    """The motors are halted when the FIFO runs dry, on the watchdog, on HALT; a setpoint while not armed
+    is refused; after a halt only a new ARM starts again."""
+    _send(firmware, messages.Arm(1, 1), messages.Setpoint(1, 0, (0,) * messages.N_IN))
+    firmware.tick()
+    firmware.tick()  # the FIFO is empty now
+    assert messages.Fault(messages.FaultCode.FIFO_DRY, 1) in _received(firmware) and firmware.applied()[3]
+    _send(firmware, messages.Setpoint(2, 0, (0,) * messages.N_IN))
+    assert _received(firmware) == [messages.Fault(messages.FaultCode.NOT_ARMED, 2)]
+    _send(firmware, messages.Arm(10, 4), messages.Setpoint(10, 0, (0,) * messages.N_IN))
+    _received(firmware)
+    for _ in range(101):  # armed, still filling, and the host silent: the watchdog halts
+        firmware.tick()
+    assert _received(firmware)[-1] == messages.Fault(messages.FaultCode.WATCHDOG, 10)
+    _send(firmware, messages.Arm(20, 1), messages.Setpoint(20, 0, (0,) * messages.N_IN), messages.Halt())
+    assert _received(firmware)[-1] == messages.Fault(messages.FaultCode.HALT, 20)
+
+
+def test_out_of_sequence_setpoints_are_ignored(firmware):
+    _send(
+        firmware,
+        messages.Arm(1, 2),
+        messages.Setpoint(1, 0, (0,) * messages.N_IN),
+        messages.Setpoint(3, 0, (0,) * messages.N_IN),
+        messages.Setpoint(2, 0, (0,) * messages.N_IN),
+    )
+    firmware.tick()
+    firmware.tick()
+    samples = [m for m in _received(firmware) if isinstance(m, messages.Sample)]
+    assert samples[0].seq == 1 and samples[0].last_rx == 2 and firmware.status().drop_order == 1
