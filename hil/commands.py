@@ -25,7 +25,7 @@ RIG = click.Choice(["on-floor", "wheels-up"])
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})
 def bench() -> None:
-    """Bench link to the drive controller: plan, simulate, run, list serial ports."""
+    """Bench link to the drive controller: link C, plans, a simulated controller, runs, serial ports."""
 
 
 @bench.command(short_help="List serial ports with USB VID:PID, serial number and description.")
@@ -39,6 +39,26 @@ def ports(as_json: bool) -> None:
         click.echo(json.dumps([p.as_dict() for p in found], indent=2))
         return
     click.echo(portlist.table(found))
+
+
+@bench.command(short_help="Generate the controller side of the link: <name>_link.h and .c.")
+@click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
+@click.option("-o", "--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Output folder.")
+@click.option("--period", type=QuantityType(units.Kind("a duration", "s", "'1 ms'"), "ms"), default="1",
+              show_default=True, help="Default control period the link reports (bare number: ms).")
+def link(model_path: str, out_dir: str, period: float) -> None:
+    """Write <name>_link.h and <name>_link.c into OUT, beside the <name>_ff files of `kinetab build`
+    (they include <name>_ff.h). Hook them to the firmware as README shows."""
+    from kinetab.generator import outputs, synthesis
+
+    from . import linkview
+
+    if not out_dir.strip():
+        raise UserError("-o/--out: expected an output folder, found an empty name (use '.' for this folder)")
+    v = model.load(model_path)
+    files = linkview.render_link(synthesis.synthesise(v), period_us=round(period * 1e6))
+    outputs.write_set({Path(out_dir) / name: text for name, text in files.items()})
+    click.echo(f"wrote {', '.join(str(Path(out_dir) / n) for n in files)}")
 
 
 @bench.command(short_help="Write a jerk-limited test trajectory (CSV) inside the envelope.")

@@ -20,7 +20,7 @@ from .messages import FaultCode
 ANSWER_TIMEOUT_S = 2.0  # no frame from the controller this long while running: it stopped answering
 HELLO_TRIES = 3
 HELLO_WAIT_S = 1.0
-RESEND_S = 0.02  # a setpoint not received this long after sending is sent again (with all after it)
+RESEND_S = 0.005  # a setpoint not received this long after sending is sent again (with all after it)
 
 
 class BenchFailed(CheckFailed):
