@@ -29,7 +29,9 @@ def main(argv: list[str] | None = None) -> None:
     previous = signal.signal(signal.SIGINT, _interrupted)
     try:
         cli = importlib.import_module("kinetab.generator.cli")
-        cli.register_lazy("bench", "kinetab.hil.commands", "bench", "Bench link: link C, plans, simulated controller, runs, ports.")
+        cli.register_lazy(
+            "bench", "kinetab.hil.commands", "bench", "Bench link: link C, plans, simulated controller, runs, ports."
+        )
     finally:
         signal.signal(signal.SIGINT, previous)
     cli.main(argv)

@@ -44,8 +44,13 @@ def ports(as_json: bool) -> None:
 @bench.command(short_help="Generate the controller side of the link: <name>_link.h and .c.")
 @click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
 @click.option("-o", "--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Output folder.")
-@click.option("--period", type=QuantityType(units.Kind("a duration", "s", "'1 ms'"), "ms"), default="1",
-              show_default=True, help="Default control period the link reports (bare number: ms).")
+@click.option(
+    "--period",
+    type=QuantityType(units.Kind("a duration", "s", "'1 ms'"), "ms"),
+    default="1",
+    show_default=True,
+    help="Default control period the link reports (bare number: ms).",
+)
 def link(model_path: str, out_dir: str, period: float) -> None:
     """Write <name>_link.h and <name>_link.c into OUT, beside the <name>_ff files of `kinetab build`
     (they include <name>_ff.h). Hook them to the firmware as README shows."""
