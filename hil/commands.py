@@ -66,6 +66,69 @@ def link(model_path: str, out_dir: str, period: float) -> None:
     click.echo(f"wrote {', '.join(str(Path(out_dir) / n) for n in files)}")
 
 
+@bench.command(short_help="Measured against predicted current, per wheel and phase; exit 1 on a mismatch.")
+@click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
+@click.argument("log_path", metavar="LOG", type=click.Path(dir_okay=False))
+@click.option("--json", "as_json", is_flag=True, help="Print JSON (SI units) instead of a table.")
+@click.option("--plot", "plot_path", type=click.Path(dir_okay=False), help="Also write the comparison as a PNG.")
+@click.option("--tolerance", type=QuantityType(units.CURRENT, "A"), help="RMS residual allowed (bare number: A).")
+@click.option("--rig", type=RIG, help="Override the rig recorded in LOG.json.")
+def compare(
+    model_path: str, log_path: str, as_json: bool, plot_path: str | None, tolerance: float | None, rig: str | None
+) -> None:
+    """Predict the motor currents of LOG with MODEL (at the measured speeds, and at the setpoints) and
+    compare: RMS, max and bias per wheel and per phase, the noise floor, which term the residual looks
+    like. Exit 1 when a wheel's RMS residual exceeds the tolerance."""
+    from kinetab.generator.errors import CheckFailed
+
+    from . import benchdata, compareplot
+    from . import compare as cmp
+
+    v = model.load(model_path)
+    log = benchdata.read_log(Path(log_path), rig)
+    doc = cmp.compare(v, log, tolerance_a=tolerance)
+    if plot_path:
+        compareplot.write_plot(log, doc, Path(plot_path))
+    series = doc.pop("series")
+    del series
+    click.echo(json.dumps(doc, indent=2) if as_json else cmp.text(doc))
+    if not doc["passed"]:
+        raise CheckFailed(
+            f"{log_path}: the model does not match the bench: RMS residual above {doc['tolerance_a'] * 1000:.1f} mA"
+        )
+
+
+@bench.command(short_help="Fit model parameters to bench logs and write the corrected model.")
+@click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
+@click.argument("log_paths", metavar="LOG...", nargs=-1, required=True, type=click.Path(dir_okay=False))
+@click.option("--write", "write_path", type=click.Path(dir_okay=False), help="Write the corrected model here.")
+@click.option("--in-place", is_flag=True, help="Rewrite MODEL itself (comments, layout and units kept).")
+@click.option("--robust", is_flag=True, help="Soft-L1 loss: for logs with outliers.")
+@click.option("--json", "as_json", is_flag=True, help="Print JSON (SI units) instead of tables.")
+@click.option("--rig", type=RIG, help="Override the rig recorded in every LOG.json.")
+def fit(
+    model_path: str,
+    log_paths: tuple[str, ...],
+    write_path: str | None,
+    in_place: bool,
+    robust: bool,
+    as_json: bool,
+    rig: str | None,
+) -> None:
+    """One joint least-squares fit over the logs (a wheels-up and an on-floor log together separate
+    drivetrain friction from rolling resistance and body inertia). Parameters the logs do not excite or
+    cannot tell apart are named and left alone. Prints each estimate with its standard error and the
+    compare RMS per phase before and after."""
+    from . import fitreport
+
+    if bool(write_path) == in_place:
+        raise UserError("bench fit: give exactly one of --write NEW.toml and --in-place")
+    target = Path(model_path) if in_place else Path(str(write_path))
+    fitreport.run_fit(
+        Path(model_path), [Path(p) for p in log_paths], target=target, robust=robust, as_json=as_json, rig=rig
+    )
+
+
 @bench.command(short_help="Write a jerk-limited test trajectory (CSV) inside the envelope.")
 @click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
 @click.option("-o", "--out", "out_path", required=True, type=click.Path(dir_okay=False), help="Plan CSV to write.")
@@ -203,7 +266,14 @@ def simulate(
 @click.option("--log", "log_path", required=True, type=click.Path(dir_okay=False), help="Log CSV to write.")
 @click.option("--baud", type=int, default=1_000_000, show_default=True, help="Baud rate (ignored by USB CDC).")
 @click.option("--yes", is_flag=True, help="Skip the confirmation of the cautions (they are still printed).")
-def run(model_path: str, url: str, plan_path: str, log_path: str, baud: int, yes: bool) -> None:
+@click.option(
+    "--rig",
+    type=RIG,
+    default="on-floor",
+    show_default=True,
+    help="Wheels on the floor or lifted (recorded in LOG.json for compare and fit).",
+)
+def run(model_path: str, url: str, plan_path: str, log_path: str, baud: int, yes: bool, rig: str) -> None:
     """Handshake, arm, stream PLAN one setpoint per control tick and log one row per sample; the motors
     are halted on every way out. Exit 0 when the plan completed, 1 on a fault, timeout or mismatch."""
     from . import runner
@@ -214,6 +284,7 @@ def run(model_path: str, url: str, plan_path: str, log_path: str, baud: int, yes
         plan_path=Path(plan_path),
         log_path=Path(log_path),
         baud=baud,
+        rig=rig,
         confirm=None if yes else _confirm,
     )
 

@@ -20,7 +20,7 @@ class PlantOptions:
     rig: str = "on-floor"
     current_noise_a: float = 0.0  # standard deviation of the measured current
     encoder_counts: int = 4096  # encoder counts per motor turn
-    loop_time_s: float = 0.02  # time constant of the velocity loop on its own (sets the PI gains)
+    loop_time_s: float = 0.05  # time constant of the velocity loop on its own (sets the PI gains)
     substeps: int = 2
     seed: int = 1
 
@@ -58,7 +58,10 @@ class Plant:
     def step(self, setpoint_si: dict[str, float], ff_current_a: np.ndarray) -> None:
         """One control period with the setpoint and feed-forward current applied."""
         v, opt = self.truth, self.options
-        target = np.array([setpoint_si["speed_right"], setpoint_si["speed_left"]])
+        # the setpoint's speed is where the period ends: the loop's reference now is that less one period
+        # of the setpoint's acceleration (so perfect tracking needs no correction)
+        end = np.array([setpoint_si["speed_right"], setpoint_si["speed_left"]])
+        target = end - opt.period_s * np.array([setpoint_si["accel_right"], setpoint_si["accel_left"]])
         kp, ki = self.gains()
         error = target - self.speed
         self.integral += error * opt.period_s

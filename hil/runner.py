@@ -58,7 +58,14 @@ class Progress:
 
 
 def bench_run(
-    model_path: str, *, url: str, plan_path: Path, log_path: Path, baud: int, confirm: Callable[[], None] | None
+    model_path: str,
+    *,
+    url: str,
+    plan_path: Path,
+    log_path: Path,
+    baud: int,
+    rig: str = "on-floor",
+    confirm: Callable[[], None] | None,
 ) -> None:
     """The whole run; BenchFailed (exit 1) on a fault, timeout or mismatch, UserError (2) on bad input."""
     v = model.load(model_path)
@@ -78,6 +85,7 @@ def bench_run(
         "port": url,
         "plan": str(plan_path),
         "rows": len(plan),
+        "rig": rig,
         "started": _now(),
     }
     progress = Progress(len(plan))

@@ -1,0 +1,140 @@
+"""A bench log read back for comparison and fitting: the columns as arrays, the rig, accelerations
+from the measured speeds, and the model's predictions of the current."""
+
+from __future__ import annotations
+
+import csv
+import json
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+from kinetab.generator import dynamics
+from kinetab.generator.errors import UserError
+from kinetab.generator.vehicle import Vehicle
+from scipy.signal import savgol_filter
+
+from . import messages
+from .benchlog import LOG_COLUMNS
+
+SG_WINDOW_S = 0.1  # Savitzky-Golay window for accelerations from measured speeds
+TIGHT_TRACKING = 0.005  # RMS speed error below this fraction of speed_max counts as tight tracking
+
+
+@dataclass(frozen=True)
+class BenchLog:
+    """One log: SI arrays, the phase per row, which rows carry a valid measurement, the rig."""
+
+    path: Path
+    rig: str
+    t: np.ndarray
+    phase: np.ndarray
+    setpoint: dict[str, np.ndarray]  # OperatingPoint attributes
+    ff: np.ndarray  # (n, 2) A, the controller's feed-forward
+    current: np.ndarray  # (n, 2) A, measured
+    speed: np.ndarray  # (n, 2) m/s, measured
+    valid: np.ndarray  # (n,) bool
+
+    def __len__(self) -> int:
+        return len(self.t)
+
+
+def read_log(path: Path, rig: str | None = None) -> BenchLog:
+    """Read LOG.csv (and the rig from LOG.json, unless given); one UserError line when it cannot be."""
+    try:
+        with path.open(encoding="utf-8") as fh:
+            rows = list(csv.reader(fh))
+    except (OSError, UnicodeDecodeError) as exc:
+        raise UserError(
+            f"{path}: cannot read the log ({getattr(exc, 'strerror', None) or type(exc).__name__})"
+        ) from None
+    if not rows or tuple(rows[0]) != LOG_COLUMNS:
+        raise UserError(f"{path}:1: expected a bench log with the header {','.join(LOG_COLUMNS)}")
+    body = [r for r in rows[1:] if r]
+    if len(body) < 50:
+        raise UserError(f"{path}: expected at least 50 rows, found {len(body)}")
+    col = {name: k for k, name in enumerate(LOG_COLUMNS)}
+    try:
+        num = np.array([[float(r[k]) for k in range(len(LOG_COLUMNS)) if LOG_COLUMNS[k] != "phase"] for r in body])
+    except (ValueError, IndexError):
+        raise UserError(f"{path}: every column but phase must be a number") from None
+    names = [c for c in LOG_COLUMNS if c != "phase"]
+    get = {c: num[:, names.index(c)] for c in names}
+    side = path.with_suffix(".json")
+    recorded = json.loads(side.read_text()).get("rig", "on-floor") if side.exists() else "on-floor"
+    attrs = {
+        "speed_right": "speed_right",
+        "speed_left": "speed_left",
+        "accel_right": "accel_right",
+        "accel_left": "accel_left",
+        "pitch": "pitch_rad",
+        "roll": "roll_rad",
+        "payload": "payload_kg",
+    }
+    pair = lambda a, b: np.column_stack([get[a], get[b]])  # noqa: E731
+    return BenchLog(
+        path,
+        rig or recorded,
+        get["t"],
+        np.array([r[col["phase"]] for r in body]),
+        {attrs[k]: get[k] for k in attrs},
+        pair("ff_current_right", "ff_current_left"),
+        pair("current_right", "current_left"),
+        pair("measured_speed_right", "measured_speed_left"),
+        (get["status"].astype(int) & messages.STATUS_MEASURED) != 0,
+    )
+
+
+def accelerations(v: Vehicle, log: BenchLog) -> tuple[np.ndarray, str]:
+    """Rim accelerations (n, 2) for the measured motion, and how they were obtained: the setpoint's when
+    tracking was tight (RMS speed error below 0.5 % of speed_max), else a Savitzky-Golay derivative of
+    the measured speeds (quadratic, 0.1 s window)."""
+    sp = np.column_stack([log.setpoint["speed_right"], log.setpoint["speed_left"]])
+    err = float(np.sqrt(np.mean((log.speed - sp) ** 2)))
+    if err < TIGHT_TRACKING * v.envelope.speed_max_mps:
+        acc = np.column_stack([log.setpoint["accel_right"], log.setpoint["accel_left"]])
+        return acc, f"setpoint accelerations (tracking was tight: RMS speed error {err * 1000:.2f} mm/s)"
+    window, dt = _window(log)
+    acc = savgol_filter(log.speed, window, 2, deriv=1, delta=dt, axis=0)
+    return acc, (
+        f"Savitzky-Golay derivative of the measured speeds ({window} samples, quadratic; "
+        f"RMS speed error {err * 1000:.2f} mm/s)"
+    )
+
+
+def _window(log: BenchLog) -> tuple[int, float]:
+    dt = float(np.median(np.diff(log.t)))
+    return max(5, int(round(SG_WINDOW_S / dt)) | 1), dt
+
+
+def smoothed_speed(log: BenchLog) -> np.ndarray:
+    """Measured speeds smoothed by the same Savitzky-Golay filter (encoder quantisation averaged out)."""
+    window, _ = _window(log)
+    return np.asarray(savgol_filter(log.speed, window, 2, axis=0))
+
+
+def operating_point(log: BenchLog, *, speed: np.ndarray, accel: np.ndarray) -> dynamics.OperatingPoint:
+    s = log.setpoint
+    return dynamics.OperatingPoint(
+        s["payload_kg"], speed[:, 0], speed[:, 1], accel[:, 0], accel[:, 1], s["pitch_rad"], s["roll_rad"]
+    )
+
+
+def predicted_current(v: Vehicle, op: dynamics.OperatingPoint, rig: str) -> np.ndarray:
+    """The float model's motor currents (n, 2), A, for the rig."""
+    right, left = dynamics.rig_wheel_forces(v, op, rig)
+    return np.column_stack(
+        [dynamics.motor_current(v, right.total, op.speed_right), dynamics.motor_current(v, left.total, op.speed_left)]
+    )
+
+
+def noise_floor(log: BenchLog) -> float:
+    """The measured current's noise, A: sqrt(mean(diff^2) / 2) of consecutive samples while cruising
+    (both neighbours cruising), where the true current barely changes from one period to the next; for
+    white noise this is its standard deviation (with too few such rows: over all rows)."""
+    steady = (log.phase == "cruising") & log.valid
+    pairs = steady[1:] & steady[:-1]
+    if pairs.sum() < 20:
+        pairs = log.valid[1:] & log.valid[:-1]
+    d = np.diff(log.current, axis=0)[pairs]
+    return float(np.sqrt(np.mean(d**2) / 2))

@@ -1,0 +1,138 @@
+"""Measured against predicted motor current, per wheel and per phase, with a pass/fail against a
+tolerance and a hint of which model term the residual looks like."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+from kinetab.generator import dynamics
+from kinetab.generator.vehicle import Vehicle
+
+from . import benchdata
+from .benchdata import BenchLog
+from .planfile import PHASES
+
+SIDES = ("right", "left")
+
+
+@dataclass(frozen=True)
+class Stats:
+    rms: float
+    max: float
+    bias: float
+    rows: int
+
+
+def stats(residual: np.ndarray) -> Stats:
+    if residual.size == 0:
+        return Stats(0.0, 0.0, 0.0, 0)
+    return Stats(
+        float(np.sqrt(np.mean(residual**2))),
+        float(np.max(np.abs(residual))),
+        float(np.mean(residual)),
+        int(residual.size),
+    )
+
+
+def term_regressors(v: Vehicle, log: BenchLog, op: dynamics.OperatingPoint, rig: str) -> dict[str, np.ndarray]:
+    """Each model term's share of the motor current (n, 2), A: what a wrong term would leave behind."""
+    right, left = dynamics.rig_wheel_forces(v, op, rig)
+    gain = dynamics.motor_gain(v)
+    coulomb_like = np.column_stack(
+        [dynamics.deadband_shape(v, op.speed_right), dynamics.deadband_shape(v, op.speed_left)]
+    )
+    out = {
+        name: np.column_stack([getattr(right, name), getattr(left, name)]) * gain
+        for name in ("inertia", "coriolis", "rolling", "gravity")
+    }
+    out["friction (Coulomb-like, sign of speed)"] = coulomb_like * gain
+    out["friction (viscous, speed)"] = np.column_stack([op.speed_right, op.speed_left]) * gain
+    return out
+
+
+def likely_terms(residual: np.ndarray, regs: dict[str, np.ndarray]) -> list[tuple[str, float]]:
+    """Correlation of the residual with each term's regressor, strongest first."""
+    r = residual.ravel()
+    out = []
+    for name, x in regs.items():
+        x = x.ravel()
+        if np.std(x) > 0 and np.std(r) > 0:
+            out.append((name, float(np.corrcoef(r, x)[0, 1])))
+    return sorted(out, key=lambda t: -abs(t[1]))
+
+
+def compare(v: Vehicle, log: BenchLog, *, tolerance_a: float | None = None) -> dict[str, Any]:
+    """The comparison document (SI units, A): see README for every field."""
+    rig = log.rig
+    accel, how = benchdata.accelerations(v, log)
+    tight = how.startswith("setpoint")
+    sp = np.column_stack([log.setpoint["speed_right"], log.setpoint["speed_left"]])
+    sp_acc = np.column_stack([log.setpoint["accel_right"], log.setpoint["accel_left"]])
+    at_setpoint = benchdata.predicted_current(v, benchdata.operating_point(log, speed=sp, accel=sp_acc), rig)
+    op = benchdata.operating_point(log, speed=benchdata.smoothed_speed(log), accel=accel)
+    at_measured = benchdata.predicted_current(v, op, rig)
+    primary = at_setpoint if tight else at_measured  # loose tracking: the setpoints are not what happened
+    ok = log.valid
+    residual = (log.current - primary)[ok]
+    noise = benchdata.noise_floor(log)
+    tol = tolerance_a if tolerance_a is not None else math.hypot(v.firmware.current_budget_a, noise)
+    per_wheel = {s: stats(residual[:, k]) for k, s in enumerate(SIDES)}
+    passed = all(st.rms <= tol for st in per_wheel.values())
+    phases = log.phase[ok]
+    return {
+        "log": str(log.path),
+        "rig": rig,
+        "rows": int(ok.sum()),
+        "accelerations": how,
+        "predicted_at": "the logged setpoints" if tight else "the measured motion",
+        "noise_floor_a": noise,
+        "tolerance_a": tol,
+        "tolerance_rule": "given by --tolerance"
+        if tolerance_a is not None
+        else "sqrt(current_budget^2 + noise_floor^2), on the RMS residual of each wheel",
+        "passed": passed,
+        "wheels": {s: vars(st) for s, st in per_wheel.items()},
+        "at_setpoint": {s: vars(stats((log.current - at_setpoint)[ok][:, k])) for k, s in enumerate(SIDES)},
+        "at_measured": {s: vars(stats((log.current - at_measured)[ok][:, k])) for k, s in enumerate(SIDES)},
+        "phases": {
+            p: {s: vars(stats(residual[phases == p][:, k])) for k, s in enumerate(SIDES)}
+            for p in PHASES
+            if np.any(phases == p)
+        },
+        "likely_terms": [
+            {"term": n, "correlation": c}
+            for n, c in likely_terms(residual, {k: x[ok] for k, x in term_regressors(v, log, op, rig).items()})[:3]
+        ],
+        "series": {"predicted": primary, "residual_full": log.current - primary},
+    }
+
+
+def text(doc: dict[str, Any]) -> str:
+    """The comparison as a short table for the terminal."""
+    lines = [
+        f"{doc['log']} ({doc['rig']}, {doc['rows']} rows): measured current - model at {doc['predicted_at']}",
+        f"{'':14}{'RMS right':>11}{'RMS left':>10}{'max':>9}{'bias':>9}  [mA]",
+    ]
+    row = lambda name, d: (
+        f"{name:14}{d['right']['rms'] * 1000:11.1f}{d['left']['rms'] * 1000:10.1f}"  # noqa: E731
+        f"{max(d['right']['max'], d['left']['max']) * 1000:9.1f}"
+        f"{(d['right']['bias'] + d['left']['bias']) * 500:9.1f}"
+    )
+    lines.append(row("all", doc["wheels"]))
+    for phase, d in doc["phases"].items():
+        lines.append(row(phase, d))
+    lines.append(row("at setpoints", doc["at_setpoint"]))
+    lines.append(row("at measured", doc["at_measured"]))
+    lines.append(f"measured motion: smoothed measured speeds with {doc['accelerations']}")
+    lines.append(
+        f"noise floor {doc['noise_floor_a'] * 1000:.1f} mA; tolerance {doc['tolerance_a'] * 1000:.1f} mA "
+        f"({doc['tolerance_rule']})"
+    )
+    if doc["likely_terms"]:
+        best = doc["likely_terms"][0]
+        lines.append(f"the residual looks most like: {best['term']} (correlation {best['correlation']:+.2f})")
+    lines.append("PASS" if doc["passed"] else "FAIL: the model does not match the bench within the tolerance")
+    return "\n".join(lines)
