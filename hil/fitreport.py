@@ -40,11 +40,13 @@ def run_fit(
     new_text, fitted = model_edit.edited_text(text, changes, str(target))
     before, after = _phase_rms(v, logs), _phase_rms(fitted, logs)
     outputs.write_file(target, new_text)
-    doc = _document(result, changes, before, after, target)
+    doc = _document(result, changes, before=before, after=after, target=target)
     click.echo(json.dumps(doc, indent=2) if as_json else _tables(doc))
 
 
-def _document(result: identify.Fit, changes: dict[str, float], before: Any, after: Any, target: Path) -> dict[str, Any]:
+def _document(
+    result: identify.Fit, changes: dict[str, float], *, before: Any, after: Any, target: Path
+) -> dict[str, Any]:
     return {
         "written": str(target),
         "estimates": [

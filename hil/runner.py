@@ -79,15 +79,10 @@ def bench_run(
     port = _open(url, baud)
     log = LogWriter(log_path, v, plan, steps)
     link, counters = session.Link(port), session.Counters()
-    meta: dict[str, Any] = {
-        "model": str(model_path),
-        "fingerprint": f"0x{fingerprint:08X}",
-        "port": url,
-        "plan": str(plan_path),
-        "rows": len(plan),
-        "rig": rig,
-        "started": _now(),
-    }
+    meta: dict[str, Any] = dict(
+        model=str(model_path), fingerprint=f"0x{fingerprint:08X}", port=url, plan=str(plan_path)
+    )
+    meta.update(rows=len(plan), rig=rig, started=_now())
     progress = Progress(len(plan))
     reason = "error"
     try:
@@ -99,14 +94,8 @@ def bench_run(
             log.add(index, sample)
             progress.show(counters, link.drops.total())
 
-        reason = session.run(
-            link,
-            [tuple(int(x) for x in r) for r in steps],
-            ident=ident,
-            on_sample=on_sample,
-            counters=counters,
-            port_name=url,
-        )
+        rows = [tuple(int(x) for x in r) for r in steps]
+        reason = session.run(link, rows, ident=ident, on_sample=on_sample, counters=counters, port_name=url)
     except session.BenchFailed as exc:
         reason = str(exc)
         raise
