@@ -238,6 +238,13 @@ def _stribeck(v: Vehicle, d: Data, robust: bool) -> tuple[Vehicle, tuple[float, 
     return _set(v, "friction", stribeck_speed_mps=float(np.exp(best.x))), (v0, float(np.exp(best.x)))
 
 
+def standard_errors(x: np.ndarray, residual: np.ndarray) -> np.ndarray:
+    """Ordinary least squares standard errors: sqrt(diag(sigma^2 (X^T X)^-1)), sigma^2 = RSS / (n - p)."""
+    dof = max(1, x.shape[0] - x.shape[1])
+    sigma2 = float(residual @ residual) / dof
+    return np.asarray(np.sqrt(np.maximum(np.diag(sigma2 * np.linalg.pinv(x.T @ x)), 0.0)))
+
+
 def fit(v: Vehicle, logs: list[BenchLog], *, robust: bool = False, stribeck: bool = True) -> Fit:
     """The joint fit over the logs (see the module docstring)."""
     d = data(v, logs)
@@ -250,15 +257,9 @@ def fit(v: Vehicle, logs: list[BenchLog], *, robust: bool = False, stribeck: boo
     base, x = regressor(fitted, d, PARAMS)
     residual = d.force - base
     xk = x[:, keep]
-    dof = max(1, len(residual) - len(keep))
-    sigma2 = float(residual @ residual) / dof
-    cov = sigma2 * np.linalg.pinv(xk.T @ xk)
-    xs = xk / np.linalg.norm(xk, axis=0)
-    s = np.linalg.svd(xs, compute_uv=False)
-    estimates = {
-        PARAMS[j].name: (PARAMS[j].get(v), PARAMS[j].get(fitted), float(math.sqrt(max(cov[i, i], 0.0))))
-        for i, j in enumerate(keep)
-    }
+    se = standard_errors(xk, residual)
+    estimates = {PARAMS[j].name: (PARAMS[j].get(v), PARAMS[j].get(fitted), float(se[i])) for i, j in enumerate(keep)}
+    s = np.linalg.svd(xk / np.linalg.norm(xk, axis=0), compute_uv=False) if keep else np.array([1.0])
     after = float(np.sqrt(np.mean(residual**2)))
     return Fit(
         fitted, estimates, held, float(s[0] / s[-1]) if len(s) else float("nan"), before, after, strib, d.accel_source

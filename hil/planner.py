@@ -29,7 +29,8 @@ class Segment:
 
 
 def _segments(v: Vehicle) -> list[Segment]:
-    """One cycle of the plan: every phase the comparison reports, in both directions."""
+    """One cycle of the plan: every phase the comparison reports, in both directions, interleaved so a
+    short plan still turns and spins (turns and spins excite the yaw inertia)."""
     crawl = min(0.5, 2.5 * v.friction.deadband_mps / v.envelope.speed_max_mps)  # just past the deadband
     out = [
         Segment(0, 0, 0.2, 0.5),
@@ -37,18 +38,17 @@ def _segments(v: Vehicle) -> list[Segment]:
         Segment(-crawl, -crawl, 0.05, 0.5),
         Segment(0, 0, 0.05, 0.3),
     ]
-    for direction in (1, -1):
-        for level, accel in ((0.25, 0.3), (0.5, 0.6), (0.75, 1.0), (1.0, 1.0), (0.5, 0.6), (0.0, 1.0)):
-            out.append(Segment(direction * level, direction * level, accel, 0.6))
-    out += [
-        Segment(0.5, 0.25, 0.6, 0.8),
-        Segment(0.25, 0.5, 0.6, 0.8),
-        Segment(-0.5, -0.3, 0.6, 0.8),
-        Segment(0, 0, 0.6, 0.3),
-        Segment(0.3, -0.3, 0.4, 0.8),
-        Segment(-0.3, 0.3, 0.4, 0.8),
-        Segment(0, 0, 0.4, 0.5),
-    ]
+    for d in (1, -1):  # forward, then backward
+        out += [
+            Segment(0.25 * d, 0.25 * d, 0.3, 0.5),
+            Segment(0.5 * d, 0.25 * d, 0.6, 0.6),
+            Segment(0.75 * d, 0.75 * d, 1.0, 0.5),
+            Segment(1.0 * d, 1.0 * d, 1.0, 0.5),
+            Segment(0.3 * d, 0.5 * d, 0.6, 0.6),
+            Segment(0, 0, 1.0, 0.3),
+            Segment(0.3 * d, -0.3 * d, 0.4, 0.6),
+            Segment(0, 0, 0.4, 0.3),
+        ]
     return out
 
 

@@ -188,3 +188,98 @@ def test_interrupted_run_halts_and_keeps_the_log(tmp_path, sig, code):
     assert sim_code == 0 and "halted: halt" in sim_err  # the host's HALT reached the controller
     meta = json.loads(log.with_suffix(".json").read_text())
     assert meta["exit_reason"].startswith("interrupted") and meta["samples"] == len(_log_rows(log)) > 500
+
+
+def _truth(tmp_path: Path) -> Path:
+    doc = demo_doc()
+    doc["body"]["mass"] = f"{38 * 1.15} kg"
+    doc["body"]["gyration_radius"] = f"{230 * 1.10} mm"
+    doc["friction"]["coulomb"] = f"{4.5 * 0.8} N"
+    doc["friction"]["viscous"] = f"{3 * 1.3} N*s/m"
+    return write_model(tmp_path, doc, "truth.toml")
+
+
+def _bench_log(tmp_path: Path, model_path: Path, truth: Path, rig: str, name: str, seconds: float = 30) -> Path:
+    plan, log = tmp_path / f"plan_{name}.csv", tmp_path / f"log_{name}.csv"
+    subprocess.run(
+        [*KINETAB, "bench", "plan", str(model_path), "-o", str(plan), "--duration", str(seconds), "--rig", rig],
+        cwd=ROOT,
+        check=True,
+        capture_output=True,
+    )
+    sim = Sim(model_path, "--truth", str(truth), "--noise", "20 mA", "--rig", rig, "--encoder-counts", "4096")
+    run = subprocess.run(
+        [
+            *KINETAB,
+            "bench",
+            "run",
+            str(model_path),
+            "--port",
+            sim.port,
+            "--plan",
+            str(plan),
+            "--log",
+            str(log),
+            "--rig",
+            rig,
+            "--yes",
+        ],
+        cwd=ROOT,
+        capture_output=True,
+        text=True,
+    )
+    assert run.returncode == 0, run.stderr
+    sim.finish()
+    return log
+
+
+def test_plan_run_fit_recovers_the_truth_and_compare_agrees(tmp_path):
+    """Truth: body mass +15 %, gyration radius +10 %, Coulomb -20 %, viscous +30 %, with 20 mA current
+    noise and a 4096-count encoder. A wheels-up and an on-floor run; the fit recovers each within 3 %,
+    writes the model keeping every comment and the user's units; a new run with the fitted model
+    compares within 1.2 x the noise floor, while the first model's log fails compare."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    from kinetab.generator import model
+
+    user = tmp_path / "cart.toml"
+    user.write_text(DEMO_PATH.read_text())
+    truth = _truth(tmp_path)
+    with ThreadPoolExecutor(2) as pool:
+        up = pool.submit(_bench_log, tmp_path, user, truth, "wheels-up", "up")
+        floor = pool.submit(_bench_log, tmp_path, user, truth, "on-floor", "floor")
+        logs = [up.result(), floor.result()]
+    wrong = subprocess.run(
+        [*KINETAB, "bench", "compare", str(user), str(logs[1])], cwd=ROOT, capture_output=True, text=True
+    )
+    assert wrong.returncode == 1 and "FAIL" in wrong.stdout
+    fitted = tmp_path / "fitted.toml"
+    done = subprocess.run(
+        [*KINETAB, "bench", "fit", str(user), *map(str, logs), "--write", str(fitted)],
+        cwd=ROOT,
+        capture_output=True,
+        text=True,
+    )
+    assert done.returncode == 0, done.stderr
+    t, f = model.load(truth), model.load(fitted)
+    for got, want in (
+        (f.body.mass_kg, t.body.mass_kg),
+        (f.body.gyration_radius_m, t.body.gyration_radius_m),
+        (f.friction.coulomb_n, t.friction.coulomb_n),
+        (f.friction.viscous_ns_per_m, t.friction.viscous_ns_per_m),
+    ):
+        assert got == pytest.approx(want, rel=0.03)
+    old, new = user.read_text().splitlines(), fitted.read_text().splitlines()
+    assert [line for line in old if line.lstrip().startswith("#")] == [
+        line for line in new if line.lstrip().startswith("#")
+    ]
+    assert (
+        'gyration_radius = "2' in fitted.read_text() and ' mm"' in fitted.read_text().split("gyration_radius")[1][:20]
+    )
+    again = _bench_log(tmp_path, fitted, truth, "on-floor", "again")
+    done = subprocess.run(
+        [*KINETAB, "bench", "compare", str(fitted), str(again), "--json"], cwd=ROOT, capture_output=True, text=True
+    )
+    doc = json.loads(done.stdout)
+    assert done.returncode == 0 and doc["passed"]
+    assert max(doc["wheels"]["right"]["rms"], doc["wheels"]["left"]["rms"]) <= 1.2 * doc["noise_floor_a"]
