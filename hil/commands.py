@@ -154,20 +154,30 @@ def fit(
     show_default=True,
     help="Payload during the run (bare number: kg).",
 )
-def plan(model_path: str, out_path: str, duration: float, period: float, rig: str, payload: float) -> None:
+@click.option("--for-fit", is_flag=True, help="Choose the plan that makes the fitted parameters best identifiable.")
+def plan(
+    model_path: str, out_path: str, duration: float, period: float, rig: str, payload: float, for_fit: bool
+) -> None:
     """Write PLAN.csv: both directions, several speeds and accelerations, turns, spin in place and slow
     zero crossings, checked with the float model against the envelope and 90 % of the current limit."""
     from kinetab.generator import outputs
 
-    from . import planfile, planner
+    from . import excite, planfile, planner
 
     v = model.load(model_path)
     if not 0.0001 <= period <= 0.1:
         raise UserError("bench plan: --period: expected between 0.1 ms and 100 ms")
-    p = planner.make_plan(v, duration_s=duration, period_s=period, rig=rig, payload=payload)
+    if for_fit:
+        p, cond = excite.plan_for_fit(v, duration_s=duration, period_s=period, rig=rig, payload=payload)
+    else:
+        p = planner.make_plan(v, duration_s=duration, period_s=period, rig=rig, payload=payload)
+        cond = excite.condition(v, p, rig)[0]
     outputs.write_file(Path(out_path), planfile.to_csv(p))
     use = planner.peak_current_use(v, _profile(p), rig=rig, payload=payload, pitch=0.0, roll=0.0)
-    click.echo(f"wrote {out_path}: {len(p)} rows of {period * 1000:g} ms, peak current {use:.0%} of the limit ({rig})")
+    click.echo(
+        f"wrote {out_path}: {len(p)} rows of {period * 1000:g} ms, peak current {use:.0%} of the limit "
+        f"({rig}); regressor condition number {cond:.3g}"
+    )
 
 
 def _profile(p: Any) -> Any:

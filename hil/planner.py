@@ -28,7 +28,7 @@ class Segment:
     hold_s: float
 
 
-def _segments(v: Vehicle) -> list[Segment]:
+def _segments(v: Vehicle, rng: np.random.Generator | None = None) -> list[Segment]:
     """One cycle of the plan: every phase the comparison reports, in both directions, interleaved so a
     short plan still turns and spins (turns and spins excite the yaw inertia)."""
     crawl = min(0.5, 2.5 * v.friction.deadband_mps / v.envelope.speed_max_mps)  # just past the deadband
@@ -49,7 +49,10 @@ def _segments(v: Vehicle) -> list[Segment]:
             Segment(0.3 * d, -0.3 * d, 0.4, 0.6),
             Segment(0, 0, 0.4, 0.3),
         ]
-    return out
+    if rng is None:
+        return out
+    jitter = lambda x: float(np.clip(x * rng.uniform(0.6, 1.4), -1.0, 1.0))  # noqa: E731
+    return [Segment(jitter(s.right), jitter(s.left), jitter(s.accel), s.hold_s * rng.uniform(0.5, 1.5)) for s in out]
 
 
 def _profile(v: Vehicle, segments: list[Segment], *, period_s: float, duration_s: float, scale: float) -> np.ndarray:
@@ -106,6 +109,7 @@ def make_plan(
     payload: float = 0.0,
     pitch: float = 0.0,
     roll: float = 0.0,
+    seed: int | None = None,
 ) -> Plan:
     """A plan inside the envelope and, by the float model, within 90 % of the current limit."""
     env = v.envelope
@@ -115,7 +119,7 @@ def make_plan(
         raise UserError("bench plan: --payload, --pitch and --roll must lie inside the model's envelope")
     if duration_s < 5:
         raise UserError("bench plan: --duration: expected at least 5 s (room to start and stop)")
-    segments, scale = _segments(v), 1.0
+    segments, scale = _segments(v, None if seed is None else np.random.default_rng(seed)), 1.0
     while True:
         profile = _profile(v, segments, period_s=period_s, duration_s=duration_s, scale=scale)
         use = peak_current_use(v, profile, rig=rig, payload=payload, pitch=pitch, roll=roll)

@@ -159,3 +159,16 @@ def test_compare_passes_the_right_model_and_fails_a_wrong_one(demo):
     heavy = _changed(demo, body__mass=1.3)
     wrong = compare.compare(heavy, log)
     assert not wrong["passed"] and wrong["likely_terms"][0]["term"] in ("inertia", "gravity", "rolling")
+
+
+def test_plan_for_fit_is_no_worse_conditioned_than_the_default(demo):
+    """--for-fit picks, among the default and perturbed plans, the most parameters told apart and then
+    the smallest condition number (the optimal-excitation criterion; Gautier and Khalil, from memory)."""
+    from kinetab.hil import excite
+
+    default = planner.make_plan(demo, duration_s=20, period_s=0.001, rig="on-floor")
+    cond_default, names_default = excite.condition(demo, default, "on-floor")
+    chosen, cond = excite.plan_for_fit(demo, duration_s=20, period_s=0.001, rig="on-floor", payload=0.0)
+    _, names = excite.condition(demo, chosen, "on-floor")
+    assert len(names) >= len(names_default) and (len(names) > len(names_default) or cond <= cond_default)
+    assert {"body.mass", "body.yaw_inertia", "friction.viscous"} <= set(names)
