@@ -14,7 +14,7 @@ from . import fixedpoint as fx
 from . import tables as tb
 from .analysis import Proof
 from .cformat import num, rows, wrap
-from .program import Backdrive, Clamp, Lookup, Mul, Op, Program, Store, Sum, rounding_half
+from .program import Backdrive, Clamp, Lookup, Mul, Op, Program, Store, Sum, rounding_half, split
 from .synthesis import FORMAT_VERSION, Firmware
 
 CAUTION = (
@@ -242,11 +242,20 @@ def _group_key(op: Op, tables: dict[str, dict[str, Any]]) -> GroupKey | None:
     return (op.src, t["symmetry"] != "none", t["split"])
 
 
-def program_view(prog: Program, proof: Proof, tables: dict[str, dict[str, Any]], prefix: str) -> dict[str, Any]:
-    """One view per op; adjacent lookups of the same input with the same split share one inline block
-    (one |x|, one comparison), which the compiler cannot merge across two calls on its own."""
+def program_view(
+    prog: Program,
+    proof: Proof,
+    tables: dict[str, dict[str, Any]],
+    prefix: str,
+    *,
+    ops: tuple[Op, ...] | None = None,
+    flags: str = "flags",
+) -> dict[str, Any]:
+    """One view per op (of `ops`, default all); adjacent lookups of the same input with the same split
+    share one inline block (one |x|, one comparison), which the compiler cannot merge across two calls
+    on its own. `flags` is how the clamp bits are stored after the last clamp."""
     views: list[dict[str, Any]] = []
-    ops = prog.ops
+    ops = tuple(prog.ops) if ops is None else ops
     k = 0
     while k < len(ops):
         key = _group_key(ops[k], tables)
@@ -265,8 +274,23 @@ def program_view(prog: Program, proof: Proof, tables: dict[str, dict[str, Any]],
             views.append(_op_view(ops[k], proof, [n for n, _ in prog.call.clamp_names(prefix)], prefix))
         k = j
     last = max(i for i, v in enumerate(views) if v["kind"] == "clamp")
-    views.insert(last + 1, {"kind": "flags"})
+    views.insert(last + 1, {"kind": flags})
     return {"name": prog.name, "ops": views}
+
+
+def split_view(fw: Firmware, tables: dict[str, dict[str, Any]], prefix: str) -> dict[str, Any]:
+    """The two-rate form of the feed-forward: slow and fast op lists and the state between them."""
+    prog = fw.design.feedforward
+    parts = split(prog)
+    state = []
+    for name in parts.state:
+        r = fw.ff_proof.ranges[name]
+        state.append({"name": name, "comment": f"{r.lo} .. {r.hi}"})
+    return {
+        "slow": program_view(prog, fw.ff_proof, tables, prefix, ops=parts.slow, flags="flags_state"),
+        "fast": program_view(prog, fw.ff_proof, tables, prefix, ops=parts.fast, flags="flags_merge"),
+        "state": state,
+    }
 
 
 def _struct_view(st: interface.Struct, prefix: str, clamp_text: str = "") -> dict[str, Any]:
@@ -303,6 +327,7 @@ def context(fw: Firmware) -> dict[str, Any]:
         "guard": f"{prefix.upper()}_FF_H",
         "tables": list(tables.values()),
         "feedforward": program_view(fw.design.feedforward, fw.ff_proof, tables, prefix),
+        **split_view(fw, tables, prefix),
         "forward": program_view(fw.design.forward, fw.fwd_proof, tables, prefix),
         "calls": [_call_view(call, prefix) for call in interface.CALLS],
         "limits": [

@@ -8,14 +8,14 @@ equal the float model), "interp" interpolates unrounded breakpoints, "quant" the
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from typing import assert_never
 
 import numpy as np
 
 from . import fixedpoint as fx
 from . import tables as tb
-from .program import Backdrive, Clamp, Lookup, Mul, Op, Program, Store, Sum
+from .program import Backdrive, Clamp, Lookup, Mul, Op, Program, Store, Sum, split
 
 INT32 = (fx.word_min(32), fx.word_max(32))
 
@@ -82,10 +82,43 @@ def run(
     program: Program, tables: Mapping[str, tb.Table], inputs: Mapping[str, np.ndarray], mode: str = "int"
 ) -> dict[str, np.ndarray]:
     """Evaluate a program on arrays of inputs; returns output fields (shape (n, 2)) and 'clamped'."""
+    out, flags = run_ops(program, program.ops, tables, inputs, env={}, mode=mode)
+    result = {name: np.stack(vals, axis=-1) for name, vals in out.items()}
+    result["clamped"] = flags if flags is not None else np.zeros(1, dtype=np.int64)
+    return result
+
+
+def run_split(
+    program: Program, tables: Mapping[str, tb.Table], inputs: Mapping[str, np.ndarray]
+) -> dict[str, np.ndarray]:
+    """The two-rate form: the slow ops give the state (and their clamp bits), the fast ops read it.
+    Returns the same fields as run(), plus 'state' (n, len(state)) as the C's state struct holds it."""
+    parts = split(program)
     env: dict[str, np.ndarray] = {}
+    _, slow_flags = run_ops(program, parts.slow, tables, inputs, env=env, mode="int")
+    state = {name: env[name] for name in parts.state}
+    out, fast_flags = run_ops(program, parts.fast, tables, inputs, env=dict(state), mode="int")
+    result = {name: np.stack(vals, axis=-1) for name, vals in out.items()}
+    zero = np.zeros(1, dtype=np.int64)
+    result["clamped"] = (zero if slow_flags is None else slow_flags) | (zero if fast_flags is None else fast_flags)
+    shape = np.shape(result["clamped"])
+    result["state"] = np.stack([np.broadcast_to(state[n], shape) for n in parts.state], axis=-1)
+    return result
+
+
+def run_ops(
+    program: Program,
+    ops: Sequence[Op],
+    tables: Mapping[str, tb.Table],
+    inputs: Mapping[str, np.ndarray],
+    *,
+    env: dict[str, np.ndarray],
+    mode: str,
+) -> tuple[dict[str, list[np.ndarray]], np.ndarray | None]:
+    """Evaluate some of a program's ops into env; returns the stored outputs and the clamp flags."""
     flags: np.ndarray | None = None
     out: dict[str, list[np.ndarray]] = {m.name: [np.zeros(0)] * m.count for m in program.call.outputs.members}
-    for op in program.ops:
+    for op in ops:
         if isinstance(op, Clamp):
             bit = _flag(op, inputs)
             flags = bit if flags is None else flags | bit
@@ -97,6 +130,4 @@ def run(
             value = np.asarray(value, dtype=np.int64)
             _check32(op.dst, value)
         env[op.dst] = value
-    result = {name: np.stack(vals, axis=-1) for name, vals in out.items()}
-    result["clamped"] = flags if flags is not None else np.zeros(1, dtype=np.int64)
-    return result
+    return out, flags

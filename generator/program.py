@@ -84,6 +84,58 @@ Op = Clamp | Lookup | Mul | Sum | Backdrive | Store
 op_range (below), emulate.run, analysis.prove, analysis._error_step, cview._op_view, ff/ops.j2."""
 
 
+def op_inputs(op: Op) -> tuple[str, ...]:
+    """The signals an op reads (a Clamp reads an input field, not a signal)."""
+    match op:
+        case Clamp():
+            return ()
+        case Lookup():
+            return (op.src,)
+        case Mul():
+            return (op.a, op.b) if isinstance(op.b, str) else (op.a,)
+        case Sum():
+            return tuple(name for _, name in op.terms)
+        case Backdrive():
+            return (op.src, op.speed)
+        case Store():
+            return (op.src,)
+        case _:
+            assert_never(op)
+
+
+SLOW_FIELDS = ("pitch", "roll", "payload")
+"""Inputs that change slowly (an inclination filter at tens of hertz, a payload once per load)."""
+
+
+@dataclass(frozen=True)
+class Split:
+    """A program in two rates: the ops that depend only on the slow inputs, the rest, and the slow
+    signals the fast ops read (the state the slow part hands over, in program order)."""
+
+    slow: tuple[Op, ...]
+    fast: tuple[Op, ...]
+    state: tuple[str, ...]
+
+
+def split(program: Program) -> Split:
+    """Partition the ops by dataflow: an op is slow when it clamps a slow input or reads only slow
+    signals. Running the slow ops, then the fast ones, is the same program: the same integers."""
+    slow_names: set[str] = set()
+    slow, fast = [], []
+    for op in program.ops:
+        is_slow = (isinstance(op, Clamp) and op.field in SLOW_FIELDS) or (
+            not isinstance(op, (Clamp, Store)) and all(name in slow_names for name in op_inputs(op))
+        )
+        if is_slow:
+            slow.append(op)
+            slow_names.add(op.dst)  # type: ignore[union-attr]  # a slow op is never a Store
+        else:
+            fast.append(op)
+    used = {name for op in fast for name in op_inputs(op)}
+    state = tuple(op.dst for op in slow if op.dst in used)  # type: ignore[union-attr]
+    return Split(tuple(slow), tuple(fast), state)
+
+
 def rounding_half(shift: int) -> int:
     """What "add half, then shift right" adds: 2^(shift-1) for shift > 0, else nothing."""
     return (1 << (shift - 1)) if shift > 0 else 0

@@ -48,7 +48,10 @@ def harness_source(prefix: str) -> str:
         keep_trailing_newline=True,
     )
     return tpl.render(
-        header=interface.file_names(prefix)["ff_header"], calls=[_call_view(c, prefix) for c in interface.CALLS]
+        header=interface.file_names(prefix)["ff_header"],
+        prefix=prefix,
+        state_type=f"{prefix}_ff_state_t",
+        calls=[_call_view(c, prefix) for c in interface.CALLS],
     )
 
 

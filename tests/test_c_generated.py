@@ -155,3 +155,32 @@ def test_generated_comments_say_one_clear_thing(demo_dir):
     assert "clamped |= 0x" not in c and "clamped |= LARKSPUR_CLAMPED_PITCH;" in c
     statics = [line for line in c.splitlines() if line.startswith("static int32_t ")]
     assert statics and all(line.startswith("static int32_t larkspur_") for line in statics)
+
+
+@needs_gcc
+def test_two_rates_equal_the_one_call_form_and_the_emulation(demo_dir):
+    """slow + fast in C = the one-call C = the emulator's split = the emulator, bit for bit, on the
+    golden vectors (corners, deadband edges, clamping, int32 extremes, random)."""
+    fw = demo_firmware()
+    rows = vectors.feedforward_table(fw, 10_000)
+    n = len(interface.FF_IN.columns)
+    exe = build_harness(demo_dir, "larkspur")
+    assert np.array_equal(run_harness(exe, rows[:, :n], "split"), rows[:, n:])
+    inp = interface.rows_to_fields(interface.FF_IN, rows[:, :n])
+    both = emulate.run_split(fw.design.feedforward, fw.tables, inp)
+    assert np.array_equal(both["current"], rows[:, n : n + 2]) and np.array_equal(both["clamped"], rows[:, n + 2])
+
+
+@needs_gcc
+@pytest.mark.slow
+@settings(
+    max_examples=6,
+    deadline=None,
+    suppress_health_check=[HealthCheck.too_slow, HealthCheck.filter_too_much, HealthCheck.function_scoped_fixture],
+)
+@given(fw=random_firmware_strategy())
+def test_two_rates_equal_the_one_call_form_on_random_models(fw, tmp_path_factory):
+    folder = write_files(tmp_path_factory.mktemp("rand_split"), render.render(fw))
+    exe = build_harness(folder, "veh")
+    rows = interface.fields_to_rows(interface.FF_IN, vectors.feedforward_inputs(fw.design.limits, 3000))
+    assert np.array_equal(run_harness(exe, rows, "split"), run_harness(exe, rows, "ff"))

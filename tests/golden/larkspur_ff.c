@@ -889,6 +889,291 @@ void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out)
     out->current[1] = (motor_l + 2048) >> 12;
 }
 
+void larkspur_ff_slow(const larkspur_ff_in_t *in, larkspur_ff_state_t *state)
+{
+    uint32_t clamped = 0u;
+    int32_t pitch = in->pitch;
+    if (pitch < -175) {
+        pitch = -175;
+        clamped |= LARKSPUR_CLAMPED_PITCH;
+    } else if (pitch > 175) {
+        pitch = 175;
+        clamped |= LARKSPUR_CLAMPED_PITCH;
+    }
+    int32_t roll = in->roll;
+    if (roll < -105) {
+        roll = -105;
+        clamped |= LARKSPUR_CLAMPED_ROLL;
+    } else if (roll > 105) {
+        roll = 105;
+        clamped |= LARKSPUR_CLAMPED_ROLL;
+    }
+    int32_t payload = in->payload;
+    if (payload < 0) {
+        payload = 0;
+        clamped |= LARKSPUR_CLAMPED_PAYLOAD;
+    } else if (payload > 600) {
+        payload = 600;
+        clamped |= LARKSPUR_CLAMPED_PAYLOAD;
+    }
+    state->clamped = clamped; /* pitch, roll and payload are clamped by now */
+    int32_t t_sin_pitch;
+    int32_t t_cos_pitch;
+    {
+        /* sin_pitch and cos_pitch of pitch, sharing |x| and the piece choice */
+        const int32_t x = (pitch < 0) ? -pitch : pitch;
+        {
+            const int32_t d = x;
+            const int32_t i = d >> 6;
+            const int32_t f = d & 0x3F;
+            const int32_t lo = larkspur_tab_sin_pitch_0[i];
+            t_sin_pitch = lo + (((larkspur_tab_sin_pitch_0[i + 1] - lo) * f + 32) >> 6);
+        }
+        {
+            const int32_t d = x;
+            const int32_t i = d >> 6;
+            const int32_t f = d & 0x3F;
+            const int32_t lo = larkspur_tab_cos_pitch_0[i];
+            t_cos_pitch = lo + (((larkspur_tab_cos_pitch_0[i + 1] - lo) * f + 32) >> 6);
+        }
+        if (pitch < 0) {
+            t_sin_pitch = -t_sin_pitch;
+        }
+    }
+    int32_t t_sin_roll;
+    int32_t t_cos_roll;
+    {
+        /* sin_roll and cos_roll of roll, sharing |x| and the piece choice */
+        const int32_t x = (roll < 0) ? -roll : roll;
+        {
+            /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
+            const int32_t d = x;
+            t_sin_roll = larkspur_tab_sin_roll_0[0] + (((larkspur_tab_sin_roll_0[1] - larkspur_tab_sin_roll_0[0]) * d + 64) >> 7);
+        }
+        {
+            const int32_t d = x;
+            const int32_t i = d >> 6;
+            const int32_t f = d & 0x3F;
+            const int32_t lo = larkspur_tab_cos_roll_0[i];
+            t_cos_roll = lo + (((larkspur_tab_cos_roll_0[i + 1] - lo) * f + 32) >> 6);
+        }
+        if (roll < 0) {
+            t_sin_roll = -t_sin_roll;
+        }
+    }
+    int32_t t_cor;
+    int32_t t_grav_pitch;
+    int32_t t_grav_roll;
+    int32_t t_roll_level;
+    int32_t t_roll_slope;
+    {
+        /* cor and grav_pitch and grav_roll and roll_level and roll_slope of payload, sharing the piece choice */
+        const int32_t x = payload;
+        {
+            /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
+            const int32_t d = x;
+            t_cor = larkspur_tab_cor_0[0] + (((larkspur_tab_cor_0[1] - larkspur_tab_cor_0[0]) * d + 512) >> 10);
+        }
+        {
+            /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
+            const int32_t d = x;
+            t_grav_pitch = larkspur_tab_grav_pitch_0[0] + (((larkspur_tab_grav_pitch_0[1] - larkspur_tab_grav_pitch_0[0]) * d + 512) >> 10);
+        }
+        {
+            /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
+            const int32_t d = x;
+            t_grav_roll = larkspur_tab_grav_roll_0[0] + (((larkspur_tab_grav_roll_0[1] - larkspur_tab_grav_roll_0[0]) * d + 512) >> 10);
+        }
+        {
+            /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
+            const int32_t d = x;
+            t_roll_level = larkspur_tab_roll_level_0[0] + (((larkspur_tab_roll_level_0[1] - larkspur_tab_roll_level_0[0]) * d + 512) >> 10);
+        }
+        {
+            /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
+            const int32_t d = x;
+            t_roll_slope = larkspur_tab_roll_slope_0[0] + (((larkspur_tab_roll_slope_0[1] - larkspur_tab_roll_slope_0[0]) * d + 512) >> 10);
+        }
+    }
+    const int32_t g_pitch = (t_grav_pitch * t_sin_pitch + 4) >> 3;
+    const int32_t cos_sin = (t_cos_pitch * t_sin_roll + 8192) >> 14;
+    const int32_t g_roll = (t_grav_roll * cos_sin + 32) >> 6;
+    const int32_t cos_cos = (t_cos_pitch * t_cos_roll + 8192) >> 14;
+    const int32_t r_up = (t_roll_level * cos_cos + 64) >> 7;
+    const int32_t r_down = (t_roll_slope * t_sin_pitch + 1024) >> 11;
+    const int32_t r_level = r_up - r_down;
+    int32_t t_m11;
+    int32_t t_m12;
+    {
+        /* m11 and m12 of payload, sharing the piece choice */
+        const int32_t x = payload;
+        {
+            /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
+            const int32_t d = x;
+            t_m11 = larkspur_tab_m11_0[0] + (((larkspur_tab_m11_0[1] - larkspur_tab_m11_0[0]) * d + 512) >> 10);
+        }
+        {
+            /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
+            const int32_t d = x;
+            t_m12 = larkspur_tab_m12_0[0] + (((larkspur_tab_m12_0[1] - larkspur_tab_m12_0[0]) * d + 512) >> 10);
+        }
+    }
+    const int32_t r_level_s5 = (r_level + 16) >> 5;
+    state->t_cor = t_cor;
+    state->g_pitch = g_pitch;
+    state->g_roll = g_roll;
+    state->t_m11 = t_m11;
+    state->t_m12 = t_m12;
+    state->r_level_s5 = r_level_s5;
+}
+
+void larkspur_ff_fast(const larkspur_ff_in_t *in, const larkspur_ff_state_t *state, larkspur_ff_out_t *out)
+{
+    uint32_t clamped = 0u;
+    const int32_t t_cor = state->t_cor;
+    const int32_t g_pitch = state->g_pitch;
+    const int32_t g_roll = state->g_roll;
+    const int32_t t_m11 = state->t_m11;
+    const int32_t t_m12 = state->t_m12;
+    const int32_t r_level_s5 = state->r_level_s5;
+    int32_t speed_r = in->speed[0];
+    if (speed_r < -1600) {
+        speed_r = -1600;
+        clamped |= LARKSPUR_CLAMPED_SPEED_RIGHT;
+    } else if (speed_r > 1600) {
+        speed_r = 1600;
+        clamped |= LARKSPUR_CLAMPED_SPEED_RIGHT;
+    }
+    int32_t speed_l = in->speed[1];
+    if (speed_l < -1600) {
+        speed_l = -1600;
+        clamped |= LARKSPUR_CLAMPED_SPEED_LEFT;
+    } else if (speed_l > 1600) {
+        speed_l = 1600;
+        clamped |= LARKSPUR_CLAMPED_SPEED_LEFT;
+    }
+    int32_t accel_r = in->accel[0];
+    if (accel_r < -500) {
+        accel_r = -500;
+        clamped |= LARKSPUR_CLAMPED_ACCEL_RIGHT;
+    } else if (accel_r > 500) {
+        accel_r = 500;
+        clamped |= LARKSPUR_CLAMPED_ACCEL_RIGHT;
+    }
+    int32_t accel_l = in->accel[1];
+    if (accel_l < -500) {
+        accel_l = -500;
+        clamped |= LARKSPUR_CLAMPED_ACCEL_LEFT;
+    } else if (accel_l > 500) {
+        accel_l = 500;
+        clamped |= LARKSPUR_CLAMPED_ACCEL_LEFT;
+    }
+    out->clamped = clamped | state->clamped; /* every input is clamped by now */
+    const int32_t d_speed = speed_r - speed_l;
+    const int32_t turn_r = d_speed * speed_l;
+    const int32_t turn_r_s6 = (turn_r + 32) >> 6;
+    const int32_t cor_r = (t_cor * turn_r_s6 + 32) >> 6;
+    int32_t t_fric_r;
+    int32_t t_shape_r;
+    {
+        /* friction and shape of speed_r, sharing |x| and the piece choice */
+        const int32_t x = (speed_r < 0) ? -speed_r : speed_r;
+        if (x <= 30) {
+            {
+                const int32_t d = x;
+                const int32_t i = d >> 4;
+                const int32_t f = d & 0xF;
+                const int32_t lo = larkspur_tab_friction_0[i];
+                t_fric_r = lo + (((larkspur_tab_friction_0[i + 1] - lo) * f + 8) >> 4);
+            }
+            {
+                /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
+                const int32_t d = x;
+                t_shape_r = larkspur_tab_shape_0[0] + (((larkspur_tab_shape_0[1] - larkspur_tab_shape_0[0]) * d + 16) >> 5);
+            }
+        } else {
+            {
+                const int32_t d = x - 31;
+                const int32_t i = d >> 6;
+                const int32_t f = d & 0x3F;
+                const int32_t lo = larkspur_tab_friction_1[i];
+                t_fric_r = lo + (((larkspur_tab_friction_1[i + 1] - lo) * f + 32) >> 6);
+            }
+            {
+                t_shape_r = larkspur_tab_shape_1[0];
+            }
+        }
+        if (speed_r < 0) {
+            t_fric_r = -t_fric_r;
+            t_shape_r = -t_shape_r;
+        }
+    }
+    const int32_t fric_r = t_fric_r * 128;
+    const int32_t roll_r = (r_level_s5 * t_shape_r + 128) >> 8;
+    const int32_t passive_r = cor_r + fric_r + roll_r + g_pitch + g_roll;
+    const int32_t in_self_r = t_m11 * accel_r;
+    const int32_t in_other_r = (t_m12 * accel_l + 16) >> 5;
+    const int32_t total_r = in_self_r + in_other_r + passive_r;
+    int32_t motor_r = total_r;
+    if (speed_r != 0 && (total_r ^ speed_r) < 0) { /* moving, and force against the motion */
+        /* back-driven: scale by 0.68 (11141 / 2^14) */
+        /* exact in two 32-bit parts: high bits times k, plus the rounded low bits times k */
+        motor_r = (total_r >> 14) * 11141 + (((total_r & 0x3FFF) * 11141 + 8192) >> 14);
+    }
+    out->current[0] = (motor_r + 2048) >> 12;
+    const int32_t turn_l = d_speed * speed_r;
+    const int32_t turn_l_s6 = (turn_l + 32) >> 6;
+    const int32_t cor_l = (t_cor * turn_l_s6 + 32) >> 6;
+    int32_t t_fric_l;
+    int32_t t_shape_l;
+    {
+        /* friction and shape of speed_l, sharing |x| and the piece choice */
+        const int32_t x = (speed_l < 0) ? -speed_l : speed_l;
+        if (x <= 30) {
+            {
+                const int32_t d = x;
+                const int32_t i = d >> 4;
+                const int32_t f = d & 0xF;
+                const int32_t lo = larkspur_tab_friction_0[i];
+                t_fric_l = lo + (((larkspur_tab_friction_0[i + 1] - lo) * f + 8) >> 4);
+            }
+            {
+                /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
+                const int32_t d = x;
+                t_shape_l = larkspur_tab_shape_0[0] + (((larkspur_tab_shape_0[1] - larkspur_tab_shape_0[0]) * d + 16) >> 5);
+            }
+        } else {
+            {
+                const int32_t d = x - 31;
+                const int32_t i = d >> 6;
+                const int32_t f = d & 0x3F;
+                const int32_t lo = larkspur_tab_friction_1[i];
+                t_fric_l = lo + (((larkspur_tab_friction_1[i + 1] - lo) * f + 32) >> 6);
+            }
+            {
+                t_shape_l = larkspur_tab_shape_1[0];
+            }
+        }
+        if (speed_l < 0) {
+            t_fric_l = -t_fric_l;
+            t_shape_l = -t_shape_l;
+        }
+    }
+    const int32_t fric_l = t_fric_l * 128;
+    const int32_t roll_l = (r_level_s5 * t_shape_l + 128) >> 8;
+    const int32_t passive_l = -cor_l + fric_l + roll_l + g_pitch - g_roll;
+    const int32_t in_self_l = t_m11 * accel_l;
+    const int32_t in_other_l = (t_m12 * accel_r + 16) >> 5;
+    const int32_t total_l = in_self_l + in_other_l + passive_l;
+    int32_t motor_l = total_l;
+    if (speed_l != 0 && (total_l ^ speed_l) < 0) { /* moving, and force against the motion */
+        /* back-driven: scale by 0.68 (11141 / 2^14) */
+        /* exact in two 32-bit parts: high bits times k, plus the rounded low bits times k */
+        motor_l = (total_l >> 14) * 11141 + (((total_l & 0x3FFF) * 11141 + 8192) >> 14);
+    }
+    out->current[1] = (motor_l + 2048) >> 12;
+}
+
 void larkspur_forward(const larkspur_fwd_in_t *in, larkspur_fwd_out_t *out)
 {
     uint32_t clamped = 0u;

@@ -89,6 +89,23 @@ typedef struct {
 /* Feed-forward current for one control tick: integer only, no division, no loops. */
 void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out);
 
+/* The same in two rates, equal to larkspur_feedforward bit for bit: pitch, roll and payload change
+ * slowly (an inclination filter, a load), so larkspur_ff_slow() turns them into this state when they
+ * change (reads only in->pitch, in->roll, in->payload), and larkspur_ff_fast() runs every control
+ * tick (reads only in->speed, in->accel). Each member's comment is its proven range. */
+typedef struct {
+    int32_t t_cor; /* -16165 .. -3818 */
+    int32_t g_pitch; /* -30421141 .. 30421141 */
+    int32_t g_roll; /* -4158492 .. 4158492 */
+    int32_t t_m11; /* 8136 .. 25760 */
+    int32_t t_m12; /* -26966 .. -23751 */
+    int32_t r_level_s5; /* 19411 .. 103925 */
+    uint32_t clamped; /* LARKSPUR_CLAMPED_PITCH, _ROLL, _PAYLOAD bits of the slow inputs */
+} larkspur_ff_state_t;
+
+void larkspur_ff_slow(const larkspur_ff_in_t *in, larkspur_ff_state_t *state);
+void larkspur_ff_fast(const larkspur_ff_in_t *in, const larkspur_ff_state_t *state, larkspur_ff_out_t *out);
+
 /* Wheel accelerations predicted from measured currents (slip and collision detection). */
 void larkspur_forward(const larkspur_fwd_in_t *in, larkspur_fwd_out_t *out);
 

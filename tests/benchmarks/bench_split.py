@@ -1,0 +1,80 @@
+"""Two-rate feed-forward on Cortex-M (unicorn): instructions of the slow part, the fast part and the
+one-call form, for zig cc at -O2 and -Os, on the demo (int16) and its int32 twin. Results are checked
+against the emulator (bit-exact). Writes tests/benchmarks/split_results.md and .json.
+
+python tests/benchmarks/bench_split.py
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+import statistics
+import sys
+import tempfile
+from pathlib import Path
+
+import jinja2
+import numpy as np
+
+ROOT = Path(__file__).resolve().parents[2]
+sys.path.insert(0, str(ROOT))
+
+from kinetab.generator import interface, model, render, synthesis, vectors  # noqa: E402
+
+from tests import cortexm  # noqa: E402
+from tests.helpers import DEMO_PATH  # noqa: E402
+
+HERE = Path(__file__).parent
+N_IN = len(interface.FF_IN.columns)
+
+
+def counts(fw: synthesis.Firmware, target: str, opt: str) -> dict[str, float]:
+    rows = vectors.feedforward_table(fw, 600)
+    with tempfile.TemporaryDirectory() as tmp:
+        folder = Path(tmp)
+        for name, text in render.render(fw).items():
+            (folder / name).write_text(text)
+        tpl = jinja2.Template((HERE / "split_bench.c.j2").read_text(), undefined=jinja2.StrictUndefined)
+        (folder / "entry.c").write_text(tpl.render(prefix=fw.vehicle.name))
+        elf = cortexm.compile_elf(
+            [folder / "entry.c", folder / f"{fw.vehicle.name}_ff.c"],
+            target,
+            "bench_entry",
+            folder / "split.elf",
+            extra=[f"-I{folder}", opt],
+        )
+        m = cortexm.Machine.load(elf, target, count=True)
+        got: dict[str, list[int]] = {"slow": [], "fast": [], "one_call": []}
+        for row in rows:
+            for mode, key in ((0, "slow"), (1, "fast"), (2, "one_call")):
+                out, n = m.call(np.array([mode, *row[:N_IN]], dtype="<i4").tobytes(), interface.FF_OUT.size)
+                got[key].append(n)
+                if mode:
+                    assert interface.FF_OUT.unpack(out) == tuple(int(x) for x in row[N_IN:]), (mode, row)
+    return {k: float(statistics.median(v)) for k, v in got.items()}
+
+
+def main() -> None:
+    demo = model.load(DEMO_PATH)
+    twin = dataclasses.replace(demo, firmware=dataclasses.replace(demo.firmware, word="int32"))
+    results = {}
+    for label, v in (("int16 (demo)", demo), ("int32 twin", twin)):
+        fw = synthesis.synthesise(v)
+        for target in ("cortex_m0plus", "cortex_m4"):
+            for opt in ("-O2", "-Os"):
+                results[f"{label}, {target}, zig {opt}"] = counts(fw, target, opt)
+    (HERE / "split_results.json").write_text(json.dumps(results, indent=2) + "\n")
+    lines = [
+        "# Two-rate feed-forward, instructions per call (both wheels, median; unicorn)",
+        "",
+        "| model, core, compiler | slow part | fast part (every tick) | one-call form |",
+        "|---|---|---|---|",
+    ]
+    lines += [f"| {k} | {r['slow']:.0f} | {r['fast']:.0f} | {r['one_call']:.0f} |" for k, r in results.items()]
+    (HERE / "split_results.md").write_text("\n".join(lines) + "\n")
+    print("\n".join(lines))
+
+
+if __name__ == "__main__":
+    main()
