@@ -177,3 +177,30 @@ def test_no_arguments_prints_normal_help(capsys):
     }
     assert not any(line.rstrip().endswith("...") for line in listing)
     assert all(len(line) <= 100 for line in out.splitlines())
+
+
+def test_bench_ports_lists_what_pyserial_sees(capsys, monkeypatch):
+    """bench ports: device, USB VID:PID (hex, as lsusb prints it: common practice), serial number,
+    description; a port without USB identity gets none."""
+    import json
+
+    from serial.tools import list_ports_common
+
+    import kinetab
+
+    usb = list_ports_common.ListPortInfo("/dev/ttyACM0")
+    usb.vid, usb.pid, usb.serial_number, usb.description = 0x0483, 0x5740, "A1B2", "drive controller"
+    plain = list_ports_common.ListPortInfo("/dev/ttyS0")
+    monkeypatch.setattr("serial.tools.list_ports.comports", lambda: [usb, plain])
+    kinetab.main(["bench", "ports", "--json"])
+    doc = json.loads(capsys.readouterr().out)
+    assert doc[0] == {
+        "device": "/dev/ttyACM0",
+        "usb": "0483:5740",
+        "serial_number": "A1B2",
+        "description": "drive controller",
+    }
+    assert doc[1]["usb"] == "" and doc[1]["device"] == "/dev/ttyS0"
+    kinetab.main(["bench", "ports"])
+    table = capsys.readouterr().out.splitlines()
+    assert table[0].split() == ["device", "usb", "serial", "description"] and "0483:5740" in table[1]
