@@ -16,6 +16,7 @@ from scipy.signal import savgol_filter
 
 from . import messages
 from .benchlog import LOG_COLUMNS
+from .planfile import SI_NAME
 
 SG_WINDOW_S = 0.1  # Savitzky-Golay window for accelerations from measured speeds
 TIGHT_TRACKING = 0.005  # RMS speed error below this fraction of speed_max counts as tight tracking
@@ -62,15 +63,7 @@ def read_log(path: Path, rig: str | None = None) -> BenchLog:
     get = {c: num[:, names.index(c)] for c in names}
     side = path.with_suffix(".json")
     recorded = json.loads(side.read_text()).get("rig", "on-floor") if side.exists() else "on-floor"
-    attrs = {
-        "speed_right": "speed_right",
-        "speed_left": "speed_left",
-        "accel_right": "accel_right",
-        "accel_left": "accel_left",
-        "pitch": "pitch_rad",
-        "roll": "roll_rad",
-        "payload": "payload_kg",
-    }
+    attrs = SI_NAME  # plan columns -> OperatingPoint attributes
     pair = lambda a, b: np.column_stack([get[a], get[b]])  # noqa: E731
     return BenchLog(
         path,

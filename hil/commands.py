@@ -21,6 +21,14 @@ CAUTION = (
     "ISO 13849, IEC 61800-5-2) and local regulations and licensed practice."
 )
 RIG = click.Choice(["on-floor", "wheels-up"])
+SECONDS = units.Kind("a duration", "s", "'60 s'")
+
+
+def _period_option(text: str) -> Any:
+    """The control period option (bare number: ms), shared by the commands that take it."""
+    return click.option(
+        "--period", type=QuantityType(SECONDS, "ms"), default="1", show_default=True, help=f"{text} (bare number: ms)."
+    )
 
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})
@@ -44,13 +52,7 @@ def ports(as_json: bool) -> None:
 @bench.command(short_help="Generate the controller side of the link: <name>_link.h and .c.")
 @click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
 @click.option("-o", "--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Output folder.")
-@click.option(
-    "--period",
-    type=QuantityType(units.Kind("a duration", "s", "'1 ms'"), "ms"),
-    default="1",
-    show_default=True,
-    help="Default control period the link reports (bare number: ms).",
-)
+@_period_option("Default control period the link reports")
 def link(model_path: str, out_dir: str, period: float) -> None:
     """Write <name>_link.h and <name>_link.c into OUT, beside the <name>_ff files of `kinetab build`
     (they include <name>_ff.h). Hook them to the firmware as README shows."""
@@ -139,13 +141,7 @@ def fit(
     show_default=True,
     help="Length of the plan (bare number: s).",
 )
-@click.option(
-    "--period",
-    type=QuantityType(units.Kind("a duration", "s", "'1 ms'"), "ms"),
-    default="1",
-    show_default=True,
-    help="Control period, one row each (bare number: ms).",
-)
+@_period_option("Control period, one row each")
 @click.option("--rig", type=RIG, default="on-floor", show_default=True, help="Wheels on the floor or lifted.")
 @click.option(
     "--payload",
@@ -197,13 +193,7 @@ def _profile(p: Any) -> Any:
     show_default=True,
     help="Standard deviation of the measured current (bare number: A).",
 )
-@click.option(
-    "--period",
-    type=QuantityType(units.Kind("a duration", "s", "'1 ms'"), "ms"),
-    default="1",
-    show_default=True,
-    help="Control period (bare number: ms).",
-)
+@_period_option("Control period")
 @click.option("--rig", type=RIG, default="on-floor", show_default=True, help="Wheels on the floor or lifted.")
 @click.option(
     "--encoder-counts",
