@@ -180,12 +180,28 @@ def _stored_text(spec: tb.TableSpec) -> str:
     return f"{fmt}; one stored step = {working} = {_si_text(2.0**-spec.frac_bits * spec.si_scale, spec.si_unit)}"
 
 
+def _clamp_view(op: Clamp, bit_name: str, prefix: str) -> dict[str, Any]:
+    """A clamp as one unsigned range test: (uint32_t)x - lo > hi - lo exactly when x is outside lo..hi."""
+    assert op.lo <= 0 <= op.hi, "every envelope contains zero"
+    where = f"{op.field}[{op.index}]" if op.index is not None else op.field
+    return {
+        "kind": "clamp",
+        "dst": op.dst,
+        "src": where,
+        "lo": op.lo,
+        "hi": op.hi,
+        "bit": bit_name,
+        "offset": -op.lo,
+        "span": op.hi - op.lo,
+        "unlikely": f"{prefix.upper()}_UNLIKELY",
+    }
+
+
 def _op_view(op: Op, proof: Proof, clamp_names: list[str], prefix: str) -> dict[str, Any]:
     """What ops.j2 prints for one op (the C form of each op kind lives in that template)."""
     match op:
         case Clamp():
-            where = f"{op.field}[{op.index}]" if op.index is not None else op.field
-            return {"kind": "clamp", "dst": op.dst, "src": where, "lo": op.lo, "hi": op.hi, "bit": clamp_names[op.bit]}
+            return _clamp_view(op, clamp_names[op.bit], prefix)
         case Lookup():
             return {"kind": "lookup", "dst": op.dst, "func": f"{prefix}_lookup_{op.table}", "src": op.src}
         case Mul():

@@ -7,6 +7,7 @@ are loaded with pyelftools and the function is called with LR at a sentinel addr
 
 from __future__ import annotations
 
+import shutil
 import subprocess
 import sys
 from dataclasses import dataclass
@@ -53,6 +54,36 @@ def compile_elf(sources: list[Path], target: str, entry: str, out: Path, extra: 
         f"-Wl,--entry={entry}",
         *(extra or []),
         *map(str, sources),
+        "-o",
+        str(out),
+    ]
+    subprocess.run(cmd, check=True, capture_output=True, text=True)
+    return out
+
+
+GCC_TARGETS = {"cortex_m0plus": ["-mcpu=cortex-m0plus", "-mthumb"], "cortex_m4": ["-mcpu=cortex-m4", "-mthumb"]}
+
+
+def arm_gcc_available() -> bool:
+    """gcc-arm-none-eabi from apt (the compiler most firmware teams use)."""
+    return shutil.which("arm-none-eabi-gcc") is not None
+
+
+def compile_elf_gcc(sources: list[Path], target: str, entry: str, out: Path, extra: list[str] | None = None) -> Path:
+    """The same as compile_elf with gcc-arm-none-eabi: a standalone ELF (no start files; libgcc for helpers)."""
+    cmd = [
+        "arm-none-eabi-gcc",
+        *GCC_TARGETS[target],
+        *STRICT,
+        "-ffunction-sections",
+        "-fdata-sections",
+        "-Wl,--gc-sections",
+        f"-Wl,--entry={entry}",
+        "-nostartfiles",
+        "-specs=nosys.specs",
+        *(extra or []),
+        *map(str, sources),
+        "-lgcc",
         "-o",
         str(out),
     ]

@@ -186,3 +186,22 @@ def test_out_of_sequence_setpoints_are_ignored(firmware):
     firmware.tick()
     samples = [m for m in _received(firmware) if isinstance(m, messages.Sample)]
     assert samples[0].seq == 1 and samples[0].last_rx == 2 and firmware.status().drop_order == 1
+
+
+@pytest.mark.skipif(not cortexm.arm_gcc_available(), reason="apt install gcc-arm-none-eabi")
+@pytest.mark.parametrize("target", ["cortex_m0plus", "cortex_m4"])
+def test_generated_c_strict_with_gcc_arm_none_eabi(link_dir, target, tmp_path):
+    """The feed-forward and link C with the strict flags under the compiler most firmware teams use."""
+    for name in ("larkspur_ff.c", "larkspur_link.c"):
+        cmd = [
+            "arm-none-eabi-gcc",
+            *cortexm.GCC_TARGETS[target],
+            *cortexm.STRICT,
+            "-Os",
+            "-c",
+            f"-I{link_dir}",
+            str(link_dir / name),
+            "-o",
+            str(tmp_path / f"{name}.o"),
+        ]
+        subprocess.run(cmd, check=True, capture_output=True, text=True)

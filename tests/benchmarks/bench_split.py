@@ -29,7 +29,7 @@ HERE = Path(__file__).parent
 N_IN = len(interface.FF_IN.columns)
 
 
-def counts(fw: synthesis.Firmware, target: str, opt: str) -> dict[str, float]:
+def counts(fw: synthesis.Firmware, target: str, opt: str, compiler: str = "zig") -> dict[str, float]:
     rows = vectors.feedforward_table(fw, 600)
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)
@@ -37,7 +37,8 @@ def counts(fw: synthesis.Firmware, target: str, opt: str) -> dict[str, float]:
             (folder / name).write_text(text)
         tpl = jinja2.Template((HERE / "split_bench.c.j2").read_text(), undefined=jinja2.StrictUndefined)
         (folder / "entry.c").write_text(tpl.render(prefix=fw.vehicle.name))
-        elf = cortexm.compile_elf(
+        build = cortexm.compile_elf if compiler == "zig" else cortexm.compile_elf_gcc
+        elf = build(
             [folder / "entry.c", folder / f"{fw.vehicle.name}_ff.c"],
             target,
             "bench_entry",
@@ -61,9 +62,11 @@ def main() -> None:
     results = {}
     for label, v in (("int16 (demo)", demo), ("int32 twin", twin)):
         fw = synthesis.synthesise(v)
+        compilers = ["zig"] + (["gcc-arm-none-eabi"] if cortexm.arm_gcc_available() else [])
         for target in ("cortex_m0plus", "cortex_m4"):
-            for opt in ("-O2", "-Os"):
-                results[f"{label}, {target}, zig {opt}"] = counts(fw, target, opt)
+            for compiler in compilers:
+                for opt in ("-O2", "-Os"):
+                    results[f"{label}, {target}, {compiler} {opt}"] = counts(fw, target, opt, compiler)
     (HERE / "split_results.json").write_text(json.dumps(results, indent=2) + "\n")
     lines = [
         "# Two-rate feed-forward, instructions per call (both wheels, median; unicorn)",

@@ -12,6 +12,13 @@
 /* An accumulator step, the internal unit of motor current before the final rounding, is
  * 2.44141e-07 A (current step / 2^12); forces are carried as the motoring current they need. */
 
+/* A branch hint where the compiler has one: inputs are inside the envelope nearly always. */
+#if defined(__GNUC__) || defined(__clang__)
+#define LARKSPUR_UNLIKELY(x) __builtin_expect(!!(x), 0)
+#else
+#define LARKSPUR_UNLIKELY(x) (x)
+#endif
+
 /* Compile-time checks (C99: a negative array size fails the build). */
 typedef char larkspur_check_int_width[(sizeof(int) >= 4) ? 1 : -1];
 typedef char larkspur_check_arithmetic_shift[((-1 >> 1) == -1) ? 1 : -1];
@@ -626,59 +633,38 @@ void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out)
 {
     uint32_t clamped = 0u;
     int32_t pitch = in->pitch;
-    if (pitch < -175) {
-        pitch = -175;
-        clamped |= LARKSPUR_CLAMPED_PITCH;
-    } else if (pitch > 175) {
-        pitch = 175;
+    if (LARKSPUR_UNLIKELY((uint32_t)pitch + 175u > 350u)) { /* outside -175..175: one unsigned test */
+        pitch = (pitch < -175) ? -175 : 175;
         clamped |= LARKSPUR_CLAMPED_PITCH;
     }
     int32_t roll = in->roll;
-    if (roll < -105) {
-        roll = -105;
-        clamped |= LARKSPUR_CLAMPED_ROLL;
-    } else if (roll > 105) {
-        roll = 105;
+    if (LARKSPUR_UNLIKELY((uint32_t)roll + 105u > 210u)) { /* outside -105..105: one unsigned test */
+        roll = (roll < -105) ? -105 : 105;
         clamped |= LARKSPUR_CLAMPED_ROLL;
     }
     int32_t payload = in->payload;
-    if (payload < 0) {
-        payload = 0;
-        clamped |= LARKSPUR_CLAMPED_PAYLOAD;
-    } else if (payload > 600) {
-        payload = 600;
+    if (LARKSPUR_UNLIKELY((uint32_t)payload > 600u)) { /* outside 0..600: one unsigned test */
+        payload = (payload < 0) ? 0 : 600;
         clamped |= LARKSPUR_CLAMPED_PAYLOAD;
     }
     int32_t speed_r = in->speed[0];
-    if (speed_r < -1600) {
-        speed_r = -1600;
-        clamped |= LARKSPUR_CLAMPED_SPEED_RIGHT;
-    } else if (speed_r > 1600) {
-        speed_r = 1600;
+    if (LARKSPUR_UNLIKELY((uint32_t)speed_r + 1600u > 3200u)) { /* outside -1600..1600: one unsigned test */
+        speed_r = (speed_r < -1600) ? -1600 : 1600;
         clamped |= LARKSPUR_CLAMPED_SPEED_RIGHT;
     }
     int32_t speed_l = in->speed[1];
-    if (speed_l < -1600) {
-        speed_l = -1600;
-        clamped |= LARKSPUR_CLAMPED_SPEED_LEFT;
-    } else if (speed_l > 1600) {
-        speed_l = 1600;
+    if (LARKSPUR_UNLIKELY((uint32_t)speed_l + 1600u > 3200u)) { /* outside -1600..1600: one unsigned test */
+        speed_l = (speed_l < -1600) ? -1600 : 1600;
         clamped |= LARKSPUR_CLAMPED_SPEED_LEFT;
     }
     int32_t accel_r = in->accel[0];
-    if (accel_r < -500) {
-        accel_r = -500;
-        clamped |= LARKSPUR_CLAMPED_ACCEL_RIGHT;
-    } else if (accel_r > 500) {
-        accel_r = 500;
+    if (LARKSPUR_UNLIKELY((uint32_t)accel_r + 500u > 1000u)) { /* outside -500..500: one unsigned test */
+        accel_r = (accel_r < -500) ? -500 : 500;
         clamped |= LARKSPUR_CLAMPED_ACCEL_RIGHT;
     }
     int32_t accel_l = in->accel[1];
-    if (accel_l < -500) {
-        accel_l = -500;
-        clamped |= LARKSPUR_CLAMPED_ACCEL_LEFT;
-    } else if (accel_l > 500) {
-        accel_l = 500;
+    if (LARKSPUR_UNLIKELY((uint32_t)accel_l + 500u > 1000u)) { /* outside -500..500: one unsigned test */
+        accel_l = (accel_l < -500) ? -500 : 500;
         clamped |= LARKSPUR_CLAMPED_ACCEL_LEFT;
     }
     out->clamped = clamped; /* every input is clamped by now */
@@ -893,27 +879,18 @@ void larkspur_ff_slow(const larkspur_ff_in_t *in, larkspur_ff_state_t *state)
 {
     uint32_t clamped = 0u;
     int32_t pitch = in->pitch;
-    if (pitch < -175) {
-        pitch = -175;
-        clamped |= LARKSPUR_CLAMPED_PITCH;
-    } else if (pitch > 175) {
-        pitch = 175;
+    if (LARKSPUR_UNLIKELY((uint32_t)pitch + 175u > 350u)) { /* outside -175..175: one unsigned test */
+        pitch = (pitch < -175) ? -175 : 175;
         clamped |= LARKSPUR_CLAMPED_PITCH;
     }
     int32_t roll = in->roll;
-    if (roll < -105) {
-        roll = -105;
-        clamped |= LARKSPUR_CLAMPED_ROLL;
-    } else if (roll > 105) {
-        roll = 105;
+    if (LARKSPUR_UNLIKELY((uint32_t)roll + 105u > 210u)) { /* outside -105..105: one unsigned test */
+        roll = (roll < -105) ? -105 : 105;
         clamped |= LARKSPUR_CLAMPED_ROLL;
     }
     int32_t payload = in->payload;
-    if (payload < 0) {
-        payload = 0;
-        clamped |= LARKSPUR_CLAMPED_PAYLOAD;
-    } else if (payload > 600) {
-        payload = 600;
+    if (LARKSPUR_UNLIKELY((uint32_t)payload > 600u)) { /* outside 0..600: one unsigned test */
+        payload = (payload < 0) ? 0 : 600;
         clamped |= LARKSPUR_CLAMPED_PAYLOAD;
     }
     state->clamped = clamped; /* pitch, roll and payload are clamped by now */
@@ -1037,35 +1014,23 @@ void larkspur_ff_fast(const larkspur_ff_in_t *in, const larkspur_ff_state_t *sta
     const int32_t t_m12 = state->t_m12;
     const int32_t r_level_s5 = state->r_level_s5;
     int32_t speed_r = in->speed[0];
-    if (speed_r < -1600) {
-        speed_r = -1600;
-        clamped |= LARKSPUR_CLAMPED_SPEED_RIGHT;
-    } else if (speed_r > 1600) {
-        speed_r = 1600;
+    if (LARKSPUR_UNLIKELY((uint32_t)speed_r + 1600u > 3200u)) { /* outside -1600..1600: one unsigned test */
+        speed_r = (speed_r < -1600) ? -1600 : 1600;
         clamped |= LARKSPUR_CLAMPED_SPEED_RIGHT;
     }
     int32_t speed_l = in->speed[1];
-    if (speed_l < -1600) {
-        speed_l = -1600;
-        clamped |= LARKSPUR_CLAMPED_SPEED_LEFT;
-    } else if (speed_l > 1600) {
-        speed_l = 1600;
+    if (LARKSPUR_UNLIKELY((uint32_t)speed_l + 1600u > 3200u)) { /* outside -1600..1600: one unsigned test */
+        speed_l = (speed_l < -1600) ? -1600 : 1600;
         clamped |= LARKSPUR_CLAMPED_SPEED_LEFT;
     }
     int32_t accel_r = in->accel[0];
-    if (accel_r < -500) {
-        accel_r = -500;
-        clamped |= LARKSPUR_CLAMPED_ACCEL_RIGHT;
-    } else if (accel_r > 500) {
-        accel_r = 500;
+    if (LARKSPUR_UNLIKELY((uint32_t)accel_r + 500u > 1000u)) { /* outside -500..500: one unsigned test */
+        accel_r = (accel_r < -500) ? -500 : 500;
         clamped |= LARKSPUR_CLAMPED_ACCEL_RIGHT;
     }
     int32_t accel_l = in->accel[1];
-    if (accel_l < -500) {
-        accel_l = -500;
-        clamped |= LARKSPUR_CLAMPED_ACCEL_LEFT;
-    } else if (accel_l > 500) {
-        accel_l = 500;
+    if (LARKSPUR_UNLIKELY((uint32_t)accel_l + 500u > 1000u)) { /* outside -500..500: one unsigned test */
+        accel_l = (accel_l < -500) ? -500 : 500;
         clamped |= LARKSPUR_CLAMPED_ACCEL_LEFT;
     }
     out->clamped = clamped | state->clamped; /* every input is clamped by now */
@@ -1178,59 +1143,38 @@ void larkspur_forward(const larkspur_fwd_in_t *in, larkspur_fwd_out_t *out)
 {
     uint32_t clamped = 0u;
     int32_t pitch = in->pitch;
-    if (pitch < -175) {
-        pitch = -175;
-        clamped |= LARKSPUR_FWD_CLAMPED_PITCH;
-    } else if (pitch > 175) {
-        pitch = 175;
+    if (LARKSPUR_UNLIKELY((uint32_t)pitch + 175u > 350u)) { /* outside -175..175: one unsigned test */
+        pitch = (pitch < -175) ? -175 : 175;
         clamped |= LARKSPUR_FWD_CLAMPED_PITCH;
     }
     int32_t roll = in->roll;
-    if (roll < -105) {
-        roll = -105;
-        clamped |= LARKSPUR_FWD_CLAMPED_ROLL;
-    } else if (roll > 105) {
-        roll = 105;
+    if (LARKSPUR_UNLIKELY((uint32_t)roll + 105u > 210u)) { /* outside -105..105: one unsigned test */
+        roll = (roll < -105) ? -105 : 105;
         clamped |= LARKSPUR_FWD_CLAMPED_ROLL;
     }
     int32_t payload = in->payload;
-    if (payload < 0) {
-        payload = 0;
-        clamped |= LARKSPUR_FWD_CLAMPED_PAYLOAD;
-    } else if (payload > 600) {
-        payload = 600;
+    if (LARKSPUR_UNLIKELY((uint32_t)payload > 600u)) { /* outside 0..600: one unsigned test */
+        payload = (payload < 0) ? 0 : 600;
         clamped |= LARKSPUR_FWD_CLAMPED_PAYLOAD;
     }
     int32_t speed_r = in->speed[0];
-    if (speed_r < -1600) {
-        speed_r = -1600;
-        clamped |= LARKSPUR_FWD_CLAMPED_SPEED_RIGHT;
-    } else if (speed_r > 1600) {
-        speed_r = 1600;
+    if (LARKSPUR_UNLIKELY((uint32_t)speed_r + 1600u > 3200u)) { /* outside -1600..1600: one unsigned test */
+        speed_r = (speed_r < -1600) ? -1600 : 1600;
         clamped |= LARKSPUR_FWD_CLAMPED_SPEED_RIGHT;
     }
     int32_t speed_l = in->speed[1];
-    if (speed_l < -1600) {
-        speed_l = -1600;
-        clamped |= LARKSPUR_FWD_CLAMPED_SPEED_LEFT;
-    } else if (speed_l > 1600) {
-        speed_l = 1600;
+    if (LARKSPUR_UNLIKELY((uint32_t)speed_l + 1600u > 3200u)) { /* outside -1600..1600: one unsigned test */
+        speed_l = (speed_l < -1600) ? -1600 : 1600;
         clamped |= LARKSPUR_FWD_CLAMPED_SPEED_LEFT;
     }
     int32_t cur_r = in->current[0];
-    if (cur_r < -14000) {
-        cur_r = -14000;
-        clamped |= LARKSPUR_FWD_CLAMPED_CURRENT_RIGHT;
-    } else if (cur_r > 14000) {
-        cur_r = 14000;
+    if (LARKSPUR_UNLIKELY((uint32_t)cur_r + 14000u > 28000u)) { /* outside -14000..14000: one unsigned test */
+        cur_r = (cur_r < -14000) ? -14000 : 14000;
         clamped |= LARKSPUR_FWD_CLAMPED_CURRENT_RIGHT;
     }
     int32_t cur_l = in->current[1];
-    if (cur_l < -14000) {
-        cur_l = -14000;
-        clamped |= LARKSPUR_FWD_CLAMPED_CURRENT_LEFT;
-    } else if (cur_l > 14000) {
-        cur_l = 14000;
+    if (LARKSPUR_UNLIKELY((uint32_t)cur_l + 14000u > 28000u)) { /* outside -14000..14000: one unsigned test */
+        cur_l = (cur_l < -14000) ? -14000 : 14000;
         clamped |= LARKSPUR_FWD_CLAMPED_CURRENT_LEFT;
     }
     out->clamped = clamped; /* every input is clamped by now */
