@@ -8,8 +8,8 @@ def num(x: float) -> str:
     return f"{x:.6g}"
 
 
-def rows(values: list[int], per_row: int = 8) -> list[str]:
-    """Integer array entries, `per_row` to a line."""
+def rows(values: list[int] | list[str], per_row: int = 8) -> list[str]:
+    """Array entries (integers or C literals), `per_row` to a line."""
     cells = [f"{v}" for v in values]
     return [", ".join(cells[i : i + per_row]) for i in range(0, len(cells), per_row)]
 

@@ -30,6 +30,11 @@ def _crc_table() -> tuple[int, ...]:
 _TABLE = _crc_table()
 
 
+def crc_table() -> tuple[int, ...]:
+    """The 256 CRC-16/IBM-3740 table entries (the link C embeds the same table)."""
+    return _TABLE
+
+
 def crc16(data: bytes, crc: int = CRC_INIT) -> int:
     """CRC-16/IBM-3740 of `data` (continue a running CRC by passing it as `crc`)."""
     for byte in data:

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from kinetab.generator import __version__, cview, interface, render
+from kinetab.generator import __version__, cformat, cview, interface, render
 from kinetab.generator.synthesis import Firmware
 
 from . import framing, messages
@@ -41,6 +41,7 @@ def context(fw: Firmware, *, period_us: int = PERIOD_US, fifo_depth: int = FIFO_
         "period_us": period_us,
         "watchdog_ticks": WATCHDOG_TICKS,
         "max_frame": framing.MAX_FRAME,
+        "crc_rows": cformat.rows([f"0x{x:04X}u" for x in framing.crc_table()], per_row=8),
         "kinds": kinds,
         "fault_codes": [(c.name, int(c)) for c in messages.FaultCode],
         "flag_last": messages.LAST,

@@ -112,9 +112,9 @@ def latency(count: int = 2000) -> dict[str, float]:
     return {"median_ms": float(np.median(ms)), "p99_ms": float(np.percentile(ms, 99)), "count": count}
 
 
-def instructions(target: str = "cortex_m0plus") -> dict[str, float]:
+def instructions(target: str = "cortex_m0plus", compiler: str = "zig", opt: str = "-O2") -> dict[str, float]:
     """Instructions per received byte (mean and worst, over setpoint frames) and per tick (applying a
-    setpoint and sending a sample) of the link C, -O2, in unicorn."""
+    setpoint and sending a sample) of the link C, in unicorn."""
     fw = demo_firmware()
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)
@@ -124,12 +124,13 @@ def instructions(target: str = "cortex_m0plus") -> dict[str, float]:
         (folder / "entry.c").write_text(
             tpl.render(prefix="larkspur", measured_type=interface.MEASURED.c_type("larkspur"))
         )
-        elf = cortexm.compile_elf(
+        build = cortexm.compile_elf if compiler == "zig" else cortexm.compile_elf_gcc
+        elf = build(
             [folder / "entry.c", folder / "larkspur_link.c", folder / "larkspur_ff.c"],
             target,
             "bench_entry",
             folder / "link.elf",
-            extra=[f"-I{folder}"],
+            extra=[f"-I{folder}", opt],
         )
         m = cortexm.Machine.load(elf, target, count=True)
         sizes = cortexm.elf_sizes(elf)
@@ -150,18 +151,34 @@ def instructions(target: str = "cortex_m0plus") -> dict[str, float]:
     }
 
 
+def controller_costs() -> dict[str, dict[str, float]]:
+    """Per byte and per tick on both cores with zig -O2 and, when installed, gcc-arm-none-eabi -Os."""
+    out = {}
+    for target, core in (("cortex_m0plus", "Cortex-M0+"), ("cortex_m4", "Cortex-M4")):
+        out[f"{core}, zig -O2"] = instructions(target)
+        if cortexm.arm_gcc_available():
+            out[f"{core}, gcc-arm-none-eabi -Os"] = instructions(target, "gcc-arm-none-eabi", "-Os")
+    return out
+
+
 def main() -> None:
-    with tempfile.TemporaryDirectory() as tmp:
-        rates = [sustained(1.0, 60, Path(tmp))]
-        for period in (0.5, 0.25, 0.2):
-            rates.append(sustained(period, 10, Path(tmp)))
-    results = {
-        "rates": rates,
-        "latency": latency(),
-        "m0plus": instructions("cortex_m0plus"),
-        "m4": instructions("cortex_m4"),
-        "fifo_depth": linkview.FIFO_DEPTH,
-    }
+    """All parts; `bench_link.py controller` redoes only the instruction counts (the rest kept)."""
+    if sys.argv[1:] == ["controller"]:
+        results = json.loads((HERE / "link_results.json").read_text())
+        results["controller"] = controller_costs()
+    else:
+        with tempfile.TemporaryDirectory() as tmp:
+            rates = [sustained(1.0, 60, Path(tmp))]
+            for period in (0.5, 0.25, 0.2):
+                rates.append(sustained(period, 10, Path(tmp)))
+        results = {
+            "rates": rates,
+            "latency": latency(),
+            "controller": controller_costs(),
+            "fifo_depth": linkview.FIFO_DEPTH,
+        }
+    results.pop("m0plus", None)
+    results.pop("m4", None)
     (HERE / "link_results.json").write_text(json.dumps(results, indent=2) + "\n")
     (HERE / "link_results.md").write_text(markdown(results))
     print(markdown(results))
@@ -179,18 +196,18 @@ def markdown(r: dict) -> str:
             f"| {x['period_ms']:g} ms | {x['rate_hz']:.0f}/s | {'completed' if x['completed'] else 'FAILED'} "
             f"| {x['samples']}/{x['rows']} | {x['drops']} | {x['missing']} | {x['host_cpu_s_per_s']:.2f} s |"
         )
-    lat, m0, m4 = r["latency"], r["m0plus"], r["m4"]
+    lat = r["latency"]
     lines += [
         "",
         f"Round trip HELLO -> IDENTIFY ({lat['count']} times): median {lat['median_ms']:.3f} ms, "
         f"p99 {lat['p99_ms']:.3f} ms.",
         "",
-        "| controller, -O2 | per received byte (mean / worst) | per tick (median / worst) | flash bytes |",
+        "| controller | per received byte (mean / worst) | per tick (median / worst) | flash bytes |",
         "|---|---|---|---|",
         *(
             f"| {name} | {x['byte_mean']:.1f} / {x['byte_max']} | {x['tick_median']:.0f} / {x['tick_max']} "
             f"| {x['flash']} |"
-            for name, x in (("Cortex-M0+", m0), ("Cortex-M4", m4))
+            for name, x in r["controller"].items()
         ),
         "",
         f"FIFO depth {r['fifo_depth']}: 64 ms at 1 kHz, three times the longest host stall measured on "
