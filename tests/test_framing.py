@@ -122,3 +122,13 @@ def test_protocol_document_examples_are_right():
         assert framing.frame(payload) == wire, name
         msg = messages.decode(payload, messages.TO_CONTROLLER | messages.TO_HOST)
         assert not isinstance(msg, str) and messages.encode(msg) == payload, name
+
+
+def test_crc_table_is_the_bitwise_crc():
+    """The table the link C embeds: entry b is the CRC register after shifting b through eight steps of
+    polynomial 0x1021 from zero (the table-driven form, Williams' guide, from memory)."""
+    for b in (0, 1, 0x80, 0xFF, 0x5A):
+        crc = b << 8
+        for _ in range(8):
+            crc = ((crc << 1) ^ 0x1021) & 0xFFFF if crc & 0x8000 else (crc << 1) & 0xFFFF
+        assert framing.crc_table()[b] == crc

@@ -98,8 +98,10 @@ def test_parser_under_sanitizers_agrees_with_python(link_dir):
 
 @needs_gcc
 def test_link_strict_on_the_host(link_dir):
-    for name in ("larkspur_link.c",):
-        hostc.compile_c([link_dir / name], link_dir / "link.o", include=[link_dir], extra=["-c"])
+    for defines in ([], ["LARKSPUR_LINK_CRC_BITWISE"]):  # the CRC table, and the bit-by-bit form
+        hostc.compile_c(
+            [link_dir / "larkspur_link.c"], link_dir / "link.o", include=[link_dir], defines=defines, extra=["-c"]
+        )
 
 
 @pytest.mark.slow
