@@ -204,3 +204,37 @@ def test_bench_ports_lists_what_pyserial_sees(capsys, monkeypatch):
     kinetab.main(["bench", "ports"])
     table = capsys.readouterr().out.splitlines()
     assert table[0].split() == ["device", "usb", "serial", "description"] and "0483:5740" in table[1]
+
+
+def test_bench_run_refuses_without_confirmation(tmp_path, capsys, monkeypatch):
+    """Without --yes and without a terminal to confirm at, bench run prints the cautions and refuses
+    before opening the port: exit 2, no log."""
+    import io
+
+    from kinetab.generator import outputs
+    from kinetab.hil import planfile, planner
+
+    import kinetab
+
+    plan = tmp_path / "plan.csv"
+    outputs.write_file(
+        plan, planfile.to_csv(planner.make_plan(model.load(DEMO_PATH), duration_s=5, period_s=0.001, rig="on-floor"))
+    )
+    monkeypatch.setattr("sys.stdin", io.StringIO(""))
+    with pytest.raises(SystemExit) as exc:
+        kinetab.main(
+            [
+                "bench",
+                "run",
+                str(DEMO_PATH),
+                "--port",
+                "loop://",
+                "--plan",
+                str(plan),
+                "--log",
+                str(tmp_path / "log.csv"),
+            ]
+        )
+    err = capsys.readouterr().err
+    assert exc.value.code == 2 and "CAUTION" in err and "--yes" in err.splitlines()[-1]
+    assert not (tmp_path / "log.csv").exists()
