@@ -7,8 +7,10 @@ up from the free-slot count each sample reports, so host and USB jitter never re
 
 from __future__ import annotations
 
+import signal
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -185,9 +187,10 @@ def run(
                     continue
                 counters.missing += ahead
                 expected += ahead
-                on_sample(expected, msg)
+                with _signals_deferred():  # the log row and the count stay in step on Ctrl-C or SIGTERM
+                    on_sample(expected, msg)
+                    counters.samples, counters.fifo_free = counters.samples + 1, msg.free
                 expected += 1
-                counters.samples, counters.fifo_free = counters.samples + 1, msg.free
                 stream.report(msg.free, msg.last_rx)
             elif isinstance(msg, messages.Fault):
                 if msg.code == FaultCode.END and msg.seq == (first + len(rows) - 1) & 0xFFFF:
@@ -195,6 +198,17 @@ def run(
                     counters.faults.append(fault_text(msg))
                     return "completed"
                 return _on_fault(msg, expected, len(rows), counters, port_name=port_name)
+
+
+@contextmanager
+def _signals_deferred() -> Iterator[None]:
+    """Hold SIGINT and SIGTERM until the block is done (they are delivered right after)."""
+    held = {signal.SIGINT, signal.SIGTERM}
+    old = signal.pthread_sigmask(signal.SIG_BLOCK, held)
+    try:
+        yield
+    finally:
+        signal.pthread_sigmask(signal.SIG_SETMASK, old)
 
 
 def _arm(link: Link, prefill: int, port_name: str) -> messages.Armed:
