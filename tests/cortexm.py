@@ -134,6 +134,15 @@ class Machine:
             uc.hook_add(UC_HOOK_CODE, hook, m, begin=lo, end=hi)
         return m
 
+    def stack_bytes(self, args: bytes, out_size: int, depth: int = 4096) -> int:
+        """Stack the call uses, bytes: the area below SP painted with a pattern, the lowest byte changed."""
+        top = RAM + RAM_SIZE - 16
+        self.uc.mem_write(top - depth, b"\xa5" * depth)  # type: ignore[attr-defined]
+        self.call(args, out_size)
+        painted = bytes(self.uc.mem_read(top - depth, depth))  # type: ignore[attr-defined]
+        first = next((k for k, b in enumerate(painted) if b != 0xA5), depth)
+        return depth - first
+
     def call(self, args: bytes, out_size: int) -> tuple[bytes, int]:
         """Call entry(in, out) with the packed input struct; returns (output bytes, instructions)."""
         from unicorn.arm_const import UC_ARM_REG_LR, UC_ARM_REG_R0, UC_ARM_REG_R1, UC_ARM_REG_SP

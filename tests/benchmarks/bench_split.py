@@ -53,7 +53,12 @@ def counts(fw: synthesis.Firmware, target: str, opt: str, compiler: str = "zig")
                 got[key].append(n)
                 if mode:
                     assert interface.FF_OUT.unpack(out) == tuple(int(x) for x in row[N_IN:]), (mode, row)
-    return {k: float(statistics.median(v)) for k, v in got.items()}
+        row = np.array([2, *rows[0][:N_IN]], dtype="<i4").tobytes()
+        stack = m.stack_bytes(row, interface.FF_OUT.size)
+        sizes = cortexm.elf_sizes(elf)
+    result = {k: float(statistics.median(v)) for k, v in got.items()}
+    result.update(flash=sizes.get(".text", 0) + sizes.get(".rodata", 0), stack=stack)
+    return result
 
 
 def main() -> None:
@@ -69,12 +74,16 @@ def main() -> None:
                     results[f"{label}, {target}, {compiler} {opt}"] = counts(fw, target, opt, compiler)
     (HERE / "split_results.json").write_text(json.dumps(results, indent=2) + "\n")
     lines = [
-        "# Two-rate feed-forward, instructions per call (both wheels, median; unicorn)",
+        "# Two-rate feed-forward, instructions per call (both wheels, median; unicorn); flash: slow, fast and "
+        "one-call functions with the tables; stack: the one-call form",
         "",
-        "| model, core, compiler | slow part | fast part (every tick) | one-call form |",
-        "|---|---|---|---|",
+        "| model, core, compiler | slow part | fast part (every tick) | one-call form | flash bytes | stack bytes |",
+        "|---|---|---|---|---|---|",
     ]
-    lines += [f"| {k} | {r['slow']:.0f} | {r['fast']:.0f} | {r['one_call']:.0f} |" for k, r in results.items()]
+    lines += [
+        f"| {k} | {r['slow']:.0f} | {r['fast']:.0f} | {r['one_call']:.0f} | {r['flash']} | {r['stack']} |"
+        for k, r in results.items()
+    ]
     (HERE / "split_results.md").write_text("\n".join(lines) + "\n")
     print("\n".join(lines))
 
