@@ -21,7 +21,10 @@ CAUTION = (
     "ISO 13849, IEC 61800-5-2) and local regulations and licensed practice."
 )
 RIG = click.Choice(["on-floor", "wheels-up"])
-SECONDS = units.Kind("a duration", "s", "'60 s'")
+RIG_OPTION = click.option(
+    "--rig", type=RIG, default="on-floor", show_default=True, help="Wheels on the floor or lifted."
+)
+SECONDS = units.Kind("a duration", "s", "'1 ms'")
 
 
 def _period_option(text: str) -> Any:
@@ -136,13 +139,13 @@ def fit(
 @click.option("-o", "--out", "out_path", required=True, type=click.Path(dir_okay=False), help="Plan CSV to write.")
 @click.option(
     "--duration",
-    type=QuantityType(units.Kind("a duration", "s", "'60 s'"), "s"),
+    type=QuantityType(SECONDS, "s"),
     default="60",
     show_default=True,
     help="Length of the plan (bare number: s).",
 )
 @_period_option("Control period, one row each")
-@click.option("--rig", type=RIG, default="on-floor", show_default=True, help="Wheels on the floor or lifted.")
+@RIG_OPTION
 @click.option(
     "--payload",
     type=QuantityType(units.MASS, "kg"),
@@ -194,7 +197,7 @@ def _profile(p: Any) -> Any:
     help="Standard deviation of the measured current (bare number: A).",
 )
 @_period_option("Control period")
-@click.option("--rig", type=RIG, default="on-floor", show_default=True, help="Wheels on the floor or lifted.")
+@RIG_OPTION
 @click.option(
     "--encoder-counts",
     type=click.IntRange(16, 1 << 24),
@@ -213,13 +216,13 @@ def _profile(p: Any) -> Any:
 @click.option("--corrupt-rate", type=click.FloatRange(0, 1), default=0.0, help="Test faults: flip a bit (probability).")
 @click.option(
     "--delay",
-    type=QuantityType(units.Kind("a duration", "s", "'5 ms'"), "ms"),
+    type=QuantityType(SECONDS, "ms"),
     default="0",
     help="Test faults: hold every byte to the controller this long (bare number: ms).",
 )
 @click.option(
     "--garbage-every",
-    type=QuantityType(units.Kind("a duration", "s", "'1 s'"), "s"),
+    type=QuantityType(SECONDS, "s"),
     default="0",
     help="Test faults: a burst of random bytes both ways at this interval (bare number: s).",
 )

@@ -16,6 +16,13 @@ from tests.csteps import build_harness, needs_gcc, run_harness, write_files
 from tests.firmware_fixtures import demo_files, demo_firmware
 from tests.helpers import demo_doc, random_firmware_strategy, vehicle_from
 
+RANDOM_MODELS = settings(
+    max_examples=6,
+    deadline=None,
+    suppress_health_check=[HealthCheck.too_slow, HealthCheck.filter_too_much, HealthCheck.function_scoped_fixture],
+)
+"""Hypothesis settings of the tests that compile C for random models (a few seconds each)."""
+
 
 @pytest.fixture(scope="module")
 def demo_dir(tmp_path_factory):
@@ -126,11 +133,7 @@ def test_cortex_m_same_integers_as_host(demo_dir, target, tmp_path):
 
 @needs_gcc
 @pytest.mark.slow
-@settings(
-    max_examples=6,
-    deadline=None,
-    suppress_health_check=[HealthCheck.too_slow, HealthCheck.filter_too_much, HealthCheck.function_scoped_fixture],
-)
+@RANDOM_MODELS
 @given(fw=random_firmware_strategy())
 def test_compiled_c_within_budget_of_float_model_on_random_models(fw, tmp_path_factory):
     folder = write_files(tmp_path_factory.mktemp("rand_c"), render.render(fw))
@@ -173,11 +176,7 @@ def test_two_rates_equal_the_one_call_form_and_the_emulation(demo_dir):
 
 @needs_gcc
 @pytest.mark.slow
-@settings(
-    max_examples=6,
-    deadline=None,
-    suppress_health_check=[HealthCheck.too_slow, HealthCheck.filter_too_much, HealthCheck.function_scoped_fixture],
-)
+@RANDOM_MODELS
 @given(fw=random_firmware_strategy())
 def test_two_rates_equal_the_one_call_form_on_random_models(fw, tmp_path_factory):
     folder = write_files(tmp_path_factory.mktemp("rand_split"), render.render(fw))
