@@ -130,7 +130,7 @@ def _invoke(group: click.Group, args: list[str], debug: bool) -> None:
         click.echo("kinetab: aborted", err=True)
         sys.exit(130)
     except click.UsageError as exc:
-        where = f"kinetab {exc.ctx.info_name}" if exc.ctx and exc.ctx.info_name != "kinetab" else "kinetab"
+        where = exc.ctx.command_path if exc.ctx else "kinetab"  # "kinetab bench simulate", not "kinetab simulate"
         click.echo(f"{where}: {exc.format_message()}".replace("\n", " "), err=True)
         sys.exit(2)
     except click.ClickException as exc:
