@@ -16,6 +16,19 @@ def test_every_model_key_in_readme_reference():
             assert f"`{section}.{key}`" in readme, f"{section}.{key} missing from README's model reference"
 
 
+def test_documents_hold_each_section_once():
+    """Regression: a bad merge left README with 190 lines (six sections) in it twice."""
+    for path in (ROOT / "README.md", ROOT / "DEVELOPERS.md", *ROOT.glob("docs/*.md"), ROOT / "hil" / "PROTOCOL.md"):
+        lines = path.read_text(encoding="utf-8").splitlines()
+        fence, headings = False, []
+        for line in lines:
+            fence ^= line.startswith("```")
+            if not fence and line.startswith("#"):
+                headings.append(line)
+        twice = sorted({h for h in headings if headings.count(h) > 1})
+        assert not twice, f"{path.name}: {twice} appear more than once"
+
+
 def test_ci_runs_readme_test_command():
     readme = (ROOT / "README.md").read_text()
     ci = (ROOT / ".ci" / "run").read_text()
