@@ -14,6 +14,7 @@ from contextlib import contextmanager
 from dataclasses import dataclass, field
 from typing import Any
 
+import serial
 from kinetab.generator.errors import CheckFailed
 
 from . import framing, messages
@@ -42,7 +43,8 @@ class Counters:
 
 
 class Link:
-    """Frames and messages over an open pyserial port; bad frames are counted, never raised."""
+    """Frames and messages over an open pyserial port; bad frames are counted, never raised; a port
+    that fails (unplugged, the other side closed) is BenchFailed naming it."""
 
     def __init__(self, port: Any) -> None:
         self.port = port
@@ -52,19 +54,29 @@ class Link:
     def drops(self) -> framing.Drops:
         return self.reader.drops
 
+    @contextmanager
+    def _port_errors(self) -> Iterator[None]:
+        try:
+            yield
+        except (serial.SerialException, OSError) as exc:
+            name = getattr(self.port, "port", None) or "the port"
+            raise BenchFailed(f"{name}: the link was lost (unplugged, or the controller closed it): {exc}") from None
+
     def send(self, msg: messages.Message) -> None:
-        self.port.write(framing.frame(messages.encode(msg)))
+        self.send_many([msg])
 
     def send_many(self, msgs: list[messages.Message]) -> None:
         if msgs:
-            self.port.write(b"".join(framing.frame(messages.encode(m)) for m in msgs))
+            with self._port_errors():
+                self.port.write(b"".join(framing.frame(messages.encode(m)) for m in msgs))
 
     def receive(self, wait_s: float) -> list[messages.Message]:
         """Messages that arrived, waiting up to wait_s for the first bytes."""
-        self.port.timeout = wait_s
-        data = self.port.read(max(1, self.port.in_waiting))
-        if data and self.port.in_waiting:
-            data += self.port.read(self.port.in_waiting)
+        with self._port_errors():
+            self.port.timeout = wait_s
+            data = self.port.read(max(1, self.port.in_waiting))
+            if data and self.port.in_waiting:
+                data += self.port.read(self.port.in_waiting)
         out = []
         for payload in self.reader.feed(data):
             msg = messages.decode(payload)

@@ -109,8 +109,10 @@ def test_controller_killed_mid_run(tmp_path):
     time.sleep(3)
     sim.proc.kill()
     killed = time.monotonic()
-    run.communicate(timeout=30)
+    _, err = run.communicate(timeout=30)
     assert run.returncode == 1 and time.monotonic() - killed < 2.5
+    # regression: a port that reported readiness and then gave no data ended in a traceback
+    assert "Traceback" not in err and sim.port in err, err
     meta = json.loads(log.with_suffix(".json").read_text())
     assert 1000 < meta["samples"] == len(_log_rows(log)) < 20_000
 
@@ -120,7 +122,7 @@ def test_garbage_and_corruption_both_ways_are_counted_and_the_run_completes(tmp_
     sim = Sim(DEMO_PATH, "--corrupt-rate", "0.0003", "--garbage-every", "0.5")
     run = _run(sim.port, plan, log)
     _, err = run.communicate(timeout=60)
-    assert run.returncode == 0, err
+    assert run.returncode == 0, err + sim.finish()[1]  # the controller's side too, should it have halted
     meta = json.loads(log.with_suffix(".json").read_text())
     assert sum(meta["drops"].values()) > 0 and meta["exit_reason"] == "completed"
     assert meta["samples"] + meta["missing_samples"] == 10_000
