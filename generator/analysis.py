@@ -15,7 +15,7 @@ import numpy as np
 from . import fixedpoint as fx
 from . import tables as tb
 from .errors import CheckFailed
-from .program import Backdrive, Clamp, Lookup, Mul, Op, Program, Store, Sum, op_range, rounding_half
+from .program import Backdrive, Clamp, Lookup, Mul, Op, Program, Store, Sum, op_range, rounding_half, split_fits
 
 I32 = fx.Interval(fx.word_min(32), fx.word_max(32))
 I64 = fx.Interval(fx.word_min(64), fx.word_max(64))
@@ -26,10 +26,21 @@ class Proof:
     """Proven value range of every signal, and which products must be computed in 64 bits."""
 
     ranges: dict[str, fx.Interval]
-    wide: dict[str, bool]  # Mul / Backdrive dst -> product needs int64
-    split: dict[str, bool]  # Backdrive dst -> exact 32-bit two-part product instead
-    lookup_wide: dict[str, tuple[bool, ...]]  # table -> per piece: interpolation product needs int64
+    wide: dict[str, bool]  # Mul / Backdrive dst -> product does not fit 32 bits as it is
+    split: dict[str, str]  # Mul / Backdrive dst -> operand split for an exact 32-bit two-part product ("a", "b", "")
+    lookup_wide: dict[str, tuple[bool, ...]]  # table -> per piece: interpolation product does not fit 32 bits
+    lookup_split: dict[str, tuple[bool, ...]]  # table -> per piece: ... but fits in two exact 32-bit parts
     outputs: dict[tuple[str, int], fx.Interval]
+
+    def products64(self, program: Program) -> list[str]:
+        """The program's products that need a 64-bit multiply (no exact 32-bit form): signal names, and
+        `lookup <table>` for an interpolation."""
+        names = [name for name, w in self.wide.items() if w and not self.split[name]]
+        tables = {op.table for op in program.ops if isinstance(op, Lookup)}
+        for table in sorted(tables):
+            if any(w and not sp for w, sp in zip(self.lookup_wide[table], self.lookup_split[table])):
+                names.append(f"lookup {table}")
+        return names
 
 
 def _fail(program: Program, what: str, interval: fx.Interval) -> CheckFailed:
@@ -46,18 +57,30 @@ def _table_range(table: tb.Table) -> fx.Interval:
     return r.hull(-r) if table.spec.symmetry == "odd" else r
 
 
+def _interp_step(piece: tb.PieceData) -> int:
+    return int(np.max(np.abs(np.diff(piece.entries)))) if piece.segments > 0 else 0
+
+
 def _interp_wide(piece: tb.PieceData) -> bool:
     if piece.segments == 0 or piece.shift == 0:
         return False
-    step = int(np.max(np.abs(np.diff(piece.entries))))
+    step = _interp_step(piece)
     return step > fx.word_max(32) or step * piece.mask + (1 << (piece.shift - 1)) > fx.word_max(32)
+
+
+def _interp_split(piece: tb.PieceData) -> bool:
+    """A wide interpolation (e1 - e0) * f / 2^s computed exactly in two 32-bit parts (f < 2^s)."""
+    if not _interp_wide(piece):
+        return False
+    step = _interp_step(piece)
+    return step <= fx.word_max(32) and split_fits(fx.Interval(-step, step), fx.Interval(0, piece.mask), piece.shift)
 
 
 def prove(program: Program, tables: Mapping[str, tb.Table]) -> Proof:
     """Walk the ops with integer intervals; raise CheckFailed naming the signal that would overflow."""
     rng: dict[str, fx.Interval] = {}
     wide: dict[str, bool] = {}
-    split: dict[str, bool] = {}
+    split: dict[str, str] = {}
     outputs: dict[tuple[str, int], fx.Interval] = {}
     for op in program.ops:
         _check_op(program, op, rng, wide=wide, split=split)
@@ -70,7 +93,8 @@ def prove(program: Program, tables: Mapping[str, tb.Table]) -> Proof:
             raise _fail(program, f"signal {op.dst}", result)
         rng[op.dst] = result
     lookup_wide = {name: tuple(_interp_wide(p) for p in t.pieces) for name, t in tables.items()}
-    return Proof(rng, wide, split, lookup_wide, outputs)
+    lookup_split = {name: tuple(_interp_split(p) for p in t.pieces) for name, t in tables.items()}
+    return Proof(rng, wide, split, lookup_wide, lookup_split, outputs)
 
 
 def _with_half(prod: fx.Interval, shift: int) -> fx.Interval:
@@ -79,7 +103,7 @@ def _with_half(prod: fx.Interval, shift: int) -> fx.Interval:
 
 
 def _check_op(
-    program: Program, op: Op, rng: dict[str, fx.Interval], *, wide: dict[str, bool], split: dict[str, bool]
+    program: Program, op: Op, rng: dict[str, fx.Interval], *, wide: dict[str, bool], split: dict[str, str]
 ) -> None:
     """What each op needs beyond its result range: which products need 64 bits, which partial sums and
     roundings would overflow (CheckFailed)."""
@@ -92,6 +116,7 @@ def _check_op(
             if not with_half.fits(64):
                 raise _fail(program, f"product {op.dst}", with_half)
             wide[op.dst] = not with_half.fits(32)
+            split[op.dst] = _split_operand(rng[op.a], rb, op.shift) if wide[op.dst] else ""
         case Sum():
             total = fx.Interval(0, 0)
             for sign, name in op.terms:
@@ -99,8 +124,9 @@ def _check_op(
                 if not total.fits(32):
                     raise _fail(program, f"partial sum of {op.dst}", total)
         case Backdrive():
-            wide[op.dst] = not _with_half(rng[op.src] * fx.Interval(op.k, op.k), op.shift).fits(32)
-            split[op.dst] = wide[op.dst] and _split_fits(rng[op.src], op.k, op.shift)
+            k = fx.Interval(op.k, op.k)
+            wide[op.dst] = not _with_half(rng[op.src] * k, op.shift).fits(32)
+            split[op.dst] = "a" if wide[op.dst] and split_fits(rng[op.src], k, op.shift) else ""
         case Store():
             with_half = _with_half(rng[op.src], op.shift)
             if not with_half.fits(32):
@@ -109,12 +135,11 @@ def _check_op(
             assert_never(op)
 
 
-def _split_fits(src: fx.Interval, k: int, shift: int) -> bool:
-    """(x >> s) * k + (((x & (2^s - 1)) * k + half) >> s) equals round(x * k / 2^s) exactly; usable when
-    both partial products fit 32 bits (saves a 64-bit multiply, a library call on Cortex-M0+)."""
-    high = fx.Interval(src.lo >> shift, src.hi >> shift) * fx.Interval(k, k)
-    low = ((1 << shift) - 1) * abs(k) + (1 << (shift - 1))
-    return high.fits(32) and low <= fx.word_max(32) and k >= 0
+def _split_operand(ra: fx.Interval, rb: fx.Interval, shift: int) -> str:
+    """Which operand of a too-wide product to split for the exact two-part form ("" when neither)."""
+    if split_fits(ra, rb, shift):
+        return "a"
+    return "b" if split_fits(rb, ra, shift) else ""
 
 
 TableErrors = Mapping[str, Any]

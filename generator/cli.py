@@ -265,7 +265,8 @@ def build(model_path: str, out_dir: str, vectors_path: str | None, allow: bool) 
         click.echo(csv, nl=False)
     click.echo(
         f"wrote {', '.join(str(p) for p in files)}: tables {fw.total_bytes} bytes, proven error "
-        f"{fw.ff_bound_a * 1000:.3f} mA of {v.firmware.current_budget_a * 1000:.3f} mA budget",
+        f"{fw.ff_bound_a * 1000:.3f} mA of {v.firmware.current_budget_a * 1000:.3f} mA budget; "
+        f"{synthesis.products_note(fw)}",
         err=vectors_path == "-",
     )
 

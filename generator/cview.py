@@ -105,7 +105,8 @@ def _piece_view(fw: Firmware, name: str, prefix: str, k: int) -> dict[str, Any]:
         "shift": data.shift,
         "mask": f"0x{data.mask:X}",
         "half": rounding_half(data.shift),
-        "wide": fw.ff_proof.lookup_wide[name][k],
+        "wide": fw.ff_proof.lookup_wide[name][k] and not fw.ff_proof.lookup_split[name][k],
+        "split": fw.ff_proof.lookup_split[name][k],
         "constant": data.segments == 0,
         "value": int(data.entries[0]),
         "entries": rows([int(e) for e in data.entries]),
@@ -216,7 +217,8 @@ def _op_view(op: Op, proof: Proof, clamp_names: list[str], prefix: str) -> dict[
                 "scale": 1 << max(-op.shift, 0),
                 "up": op.shift < 0,
                 "half": rounding_half(op.shift),
-                "wide": proof.wide[op.dst],
+                "wide": proof.wide[op.dst] and not proof.split[op.dst],
+                **_split_view(op, proof.split[op.dst]),
             }
         case Sum():
             terms = [("-" if s < 0 else ("" if i == 0 else "+"), n) for i, (s, n) in enumerate(op.terms)]
@@ -231,7 +233,7 @@ def _op_view(op: Op, proof: Proof, clamp_names: list[str], prefix: str) -> dict[
                 "shift": op.shift,
                 "half": rounding_half(op.shift),
                 "wide": proof.wide[op.dst],
-                "split": proof.split[op.dst],
+                "split": bool(proof.split[op.dst]),
                 "mask": f"0x{(1 << op.shift) - 1:X}",
                 "k_exact": num(op.k_exact),
             }
@@ -245,6 +247,14 @@ def _op_view(op: Op, proof: Proof, clamp_names: list[str], prefix: str) -> dict[
             }
         case _:
             assert_never(op)
+
+
+def _split_view(op: Mul, operand: str) -> dict[str, Any]:
+    """The exact two-part form of a wide product: `hi` split at the shift, `by` the other operand."""
+    if not operand:
+        return {"split": False}
+    hi, by = (op.a, str(op.b)) if operand == "a" else (str(op.b), op.a)
+    return {"split": True, "hi": hi, "by": by, "mask": f"0x{(1 << op.shift) - 1:X}"}
 
 
 GroupKey = tuple[str, bool, int | None]

@@ -14,7 +14,7 @@ from typing import Any
 from . import fixedpoint as fx
 from .accuracy import Accuracy
 from .errors import UserError
-from .synthesis import Firmware
+from .synthesis import Firmware, products_note
 
 
 def _umask() -> int:
@@ -149,6 +149,7 @@ def report(fw: Firmware, acc: Accuracy, checks: list[Check], problems: list[str]
         "envelope_problems": problems,
         "forward_mps2": {"bound": fw.fwd_bound_mps2, "goal": fw.fwd_budget_mps2},
         "total_bytes": fw.total_bytes,
+        "multiplies_64bit": {"products": fw.products64(), "note": products_note(fw)},
         "tables": [
             {
                 "name": n,

@@ -204,6 +204,7 @@ class Design:
     guard_bits: int
     accel_guard_bits: int
     amps_per_acc: float
+    exact: bool = False  # products keep every operand bit (see design)
 
 
 def limits_of(v: Vehicle) -> Limits:
@@ -226,8 +227,8 @@ def limits_of(v: Vehicle) -> Limits:
 class _Builder:
     """Appends ops and keeps a conservative integer range per signal (for pre-shift decisions)."""
 
-    def __init__(self, program: Program, specs: dict[str, tb.TableSpec], bits: int) -> None:
-        self.p, self.specs, self.bits = program, specs, bits
+    def __init__(self, program: Program, specs: dict[str, tb.TableSpec], bits: int, *, exact: bool) -> None:
+        self.p, self.specs, self.bits, self.exact = program, specs, bits, exact
         self.rng: dict[str, fx.Interval] = {}
 
     def _add(self, op: Op) -> None:
@@ -252,24 +253,13 @@ class _Builder:
         return dst
 
     def mul(self, dst: str, a: str, b: str | int, shift: int) -> str:
-        """Product with rounding; with int16 tables a too-wide product pre-shifts one operand.
-
-        The operand with the larger range is shifted: the added rounding error is proportional to the
-        other operand's size, so this keeps it smallest (and the error bound accounts for it).
-        """
-        rb = self.rng[b] if isinstance(b, str) else fx.Interval(b, b)
-        prod = self.rng[a] * rb
-        if isinstance(b, str) and self.bits == 16 and shift > 0 and not _fits32(prod, shift):
-            big_a = self.rng[a].magnitude() > rb.magnitude()
-            for pre in range(1, shift + 1):
-                moved = (self.rng[a].shift_round(pre) * rb) if big_a else (self.rng[a] * rb.shift_round(pre))
-                if _fits32(moved, shift - pre):
-                    if big_a:
-                        a = self._shifted(a, pre)
-                    else:
-                        b = self._shifted(b, pre)
-                    shift -= pre
-                    break
+        """Product with rounding. Unless the design is exact, a product too wide for 32 bits first
+        rounds its operands down (pre-shift), balanced to add the least error (the bound counts it)."""
+        if isinstance(b, str) and not self.exact and shift > 0:
+            pa, pb = _preshift(self.rng[a], self.rng[b], shift)
+            a = self._shifted(a, pa) if pa else a
+            b = self._shifted(b, pb) if pb else b
+            shift -= pa + pb
         self._add(Mul(dst, a, b, shift))
         return dst
 
@@ -296,9 +286,14 @@ class _Builder:
         return dst
 
     def backdrive(self, dst: str, src: str, speed: str, k_exact: float) -> str:
-        kbits = 14 if self.bits == 16 else 30
+        """k_exact in fixed point: 14 fraction bits with int16 tables; with int32, 30 in an exact design,
+        else the most that keeps the product in 32 bits (directly or in two exact parts)."""
+        top = 14 if self.bits == 16 else 30
         if k_exact > 1:
-            kbits -= math.ceil(math.log2(k_exact))
+            top -= math.ceil(math.log2(k_exact))
+        kbits = top
+        while not (self.bits == 16 or self.exact) and kbits > 1 and not _k_fits(self.rng[src], k_exact, kbits):
+            kbits -= 1
         k = int(math.floor(k_exact * 2.0**kbits + 0.5))
         self._add(Backdrive(dst, src, speed, k, kbits, k_exact))
         return dst
@@ -310,6 +305,41 @@ class _Builder:
 def _fits32(prod: fx.Interval, shift: int) -> bool:
     half = rounding_half(shift)
     return prod.lo >= -INT32_MAX - 1 and prod.hi + half <= INT32_MAX
+
+
+def split_fits(x: fx.Interval, y: fx.Interval, shift: int) -> bool:
+    """round(x * y / 2^s) = (x >> s) * y + (((x & (2^s - 1)) * y + half) >> s) exactly (x = (x >> s) 2^s +
+    its low bits); usable when both partial products fit 32 bits: no 64-bit multiply, which is a library
+    call on Cortex-M0+."""
+    if shift <= 0:
+        return False
+    high = fx.Interval(x.lo >> shift, x.hi >> shift) * y
+    low = fx.Interval(0, (1 << shift) - 1) * y
+    return high.fits(32) and _fits32(low, shift)
+
+
+def _k_fits(src: fx.Interval, k_exact: float, kbits: int) -> bool:
+    """Whether src * k (k_exact with kbits fraction bits) fits 32 bits directly or split at kbits."""
+    k = fx.Interval(*(2 * [int(math.floor(k_exact * 2.0**kbits + 0.5))]))
+    return _fits32(src * k, kbits) or split_fits(src, k, kbits)
+
+
+def _preshift(ra: fx.Interval, rb: fx.Interval, shift: int) -> tuple[int, int]:
+    """Bits (pa, pb) to round a and b down by, pa + pb <= shift, so that the product fits 32 bits,
+    choosing the pair that adds the least error (|b| 2^(pa-1) + |a| 2^(pb-1)); (0, 0) when the product
+    fits as it is or no pair makes it fit (the proof then picks an exact two-part or 64-bit form)."""
+    if _fits32(ra * rb, shift):
+        return 0, 0
+    best: tuple[int, int, int] | None = None
+    for pa in range(shift + 1):
+        sa = ra.shift_round(pa)
+        for pb in range(shift - pa + 1):
+            if _fits32(sa * rb.shift_round(pb), shift - pa - pb):
+                cost = rb.magnitude() * rounding_half(pa) + ra.magnitude() * rounding_half(pb)
+                if best is None or cost < best[0]:
+                    best = (cost, pa, pb)
+                break  # rounding b further only adds error
+    return (best[1], best[2]) if best is not None else (0, 0)
 
 
 def _speed_pieces(v: Vehicle, lim: Limits, scale: float) -> tuple[tb.Piece, tb.Piece, tb.Piece, tb.Piece]:
@@ -520,9 +550,9 @@ def _passive(bd: _Builder, side: str, sign: int, other: str) -> str:
     )
 
 
-def _feedforward(v: Vehicle, specs: dict[str, tb.TableSpec], lim: Limits, guard: int) -> Program:
+def _feedforward(v: Vehicle, specs: dict[str, tb.TableSpec], lim: Limits, *, guard: int, exact: bool) -> Program:
     prog = Program(interface.FEEDFORWARD)
-    bd = _Builder(prog, specs, specs["m11"].bits)
+    bd = _Builder(prog, specs, specs["m11"].bits, exact=exact)
     _common(bd, lim, prog.call, "accel")
     bd.lookup("t_m11", "m11", "payload")
     bd.lookup("t_m12", "m12", "payload")
@@ -538,9 +568,11 @@ def _feedforward(v: Vehicle, specs: dict[str, tb.TableSpec], lim: Limits, guard:
     return prog
 
 
-def _forward(v: Vehicle, specs: dict[str, tb.TableSpec], lim: Limits, *, guard: int, aguard: int) -> Program:
+def _forward(
+    v: Vehicle, specs: dict[str, tb.TableSpec], lim: Limits, *, guard: int, aguard: int, exact: bool
+) -> Program:
     prog = Program(interface.FORWARD)
-    bd = _Builder(prog, specs, specs["m11"].bits)
+    bd = _Builder(prog, specs, specs["m11"].bits, exact=exact)
     _common(bd, lim, prog.call, "current")
     bd.lookup("t_minv11", "minv11", "payload")
     bd.lookup("t_minv12", "minv12", "payload")
@@ -586,8 +618,11 @@ def _peak_current_steps(v: Vehicle, lim: Limits) -> float:
     )
 
 
-def design(v: Vehicle) -> Design:
-    """Scales, table specs and both programs for a validated vehicle (sizes are chosen later)."""
+def design(v: Vehicle, *, exact: bool = False) -> Design:
+    """Scales, table specs and both programs for a validated vehicle (sizes are chosen later).
+
+    exact: products too wide for 32 bits keep every operand bit (an exact two-part product, else
+    64 bits) instead of rounding their operands first; for budgets the rounded design cannot meet."""
     lim = limits_of(v)
     fw = v.firmware
     peak = _peak_current_steps(v, lim)
@@ -599,10 +634,11 @@ def design(v: Vehicle) -> Design:
     return Design(
         v,
         specs,
-        _feedforward(v, specs, lim, guard),
-        _forward(v, specs, lim, guard=guard, aguard=aguard),
+        _feedforward(v, specs, lim, guard=guard, exact=exact),
+        _forward(v, specs, lim, guard=guard, aguard=aguard, exact=exact),
         lim,
         guard,
         aguard,
         acc_amps,
+        exact,
     )

@@ -32,6 +32,14 @@ class Firmware:
     fwd_bound_mps2: float
     fwd_budget_mps2: float
     fingerprint: int
+    rounded_best_a: float | None = None  # exact designs: the best bound with rounded operands, A
+
+    def products64(self) -> list[str]:
+        """Products of either function that need a 64-bit multiply (a library call on Cortex-M0+); a
+        table's interpolation is named once, a forward-dynamics signal with its function."""
+        ff = self.ff_proof.products64(self.design.feedforward)
+        fwd = self.fwd_proof.products64(self.design.forward)
+        return ff + [n if n.startswith("lookup ") else f"forward {n}" for n in fwd if n not in ff]
 
     @property
     def total_bytes(self) -> int:
@@ -65,9 +73,24 @@ def forward_budget(v: Vehicle) -> float:
 
 def synthesise(v: Vehicle) -> Firmware:
     """Design the programs, size every table to the budget, prove ranges; CheckFailed when impossible.
-    A vehicle that tips over its envelope is refused here too (ModelError), however it was built."""
+    A vehicle that tips over its envelope is refused here too (ModelError), however it was built.
+
+    Products too wide for 32 bits first round their operands (no 64-bit multiply); only when that
+    design cannot meet the budget do they keep every bit (exact two-part products, else 64 bits)."""
     stability.check(v)
-    des = program.design(v)
+    rounded = program.design(v)
+    exact = program.design(v, exact=True)
+    if exact.feedforward.ops == rounded.feedforward.ops and exact.forward.ops == rounded.forward.ops:
+        return _synthesise(v, rounded)
+    try:
+        return _synthesise(v, rounded, explain=False)
+    except CheckFailed:
+        fw = _synthesise(v, exact)
+    return dataclasses.replace(fw, rounded_best_a=best_bound_a(v, exact=False))
+
+
+def _synthesise(v: Vehicle, des: program.Design, *, explain: bool = True) -> Firmware:
+    """Size and prove one design; `explain` adds the levers to a budget failure (a search, not free)."""
     fw = v.firmware
     ff_names = [n for n in des.specs if not n.startswith("minv")]
     budget_steps = fw.current_budget_a / fw.current_lsb_a
@@ -75,7 +98,9 @@ def synthesise(v: Vehicle) -> Firmware:
     try:
         ff = sizing.size(des.feedforward, des.specs, ff_names, budget_steps, what=f"{fw.current_budget_a:g} A")
     except CheckFailed as exc:
-        raise CheckFailed(f"{where}: {exc} of {fw.current_lsb_a:g} A (current_lsb); {levers(v)}") from None
+        raise CheckFailed(
+            f"{where}: {exc} of {fw.current_lsb_a:g} A (current_lsb)" + (f"; {levers(v)}" if explain else "")
+        ) from None
     fwd_budget = forward_budget(v)
     try:
         fwd = sizing.size(
@@ -105,10 +130,25 @@ def synthesise(v: Vehicle) -> Firmware:
     )
 
 
-def best_bound_a(v: Vehicle) -> float:
+def products_note(fw: Firmware) -> str:
+    """How many products need a 64-bit multiply, and why (for the build line and the report)."""
+    names = fw.products64()
+    if not names:
+        return "no 64-bit multiplies"
+    if fw.rounded_best_a is not None:
+        why = (
+            f"the budget needs full-precision products (with rounded operands the best bound is "
+            f"{fw.rounded_best_a * 1000:.3f} mA)"
+        )
+    else:
+        why = "no exact 32-bit form exists for them"
+    return f"{len(names)} 64-bit multiplies ({', '.join(names)}): {why}"
+
+
+def best_bound_a(v: Vehicle, *, exact: bool = True) -> float:
     """The smallest proven feed-forward bound any table sizes reach for this vehicle, A (every piece at
-    its most accurate candidate): what a budget must allow at least."""
-    des = program.design(v)
+    its most accurate candidate, products exact unless told): what a budget must allow at least."""
+    des = program.design(v, exact=exact)
     names = [n for n in des.specs if not n.startswith("minv")]
     units = sizing.units_for(des.specs, names)
     achievable, _ = sizing.limiting_table(analysis.compile_bound(des.feedforward, des.specs), units, {})

@@ -85,8 +85,9 @@ def test_impossible_budget_exits_one_naming_the_budget(tmp_path, capsys):
     out = tmp_path / "gen"
     code, _, err = run(["build", str(path), "-o", str(out)], capsys)
     assert code == 1 and "firmware.current_budget" in err and "0.0004 A" in err and "achievable" in err
-    # regression: the message named no way out; now the levers, each with the bound it gives
-    assert "levers: a budget of at least 0.002 A" in err and "firmware.current_lsb = 0.00025 A (best bound" in err
+    # regression: the message named no way out; now the levers, each with the bound it gives (the
+    # smallest budget is that of full-precision products: 1.95 mA, against 2.00 mA with rounded operands)
+    assert "levers: a budget of at least 0.00195 A" in err and "firmware.current_lsb = 0.00025 A (best bound" in err
     assert 'firmware.word = "int32" (best bound' in err
     assert not out.exists()
     rep = tmp_path / "r.json"
