@@ -230,6 +230,7 @@ class _Builder:
     def __init__(self, program: Program, specs: dict[str, tb.TableSpec], bits: int, *, exact: bool) -> None:
         self.p, self.specs, self.bits, self.exact = program, specs, bits, exact
         self.rng: dict[str, fx.Interval] = {}
+        self.cor_shift = 0  # the Coriolis product's shift once its shared prefactor is made
 
     def _add(self, op: Op) -> None:
         """Append an op and record its result's range by the one range rule (op_range)."""
@@ -527,15 +528,18 @@ def _common(bd: _Builder, lim: Limits, call: interface.Call, pair: str) -> None:
     bd.mul("r_up", "t_roll_level", "cos_cos", s["roll_level"].frac_bits + s["cos_roll"].frac_bits)
     bd.mul("r_down", "t_roll_slope", "t_sin_pitch", s["roll_slope"].frac_bits + s["sin_pitch"].frac_bits)
     bd.sum("r_level", (1, "r_up"), (-1, "r_down"))
+    bd.sum("grav_r", (1, "g_pitch"), (1, "g_roll"))  # each wheel's gravity once, in the slow part
+    bd.sum("grav_l", (1, "g_pitch"), (-1, "g_roll"))
     bd.sum("d_speed", (1, "speed_r"), (-1, "speed_l"))
+    _, dropped = bd.product("cor_pre", "t_cor", "d_speed")  # shared by both wheels' Coriolis terms
+    bd.cor_shift = s["cor"].frac_bits - dropped
 
 
 def _passive(bd: _Builder, side: str, sign: int, other: str) -> str:
     """Coriolis + friction + rolling + gravity at one wheel, accumulator steps."""
     s = bd.specs
     u = f"speed_{side}"
-    turn, dropped = bd.product(f"turn_{side}", "d_speed", f"speed_{other}")
-    bd.mul(f"cor_{side}", "t_cor", turn, s["cor"].frac_bits - dropped)
+    bd.mul(f"cor_{side}", "cor_pre", f"speed_{other}", bd.cor_shift)
     bd.lookup(f"t_fric_{side}", "friction", u)  # adjacent lookups of one input share abs and split in C
     bd.lookup(f"t_shape_{side}", "shape", u)
     bd.mul(f"fric_{side}", f"t_fric_{side}", 1, s["friction"].frac_bits)
@@ -545,8 +549,7 @@ def _passive(bd: _Builder, side: str, sign: int, other: str) -> str:
         (sign, f"cor_{side}"),
         (1, f"fric_{side}"),
         (1, f"roll_{side}"),
-        (1, "g_pitch"),
-        (sign, "g_roll"),
+        (1, f"grav_{side}"),
     )
 
 

@@ -753,7 +753,10 @@ void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out)
     const int32_t r_up = (t_roll_level * cos_cos + 64) >> 7;
     const int32_t r_down = (t_roll_slope * t_sin_pitch + 1024) >> 11;
     const int32_t r_level = r_up - r_down;
+    const int32_t grav_r = g_pitch + g_roll;
+    const int32_t grav_l = g_pitch - g_roll;
     const int32_t d_speed = speed_r - speed_l;
+    const int32_t cor_pre = t_cor * d_speed;
     int32_t t_m11;
     int32_t t_m12;
     {
@@ -770,9 +773,8 @@ void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out)
             t_m12 = larkspur_tab_m12_0[0] + (((larkspur_tab_m12_0[1] - larkspur_tab_m12_0[0]) * d + 512) >> 10);
         }
     }
-    const int32_t turn_r = d_speed * speed_l;
-    const int32_t turn_r_s6 = (turn_r + 32) >> 6;
-    const int32_t cor_r = (t_cor * turn_r_s6 + 32) >> 6;
+    const int32_t cor_pre_s6 = (cor_pre + 32) >> 6;
+    const int32_t cor_r = (cor_pre_s6 * speed_l + 32) >> 6;
     int32_t t_fric_r;
     int32_t t_shape_r;
     {
@@ -811,7 +813,7 @@ void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out)
     const int32_t fric_r = t_fric_r * 128;
     const int32_t r_level_s5 = (r_level + 16) >> 5;
     const int32_t roll_r = (r_level_s5 * t_shape_r + 128) >> 8;
-    const int32_t passive_r = cor_r + fric_r + roll_r + g_pitch + g_roll;
+    const int32_t passive_r = cor_r + fric_r + roll_r + grav_r;
     const int32_t in_self_r = t_m11 * accel_r;
     const int32_t in_other_r = (t_m12 * accel_l + 16) >> 5;
     const int32_t total_r = in_self_r + in_other_r + passive_r;
@@ -822,9 +824,7 @@ void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out)
         motor_r = (total_r >> 14) * 11141 + (((total_r & 0x3FFF) * 11141 + 8192) >> 14);
     }
     out->current[0] = (motor_r + 2048) >> 12;
-    const int32_t turn_l = d_speed * speed_r;
-    const int32_t turn_l_s6 = (turn_l + 32) >> 6;
-    const int32_t cor_l = (t_cor * turn_l_s6 + 32) >> 6;
+    const int32_t cor_l = (cor_pre_s6 * speed_r + 32) >> 6;
     int32_t t_fric_l;
     int32_t t_shape_l;
     {
@@ -862,7 +862,7 @@ void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out)
     }
     const int32_t fric_l = t_fric_l * 128;
     const int32_t roll_l = (r_level_s5 * t_shape_l + 128) >> 8;
-    const int32_t passive_l = -cor_l + fric_l + roll_l + g_pitch - g_roll;
+    const int32_t passive_l = -cor_l + fric_l + roll_l + grav_l;
     const int32_t in_self_l = t_m11 * accel_l;
     const int32_t in_other_l = (t_m12 * accel_r + 16) >> 5;
     const int32_t total_l = in_self_l + in_other_l + passive_l;
@@ -979,6 +979,8 @@ void larkspur_ff_slow(const larkspur_ff_in_t *in, larkspur_ff_state_t *state)
     const int32_t r_up = (t_roll_level * cos_cos + 64) >> 7;
     const int32_t r_down = (t_roll_slope * t_sin_pitch + 1024) >> 11;
     const int32_t r_level = r_up - r_down;
+    const int32_t grav_r = g_pitch + g_roll;
+    const int32_t grav_l = g_pitch - g_roll;
     int32_t t_m11;
     int32_t t_m12;
     {
@@ -997,8 +999,8 @@ void larkspur_ff_slow(const larkspur_ff_in_t *in, larkspur_ff_state_t *state)
     }
     const int32_t r_level_s5 = (r_level + 16) >> 5;
     state->t_cor = t_cor;
-    state->g_pitch = g_pitch;
-    state->g_roll = g_roll;
+    state->grav_r = grav_r;
+    state->grav_l = grav_l;
     state->t_m11 = t_m11;
     state->t_m12 = t_m12;
     state->r_level_s5 = r_level_s5;
@@ -1008,8 +1010,8 @@ void larkspur_ff_fast(const larkspur_ff_in_t *in, const larkspur_ff_state_t *sta
 {
     uint32_t clamped = 0u;
     const int32_t t_cor = state->t_cor;
-    const int32_t g_pitch = state->g_pitch;
-    const int32_t g_roll = state->g_roll;
+    const int32_t grav_r = state->grav_r;
+    const int32_t grav_l = state->grav_l;
     const int32_t t_m11 = state->t_m11;
     const int32_t t_m12 = state->t_m12;
     const int32_t r_level_s5 = state->r_level_s5;
@@ -1035,9 +1037,9 @@ void larkspur_ff_fast(const larkspur_ff_in_t *in, const larkspur_ff_state_t *sta
     }
     out->clamped = clamped | state->clamped; /* every input is clamped by now */
     const int32_t d_speed = speed_r - speed_l;
-    const int32_t turn_r = d_speed * speed_l;
-    const int32_t turn_r_s6 = (turn_r + 32) >> 6;
-    const int32_t cor_r = (t_cor * turn_r_s6 + 32) >> 6;
+    const int32_t cor_pre = t_cor * d_speed;
+    const int32_t cor_pre_s6 = (cor_pre + 32) >> 6;
+    const int32_t cor_r = (cor_pre_s6 * speed_l + 32) >> 6;
     int32_t t_fric_r;
     int32_t t_shape_r;
     {
@@ -1075,7 +1077,7 @@ void larkspur_ff_fast(const larkspur_ff_in_t *in, const larkspur_ff_state_t *sta
     }
     const int32_t fric_r = t_fric_r * 128;
     const int32_t roll_r = (r_level_s5 * t_shape_r + 128) >> 8;
-    const int32_t passive_r = cor_r + fric_r + roll_r + g_pitch + g_roll;
+    const int32_t passive_r = cor_r + fric_r + roll_r + grav_r;
     const int32_t in_self_r = t_m11 * accel_r;
     const int32_t in_other_r = (t_m12 * accel_l + 16) >> 5;
     const int32_t total_r = in_self_r + in_other_r + passive_r;
@@ -1086,9 +1088,7 @@ void larkspur_ff_fast(const larkspur_ff_in_t *in, const larkspur_ff_state_t *sta
         motor_r = (total_r >> 14) * 11141 + (((total_r & 0x3FFF) * 11141 + 8192) >> 14);
     }
     out->current[0] = (motor_r + 2048) >> 12;
-    const int32_t turn_l = d_speed * speed_r;
-    const int32_t turn_l_s6 = (turn_l + 32) >> 6;
-    const int32_t cor_l = (t_cor * turn_l_s6 + 32) >> 6;
+    const int32_t cor_l = (cor_pre_s6 * speed_r + 32) >> 6;
     int32_t t_fric_l;
     int32_t t_shape_l;
     {
@@ -1126,7 +1126,7 @@ void larkspur_ff_fast(const larkspur_ff_in_t *in, const larkspur_ff_state_t *sta
     }
     const int32_t fric_l = t_fric_l * 128;
     const int32_t roll_l = (r_level_s5 * t_shape_l + 128) >> 8;
-    const int32_t passive_l = -cor_l + fric_l + roll_l + g_pitch - g_roll;
+    const int32_t passive_l = -cor_l + fric_l + roll_l + grav_l;
     const int32_t in_self_l = t_m11 * accel_l;
     const int32_t in_other_l = (t_m12 * accel_r + 16) >> 5;
     const int32_t total_l = in_self_l + in_other_l + passive_l;
@@ -1263,7 +1263,10 @@ void larkspur_forward(const larkspur_fwd_in_t *in, larkspur_fwd_out_t *out)
     const int32_t r_up = (t_roll_level * cos_cos + 64) >> 7;
     const int32_t r_down = (t_roll_slope * t_sin_pitch + 1024) >> 11;
     const int32_t r_level = r_up - r_down;
+    const int32_t grav_r = g_pitch + g_roll;
+    const int32_t grav_l = g_pitch - g_roll;
     const int32_t d_speed = speed_r - speed_l;
+    const int32_t cor_pre = t_cor * d_speed;
     int32_t t_minv11;
     int32_t t_minv12;
     {
@@ -1284,9 +1287,8 @@ void larkspur_forward(const larkspur_fwd_in_t *in, larkspur_fwd_out_t *out)
             t_minv12 = lo + (((larkspur_tab_minv12_0[i + 1] - lo) * f + 16) >> 5);
         }
     }
-    const int32_t turn_r = d_speed * speed_l;
-    const int32_t turn_r_s6 = (turn_r + 32) >> 6;
-    const int32_t cor_r = (t_cor * turn_r_s6 + 32) >> 6;
+    const int32_t cor_pre_s6 = (cor_pre + 32) >> 6;
+    const int32_t cor_r = (cor_pre_s6 * speed_l + 32) >> 6;
     int32_t t_fric_r;
     int32_t t_shape_r;
     {
@@ -1325,7 +1327,7 @@ void larkspur_forward(const larkspur_fwd_in_t *in, larkspur_fwd_out_t *out)
     const int32_t fric_r = t_fric_r * 128;
     const int32_t r_level_s5 = (r_level + 16) >> 5;
     const int32_t roll_r = (r_level_s5 * t_shape_r + 128) >> 8;
-    const int32_t passive_r = cor_r + fric_r + roll_r + g_pitch + g_roll;
+    const int32_t passive_r = cor_r + fric_r + roll_r + grav_r;
     const int32_t cur_acc_r = cur_r * 4096;
     int32_t effort_r = cur_acc_r;
     if (speed_r != 0 && (cur_acc_r ^ speed_r) < 0) { /* moving, and force against the motion */
@@ -1334,9 +1336,7 @@ void larkspur_forward(const larkspur_fwd_in_t *in, larkspur_fwd_out_t *out)
         effort_r = (cur_acc_r >> 13) * 12047 + (((cur_acc_r & 0x1FFF) * 12047 + 4096) >> 13);
     }
     const int32_t net_r = effort_r - passive_r;
-    const int32_t turn_l = d_speed * speed_r;
-    const int32_t turn_l_s6 = (turn_l + 32) >> 6;
-    const int32_t cor_l = (t_cor * turn_l_s6 + 32) >> 6;
+    const int32_t cor_l = (cor_pre_s6 * speed_r + 32) >> 6;
     int32_t t_fric_l;
     int32_t t_shape_l;
     {
@@ -1374,7 +1374,7 @@ void larkspur_forward(const larkspur_fwd_in_t *in, larkspur_fwd_out_t *out)
     }
     const int32_t fric_l = t_fric_l * 128;
     const int32_t roll_l = (r_level_s5 * t_shape_l + 128) >> 8;
-    const int32_t passive_l = -cor_l + fric_l + roll_l + g_pitch - g_roll;
+    const int32_t passive_l = -cor_l + fric_l + roll_l + grav_l;
     const int32_t cur_acc_l = cur_l * 4096;
     int32_t effort_l = cur_acc_l;
     if (speed_l != 0 && (cur_acc_l ^ speed_l) < 0) { /* moving, and force against the motion */

@@ -34,8 +34,8 @@ extern "C" {
 #define LARKSPUR_PAYLOAD_MAX 600 /* 60 kg */
 #define LARKSPUR_CURRENT_MAX 14000 /* 14 A */
 
-/* Proven worst-case error of larkspur_feedforward against the floating-point model: 0.0194751 A (budget 0.02 A).
- * Proven worst-case error of larkspur_forward: 0.024328 m/s^2 (goal 0.0330371 m/s^2).
+/* Proven worst-case error of larkspur_feedforward against the floating-point model: 0.0194432 A (budget 0.02 A).
+ * Proven worst-case error of larkspur_forward: 0.0243101 m/s^2 (goal 0.0330371 m/s^2).
  * Table storage: 332 bytes. */
 
 enum { LARKSPUR_RIGHT = 0, LARKSPUR_LEFT = 1 };
@@ -95,8 +95,8 @@ void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out);
  * tick (reads only in->speed, in->accel). Each member's comment is its proven range. */
 typedef struct {
     int32_t t_cor; /* -16165 .. -3818 */
-    int32_t g_pitch; /* -30421141 .. 30421141 */
-    int32_t g_roll; /* -4158492 .. 4158492 */
+    int32_t grav_r; /* -34579633 .. 34579633 */
+    int32_t grav_l; /* -34579633 .. 34579633 */
     int32_t t_m11; /* 8136 .. 25760 */
     int32_t t_m12; /* -26966 .. -23751 */
     int32_t r_level_s5; /* 19411 .. 103925 */
