@@ -256,6 +256,8 @@ def build(model_path: str, out_dir: str, vectors_path: str | None, allow: bool) 
     v = model.load(model_path)
     _envelope_gate(v, allow)
     fw = synthesis.synthesise(v)
+    if fw.over_cap:
+        click.echo(f"warning: {v.source}: {synthesis.sizing_note(fw)}", err=True)
     files = {folder / name: text for name, text in render.render(fw).items()}
     csv = vectors.to_csv(fw, vectors.feedforward_table(fw)) if vectors_path else None
     if csv is not None and vectors_path != "-":
@@ -266,7 +268,7 @@ def build(model_path: str, out_dir: str, vectors_path: str | None, allow: bool) 
     click.echo(
         f"wrote {', '.join(str(p) for p in files)}: tables {fw.total_bytes} bytes, proven error "
         f"{fw.ff_bound_a * 1000:.3f} mA of {v.firmware.current_budget_a * 1000:.3f} mA budget; "
-        f"{synthesis.products_note(fw)}",
+        f"{synthesis.sizing_note(fw)}; {synthesis.products_note(fw)}",
         err=vectors_path == "-",
     )
 

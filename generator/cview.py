@@ -117,6 +117,8 @@ def _piece_view(fw: Firmware, name: str, prefix: str, k: int) -> dict[str, Any]:
         ),
         "layout": "constant"
         if data.segments == 0
+        else "one entry per input step (no interpolation)"
+        if data.shift == 0
         else f"{data.segments} segment{plural} of {width} steps, breakpoints at x0 + k*{width}",
         "error": f"{num(err.total * spec.si_scale)} {spec.si_unit}"
         + (" (every input checked)" if err.exhaustive else " (dense sample plus slope margin)"),

@@ -189,6 +189,21 @@ SCHEMA: dict[str, dict[str, Key]] = {
             L.CURRENT, "current_budget_a", U(0, 10000, "A"), "largest allowed |firmware - float model| current"
         ),
         "word": K(CHOICE, "word", None, "storage word of table entries", default="int16", choices=("int16", "int32")),
+        "sizing": K(
+            CHOICE,
+            "sizing",
+            None,
+            "what table sizing minimises within the budget: table bytes, or lookup instructions (then bytes)",
+            default="instructions",
+            choices=("instructions", "bytes"),
+        ),
+        "table_bytes_max": K(
+            RATIO,
+            "table_bytes_max",
+            U(0, 1e6, "bytes"),
+            "most table bytes (both functions) sizing = 'instructions' may spend",
+            default=2048.0,
+        ),
     },
 }
 del L, U, K
@@ -406,7 +421,8 @@ def reference_rows() -> list[str]:
                 kind = "bare number"
             else:
                 kind = f"{spec.kind.name.split(' ', 1)[1]} (e.g. {spec.kind.example})"
-            default = "required" if spec.default is None else f"= `{spec.default}`"
+            shown = f"{spec.default:g}" if isinstance(spec.default, float) else spec.default
+            default = "required" if spec.default is None else f"= `{shown}`"
             meaning = spec.meaning.replace("|", "\\|")
             rows.append(f"| `{section}.{key}` | {kind} | {default} | {meaning} | {spec.expect} |")
     return rows

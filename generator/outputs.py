@@ -14,7 +14,7 @@ from typing import Any
 from . import fixedpoint as fx
 from .accuracy import Accuracy
 from .errors import UserError
-from .synthesis import Firmware, products_note
+from .synthesis import Firmware, products_note, sizing_note
 
 
 def _umask() -> int:
@@ -150,6 +150,12 @@ def report(fw: Firmware, acc: Accuracy, checks: list[Check], problems: list[str]
         "forward_mps2": {"bound": fw.fwd_bound_mps2, "goal": fw.fwd_budget_mps2},
         "total_bytes": fw.total_bytes,
         "multiplies_64bit": {"products": fw.products64(), "note": products_note(fw)},
+        "sizing": {
+            "goal": fw.vehicle.firmware.sizing,
+            "table_bytes_max": fw.vehicle.firmware.table_bytes_max,
+            "over_cap": fw.over_cap,
+            "note": sizing_note(fw),
+        },
         "tables": [
             {
                 "name": n,

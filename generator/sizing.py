@@ -11,6 +11,7 @@ from __future__ import annotations
 
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
+from functools import partial
 from typing import Any
 
 import numpy as np
@@ -18,9 +19,27 @@ import numpy as np
 from . import analysis
 from . import tables as tb
 from .errors import CheckFailed
-from .program import Program
+from .program import Lookup, Program
 
 Bound = Callable[[Mapping[str, Any]], Any]
+
+PIECE_INSTRUCTIONS = (1, 3, 6, 15)
+"""Instructions of one piece lookup by kind: constant, direct (one entry per input step), one segment,
+interpolated (indexed). Measured on Cortex-M0+ with zig and gcc-arm-none-eabi at -Os (both 0, 3, 6,
+15; tests/benchmarks/bench_piece_cost.py); the constant counted as 1, the load of its value."""
+
+
+@dataclass(frozen=True)
+class Objective:
+    """What the search minimises within the budget: "bytes", or "instructions" then bytes, under a cap
+    on the bytes of the tables being sized."""
+
+    goal: str = "bytes"
+    bytes_max: float = float("inf")
+
+
+BYTES = Objective()
+INSTRUCTION_WEIGHT = 1 << 24  # above any table byte total: instructions decide, bytes break ties
 
 
 @dataclass(frozen=True)
@@ -29,12 +48,22 @@ class Unit:
     piece: int
     cands: tb.Candidates
     word_bytes: int
+    lookups: int = 1  # how often the program looks the table up per call
 
     def bytes(self, k: int) -> int:
         return (self.cands.segments[k] + 1) * self.word_bytes
 
     def error(self, k: int) -> float:
         return self.cands.errors[k].total
+
+    def instructions(self, k: int) -> int:
+        """The cost model: instructions of this piece's lookup per call (PIECE_INSTRUCTIONS by kind)."""
+        data = self.cands.data[k]
+        kind = 0 if data.segments == 0 else 1 if data.shift == 0 else 2 if data.segments == 1 else 3
+        return PIECE_INSTRUCTIONS[kind] * self.lookups
+
+    def cost(self, k: int, goal: str) -> int:
+        return self.bytes(k) + (self.instructions(k) * INSTRUCTION_WEIGHT if goal == "instructions" else 0)
 
 
 @dataclass(frozen=True)
@@ -44,11 +73,16 @@ class Sizing:
     bound_steps: float
     total_bytes: int
     visited: int
+    instructions: int  # the cost model's lookup instructions per call of the sized tables
+    over_cap: bool = False  # the budget needs more bytes than the cap: sized for fewest bytes instead
 
 
-def units_for(specs: Mapping[str, tb.TableSpec], names: list[str]) -> list[Unit]:
+def units_for(specs: Mapping[str, tb.TableSpec], names: list[str], program: Program | None = None) -> list[Unit]:
+    counts = (
+        {n: sum(1 for op in program.ops if isinstance(op, Lookup) and op.table == n) for n in names} if program else {}
+    )
     return [
-        Unit(n, k, tb.piece_candidates(specs[n], p), specs[n].bits // 8)
+        Unit(n, k, tb.piece_candidates(specs[n], p), specs[n].bits // 8, max(1, counts.get(n, 1)))
         for n in names
         for k, p in enumerate(specs[n].pieces)
     ]
@@ -63,13 +97,16 @@ def _merge(units: list[Unit], choice: list, fixed: Mapping[str, float]) -> dict[
     return errs
 
 
-def search(bound: Bound, units: list[Unit], budget: float, fixed: Mapping[str, float]) -> tuple[list[int] | None, int]:
-    """Branch and bound: the candidate index per unit with the fewest bytes and bound <= budget.
+def search(
+    bound: Bound, units: list[Unit], budget: float, fixed: Mapping[str, float], *, objective: Objective = BYTES
+) -> tuple[list[int] | None, int]:
+    """Branch and bound: the candidate index per unit with the least cost and bound <= budget (and
+    bytes <= the objective's cap).
 
-    Units whose largest size costs most are decided first: their choice moves the byte total most,
-    so the byte cut prunes early (18 nodes instead of ~2,700 on the demo)."""
-    order = sorted(range(len(units)), key=lambda k: -units[k].bytes(len(units[k].cands.segments) - 1))
-    choice, visited = _search([units[k] for k in order], bound, budget, fixed)
+    Units whose dearest candidate costs most are decided first: their choice moves the total most,
+    so the cost cut prunes early (18 nodes instead of ~2,700 on the demo, sizing for bytes)."""
+    order = sorted(range(len(units)), key=lambda k: -max(units[k].cost(c, objective.goal) for c in _all(units[k])))
+    choice, visited = _search([units[k] for k in order], bound, budget, fixed, objective=objective)
     if choice is None:
         return None, visited
     out = [0] * len(units)
@@ -78,39 +115,51 @@ def search(bound: Bound, units: list[Unit], budget: float, fixed: Mapping[str, f
     return out, visited
 
 
-def _search(units: list[Unit], bound: Bound, budget: float, fixed: Mapping[str, float]) -> tuple[list[int] | None, int]:
+def _all(u: Unit) -> range:
+    return range(len(u.cands.segments))
+
+
+def _search(
+    units: list[Unit], bound: Bound, budget: float, fixed: Mapping[str, float], *, objective: Objective
+) -> tuple[list[int] | None, int]:
+    goal, cap = objective.goal, objective.bytes_max
     best_err = [u.error(len(u.cands.segments) - 1) for u in units]
     lowest = _lowest_feasible(bound, units, budget, fixed, best_err=best_err)
     if lowest is None:
         return None, 0
-    min_bytes = [u.bytes(c) for u, c in zip(units, lowest)]
-    rest_bytes = np.concatenate([np.cumsum(min_bytes[::-1])[::-1], [0]])
-    best: dict[str, Any] = {"bytes": float("inf"), "choice": None}
-    start = _greedy(bound, units, budget, fixed)
+    # per unit, its feasible candidates cheapest first (with bytes, cost grows with the segment count)
+    orders = [sorted(range(lo, len(u.cands.segments)), key=partial(u.cost, goal=goal)) for u, lo in zip(units, lowest)]
+    rest_cost = _suffix([u.cost(o[0], goal) for u, o in zip(units, orders)])
+    rest_bytes = _suffix([min(u.bytes(c) for c in o) for u, o in zip(units, orders)])
+    best: dict[str, Any] = {"cost": float("inf"), "choice": None}
+    start = _greedy(bound, units, budget, fixed, objective=objective)
     if start is not None:
-        best["bytes"], best["choice"] = sum(u.bytes(c) for u, c in zip(units, start)) + 1, start
+        best["cost"], best["choice"] = sum(u.cost(c, goal) for u, c in zip(units, start)) + 1, start
     visited = 0
 
-    def dfs(k: int, choice: list[int], used: int) -> None:
+    def dfs(k: int, choice: list[int], used: int, used_bytes: int) -> None:
         nonlocal visited
         visited += 1
         if k == len(units):
-            best["bytes"], best["choice"] = used, list(choice)
+            best["cost"], best["choice"] = used, list(choice)
             return
         u = units[k]
         errs = np.array([e.total for e in u.cands.errors])
         trial = [units[j].error(c) for j, c in enumerate(choice)] + [errs] + best_err[k + 1 :]
-        bounds = bound(_merge(units, trial, fixed))
-        bounds = np.broadcast_to(bounds, errs.shape)
-        for c in range(lowest[k], len(errs)):
-            cost = used + u.bytes(c) + rest_bytes[k + 1]
-            if cost >= best["bytes"]:
+        bounds = np.broadcast_to(bound(_merge(units, trial, fixed)), errs.shape)
+        for c in orders[k]:
+            if used + u.cost(c, goal) + rest_cost[k + 1] >= best["cost"]:
                 break
-            if bounds[c] <= budget:
-                dfs(k + 1, choice + [c], used + u.bytes(c))
+            if bounds[c] <= budget and used_bytes + u.bytes(c) + rest_bytes[k + 1] <= cap:
+                dfs(k + 1, choice + [c], used + u.cost(c, goal), used_bytes + u.bytes(c))
 
-    dfs(0, [], 0)
+    dfs(0, [], 0, 0)
     return best["choice"], visited
+
+
+def _suffix(values: list[int]) -> list[int]:
+    """Sums of values[k:] for every k, and 0 past the end."""
+    return [int(x) for x in np.concatenate([np.cumsum(values[::-1])[::-1], [0]])]
 
 
 def _lowest_feasible(
@@ -129,9 +178,12 @@ def _lowest_feasible(
     return out
 
 
-def _greedy(bound: Bound, units: list[Unit], budget: float, fixed: Mapping[str, float]) -> list[int] | None:
-    """A good first answer for the search to beat: from most accurate, keep taking the downgrade
-    that saves the most bytes while the bound still holds."""
+def _greedy(
+    bound: Bound, units: list[Unit], budget: float, fixed: Mapping[str, float], *, objective: Objective
+) -> list[int] | None:
+    """A good first answer for the search to beat: from most accurate, keep taking the change to a
+    cheaper candidate that saves the most while the bound still holds; None when over the byte cap."""
+    goal = objective.goal
     choice = [len(u.cands.segments) - 1 for u in units]
 
     def at(ch: list[int]) -> float:
@@ -142,15 +194,18 @@ def _greedy(bound: Bound, units: list[Unit], budget: float, fixed: Mapping[str, 
     while True:
         moves = []
         for j, u in enumerate(units):
-            for c in range(choice[j]):
-                trial = choice[:j] + [c] + choice[j + 1 :]
-                if at(trial) <= budget:
-                    moves.append((u.bytes(choice[j]) - u.bytes(c), j, c))
-                    break  # the cheapest feasible downgrade of this unit
+            now = u.cost(choice[j], goal)
+            for c in sorted(_all(u), key=partial(u.cost, goal=goal)):
+                if u.cost(c, goal) >= now:
+                    break
+                if at(choice[:j] + [c] + choice[j + 1 :]) <= budget:
+                    moves.append((now - u.cost(c, goal), j, c))
+                    break  # the cheapest feasible change of this unit
         if not moves:
-            return choice
+            break
         _, j, c = max(moves)
         choice[j] = c
+    return choice if sum(u.bytes(c) for u, c in zip(units, choice)) <= objective.bytes_max else None
 
 
 def limiting_table(bound: Bound, units: list[Unit], fixed: Mapping[str, float]) -> tuple[float, str]:
@@ -175,14 +230,21 @@ def size(
     fixed: Mapping[str, tb.Table] | None = None,
     fixed_errors: Mapping[str, tuple[tb.PieceError, ...]] | None = None,
     what: str = "budget",
+    objective: Objective = BYTES,
 ) -> Sizing:
-    """Size the named tables (others fixed) so the program's error bound stays within budget_steps."""
+    """Size the named tables (others fixed) so the program's error bound stays within budget_steps,
+    minimising the objective; when its byte cap cannot hold what the budget needs, the fewest bytes
+    (flagged over_cap)."""
     fixed = dict(fixed or {})
     fixed_errors = dict(fixed_errors or {})
     fixed_max = {n: max(e.total for e in errs) for n, errs in fixed_errors.items()}
-    units = units_for(specs, names)
+    units = units_for(specs, names, program)
     bound = analysis.compile_bound(program, specs)
-    choice, visited = search(bound, units, budget_steps, fixed_max)
+    choice, visited = search(bound, units, budget_steps, fixed_max, objective=objective)
+    over_cap = False
+    if choice is None and objective != BYTES:
+        choice, more = search(bound, units, budget_steps, fixed_max, objective=BYTES)
+        visited, over_cap = visited + more, choice is not None
     if choice is None:
         achievable, table = limiting_table(bound, units, fixed_max)
         raise CheckFailed(
@@ -198,4 +260,5 @@ def size(
     out_errors = {**fixed_errors, **{n: tuple(errors[n]) for n in names}}
     final = float(bound(analysis.table_errors(out_tables, out_errors)))
     total = sum(out_tables[n].bytes for n in names)
-    return Sizing(out_tables, out_errors, final, total, visited)
+    instructions = sum(u.instructions(c) for u, c in zip(units, choice))
+    return Sizing(out_tables, out_errors, final, total, visited, instructions, over_cap)

@@ -6,6 +6,7 @@ import dataclasses
 import hashlib
 import json
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -33,6 +34,7 @@ class Firmware:
     fwd_budget_mps2: float
     fingerprint: int
     rounded_best_a: float | None = None  # exact designs: the best bound with rounded operands, A
+    over_cap: bool = False  # firmware.table_bytes_max cannot hold what the budget needs: fewest bytes instead
 
     def products64(self) -> list[str]:
         """Products of either function that need a 64-bit multiply (a library call on Cortex-M0+); a
@@ -92,28 +94,15 @@ def synthesise(v: Vehicle) -> Firmware:
 def _synthesise(v: Vehicle, des: program.Design, *, explain: bool = True) -> Firmware:
     """Size and prove one design; `explain` adds the levers to a budget failure (a search, not free)."""
     fw = v.firmware
-    ff_names = [n for n in des.specs if not n.startswith("minv")]
-    budget_steps = fw.current_budget_a / fw.current_lsb_a
     where = f"{v.source}: firmware.current_budget"
     try:
-        ff = sizing.size(des.feedforward, des.specs, ff_names, budget_steps, what=f"{fw.current_budget_a:g} A")
-    except CheckFailed as exc:
+        ff, fwd = _size_both(v, des)
+    except _Missed as miss:
+        if miss.forward:
+            raise CheckFailed(f"{where}: {miss.exc} of {fw.accel_lsb_mps2:g} m/s^2 (accel_lsb)") from None
         raise CheckFailed(
-            f"{where}: {exc} of {fw.current_lsb_a:g} A (current_lsb)" + (f"; {levers(v)}" if explain else "")
+            f"{where}: {miss.exc} of {fw.current_lsb_a:g} A (current_lsb)" + (f"; {levers(v)}" if explain else "")
         ) from None
-    fwd_budget = forward_budget(v)
-    try:
-        fwd = sizing.size(
-            des.forward,
-            des.specs,
-            ["minv11", "minv12"],
-            fwd_budget / fw.accel_lsb_mps2,
-            fixed=ff.tables,
-            fixed_errors=ff.errors,
-            what=f"forward dynamics {fwd_budget:.4g} m/s^2",
-        )
-    except CheckFailed as exc:
-        raise CheckFailed(f"{where}: {exc} of {fw.accel_lsb_mps2:g} m/s^2 (accel_lsb)") from None
     tables = {n: fwd.tables[n] for n in des.specs}
     errors = {n: fwd.errors[n] for n in des.specs}
     return Firmware(
@@ -125,9 +114,82 @@ def _synthesise(v: Vehicle, des: program.Design, *, explain: bool = True) -> Fir
         analysis.prove(des.forward, tables),
         ff.bound_steps * fw.current_lsb_a,
         fwd.bound_steps * fw.accel_lsb_mps2,
-        fwd_budget,
+        forward_budget(v),
         fingerprint(v),
+        over_cap=ff.over_cap or fwd.over_cap,
     )
+
+
+class _Missed(Exception):
+    """A sizing that cannot meet its budget: which function, and why."""
+
+    def __init__(self, exc: CheckFailed, *, forward: bool) -> None:
+        super().__init__(str(exc))
+        self.exc, self.forward = exc, forward
+
+
+def _size_both(v: Vehicle, des: program.Design) -> tuple[sizing.Sizing, sizing.Sizing]:
+    """Feed-forward tables, then the forward function's own (M^-1) with the former fixed. Under the
+    instructions objective the byte cap covers both: when the feed-forward tables leave too little
+    room for the fewest forward bytes, they are sized again under the cap less those bytes."""
+    fw = v.firmware
+    cap = fw.table_bytes_max if fw.sizing == "instructions" else float("inf")
+    ff_names = [n for n in des.specs if not n.startswith("minv")]
+    ff_budget = fw.current_budget_a / fw.current_lsb_a
+    ff_what = f"{fw.current_budget_a:g} A"
+    ff = _size(des.feedforward, des, ff_names, ff_budget, what=ff_what, objective=sizing.Objective(fw.sizing, cap))
+    fwd = _size_forward(v, des, ff, cap - ff.total_bytes)
+    if ff.total_bytes + fwd.total_bytes > cap and fw.sizing == "instructions":
+        fewest = _size_forward(v, des, ff, 0.0)  # the forward tables' fewest bytes with these
+        ff = _size(
+            des.feedforward,
+            des,
+            ff_names,
+            ff_budget,
+            what=ff_what,
+            objective=sizing.Objective(fw.sizing, cap - fewest.total_bytes),
+        )
+        fwd = _size_forward(v, des, ff, cap - ff.total_bytes)
+    return ff, fwd
+
+
+def _size(program_: program.Program, des: program.Design, names: list[str], budget: float, **kw: Any) -> sizing.Sizing:
+    try:
+        return sizing.size(program_, des.specs, names, budget, **kw)
+    except CheckFailed as exc:
+        raise _Missed(exc, forward=program_ is des.forward) from None
+
+
+def _size_forward(v: Vehicle, des: program.Design, ff: sizing.Sizing, room: float) -> sizing.Sizing:
+    """The M^-1 tables with the feed-forward tables fixed, within `room` bytes when minimising
+    instructions (fewest bytes when room is too small, flagged over_cap)."""
+    goal = forward_budget(v)
+    objective = (
+        sizing.Objective(v.firmware.sizing, max(room, 0.0)) if v.firmware.sizing == "instructions" else sizing.BYTES
+    )
+    return _size(
+        des.forward,
+        des,
+        ["minv11", "minv12"],
+        goal / v.firmware.accel_lsb_mps2,
+        fixed=ff.tables,
+        fixed_errors=ff.errors,
+        what=f"forward dynamics {goal:.4g} m/s^2",
+        objective=objective,
+    )
+
+
+def sizing_note(fw: Firmware) -> str:
+    """What the table sizing minimised, and whether the byte cap had to give way (build line, report)."""
+    f = fw.vehicle.firmware
+    if f.sizing == "bytes":
+        return "sized for fewest table bytes"
+    if fw.over_cap:
+        return (
+            f"firmware.table_bytes_max = {f.table_bytes_max:g} is below the fewest bytes the budget needs "
+            f"({fw.total_bytes}): sized for fewest table bytes instead"
+        )
+    return f"sized for fewest lookup instructions within {f.table_bytes_max:g} table bytes"
 
 
 def products_note(fw: Firmware) -> str:

@@ -127,14 +127,15 @@ def shift_for(span: int, segments: int) -> int:
 
 
 def candidate_segments(piece: Piece) -> list[int]:
-    """0 (constant) and powers of two up to the first exact size (one breakpoint per input step)."""
+    """0 (constant), powers of two while a segment spans more than one input step, then the direct
+    size: one entry per input step (span + 1 segments of 1 step, no interpolation)."""
     out = [0]
     n = 1
-    while n <= MAX_SEGMENTS:
+    while n <= MAX_SEGMENTS and shift_for(piece.span, n) > 0:
         out.append(n)
-        if shift_for(piece.span, n) == 0:
-            break
         n *= 2
+    if piece.span + 1 <= MAX_SEGMENTS:
+        out.append(piece.span + 1)
     return out
 
 
@@ -279,7 +280,8 @@ KEEP_RATIO = 0.9  # a larger size is a candidate only if it cuts the worst error
 
 
 def piece_candidates(spec: TableSpec, piece: Piece) -> Candidates:
-    """Every useful size: each kept one is at least 10 % more accurate than the cheaper ones."""
+    """Every useful size: each kept one is at least 10 % more accurate than the cheaper ones, or the
+    direct table (one entry per input), whose lookup costs fewer instructions than interpolation."""
     out = Candidates()
     best = float("inf")
     xs = _domain(piece)
@@ -287,7 +289,8 @@ def piece_candidates(spec: TableSpec, piece: Piece) -> Candidates:
     for n in candidate_segments(piece):
         data = build_piece(spec, piece, n)
         err = piece_error(spec, piece, data, domain)
-        if err.total < KEEP_RATIO * best:
+        direct = data.segments > 0 and data.shift == 0  # one entry per input: the cheapest lookup but one
+        if err.total < KEEP_RATIO * best or (direct and err.total <= best):
             out.segments.append(n)
             out.errors.append(err)
             out.data.append(data)

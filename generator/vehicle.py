@@ -76,6 +76,8 @@ class Firmware:
     current_lsb_a: float
     current_budget_a: float
     word: str
+    sizing: str = "instructions"  # what sizing minimises: "instructions" (then bytes) or "bytes"
+    table_bytes_max: float = 2048.0  # cap on table bytes when minimising instructions
 
 
 @dataclass(frozen=True)

@@ -156,7 +156,7 @@ def test_fingerprint_mismatch_is_refused_before_arming(tmp_path):
     sim = Sim(other)
     run = _run(sim.port, plan, log)
     _, err = run.communicate(timeout=30)
-    assert run.returncode == 1 and "fingerprint mismatch" in err and "0x52C36C54" in err
+    assert run.returncode == 1 and "fingerprint mismatch" in err and f"0x{demo_firmware().fingerprint:08X}" in err
     assert sim.proc.poll() is None  # never armed, never halted: still waiting
     sim.proc.kill()
     assert json.loads(log.with_suffix(".json").read_text())["samples"] == 0

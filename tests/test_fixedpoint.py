@@ -123,12 +123,21 @@ def test_interpolation_error_within_burden_faires_bound():
 
 
 def test_every_table_uses_power_of_two_segments_and_shift_indexing():
+    """Interpolated pieces: power-of-two segments, indexed by shift; direct pieces (one entry per input
+    step, shift 0) hold exactly span + 1 segments."""
     fw = demo_firmware()
+    kinds = set()
     for table in fw.tables.values():
         for piece, data in zip(table.spec.pieces, table.pieces):
-            if data.segments:
+            if data.segments and data.shift:
                 assert data.segments & (data.segments - 1) == 0
+                kinds.add("interpolated")
+            elif data.segments:
+                assert data.segments == piece.span + 1
+                kinds.add("direct")
+            if data.segments:
                 assert (piece.span >> data.shift) < data.segments  # the last index stays inside
+    assert kinds == {"interpolated", "direct"}
 
 
 def test_constant_piece_error_is_half_the_range():

@@ -59,13 +59,18 @@ def main() -> None:
 def markdown(r: dict) -> str:
     t, b, c = r["tables"], r["build"], r["cortexm"]
     ex, nv, un = t["exhaustive"], t["naive256"], t["uniform"]
+    oi, ei = t["ours_instructions"], t["exhaustive_instructions"]
     lines = [
         f"# Benchmarks on {r['model']}",
         "",
         "| measure | value |",
         "|---|---|",
-        f"| feed-forward table bytes, our sizing | {t['ours_bytes']} |",
+        f"| feed-forward table bytes, our sizing for bytes | {t['ours_bytes']} |",
         f"| same, exhaustive search ({ex['combinations']:,} combinations, {ex['seconds']:.0f} s) | {ex['bytes']} |",
+        f"| lookup instructions (cost model) / bytes, our sizing for instructions (the default, within "
+        f"2048 bytes) | {oi['instructions']} / {oi['bytes']} |",
+        f"| same, exhaustive search ({ei['combinations']:,} combinations, {ei['seconds']:.0f} s) | "
+        f"{ei['instructions']} / {ei['bytes']} |",
         f"| same, naive 256 segments per piece | {nv['bytes']} (bound {nv['bound_a'] * 1000:.2f} mA) |",
         f"| same, smallest single segment count for every piece ({un['segments']}) | {un['bytes']} |",
         f"| forward-dynamics (M^-1) table bytes | {t['forward_bytes']} |",
