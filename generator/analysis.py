@@ -76,6 +76,18 @@ def _interp_split(piece: tb.PieceData) -> bool:
     return step <= fx.word_max(32) and split_fits(fx.Interval(-step, step), fx.Interval(0, piece.mask), piece.shift)
 
 
+def folded_segment(piece: tb.PieceData) -> tuple[int, int] | None:
+    """A one-segment piece as one multiply-add: e0 + (((e1 - e0) d + h) >> s) = ((e1 - e0) d + C) >> s
+    with C = e0 2^s + h (e0 2^s is a multiple of 2^s, so the floor is unchanged); (e1 - e0, C) when
+    every value of the folded sum fits 32 bits for d in 0 .. 2^s - 1, else None."""
+    if piece.segments != 1 or piece.shift == 0:
+        return None
+    e0, step = int(piece.entries[0]), int(piece.entries[1]) - int(piece.entries[0])
+    const = (e0 << piece.shift) + rounding_half(piece.shift)
+    total = fx.Interval(0, piece.mask) * fx.Interval(step, step) + fx.Interval(const, const)
+    return (step, const) if total.fits(32) else None
+
+
 def prove(program: Program, tables: Mapping[str, tb.Table]) -> Proof:
     """Walk the ops with integer intervals; raise CheckFailed naming the signal that would overflow."""
     rng: dict[str, fx.Interval] = {}

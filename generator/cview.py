@@ -9,7 +9,7 @@ import math
 from dataclasses import dataclass
 from typing import Any, assert_never
 
-from . import __version__, interface, model
+from . import __version__, analysis, interface, model
 from . import fixedpoint as fx
 from . import tables as tb
 from .analysis import Proof
@@ -107,6 +107,7 @@ def _piece_view(fw: Firmware, name: str, prefix: str, k: int) -> dict[str, Any]:
         "half": rounding_half(data.shift),
         "wide": fw.ff_proof.lookup_wide[name][k] and not fw.ff_proof.lookup_split[name][k],
         "split": fw.ff_proof.lookup_split[name][k],
+        "fold": _fold_view(data),
         "constant": data.segments == 0,
         "value": int(data.entries[0]),
         "entries": rows([int(e) for e in data.entries]),
@@ -123,6 +124,12 @@ def _piece_view(fw: Firmware, name: str, prefix: str, k: int) -> dict[str, Any]:
         "error": f"{num(err.total * spec.si_scale)} {spec.si_unit}"
         + (" (every input checked)" if err.exhaustive else " (dense sample plus slope margin)"),
     }
+
+
+def _fold_view(data: tb.PieceData) -> dict[str, int] | None:
+    """A one-segment piece's folded multiply-add constants, when the proof allows it."""
+    folded = analysis.folded_segment(data)
+    return None if folded is None else {"scale": 1 << data.shift}
 
 
 def _model_keys(name: str, source: str) -> tuple[str, ...]:

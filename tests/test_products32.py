@@ -136,3 +136,27 @@ def test_compiled_int32_feedforward_calls_no_64bit_helper_on_cortex_m0plus(compi
     The full-precision design is the control: there the helper must appear, or the check proves nothing."""
     assert _helpers_called(_int32_twin(), compiler, tmp_path / "rounded") == set()
     assert _helpers_called(_int32_twin(0.001), compiler, tmp_path / "exact") != set()
+
+
+@given(
+    e0=st.one_of(st.integers(-(2**15), 2**15 - 1), st.integers(-(2**31), 2**31 - 1)),
+    e1=st.one_of(st.integers(-(2**15), 2**15 - 1), st.integers(-(2**31), 2**31 - 1)),
+    shift=st.integers(1, 16),
+    data=st.data(),
+)
+def test_folded_one_segment_equals_the_interpolation_whenever_it_is_chosen(e0, e1, shift, data):
+    """((e1 - e0) d + e0 2^s + half) >> s against e0 + (((e1 - e0) d + half) >> s), exact integers;
+    the folded sum must fit int32 for every d the piece can see (0 .. 2^s - 1)."""
+    from kinetab.generator import analysis
+    from kinetab.generator import tables as tb
+
+    piece = tb.PieceData(1, shift, np.array([e0, e1], dtype=np.int64))
+    folded = analysis.folded_segment(piece)
+    if folded is None:
+        return
+    step, const = folded
+    for d in (0, (1 << shift) - 1, data.draw(st.integers(0, (1 << shift) - 1))):
+        total = step * d + const
+        assert INT32.lo <= total <= INT32.hi
+        assert total >> shift == e0 + ((step * d + (1 << (shift - 1))) >> shift)
+        assert total >> shift == int(tb.lookup_piece(piece, 0, np.array([d]))[0])

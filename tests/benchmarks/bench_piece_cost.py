@@ -19,7 +19,8 @@ import numpy as np
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 
-from kinetab.generator import render, sizing  # noqa: E402
+from kinetab.generator import cview, render, sizing  # noqa: E402
+from kinetab.generator import tables as tb  # noqa: E402
 
 from tests import cortexm  # noqa: E402
 
@@ -71,6 +72,7 @@ def _piece(name: str, segments: int, shift: int) -> dict[str, object]:
         "constant": segments == 0,
         "wide": False,
         "split": False,
+        "fold": cview._fold_view(tb.PieceData(segments, shift, entries)),
     }
 
 

@@ -49,7 +49,8 @@ static int32_t larkspur_lookup_m11(int32_t v)
     {
         /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
         const int32_t d = x;
-        y = larkspur_tab_m11_0[0] + (((larkspur_tab_m11_0[1] - larkspur_tab_m11_0[0]) * d + 512) >> 10);
+        /* e0 + (((e1 - e0) d + half) >> s) as one multiply-add: e0 2^s + half is a constant */
+        y = ((larkspur_tab_m11_0[1] - larkspur_tab_m11_0[0]) * d + (larkspur_tab_m11_0[0] * 1024 + 512)) >> 10;
     }
     return y;
 }
@@ -123,7 +124,8 @@ static int32_t larkspur_lookup_cor(int32_t v)
     {
         /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
         const int32_t d = x;
-        y = larkspur_tab_cor_0[0] + (((larkspur_tab_cor_0[1] - larkspur_tab_cor_0[0]) * d + 512) >> 10);
+        /* e0 + (((e1 - e0) d + half) >> s) as one multiply-add: e0 2^s + half is a constant */
+        y = ((larkspur_tab_cor_0[1] - larkspur_tab_cor_0[0]) * d + (larkspur_tab_cor_0[0] * 1024 + 512)) >> 10;
     }
     return y;
 }
@@ -160,7 +162,8 @@ static int32_t larkspur_lookup_grav_pitch(int32_t v)
     {
         /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
         const int32_t d = x;
-        y = larkspur_tab_grav_pitch_0[0] + (((larkspur_tab_grav_pitch_0[1] - larkspur_tab_grav_pitch_0[0]) * d + 512) >> 10);
+        /* e0 + (((e1 - e0) d + half) >> s) as one multiply-add: e0 2^s + half is a constant */
+        y = ((larkspur_tab_grav_pitch_0[1] - larkspur_tab_grav_pitch_0[0]) * d + (larkspur_tab_grav_pitch_0[0] * 1024 + 512)) >> 10;
     }
     return y;
 }
@@ -197,7 +200,8 @@ static int32_t larkspur_lookup_grav_roll(int32_t v)
     {
         /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
         const int32_t d = x;
-        y = larkspur_tab_grav_roll_0[0] + (((larkspur_tab_grav_roll_0[1] - larkspur_tab_grav_roll_0[0]) * d + 512) >> 10);
+        /* e0 + (((e1 - e0) d + half) >> s) as one multiply-add: e0 2^s + half is a constant */
+        y = ((larkspur_tab_grav_roll_0[1] - larkspur_tab_grav_roll_0[0]) * d + (larkspur_tab_grav_roll_0[0] * 1024 + 512)) >> 10;
     }
     return y;
 }
@@ -236,7 +240,8 @@ static int32_t larkspur_lookup_roll_level(int32_t v)
     {
         /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
         const int32_t d = x;
-        y = larkspur_tab_roll_level_0[0] + (((larkspur_tab_roll_level_0[1] - larkspur_tab_roll_level_0[0]) * d + 512) >> 10);
+        /* e0 + (((e1 - e0) d + half) >> s) as one multiply-add: e0 2^s + half is a constant */
+        y = ((larkspur_tab_roll_level_0[1] - larkspur_tab_roll_level_0[0]) * d + (larkspur_tab_roll_level_0[0] * 1024 + 512)) >> 10;
     }
     return y;
 }
@@ -275,7 +280,8 @@ static int32_t larkspur_lookup_roll_slope(int32_t v)
     {
         /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
         const int32_t d = x;
-        y = larkspur_tab_roll_slope_0[0] + (((larkspur_tab_roll_slope_0[1] - larkspur_tab_roll_slope_0[0]) * d + 512) >> 10);
+        /* e0 + (((e1 - e0) d + half) >> s) as one multiply-add: e0 2^s + half is a constant */
+        y = ((larkspur_tab_roll_slope_0[1] - larkspur_tab_roll_slope_0[0]) * d + (larkspur_tab_roll_slope_0[0] * 1024 + 512)) >> 10;
     }
     return y;
 }
@@ -732,27 +738,32 @@ void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out)
         {
             /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
             const int32_t d = x;
-            t_cor = larkspur_tab_cor_0[0] + (((larkspur_tab_cor_0[1] - larkspur_tab_cor_0[0]) * d + 512) >> 10);
+            /* e0 + (((e1 - e0) d + half) >> s) as one multiply-add: e0 2^s + half is a constant */
+            t_cor = ((larkspur_tab_cor_0[1] - larkspur_tab_cor_0[0]) * d + (larkspur_tab_cor_0[0] * 1024 + 512)) >> 10;
         }
         {
             /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
             const int32_t d = x;
-            t_grav_pitch = larkspur_tab_grav_pitch_0[0] + (((larkspur_tab_grav_pitch_0[1] - larkspur_tab_grav_pitch_0[0]) * d + 512) >> 10);
+            /* e0 + (((e1 - e0) d + half) >> s) as one multiply-add: e0 2^s + half is a constant */
+            t_grav_pitch = ((larkspur_tab_grav_pitch_0[1] - larkspur_tab_grav_pitch_0[0]) * d + (larkspur_tab_grav_pitch_0[0] * 1024 + 512)) >> 10;
         }
         {
             /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
             const int32_t d = x;
-            t_grav_roll = larkspur_tab_grav_roll_0[0] + (((larkspur_tab_grav_roll_0[1] - larkspur_tab_grav_roll_0[0]) * d + 512) >> 10);
+            /* e0 + (((e1 - e0) d + half) >> s) as one multiply-add: e0 2^s + half is a constant */
+            t_grav_roll = ((larkspur_tab_grav_roll_0[1] - larkspur_tab_grav_roll_0[0]) * d + (larkspur_tab_grav_roll_0[0] * 1024 + 512)) >> 10;
         }
         {
             /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
             const int32_t d = x;
-            t_roll_level = larkspur_tab_roll_level_0[0] + (((larkspur_tab_roll_level_0[1] - larkspur_tab_roll_level_0[0]) * d + 512) >> 10);
+            /* e0 + (((e1 - e0) d + half) >> s) as one multiply-add: e0 2^s + half is a constant */
+            t_roll_level = ((larkspur_tab_roll_level_0[1] - larkspur_tab_roll_level_0[0]) * d + (larkspur_tab_roll_level_0[0] * 1024 + 512)) >> 10;
         }
         {
             /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
             const int32_t d = x;
-            t_roll_slope = larkspur_tab_roll_slope_0[0] + (((larkspur_tab_roll_slope_0[1] - larkspur_tab_roll_slope_0[0]) * d + 512) >> 10);
+            /* e0 + (((e1 - e0) d + half) >> s) as one multiply-add: e0 2^s + half is a constant */
+            t_roll_slope = ((larkspur_tab_roll_slope_0[1] - larkspur_tab_roll_slope_0[0]) * d + (larkspur_tab_roll_slope_0[0] * 1024 + 512)) >> 10;
         }
     }
     const int32_t g_pitch = (t_grav_pitch * t_sin_pitch + 4) >> 3;
@@ -774,7 +785,8 @@ void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out)
         {
             /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
             const int32_t d = x;
-            t_m11 = larkspur_tab_m11_0[0] + (((larkspur_tab_m11_0[1] - larkspur_tab_m11_0[0]) * d + 512) >> 10);
+            /* e0 + (((e1 - e0) d + half) >> s) as one multiply-add: e0 2^s + half is a constant */
+            t_m11 = ((larkspur_tab_m11_0[1] - larkspur_tab_m11_0[0]) * d + (larkspur_tab_m11_0[0] * 1024 + 512)) >> 10;
         }
         {
             t_m12 = larkspur_tab_m12_0[0];
@@ -930,27 +942,32 @@ void larkspur_ff_slow(const larkspur_ff_in_t *in, larkspur_ff_state_t *state)
         {
             /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
             const int32_t d = x;
-            t_cor = larkspur_tab_cor_0[0] + (((larkspur_tab_cor_0[1] - larkspur_tab_cor_0[0]) * d + 512) >> 10);
+            /* e0 + (((e1 - e0) d + half) >> s) as one multiply-add: e0 2^s + half is a constant */
+            t_cor = ((larkspur_tab_cor_0[1] - larkspur_tab_cor_0[0]) * d + (larkspur_tab_cor_0[0] * 1024 + 512)) >> 10;
         }
         {
             /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
             const int32_t d = x;
-            t_grav_pitch = larkspur_tab_grav_pitch_0[0] + (((larkspur_tab_grav_pitch_0[1] - larkspur_tab_grav_pitch_0[0]) * d + 512) >> 10);
+            /* e0 + (((e1 - e0) d + half) >> s) as one multiply-add: e0 2^s + half is a constant */
+            t_grav_pitch = ((larkspur_tab_grav_pitch_0[1] - larkspur_tab_grav_pitch_0[0]) * d + (larkspur_tab_grav_pitch_0[0] * 1024 + 512)) >> 10;
         }
         {
             /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
             const int32_t d = x;
-            t_grav_roll = larkspur_tab_grav_roll_0[0] + (((larkspur_tab_grav_roll_0[1] - larkspur_tab_grav_roll_0[0]) * d + 512) >> 10);
+            /* e0 + (((e1 - e0) d + half) >> s) as one multiply-add: e0 2^s + half is a constant */
+            t_grav_roll = ((larkspur_tab_grav_roll_0[1] - larkspur_tab_grav_roll_0[0]) * d + (larkspur_tab_grav_roll_0[0] * 1024 + 512)) >> 10;
         }
         {
             /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
             const int32_t d = x;
-            t_roll_level = larkspur_tab_roll_level_0[0] + (((larkspur_tab_roll_level_0[1] - larkspur_tab_roll_level_0[0]) * d + 512) >> 10);
+            /* e0 + (((e1 - e0) d + half) >> s) as one multiply-add: e0 2^s + half is a constant */
+            t_roll_level = ((larkspur_tab_roll_level_0[1] - larkspur_tab_roll_level_0[0]) * d + (larkspur_tab_roll_level_0[0] * 1024 + 512)) >> 10;
         }
         {
             /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
             const int32_t d = x;
-            t_roll_slope = larkspur_tab_roll_slope_0[0] + (((larkspur_tab_roll_slope_0[1] - larkspur_tab_roll_slope_0[0]) * d + 512) >> 10);
+            /* e0 + (((e1 - e0) d + half) >> s) as one multiply-add: e0 2^s + half is a constant */
+            t_roll_slope = ((larkspur_tab_roll_slope_0[1] - larkspur_tab_roll_slope_0[0]) * d + (larkspur_tab_roll_slope_0[0] * 1024 + 512)) >> 10;
         }
     }
     const int32_t g_pitch = (t_grav_pitch * t_sin_pitch + 4) >> 3;
@@ -970,7 +987,8 @@ void larkspur_ff_slow(const larkspur_ff_in_t *in, larkspur_ff_state_t *state)
         {
             /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
             const int32_t d = x;
-            t_m11 = larkspur_tab_m11_0[0] + (((larkspur_tab_m11_0[1] - larkspur_tab_m11_0[0]) * d + 512) >> 10);
+            /* e0 + (((e1 - e0) d + half) >> s) as one multiply-add: e0 2^s + half is a constant */
+            t_m11 = ((larkspur_tab_m11_0[1] - larkspur_tab_m11_0[0]) * d + (larkspur_tab_m11_0[0] * 1024 + 512)) >> 10;
         }
         {
             t_m12 = larkspur_tab_m12_0[0];
@@ -1186,27 +1204,32 @@ void larkspur_forward(const larkspur_fwd_in_t *in, larkspur_fwd_out_t *out)
         {
             /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
             const int32_t d = x;
-            t_cor = larkspur_tab_cor_0[0] + (((larkspur_tab_cor_0[1] - larkspur_tab_cor_0[0]) * d + 512) >> 10);
+            /* e0 + (((e1 - e0) d + half) >> s) as one multiply-add: e0 2^s + half is a constant */
+            t_cor = ((larkspur_tab_cor_0[1] - larkspur_tab_cor_0[0]) * d + (larkspur_tab_cor_0[0] * 1024 + 512)) >> 10;
         }
         {
             /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
             const int32_t d = x;
-            t_grav_pitch = larkspur_tab_grav_pitch_0[0] + (((larkspur_tab_grav_pitch_0[1] - larkspur_tab_grav_pitch_0[0]) * d + 512) >> 10);
+            /* e0 + (((e1 - e0) d + half) >> s) as one multiply-add: e0 2^s + half is a constant */
+            t_grav_pitch = ((larkspur_tab_grav_pitch_0[1] - larkspur_tab_grav_pitch_0[0]) * d + (larkspur_tab_grav_pitch_0[0] * 1024 + 512)) >> 10;
         }
         {
             /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
             const int32_t d = x;
-            t_grav_roll = larkspur_tab_grav_roll_0[0] + (((larkspur_tab_grav_roll_0[1] - larkspur_tab_grav_roll_0[0]) * d + 512) >> 10);
+            /* e0 + (((e1 - e0) d + half) >> s) as one multiply-add: e0 2^s + half is a constant */
+            t_grav_roll = ((larkspur_tab_grav_roll_0[1] - larkspur_tab_grav_roll_0[0]) * d + (larkspur_tab_grav_roll_0[0] * 1024 + 512)) >> 10;
         }
         {
             /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
             const int32_t d = x;
-            t_roll_level = larkspur_tab_roll_level_0[0] + (((larkspur_tab_roll_level_0[1] - larkspur_tab_roll_level_0[0]) * d + 512) >> 10);
+            /* e0 + (((e1 - e0) d + half) >> s) as one multiply-add: e0 2^s + half is a constant */
+            t_roll_level = ((larkspur_tab_roll_level_0[1] - larkspur_tab_roll_level_0[0]) * d + (larkspur_tab_roll_level_0[0] * 1024 + 512)) >> 10;
         }
         {
             /* one segment: the clamped input never reaches the next breakpoint, so the index is 0 */
             const int32_t d = x;
-            t_roll_slope = larkspur_tab_roll_slope_0[0] + (((larkspur_tab_roll_slope_0[1] - larkspur_tab_roll_slope_0[0]) * d + 512) >> 10);
+            /* e0 + (((e1 - e0) d + half) >> s) as one multiply-add: e0 2^s + half is a constant */
+            t_roll_slope = ((larkspur_tab_roll_slope_0[1] - larkspur_tab_roll_slope_0[0]) * d + (larkspur_tab_roll_slope_0[0] * 1024 + 512)) >> 10;
         }
     }
     const int32_t g_pitch = (t_grav_pitch * t_sin_pitch + 4) >> 3;
