@@ -147,12 +147,12 @@ def table_view(fw: Firmware, name: str, prefix: str) -> dict[str, Any]:
     src = _sources(fw)[spec.source]
     return {
         "name": name,
-        "ctype": f"int{spec.bits}_t",
+        "ctype": f"{'u' if _unsigned(table) else ''}int{spec.bits}_t",
         "symmetry": spec.symmetry,
         "split": spec.split_at,
         "needs_x": spec.split_at is not None or any(p.segments > 0 for p in table.pieces),
         "meaning": spec.meaning,
-        "stored": _stored_text(spec),
+        "stored": _stored_text(spec, unsigned=_unsigned(table)),
         "step_si": _si_text(2.0**-spec.frac_bits * spec.si_scale, spec.si_unit),
         "q_note": _q_note(spec),
         "helper": f"{prefix}_lookup_{name}",
@@ -165,6 +165,12 @@ def table_view(fw: Firmware, name: str, prefix: str) -> dict[str, Any]:
         "hi": spec.pieces[-1].x1,
         "public": f"{prefix}_table_{name}",
     }
+
+
+def _unsigned(table: tb.Table) -> bool:
+    """int16 tables with no negative entry are stored as uint16_t: the same values, and Cortex-M0+ loads
+    them with an immediate offset (its signed halfword load takes a register offset only)."""
+    return table.spec.bits == 16 and all(int(p.entries.min()) >= 0 for p in table.pieces)
 
 
 def _power_of_two(exp: int) -> str:
@@ -182,10 +188,12 @@ def _q_note(spec: tb.TableSpec) -> str:
     return q if q.startswith("Q") else f"int{spec.bits}, steps of {_power_of_two(-spec.frac_bits)}"
 
 
-def _stored_text(spec: tb.TableSpec) -> str:
-    """What one stored integer step is worth: in the table's working unit and in SI."""
+def _stored_text(spec: tb.TableSpec, *, unsigned: bool) -> str:
+    """What one stored integer step is worth: in the table's working unit and in SI (the Q format is that
+    of the signed word even when the entries, all >= 0, are stored unsigned)."""
     q = fx.q_name(spec.frac_bits, spec.bits)
-    fmt = f"int{spec.bits}_t entries in {q}" if q.startswith("Q") else f"int{spec.bits}_t entries"
+    ctype = f"{'u' if unsigned else ''}int{spec.bits}_t"
+    fmt = f"{ctype} entries in {q}" if q.startswith("Q") else f"{ctype} entries"
     working = f"{_power_of_two(-spec.frac_bits)} {spec.unit}" if spec.unit != "1" else _power_of_two(-spec.frac_bits)
     return f"{fmt}; one stored step = {working} = {_si_text(2.0**-spec.frac_bits * spec.si_scale, spec.si_unit)}"
 

@@ -28,7 +28,7 @@ typedef char larkspur_check_format[(LARKSPUR_FF_FORMAT == 1u) ? 1 : -1];
 /*
  * Table m11: mass matrix M11 = M22.
  *   input: payload (0.1 kg per step)
- *   stored: int16_t entries in Q15.0; one stored step = 1 accumulator step per accel step = 0.00288867 kg
+ *   stored: uint16_t entries in Q15.0; one stored step = 1 accumulator step per accel step = 0.00288867 kg
  *   piece 0: x in 0..600 steps (0..60 kg); 1 segment of 1024 steps, breakpoints at x0 + k*1024
  *            worst error 0.00235229 kg (every input checked)
  *   from: body.mass = 38 kg, body.cog_ahead = -0.05 m, body.cog_height = 0.18 m,
@@ -37,7 +37,7 @@ typedef char larkspur_check_format[(LARKSPUR_FF_FORMAT == 1u) ? 1 : -1];
  *         wheels.diameter = 0.15 m, wheels.inertia = 0.0045 kg*m^2, drive.gear_ratio = 18,
  *         drive.rotor_inertia = 2.2e-05 kg*m^2
  */
-static const int16_t larkspur_tab_m11_0[2] = {
+static const uint16_t larkspur_tab_m11_0[2] = {
     8136, 25760
 };
 typedef char larkspur_tab_m11_0_size_check[(sizeof(larkspur_tab_m11_0) / sizeof(larkspur_tab_m11_0[0]) == 2) ? 1 : -1];
@@ -143,14 +143,14 @@ int32_t larkspur_table_cor(int32_t payload)
 /*
  * Table grav_pitch: gravity m g / 2 (m: vehicle plus payload).
  *   input: payload (0.1 kg per step)
- *   stored: int16_t entries; one stored step = 2^14 accumulator step at sin = 1 = 0.047328 N
+ *   stored: uint16_t entries; one stored step = 2^14 accumulator step at sin = 1 = 0.047328 N
  *   piece 0: x in 0..600 steps (0..60 kg); 1 segment of 1024 steps, breakpoints at x0 + k*1024
  *            worst error 0.028786 N (every input checked)
  *   from: body.mass = 38 kg, body.cog_ahead = -0.05 m, body.cog_height = 0.18 m,
  *         body.gyration_radius = 0.23 m, payload.mass_max = 60 kg, payload.cog_ahead = -0.06 m,
  *         payload.cog_height = 0.42 m, payload.gyration_radius = 0.2 m, wheels.track = 0.42 m
  */
-static const int16_t larkspur_tab_grav_pitch_0[2] = {
+static const uint16_t larkspur_tab_grav_pitch_0[2] = {
     3937, 14546
 };
 typedef char larkspur_tab_grav_pitch_0_size_check[(sizeof(larkspur_tab_grav_pitch_0) / sizeof(larkspur_tab_grav_pitch_0[0]) == 2) ? 1 : -1];
@@ -219,7 +219,7 @@ int32_t larkspur_table_grav_roll(int32_t payload)
 /*
  * Table roll_level: rolling resistance on cos(pitch) cos(roll).
  *   input: payload (0.1 kg per step)
- *   stored: int16_t entries; one stored step = 2^7 accumulator step at cos*cos = 1 = 0.00036975 N
+ *   stored: uint16_t entries; one stored step = 2^7 accumulator step at cos*cos = 1 = 0.00036975 N
  *   piece 0: x in 0..600 steps (0..60 kg); 1 segment of 1024 steps, breakpoints at x0 + k*1024
  *            worst error 0.000248717 N (every input checked)
  *   from: body.mass = 38 kg, body.cog_ahead = -0.05 m, body.cog_height = 0.18 m,
@@ -228,7 +228,7 @@ int32_t larkspur_table_grav_roll(int32_t payload)
  *         wheels.rolling_resistance = 0.012, casters.rolling_resistance = 0.02,
  *         casters.behind_axle = 0.42 m
  */
-static const int16_t larkspur_tab_roll_level_0[2] = {
+static const uint16_t larkspur_tab_roll_level_0[2] = {
     6527, 24374
 };
 typedef char larkspur_tab_roll_level_0_size_check[(sizeof(larkspur_tab_roll_level_0) / sizeof(larkspur_tab_roll_level_0[0]) == 2) ? 1 : -1];
@@ -299,12 +299,12 @@ int32_t larkspur_table_roll_slope(int32_t payload)
 /*
  * Table sin_pitch: sin(pitch).
  *   input: pitch (0.0005 rad per step), odd in pitch: |x| is stored
- *   stored: int16_t entries; one stored step = 2^-17 = 7.62939e-06
+ *   stored: uint16_t entries; one stored step = 2^-17 = 7.62939e-06
  *   piece 0: |x| in 0..175 steps (0..0.0875 rad); one entry per input step (no interpolation)
  *            worst error 3.81403e-06 1 (every input checked)
  *   from: firmware.angle_lsb = 0.0005 rad, envelope.pitch_max = 0.0872665 rad
  */
-static const int16_t larkspur_tab_sin_pitch_0[177] = {
+static const uint16_t larkspur_tab_sin_pitch_0[177] = {
     0, 66, 131, 197, 262, 328, 393, 459,
     524, 590, 655, 721, 786, 852, 917, 983,
     1049, 1114, 1180, 1245, 1311, 1376, 1442, 1507,
@@ -354,12 +354,12 @@ int32_t larkspur_table_sin_pitch(int32_t pitch)
 /*
  * Table cos_pitch: cos(pitch).
  *   input: pitch (0.0005 rad per step), even in pitch: |x| is stored
- *   stored: int16_t entries in Q1.14; one stored step = 2^-14 = 6.10352e-05
+ *   stored: uint16_t entries in Q1.14; one stored step = 2^-14 = 6.10352e-05
  *   piece 0: |x| in 0..175 steps (0..0.0875 rad); constant
  *            worst error 0.00193359 1 (every input checked)
  *   from: firmware.angle_lsb = 0.0005 rad, envelope.pitch_max = 0.0872665 rad
  */
-static const int16_t larkspur_tab_cos_pitch_0[1] = {
+static const uint16_t larkspur_tab_cos_pitch_0[1] = {
     16353
 };
 typedef char larkspur_tab_cos_pitch_0_size_check[(sizeof(larkspur_tab_cos_pitch_0) / sizeof(larkspur_tab_cos_pitch_0[0]) == 1) ? 1 : -1];
@@ -387,12 +387,12 @@ int32_t larkspur_table_cos_pitch(int32_t pitch)
 /*
  * Table sin_roll: sin(roll).
  *   input: roll (0.0005 rad per step), odd in roll: |x| is stored
- *   stored: int16_t entries; one stored step = 2^-18 = 3.8147e-06
+ *   stored: uint16_t entries; one stored step = 2^-18 = 3.8147e-06
  *   piece 0: |x| in 0..105 steps (0..0.0525 rad); one entry per input step (no interpolation)
  *            worst error 1.90388e-06 1 (every input checked)
  *   from: firmware.angle_lsb = 0.0005 rad, envelope.roll_max = 0.0523599 rad
  */
-static const int16_t larkspur_tab_sin_roll_0[107] = {
+static const uint16_t larkspur_tab_sin_roll_0[107] = {
     0, 131, 262, 393, 524, 655, 786, 918,
     1049, 1180, 1311, 1442, 1573, 1704, 1835, 1966,
     2097, 2228, 2359, 2490, 2621, 2752, 2884, 3015,
@@ -433,12 +433,12 @@ int32_t larkspur_table_sin_roll(int32_t roll)
 /*
  * Table cos_roll: cos(roll).
  *   input: roll (0.0005 rad per step), even in roll: |x| is stored
- *   stored: int16_t entries in Q1.14; one stored step = 2^-14 = 6.10352e-05
+ *   stored: uint16_t entries in Q1.14; one stored step = 2^-14 = 6.10352e-05
  *   piece 0: |x| in 0..105 steps (0..0.0525 rad); constant
  *            worst error 0.000706422 1 (every input checked)
  *   from: firmware.angle_lsb = 0.0005 rad, envelope.roll_max = 0.0523599 rad
  */
-static const int16_t larkspur_tab_cos_roll_0[1] = {
+static const uint16_t larkspur_tab_cos_roll_0[1] = {
     16373
 };
 typedef char larkspur_tab_cos_roll_0_size_check[(sizeof(larkspur_tab_cos_roll_0) / sizeof(larkspur_tab_cos_roll_0[0]) == 1) ? 1 : -1];
@@ -466,7 +466,7 @@ int32_t larkspur_table_cos_roll(int32_t roll)
 /*
  * Table friction: drivetrain friction F(u).
  *   input: speed (0.0005 m/s per step), odd in speed: |x| is stored
- *   stored: int16_t entries; one stored step = 2^7 accumulator step = 0.00036975 N
+ *   stored: uint16_t entries; one stored step = 2^7 accumulator step = 0.00036975 N
  *   piece 0: |x| in 0..30 steps (0..0.015 m/s), inside the deadband; one entry per input step (no interpolation)
  *            worst error 0.000172183 N (every input checked)
  *   piece 1: |x| in 31..1600 steps (0.0155..0.8 m/s), outside the deadband; 64 segments of 32 steps, breakpoints at x0 + k*32
@@ -474,14 +474,14 @@ int32_t larkspur_table_cos_roll(int32_t roll)
  *   from: friction.coulomb = 4.5 N, friction.breakaway = 6.5 N, friction.stribeck_speed = 0.03 m/s,
  *         friction.viscous = 3 N*s/m, friction.deadband = 0.015 m/s, friction.deadband_shape = ramp
  */
-static const int16_t larkspur_tab_friction_0[32] = {
+static const uint16_t larkspur_tab_friction_0[32] = {
     0, 590, 1180, 1769, 2357, 2944, 3529, 4113,
     4695, 5274, 5851, 6425, 6996, 7563, 8127, 8687,
     9243, 9794, 10341, 10884, 11422, 11954, 12482, 13004,
     13521, 14033, 14538, 15039, 15533, 16022, 16505, 16982
 };
 typedef char larkspur_tab_friction_0_size_check[(sizeof(larkspur_tab_friction_0) / sizeof(larkspur_tab_friction_0[0]) == 32) ? 1 : -1];
-static const int16_t larkspur_tab_friction_1[65] = {
+static const uint16_t larkspur_tab_friction_1[65] = {
     16438, 14222, 12997, 12747, 12820, 12945, 13075, 13205,
     13335, 13465, 13594, 13724, 13854, 13984, 14114, 14243,
     14373, 14503, 14633, 14763, 14892, 15022, 15152, 15282,
@@ -523,21 +523,21 @@ int32_t larkspur_table_friction(int32_t speed)
 /*
  * Table shape: deadband shape s(u), ramp.
  *   input: speed (0.0005 m/s per step), odd in speed: |x| is stored
- *   stored: int16_t entries in Q2.13; one stored step = 2^-13 = 0.00012207
+ *   stored: uint16_t entries in Q2.13; one stored step = 2^-13 = 0.00012207
  *   piece 0: |x| in 0..30 steps (0..0.015 m/s), inside the deadband; one entry per input step (no interpolation)
  *            worst error 5.69661e-05 1 (every input checked)
  *   piece 1: |x| in 31..1600 steps (0.0155..0.8 m/s), outside the deadband; constant
  *            worst error 0 1 (every input checked)
  *   from: friction.deadband = 0.015 m/s, friction.deadband_shape = ramp
  */
-static const int16_t larkspur_tab_shape_0[32] = {
+static const uint16_t larkspur_tab_shape_0[32] = {
     0, 273, 546, 819, 1092, 1365, 1638, 1911,
     2185, 2458, 2731, 3004, 3277, 3550, 3823, 4096,
     4369, 4642, 4915, 5188, 5461, 5734, 6007, 6281,
     6554, 6827, 7100, 7373, 7646, 7919, 8192, 8465
 };
 typedef char larkspur_tab_shape_0_size_check[(sizeof(larkspur_tab_shape_0) / sizeof(larkspur_tab_shape_0[0]) == 32) ? 1 : -1];
-static const int16_t larkspur_tab_shape_1[1] = {
+static const uint16_t larkspur_tab_shape_1[1] = {
     8192
 };
 typedef char larkspur_tab_shape_1_size_check[(sizeof(larkspur_tab_shape_1) / sizeof(larkspur_tab_shape_1[0]) == 1) ? 1 : -1];
@@ -567,7 +567,7 @@ int32_t larkspur_table_shape(int32_t speed)
 /*
  * Table minv11: inverse mass matrix entry 11.
  *   input: payload (0.1 kg per step)
- *   stored: int16_t entries; one stored step = 2^-27 accel step per accumulator step = 2.57924e-06 1/kg
+ *   stored: uint16_t entries; one stored step = 2^-27 accel step per accumulator step = 2.57924e-06 1/kg
  *   piece 0: x in 0..600 steps (0..60 kg); 64 segments of 16 steps, breakpoints at x0 + k*16
  *            worst error 1.18825e-05 1/kg (every input checked)
  *   from: body.mass = 38 kg, body.cog_ahead = -0.05 m, body.cog_height = 0.18 m,
@@ -576,7 +576,7 @@ int32_t larkspur_table_shape(int32_t speed)
  *         wheels.diameter = 0.15 m, wheels.inertia = 0.0045 kg*m^2, drive.gear_ratio = 18,
  *         drive.rotor_inertia = 2.2e-05 kg*m^2
  */
-static const int16_t larkspur_tab_minv11_0[65] = {
+static const uint16_t larkspur_tab_minv11_0[65] = {
     16676, 16118, 15597, 15109, 14650, 14219, 13813, 13429,
     13066, 12723, 12397, 12088, 11793, 11513, 11246, 10991,
     10747, 10514, 10291, 10078, 9873, 9676, 9487, 9305,
@@ -616,7 +616,7 @@ int32_t larkspur_table_minv11(int32_t payload)
 /*
  * Table minv12: inverse mass matrix entry 12.
  *   input: payload (0.1 kg per step)
- *   stored: int16_t entries; one stored step = 2^-31 accel step per accumulator step = 1.61203e-07 1/kg
+ *   stored: uint16_t entries; one stored step = 2^-31 accel step per accumulator step = 1.61203e-07 1/kg
  *   piece 0: x in 0..600 steps (0..60 kg); 32 segments of 32 steps, breakpoints at x0 + k*32
  *            worst error 1.42503e-05 1/kg (every input checked)
  *   from: body.mass = 38 kg, body.cog_ahead = -0.05 m, body.cog_height = 0.18 m,
@@ -625,7 +625,7 @@ int32_t larkspur_table_minv11(int32_t payload)
  *         wheels.diameter = 0.15 m, wheels.inertia = 0.0045 kg*m^2, drive.gear_ratio = 18,
  *         drive.rotor_inertia = 2.2e-05 kg*m^2
  */
-static const int16_t larkspur_tab_minv12_0[33] = {
+static const uint16_t larkspur_tab_minv12_0[33] = {
     27637, 24119, 21225, 18814, 16786, 15064, 13588, 12315,
     11210, 10243, 9393, 8642, 7975, 7381, 6848, 6370,
     5938, 5547, 5192, 4869, 4574, 4304, 4056, 3829,
