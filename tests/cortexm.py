@@ -61,7 +61,11 @@ def compile_elf(sources: list[Path], target: str, entry: str, out: Path, extra: 
     return out
 
 
-GCC_TARGETS = {"cortex_m0plus": ["-mcpu=cortex-m0plus", "-mthumb"], "cortex_m4": ["-mcpu=cortex-m4", "-mthumb"]}
+GCC_TARGETS = {
+    "cortex_m0plus": ["-mcpu=cortex-m0plus", "-mthumb"],
+    "cortex_m4": ["-mcpu=cortex-m4", "-mthumb"],
+    "cortex_m4f": ["-mcpu=cortex-m4", "-mthumb", "-mfloat-abi=hard", "-mfpu=fpv4-sp-d16"],
+}
 
 
 def arm_gcc_available() -> bool:

@@ -61,18 +61,40 @@ def counts(fw: synthesis.Firmware, target: str, opt: str, compiler: str = "zig")
     return result
 
 
+def float_m4f(fw: synthesis.Firmware, opt: str, compiler: str = "zig") -> float:
+    """Median instructions of the float model (float_ff.c, the FPU) per call on Cortex-M4F."""
+    from tests.benchmarks import bench_cortexm
+
+    rows = vectors.feedforward_table(fw, 600)
+    with tempfile.TemporaryDirectory() as tmp:
+        folder = Path(tmp)
+        (folder / "float_params.h").write_text(bench_cortexm.float_params(fw))
+        build = cortexm.compile_elf if compiler == "zig" else cortexm.compile_elf_gcc
+        elf = build(
+            [HERE / "float_ff.c"],
+            "cortex_m4f",
+            "bl_feedforward",
+            folder / "float.elf",
+            extra=[f"-I{folder}", "-Wno-double-promotion", opt],
+        )
+        m = cortexm.Machine.load(elf, "cortex_m4", count=True)
+        return float(statistics.median(m.call(interface.FF_IN.pack(r[:N_IN]), interface.FF_OUT.size)[1] for r in rows))
+
+
 def main() -> None:
     demo = model.load(DEMO_PATH)
     twin = dataclasses.replace(demo, firmware=dataclasses.replace(demo.firmware, word="int32"))
-    results = {}
+    results, floats = {}, {}
+    compilers = ["zig"] + (["gcc-arm-none-eabi"] if cortexm.arm_gcc_available() else [])
     for label, v in (("int16 (demo)", demo), ("int32 twin", twin)):
         fw = synthesis.synthesise(v)
-        compilers = ["zig"] + (["gcc-arm-none-eabi"] if cortexm.arm_gcc_available() else [])
         for target in ("cortex_m0plus", "cortex_m4"):
             for compiler in compilers:
                 for opt in ("-O2", "-Os"):
                     results[f"{label}, {target}, {compiler} {opt}"] = counts(fw, target, opt, compiler)
-    (HERE / "split_results.json").write_text(json.dumps(results, indent=2) + "\n")
+                    if label.startswith("int16") and target == "cortex_m4":
+                        floats[f"{compiler} {opt}"] = float_m4f(fw, opt, compiler)
+    (HERE / "split_results.json").write_text(json.dumps({"integer": results, "float_m4f": floats}, indent=2) + "\n")
     lines = [
         "# Two-rate feed-forward, instructions per call (both wheels, median; unicorn); flash: slow, fast and "
         "one-call functions with the tables; stack: the one-call form",
@@ -84,6 +106,20 @@ def main() -> None:
         f"| {k} | {r['slow']:.0f} | {r['fast']:.0f} | {r['one_call']:.0f} | {r['flash']} | {r['stack']} |"
         for k, r in results.items()
     ]
+    lines += [
+        "",
+        "Cortex-M4, the demo against its float model on the FPU (tests/benchmarks/float_ff.c, Cortex-M4F), "
+        "same compiler and setting:",
+        "",
+        "| compiler | float (FPU) | one-call form | ratio | fast part | ratio |",
+        "|---|---|---|---|---|---|",
+    ]
+    for key, flt in floats.items():
+        r = results[f"int16 (demo), cortex_m4, {key}"]
+        lines.append(
+            f"| {key} | {flt:.0f} | {r['one_call']:.0f} | {r['one_call'] / flt:.2f} | {r['fast']:.0f} | "
+            f"{r['fast'] / flt:.2f} |"
+        )
     (HERE / "split_results.md").write_text("\n".join(lines) + "\n")
     print("\n".join(lines))
 
