@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import shutil
 import subprocess
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -129,6 +130,34 @@ def test_cortex_m_same_integers_as_host(demo_dir, target, tmp_path):
         n = len(interface.FF_IN.columns)
         out, _ = machine.call(interface.FF_IN.pack(row[:n]), interface.FF_OUT.size)
         assert interface.FF_OUT.unpack(out) == tuple(int(x) for x in row[n:]), row
+
+
+@pytest.mark.slow
+@pytest.mark.skipif(not cortexm.zig_available(), reason="pip install ziglang")
+@pytest.mark.parametrize("target", ["cortex_m0plus", "cortex_m4"])
+@pytest.mark.parametrize("word", ["int16", "int32"])
+def test_cortex_m_both_rates_same_integers_as_the_emulator(target, word, tmp_path):
+    """slow + fast and the one-call form on the core itself (arithmetic shifts, the two-part products of
+    int32 models), against the emulator on golden vectors."""
+    import dataclasses
+
+    import jinja2
+
+    v = demo_firmware().vehicle
+    fw = synthesis.synthesise(dataclasses.replace(v, firmware=dataclasses.replace(v.firmware, word=word)))
+    write_files(tmp_path, render.render(fw))
+    bench = Path(__file__).parent / "benchmarks" / "split_bench.c.j2"
+    (tmp_path / "entry.c").write_text(jinja2.Template(bench.read_text()).render(prefix=fw.vehicle.name))
+    sources = [tmp_path / "entry.c", tmp_path / f"{fw.vehicle.name}_ff.c"]
+    machine = cortexm.Machine.load(
+        cortexm.compile_elf(sources, target, "bench_entry", tmp_path / "e.elf", extra=[f"-I{tmp_path}"]), target
+    )
+    n = len(interface.FF_IN.columns)
+    for row in vectors.feedforward_table(fw, 800):
+        for mode in (0, 1, 2):  # slow part, fast part (after it), one-call form
+            out, _ = machine.call(np.array([mode, *row[:n]], dtype="<i4").tobytes(), interface.FF_OUT.size)
+            if mode:
+                assert interface.FF_OUT.unpack(out) == tuple(int(x) for x in row[n:]), (mode, row)
 
 
 @needs_gcc
