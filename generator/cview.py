@@ -274,6 +274,17 @@ def _split_view(op: Mul, operand: str) -> dict[str, Any]:
     return {"split": True, "hi": hi, "by": by, "mask": f"0x{(1 << op.shift) - 1:X}"}
 
 
+OPERANDS = ("a", "b", "src", "speed", "hi", "by")
+
+
+def _renamed(view: dict[str, Any], reads: dict[str, str]) -> dict[str, Any]:
+    """An op view whose operands named in `reads` are read through that expression instead."""
+    out = {k: reads.get(v, v) if k in OPERANDS and isinstance(v, str) else v for k, v in view.items()}
+    if "terms" in out:
+        out["terms"] = [(sign, reads.get(name, name)) for sign, name in out["terms"]]
+    return out
+
+
 GroupKey = tuple[str, bool, int | None]
 
 
@@ -293,10 +304,12 @@ def program_view(
     *,
     ops: tuple[Op, ...] | None = None,
     flags: str = "flags",
+    reads: dict[str, str] | None = None,
 ) -> dict[str, Any]:
     """One view per op (of `ops`, default all); adjacent lookups of the same input with the same split
     share one inline block (one |x|, one comparison), which the compiler cannot merge across two calls
-    on its own. `flags` is how the clamp bits are stored after the last clamp."""
+    on its own. `flags` is how the clamp bits are stored after the last clamp; `reads` maps signals to
+    the C expression that reads them where they are used (the fast part's state members)."""
     views: list[dict[str, Any]] = []
     ops = tuple(prog.ops) if ops is None else ops
     k = 0
@@ -314,7 +327,8 @@ def program_view(
                 {"kind": "group", "src": key[0], "abs": key[1], "split": key[2], "members": members, "needs_x": needs_x}
             )
         else:
-            views.append(_op_view(ops[k], proof, [n for n, _ in prog.call.clamp_names(prefix)], prefix))
+            view = _op_view(ops[k], proof, [n for n, _ in prog.call.clamp_names(prefix)], prefix)
+            views.append(_renamed(view, reads) if reads else view)
         k = j
     last = max(i for i, v in enumerate(views) if v["kind"] == "clamp")
     views.insert(last + 1, {"kind": flags})
@@ -331,7 +345,15 @@ def split_view(fw: Firmware, tables: dict[str, dict[str, Any]], prefix: str) -> 
         state.append({"name": name, "comment": f"{r.lo} .. {r.hi}"})
     return {
         "slow": program_view(prog, fw.ff_proof, tables, prefix, ops=parts.slow, flags="flags_state"),
-        "fast": program_view(prog, fw.ff_proof, tables, prefix, ops=parts.fast, flags="flags_merge"),
+        "fast": program_view(
+            prog,
+            fw.ff_proof,
+            tables,
+            prefix,
+            ops=parts.fast,
+            flags="flags_merge",
+            reads={name: f"state->{name}" for name in parts.state},  # at each use: no copies to spill
+        ),
         "state": state,
     }
 

@@ -1006,12 +1006,6 @@ void larkspur_ff_slow(const larkspur_ff_in_t *in, larkspur_ff_state_t *state)
 void larkspur_ff_fast(const larkspur_ff_in_t *in, const larkspur_ff_state_t *state, larkspur_ff_out_t *out)
 {
     uint32_t clamped = 0u;
-    const int32_t t_cor = state->t_cor;
-    const int32_t grav_r = state->grav_r;
-    const int32_t grav_l = state->grav_l;
-    const int32_t t_m11 = state->t_m11;
-    const int32_t t_m12 = state->t_m12;
-    const int32_t r_level_s5 = state->r_level_s5;
     int32_t speed_r = in->speed[0];
     if (LARKSPUR_UNLIKELY((uint32_t)speed_r + 1600u > 3200u)) { /* outside -1600..1600: one unsigned test */
         speed_r = (speed_r < -1600) ? -1600 : 1600;
@@ -1034,7 +1028,7 @@ void larkspur_ff_fast(const larkspur_ff_in_t *in, const larkspur_ff_state_t *sta
     }
     out->clamped = clamped | state->clamped; /* every input is clamped by now */
     const int32_t d_speed = speed_r - speed_l;
-    const int32_t cor_pre = t_cor * d_speed;
+    const int32_t cor_pre = state->t_cor * d_speed;
     const int32_t cor_pre_s6 = (cor_pre + 32) >> 6;
     const int32_t cor_r = (cor_pre_s6 * speed_l + 32) >> 6;
     int32_t t_fric_r;
@@ -1067,10 +1061,10 @@ void larkspur_ff_fast(const larkspur_ff_in_t *in, const larkspur_ff_state_t *sta
         }
     }
     const int32_t fric_r = t_fric_r * 128;
-    const int32_t roll_r = (r_level_s5 * t_shape_r + 128) >> 8;
-    const int32_t passive_r = cor_r + fric_r + roll_r + grav_r;
-    const int32_t in_self_r = t_m11 * accel_r;
-    const int32_t in_other_r = (t_m12 * accel_l + 16) >> 5;
+    const int32_t roll_r = (state->r_level_s5 * t_shape_r + 128) >> 8;
+    const int32_t passive_r = cor_r + fric_r + roll_r + state->grav_r;
+    const int32_t in_self_r = state->t_m11 * accel_r;
+    const int32_t in_other_r = (state->t_m12 * accel_l + 16) >> 5;
     const int32_t total_r = in_self_r + in_other_r + passive_r;
     int32_t motor_r = total_r;
     if (speed_r != 0 && (total_r ^ speed_r) < 0) { /* moving, and force against the motion */
@@ -1110,10 +1104,10 @@ void larkspur_ff_fast(const larkspur_ff_in_t *in, const larkspur_ff_state_t *sta
         }
     }
     const int32_t fric_l = t_fric_l * 128;
-    const int32_t roll_l = (r_level_s5 * t_shape_l + 128) >> 8;
-    const int32_t passive_l = -cor_l + fric_l + roll_l + grav_l;
-    const int32_t in_self_l = t_m11 * accel_l;
-    const int32_t in_other_l = (t_m12 * accel_r + 16) >> 5;
+    const int32_t roll_l = (state->r_level_s5 * t_shape_l + 128) >> 8;
+    const int32_t passive_l = -cor_l + fric_l + roll_l + state->grav_l;
+    const int32_t in_self_l = state->t_m11 * accel_l;
+    const int32_t in_other_l = (state->t_m12 * accel_r + 16) >> 5;
     const int32_t total_l = in_self_l + in_other_l + passive_l;
     int32_t motor_l = total_l;
     if (speed_l != 0 && (total_l ^ speed_l) < 0) { /* moving, and force against the motion */
