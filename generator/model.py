@@ -249,7 +249,7 @@ def _read_value(src: str, where: str, spec: Key, raw: Any) -> float | str:
         return raw
     if spec.kind is RATIO:
         if isinstance(raw, bool) or not isinstance(raw, (int, float)):
-            raise ModelError(src, where, "a bare number (a ratio, no unit)", _describe(raw))
+            raise ModelError(src, where, "a bare number, no unit", _describe(raw))
         value = float(raw)
         if not math.isfinite(value):
             raise ModelError(src, where, "a finite number", _describe(raw))
