@@ -279,7 +279,7 @@ OPERANDS = ("a", "b", "src", "speed", "hi", "by")
 
 def _renamed(view: dict[str, Any], reads: dict[str, str]) -> dict[str, Any]:
     """An op view whose operands named in `reads` are read through that expression instead."""
-    out = {k: reads.get(v, v) if k in OPERANDS and isinstance(v, str) else v for k, v in view.items()}
+    out: dict[str, Any] = {k: reads.get(v, v) if k in OPERANDS and isinstance(v, str) else v for k, v in view.items()}
     if "terms" in out:
         out["terms"] = [(sign, reads.get(name, name)) for sign, name in out["terms"]]
     return out

@@ -23,7 +23,9 @@ from .messages import FaultCode
 ANSWER_TIMEOUT_S = 2.0  # no frame from the controller this long while running: it stopped answering
 HELLO_TRIES = 3
 HELLO_WAIT_S = 1.0
-RESEND_S = 0.005  # a setpoint not received this long after sending is sent again (with all after it)
+RESEND_S = 0.005  # a setpoint the controller reports missing this long after it was sent is sent again
+START_RESEND_S = 0.05  # before the first sample: no report yet, so resend the prefill after this long
+PREFILL_MAX = 64  # the run starts after half the FIFO or this many setpoints; a deep FIFO fills as it runs
 
 
 class BenchFailed(CheckFailed):
@@ -129,22 +131,34 @@ class Stream:
     next_index: int = 0  # the next row to send
     free: int = 0  # free slots the controller last reported
     acked: int = -1  # index of the newest setpoint the controller had received then
+    heard_at: float | None = None  # when the controller last reported (None: not yet)
     sent_at: list[float] = field(default_factory=list)
 
     def credit(self) -> int:
         """Free slots less the setpoints sent since the report."""
         return max(0, self.free - (self.next_index - 1 - self.acked))
 
-    def report(self, free: int, last_rx: int) -> None:
+    def report(self, free: int, last_rx: int, now: float) -> None:
         """A sample's free slots and last received sequence number (unwrapped near what was sent)."""
         self.free = free
         behind = (self.first_seq + self.next_index - 1 - last_rx) & 0xFFFF
         self.acked = max(self.acked, self.next_index - 1 - behind)
+        self.next_index = max(self.next_index, self.acked + 1)  # never send again what has arrived
+        self.heard_at = now
 
     def repair(self, now: float) -> None:
-        """Go back to the first setpoint not received, when it has been on its way for RESEND_S."""
+        """Go back to the first setpoint not received when the controller, reporting at least RESEND_S
+        after it was sent, still lacks it. Before its first report (a deep FIFO's prefill can take
+        longer than RESEND_S to send) only when nothing has been sent for START_RESEND_S, well within
+        the controller's watchdog."""
         first_missing = self.acked + 1
-        if first_missing < self.next_index and now - self.sent_at[first_missing] > RESEND_S:
+        if first_missing >= self.next_index:
+            return
+        if self.heard_at is None:
+            due = now - self.sent_at[self.next_index - 1] > START_RESEND_S
+        else:
+            due = self.heard_at - self.sent_at[first_missing] > RESEND_S
+        if due:
             self.next_index = first_missing
 
     def take(self, most: int, now: float) -> list[messages.Message]:
@@ -175,7 +189,7 @@ def run(
     HALT on every way out."""
     first = 1
     stream = Stream(rows, first)
-    armed = _arm(link, min(max(1, ident.fifo_depth // 2), len(rows)), port_name)
+    armed = _arm(link, min(max(1, ident.fifo_depth // 2), PREFILL_MAX, len(rows)), port_name)
     stream.free, counters.fifo_depth, counters.fifo_free = armed.free, ident.fifo_depth, armed.free
     expected, last_heard = 0, time.monotonic()
     while True:
@@ -203,7 +217,7 @@ def run(
                     on_sample(expected, msg)
                     counters.samples, counters.fifo_free = counters.samples + 1, msg.free
                 expected += 1
-                stream.report(msg.free, msg.last_rx)
+                stream.report(msg.free, msg.last_rx, now)
             elif isinstance(msg, messages.Fault):
                 if msg.code == FaultCode.END and msg.seq == (first + len(rows) - 1) & 0xFFFF:
                     counters.missing += len(rows) - expected  # the last samples lost on the way
