@@ -1,6 +1,6 @@
 """Run every benchmark on the demo model and write tests/benchmarks/results.md (and .json).
 
-python tests/benchmarks/run.py            # all: about nine minutes on a plain 2-core machine
+python tests/benchmarks/run.py            # all: about forty minutes on a plain 2-core machine (two exhaustive searches)
 python tests/benchmarks/run.py cortexm    # one part (tables, build, cortexm), others kept from results.json
 """
 
@@ -71,8 +71,10 @@ def markdown(r: dict) -> str:
         f"2048 bytes) | {oi['instructions']} / {oi['bytes']} |",
         f"| same, exhaustive search ({ei['combinations']:,} combinations, {ei['seconds']:.0f} s) | "
         f"{ei['instructions']} / {ei['bytes']} |",
-        f"| same, naive 256 segments per piece | {nv['bytes']} (bound {nv['bound_a'] * 1000:.2f} mA) |",
-        f"| same, smallest single segment count for every piece ({un['segments']}) | {un['bytes']} |",
+        f"| feed-forward table bytes, naive 256 segments per piece | {nv['bytes']} "
+        f"(bound {nv['bound_a'] * 1000:.2f} mA) |",
+        f"| feed-forward table bytes, smallest single segment count for every piece ({un['segments']}) | "
+        f"{un['bytes']} |",
         f"| forward-dynamics (M^-1) table bytes | {t['forward_bytes']} |",
         f"| end-to-end max error / budget ({t['points']:,} points) | {t['max_error_over_budget']:.3f} |",
         f"| proven bound / budget | {t['bound_over_budget']:.3f} |",
