@@ -29,6 +29,12 @@ interpolated (indexed). Measured on Cortex-M0+ with zig and gcc-arm-none-eabi at
 15; tests/benchmarks/bench_piece_cost.py); the constant counted as 1, the load of its value."""
 
 
+def piece_instructions(data: tb.PieceData) -> int:
+    """Instructions of one lookup of a piece by its kind: constant, direct, one segment or indexed."""
+    kind = 0 if data.segments == 0 else 1 if data.shift == 0 else 2 if data.segments == 1 else 3
+    return PIECE_INSTRUCTIONS[kind]
+
+
 @dataclass(frozen=True)
 class Objective:
     """What the search minimises within the budget: "bytes", or "instructions" then bytes, under a cap
@@ -57,10 +63,8 @@ class Unit:
         return self.cands.errors[k].total
 
     def instructions(self, k: int) -> int:
-        """The cost model: instructions of this piece's lookup per call (PIECE_INSTRUCTIONS by kind)."""
-        data = self.cands.data[k]
-        kind = 0 if data.segments == 0 else 1 if data.shift == 0 else 2 if data.segments == 1 else 3
-        return PIECE_INSTRUCTIONS[kind] * self.lookups
+        """The cost model: instructions of this piece's lookups per call."""
+        return piece_instructions(self.cands.data[k]) * self.lookups
 
     def cost(self, k: int, goal: str) -> int:
         return self.bytes(k) + (self.instructions(k) * INSTRUCTION_WEIGHT if goal == "instructions" else 0)

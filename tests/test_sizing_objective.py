@@ -9,7 +9,7 @@ import itertools
 import numpy as np
 from hypothesis import given, settings
 from hypothesis import strategies as st
-from kinetab.generator import sizing, synthesis
+from kinetab.generator import program, sizing, synthesis
 from kinetab.generator import tables as tb
 
 from tests.firmware_fixtures import demo_firmware
@@ -79,22 +79,8 @@ def test_instruction_objective_on_the_demo_trades_bytes_for_instructions_within_
 
 def _instructions(fw: synthesis.Firmware) -> int:
     """The cost model summed over the feed-forward's lookups (as the sizing counts them)."""
-    kinds = {"constant": 0, "direct": 1, "one": 2, "indexed": 3}
-    total = 0
-    for op in fw.design.feedforward.ops:
-        table = getattr(op, "table", None)
-        for data in fw.tables[table].pieces if table else ():
-            kind = (
-                "constant"
-                if data.segments == 0
-                else "direct"
-                if data.shift == 0
-                else "one"
-                if data.segments == 1
-                else "indexed"
-            )
-            total += sizing.PIECE_INSTRUCTIONS[kinds[kind]]
-    return total
+    tables = [op.table for op in fw.design.feedforward.ops if isinstance(op, program.Lookup)]
+    return sum(sizing.piece_instructions(d) for t in tables for d in fw.tables[t].pieces)
 
 
 def test_a_cap_below_what_the_budget_needs_sizes_for_bytes_and_says_so():

@@ -33,15 +33,10 @@ def _units(des: program.Design, names: list[str]) -> list[tuple[str, int, list[i
                 if e < best or (direct and e <= best):
                     segs.append(count)
                     errs.append(e)
-                    instr.append(_instructions(data) * lookups)
+                    instr.append(sizing.piece_instructions(data) * lookups)
                     best = min(best, e)
             out.append((n, k, segs, errs, instr))
     return out
-
-
-def _instructions(data: tb.PieceData) -> int:
-    kind = 0 if data.segments == 0 else 1 if data.shift == 0 else 2 if data.segments == 1 else 3
-    return sizing.PIECE_INSTRUCTIONS[kind]
 
 
 def _merge(units, errs_per_unit):
@@ -122,7 +117,7 @@ def ff_instructions(fw: synthesis.Firmware) -> int:
     for op in fw.design.feedforward.ops:
         table = getattr(op, "table", None)
         if table is not None:
-            total += sum(_instructions(d) for d in fw.tables[table].pieces)
+            total += sum(sizing.piece_instructions(d) for d in fw.tables[table].pieces)
     return total
 
 
