@@ -186,8 +186,8 @@ def sizing_note(fw: Firmware) -> str:
         return "sized for fewest table bytes"
     if fw.over_cap:
         return (
-            f"firmware.table_bytes_max = {f.table_bytes_max:g} is below the fewest bytes the budget needs "
-            f"({fw.total_bytes}): sized for fewest table bytes instead"
+            f"firmware.table_bytes_max = {f.table_bytes_max:g} is less than the budget needs: the tables take "
+            f"{fw.total_bytes} bytes, sized for fewest bytes where the cap fell short"
         )
     return f"sized for fewest lookup instructions within {f.table_bytes_max:g} table bytes"
 
