@@ -212,6 +212,13 @@ def _profile(p: Any) -> Any:
     show_default=True,
     help="Setpoint FIFO depth of the controller.",
 )
+@click.option(
+    "--watchdog",
+    type=QuantityType(SECONDS, "ms"),
+    default="100 ms",
+    show_default=True,
+    help="Halt the motors after this long without a valid frame (bare number: ms).",
+)
 @click.option("--drop-rate", type=click.FloatRange(0, 1), default=0.0, help="Test faults: drop bytes (probability).")
 @click.option("--corrupt-rate", type=click.FloatRange(0, 1), default=0.0, help="Test faults: flip a bit (probability).")
 @click.option(
@@ -235,6 +242,7 @@ def simulate(
     rig: str,
     encoder_counts: int,
     fifo_depth: int,
+    watchdog: float,
     drop_rate: float,
     corrupt_rate: float,
     delay: float,
@@ -253,11 +261,15 @@ def simulate(
     truth = model.load(truth_path) if truth_path else v
     if not 0.0001 <= period <= 0.1:
         raise UserError("bench simulate: --period: expected between 0.1 ms and 100 ms")
+    if not period <= watchdog <= 60:
+        raise UserError("bench simulate: --watchdog: expected between one control period and 60 s")
     fw = synthesis.synthesise(v)
     opts = PlantOptions(period_s=period, rig=rig, current_noise_a=noise, encoder_counts=encoder_counts, seed=seed)
     faults = LinkFaults(drop_rate, corrupt_rate, delay, garbage_every, seed)
     with tempfile.TemporaryDirectory(prefix="kinetab-sim-") as tmp:
-        sim = Simulator(fw, truth, options=opts, faults=faults, fifo_depth=fifo_depth, folder=Path(tmp))
+        sim = Simulator(
+            fw, truth, options=opts, faults=faults, fifo_depth=fifo_depth, folder=Path(tmp), watchdog_s=watchdog
+        )
         code = sim.run()
     sys.exit(code)
 

@@ -20,7 +20,9 @@ def _lvalues(st: interface.Struct) -> list[str]:
     return [f"{m.name}[{k}]" if m.count == 2 else m.name for m in st.members for k in range(m.count)]
 
 
-def context(fw: Firmware, *, period_us: int = PERIOD_US, fifo_depth: int = FIFO_DEPTH) -> dict[str, Any]:
+def context(
+    fw: Firmware, *, period_us: int = PERIOD_US, fifo_depth: int = FIFO_DEPTH, watchdog_ticks: int = WATCHDOG_TICKS
+) -> dict[str, Any]:
     """Everything the link templates print; message layouts come from hil.messages."""
     prefix = fw.vehicle.name
     names = interface.file_names(prefix)
@@ -39,7 +41,7 @@ def context(fw: Firmware, *, period_us: int = PERIOD_US, fifo_depth: int = FIFO_
         "protocol": messages.PROTOCOL_VERSION,
         "fifo_depth": fifo_depth,
         "period_us": period_us,
-        "watchdog_ticks": WATCHDOG_TICKS,
+        "watchdog_ticks": watchdog_ticks,
         "max_frame": framing.MAX_FRAME,
         "crc_rows": cformat.rows([f"0x{x:04X}u" for x in framing.crc_table()], per_row=8),
         "kinds": kinds,
@@ -55,7 +57,9 @@ def context(fw: Firmware, *, period_us: int = PERIOD_US, fifo_depth: int = FIFO_
     }
 
 
-def render_link(fw: Firmware, *, period_us: int = PERIOD_US, fifo_depth: int = FIFO_DEPTH) -> dict[str, str]:
+def render_link(
+    fw: Firmware, *, period_us: int = PERIOD_US, fifo_depth: int = FIFO_DEPTH, watchdog_ticks: int = WATCHDOG_TICKS
+) -> dict[str, str]:
     """`<name>_link.h` and `<name>_link.c`: the controller side, for the same vehicle as its _ff files."""
-    ctx = context(fw, period_us=period_us, fifo_depth=fifo_depth)
+    ctx = context(fw, period_us=period_us, fifo_depth=fifo_depth, watchdog_ticks=watchdog_ticks)
     return render.render_set(render.LINK, fw.vehicle.name, ctx)

@@ -8,6 +8,7 @@ up from the free-slot count each sample reports, so host and USB jitter never re
 from __future__ import annotations
 
 import signal
+import threading
 import time
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
@@ -191,8 +192,24 @@ def run(
     stream = Stream(rows, first)
     armed = _arm(link, min(max(1, ident.fifo_depth // 2), PREFILL_MAX, len(rows)), port_name)
     stream.free, counters.fifo_depth, counters.fifo_free = armed.free, ident.fifo_depth, armed.free
+    with SafePoints() as safe:
+        return _stream(link, stream, on_sample=on_sample, counters=counters, port_name=port_name, safe=safe)
+
+
+def _stream(
+    link: Link,
+    stream: Stream,
+    *,
+    on_sample: Callable[[int, messages.Sample], None],
+    counters: Counters,
+    port_name: str,
+    safe: SafePoints,
+) -> str:
+    """The streaming loop of run(); Ctrl-C and SIGTERM take effect at its top, between samples."""
+    rows, first = stream.rows, stream.first_seq
     expected, last_heard = 0, time.monotonic()
     while True:
+        safe.check()
         now = time.monotonic()
         stream.repair(now)
         link.send_many(stream.take(32, now))
@@ -213,9 +230,8 @@ def run(
                     continue
                 counters.missing += ahead
                 expected += ahead
-                with _signals_deferred():  # the log row and the count stay in step on Ctrl-C or SIGTERM
-                    on_sample(expected, msg)
-                    counters.samples, counters.fifo_free = counters.samples + 1, msg.free
+                on_sample(expected, msg)  # a signal waits for safe.check(): the log row and the count agree
+                counters.samples, counters.fifo_free = counters.samples + 1, msg.free
                 expected += 1
                 stream.report(msg.free, msg.last_rx, now)
             elif isinstance(msg, messages.Fault):
@@ -226,15 +242,39 @@ def run(
                 return _on_fault(msg, expected, len(rows), counters, port_name=port_name)
 
 
-@contextmanager
-def _signals_deferred() -> Iterator[None]:
-    """Hold SIGINT and SIGTERM until the block is done (they are delivered right after)."""
-    held = {signal.SIGINT, signal.SIGTERM}
-    old = signal.pthread_sigmask(signal.SIG_BLOCK, held)
-    try:
-        yield
-    finally:
-        signal.pthread_sigmask(signal.SIG_SETMASK, old)
+class SafePoints:
+    """SIGINT and SIGTERM recorded while streaming and delivered at check(), between samples, so a log
+    row and the sample count never part. Masking the signals around each row was not enough: a signal
+    that reached the process just before the mask still ran its Python handler inside the block (seen
+    once in CI: 1,950 rows, 1,949 counted). Outside the main thread (tests, libraries) it does nothing."""
+
+    def __init__(self) -> None:
+        self.pending: list[int] = []
+        self.previous: dict[int, Any] = {}
+
+    def __enter__(self) -> SafePoints:
+        if threading.current_thread() is threading.main_thread():
+            self.previous = {s: signal.signal(s, self._record) for s in (signal.SIGINT, signal.SIGTERM)}
+        return self
+
+    def _record(self, signum: int, _frame: Any) -> None:
+        self.pending.append(signum)
+
+    def check(self) -> None:
+        """Deliver a recorded signal now, to the handler that was in place before (it may raise)."""
+        if self.pending:
+            self._restore()
+            signal.raise_signal(self.pending.pop(0))
+
+    def _restore(self) -> None:
+        for sig, handler in self.previous.items():
+            signal.signal(sig, handler)
+        self.previous = {}
+
+    def __exit__(self, exc_type: type[BaseException] | None, *_exc: object) -> None:
+        self._restore()
+        if self.pending and exc_type is None:  # arrived after the last check: deliver it now
+            signal.raise_signal(self.pending.pop(0))
 
 
 def _arm(link: Link, prefill: int, port_name: str) -> messages.Armed:

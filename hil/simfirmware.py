@@ -32,11 +32,14 @@ class LinkStatus:
     drop_order: int
 
 
-def sources(fw: Firmware, *, period_us: int, fifo_depth: int) -> dict[str, str]:
+def sources(
+    fw: Firmware, *, period_us: int, fifo_depth: int, watchdog_ticks: int = linkview.WATCHDOG_TICKS
+) -> dict[str, str]:
     """Every C file of the simulated controller: feed-forward, link and the hook glue."""
     files = dict(render.render(fw))
-    files.update(linkview.render_link(fw, period_us=period_us, fifo_depth=fifo_depth))
-    ctx = linkview.context(fw, period_us=period_us, fifo_depth=fifo_depth)
+    shape = {"period_us": period_us, "fifo_depth": fifo_depth, "watchdog_ticks": watchdog_ticks}
+    files.update(linkview.render_link(fw, **shape))
+    ctx = linkview.context(fw, **shape)
     ctx.update(
         source=interface.file_names(fw.vehicle.name)["sim_source"],
         link_header=interface.file_names(fw.vehicle.name)["link_header"],
@@ -49,9 +52,19 @@ def sources(fw: Firmware, *, period_us: int, fifo_depth: int) -> dict[str, str]:
 class SimFirmware:
     """The compiled library: feed it received bytes, tick it, take what it transmits."""
 
-    def __init__(self, fw: Firmware, folder: Path, *, period_us: int, fifo_depth: int) -> None:
+    def __init__(
+        self,
+        fw: Firmware,
+        folder: Path,
+        *,
+        period_us: int,
+        fifo_depth: int,
+        watchdog_ticks: int = linkview.WATCHDOG_TICKS,
+    ) -> None:
         names = interface.file_names(fw.vehicle.name)
-        for name, text in sources(fw, period_us=period_us, fifo_depth=fifo_depth).items():
+        for name, text in sources(
+            fw, period_us=period_us, fifo_depth=fifo_depth, watchdog_ticks=watchdog_ticks
+        ).items():
             (folder / name).write_text(text, encoding="utf-8")
         c_files = [folder / names[k] for k in ("ff_source", "link_source", "sim_source")]
         lib = hostc.compile_c(c_files, folder / "libsimfw.so", include=[folder], extra=["-shared", "-fPIC"])

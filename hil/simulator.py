@@ -77,11 +77,20 @@ class Simulator:
     """One simulated controller session on a pseudo-terminal."""
 
     def __init__(
-        self, fw: Firmware, truth: Vehicle, *, options: PlantOptions, faults: LinkFaults, fifo_depth: int, folder: Path
+        self,
+        fw: Firmware,
+        truth: Vehicle,
+        *,
+        options: PlantOptions,
+        faults: LinkFaults,
+        fifo_depth: int,
+        folder: Path,
+        watchdog_s: float = 0.1,
     ) -> None:
         self.fw, self.options, self.faults = fw, options, faults
         self.period_us = round(options.period_s * 1e6)
-        self.firmware = SimFirmware(fw, folder, period_us=self.period_us, fifo_depth=fifo_depth)
+        ticks = max(1, round(watchdog_s / options.period_s))
+        self.firmware = SimFirmware(fw, folder, period_us=self.period_us, fifo_depth=fifo_depth, watchdog_ticks=ticks)
         self.plant = Plant(truth, options)
         rng = np.random.default_rng(faults.seed)
         self.to_controller, self.to_host = _Stream(faults, rng), _Stream(faults, rng)

@@ -144,10 +144,11 @@ def test_garbage_and_corruption_both_ways_are_counted_and_the_run_completes(tmp_
     assert "halted: end" in sim_err and "dropped 0 crc" not in sim_err  # the controller counted its drops
 
 
-def test_host_silent_the_controller_halts_on_its_watchdog(tmp_path):
+@pytest.mark.parametrize("watchdog,ms", [(None, 100), ("250 ms", 250)])
+def test_host_silent_the_controller_halts_on_its_watchdog(tmp_path, watchdog, ms):
     import serial
 
-    sim = Sim(DEMO_PATH)
+    sim = Sim(DEMO_PATH, *(["--watchdog", watchdog] if watchdog else []))
     port = serial.serial_for_url(sim.port, timeout=0.1)
     link = session.Link(port)
     ident = session.handshake(link, sim.port)
@@ -157,7 +158,7 @@ def test_host_silent_the_controller_halts_on_its_watchdog(tmp_path):
     while time.monotonic() < deadline and not faults:
         faults = [m for m in link.receive(0.1) if isinstance(m, messages.Fault)]
     port.close()
-    assert faults == [messages.Fault(messages.FaultCode.WATCHDOG, 5)] and ident.watchdog_ms == 100
+    assert faults == [messages.Fault(messages.FaultCode.WATCHDOG, 5)] and ident.watchdog_ms == ms
     code, err = sim.finish()
     assert code == 1 and "halted: watchdog" in err
 
@@ -223,8 +224,8 @@ def _bench_log(tmp_path: Path, model_path: Path, truth: Path, rig: str, name: st
         check=True,
         capture_output=True,
     )
-    # a deep FIFO (0.5 s): this test is about the fit, and a loaded CI machine can stall the host past
-    # the default 64 ms (seen once: 'fifo dry' while a benchmark ran beside the suite)
+    # a deep FIFO and a long watchdog (1 s): this test is about the fit, and a loaded CI machine can stall
+    # the host past the defaults (seen: 'fifo dry' after 64 ms with 64 slots, 'watchdog' after 100 ms)
     sim = Sim(
         model_path,
         "--truth",
@@ -236,7 +237,9 @@ def _bench_log(tmp_path: Path, model_path: Path, truth: Path, rig: str, name: st
         "--encoder-counts",
         "4096",
         "--fifo-depth",
-        "512",
+        "1024",
+        "--watchdog",
+        "1 s",
     )
     run = subprocess.run(
         [
