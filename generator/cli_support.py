@@ -13,7 +13,7 @@ from typing import Any
 import click
 
 from . import units
-from .errors import CheckFailed, UserError
+from .errors import CheckFailed, InternalError, UserError
 
 
 class QuantityType(click.ParamType):
@@ -78,8 +78,8 @@ class LazyGroup(click.Group):
 
 def run(group: click.Group, argv: list[str] | None) -> None:
     """Run a click group with the project's exit codes: returns on success; user mistakes print one
-    line (exit 2), failed checks exit 1, Ctrl-C exits 130. With the group's `--debug` option a user
-    error shows its traceback instead."""
+    line (exit 2), failed checks exit 1, kinetab's own mistakes exit 3, Ctrl-C exits 130. With the
+    group's `--debug` option a user error shows its traceback instead."""
     args = list(sys.argv[1:] if argv is None else argv)
     debug = "--debug" in args[: _first_command(group, args)]
     main_thread = threading.current_thread() is threading.main_thread()  # only it may set handlers
@@ -136,7 +136,7 @@ def _invoke(group: click.Group, args: list[str], debug: bool) -> None:
     except click.ClickException as exc:
         click.echo(f"kinetab: {exc.format_message()}", err=True)
         sys.exit(exc.exit_code)
-    except (UserError, CheckFailed) as exc:
+    except (UserError, CheckFailed, InternalError) as exc:
         if debug:
             raise
         click.echo(str(exc), err=True)

@@ -15,6 +15,13 @@ class CheckFailed(Exception):
     exit_code = 1
 
 
+class InternalError(Exception):
+    """kinetab's own mistake (a result it should never produce); printed as one line asking for a
+    report, exit code 3, nothing written."""
+
+    exit_code = 3
+
+
 class ModelError(UserError):
     """A model file problem: `FILE: section.key: expected ..., found ...`."""
 

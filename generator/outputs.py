@@ -24,13 +24,18 @@ def _umask() -> int:
     return mask
 
 
-def _temporary(path: Path, text: str) -> Path:
-    """`text` in a temporary file beside `path`, with the mode a plain new file would get (0666 less
-    the umask: mkstemp's 0600 would hide the headers from a build server's other users)."""
+def _temporary(path: Path, text: str | bytes) -> Path:
+    """`text` (or bytes, for pictures) in a temporary file beside `path`, with the mode a plain new file
+    would get (0666 less the umask: mkstemp's 0600 would hide the headers from a build server's other
+    users)."""
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as fh:
-            fh.write(text)
+        if isinstance(text, bytes):
+            with os.fdopen(fd, "wb") as out:
+                out.write(text)
+        else:
+            with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as fh:
+                fh.write(text)
         os.chmod(tmp, 0o666 & ~_umask())
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
@@ -59,7 +64,7 @@ def check_folder(folder: Path) -> None:
     check_target(folder / "index.html")
 
 
-def write_set(files: Mapping[Path, str]) -> None:
+def write_set(files: Mapping[Path, str | bytes]) -> None:
     """Write several files so that readers see either the old set or the new one: every target is
     checked first, every text goes to a temporary file, and only then are they renamed into place.
     A failure before the renames leaves every old file untouched (one user-facing line, exit 2)."""
@@ -79,7 +84,7 @@ def write_set(files: Mapping[Path, str]) -> None:
             tmp.unlink(missing_ok=True)
 
 
-def write_file(path: Path, text: str) -> None:
+def write_file(path: Path, text: str | bytes) -> None:
     """One file, atomically (see write_set)."""
     write_set({path: text})
 

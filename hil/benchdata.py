@@ -5,8 +5,9 @@ from __future__ import annotations
 
 import csv
 import json
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 from kinetab.generator import dynamics
@@ -35,6 +36,7 @@ class BenchLog:
     current: np.ndarray  # (n, 2) A, measured
     speed: np.ndarray  # (n, 2) m/s, measured
     valid: np.ndarray  # (n,) bool
+    meta: dict[str, Any] = field(default_factory=dict)  # LOG.json, when there is one
 
     def __len__(self) -> int:
         return len(self.t)
@@ -61,8 +63,8 @@ def read_log(path: Path, rig: str | None = None) -> BenchLog:
         raise UserError(f"{path}: every column but phase must be a number") from None
     names = [c for c in LOG_COLUMNS if c != "phase"]
     get = {c: num[:, names.index(c)] for c in names}
-    side = path.with_suffix(".json")
-    recorded = json.loads(side.read_text()).get("rig", "on-floor") if side.exists() else "on-floor"
+    meta = _side_file(path)
+    recorded = str(meta.get("rig", "on-floor"))
     attrs = SI_NAME  # plan columns -> OperatingPoint attributes
     pair = lambda a, b: np.column_stack([get[a], get[b]])  # noqa: E731
     return BenchLog(
@@ -75,7 +77,47 @@ def read_log(path: Path, rig: str | None = None) -> BenchLog:
         pair("current_right", "current_left"),
         pair("measured_speed_right", "measured_speed_left"),
         (get["status"].astype(int) & messages.STATUS_MEASURED) != 0,
+        meta,
     )
+
+
+def _side_file(path: Path) -> dict[str, Any]:
+    """LOG.json beside LOG.csv ({} when there is none); one UserError line when it is not JSON."""
+    side = path.with_suffix(".json")
+    if not side.exists():
+        return {}
+    try:
+        doc = json.loads(side.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise UserError(f"{side}: cannot read the run's side file ({type(exc).__name__})") from None
+    if not isinstance(doc, dict):
+        raise UserError(f"{side}: expected a JSON object (the run's side file)")
+    return doc
+
+
+def origin_problems(v: Vehicle, log: BenchLog, fingerprint: int) -> tuple[str | None, str | None]:
+    """(why the log is not from this model, how the run fell short) from LOG.json; None where all is well.
+    The first is an error unless accepted on purpose; the second a warning (the rows recorded are used)."""
+    meta, other = log.meta, None
+    if not meta:
+        return (
+            None,
+            f"{log.path}: no {log.path.with_suffix('.json').name} beside it: which model recorded it is unknown",
+        )
+    name, recorded = meta.get("model_name"), str(meta.get("fingerprint", ""))
+    mine = f"0x{fingerprint:08X}"
+    if (name is not None and name != v.name) or (recorded and recorded.upper() != mine.upper()):
+        other = (
+            f"{log.path}: recorded with model '{name or meta.get('model', '?')}' (fingerprint {recorded or '?'}), "
+            f"not '{v.name}' ({mine})"
+        )
+    rows, samples = meta.get("rows"), meta.get("samples")
+    ended = str(meta.get("ended", meta.get("exit_reason", "")))
+    short = None
+    if isinstance(rows, int) and isinstance(samples, int) and (samples < rows or (ended and ended != "completed")):
+        why = ended or "no end recorded"
+        short = f"{log.path}: incomplete run: {samples} of {rows} samples ({why}); using those recorded"
+    return other, short
 
 
 def accelerations(v: Vehicle, log: BenchLog) -> tuple[np.ndarray, str]:

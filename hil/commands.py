@@ -25,6 +25,11 @@ RIG_OPTION = click.option(
     "--rig", type=RIG, default="on-floor", show_default=True, help="Wheels on the floor or lifted."
 )
 SECONDS = units.Kind("a duration", "s", "'1 ms'")
+ACCEPT_OTHER = click.option(
+    "--accept-other-model",
+    is_flag=True,
+    help="Use logs recorded with another model or fingerprint (with a warning).",
+)
 
 
 def _period_option(text: str) -> Any:
@@ -78,22 +83,32 @@ def link(model_path: str, out_dir: str, period: float) -> None:
 @click.option("--plot", "plot_path", type=click.Path(dir_okay=False), help="Also write the comparison as a PNG.")
 @click.option("--tolerance", type=QuantityType(units.CURRENT, "A"), help="RMS residual allowed (bare number: A).")
 @click.option("--rig", type=RIG, help="Override the rig recorded in LOG.json.")
+@ACCEPT_OTHER
 def compare(
-    model_path: str, log_path: str, as_json: bool, plot_path: str | None, tolerance: float | None, rig: str | None
+    model_path: str,
+    log_path: str,
+    as_json: bool,
+    plot_path: str | None,
+    tolerance: float | None,
+    rig: str | None,
+    accept_other_model: bool,
 ) -> None:
     """Predict the motor currents of LOG with MODEL (at the measured speeds, and at the setpoints) and
     compare: RMS, max and bias per wheel and per phase, the noise floor, which term the residual looks
     like. Exit 1 when a wheel's RMS residual exceeds the tolerance."""
+    from kinetab.generator import outputs
     from kinetab.generator.errors import CheckFailed
 
-    from . import benchdata, compareplot
     from . import compare as cmp
+    from . import compareplot, fitreport
 
     v = model.load(model_path)
-    log = benchdata.read_log(Path(log_path), rig)
+    if plot_path:
+        outputs.check_target(Path(plot_path))
+    (log,) = fitreport.checked_logs(v, [Path(log_path)], rig=rig, accept_other_model=accept_other_model)
     doc = cmp.compare(v, log, tolerance_a=tolerance)
     if plot_path:
-        compareplot.write_plot(log, doc, Path(plot_path))
+        compareplot.write_plot(log, doc, Path(plot_path), model_name=v.name)
     series = doc.pop("series")
     del series
     click.echo(json.dumps(doc, indent=2) if as_json else cmp.text(doc))
@@ -108,29 +123,36 @@ def compare(
 @click.argument("log_paths", metavar="LOG...", nargs=-1, required=True, type=click.Path(dir_okay=False))
 @click.option("--write", "write_path", type=click.Path(dir_okay=False), help="Write the corrected model here.")
 @click.option("--in-place", is_flag=True, help="Rewrite MODEL itself (comments, layout and units kept).")
-@click.option("--robust", is_flag=True, help="Soft-L1 loss: for logs with outliers.")
-@click.option("--json", "as_json", is_flag=True, help="Print JSON (SI units) instead of tables.")
+@click.option("--json", "as_json", is_flag=True, help="Print JSON instead of tables.")
 @click.option("--rig", type=RIG, help="Override the rig recorded in every LOG.json.")
+@ACCEPT_OTHER
 def fit(
     model_path: str,
     log_paths: tuple[str, ...],
     write_path: str | None,
     in_place: bool,
-    robust: bool,
     as_json: bool,
     rig: str | None,
+    accept_other_model: bool,
 ) -> None:
-    """One joint least-squares fit over the logs (a wheels-up and an on-floor log together separate
-    drivetrain friction from rolling resistance and body inertia). Parameters the logs do not excite or
-    cannot tell apart are named and left alone. Prints each estimate with its standard error and the
-    compare RMS per phase before and after."""
+    """One joint, bounded least-squares fit over the logs (wheels-up, on-floor at two payloads and on a
+    ramp together determine everything; `bench campaign` plans them). Parameters the logs cannot tell
+    apart are named, held at the model's values, and the combination the logs do determine is shown,
+    with the further log that would separate them. Prints each estimate with its unit and HAC standard
+    error, and the compare RMS per phase before and after. Without --write or --in-place nothing is
+    written."""
     from . import fitreport
 
-    if bool(write_path) == in_place:
-        raise UserError("bench fit: give exactly one of --write NEW.toml and --in-place")
-    target = Path(model_path) if in_place else Path(str(write_path))
+    if write_path and in_place:
+        raise UserError("bench fit: give at most one of --write NEW.toml and --in-place")
+    target = Path(model_path) if in_place else Path(write_path) if write_path else None
     fitreport.run_fit(
-        Path(model_path), [Path(p) for p in log_paths], target=target, robust=robust, as_json=as_json, rig=rig
+        Path(model_path),
+        [Path(p) for p in log_paths],
+        target=target,
+        as_json=as_json,
+        rig=rig,
+        accept_other_model=accept_other_model,
     )
 
 
@@ -153,9 +175,31 @@ def fit(
     show_default=True,
     help="Payload during the run (bare number: kg).",
 )
+@click.option(
+    "--pitch",
+    type=QuantityType(units.ANGLE, "deg"),
+    default="0",
+    show_default=True,
+    help="Ramp pitch (bare number: deg).",
+)
+@click.option(
+    "--roll",
+    type=QuantityType(units.ANGLE, "deg"),
+    default="0",
+    show_default=True,
+    help="Side slope (bare number: deg).",
+)
 @click.option("--for-fit", is_flag=True, help="Choose the plan that makes the fitted parameters best identifiable.")
 def plan(
-    model_path: str, out_path: str, duration: float, period: float, rig: str, payload: float, for_fit: bool
+    model_path: str,
+    out_path: str,
+    duration: float,
+    period: float,
+    rig: str,
+    payload: float,
+    pitch: float,
+    roll: float,
+    for_fit: bool,
 ) -> None:
     """Write PLAN.csv: both directions, several speeds and accelerations, turns, spin in place and slow
     zero crossings, checked with the float model against the envelope and 90 % of the current limit."""
@@ -167,12 +211,14 @@ def plan(
     if not 0.0001 <= period <= 0.1:
         raise UserError("bench plan: --period: expected between 0.1 ms and 100 ms")
     if for_fit:
-        p, cond = excite.plan_for_fit(v, duration_s=duration, period_s=period, rig=rig, payload=payload)
+        p, cond = excite.plan_for_fit(
+            v, duration_s=duration, period_s=period, rig=rig, payload=payload, pitch=pitch, roll=roll
+        )
     else:
-        p = planner.make_plan(v, duration_s=duration, period_s=period, rig=rig, payload=payload)
+        p = planner.make_plan(v, duration_s=duration, period_s=period, rig=rig, payload=payload, pitch=pitch, roll=roll)
         cond = excite.condition(v, p, rig)[0]
     outputs.write_file(Path(out_path), planfile.to_csv(p))
-    use = planner.peak_current_use(v, _profile(p), rig=rig, payload=payload, pitch=0.0, roll=0.0)
+    use = planner.peak_current_use(v, _profile(p), rig=rig, payload=payload, pitch=pitch, roll=roll)
     click.echo(
         f"wrote {out_path}: {len(p)} rows of {period * 1000:g} ms, peak current {use:.0%} of the limit "
         f"({rig}); regressor condition number {cond:.3g}"
@@ -288,9 +334,29 @@ def simulate(
     show_default=True,
     help="Wheels on the floor or lifted (recorded in LOG.json for compare and fit).",
 )
-def run(model_path: str, url: str, plan_path: str, log_path: str, baud: int, yes: bool, rig: str) -> None:
-    """Handshake, arm, stream PLAN one setpoint per control tick and log one row per sample; the motors
-    are halted on every way out. Exit 0 when the plan completed, 1 on a fault, timeout or mismatch."""
+@click.option(
+    "--feedforward",
+    type=click.Choice(["model", "none"]),
+    help="'model': the controller adds the generated feed-forward; 'none': the speed loop alone. "
+    "Default: model on the floor, none wheels up (the generated feed-forward is for the vehicle on its wheels).",
+)
+@click.option(
+    "--outside-envelope", is_flag=True, help="Run a plan that leaves the model's envelope or drive limits (warned)."
+)
+def run(
+    model_path: str,
+    url: str,
+    plan_path: str,
+    log_path: str,
+    baud: int,
+    yes: bool,
+    rig: str,
+    feedforward: str | None,
+    outside_envelope: bool,
+) -> None:
+    """Check PLAN against the model's envelope and drive limits, handshake, arm, stream PLAN one
+    setpoint per control tick and log one row per sample; the motors are halted on every way out.
+    Exit 0 when the plan completed, 1 on a fault, timeout or mismatch, 2 when the plan is outside."""
     from . import runner
 
     runner.bench_run(
@@ -300,6 +366,8 @@ def run(model_path: str, url: str, plan_path: str, log_path: str, baud: int, yes
         log_path=Path(log_path),
         baud=baud,
         rig=rig,
+        feedforward=feedforward or ("none" if rig == "wheels-up" else "model"),
+        outside_envelope=outside_envelope,
         confirm=None if yes else _confirm,
     )
 
@@ -310,3 +378,41 @@ def _confirm() -> None:
         raise UserError("bench run: confirm the cautions at a terminal, or pass --yes")
     if not click.confirm("Start the run?", default=False, err=True):
         raise UserError("bench run: not confirmed; nothing was sent")
+
+
+@bench.command(short_help="Plan the set of bench runs that lets `bench fit` determine every parameter.")
+@click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
+@click.option("-o", "--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Folder for the plans.")
+@click.option(
+    "--duration",
+    type=QuantityType(SECONDS, "s"),
+    default="60",
+    show_default=True,
+    help="Length of each run (bare number: s).",
+)
+@_period_option("Control period, one row each")
+@click.option(
+    "--noise",
+    type=QuantityType(units.CURRENT, "A"),
+    help="Expected noise of the measured current (bare number: A; default 1 % of drive.current_limit).",
+)
+def campaign(model_path: str, out_dir: str, duration: float, period: float, noise: float | None) -> None:
+    """Choose the runs (wheels up; on the floor empty and loaded; on a ramp) whose logs together let the
+    fit determine every parameter with room to spare, judged from the planned motion; write one plan per
+    run and CAMPAIGN.txt with the order, what each run needs and the commands, and print it."""
+    from kinetab.generator import outputs
+
+    from . import campaigntext
+
+    if not out_dir.strip():
+        raise UserError("-o/--out: expected an output folder, found an empty name (use '.' for this folder)")
+    if not 0.0001 <= period <= 0.1:
+        raise UserError("bench campaign: --period: expected between 0.1 ms and 100 ms")
+    if duration < 5:
+        raise UserError("bench campaign: --duration: expected at least 5 s (room to start and stop)")
+    v = model.load(model_path)
+    files, text = campaigntext.campaign_files(
+        v, Path(model_path), Path(out_dir), duration_s=duration, period_s=period, noise_a=noise
+    )
+    outputs.write_set(files)
+    click.echo(text)

@@ -8,33 +8,42 @@ import numpy as np
 from kinetab.generator import dynamics
 from kinetab.generator.vehicle import Vehicle
 
-from . import identify, planner
+from . import planner
 from .planfile import Plan
 
 CANDIDATES = 12
 
 
+NOISE_OF_LIMIT = 0.01  # assumed current noise: 1 % of the current limit (for telling what a plan determines)
+
+
 def condition(v: Vehicle, plan: Plan, rig: str) -> tuple[float, list[str]]:
-    """Condition number of the column-normalised regressor of the parameters this plan excites and can
-    tell apart on this rig, and those parameters' names."""
-    c = plan.columns
-    op = dynamics.OperatingPoint(
-        c["payload"], c["speed_right"], c["speed_left"], c["accel_right"], c["accel_left"], c["pitch"], c["roll"]
-    )
-    d = identify.Data([(op, rig)], np.zeros(2 * len(plan)), [])
-    _, x = identify.regressor(v, d, identify.PARAMS)
-    keep, _ = identify.classify(x, identify.PARAMS, np.array([p.get(v) for p in identify.PARAMS]))
-    xs = x[:, keep] / np.linalg.norm(x[:, keep], axis=0)
-    s = np.linalg.svd(xs, compute_uv=False)
-    return float(s[0] / s[-1]), [identify.PARAMS[j].name for j in keep]
+    """Condition number of the column-scaled regressor of the coordinates this plan determines on
+    this rig (with white current noise of NOISE_OF_LIMIT of the limit), and those coordinates' names."""
+    from . import campaign, identifiability, regressor
+    from . import fitparams as fp
+
+    fm = regressor.force_model(v, campaign.planned_rows(v, plan, rig))
+    js = fm.jacobian(fm.x0) * fp.scales(v, fm.x0)
+    gram = js.T @ js
+    noise = NOISE_OF_LIMIT * v.drive.current_limit_a / dynamics.motor_gain(v)
+    free = identifiability.classify(gram, gram * noise**2).free
+    if not free:
+        return float("inf"), []
+    s = np.linalg.svd(js[:, free], compute_uv=False)
+    return float(s[0] / s[-1]) if s[-1] > 0 else float("inf"), [fp.NAMES[j] for j in free]
 
 
-def plan_for_fit(v: Vehicle, *, duration_s: float, period_s: float, rig: str, payload: float) -> tuple[Plan, float]:
+def plan_for_fit(
+    v: Vehicle, *, duration_s: float, period_s: float, rig: str, payload: float, pitch: float = 0.0, roll: float = 0.0
+) -> tuple[Plan, float]:
     """The best of the default plan and CANDIDATES perturbed ones (speeds, accelerations and holds
     scaled 0.6 to 1.4 at random, seeded): the most parameters told apart, then the lowest condition."""
     best: tuple[int, float, Plan] | None = None
     for seed in [None, *range(CANDIDATES)]:
-        plan = planner.make_plan(v, duration_s=duration_s, period_s=period_s, rig=rig, payload=payload, seed=seed)
+        plan = planner.make_plan(
+            v, duration_s=duration_s, period_s=period_s, rig=rig, payload=payload, pitch=pitch, roll=roll, seed=seed
+        )
         cond, names = condition(v, plan, rig)
         if best is None or (len(names), -cond) > (best[0], -best[1]):
             best = (len(names), cond, plan)

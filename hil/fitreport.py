@@ -1,5 +1,6 @@
-"""`kinetab bench fit` from start to end: fit, write the model through the model writer (comments,
-layout and units kept), and report estimates and the comparison before and after."""
+"""`kinetab bench fit` from start to end: read and check the logs, fit, report every estimate with its
+unit and standard error, what was held and which further log would separate it, and (only when asked)
+write the model through the model writer (comments, layout and units kept)."""
 
 from __future__ import annotations
 
@@ -8,10 +9,40 @@ from pathlib import Path
 from typing import Any
 
 import click
-from kinetab.generator import model, model_edit, outputs
-from kinetab.generator.errors import UserError
+import numpy as np
+from kinetab.generator import model, model_edit, outputs, units
+from kinetab.generator.errors import InternalError, ModelError, UserError
 
-from . import benchdata, compare, identify
+from . import benchdata, campaign, compare, identify
+from . import fitparams as fp
+
+UNIT_KEY = {
+    "body.mass": "body.mass",
+    "friction.coulomb": "friction.coulomb",
+    "friction.breakaway_excess": "friction.breakaway",
+    "friction.breakaway": "friction.breakaway",
+    "friction.viscous": "friction.viscous",
+    "friction.stribeck_speed": "friction.stribeck_speed",
+}
+"""Fit quantities shown in the unit the user wrote for this model key."""
+
+
+def checked_logs(v: Any, paths: list[Path], *, rig: str | None, accept_other_model: bool) -> list[benchdata.BenchLog]:
+    """Read the logs; a log from another model or fingerprint is exit 2 (a warning when accepted on
+    purpose); an incomplete run is a warning naming how far it went."""
+    from kinetab.generator import synthesis
+
+    mine, logs = synthesis.fingerprint(v), []
+    for p in paths:
+        log = benchdata.read_log(p, rig)
+        other, short = benchdata.origin_problems(v, log, mine)
+        if other and not accept_other_model:
+            raise UserError(f"{other}; pass --accept-other-model to use it anyway")
+        for text in (other, short):
+            if text:
+                click.echo(f"warning: {text}", err=True)
+        logs.append(log)
+    return logs
 
 
 def _phase_rms(v: Any, logs: list[benchdata.BenchLog]) -> dict[str, dict[str, float]]:
@@ -27,62 +58,193 @@ def _phase_rms(v: Any, logs: list[benchdata.BenchLog]) -> dict[str, dict[str, fl
 
 
 def run_fit(
-    model_path: Path, log_paths: list[Path], *, target: Path, robust: bool, as_json: bool, rig: str | None
+    model_path: Path,
+    log_paths: list[Path],
+    *,
+    target: Path | None,
+    as_json: bool,
+    rig: str | None,
+    accept_other_model: bool = False,
 ) -> None:
+    """Fit, report, and write `target` when given (nothing is written otherwise)."""
     v = model.load(model_path)
-    logs = [benchdata.read_log(p, rig) for p in log_paths]
-    result = identify.fit(v, logs, robust=robust)
-    changes = identify.model_changes(result)
+    if target is not None:
+        outputs.check_target(target)
     try:
         text = model_path.read_text(encoding="utf-8")
     except OSError as exc:
         raise UserError(f"{model_path}: cannot read ({exc.strerror})") from None
-    new_text, fitted = model_edit.edited_text(text, changes, str(target))
+    logs = checked_logs(v, log_paths, rig=rig, accept_other_model=accept_other_model)
+    result = identify.fit(v, logs)
+    changes = identify.model_changes(result)
+    try:
+        new_text, fitted = model_edit.edited_text(text, changes, str(target or model_path))
+    except ModelError as exc:
+        raise InternalError(
+            f"kinetab: internal error: the fit produced a model the loader refuses ({exc.key}: expected "
+            f"{exc.expected}, found {exc.found}); nothing was written; please report this with the logs"
+        ) from None
     before, after = _phase_rms(v, logs), _phase_rms(fitted, logs)
-    outputs.write_file(target, new_text)
-    doc = _document(result, changes, before=before, after=after, target=target)
+    doc = _document(result, changes, logs, before=before, after=after, target=target, units_of=_units(text))
+    if target is not None:
+        outputs.write_file(target, new_text)
     click.echo(json.dumps(doc, indent=2) if as_json else _tables(doc))
 
 
+def _units(text: str) -> dict[str, tuple[str, float]]:
+    """For each model key in UNIT_KEY, the unit the user wrote and its size in SI ("mm/s", 0.001)."""
+    import tomllib
+
+    try:
+        doc = tomllib.loads(text.removeprefix("\ufeff"))
+    except tomllib.TOMLDecodeError:
+        return {}
+    out = {}
+    for key in set(UNIT_KEY.values()):
+        section, name = key.split(".")
+        raw = doc.get(section, {}).get(name)
+        spec = model.SCHEMA[section][name]
+        if isinstance(raw, str) and spec.kind is not model.RATIO:
+            unit = raw.strip().lstrip("+-0123456789.eE ").strip()
+            try:
+                out[key] = (unit, units.parse(f"1 {unit}", spec.kind)) if unit else None
+            except ValueError:
+                continue
+    return {k: u for k, u in out.items() if u}
+
+
+def _shown(name: str, units_of: dict[str, tuple[str, float]]) -> tuple[str, float]:
+    """(unit text, SI per unit) to show a fit quantity in."""
+    key = UNIT_KEY.get(name)
+    if key and key in units_of:
+        return units_of[key]
+    s = fp.SHOWN[name]
+    return s.unit, 1.0 / s.factor
+
+
 def _document(
-    result: identify.Fit, changes: dict[str, float], *, before: Any, after: Any, target: Path
+    result: identify.Fit,
+    changes: dict[str, float],
+    logs: list[benchdata.BenchLog],
+    *,
+    before: Any,
+    after: Any,
+    target: Path | None,
+    units_of: dict[str, tuple[str, float]],
 ) -> dict[str, Any]:
+    present = [_kind(log) for log in logs]
+    estimates = []
+    for name, e in result.estimates.items():
+        unit, per = _shown(name, units_of)
+        estimates.append(
+            {
+                "parameter": name,
+                "unit": unit,
+                "model": e.model / per,
+                "estimate": e.estimate / per,
+                "standard_error": e.se / per,
+                "si": {"model": e.model, "estimate": e.estimate, "standard_error": e.se},
+                "on_bound": e.at_bound,
+                "written": name in identify.WRITTEN and name in result.free,
+            }
+        )
     return {
-        "written": str(target),
-        "estimates": [
-            {"parameter": n, "model": m, "estimate": e, "standard_error": s}
-            for n, (m, e, s) in result.estimates.items()
-        ],
-        "stribeck_speed_mps": None
-        if result.stribeck is None
-        else {"model": result.stribeck[0], "estimate": result.stribeck[1]},
-        "held": [{"parameters": list(h.names), "why": h.why} for h in result.held],
+        "written": str(target) if target is not None else None,
+        "estimates": estimates,
+        "held": [_held_doc(result, h, g.members, present=present) for h, g in zip(result.held, result.groups)],
         "condition_number": result.condition,
         "rms_force_n": {"before": result.rms_before_n, "after": result.rms_after_n},
-        "accelerations": result.accel_source,
+        "data": result.how,
         "model_changes": changes,
         "compare_rms_a": {"before": before, "after": after},
     }
 
 
+def _kind(log: benchdata.BenchLog) -> campaign.Candidate:
+    s = log.setpoint
+    return campaign.Candidate(log.rig, float(np.median(s["payload_kg"])), float(np.median(s["pitch_rad"])))
+
+
+def _held_doc(
+    result: identify.Fit,
+    h: identify.Held,
+    members: tuple[int, ...],
+    *,
+    present: list[campaign.Candidate],
+) -> dict[str, Any]:
+    why = h.why
+    if why == "scale":
+        why = "only a known force (a payload) fixes how current becomes force"
+        if "backdrive" in h.names[0]:
+            why += ", and only while the wheels drive the motors (braking, downhill)"
+    model_v = result.vehicle
+    have = [
+        c
+        for c in campaign.candidates(model_v)
+        if any(campaign.matches(c, p.rig, p.payload_kg, p.pitch_rad) for p in present)
+    ]
+    helps = campaign.separating(model_v, result.gram, result.omega, members=members, present=have)
+    return {
+        "parameters": list(h.names),
+        "why": why,
+        "determined": [
+            {
+                "combination": " ".join(f"{c:+.6g} x {n}" for c, n in comb.terms).lstrip("+"),
+                "model_si": comb.model,
+                "estimate_si": comb.estimate,
+                "standard_error_si": comb.se,
+            }
+            for comb in h.combinations
+        ],
+        "separated_by": [c.label() for c in helps],
+    }
+
+
+def _fmt(x: float) -> str:
+    return f"{x:.6g}"
+
+
 def _tables(doc: dict[str, Any]) -> str:
-    lines = [f"{'parameter':28}{'model':>12}{'estimate':>12}{'std error':>11}"]
+    lines = [f"{'parameter':30}{'unit':>8}{'model':>12}{'estimate':>12}{'+-2 sigma':>12}  note"]
     for e in doc["estimates"]:
-        lines.append(f"{e['parameter']:28}{e['model']:12.5g}{e['estimate']:12.5g}{e['standard_error']:11.2g}")
-    if doc["stribeck_speed_mps"]:
-        s = doc["stribeck_speed_mps"]
-        lines.append(f"{'friction.stribeck_speed':28}{s['model']:12.5g}{s['estimate']:12.5g}{'(search)':>11}")
-    lines += [f"held: {', '.join(h['parameters'])}: {h['why']}" for h in doc["held"]]
+        note = (
+            "written"
+            if e["written"]
+            else "derived"
+            if e["parameter"] in ("friction.breakaway", "drive.backdrive_efficiency")
+            else "reported"
+        )
+        if e["on_bound"]:
+            note = f"ON ITS BOUND ({e['on_bound']}): not excited, or the model lacks a term"
+        lines.append(
+            f"{e['parameter']:30}{e['unit']:>8}{_fmt(e['model']):>12}{_fmt(e['estimate']):>12}"
+            f"{_fmt(2 * e['standard_error']):>12}  {note}"
+        )
+    for h in doc["held"]:
+        lines.append(f"held at the model's values: {', '.join(h['parameters'])}: {h['why']}")
+        for d in h["determined"]:
+            lines.append(
+                f"    the logs determine {d['combination']} = {_fmt(d['estimate_si'])} +- "
+                f"{_fmt(2 * d['standard_error_si'])} (SI; model {_fmt(d['model_si'])})"
+            )
+        if h["separated_by"]:
+            lines.append(f"    to separate it, add a log {' and a log '.join(h['separated_by'])}")
+        else:
+            lines.append("    no one or two further logs of the kinds `bench campaign` plans would separate it")
     lines.append(
-        f"condition number {doc['condition_number']:.3g}; rim-force RMS residual "
-        f"{doc['rms_force_n']['before']:.4g} N -> {doc['rms_force_n']['after']:.4g} N"
+        f"+-2 sigma: HAC standard errors (residuals correlated in time); condition number "
+        f"{doc['condition_number']:.3g}; rim-force RMS residual {doc['rms_force_n']['before']:.4g} N -> "
+        f"{doc['rms_force_n']['after']:.4g} N"
     )
-    lines += [f"accelerations: {a}" for a in doc["accelerations"]]
+    lines += [f"data: {a}" for a in doc["data"]]
     lines.append("compare RMS [mA] before -> after:")
     for log, phases in doc["compare_rms_a"]["before"].items():
         after = doc["compare_rms_a"]["after"][log]
         lines.append(
             f"  {log}: " + ", ".join(f"{p} {b * 1000:.1f} -> {after[p] * 1000:.1f}" for p, b in phases.items())
         )
-    lines.append(f"wrote {doc['written']}")
+    if doc["written"]:
+        lines.append(f"wrote {doc['written']}")
+    else:
+        lines.append("dry run: nothing written (--write NEW.toml or --in-place to write the fitted values)")
     return "\n".join(lines)

@@ -1,290 +1,326 @@
-"""Parameter identification from bench logs: one joint least-squares fit over several logs.
+"""Parameter identification from bench logs: one joint, bounded least-squares fit over several logs.
 
-The regressors are the dynamics module's own force terms: each column is how the rim force of the
-rig changes with one parameter (dynamics.rig_wheel_forces evaluated at nearby parameter values; the
-force is affine in every parameter fitted linearly, so the difference is exact). Gauss-Newton steps
-handle the products (rolling resistance times mass); the Stribeck speed is found by a one-dimensional
-search around the linear fit. Parameters the logs do not excite, or cannot tell apart, are named and
-left at their model values.
+Steps: filter and stack the logs (regressor.rows); build the exact rim-force model in fit coordinates
+(regressor.force_model); decide from the whole scaled regressor which coordinates the logs determine
+(identifiability.classify); solve with scipy's bounded trust-region least squares, each held group
+moving only along the combinations the data determines; standard errors from the HAC sandwich
+(covariance.hac). What is written: only coordinates that were fitted, inside the model's ranges.
 """
 
 from __future__ import annotations
 
-import dataclasses
-import math
-from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
-from kinetab.generator import dynamics
 from kinetab.generator.vehicle import Vehicle
-from scipy.optimize import least_squares, minimize_scalar
+from scipy.optimize import least_squares
 
-from . import benchdata
+from . import covariance, identifiability, regressor
+from . import fitparams as fp
 from .benchdata import BenchLog
-
-EXCITED_N = 1e-3  # a parameter moving the rim force by less than this RMS (N) at its own size: not excited
-COLLINEAR = 1e-3  # a singular value of the normalised regressor below this: parameters cannot be told apart
-
-
-def _set(v: Vehicle, section: str, **fields: float) -> Vehicle:
-    return dataclasses.replace(v, **{section: dataclasses.replace(getattr(v, section), **fields)})
+from .identifiability import Group, Verdict
 
 
 @dataclass(frozen=True)
-class Param:
-    """A fitted quantity: how to read it from a vehicle and set it, its unit and typical size."""
+class Estimate:
+    """One fitted quantity, SI: model value, estimate, HAC standard error, and the bound it ended on."""
 
-    name: str
-    unit: str
-    typical: float
-    get: Callable[[Vehicle], float]
-    put: Callable[[Vehicle, float], Vehicle]
-
-
-def _scale_rotating(v: Vehicle, m_rot: float) -> Vehicle:
-    k = m_rot / dynamics.reflected_mass(v)
-    v = _set(v, "wheels", inertia_kgm2=v.wheels.inertia_kgm2 * k)
-    return _set(v, "drive", rotor_inertia_kgm2=v.drive.rotor_inertia_kgm2 * k)
-
-
-PARAMS = (
-    Param("body.mass", "kg", 10.0, lambda v: v.body.mass_kg, lambda v, x: _set(v, "body", mass_kg=x)),
-    Param(
-        "body.yaw_inertia",
-        "kg*m^2",
-        1.0,
-        lambda v: v.body.mass_kg * v.body.gyration_radius_m**2,
-        lambda v, x: _set(v, "body", gyration_radius_m=math.sqrt(max(x, 1e-12) / v.body.mass_kg)),
-    ),
-    Param("reflected_inertia", "kg", 1.0, dynamics.reflected_mass, _scale_rotating),
-    Param("friction.coulomb", "N", 1.0, lambda v: v.friction.coulomb_n, lambda v, x: _set(v, "friction", coulomb_n=x)),
-    Param(
-        "friction.breakaway",
-        "N",
-        1.0,
-        lambda v: v.friction.breakaway_n,
-        lambda v, x: _set(v, "friction", breakaway_n=x),
-    ),
-    Param(
-        "friction.viscous",
-        "N*s/m",
-        1.0,
-        lambda v: v.friction.viscous_ns_per_m,
-        lambda v, x: _set(v, "friction", viscous_ns_per_m=x),
-    ),
-    Param(
-        "wheels.rolling_resistance",
-        "1",
-        0.01,
-        lambda v: v.wheels.rolling_resistance,
-        lambda v, x: _set(v, "wheels", rolling_resistance=x),
-    ),
-    Param(
-        "casters.rolling_resistance",
-        "1",
-        0.01,
-        lambda v: v.casters.rolling_resistance,
-        lambda v, x: _set(v, "casters", rolling_resistance=x),
-    ),
-)
+    model: float
+    estimate: float
+    se: float
+    at_bound: str | None = None
 
 
 @dataclass(frozen=True)
-class Data:
-    """The rows of every log: operating points, rigs and the rim forces the measured currents mean."""
+class Combination:
+    """A determined combination of held coordinates: sum(coef * x), SI, with the model's value."""
 
-    ops: list[tuple[dynamics.OperatingPoint, str]]
-    force: np.ndarray  # measured rim force, both wheels of every log stacked
-    accel_source: list[str]
-
-
-def data(v: Vehicle, logs: list[BenchLog]) -> Data:
-    """Smoothed measured speeds, accelerations (setpoint or Savitzky-Golay), and the measured currents
-    turned into rim forces with the model's motor constants (which are held)."""
-    ops, forces, how = [], [], []
-    for log in logs:
-        keep = log.valid
-        accel, source = benchdata.accelerations(v, log)
-        speed = benchdata.smoothed_speed(log)
-        op = benchdata.operating_point(log, speed=speed[keep], accel=accel[keep])
-        sub = {k: np.asarray(x)[keep] for k, x in vars(op).items()}
-        op = dynamics.OperatingPoint(**sub)
-        ops.append((op, log.rig))
-        current = log.current[keep]
-        forces += [
-            dynamics.force_from_current(v, current[:, 0], op.speed_right),
-            dynamics.force_from_current(v, current[:, 1], op.speed_left),
-        ]
-        how.append(f"{log.path.name} ({log.rig}): {source}")
-    return Data(ops, np.concatenate(forces), how)
-
-
-def model_force(v: Vehicle, d: Data) -> np.ndarray:
-    """The float model's rim forces for every row of the data, stacked like Data.force."""
-    out = []
-    for op, rig in d.ops:
-        right, left = dynamics.rig_wheel_forces(v, op, rig)
-        out += [np.asarray(right.total), np.asarray(left.total)]
-    return np.concatenate(out)
-
-
-def regressor(v: Vehicle, d: Data, params: tuple[Param, ...]) -> tuple[np.ndarray, np.ndarray]:
-    """(base force, columns): column j is d(force)/d(param j), from the dynamics at two values."""
-    base = model_force(v, d)
-    cols = []
-    for p in params:
-        x = p.get(v)
-        h = 1e-3 * max(abs(x), p.typical)
-        cols.append((model_force(p.put(v, x + h), d) - base) / h)
-    return base, np.column_stack(cols)
+    terms: tuple[tuple[float, str], ...]
+    model: float
+    estimate: float
+    se: float
 
 
 @dataclass(frozen=True)
 class Held:
-    """Parameters left at their model values, and why."""
+    """Coordinates left at the model's values, why, and what the data determines of them instead."""
 
     names: tuple[str, ...]
     why: str
-
-
-def classify(x: np.ndarray, params: tuple[Param, ...], values: np.ndarray) -> tuple[list[int], list[Held]]:
-    """Which parameters the data determines: excited (the force moves at the parameter's size) and not
-    collinear with others (singular vectors of the column-normalised regressor)."""
-    n = x.shape[0]
-    size = np.maximum(np.abs(values), [p.typical for p in params])
-    effect = np.linalg.norm(x, axis=0) * size / math.sqrt(n)
-    held = [Held((p.name,), "not excited by these logs") for p, e in zip(params, effect) if e < EXCITED_N]
-    keep = [j for j, e in enumerate(effect) if e >= EXCITED_N]
-    while len(keep) > 1:
-        xs = x[:, keep] / np.linalg.norm(x[:, keep], axis=0)
-        _, s, vt = np.linalg.svd(xs, full_matrices=False)
-        if s[-1] / s[0] >= COLLINEAR:
-            break
-        group = [keep[i] for i in np.flatnonzero(np.abs(vt[-1]) > 0.2)]
-        held.append(Held(tuple(params[j].name for j in group), _combination(x, params, group)))
-        keep = [j for j in keep if j not in group]
-    return keep, held
-
-
-def _combination(x: np.ndarray, params: tuple[Param, ...], group: list[int]) -> str:
-    """The identifiable combination of parameters the data cannot tell apart: the sum of their effects,
-    written relative to the first ('a + k*b' in the first's unit)."""
-    norms = np.linalg.norm(x[:, group], axis=0)
-    signs = np.sign(np.sum(x[:, group] * x[:, group[:1]], axis=0))
-    first = params[group[0]].name
-    parts = [first] + [
-        f"{s * n / norms[0]:+.4g} x {params[j].name}" for j, n, s in zip(group[1:], norms[1:], signs[1:])
-    ]
-    return f"cannot be told apart here; only {' '.join(parts)} is identifiable"
+    combinations: tuple[Combination, ...] = ()
 
 
 @dataclass(frozen=True)
 class Fit:
-    """The outcome: the fitted vehicle, estimates with standard errors, what was held and why."""
+    """The outcome: the vehicle to write (held coordinates at the model's values), the estimates of
+    the fitted coordinates (and derived model keys), what was held and why."""
 
     vehicle: Vehicle
-    estimates: dict[str, tuple[float, float, float]]  # name -> (model value, estimate, standard error)
+    estimates: dict[str, Estimate]
     held: list[Held]
     condition: float
     rms_before_n: float
     rms_after_n: float
-    stribeck: tuple[float, float] | None  # (model value, estimate) in m/s, or None when held
-    accel_source: list[str]
+    how: list[str]
+    noise_n: float  # standard deviation of the residual rim force, N
+    free: tuple[str, ...]  # the fitted coordinates
+    gram: np.ndarray  # X^T X of the scaled regressor of every coordinate, where the fit landed
+    omega: np.ndarray  # the HAC long-run covariance of its scores
+    groups: list[Group]
 
 
-def _step(x: np.ndarray, r: np.ndarray, robust: bool) -> np.ndarray:
-    """Least-squares step for x d = r (columns normalised first); soft-L1 loss when robust."""
-    norms = np.linalg.norm(x, axis=0)
-    xs = x / norms
-    d = np.linalg.lstsq(xs, r, rcond=None)[0]
-    if robust:
-        scale = 1.4826 * float(np.median(np.abs(r - xs @ d))) or 1.0
-        d = least_squares(lambda z: xs @ z - r, d, loss="soft_l1", f_scale=scale).x
-    return np.asarray(d / norms)
+@dataclass(frozen=True)
+class _Map:
+    """x(p) = x0 + T p: the free coordinates directly, each held group along its determined combinations."""
+
+    x0: np.ndarray
+    t: np.ndarray  # (11, n_p)
+    free: list[int]
+
+    def x(self, p: np.ndarray) -> np.ndarray:
+        return np.asarray(self.x0 + self.t @ p)
 
 
-def gauss_newton(
-    v: Vehicle, d: Data, *, robust: bool = False, iterations: int = 4
-) -> tuple[Vehicle, list[int], list[Held], np.ndarray]:
-    """Fit every determined parameter; returns the vehicle, the fitted indices, the held groups and the
-    last regressor (for standard errors)."""
-    values = np.array([p.get(v) for p in PARAMS])
-    base, x = regressor(v, d, PARAMS)
-    keep, held = classify(x, PARAMS, values)
-    for _ in range(iterations):
-        delta = _step(x[:, keep], d.force - base, robust)
-        for j, dj in zip(keep, delta):
-            v = PARAMS[j].put(v, PARAMS[j].get(v) + dj)
-        base, x = regressor(v, d, PARAMS)
-        if np.all(np.abs(delta) <= 1e-7 * np.maximum(np.abs(values[keep]), 1e-9)):
-            break
-    return v, keep, held, x
+def _map(x0: np.ndarray, scale: np.ndarray, verdict: Verdict) -> _Map:
+    cols = []
+    for j in verdict.free:
+        e = np.zeros(len(x0))
+        e[j] = 1.0
+        cols.append(e)
+    for g in verdict.groups:
+        for k in range(g.combos.shape[1]):
+            e = np.zeros(len(x0))
+            e[list(g.members)] = scale[list(g.members)] * g.combos[:, k]
+            cols.append(e)
+    t = np.column_stack(cols) if cols else np.zeros((len(x0), 0))
+    return _Map(x0, t, verdict.free)
 
 
-def _stribeck(v: Vehicle, d: Data, robust: bool) -> tuple[Vehicle, tuple[float, float] | None]:
-    """Search the Stribeck speed (a factor of 5 either way, on a log scale) around the linear fit; held
-    when the breakaway force is not fitted (then it has no effect)."""
-    v0 = v.friction.stribeck_speed_mps
-    if abs(v.friction.breakaway_n - v.friction.coulomb_n) < 1e-6:
-        return v, None
-
-    def rss(log_vs: float) -> float:
-        trial = _set(v, "friction", stribeck_speed_mps=float(np.exp(log_vs)))
-        fitted, _, _, _ = gauss_newton(trial, d, robust=robust, iterations=2)
-        return float(np.sum((d.force - model_force(fitted, d)) ** 2))
-
-    best = minimize_scalar(rss, bounds=(math.log(v0 / 5), math.log(v0 * 5)), method="bounded", options={"xatol": 0.02})
-    return _set(v, "friction", stribeck_speed_mps=float(np.exp(best.x))), (v0, float(np.exp(best.x)))
+def _settings(logs: list[BenchLog]) -> tuple[int, int]:
+    return covariance.settings(min(regressor.window(log)[1] for log in logs))
 
 
-def standard_errors(x: np.ndarray, residual: np.ndarray) -> np.ndarray:
-    """Ordinary least squares standard errors: sqrt(diag(sigma^2 (X^T X)^-1)), sigma^2 = RSS / (n - p)."""
-    dof = max(1, x.shape[0] - x.shape[1])
-    sigma2 = float(residual @ residual) / dof
-    return np.asarray(np.sqrt(np.maximum(np.diag(sigma2 * np.linalg.pinv(x.T @ x)), 0.0)))
+def _omega(j: np.ndarray, r: np.ndarray, data: regressor.Rows, logs: list[BenchLog]) -> np.ndarray:
+    block, lags = _settings(logs)
+    scores = covariance.block_scores(j, r, group=data.log, time=data.sample, block=block)
+    return covariance.long_run(scores, lags)
 
 
-def fit(v: Vehicle, logs: list[BenchLog], *, robust: bool = False, stribeck: bool = True) -> Fit:
+def _verdict(fm: regressor.ForceModel, x: np.ndarray, scale: np.ndarray, logs: list[BenchLog]) -> Verdict:
+    """Classify at x. The residual of a min-norm linearised step there, with the efficiencies held, sets
+    the noise the tolerance is tied to (with them free, scaling every force and both efficiencies to zero
+    would fit any log without a known force perfectly, and the noise would look like zero)."""
+    js = fm.jacobian(x) * scale
+    r = fm.residual(x)
+    forces = [j for j, n in enumerate(fp.NAMES) if n not in fp.MEASURED_SIDE]
+    step = np.linalg.lstsq(js[:, forces], -r, rcond=1e-10)[0]
+    return identifiability.classify(js.T @ js, _omega(js, r + js[:, forces] @ step, fm.data, logs))
+
+
+def _solve(fm: regressor.ForceModel, m: _Map, *, lo: np.ndarray, hi: np.ndarray, scale: np.ndarray) -> np.ndarray:
+    """The bounded least-squares solution in p (free coordinates bounded, combinations not)."""
+    n_free = len(m.free)
+    if m.t.shape[1] == 0:
+        return np.zeros(0)
+    low = np.concatenate([lo[m.free] - m.x0[m.free], np.full(m.t.shape[1] - n_free, -np.inf)])
+    high = np.concatenate([hi[m.free] - m.x0[m.free], np.full(m.t.shape[1] - n_free, np.inf)])
+    x_scale = np.concatenate([scale[m.free], np.ones(m.t.shape[1] - n_free)])
+    result = least_squares(
+        lambda p: fm.residual(m.x(p)),
+        np.zeros(m.t.shape[1]),
+        jac=lambda p: fm.jacobian(m.x(p)) @ m.t,
+        bounds=(low, high),
+        x_scale=x_scale,
+        method="trf",
+        xtol=1e-10,
+        ftol=1e-12,
+        gtol=1e-10,
+        max_nfev=200,
+    )
+    return np.asarray(result.x)
+
+
+def fit(v: Vehicle, logs: list[BenchLog]) -> Fit:
     """The joint fit over the logs (see the module docstring)."""
-    d = data(v, logs)
-    before = float(np.sqrt(np.mean((d.force - model_force(v, d)) ** 2)))
-    fitted, keep, held, _ = gauss_newton(v, d, robust=robust)
-    strib = None
-    if stribeck and "friction.breakaway" in [PARAMS[j].name for j in keep]:
-        fitted, strib = _stribeck(fitted, d, robust)
-        fitted, keep, held, _ = gauss_newton(fitted, d, robust=robust)
-    base, x = regressor(fitted, d, PARAMS)
-    residual = d.force - base
-    xk = x[:, keep]
-    se = standard_errors(xk, residual)
-    estimates = {PARAMS[j].name: (PARAMS[j].get(v), PARAMS[j].get(fitted), float(se[i])) for i, j in enumerate(keep)}
-    s = np.linalg.svd(xk / np.linalg.norm(xk, axis=0), compute_uv=False) if keep else np.array([1.0])
-    after = float(np.sqrt(np.mean(residual**2)))
+    data = regressor.rows(v, logs)
+    fm = regressor.force_model(v, data)
+    x0, (lo, hi) = fm.x0, fp.bounds(v)
+    scale = fp.scales(v, x0)
+    verdict = _verdict(fm, x0, scale, logs)
+    m = _map(x0, scale, verdict)
+    p = _solve(fm, m, lo=lo, hi=hi, scale=scale)
+    for _ in range(2):  # classify again where the fit landed, where the residual is the noise
+        again = _verdict(fm, m.x(p), scale, logs)
+        if again.free == verdict.free and [g.members for g in again.groups] == [g.members for g in verdict.groups]:
+            break
+        verdict = again
+        m = _map(x0, scale, verdict)
+        p = _solve(fm, m, lo=lo, hi=hi, scale=scale)
+    x = m.x(p)
+    r = fm.residual(x)
+    jp = fm.jacobian(x) @ m.t
+    block, lags = _settings(logs)
+    cov = covariance.hac(jp, r, group=data.log, time=data.sample, block=block, lags=lags) if jp.size else jp
+    if jp.size:
+        cov = cov + _held_spread(jp, fm.jacobian(x), scale, verdict) + _filter_spread(v, logs, m, p, lo=lo, hi=hi)
+    held_x = written_coordinates(x0, x, verdict.free)
+    written = fp.vehicle_with(v, held_x)
+    estimates = _estimates(x0, x, cov, free=verdict.free, lo=lo, hi=hi)
+    held = [_held(g, x0, x, scale=scale, m=m, cov=cov) for g in verdict.groups]
+    free_cols = fm.jacobian(x)[:, verdict.free] * scale[verdict.free]
+    sv = np.linalg.svd(free_cols, compute_uv=False) if verdict.free else np.array([1.0])
+    r_written = fm.residual(held_x)
+    js_full = fm.jacobian(x) * scale
     return Fit(
-        fitted, estimates, held, float(s[0] / s[-1]) if len(s) else float("nan"), before, after, strib, d.accel_source
+        vehicle=written,
+        estimates=estimates,
+        held=held,
+        condition=float(sv[0] / sv[-1]) if sv[-1] > 0 else float("inf"),
+        rms_before_n=float(np.sqrt(np.mean(fm.residual(x0) ** 2))),
+        rms_after_n=float(np.sqrt(np.mean(r_written**2))),
+        how=data.how,
+        noise_n=float(np.std(r)),
+        free=tuple(fp.NAMES[j] for j in verdict.free),
+        gram=js_full.T @ js_full,
+        omega=_omega(js_full, r, data, logs),
+        groups=verdict.groups,
     )
 
 
-def model_changes(f: Fit) -> dict[str, float]:
-    """The model keys to write (SI): the fitted body, friction and rolling values; the reflected inertia
-    is reported only (its split between wheel and rotor is not identifiable)."""
-    v, out = f.vehicle, {}
-    names = set(f.estimates)
-    if "body.mass" in names:
-        out["body.mass"] = v.body.mass_kg
-    if "body.yaw_inertia" in names or "body.mass" in names:
-        out["body.gyration_radius"] = v.body.gyration_radius_m
-    for key, field in (
-        ("friction.coulomb", "coulomb_n"),
-        ("friction.breakaway", "breakaway_n"),
-        ("friction.viscous", "viscous_ns_per_m"),
-    ):
-        if key in names:
-            out[key] = getattr(v.friction, field)
-    if f.stribeck is not None:
-        out["friction.stribeck_speed"] = v.friction.stribeck_speed_mps
-    for key, sec in (("wheels.rolling_resistance", "wheels"), ("casters.rolling_resistance", "casters")):
-        if key in names:
-            out[key] = getattr(v, sec).rolling_resistance
+def _filter_spread(
+    v: Vehicle, logs: list[BenchLog], m: _Map, p: np.ndarray, *, lo: np.ndarray, hi: np.ndarray
+) -> np.ndarray:
+    """Covariance (in p) of the systematic error the filter leaves (nonlinear terms filtered, quantised
+    speeds differentiated): the same fit with regressor.OTHER_CUTOFF_HZ moves the estimates by d; d d^T
+    is added (the filter choice between 10 and 20 Hz is arbitrary; what it changes is not known better)."""
+    other = regressor.force_model(v, regressor.rows(v, logs, cutoff_hz=regressor.OTHER_CUTOFF_HZ))
+    d = _solve(other, m, lo=lo, hi=hi, scale=fp.scales(v, m.x0)) - p
+    return np.outer(d, d)
+
+
+HELD_PRIOR = 0.1
+"""Held coordinates are taken as good to 10 % of their size (one standard deviation): an assumption, not
+a measurement, since the logs cannot check them; what a held value would pull the fitted ones by is
+added to their covariance (it is zero where holding it cannot bias them)."""
+
+
+def _held_spread(jp: np.ndarray, j: np.ndarray, scale: np.ndarray, verdict: Verdict) -> np.ndarray:
+    """Covariance in the fit's coordinates p from the held directions' assumed uncertainty: S S^T
+    HELD_PRIOR^2 with S = d(p)/d(held direction) = -pinv(Jp) J_held (scaled held directions)."""
+    dirs = []
+    for g in verdict.groups:
+        members = list(g.members)
+        u = np.linalg.svd(g.combos, full_matrices=True)[0] if g.combos.size else np.eye(len(members))
+        null = u[:, g.combos.shape[1] :]
+        for k in range(null.shape[1]):
+            e = np.zeros(j.shape[1])
+            e[members] = scale[members] * null[:, k]
+            dirs.append(e)
+    if not dirs:
+        return np.zeros((jp.shape[1], jp.shape[1]))
+    sens = np.linalg.lstsq(jp, j @ np.column_stack(dirs), rcond=None)[0]
+    return np.asarray(sens @ sens.T * HELD_PRIOR**2)
+
+
+def _estimates(
+    x0: np.ndarray, x: np.ndarray, cov: np.ndarray, *, free: list[int], lo: np.ndarray, hi: np.ndarray
+) -> dict[str, Estimate]:
+    """Each fitted coordinate, plus the model keys derived from them (breakaway, back-driving efficiency)."""
+    out: dict[str, Estimate] = {}
+    pos = {j: k for k, j in enumerate(free)}
+    for j in free:
+        se = float(np.sqrt(max(cov[pos[j], pos[j]], 0.0)))
+        tol = 1e-6 * max(abs(hi[j] - lo[j]) if np.isfinite(hi[j] - lo[j]) else 1.0, 1e-12)
+        bound = fp.BOUND_TEXT[fp.NAMES[j]] if (x[j] - lo[j] <= tol or hi[j] - x[j] <= tol) else None
+        out[fp.NAMES[j]] = Estimate(float(x0[j]), float(x[j]), se, bound)
+    c, e = fp.INDEX["friction.coulomb"], fp.INDEX["friction.breakaway_excess"]
+    if c in pos and e in pos:
+        var = cov[pos[c], pos[c]] + cov[pos[e], pos[e]] + 2 * cov[pos[c], pos[e]]
+        out["friction.breakaway"] = Estimate(float(x0[c] + x0[e]), float(x[c] + x[e]), float(np.sqrt(max(var, 0))))
+    b = fp.INDEX["drive.backdrive_factor"]
+    if b in pos:
+        k = out["drive.backdrive_factor"]
+        out["drive.backdrive_efficiency"] = Estimate(1 / k.model, 1 / k.estimate, k.se / k.estimate**2, k.at_bound)
     return out
+
+
+def _held(g: Group, x0: np.ndarray, x: np.ndarray, *, scale: np.ndarray, m: _Map, cov: np.ndarray) -> Held:
+    names = tuple(fp.NAMES[j] for j in g.members)
+    if g.why == "scale":
+        return Held(names, "scale")
+    rows = identifiability.combination_rows(g, scale)
+    members = list(g.members)
+    combos = []
+    for row in rows:
+        # the combination's change is row . (scale * combos z): its variance from the z block of cov
+        start = len(m.free) + _offset(m, g)
+        k = g.combos.shape[1]
+        lin = row @ (scale[members][:, None] * g.combos)
+        var = float(lin @ cov[start : start + k, start : start + k] @ lin) if k else 0.0
+        terms = tuple((float(c), fp.NAMES[j]) for c, j in zip(row, members) if c != 0)
+        combos.append(
+            Combination(terms, float(row @ x0[members]), float(row @ x[members]), float(np.sqrt(max(var, 0))))
+        )
+    return Held(names, g.why, tuple(combos))
+
+
+def _offset(m: _Map, g: Group) -> int:
+    """Where group g's combination coordinates start after the free ones in p."""
+    members = set(g.members)
+    for k in range(len(m.free), m.t.shape[1]):
+        if any(m.t[j, k] != 0 for j in members):
+            return k - len(m.free)
+    return 0
+
+
+def written_coordinates(x0: np.ndarray, x: np.ndarray, free: list[int]) -> np.ndarray:
+    """The coordinates the written model file will hold: fitted ones, the rest as the file says. Where
+    the mass is fitted but not the yaw inertia, the file's gyration radius is kept; where Coulomb is not
+    fitted, breakaway (= Coulomb + excess) is not either."""
+    i = fp.INDEX
+    out = x0.copy()
+    out[free] = x[free]
+    if i["body.mass"] in free and i["body.yaw_inertia"] not in free:
+        out[i["body.yaw_inertia"]] = x0[i["body.yaw_inertia"]] * out[i["body.mass"]] / x0[i["body.mass"]]
+    if i["friction.coulomb"] not in free:
+        out[i["friction.breakaway_excess"]] = x0[i["friction.breakaway_excess"]]
+    return out
+
+
+WRITTEN = {
+    "body.mass": ("body.mass",),
+    "body.yaw_inertia": ("body.gyration_radius",),
+    "reflected_inertia": ("drive.rotor_inertia",),
+    "friction.coulomb": ("friction.coulomb", "friction.breakaway"),
+    "friction.breakaway_excess": ("friction.breakaway",),
+    "friction.viscous": ("friction.viscous",),
+    "wheels.rolling_resistance": ("wheels.rolling_resistance",),
+    "casters.rolling_resistance": ("casters.rolling_resistance",),
+    "drive.efficiency": ("drive.efficiency",),
+    "drive.backdrive_factor": ("drive.backdrive_efficiency",),
+    "friction.stribeck_speed": ("friction.stribeck_speed",),
+}
+"""Fit coordinate -> the model keys that change when it is fitted."""
+
+
+def model_changes(f: Fit) -> dict[str, float]:
+    """The model keys to write (SI) for the fitted coordinates: the reflected inertia as the rotor
+    inertia that gives it (the wheel inertia kept), the yaw inertia as the gyration radius."""
+    v = f.vehicle
+    value = {
+        "body.mass": v.body.mass_kg,
+        "body.gyration_radius": v.body.gyration_radius_m,
+        "drive.rotor_inertia": v.drive.rotor_inertia_kgm2,
+        "friction.coulomb": v.friction.coulomb_n,
+        "friction.breakaway": v.friction.breakaway_n,
+        "friction.viscous": v.friction.viscous_ns_per_m,
+        "wheels.rolling_resistance": v.wheels.rolling_resistance,
+        "casters.rolling_resistance": v.casters.rolling_resistance,
+        "drive.efficiency": v.drive.efficiency,
+        "drive.backdrive_efficiency": v.drive.backdrive_efficiency,
+        "friction.stribeck_speed": v.friction.stribeck_speed_mps,
+    }
+    keys = [k for name in f.free for k in WRITTEN[name]]
+    if "friction.coulomb" not in f.free:
+        keys = [k for k in keys if k != "friction.breakaway"]
+    return {k: float(value[k]) for k in dict.fromkeys(keys)}

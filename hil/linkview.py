@@ -47,6 +47,7 @@ def context(
         "kinds": kinds,
         "fault_codes": [(c.name, int(c)) for c in messages.FaultCode],
         "flag_last": messages.LAST,
+        "flag_no_ff": messages.NO_FEEDFORWARD,
         "status_measured": messages.STATUS_MEASURED,
         "status_clamped": messages.STATUS_CLAMPED,
         "status_last": messages.STATUS_LAST,

@@ -13,7 +13,7 @@ from enum import IntEnum
 
 from kinetab.generator import interface
 
-PROTOCOL_VERSION = 1
+PROTOCOL_VERSION = 2  # 2: setpoint flag bit 1 (no feed-forward)
 
 
 class Kind(IntEnum):
@@ -43,6 +43,7 @@ class FaultCode(IntEnum):
 
 
 LAST = 0x01  # setpoint flag: the final setpoint of the plan
+NO_FEEDFORWARD = 0x02  # setpoint flag: apply no feed-forward current (the wheels-up rig; the sample reports 0)
 STATUS_MEASURED = 0x01  # sample status: the measurement is valid
 STATUS_CLAMPED = 0x02  # sample status: the feed-forward clamped an input (see `clamped`)
 STATUS_LAST = 0x04  # sample status: the sample of the last setpoint

@@ -100,6 +100,63 @@ def peak_current_use(v: Vehicle, profile: np.ndarray, *, rig: str, payload: floa
     return float(np.max(cur)) / v.drive.current_limit_a
 
 
+def plan_problem(v: Vehicle, plan: Plan, rig: str) -> str | None:
+    """The first row of a plan outside the model's envelope or beyond the drive (current limit, supply
+    voltage, by the float model of the rig), as one phrase; None when every row is inside."""
+    env, c = v.envelope, plan.columns
+    slack = 1 + 1e-6  # float dust of a plan written with 9 significant digits
+    checks = [
+        ("speed_right", env.speed_max_mps, "envelope.speed_max", "m/s"),
+        ("speed_left", env.speed_max_mps, "envelope.speed_max", "m/s"),
+        ("accel_right", env.accel_max_mps2, "envelope.accel_max", "m/s^2"),
+        ("accel_left", env.accel_max_mps2, "envelope.accel_max", "m/s^2"),
+        ("pitch", env.pitch_max_rad, "envelope.pitch_max", "rad"),
+        ("roll", env.roll_max_rad, "envelope.roll_max", "rad"),
+    ]
+    bad: list[tuple[int, str]] = []
+    for col, limit, key, unit in checks:
+        over = np.flatnonzero(np.abs(c[col]) > limit * slack + 1e-12)
+        if over.size:
+            k = int(over[0])
+            bad.append((k, f"{col} {c[col][k]:.6g} {unit} beyond {key} ({limit:.6g} {unit})"))
+    pay = np.flatnonzero((c["payload"] < 0) | (c["payload"] > v.payload.mass_max_kg * slack))
+    if pay.size:
+        k = int(pay[0])
+        bad.append(
+            (k, f"payload {c['payload'][k]:.6g} kg outside 0 .. payload.mass_max ({v.payload.mass_max_kg:g} kg)")
+        )
+    drive = _drive_problem(v, plan, rig)
+    if drive:
+        bad.append(drive)
+    if not bad:
+        return None
+    k, text = min(bad)
+    return f"row {k + 2} (t = {c['t'][k]:.6g} s): {text}"
+
+
+def _drive_problem(v: Vehicle, plan: Plan, rig: str) -> tuple[int, str] | None:
+    """The first row whose float-model current exceeds drive.current_limit or whose voltage exceeds
+    drive.supply_voltage."""
+    si = plan.si()
+    op = dynamics.OperatingPoint(**si)
+    right, left = dynamics.rig_wheel_forces(v, op, rig)
+    worst: list[tuple[int, str]] = []
+    for side, speed in ((right, si["speed_right"]), (left, si["speed_left"])):
+        current = np.broadcast_to(dynamics.motor_current(v, side.total, speed), np.shape(speed))
+        volts = np.abs(dynamics.motor_voltage(v, current, speed))
+        over = np.flatnonzero(np.abs(current) > v.drive.current_limit_a * (1 + 1e-6))
+        if over.size:
+            k = int(over[0])
+            worst.append(
+                (k, f"current {abs(current[k]):.4g} A beyond drive.current_limit ({v.drive.current_limit_a:g} A)")
+            )
+        high = np.flatnonzero(volts > v.drive.supply_voltage_v * (1 + 1e-6))
+        if high.size:
+            k = int(high[0])
+            worst.append((k, f"voltage {volts[k]:.4g} V beyond drive.supply_voltage ({v.drive.supply_voltage_v:g} V)"))
+    return min(worst) if worst else None
+
+
 def make_plan(
     v: Vehicle,
     *,
@@ -112,11 +169,7 @@ def make_plan(
     seed: int | None = None,
 ) -> Plan:
     """A plan inside the envelope and, by the float model, within 90 % of the current limit."""
-    env = v.envelope
-    if not (
-        0 <= payload <= v.payload.mass_max_kg and abs(pitch) <= env.pitch_max_rad and abs(roll) <= env.roll_max_rad
-    ):
-        raise UserError("bench plan: --payload, --pitch and --roll must lie inside the model's envelope")
+    _check_where(v, payload=payload, pitch=pitch, roll=roll)
     if duration_s < 5:
         raise UserError("bench plan: --duration: expected at least 5 s (room to start and stop)")
     segments, scale = _segments(v, None if seed is None else np.random.default_rng(seed)), 1.0
@@ -143,3 +196,22 @@ def make_plan(
     }
     assert tuple(cols) == PLAN_COLUMNS
     return Plan(cols, phase_of(profile[:, :2], profile[:, 2:], v.friction.deadband_mps))
+
+
+def _check_where(v: Vehicle, *, payload: float, pitch: float, roll: float) -> None:
+    """One UserError line naming the option and its range when the plan's payload or slope is outside."""
+    env = v.envelope
+    if not 0 <= payload <= v.payload.mass_max_kg:
+        raise UserError(
+            f"bench plan: --payload: expected 0 .. payload.mass_max ({v.payload.mass_max_kg:g} kg), "
+            f"found {payload:g} kg"
+        )
+    for name, value, limit, key in (
+        ("--pitch", pitch, env.pitch_max_rad, "envelope.pitch_max"),
+        ("--roll", roll, env.roll_max_rad, "envelope.roll_max"),
+    ):
+        if abs(value) > limit * (1 + 1e-9):
+            raise UserError(
+                f"bench plan: {name}: expected within +-{key} ({np.degrees(limit):.4g} deg), "
+                f"found {np.degrees(value):.4g} deg"
+            )

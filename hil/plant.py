@@ -1,6 +1,10 @@
 """The simulated vehicle of the simulated controller: the float dynamics of the true vehicle under a
-wheel-velocity PI loop plus the feed-forward current, with an ideal current loop, measured the way a
-drive measures it (current with noise, speed from a quantised encoder)."""
+wheel-velocity PI loop plus the feed-forward current, with a current loop that is ideal until it
+saturates (the current limit, and the supply voltage less the back-EMF across the winding resistance),
+measured the way a drive measures it (current with noise, speed from a quantised encoder).
+
+With `batch` > 0 the plant simulates that many independent copies at once (same truth, own noise):
+state arrays are (batch, 2) instead of (2,)."""
 
 from __future__ import annotations
 
@@ -23,6 +27,7 @@ class PlantOptions:
     loop_time_s: float = 0.05  # time constant of the velocity loop on its own (sets the PI gains)
     substeps: int = 2
     seed: int = 1
+    batch: int = 0  # 0: one vehicle, state (2,); n > 0: n independent copies, state (n, 2)
 
 
 @dataclass
@@ -31,10 +36,10 @@ class Plant:
 
     truth: Vehicle
     options: PlantOptions
-    speed: np.ndarray = field(default_factory=lambda: np.zeros(2))
-    counts: np.ndarray = field(default_factory=lambda: np.zeros(2, dtype=np.int64))
-    integral: np.ndarray = field(default_factory=lambda: np.zeros(2))
-    current: np.ndarray = field(default_factory=lambda: np.zeros(2))
+    speed: np.ndarray = field(init=False)
+    counts: np.ndarray = field(init=False)
+    integral: np.ndarray = field(init=False)
+    current: np.ndarray = field(init=False)
     rim_per_count: float = 0.0
     rng: np.random.Generator = field(init=False)
 
@@ -42,7 +47,10 @@ class Plant:
         v = self.truth
         self.rim_per_count = 2 * math.pi * dynamics.wheel_radius(v) / (v.drive.gear_ratio * self.options.encoder_counts)
         self.rng = np.random.default_rng(self.options.seed)
-        self._position = np.zeros(2)
+        shape = (self.options.batch, 2) if self.options.batch else (2,)
+        self.speed, self.integral, self.current = np.zeros(shape), np.zeros(shape), np.zeros(shape)
+        self.counts = np.zeros(shape, dtype=np.int64)
+        self._position = np.zeros(shape)
 
     def gains(self) -> tuple[float, float]:
         """PI gains in A per m/s and A per m: a first-order velocity loop of loop_time_s on the inertia
@@ -57,25 +65,36 @@ class Plant:
 
     def step(self, setpoint_si: dict[str, float], ff_current_a: np.ndarray) -> None:
         """One control period with the setpoint and feed-forward current applied."""
-        v, opt = self.truth, self.options
+        opt = self.options
         # the setpoint's speed is where the period ends: the loop's reference now is that less one period
         # of the setpoint's acceleration (so perfect tracking needs no correction)
         end = np.array([setpoint_si["speed_right"], setpoint_si["speed_left"]])
         target = end - opt.period_s * np.array([setpoint_si["accel_right"], setpoint_si["accel_left"]])
         kp, ki = self.gains()
         error = target - self.speed
-        self.integral += error * opt.period_s
-        command = ff_current_a + kp * error + ki * self.integral
-        limit = v.drive.current_limit_a
-        self.current = np.clip(command, -limit, limit)
+        low, high = self.current_range()
+        command = ff_current_a + kp * error + ki * (self.integral + error * opt.period_s)
+        self.current = np.clip(command, low, high)
+        free = (command > low) & (command < high)  # integrate only while unsaturated (anti-windup)
+        self.integral = self.integral + np.where(free, error * opt.period_s, 0.0)
         dt = opt.period_s / opt.substeps
         for _ in range(opt.substeps):
             self._advance(setpoint_si, dt)
 
+    def current_range(self) -> tuple[np.ndarray, np.ndarray]:
+        """What the drive can put through each motor now, A: the current limit, and the supply voltage
+        less the back-EMF across the winding, U = R I + k_t omega_m (docs/physics.md)."""
+        d = self.truth.drive
+        emf = d.torque_constant_nm_per_a * d.gear_ratio * self.speed / dynamics.wheel_radius(self.truth)
+        ohm = max(d.winding_resistance_ohm, 1e-6)  # a winding of 0 ohm: the supply alone limits the speed
+        low = np.maximum(-d.current_limit_a, (-d.supply_voltage_v - emf) / ohm)
+        high = np.minimum(d.current_limit_a, (d.supply_voltage_v - emf) / ohm)
+        return low, np.maximum(high, low)
+
     def coast(self, setpoint_si: dict[str, float]) -> None:
         """One control period with the motors halted (no current); the PI starts afresh afterwards."""
-        self.current = np.zeros(2)
-        self.integral = np.zeros(2)
+        self.current = np.zeros_like(self.speed)
+        self.integral = np.zeros_like(self.speed)
         dt = self.options.period_s / self.options.substeps
         for _ in range(self.options.substeps):
             self._advance(setpoint_si, dt)
@@ -85,10 +104,16 @@ class Plant:
         v = self.truth
         force = dynamics.force_from_current(v, self.current, self.speed)
         op = dynamics.OperatingPoint(
-            sp["payload_kg"], self.speed[0], self.speed[1], 0.0, 0.0, sp["pitch_rad"], sp["roll_rad"]
+            payload_kg=sp["payload_kg"],
+            speed_right=self.speed[..., 0],
+            speed_left=self.speed[..., 1],
+            accel_right=0.0,
+            accel_left=0.0,
+            pitch_rad=sp["pitch_rad"],
+            roll_rad=sp["roll_rad"],
         )
-        ar, al = dynamics.rig_forward_accel(v, op, force[0], force[1], rig=self.options.rig)
-        self.speed = self.speed + dt * np.array([float(ar), float(al)])
+        ar, al = dynamics.rig_forward_accel(v, op, force[..., 0], force[..., 1], rig=self.options.rig)
+        self.speed = self.speed + dt * np.stack([np.asarray(ar, float), np.asarray(al, float)], -1)
         self._position = self._position + dt * self.speed
 
     def measure(self) -> tuple[np.ndarray, np.ndarray]:
@@ -96,5 +121,6 @@ class Plant:
         counts = np.floor(self._position / self.rim_per_count).astype(np.int64)
         speed = (counts - self.counts) * self.rim_per_count / self.options.period_s
         self.counts = counts
-        noise = self.rng.normal(0.0, self.options.current_noise_a, 2) if self.options.current_noise_a > 0 else 0.0
+        sigma = self.options.current_noise_a
+        noise = self.rng.normal(0.0, sigma, self.speed.shape) if sigma > 0 else 0.0
         return self.current + noise, speed

@@ -4,6 +4,7 @@ a progress line, write LOG.csv as samples arrive and LOG.json at the end, halt t
 from __future__ import annotations
 
 import json
+import signal
 import sys
 import time
 from collections.abc import Callable
@@ -13,6 +14,7 @@ from typing import Any
 
 import numpy as np
 from kinetab.generator import interface, model, outputs, synthesis
+from kinetab.generator.cli_support import Interrupted
 from kinetab.generator.errors import UserError
 
 from . import messages, planfile, session
@@ -65,11 +67,15 @@ def bench_run(
     log_path: Path,
     baud: int,
     rig: str = "on-floor",
+    feedforward: str = "model",
+    outside_envelope: bool = False,
     confirm: Callable[[], None] | None,
 ) -> None:
-    """The whole run; BenchFailed (exit 1) on a fault, timeout or mismatch, UserError (2) on bad input."""
+    """The whole run; BenchFailed (exit 1) on a fault, timeout or mismatch, UserError (2) on bad input.
+    `feedforward` "none" asks the controller to apply no feed-forward current (the speed loop alone)."""
     v = model.load(model_path)
     plan = planfile.read_plan(plan_path)
+    _check_plan(v, plan, plan_path, rig=rig, outside_envelope=outside_envelope)
     steps = plan_steps(v, plan, plan_path)
     fingerprint = synthesis.fingerprint(v)
     for path in (log_path, log_path.with_suffix(".json")):
@@ -79,10 +85,8 @@ def bench_run(
     port = _open(url, baud)
     log = LogWriter(log_path, v, plan, steps)
     link, counters = session.Link(port), session.Counters()
-    meta: dict[str, Any] = dict(
-        model=str(model_path), fingerprint=f"0x{fingerprint:08X}", port=url, plan=str(plan_path)
-    )
-    meta.update(rows=len(plan), rig=rig, started=_now())
+    meta: dict[str, Any] = dict(model=str(model_path), model_name=v.name, fingerprint=f"0x{fingerprint:08X}")
+    meta.update(port=url, plan=str(plan_path), rows=len(plan), rig=rig, feedforward=feedforward, started=_now())
     progress = Progress(len(plan))
     reason = "error"
     try:
@@ -95,15 +99,41 @@ def bench_run(
             progress.show(counters, link.drops.total())
 
         rows = [tuple(int(x) for x in r) for r in steps]
-        reason = session.run(link, rows, ident=ident, on_sample=on_sample, counters=counters, port_name=url)
-    except session.BenchFailed as exc:
-        reason = str(exc)
-        raise
-    except BaseException as exc:  # Ctrl-C, SIGTERM, a lost port: halt first, then let it through
-        reason = f"interrupted ({type(exc).__name__})"
+        flags = messages.NO_FEEDFORWARD if feedforward == "none" else 0
+        reason = session.run(
+            link, rows, ident=ident, on_sample=on_sample, counters=counters, port_name=url, flags=flags
+        )
+    except BaseException as exc:  # a fault, Ctrl-C, SIGTERM, a lost port: halt first, then let it through
+        reason = _ended(exc, counters)
         raise
     finally:
         _finish(link, log, progress, counters, meta=meta, reason=reason)
+
+
+def _check_plan(v: Any, plan: planfile.Plan, path: Path, *, rig: str, outside_envelope: bool) -> None:
+    """Refuse (exit 2, before the port is opened) a plan outside the envelope or the drive's limits,
+    unless accepted on purpose, then with a warning."""
+    from . import planner
+
+    problem = planner.plan_problem(v, plan, rig)
+    if problem and not outside_envelope:
+        raise UserError(
+            f"{path}: {problem}; nothing was sent (make the plan with `kinetab bench plan`, or pass "
+            "--outside-envelope to run it anyway)"
+        )
+    if problem:
+        print(f"warning: {path}: {problem}; running it anyway (--outside-envelope)", file=sys.stderr)
+
+
+def _ended(exc: BaseException, counters: session.Counters) -> str:
+    """How a run that did not complete ended, for LOG.json's `ended`."""
+    if isinstance(exc, session.BenchFailed):
+        return f"fault: {counters.faults[-1]}" if counters.faults else f"error: {exc}"
+    if isinstance(exc, Interrupted):
+        if exc.signum == signal.SIGINT:
+            return "halted by the operator (SIGINT)"
+        return f"stopped by signal {signal.Signals(exc.signum).name}"
+    return f"error: {type(exc).__name__}: {exc}"
 
 
 def _controller(ident: messages.Identify) -> dict[str, Any]:
@@ -149,7 +179,7 @@ def _summary(c: session.Counters, link: session.Link, reason: str, rows: int) ->
     d = link.drops
     return {
         "finished": _now(),
-        "exit_reason": reason,
+        "ended": reason,
         "samples": c.samples,
         "log_rows": rows,
         "missing_samples": c.missing,

@@ -134,6 +134,7 @@ class Stream:
     acked: int = -1  # index of the newest setpoint the controller had received then
     heard_at: float | None = None  # when the controller last reported (None: not yet)
     sent_at: list[float] = field(default_factory=list)
+    flags: int = 0  # flags every setpoint carries (messages.NO_FEEDFORWARD)
 
     def credit(self) -> int:
         """Free slots less the setpoints sent since the report."""
@@ -166,7 +167,7 @@ class Stream:
         n = min(self.credit(), most, len(self.rows) - self.next_index)
         out: list[messages.Message] = []
         for k in range(self.next_index, self.next_index + n):
-            flags = messages.LAST if k == len(self.rows) - 1 else 0
+            flags = self.flags | (messages.LAST if k == len(self.rows) - 1 else 0)
             out.append(messages.Setpoint((self.first_seq + k) & 0xFFFF, flags, self.rows[k]))
             if k < len(self.sent_at):
                 self.sent_at[k] = now
@@ -184,12 +185,13 @@ def run(
     on_sample: Callable[[int, messages.Sample], None],
     counters: Counters,
     port_name: str,
+    flags: int = 0,
 ) -> str:
-    """Arm and stream every row; calls on_sample(row index, sample) for each sample in order (a sample
-    lost on the way is counted and skipped). Returns "completed" or raises BenchFailed; the caller sends
-    HALT on every way out."""
+    """Arm and stream every row (each setpoint with `flags`); calls on_sample(row index, sample) for each
+    sample in order (a sample lost on the way is counted and skipped). Returns "completed" or raises
+    BenchFailed; the caller sends HALT on every way out."""
     first = 1
-    stream = Stream(rows, first)
+    stream = Stream(rows, first, flags=flags)
     armed = _arm(link, min(max(1, ident.fifo_depth // 2), PREFILL_MAX, len(rows)), port_name)
     stream.free, counters.fifo_depth, counters.fifo_free = armed.free, ident.fifo_depth, armed.free
     with SafePoints() as safe:
@@ -237,7 +239,6 @@ def _stream(
             elif isinstance(msg, messages.Fault):
                 if msg.code == FaultCode.END and msg.seq == (first + len(rows) - 1) & 0xFFFF:
                     counters.missing += len(rows) - expected  # the last samples lost on the way
-                    counters.faults.append(fault_text(msg))
                     return "completed"
                 return _on_fault(msg, expected, len(rows), counters, port_name=port_name)
 

@@ -97,7 +97,9 @@ def test_reader_counts_drops_by_cause():
     good = framing.frame(messages.encode(messages.Hello()))
     bad_crc = bytearray(good)
     bad_crc[2] ^= 0x40
-    assert reader.feed(good + bytes(bad_crc) + b"\x05\x01\x00" + b"\x00" + b"\x02\x01" * 100 + b"\x00") == [b"\x01\x01"]
+    assert reader.feed(good + bytes(bad_crc) + b"\x05\x01\x00" + b"\x00" + b"\x02\x01" * 100 + b"\x00") == [
+        messages.encode(messages.Hello())
+    ]
     assert (reader.drops.crc, reader.drops.length) == (1, 2)
     assert messages.decode(b"\x7f\x00") == "unknown_type" and messages.decode(b"\x84\x00") == "length"
 

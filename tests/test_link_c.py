@@ -134,7 +134,7 @@ def test_identify_arm_stream_and_end(firmware):
     fw = demo_firmware()
     _send(firmware, messages.Hello())
     (ident,) = _received(firmware)
-    assert ident == messages.Identify(1, fw.fingerprint, 1000, 8, 100)
+    assert ident == messages.Identify(messages.PROTOCOL_VERSION, fw.fingerprint, 1000, 8, 100)
     _send(firmware, messages.Arm(1, 3))
     assert _received(firmware) == [messages.Armed(1, 8)]
     rows = np.array([[400 * k, -300, 50, -20, 100, -40, 300] for k in range(5)], dtype=np.int64)

@@ -1,0 +1,70 @@
+"""`kinetab bench campaign`: the plans of a designed campaign and the instructions that go with them."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+from kinetab.generator.vehicle import Vehicle
+
+from . import campaign, planfile
+from .campaign import Candidate
+
+
+def excursion(plan: planfile.Plan) -> tuple[float, float]:
+    """How far the plan drives the vehicle forward and backward from where it starts, m."""
+    c = plan.columns
+    v = (c["speed_right"] + c["speed_left"]) / 2
+    x = np.cumsum(v) * float(c["t"][1] - c["t"][0])
+    return float(max(x.max(), 0.0)), float(max(-x.min(), 0.0))
+
+
+def _needs(c: Candidate, plan: planfile.Plan) -> str:
+    if c.rig == "wheels-up":
+        return "the vehicle on a stand, both drive wheels free to turn; the controller adds no feed-forward"
+    ahead, back = excursion(plan)
+    ground = (
+        f"a ramp of {np.degrees(c.pitch_rad):.3g} deg (front higher), straight and at least "
+        f"{ahead + back + 1:.1f} m long"
+        if c.pitch_rad
+        else f"a level floor with {ahead + 0.5:.1f} m clear ahead and {back + 0.5:.1f} m behind"
+    )
+    load = f"a payload of {c.payload_kg:.4g} kg placed where the model's payload sits" if c.payload_kg else "no payload"
+    return f"{ground}; {load}"
+
+
+def campaign_files(
+    v: Vehicle, model_path: Path, out: Path, *, duration_s: float, period_s: float, noise_a: float | None
+) -> tuple[dict[Path, str], str]:
+    """{path: text} of the plans and CAMPAIGN.txt, and the text to print."""
+    noise = noise_a if noise_a is not None else 0.01 * v.drive.current_limit_a
+    design = campaign.design(v, noise_a=noise, duration_s=duration_s, period_s=period_s)
+    files: dict[Path, str] = {}
+    lines = [
+        f"# Bench campaign for {v.name}",
+        "",
+        f"{len(design.logs)} runs of {duration_s:g} s at {period_s * 1000:g} ms, chosen so `kinetab bench fit` "
+        f"can determine every parameter (judged from the planned motion with {noise * 1000:.4g} mA of current noise).",
+        "Run them in this order; each needs the cautions of README (restrain the vehicle, emergency stop within",
+        "reach, current limits set in the drive, nobody in the path).",
+        "",
+    ]
+    logs = []
+    for k, c in enumerate(design.logs, start=1):
+        plan = campaign.plan_for(v, c, duration_s=duration_s, period_s=period_s)
+        name = f"{k}-{c.slug()}"
+        files[out / f"{name}.csv"] = planfile.to_csv(plan)
+        log = out / f"{name}-log.csv"
+        logs.append(str(log))
+        lines += [
+            f"{k}. {c.label()}: {_needs(c, plan)}.",
+            f"   kinetab bench run {model_path} --port PORT --plan {out / (name + '.csv')} --log {log} --rig {c.rig}",
+            "",
+        ]
+    lines.append(f"Then: kinetab bench fit {model_path} {' '.join(logs)} --write fitted.toml")
+    if design.held:
+        held = "; ".join(", ".join(h) for h in design.held)
+        lines.append(f"Even with these runs the fit will hold: {held} (no run of the kinds above separates them).")
+    text = "\n".join(lines) + "\n"
+    files[out / "CAMPAIGN.txt"] = text
+    return files, text

@@ -1,0 +1,228 @@
+"""The bench fit's data and its rim-force model, built from the dynamics module and nothing else.
+
+Data: both wheels of every log stacked (right rows, then left rows, log after log). The measured
+speeds, their finite-difference derivative and the measured currents all pass through the same
+zero-phase low-pass filter ("parallel filtering", common practice in robot identification; Gautier
+and Khalil): the model is linear in the accelerations, so filtering both sides alike keeps the
+inertia estimates free of the smoothing lag. A derivative by a Savitzky-Golay filter of the speeds
+against currents smoothed differently biased the inertias by 5-10 % here; its weak stopband let the
+encoder's quantisation noise through, which biased the yaw inertia by another 11 % (errors in the
+regressor shrink its estimate).
+
+Model: the rim force is affine in each of the first eight fit coordinates, with products only between
+the body mass and the two rolling-resistance coefficients; the Stribeck speed enters through one
+friction shape. So a few evaluations of dynamics.rig_wheel_forces give the force, exactly, for any
+coordinates: F(x) = F(x0) + B (x - x0) + X_w dm dc_w + X_c dm dc_c. A test checks that identity
+against the dynamics at random coordinates, so a change of the physics cannot slip past it.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from dataclasses import dataclass
+
+import numpy as np
+from kinetab.generator import dynamics
+from kinetab.generator.vehicle import Vehicle
+from scipy.ndimage import maximum_filter1d, minimum_filter1d
+from scipy.signal import butter, filtfilt
+
+from . import fitparams as fp
+from .benchdata import BenchLog
+
+CUTOFF_HZ = 15.0  # low-pass cutoff of the fit's filter (measured: 10-20 Hz keep the bias below 1 %)
+OTHER_CUTOFF_HZ = 10.0  # the fit is repeated with this cutoff: the change is counted as systematic error
+
+
+@dataclass(frozen=True)
+class Rows:
+    """The fit's rows: operating points per log (with its rig), and per stacked row the filtered
+    measured force columns (N, see measured_columns), the wheel speed (m/s), which log and sample."""
+
+    ops: list[tuple[dynamics.OperatingPoint, str]]
+    measured: np.ndarray  # (n, 2)
+    speed: np.ndarray
+    log: np.ndarray  # int, index of the log
+    sample: np.ndarray  # int, sample index within its log
+    how: list[str]
+    weight: np.ndarray  # 1 for rows the fit uses, 0 for rows whose window mixes directions of power flow
+
+    def __len__(self) -> int:
+        return len(self.speed)
+
+
+def smooth(x: np.ndarray, dt: float, cutoff_hz: float = CUTOFF_HZ) -> np.ndarray:
+    """The one low-pass filter every signal goes through: a 2nd-order Butterworth run forward and
+    backward (filtfilt: zero phase, 4th-order roll-off) at cutoff_hz. Being linear and time-invariant it
+    commutes with differentiation, so the filtered acceleration is the derivative of the filtered speed;
+    its steep stopband removes the encoder's quantisation noise, which differentiation amplifies."""
+    b, a = butter(2, min(cutoff_hz * 2 * dt, 0.9))
+    pad = min(len(x) - 1, 3 * int(1 / (cutoff_hz * dt)))
+    return np.asarray(filtfilt(b, a, x, axis=0, padtype="odd", padlen=pad))
+
+
+def window(log: BenchLog, cutoff_hz: float = CUTOFF_HZ) -> tuple[int, float]:
+    """The filter's reach in samples (odd, >= 5: two periods of the cutoff, where its impulse response
+    has died down) and the sample period, s."""
+    dt = float(np.median(np.diff(log.t)))
+    return max(5, int(round(2 / (cutoff_hz * dt))) | 1), dt
+
+
+def _usable(log: BenchLog, half: int) -> np.ndarray:
+    """Rows whose whole filter window holds valid measurements (and is inside the log)."""
+    bad = np.convolve((~log.valid).astype(float), np.ones(2 * half + 1), mode="same") > 0
+    keep = ~bad
+    keep[:half], keep[len(keep) - half :] = False, False
+    return keep
+
+
+def rows(v: Vehicle, logs: list[BenchLog], *, cutoff_hz: float = CUTOFF_HZ) -> Rows:
+    """Filter every log alike and stack both wheels; rows whose window holds an invalid sample are dropped.
+
+    The measured current is split by the direction of power flow before filtering (the split is not
+    linear; each part is). The direction comes from `v`'s predicted force, not from the measured
+    current: choosing rows or columns by the measured output would bias the fit. Rows are weighted 0
+    where the window crosses a friction kink or a change of direction, or the predicted force is too
+    small for its direction to be sure (below AMBIGUOUS of its RMS over the log)."""
+    parts: list[list[np.ndarray]] = [[] for _ in range(6)]
+    ops, how = [], []
+    for k, log in enumerate(logs):
+        n, dt = window(log, cutoff_hz)
+        speed = smooth(log.speed, dt, cutoff_hz)
+        accel = smooth(np.gradient(log.speed, dt, axis=0), dt, cutoff_hz)
+        s = log.setpoint
+        op_all = dynamics.OperatingPoint(
+            payload_kg=s["payload_kg"],
+            speed_right=speed[:, 0],
+            speed_left=speed[:, 1],
+            accel_right=accel[:, 0],
+            accel_left=accel[:, 1],
+            pitch_rad=s["pitch_rad"],
+            roll_rad=s["roll_rad"],
+        )
+        keep = _usable(log, n // 2)
+        ops.append((dynamics.OperatingPoint(**{f: np.asarray(x)[keep] for f, x in vars(op_all).items()}), log.rig))
+        idx = np.flatnonzero(keep)
+        for side in (0, 1):
+            split = measured_columns(v, log.current[:, side], speed[:, side], log.current[:, side])
+            filtered = smooth(split, dt, cutoff_hz)
+            doubtful = _doubtful(log.current[:, side], speed[:, side], n // 2) | _kinked(v, speed[:, side], n // 2)
+            for bucket, item in zip(
+                parts, (filtered[keep], speed[keep, side], np.full(len(idx), k), idx, (~doubtful[keep]).astype(float))
+            ):
+                bucket.append(item)
+        how.append(
+            f"{log.path.name} ({log.rig}): {len(idx)} of {len(log)} rows; speeds, accelerations and currents "
+            f"through one zero-phase low-pass filter ({cutoff_hz:g} Hz)"
+        )
+    measured, speeds, which, sample, weight = (np.concatenate(b) for b in parts[:5])
+    return Rows(ops, measured, speeds, which, sample, how, weight)
+
+
+AMBIGUOUS = 0.1  # a predicted force below this fraction of its RMS leaves the direction of power flow in doubt
+
+
+def _doubtful(force: np.ndarray, speed: np.ndarray, half: int) -> np.ndarray:
+    """Rows whose filter window holds both directions of power flow, or a force too small to be sure."""
+    back = dynamics.opposed(force, speed).astype(float)
+    frac = np.convolve(back, np.ones(2 * half + 1) / (2 * half + 1), mode="same")
+    return (frac > 0) & (frac < 1)
+
+
+def _kinked(v: Vehicle, speed: np.ndarray, half: int) -> np.ndarray:
+    """Rows whose filter window crosses zero speed or a deadband edge: friction bends there, so the
+    filtered force differs from the force at the filtered speed."""
+    lo = minimum_filter1d(speed, 2 * half + 1, mode="nearest")
+    hi = maximum_filter1d(speed, 2 * half + 1, mode="nearest")
+    edge = v.friction.deadband_mps
+    return ((lo < 0) & (hi > 0)) | ((lo < edge) & (hi > edge)) | ((lo < -edge) & (hi > -edge))
+
+
+def model_force(v: Vehicle, data: Rows) -> np.ndarray:
+    """The float model's rim force for every stacked row, N."""
+    out = []
+    for op, rig in data.ops:
+        right, left = dynamics.rig_wheel_forces(v, op, rig)
+        n = np.shape(np.asarray(op.speed_right))
+        out += [np.broadcast_to(right.total, n), np.broadcast_to(left.total, n)]
+    return np.concatenate(out)
+
+
+def measured_columns(v: Vehicle, current: np.ndarray, speed: np.ndarray, flow: np.ndarray) -> np.ndarray:
+    """(n, 2): the measured current as rim force at unit efficiencies, split by the direction of power
+    flow that `flow` (a current) and speed give (motoring, back-driving); the measured force is
+    efficiency * col 0 + backdrive_factor * col 1."""
+    unit = dataclasses.replace(v, drive=dataclasses.replace(v.drive, efficiency=1.0, backdrive_efficiency=1.0))
+    force = dynamics.force_from_current(unit, current, speed)  # at unit efficiencies: no choice of direction
+    back = dynamics.opposed(flow, speed)
+    return np.column_stack([np.where(back, 0.0, force), np.where(back, force, 0.0)])
+
+
+def _excess_shape(v: Vehicle, data: Rows, stribeck_mps: float) -> np.ndarray:
+    """d(friction)/d(breakaway excess) per row at this Stribeck speed: the Stribeck bump of unit height."""
+    f = dataclasses.replace(
+        v.friction, coulomb_n=0.0, breakaway_n=1.0, viscous_ns_per_m=0.0, stribeck_speed_mps=stribeck_mps
+    )
+    return np.asarray(dynamics.drivetrain_friction(dataclasses.replace(v, friction=f), data.speed), float)
+
+
+@dataclass(frozen=True)
+class ForceModel:
+    """F(x) for the stacked rows in fit coordinates x (fitparams.NAMES), exact for this vehicle's geometry."""
+
+    vehicle: Vehicle
+    data: Rows
+    x0: np.ndarray
+    f0: np.ndarray
+    cols: np.ndarray  # (n, 8): dF/dx_j at x0, linear coordinates
+    cross: np.ndarray  # (n, 2): d2F/(d mass d c_w), d2F/(d mass d c_c)
+    measured: np.ndarray  # (n, 2) measured_columns
+
+    def force(self, x: np.ndarray) -> np.ndarray:
+        d = x[:8] - self.x0[:8]
+        out = self.f0 + self.cols @ d + self.cross @ (d[0] * d[6:8])
+        excess, v_s = x[fp.INDEX["friction.breakaway_excess"]], x[fp.INDEX["friction.stribeck_speed"]]
+        if v_s != self.x0[10]:
+            out = out + excess * (_excess_shape(self.vehicle, self.data, float(v_s)) - self.cols[:, 4])
+        return np.asarray(out)
+
+    def residual(self, x: np.ndarray) -> np.ndarray:
+        """Measured minus model rim force, N, per row (0 on rows of weight 0)."""
+        return np.asarray((self.measured @ x[8:10] - self.force(x)) * self.data.weight)
+
+    def jacobian(self, x: np.ndarray) -> np.ndarray:
+        """d(residual)/dx, (n, 11)."""
+        d = x[:8] - self.x0[:8]
+        j = np.empty((len(self.f0), len(fp.NAMES)))
+        j[:, :8] = -self.cols
+        j[:, 0] -= self.cross @ d[6:8]
+        j[:, 6:8] -= self.cross * d[0]
+        v_s = float(x[10])
+        shape = _excess_shape(self.vehicle, self.data, v_s) if v_s != self.x0[10] else self.cols[:, 4]
+        j[:, 4] = -shape
+        j[:, 8:10] = self.measured
+        h = 1e-4 * v_s
+        j[:, 10] = -x[4] * (_excess_shape(self.vehicle, self.data, v_s + h) - shape) / h
+        return j * self.data.weight[:, None]
+
+
+def force_model(v: Vehicle, data: Rows) -> ForceModel:
+    """Evaluate the dynamics at the model and at one step along each linear coordinate (and the two
+    mass-rolling pairs): 11 evaluations, after which every fit step is linear algebra."""
+    x0 = fp.values(v)
+    step = fp.scales(v, x0)
+    at = lambda x: model_force(fp.vehicle_with(v, x), data)  # noqa: E731
+    f0 = at(x0)
+    shifted = {}
+    for j in range(8):
+        x = x0.copy()
+        x[j] += step[j]
+        shifted[j] = at(x)
+    cols = np.column_stack([(shifted[j] - f0) / step[j] for j in range(8)])
+    cross = []
+    for j in (6, 7):
+        x = x0.copy()
+        x[0] += step[0]
+        x[j] += step[j]
+        cross.append((at(x) - shifted[0] - shifted[j] + f0) / (step[0] * step[j]))
+    return ForceModel(v, data, x0, f0, cols, np.column_stack(cross), data.measured)

@@ -1,0 +1,162 @@
+"""What the bench commands check before they act: plans against the envelope, logs against the model
+that recorded them, the fit's dry run, and unwritable outputs; run through the real entry point on a
+vehicle the test draws (random within plausible ranges), with logs made in-process."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+from kinetab.generator import model, outputs
+from kinetab.hil import campaign, planfile, planner
+
+import kinetab
+from tests.benchsim import run_plan, write_log
+from tests.helpers import to_toml
+from tests.test_identify import changed, random_model
+
+
+def run(args: list[str], capsys) -> tuple[int, str, str]:
+    """(exit code, stdout, stderr) of one kinetab command."""
+    try:
+        kinetab.main(args)
+        code = 0
+    except SystemExit as exc:
+        code = int(exc.code or 0)
+    out = capsys.readouterr()
+    return code, out.out, out.err
+
+
+@pytest.fixture(scope="module")
+def bench(tmp_path_factory):
+    """A random vehicle's model file, a truth 10-30 % off in eight parameters, and one level on-floor
+    log (15 s at 1 ms) recorded with the model."""
+    folder = tmp_path_factory.mktemp("bench")
+    doc, _, rng = random_model(31)
+    doc["name"] = "courier"
+    path = folder / "courier.toml"
+    path.write_text(to_toml(doc), encoding="utf-8")
+    v = model.load(path)
+    truth, _ = changed(v, rng)
+    plan = campaign.plan_for(v, campaign.Candidate("on-floor", 0.0, 0.0), duration_s=15, period_s=0.001)
+    (log,) = run_plan(v, truth, plan, rig="on-floor", noise_a=0.01 * v.drive.current_limit_a)
+    return folder, path, write_log(log, folder / "floor.csv", v)
+
+
+def test_one_log_fit_holds_the_inseparable_group_writes_only_what_loads(bench, capsys):
+    """One level on-floor log at one payload: exit 0; Coulomb and both rolling resistances held and
+    named with the combination; the written model loads and leaves the held keys as they were."""
+    folder, path, log = bench
+    out_path = folder / "fitted.toml"
+    code, out, err = run(["bench", "fit", str(path), str(log), "--write", str(out_path)], capsys)
+    assert code == 0, err
+    held = [line for line in out.splitlines() if line.startswith("held at the model's values")]
+    assert any(
+        all(k in line for k in ("friction.coulomb", "wheels.rolling_resistance", "casters.rolling_resistance"))
+        for line in held
+    ), out
+    assert "the logs determine" in out
+    before, after = model.load(path), model.load(out_path)
+    assert after.friction.coulomb_n == before.friction.coulomb_n
+    assert after.wheels.rolling_resistance == before.wheels.rolling_resistance
+    assert after.casters.rolling_resistance == before.casters.rolling_resistance
+
+
+def test_fit_without_write_is_a_dry_run(bench, capsys):
+    folder, path, log = bench
+    listing = sorted(p.name for p in folder.iterdir())
+    text = path.read_text()
+    code, out, _ = run(["bench", "fit", str(path), str(log), "--json"], capsys)
+    doc = json.loads(out)
+    assert code == 0 and doc["written"] is None and doc["estimates"]
+    assert all("unit" in e and "standard_error" in e for e in doc["estimates"])
+    assert sorted(p.name for p in folder.iterdir()) == listing and path.read_text() == text
+
+
+def test_a_log_from_another_model_is_refused_naming_both(bench, tmp_path, capsys):
+    folder, path, log = bench
+    other = tmp_path / "other.toml"
+    other.write_text(path.read_text().replace('name = "courier"', 'name = "tug"'))
+    for command in (["bench", "fit", str(other), str(log)], ["bench", "compare", str(other), str(log)]):
+        code, out, err = run(command, capsys)
+        assert code == 2 and out == "" and len(err.strip().splitlines()) == 1
+        assert "'courier'" in err and "'tug'" in err and "--accept-other-model" in err
+    code, out, err = run(["bench", "compare", str(other), str(log), "--accept-other-model"], capsys)
+    assert code in (0, 1) and "warning:" in err and "'tug'" in err and out
+
+
+def test_an_aborted_run_is_named_with_how_far_it_went(bench, tmp_path, capsys):
+    folder, path, log = bench
+    short = tmp_path / "short.csv"
+    rows = log.read_text().splitlines()[:3001]
+    short.write_text("\n".join(rows) + "\n")
+    meta = json.loads(log.with_suffix(".json").read_text())
+    meta.update(rows=60000, samples=3000, ended="fault: fifo dry (code 2) at sequence 3001")
+    short.with_suffix(".json").write_text(json.dumps(meta))
+    code, out, err = run(["bench", "compare", str(path), str(short)], capsys)
+    assert "incomplete run: 3000 of 60000 samples (fault: fifo dry" in err and out
+
+
+@pytest.mark.parametrize("where", ["file/x.png", "/proc/kinetab-x.png"])
+def test_compare_plot_into_an_unwritable_place_is_one_line_before_any_analysis(bench, capsys, where, tmp_path):
+    folder, path, log = bench
+    (tmp_path / "file").write_text("a file, not a folder")
+    target = where if where.startswith("/") else str(tmp_path / where)
+    code, out, err = run(["bench", "compare", str(path), str(log), "--plot", target], capsys)
+    assert code == 2 and out == "" and len(err.strip().splitlines()) == 1 and "Traceback" not in err
+
+
+def test_compare_plot_makes_its_folder_and_titles_the_verdict(bench, tmp_path, capsys):
+    """Like every kinetab output, a plot into a folder that does not exist yet makes the folder."""
+    folder, path, log = bench
+    target = tmp_path / "nodir" / "x.png"
+    code, out, err = run(["bench", "compare", str(path), str(log), "--plot", str(target)], capsys)
+    assert code in (0, 1) and target.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" and out
+
+
+def test_a_plan_outside_the_envelope_is_refused_before_the_port_opens(bench, tmp_path, capsys):
+    """A plan at 5 x speed_max: exit 2 naming the row and the limit; the port (which does not exist) is
+    never opened and no log is written; --outside-envelope would run it (then the port fails)."""
+    folder, path, _ = bench
+    v = model.load(path)
+    plan = planner.make_plan(v, duration_s=5, period_s=0.001, rig="on-floor")
+    fast = planfile.Plan({k: (c * 5 if k.startswith("speed") else c) for k, c in plan.columns.items()}, plan.phase)
+    outputs.write_file(tmp_path / "fast.csv", planfile.to_csv(fast))
+    args = ["bench", "run", str(path), "--port", "/nonexistent/tty", "--plan", str(tmp_path / "fast.csv")]
+    args += ["--log", str(tmp_path / "log.csv"), "--yes"]
+    code, out, err = run(args, capsys)
+    named = ("envelope.speed_max", "drive.supply_voltage", "drive.current_limit")
+    assert code == 2 and any(k in err for k in named) and "row " in err and "/nonexistent" not in err
+    assert not (tmp_path / "log.csv").exists()
+    code, _, err = run([*args, "--outside-envelope"], capsys)
+    assert code == 2 and "warning:" in err and "/nonexistent/tty" in err
+
+
+def test_bench_plan_takes_pitch_and_roll_and_names_ranges(bench, tmp_path, capsys):
+    folder, path, _ = bench
+    v = model.load(path)
+    pitch = 0.5 * np.degrees(v.envelope.pitch_max_rad)
+    code, _, err = run(
+        ["bench", "plan", str(path), "-o", str(tmp_path / "p.csv"), "--duration", "6", "--pitch", f"{pitch} deg"],
+        capsys,
+    )
+    assert code == 0, err
+    p = planfile.read_plan(tmp_path / "p.csv")
+    assert p.columns["pitch"] == pytest.approx(np.radians(pitch))
+    code, _, err = run(["bench", "plan", str(path), "-o", str(tmp_path / "q.csv"), "--payload", "1e6"], capsys)
+    assert code == 2 and "--payload" in err and "payload.mass_max" in err and "--pitch" not in err
+
+
+def test_campaign_writes_plans_inside_the_envelope_and_the_steps(bench, tmp_path, capsys):
+    folder, path, _ = bench
+    out_dir = tmp_path / "camp"
+    code, out, err = run(["bench", "campaign", str(path), "-o", str(out_dir), "--duration", "8"], capsys)
+    assert code == 0, err
+    plans = sorted(out_dir.glob("*.csv"))
+    v = model.load(path)
+    assert plans and (out_dir / "CAMPAIGN.txt").read_text() == out.rstrip("\n") + "\n"
+    assert "wheels-up" in plans[0].name and "--rig wheels-up" in out and "bench fit" in out
+    for p in plans:
+        rig = "wheels-up" if "wheels-up" in p.name else "on-floor"
+        assert planner.plan_problem(v, planfile.read_plan(p), rig) is None
