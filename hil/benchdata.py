@@ -13,7 +13,6 @@ import numpy as np
 from kinetab.generator import dynamics
 from kinetab.generator.errors import UserError
 from kinetab.generator.vehicle import Vehicle
-from scipy.signal import savgol_filter
 
 from . import messages
 from .benchlog import LOG_COLUMNS
@@ -129,6 +128,8 @@ def accelerations(v: Vehicle, log: BenchLog) -> tuple[np.ndarray, str]:
     if err < TIGHT_TRACKING * v.envelope.speed_max_mps:
         acc = np.column_stack([log.setpoint["accel_right"], log.setpoint["accel_left"]])
         return acc, f"setpoint accelerations (tracking was tight: RMS speed error {err * 1000:.2f} mm/s)"
+    from scipy.signal import savgol_filter  # here: scipy.signal takes ~0.5 s to load
+
     window, dt = _window(log)
     acc = savgol_filter(log.speed, window, 2, deriv=1, delta=dt, axis=0)
     return acc, (
@@ -144,6 +145,8 @@ def _window(log: BenchLog) -> tuple[int, float]:
 
 def smoothed_speed(log: BenchLog) -> np.ndarray:
     """Measured speeds smoothed by the same Savitzky-Golay filter (encoder quantisation averaged out)."""
+    from scipy.signal import savgol_filter
+
     window, _ = _window(log)
     return np.asarray(savgol_filter(log.speed, window, 2, axis=0))
 

@@ -143,20 +143,26 @@ def design(v: Vehicle, *, noise_a: float, duration_s: float, period_s: float) ->
     return Design(chosen, held)
 
 
+def informations(v: Vehicle, present: list[Candidate], *, duration_s: float = 60.0) -> dict[Candidate, np.ndarray]:
+    """The information of each candidate log not among `present` (those the vehicle can run), for a
+    run of duration_s at 1 ms."""
+    out = {}
+    for c in candidates(v):
+        if c not in present:
+            g = information(v, c, duration_s=20.0, period_s=0.001 * 20.0 / duration_s)
+            if g is not None:
+                out[c] = g
+    return out
+
+
 def separating(
-    v: Vehicle, gram: np.ndarray, omega: np.ndarray, *, members: tuple[int, ...], present: list[Candidate]
+    gram: np.ndarray, omega: np.ndarray, *, members: tuple[int, ...], info: dict[Candidate, np.ndarray]
 ) -> list[Candidate]:
-    """The fewest candidate logs (not among `present`; one, else two) that, added to the data (gram and
-    omega in scaled coordinates), would make every coordinate of `members` free; [] when none do."""
+    """The fewest candidate logs (of `info`; one, else two) that, added to the data (gram and omega in
+    scaled coordinates), would make every coordinate of `members` free; [] when none do."""
     import itertools
 
     noise2 = float(np.trace(omega) / max(np.trace(gram), 1e-300))  # long-run variance per unit of information
-    info = {}
-    for c in candidates(v):
-        if c not in present:
-            g = information(v, c, duration_s=60.0, period_s=0.001)
-            if g is not None:
-                info[c] = g
     for size in (1, 2):
         for combo in itertools.combinations(info, size):
             extra = np.sum([info[c] for c in combo], axis=0)

@@ -151,7 +151,7 @@ def _document(
     return {
         "written": str(target) if target is not None else None,
         "estimates": estimates,
-        "held": [_held_doc(result, h, g.members, present=present) for h, g in zip(result.held, result.groups)],
+        "held": _held_docs(result, present),
         "condition_number": result.condition,
         "rms_force_n": {"before": result.rms_before_n, "after": result.rms_after_n},
         "data": result.how,
@@ -165,25 +165,28 @@ def _kind(log: benchdata.BenchLog) -> campaign.Candidate:
     return campaign.Candidate(log.rig, float(np.median(s["payload_kg"])), float(np.median(s["pitch_rad"])))
 
 
-def _held_doc(
-    result: identify.Fit,
-    h: identify.Held,
-    members: tuple[int, ...],
-    *,
-    present: list[campaign.Candidate],
-) -> dict[str, Any]:
+def _held_docs(result: identify.Fit, present: list[campaign.Candidate]) -> list[dict[str, Any]]:
+    """Each held group with why, what the logs determine of it, and the further logs that would separate it."""
+    if not result.held:
+        return []
+    have = [
+        c
+        for c in campaign.candidates(result.vehicle)
+        if any(campaign.matches(c, p.rig, p.payload_kg, p.pitch_rad) for p in present)
+    ]
+    info = campaign.informations(result.vehicle, have)
+    return [
+        _held_doc(h, campaign.separating(result.gram, result.omega, members=g.members, info=info))
+        for h, g in zip(result.held, result.groups)
+    ]
+
+
+def _held_doc(h: identify.Held, helps: list[campaign.Candidate]) -> dict[str, Any]:
     why = h.why
     if why == "scale":
         why = "only a known force (a payload) fixes how current becomes force"
         if "backdrive" in h.names[0]:
             why += ", and only while the wheels drive the motors (braking, downhill)"
-    model_v = result.vehicle
-    have = [
-        c
-        for c in campaign.candidates(model_v)
-        if any(campaign.matches(c, p.rig, p.payload_kg, p.pitch_rad) for p in present)
-    ]
-    helps = campaign.separating(model_v, result.gram, result.omega, members=members, present=have)
     return {
         "parameters": list(h.names),
         "why": why,

@@ -50,10 +50,13 @@ def identifiable_vehicle(seed: int, *, duration_s: float):
 
 
 def changed(v, rng, names=fp.NAMES[:8]):
-    """A truth that differs from v by 10-30 % (random sign) in each of `names` (fit coordinates)."""
+    """A truth that differs from v by 10-30 % (random sign) in each of `names` (fit coordinates), kept
+    physical (an efficiency stays at most 1)."""
     x = fp.values(v)
     for n in names:
         x[fp.INDEX[n]] *= 1 + rng.choice([-1, 1]) * rng.uniform(0.1, 0.3)
+    lo, hi = fp.bounds(v)
+    x = np.clip(x, lo, hi)
     return fp.vehicle_with(v, x), x
 
 
@@ -286,3 +289,26 @@ def test_in_process_bench_logs_fit_within_three_percent_on_a_short_campaign():
     result = identify.fit(v, logs)
     assert not result.held, [h.names for h in result.held]
     assert_close(v, result, x_true, 0.03)
+
+
+@pytest.mark.slow
+def test_two_sigma_intervals_cover_the_truth_in_ninety_percent_of_twenty_campaigns():
+    """Twenty campaigns of the same random vehicle and truth (ten coordinates 10-30 % off, both
+    efficiencies among them), each with its own current noise and encoder phase: per coordinate, the
+    +-2 sigma interval covers the truth in at least 18 of 20 (the issue's 90 %; measured 95-100 %)."""
+    v, rng, design = identifiable_vehicle(21, duration_s=20)
+    truth, x_true = changed(v, rng, fp.NAMES[:10])
+    batch, logs = 20, [[] for _ in range(20)]
+    for k, c in enumerate(design.logs):
+        plan = campaign.plan_for(v, c, duration_s=20, period_s=0.001)
+        noise = 0.01 * v.drive.current_limit_a
+        made = run_plan(v, truth, plan, rig=c.rig, feedforward=c.rig == "on-floor", noise_a=noise, batch=batch, seed=k)
+        for b in range(batch):
+            logs[b].append(made[b])
+    covered = dict.fromkeys(fp.NAMES, 0)
+    for b in range(batch):
+        result = identify.fit(v, logs[b])
+        for name in fp.NAMES:
+            e = result.estimates[name]
+            covered[name] += abs(e.estimate - x_true[fp.INDEX[name]]) <= 2 * e.se
+    assert all(n >= 18 for n in covered.values()), covered

@@ -158,6 +158,26 @@ def test_identify_arm_stream_and_end(firmware):
     assert out[-1] == messages.Fault(messages.FaultCode.END, 5) and firmware.applied()[3] is True
 
 
+def test_no_feedforward_flag_applies_and_reports_zero_current(firmware):
+    """A setpoint flagged NO_FEEDFORWARD (the wheels-up rig) reaches the firmware's apply hook with zero
+    feed-forward current and the sample reports zero; an unflagged one carries the emulated value."""
+    fw = demo_firmware()
+    _send(firmware, messages.Arm(1, 2))
+    _received(firmware)
+    row = (400, -300, 50, -20, 100, -40, 300)
+    _send(firmware, messages.Setpoint(1, messages.NO_FEEDFORWARD, row), messages.Setpoint(2, messages.LAST, row))
+    firmware.set_measured((1, 2, 3, 4))
+    want = emulate.run(fw.design.feedforward, fw.tables, interface.rows_to_fields(interface.FF_IN, np.array([row])))
+    plain = tuple(int(x) for x in want["current"][0])
+    firmware.tick()
+    assert firmware.applied()[2] == (0, 0)  # the apply hook got no feed-forward
+    firmware.tick()
+    assert firmware.applied()[2] == plain != (0, 0)
+    firmware.tick()
+    samples = [m for m in _received(firmware) if isinstance(m, messages.Sample)]
+    assert [(m.seq, m.ff) for m in samples] == [(1, (0, 0)), (2, plain)]
+
+
 def test_safety_halts(firmware):
     """The motors are halted when the FIFO runs dry, on the watchdog, on HALT; a setpoint while not armed
     is refused; after a halt only a new ARM starts again."""
