@@ -72,17 +72,22 @@ def plan_for(v: Vehicle, c: Candidate, *, duration_s: float, period_s: float) ->
     )
 
 
-def planned_rows(v: Vehicle, plan: Plan, rig: str) -> regressor.Rows:
-    """The fit's rows for a planned motion as `v` would produce it (the motion itself, the model's force)."""
+def planned_rows(v: Vehicle, plan: Plan, rig: str, *, noise_a: float = 0.0) -> regressor.Rows:
+    """The fit's rows for a planned motion as `v` would produce it (the motion itself, the model's force),
+    weighted 0 where the fit would leave them out: near a friction kink, or where the current is within
+    three times the noise of zero (its direction of power flow would be unsure)."""
     si = plan.si()
     op = dynamics.OperatingPoint(**si)
     right, left = dynamics.rig_wheel_forces(v, op, rig)
     n = len(plan)
-    parts = []
+    parts, weight = [], []
+    half = max(1, int(round(0.75 / (regressor.CUTOFF_HZ * float(plan.columns["t"][1] - plan.columns["t"][0])))))
     for speed, side in ((si["speed_right"], right), (si["speed_left"], left)):
         force = np.broadcast_to(side.total, (n,))
         current = force * dynamics.motor_gain(v)
         parts.append(regressor.measured_columns(v, current, speed, current))
+        unsure = np.convolve((np.abs(current) < 3 * noise_a).astype(float), np.ones(2 * half + 1), mode="same") > 0
+        weight.append((~(unsure | regressor._kinked(v, np.asarray(speed, float), half))).astype(float))
     return regressor.Rows(
         ops=[(op, rig)],
         measured=np.concatenate(parts),
@@ -90,18 +95,18 @@ def planned_rows(v: Vehicle, plan: Plan, rig: str) -> regressor.Rows:
         log=np.zeros(2 * n, dtype=int),
         sample=np.concatenate([np.arange(n), np.arange(n)]),
         how=[],
-        weight=np.ones(2 * n),
+        weight=np.concatenate(weight),
     )
 
 
-def information(v: Vehicle, c: Candidate, *, duration_s: float, period_s: float) -> np.ndarray | None:
+def information(v: Vehicle, c: Candidate, *, duration_s: float, period_s: float, noise_a: float) -> np.ndarray | None:
     """X^T X of the scaled regressor a log of this kind adds (at the model's coordinates); None when the
     vehicle cannot run such a plan (the drive's current is not enough, say, loaded on the ramp)."""
     try:
         plan = plan_for(v, c, duration_s=duration_s, period_s=ASSESS_PERIOD_S)
     except UserError:
         return None
-    fm = regressor.force_model(v, planned_rows(v, plan, c.rig))
+    fm = regressor.force_model(v, planned_rows(v, plan, c.rig, noise_a=noise_a))
     js = fm.jacobian(fm.x0) * fp.scales(v, fm.x0)
     return np.asarray(js.T @ js * (ASSESS_PERIOD_S / period_s))
 
@@ -129,7 +134,7 @@ def design(v: Vehicle, *, noise_a: float, duration_s: float, period_s: float) ->
     grams: list[np.ndarray] = []
     held: list[tuple[str, ...]] = []
     for c in candidates(v):
-        g = information(v, c, duration_s=duration_s, period_s=period_s)
+        g = information(v, c, duration_s=duration_s, period_s=period_s, noise_a=noise_a)
         if g is None:
             continue
         before = verdict(grams, noise_n, MARGIN) if grams else None
@@ -143,13 +148,15 @@ def design(v: Vehicle, *, noise_a: float, duration_s: float, period_s: float) ->
     return Design(chosen, held)
 
 
-def informations(v: Vehicle, present: list[Candidate], *, duration_s: float = 60.0) -> dict[Candidate, np.ndarray]:
+def informations(
+    v: Vehicle, present: list[Candidate], *, noise_a: float, duration_s: float = 60.0
+) -> dict[Candidate, np.ndarray]:
     """The information of each candidate log not among `present` (those the vehicle can run), for a
     run of duration_s at 1 ms."""
     out = {}
     for c in candidates(v):
         if c not in present:
-            g = information(v, c, duration_s=20.0, period_s=0.001 * 20.0 / duration_s)
+            g = information(v, c, duration_s=20.0, period_s=0.001 * 20.0 / duration_s, noise_a=noise_a)
             if g is not None:
                 out[c] = g
     return out

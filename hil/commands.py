@@ -280,6 +280,11 @@ def _profile(p: Any) -> Any:
     help="Test faults: a burst of random bytes both ways at this interval (bare number: s).",
 )
 @click.option("--seed", type=int, default=1, show_default=True, help="Seed of the noise and the faults.")
+@click.option(
+    "--port-file",
+    type=click.Path(dir_okay=False),
+    help="Also write the port's path to this file (atomically, once the port is open): a script can wait for it.",
+)
 def simulate(
     model_path: str,
     truth_path: str | None,
@@ -294,11 +299,12 @@ def simulate(
     delay: float,
     garbage_every: float,
     seed: int,
+    port_file: str | None,
 ) -> None:
     """Compile the link and feed-forward C of MODEL for this host, drive a simulated vehicle (TRUE_MODEL's
     physics under a velocity PI loop plus the feed-forward) and serve it on a pseudo-terminal, whose path
     is the first line printed. Runs until the motors are halted, or until killed."""
-    from kinetab.generator import synthesis
+    from kinetab.generator import outputs, synthesis
 
     from .plant import PlantOptions
     from .simulator import LinkFaults, Simulator
@@ -309,6 +315,8 @@ def simulate(
         raise UserError("bench simulate: --period: expected between 0.1 ms and 100 ms")
     if not period <= watchdog <= 60:
         raise UserError("bench simulate: --watchdog: expected between one control period and 60 s")
+    if port_file:
+        outputs.check_target(Path(port_file))
     fw = synthesis.synthesise(v)
     opts = PlantOptions(period_s=period, rig=rig, current_noise_a=noise, encoder_counts=encoder_counts, seed=seed)
     faults = LinkFaults(drop_rate, corrupt_rate, delay, garbage_every, seed)
@@ -316,6 +324,8 @@ def simulate(
         sim = Simulator(
             fw, truth, options=opts, faults=faults, fifo_depth=fifo_depth, folder=Path(tmp), watchdog_s=watchdog
         )
+        if port_file:
+            outputs.write_file(Path(port_file), sim.path + "\n")
         code = sim.run()
     sys.exit(code)
 

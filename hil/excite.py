@@ -23,7 +23,7 @@ def condition(v: Vehicle, plan: Plan, rig: str) -> tuple[float, list[str]]:
     from . import campaign, identifiability, regressor
     from . import fitparams as fp
 
-    fm = regressor.force_model(v, campaign.planned_rows(v, plan, rig))
+    fm = regressor.force_model(v, campaign.planned_rows(v, plan, rig, noise_a=NOISE_OF_LIMIT * v.drive.current_limit_a))
     js = fm.jacobian(fm.x0) * fp.scales(v, fm.x0)
     gram = js.T @ js
     noise = NOISE_OF_LIMIT * v.drive.current_limit_a / dynamics.motor_gain(v)

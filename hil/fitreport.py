@@ -174,7 +174,7 @@ def _held_docs(result: identify.Fit, present: list[campaign.Candidate]) -> list[
         for c in campaign.candidates(result.vehicle)
         if any(campaign.matches(c, p.rig, p.payload_kg, p.pitch_rad) for p in present)
     ]
-    info = campaign.informations(result.vehicle, have)
+    info = campaign.informations(result.vehicle, have, noise_a=result.noise_a)
     return [
         _held_doc(h, campaign.separating(result.gram, result.omega, members=g.members, info=info))
         for h, g in zip(result.held, result.groups)

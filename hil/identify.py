@@ -15,7 +15,7 @@ import numpy as np
 from kinetab.generator.vehicle import Vehicle
 from scipy.optimize import least_squares
 
-from . import covariance, identifiability, regressor
+from . import benchdata, covariance, identifiability, regressor
 from . import fitparams as fp
 from .benchdata import BenchLog
 from .identifiability import Group, Verdict
@@ -63,6 +63,7 @@ class Fit:
     rms_after_n: float
     how: list[str]
     noise_n: float  # standard deviation of the residual rim force, N
+    noise_a: float  # the measured current's noise (compare's noise floor, mean over the logs), A
     free: tuple[str, ...]  # the fitted coordinates
     gram: np.ndarray  # X^T X of the scaled regressor of every coordinate, where the fit landed
     omega: np.ndarray  # the HAC long-run covariance of its scores
@@ -106,15 +107,23 @@ def _omega(j: np.ndarray, r: np.ndarray, data: regressor.Rows, logs: list[BenchL
     return covariance.long_run(scores, lags)
 
 
-def _verdict(fm: regressor.ForceModel, x: np.ndarray, scale: np.ndarray, logs: list[BenchLog]) -> Verdict:
-    """Classify at x. The residual of a min-norm linearised step there, with the efficiencies held, sets
-    the noise the tolerance is tied to (with them free, scaling every force and both efficiencies to zero
-    would fit any log without a known force perfectly, and the noise would look like zero)."""
-    js = fm.jacobian(x) * scale
-    r = fm.residual(x)
-    forces = [j for j, n in enumerate(fp.NAMES) if n not in fp.MEASURED_SIDE]
-    step = np.linalg.lstsq(js[:, forces], -r, rcond=1e-10)[0]
-    return identifiability.classify(js.T @ js, _omega(js, r + js[:, forces] @ step, fm.data, logs))
+def _verdict(
+    fm: regressor.ForceModel, x: np.ndarray, scale: np.ndarray, logs: list[BenchLog], *, lo: np.ndarray, hi: np.ndarray
+) -> Verdict:
+    """Classify at x, with the noise the tolerance is tied to taken from the residual of the best fit of
+    every coordinate (bounded). Without a known force that fit is degenerate: scaling every force and
+    both efficiencies down fits any log, and drives the motoring efficiency to its lower bound. Then the
+    noise comes from a fit with the motoring efficiency held instead (it fixes the scale)."""
+    everything = _Map(x, np.eye(len(x)), list(range(len(x))))
+    p = _solve(fm, everything, lo=lo, hi=hi, scale=scale)
+    at = everything.x(p)
+    eff = fp.INDEX["drive.efficiency"]
+    if at[eff] <= lo[eff] * 1.2:
+        others = [j for j in range(len(x)) if j != eff]
+        scaled = _Map(x, np.eye(len(x))[:, others], others)
+        at = scaled.x(_solve(fm, scaled, lo=lo, hi=hi, scale=scale))
+    js = fm.jacobian(at) * scale
+    return identifiability.classify(js.T @ js, _omega(js, fm.residual(at), fm.data, logs))
 
 
 def _solve(fm: regressor.ForceModel, m: _Map, *, lo: np.ndarray, hi: np.ndarray, scale: np.ndarray) -> np.ndarray:
@@ -146,11 +155,11 @@ def fit(v: Vehicle, logs: list[BenchLog]) -> Fit:
     fm = regressor.force_model(v, data)
     x0, (lo, hi) = fm.x0, fp.bounds(v)
     scale = fp.scales(v, x0)
-    verdict = _verdict(fm, x0, scale, logs)
+    verdict = _verdict(fm, x0, scale, logs, lo=lo, hi=hi)
     m = _map(x0, scale, verdict)
     p = _solve(fm, m, lo=lo, hi=hi, scale=scale)
     for _ in range(2):  # classify again where the fit landed, where the residual is the noise
-        again = _verdict(fm, m.x(p), scale, logs)
+        again = _verdict(fm, m.x(p), scale, logs, lo=lo, hi=hi)
         if again.free == verdict.free and [g.members for g in again.groups] == [g.members for g in verdict.groups]:
             break
         verdict = again
@@ -180,6 +189,7 @@ def fit(v: Vehicle, logs: list[BenchLog]) -> Fit:
         rms_after_n=float(np.sqrt(np.mean(r_written**2))),
         how=data.how,
         noise_n=float(np.std(r)),
+        noise_a=float(np.mean([benchdata.noise_floor(log) for log in logs])),
         free=tuple(fp.NAMES[j] for j in verdict.free),
         gram=js_full.T @ js_full,
         omega=_omega(js_full, r, data, logs),

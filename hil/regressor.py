@@ -139,11 +139,12 @@ def _doubtful(force: np.ndarray, speed: np.ndarray, half: int) -> np.ndarray:
 
 
 def _kinked(v: Vehicle, speed: np.ndarray, half: int) -> np.ndarray:
-    """Rows whose filter window crosses zero speed or a deadband edge: friction bends there, so the
-    filtered force differs from the force at the filtered speed."""
+    """Rows whose filter window reaches into the deadband (|speed| below its edge, zero crossings
+    included): friction there is the model's steep stand-in for stiction, it bends at the edges, and
+    the filtered force differs from the force at the filtered speed."""
     lo, hi = _roll(speed, 2 * half + 1, "min"), _roll(speed, 2 * half + 1, "max")
     edge = v.friction.deadband_mps
-    return ((lo < 0) & (hi > 0)) | ((lo < edge) & (hi > edge)) | ((lo < -edge) & (hi > -edge))
+    return (lo < edge) & (hi > -edge)
 
 
 def model_force(v: Vehicle, data: Rows) -> np.ndarray:
