@@ -201,11 +201,15 @@ def _filter_spread(
     v: Vehicle, logs: list[BenchLog], m: _Map, p: np.ndarray, *, lo: np.ndarray, hi: np.ndarray
 ) -> np.ndarray:
     """Covariance (in p) of the systematic error the filter leaves (nonlinear terms filtered, quantised
-    speeds differentiated): the same fit with regressor.OTHER_CUTOFF_HZ moves the estimates by d; d d^T
-    is added (the filter choice between 10 and 20 Hz is arbitrary; what it changes is not known better)."""
-    other = regressor.force_model(v, regressor.rows(v, logs, cutoff_hz=regressor.OTHER_CUTOFF_HZ))
-    d = _solve(other, m, lo=lo, hi=hi, scale=fp.scales(v, m.x0)) - p
-    return np.outer(d, d)
+    speeds differentiated, rows left out near a change of power flow): the same fit with each cutoff of
+    regressor.OTHER_CUTOFFS_HZ moves the estimates by d; the mean of d d^T is added (the choice of cutoff
+    within 10-20 Hz is arbitrary; what it changes is not known any better)."""
+    out = np.zeros((len(p), len(p)))
+    for cutoff in regressor.OTHER_CUTOFFS_HZ:
+        other = regressor.force_model(v, regressor.rows(v, logs, cutoff_hz=cutoff))
+        d = _solve(other, m, lo=lo, hi=hi, scale=fp.scales(v, m.x0)) - p
+        out += np.outer(d, d) / len(regressor.OTHER_CUTOFFS_HZ)
+    return out
 
 
 HELD_PRIOR = 0.1

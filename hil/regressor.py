@@ -29,7 +29,7 @@ from . import fitparams as fp
 from .benchdata import BenchLog
 
 CUTOFF_HZ = 15.0  # low-pass cutoff of the fit's filter (measured: 10-20 Hz keep the bias below 1 %)
-OTHER_CUTOFF_HZ = 10.0  # the fit is repeated with this cutoff: the change is counted as systematic error
+OTHER_CUTOFFS_HZ = (10.0, 20.0)  # the fit is repeated with these cutoffs: the change counts as systematic error
 
 
 @dataclass(frozen=True)
