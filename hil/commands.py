@@ -39,6 +39,13 @@ def _period_option(text: str) -> Any:
     )
 
 
+def _zero_option(flag: str, kind: units.Kind, bare: str, text: str) -> Any:
+    """A quantity option of `bench plan` that defaults to zero."""
+    return click.option(
+        flag, type=QuantityType(kind, bare), default="0", show_default=True, help=f"{text} (bare number: {bare})."
+    )
+
+
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})
 def bench() -> None:
     """Bench link to the drive controller: link C, plans, a simulated controller, runs, serial ports."""
@@ -168,27 +175,9 @@ def fit(
 )
 @_period_option("Control period, one row each")
 @RIG_OPTION
-@click.option(
-    "--payload",
-    type=QuantityType(units.MASS, "kg"),
-    default="0",
-    show_default=True,
-    help="Payload during the run (bare number: kg).",
-)
-@click.option(
-    "--pitch",
-    type=QuantityType(units.ANGLE, "deg"),
-    default="0",
-    show_default=True,
-    help="Ramp pitch (bare number: deg).",
-)
-@click.option(
-    "--roll",
-    type=QuantityType(units.ANGLE, "deg"),
-    default="0",
-    show_default=True,
-    help="Side slope (bare number: deg).",
-)
+@_zero_option("--payload", units.MASS, "kg", "Payload during the run")
+@_zero_option("--pitch", units.ANGLE, "deg", "Ramp pitch, front up > 0")
+@_zero_option("--roll", units.ANGLE, "deg", "Side slope, left side up > 0")
 @click.option("--for-fit", is_flag=True, help="Choose the plan that makes the fitted parameters best identifiable.")
 def plan(
     model_path: str,

@@ -246,6 +246,8 @@ def _tables(doc: dict[str, Any]) -> str:
         lines.append(
             f"  {log}: " + ", ".join(f"{p} {b * 1000:.1f} -> {after[p] * 1000:.1f}" for p, b in phases.items())
         )
+    if "drive.rotor_inertia" in doc["model_changes"]:
+        lines.append("reflected_inertia is written as drive.rotor_inertia (wheels.inertia kept: the split is not seen)")
     if doc["written"]:
         lines.append(f"wrote {doc['written']}")
     else:

@@ -114,6 +114,7 @@ def _verdict(
     every coordinate (bounded). Without a known force that fit is degenerate: scaling every force and
     both efficiencies down fits any log, and drives the motoring efficiency to its lower bound. Then the
     noise comes from a fit with the motoring efficiency held instead (it fixes the scale)."""
+    x = np.clip(x, lo, hi)  # where a held group's combination moved it past a bound
     everything = _Map(x, np.eye(len(x)), list(range(len(x))))
     p = _solve(fm, everything, lo=lo, hi=hi, scale=scale)
     at = everything.x(p)
@@ -136,7 +137,7 @@ def _solve(fm: regressor.ForceModel, m: _Map, *, lo: np.ndarray, hi: np.ndarray,
     x_scale = np.concatenate([scale[m.free], np.ones(m.t.shape[1] - n_free)])
     result = least_squares(
         lambda p: fm.residual(m.x(p)),
-        np.zeros(m.t.shape[1]),
+        np.clip(np.zeros(m.t.shape[1]), low, high),  # a held group may have moved a start past a bound
         jac=lambda p: fm.jacobian(m.x(p)) @ m.t,
         bounds=(low, high),
         x_scale=x_scale,
