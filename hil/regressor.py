@@ -129,7 +129,7 @@ def rows(v: Vehicle, logs: list[BenchLog], *, cutoff_hz: float = CUTOFF_HZ) -> R
                 bucket.append(item)
         how.append(
             f"{log.path.name} ({log.rig}): {len(log)} rows through one zero-phase low-pass filter "
-            f"({cutoff_hz:g} Hz), then every {decimation(dt, cutoff_hz)}th: {len(idx)} rows"
+            f"({cutoff_hz:g} Hz), then one row in {decimation(dt, cutoff_hz)}: {len(idx)} rows"
         )
     measured, speeds, which, sample, weight = (np.concatenate(b) for b in parts[:5])
     return Rows(ops, measured, speeds, which, sample, how, weight)
