@@ -4,6 +4,7 @@
 from __future__ import annotations
 
 import os
+import stat
 import tempfile
 import xml.etree.ElementTree as ET
 from collections.abc import Mapping
@@ -43,10 +44,33 @@ def _temporary(path: Path, text: str | bytes) -> Path:
     return Path(tmp)
 
 
-def check_target(path: Path) -> None:
-    """A path we are about to write: not a folder, and its folder exists or can be made and written."""
-    if path.is_dir():
+def destination(path: Path) -> tuple[Path, bool]:
+    """Where writing `path` goes, and whether it is written through rather than replaced: a symlink is
+    followed to its target (which is replaced, the link kept); a named pipe or a character device is
+    written through (renaming over it would put a regular file where the device or pipe was); anything
+    else that is not a regular file is refused, one line, exit 2."""
+    real = Path(os.path.realpath(path)) if path.is_symlink() else path
+    try:
+        mode = real.stat().st_mode
+    except FileNotFoundError:
+        return real, False
+    except OSError as exc:
+        raise UserError(f"{path}: cannot write ({exc.strerror})") from None
+    if stat.S_ISREG(mode):
+        return real, False
+    if stat.S_ISFIFO(mode) or stat.S_ISCHR(mode):
+        return real, True
+    if stat.S_ISDIR(mode):
         raise UserError(f"{path}: expected a file name, found a folder")
+    raise UserError(f"{path}: cannot write: not a regular file, a named pipe or a character device")
+
+
+def check_target(path: Path) -> None:
+    """A path we are about to write: a regular file (or none yet), a pipe or character device written
+    through, or a symlink to one of those; its folder exists or can be made and written."""
+    path, through = destination(path)
+    if through:
+        return
     folder = path.parent
     probe = folder
     while not probe.exists():
@@ -67,16 +91,25 @@ def check_folder(folder: Path) -> None:
 def write_set(files: Mapping[Path, str | bytes]) -> None:
     """Write several files so that readers see either the old set or the new one: every target is
     checked first, every text goes to a temporary file, and only then are they renamed into place.
-    A failure before the renames leaves every old file untouched (one user-facing line, exit 2)."""
+    A failure before the renames leaves every old file untouched (one user-facing line, exit 2).
+    Symlinks, pipes and character devices: see destination()."""
     for path in files:
         check_target(path)
+    targets = {path: destination(path) for path in files}
     temps: dict[Path, Path] = {}
     try:
         for path, text in files.items():
-            path.parent.mkdir(parents=True, exist_ok=True)
-            temps[path] = _temporary(path, text)
-        for path, tmp in temps.items():
-            os.replace(tmp, path)
+            real, through = targets[path]
+            if not through:
+                real.parent.mkdir(parents=True, exist_ok=True)
+                temps[real] = _temporary(real, text)
+        for real, tmp in temps.items():
+            os.replace(tmp, real)
+        for path, text in files.items():  # pipes and devices last: they cannot take part in the swap
+            real, through = targets[path]
+            if through:
+                with real.open("wb") as out:
+                    out.write(text if isinstance(text, bytes) else text.encode("utf-8"))
     except OSError as exc:
         raise UserError(f"{exc.filename or 'output'}: cannot write ({exc.strerror})") from None
     finally:
