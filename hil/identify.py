@@ -186,8 +186,8 @@ def fit(v: Vehicle, logs: list[BenchLog]) -> Fit:
         estimates=estimates,
         held=held,
         condition=float(sv[0] / sv[-1]) if sv[-1] > 0 else float("inf"),
-        rms_before_n=float(np.sqrt(np.mean(fm.residual(x0) ** 2))),
-        rms_after_n=float(np.sqrt(np.mean(r_written**2))),
+        rms_before_n=_rms(fm.residual(x0), data.weight),
+        rms_after_n=_rms(r_written, data.weight),
         how=data.how,
         noise_n=float(np.std(r)),
         noise_a=float(np.mean([benchdata.noise_floor(log) for log in logs])),
@@ -196,6 +196,11 @@ def fit(v: Vehicle, logs: list[BenchLog]) -> Fit:
         omega=_omega(js_full, r, data, logs),
         groups=verdict.groups,
     )
+
+
+def _rms(residual: np.ndarray, weight: np.ndarray) -> float:
+    """RMS over the rows the fit uses (the others carry a residual of 0)."""
+    return float(np.sqrt(np.sum(residual**2) / max(float(np.sum(weight)), 1.0)))
 
 
 def _filter_spread(
