@@ -87,7 +87,7 @@ def planned_rows(v: Vehicle, plan: Plan, rig: str, *, noise_a: float = 0.0) -> r
         current = force * dynamics.motor_gain(v)
         parts.append(regressor.measured_columns(v, current, speed, current))
         unsure = np.convolve((np.abs(current) < 3 * noise_a).astype(float), np.ones(2 * half + 1), mode="same") > 0
-        weight.append((~(unsure | regressor._kinked(v, np.asarray(speed, float), half))).astype(float))
+        weight.append((~(unsure | regressor.kinked(v, np.asarray(speed, float), half))).astype(float))
     return regressor.Rows(
         ops=[(op, rig)],
         measured=np.concatenate(parts),

@@ -39,6 +39,19 @@ def _period_option(text: str) -> Any:
     )
 
 
+def _check_period(command: str, period: float) -> None:
+    """The control period a bench command takes: 0.1 ms to 100 ms (one line, exit 2, otherwise)."""
+    if not 0.0001 <= period <= 0.1:
+        raise UserError(f"{command}: --period: expected between 0.1 ms and 100 ms")
+
+
+def _duration_option(text: str) -> Any:
+    """The length option of the commands that write plans (bare number: s), 60 s by default."""
+    return click.option(
+        "--duration", type=QuantityType(SECONDS, "s"), default="60", show_default=True, help=f"{text} (bare number: s)."
+    )
+
+
 def _zero_option(flag: str, kind: units.Kind, bare: str, text: str) -> Any:
     """A quantity option of `bench plan` that defaults to zero."""
     return click.option(
@@ -166,13 +179,7 @@ def fit(
 @bench.command(short_help="Write a jerk-limited test trajectory (CSV) inside the envelope.")
 @click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
 @click.option("-o", "--out", "out_path", required=True, type=click.Path(dir_okay=False), help="Plan CSV to write.")
-@click.option(
-    "--duration",
-    type=QuantityType(SECONDS, "s"),
-    default="60",
-    show_default=True,
-    help="Length of the plan (bare number: s).",
-)
+@_duration_option("Length of the plan")
 @_period_option("Control period, one row each")
 @RIG_OPTION
 @_zero_option("--payload", units.MASS, "kg", "Payload during the run")
@@ -197,8 +204,7 @@ def plan(
     from . import excite, planfile, planner
 
     v = model.load(model_path)
-    if not 0.0001 <= period <= 0.1:
-        raise UserError("bench plan: --period: expected between 0.1 ms and 100 ms")
+    _check_period("bench plan", period)
     if for_fit:
         p, cond = excite.plan_for_fit(
             v, duration_s=duration, period_s=period, rig=rig, payload=payload, pitch=pitch, roll=roll
@@ -300,8 +306,7 @@ def simulate(
 
     v = model.load(model_path)
     truth = model.load(truth_path) if truth_path else v
-    if not 0.0001 <= period <= 0.1:
-        raise UserError("bench simulate: --period: expected between 0.1 ms and 100 ms")
+    _check_period("bench simulate", period)
     if not period <= watchdog <= 60:
         raise UserError("bench simulate: --watchdog: expected between one control period and 60 s")
     if port_file:
@@ -382,13 +387,7 @@ def _confirm() -> None:
 @bench.command(short_help="Plan the set of bench runs that lets `bench fit` determine every parameter.")
 @click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
 @click.option("-o", "--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Folder for the plans.")
-@click.option(
-    "--duration",
-    type=QuantityType(SECONDS, "s"),
-    default="60",
-    show_default=True,
-    help="Length of each run (bare number: s).",
-)
+@_duration_option("Length of each run")
 @_period_option("Control period, one row each")
 @click.option(
     "--noise",
@@ -405,8 +404,7 @@ def campaign(model_path: str, out_dir: str, duration: float, period: float, nois
 
     if not out_dir.strip():
         raise UserError("-o/--out: expected an output folder, found an empty name (use '.' for this folder)")
-    if not 0.0001 <= period <= 0.1:
-        raise UserError("bench campaign: --period: expected between 0.1 ms and 100 ms")
+    _check_period("bench campaign", period)
     if duration < 5:
         raise UserError("bench campaign: --duration: expected at least 5 s (room to start and stop)")
     v = model.load(model_path)

@@ -122,7 +122,7 @@ def rows(v: Vehicle, logs: list[BenchLog], *, cutoff_hz: float = CUTOFF_HZ) -> R
         for side in (0, 1):
             split = measured_columns(v, log.current[:, side], speed[:, side], log.current[:, side])
             filtered = smooth(split, dt, cutoff_hz)
-            doubtful = _doubtful(log.current[:, side], speed[:, side], n // 2) | _kinked(v, speed[:, side], n // 2)
+            doubtful = _doubtful(log.current[:, side], speed[:, side], n // 2) | kinked(v, speed[:, side], n // 2)
             for bucket, item in zip(
                 parts, (filtered[keep], speed[keep, side], np.full(len(idx), k), idx, (~doubtful[keep]).astype(float))
             ):
@@ -145,7 +145,7 @@ def _doubtful(force: np.ndarray, speed: np.ndarray, half: int) -> np.ndarray:
     return (frac > 0) & (frac < 1)
 
 
-def _kinked(v: Vehicle, speed: np.ndarray, half: int) -> np.ndarray:
+def kinked(v: Vehicle, speed: np.ndarray, half: int) -> np.ndarray:
     """Rows whose filter window reaches into the deadband (|speed| below its edge, zero crossings
     included): friction there is the model's steep stand-in for stiction, it bends at the edges, and
     the filtered force differs from the force at the filtered speed."""
