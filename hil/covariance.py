@@ -1,7 +1,8 @@
 """Standard errors that allow for residuals correlated in time: the Newey-West
 heteroskedasticity-and-autocorrelation-consistent (HAC) sandwich with Bartlett weights (Newey and West
-1987, Econometrica 55(3), from memory; checked against statsmodels in tests), on scores summed over both wheels of a sample and over short blocks of
-samples, and summed over logs (residuals of different logs are independent).
+1987, Econometrica 55(3), from memory; checked against statsmodels in tests), on scores summed over
+both wheels of a sample and over short blocks of samples, and summed over logs (residuals of
+different logs are independent).
 
 Summing the scores over a block first is exact for the long-run variance and keeps the lag sum short:
 a bench log at 1 kHz has residuals correlated over the filter window and the speed loop (~0.1 s) and,

@@ -3,7 +3,7 @@
 Data: both wheels of every log stacked (right rows, then left rows, log after log). The measured
 speeds, their finite-difference derivative and the measured currents all pass through the same
 zero-phase low-pass filter ("parallel filtering", common practice in robot identification; Gautier
-and Khalil): the model is linear in the accelerations, so filtering both sides alike keeps the
+and Khalil, from memory): the model is linear in the accelerations, so filtering both sides alike keeps the
 inertia estimates free of the smoothing lag. A derivative by a Savitzky-Golay filter of the speeds
 against currents smoothed differently biased the inertias by 5-10 % here; its weak stopband let the
 encoder's quantisation noise through, which biased the yaw inertia by another 11 % (errors in the
