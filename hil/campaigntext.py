@@ -64,7 +64,11 @@ def campaign_files(
     lines.append(f"Then: kinetab bench fit {model_path} {' '.join(logs)} --write fitted.toml")
     if design.held:
         held = "; ".join(", ".join(h) for h in design.held)
-        lines.append(f"Even with these runs the fit will hold: {held} (no run of the kinds above separates them).")
+        lines.append(
+            f"By this reckoning the fit may still hold: {held}. The reckoning asks three times the precision the "
+            "fit needs; longer runs (--duration) or a quieter drive (--noise) may separate them, and `bench fit` "
+            "names the further run that would."
+        )
     text = "\n".join(lines) + "\n"
     files[out / "CAMPAIGN.txt"] = text
     return files, text
