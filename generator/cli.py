@@ -12,7 +12,7 @@ import click
 import numpy as np
 
 from . import __version__, dynamics, emulate, envelope, interface, model, units
-from .cli_support import LazyGroup, QuantityType, run
+from .cli_support import LazyGroup, ProgressLine, QuantityType, run
 from .errors import CheckFailed, UserError
 from .vehicle import Vehicle
 
@@ -357,11 +357,14 @@ def report(model_path: str, out_dir: str) -> None:
         click.echo(f"warning: {v.source}: envelope: {problem}", err=True)
     fw = synthesis.synthesise(v)
     outputs.check_folder(folder)
+    progress = ProgressLine("report")
     try:
-        names = plots.write_report(fw, accuracy.measure(fw), envelope.analyse(v), folder)
-    except OSError as exc:
-        raise UserError(f"{exc.filename or folder}: cannot write ({exc.strerror})") from None
-    click.echo(f"wrote {len(names)} files to {out_dir} (open index.html)")
+        progress("measuring the error")
+        files = plots.report_files(fw, accuracy.measure(fw), envelope.analyse(v), folder, progress)
+    finally:
+        progress.clear()
+    outputs.write_set(files)
+    click.echo(f"wrote {len(files)} files to {out_dir} (open index.html)")
 
 
 def main(argv: list[str] | None = None) -> None:

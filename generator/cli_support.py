@@ -94,6 +94,28 @@ def run(group: click.Group, argv: list[str] | None) -> None:
             signal.signal(sig, handler)
 
 
+class ProgressLine:
+    """What long work is doing, on one line of stderr redrawn in place; only on a terminal (a log file or
+    a pipe gets nothing, and neither does a command asked for JSON). Cleared before the result prints."""
+
+    def __init__(self, prefix: str, *, enabled: bool | None = None) -> None:
+        self.prefix = prefix
+        self.enabled = sys.stderr.isatty() if enabled is None else enabled
+        self.width = 0
+
+    def __call__(self, text: str) -> None:
+        if self.enabled:
+            line = f"{self.prefix}: {text} ..."
+            click.echo("\r" + line.ljust(self.width), nl=False, err=True)
+            self.width = len(line)
+
+    def clear(self) -> None:
+        """Erase the line (nothing if none was shown)."""
+        if self.enabled and self.width:
+            click.echo("\r" + " " * self.width + "\r", nl=False, err=True)
+            self.width = 0
+
+
 class Interrupted(BaseException):
     """Ctrl-C (SIGINT) or SIGTERM during a command. Not a KeyboardInterrupt, which click would turn into
     its own abort message; `finally` blocks still run, so temporary files are removed and a bench run

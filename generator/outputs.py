@@ -3,11 +3,14 @@
 
 from __future__ import annotations
 
+import contextlib
 import os
+import signal
 import stat
 import tempfile
+import threading
 import xml.etree.ElementTree as ET
-from collections.abc import Mapping
+from collections.abc import Iterator, Mapping
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -103,8 +106,9 @@ def write_set(files: Mapping[Path, str | bytes]) -> None:
             if not through:
                 real.parent.mkdir(parents=True, exist_ok=True)
                 temps[real] = _temporary(real, text)
-        for real, tmp in temps.items():
-            os.replace(tmp, real)
+        with _signals_deferred():  # Ctrl-C among the renames would leave half the set new
+            for real, tmp in temps.items():
+                os.replace(tmp, real)
         for path, text in files.items():  # pipes and devices last: they cannot take part in the swap
             real, through = targets[path]
             if through:
@@ -115,6 +119,26 @@ def write_set(files: Mapping[Path, str | bytes]) -> None:
     finally:
         for tmp in temps.values():
             tmp.unlink(missing_ok=True)
+
+
+@contextlib.contextmanager
+def _signals_deferred() -> Iterator[None]:
+    """Hold SIGINT and SIGTERM back for the duration (a handful of renames) and deliver them after,
+    to the handlers that were in place. Only the main thread may set handlers; elsewhere a no-op."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    held: list[int] = []
+    previous = {
+        s: signal.signal(s, lambda signum, _frame: held.append(signum)) for s in (signal.SIGINT, signal.SIGTERM)
+    }
+    try:
+        yield
+    finally:
+        for sig, handler in previous.items():
+            signal.signal(sig, handler)
+        if held:
+            signal.raise_signal(held[0])
 
 
 def write_file(path: Path, text: str | bytes) -> None:

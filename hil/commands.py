@@ -10,7 +10,7 @@ from typing import Any
 
 import click
 from kinetab.generator import model, units
-from kinetab.generator.cli_support import QuantityType
+from kinetab.generator.cli_support import ProgressLine, QuantityType
 from kinetab.generator.errors import UserError
 
 CAUTION = (
@@ -206,9 +206,20 @@ def plan(
     v = model.load(model_path)
     _check_period("bench plan", period)
     if for_fit:
-        p, cond = excite.plan_for_fit(
-            v, duration_s=duration, period_s=period, rig=rig, payload=payload, pitch=pitch, roll=roll
-        )
+        progress = ProgressLine("bench plan")
+        try:
+            p, cond = excite.plan_for_fit(
+                v,
+                duration_s=duration,
+                period_s=period,
+                rig=rig,
+                payload=payload,
+                pitch=pitch,
+                roll=roll,
+                progress=progress,
+            )
+        finally:
+            progress.clear()
     else:
         p = planner.make_plan(v, duration_s=duration, period_s=period, rig=rig, payload=payload, pitch=pitch, roll=roll)
         cond = excite.condition(v, p, rig)[0]

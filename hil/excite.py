@@ -4,6 +4,8 @@ optimal-excitation work in robot identification (Gautier and Khalil; Swevers et 
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 import numpy as np
 from kinetab.generator import dynamics
 from kinetab.generator.vehicle import Vehicle
@@ -35,12 +37,22 @@ def condition(v: Vehicle, plan: Plan, rig: str) -> tuple[float, list[str]]:
 
 
 def plan_for_fit(
-    v: Vehicle, *, duration_s: float, period_s: float, rig: str, payload: float, pitch: float = 0.0, roll: float = 0.0
+    v: Vehicle,
+    *,
+    duration_s: float,
+    period_s: float,
+    rig: str,
+    payload: float,
+    pitch: float = 0.0,
+    roll: float = 0.0,
+    progress: Callable[[str], None] = lambda _: None,
 ) -> tuple[Plan, float]:
     """The best of the default plan and CANDIDATES perturbed ones (speeds, accelerations and holds
-    scaled 0.6 to 1.4 at random, seeded): the most parameters told apart, then the lowest condition."""
+    scaled 0.6 to 1.4 at random, seeded): the most parameters told apart, then the lowest condition.
+    `progress` is told which candidate is being weighed."""
     best: tuple[int, float, Plan] | None = None
-    for seed in [None, *range(CANDIDATES)]:
+    for k, seed in enumerate([None, *range(CANDIDATES)], start=1):
+        progress(f"candidate plan {k} of {CANDIDATES + 1}")
         plan = planner.make_plan(
             v, duration_s=duration_s, period_s=period_s, rig=rig, payload=payload, pitch=pitch, roll=roll, seed=seed
         )
