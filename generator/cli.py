@@ -244,13 +244,14 @@ ALLOW_HELP = "Build or pass even when the envelope exceeds the drive's current, 
     "--vectors",
     "vectors_path",
     type=click.Path(dir_okay=False, allow_dash=True),
-    help="Also write golden vectors (CSV, firmware steps); '-' prints them on standard output.",
+    help="Also write golden vectors (CSV, firmware steps); '-' prints them on standard output. "
+    "Without it, an OUT/vectors.csv already there is refreshed.",
 )
 @click.option("--allow-infeasible-envelope", "allow", is_flag=True, help=ALLOW_HELP)
 def build(model_path: str, out_dir: str, vectors_path: str | None, allow: bool) -> None:
     """Generate <name>_ff.h and <name>_ff.c into OUT, all files or none; exit 1 if the envelope is
     infeasible (unless accepted) or the budget cannot be met."""
-    from . import outputs, render, synthesis, vectors
+    from . import gate, outputs, render, synthesis, vectors
 
     folder = _out_dir(out_dir)
     v = model.load(model_path)
@@ -259,6 +260,7 @@ def build(model_path: str, out_dir: str, vectors_path: str | None, allow: bool) 
     if fw.over_cap:
         click.echo(f"warning: {v.source}: {synthesis.sizing_note(fw)}", err=True)
     files = {folder / name: text for name, text in render.render(fw).items()}
+    vectors_path = _vectors_target(folder, vectors_path)
     csv = vectors.to_csv(fw, vectors.feedforward_table(fw)) if vectors_path else None
     if csv is not None and vectors_path != "-":
         files[Path(str(vectors_path))] = csv
@@ -271,6 +273,19 @@ def build(model_path: str, out_dir: str, vectors_path: str | None, allow: bool) 
         f"{synthesis.sizing_note(fw)}; {synthesis.products_note(fw)}",
         err=vectors_path == "-",
     )
+    for check in (gate.companion_check(fw, path, model_path) for path in gate.companions(fw, folder)):
+        if not check.ok:
+            click.echo(f"warning: {check.detail}", err=True)
+
+
+def _vectors_target(folder: Path, vectors_path: str | None) -> str | None:
+    """Where build writes golden vectors: the file --vectors names, else the folder's vectors.csv when
+    one is there already (so a rebuild never leaves stale vectors beside fresh C), else none."""
+    from . import gate
+
+    if vectors_path is None and (folder / gate.VECTORS_DEFAULT).is_file():
+        return str(folder / gate.VECTORS_DEFAULT)
+    return vectors_path
 
 
 @cli.command(short_help="CI gate: files fresh, envelope feasible, error in budget.")
@@ -309,7 +324,7 @@ def verify(
         return
     rebuild = f"kinetab build {model_path} -o {out_dir}"
     checks = [
-        *gate.file_checks(fw, folder, Path(vectors_path) if vectors_path else None, rebuild),
+        *gate.file_checks(fw, folder, Path(vectors_path) if vectors_path else None, rebuild, model_path=model_path),
         env,
         gate.budget_check(fw),
     ]

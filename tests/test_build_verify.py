@@ -132,14 +132,6 @@ def test_predict_current_fixed_within_budget(capsys):
         assert abs(doc[side]["current_fixed"] - doc[side]["current"]) <= 0.02
 
 
-def test_report_renders(tmp_path, capsys):
-    code, out, err = run(["report", str(DEMO_PATH), "-o", str(tmp_path / "rep")], capsys)
-    assert code == 0, err
-    html = (tmp_path / "rep" / "index.html").read_text()
-    for png in ("error.png", "envelope.png", "table_friction.png"):
-        assert png in html and (tmp_path / "rep" / png).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
-
-
 def test_unwritable_outputs_are_one_line_errors(tmp_path, capsys):
     blocker = tmp_path / "file"
     blocker.write_text("x")
@@ -267,3 +259,68 @@ def test_report_zooms_into_the_deadband_and_speaks_degrees(tmp_path, capsys):
 
     assert width("table_friction.png") > 1.4 * width("table_m11.png")
     assert plots.AXIS["pitch"][0] == "deg" and plots.AXIS["roll"][0] == "deg"
+
+
+def _invented(tmp_path, seed: int):
+    """A random vehicle (helpers.random_doc, seeded) that builds; returns its model file and document."""
+    import numpy as np
+    from kinetab.generator import stability, synthesis
+    from kinetab.generator.errors import CheckFailed, ModelError
+
+    from tests.helpers import random_doc, vehicle_from
+
+    rng = np.random.default_rng(seed)
+    for _ in range(50):
+        doc = random_doc(lambda lo, hi: float(rng.uniform(lo, hi)))
+        doc["name"] = "tamarack"
+        doc["firmware"]["current_budget"] = "60 mA"
+        try:
+            stability.check(vehicle_from(doc))
+            synthesis.synthesise(vehicle_from(doc))
+        except (ModelError, CheckFailed):
+            continue
+        return write_model(tmp_path, doc, "tamarack.toml"), doc
+    raise AssertionError("no random vehicle could be built in 50 draws")
+
+
+def test_rebuild_refreshes_the_vectors_in_its_folder(tmp_path, capsys):
+    """Regression (README's own sequence): build with --vectors DIR/vectors.csv, change the model, build
+    without --vectors, verify: exit 1 "vectors.csv: stale". A rebuild now refreshes the folder's
+    vectors.csv and names it; vectors elsewhere are left alone (verify checks them only when named)."""
+    path, doc = _invented(tmp_path, 77)
+    out = tmp_path / "fw"
+    allow = "--allow-infeasible-envelope"
+    assert run(["build", str(path), "-o", str(out), "--vectors", str(out / "vectors.csv"), allow], capsys)[0] == 0
+    doc["body"]["mass"] = f"{float(doc['body']['mass'].split()[0]) * 1.1} kg"
+    write_model(tmp_path, doc, "tamarack.toml")
+    code, text, err = run(["build", str(path), "-o", str(out), allow], capsys)
+    assert code == 0 and str(out / "vectors.csv") in text, err
+    code, text, err = run(["verify", str(path), str(out), "--allow-infeasible-envelope"], capsys)
+    assert code == 0 and f"{out / 'vectors.csv'}: fresh" in text, err
+
+
+def test_verify_checks_the_link_files_of_the_model(tmp_path, capsys):
+    """Regression: after a model change and a rebuild, <name>_link.h/.c kept the old fingerprint and
+    verify passed. Now each is checked against the model's fingerprint, and the failure names the
+    command (with the period the files were made for); build warns about them too."""
+    import kinetab
+
+    path, doc = _invented(tmp_path, 78)
+    out = tmp_path / "fw"
+    assert run(["build", str(path), "-o", str(out), "--allow-infeasible-envelope"], capsys)[0] == 0
+    kinetab.main(["bench", "link", str(path), "-o", str(out), "--period", "2 ms"])
+    capsys.readouterr()
+    code, text, err = run(["verify", str(path), str(out), "--allow-infeasible-envelope"], capsys)
+    assert code == 0 and "tamarack_link.h: fresh" in text and "tamarack_link.c: fresh" in text, err
+    doc["drive"]["torque_constant"] = f"{float(doc['drive']['torque_constant'].split()[0]) * 0.9} N*m/A"
+    write_model(tmp_path, doc, "tamarack.toml")
+    code, text, err = run(["build", str(path), "-o", str(out), "--allow-infeasible-envelope"], capsys)
+    assert code == 0 and "warning: " in err and "tamarack_link.h: stale" in err
+    code, text, err = run(["verify", str(path), str(out), "--allow-infeasible-envelope"], capsys)
+    stale = [line for line in err.splitlines() if line.startswith("FAILED")]
+    assert code == 1 and len(stale) == 2, err
+    assert all("stale: made from fingerprint" in line for line in stale)
+    assert all(f"run: kinetab bench link {path} -o {out} --period '2000 us'" in line for line in stale)
+    kinetab.main(["bench", "link", str(path), "-o", str(out), "--period", "2000 us"])
+    capsys.readouterr()
+    assert run(["verify", str(path), str(out), "--allow-infeasible-envelope"], capsys)[0] == 0

@@ -9,7 +9,7 @@ import signal
 
 import numpy as np
 import pytest
-from kinetab.generator import cli_support, envelope, model, outputs, plots, stability, synthesis
+from kinetab.generator import cli_support, envelope, outputs, plots, stability, synthesis
 from kinetab.generator.errors import CheckFailed, ModelError
 
 from tests.helpers import random_doc, vehicle_from, write_model
@@ -73,16 +73,22 @@ def test_ctrl_c_among_the_renames_is_held_until_the_set_is_whole(tmp_path, monke
     assert seen and all(p.read_text() == text for p, text in files.items())
 
 
-def test_progress_only_on_a_terminal(invented, tmp_path, capsys):
-    """Not a terminal (pytest's capture): report prints its one result line and nothing on stderr. On a
-    terminal the line is redrawn in place and erased at the end."""
+def test_report_writes_the_whole_set_and_no_progress_off_a_terminal(invented, tmp_path, capsys):
+    """Through the command line: one PNG per table plus error and envelope, index.html showing each of
+    them; stderr not a terminal (pytest's capture), so no progress line, and stdout one result line.
+    On a terminal the line is redrawn in place and erased at the end."""
     import kinetab
 
-    path, _ = invented
-    kinetab.main(["report", str(path), "-o", str(tmp_path / "rep")])
+    path, fw = invented
+    kinetab.main(["report", str(path), "-o", str(tmp_path)])
     out, err = capsys.readouterr()
     assert "\r" not in err and "report:" not in err  # (the invented vehicle may get envelope warnings)
-    assert out.startswith("wrote ") and len(out.splitlines()) == 1
+    assert out.startswith(f"wrote {len(fw.tables) + 3} files") and len(out.splitlines()) == 1
+    pngs = {f"table_{n}.png" for n in fw.tables} | {"error.png", "envelope.png"}
+    assert {p.name for p in tmp_path.iterdir()} == pngs | {"index.html"}
+    page = (tmp_path / "index.html").read_text()
+    assert all(f'src="{n}"' in page for n in pngs)
+    assert all((tmp_path / n).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" for n in pngs)  # PNG signature (PNG spec)
     shown = cli_support.ProgressLine("report", enabled=True)
     shown("table m11 (1 of 2)")
     shown("error")
@@ -144,19 +150,3 @@ def test_error_and_envelope_plots_show_their_limits(invented, figures):
     assert drawn["envelope.pitch_max"] == pytest.approx(np.degrees(v.envelope.pitch_max_rad))
     assert drawn["envelope.accel_max"] == pytest.approx(v.envelope.accel_max_mps2)
     assert len(pitch.get_lines()[0].get_xdata()) >= 20
-
-
-def test_report_writes_index_and_every_picture(invented, tmp_path):
-    """The set names one PNG per table plus error and envelope, and index.html shows each of them."""
-    _, fw = invented
-    v = fw.vehicle
-    from kinetab.generator import accuracy
-
-    files = plots.report_files(fw, accuracy.measure(fw), envelope.analyse(v), tmp_path)
-    outputs.write_set(files)
-    pngs = {f"table_{n}.png" for n in fw.tables} | {"error.png", "envelope.png"}
-    assert {p.name for p in tmp_path.iterdir()} == pngs | {"index.html"}
-    page = (tmp_path / "index.html").read_text()
-    assert all(f'src="{n}"' in page for n in pngs)
-    assert all((tmp_path / n).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" for n in pngs)  # PNG signature (the PNG spec)
-    assert model.load(str(invented[0])).name == "quillon"
