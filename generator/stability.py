@@ -26,8 +26,31 @@ def lateral_margin(v: Vehicle, payload_kg: np.ndarray, roll_rad: np.ndarray) -> 
     return dynamics.half_track(v) * np.cos(roll_rad) - h * np.abs(np.sin(roll_rad))
 
 
+def _level_check(v: Vehicle) -> None:
+    """Standing level, empty or loaded: the combined centre of gravity must lie between the drive axle
+    (0 m) and the casters, else the vehicle tips whatever the slope; the error names the CoG key."""
+    payload = np.linspace(0.0, v.payload.mass_max_kg, 5)
+    zero = np.zeros_like(payload)
+    drive, caster = dynamics.wheel_loads(v, payload, zero, zero)
+    bad = np.flatnonzero((drive <= 0) | (caster <= 0))
+    if not bad.size:
+        return
+    k = bad[0]
+    cog = float(dynamics.combined(v, payload[k]).cog_ahead_m)
+    key = "body.cog_ahead" if k == 0 else "payload.cog_ahead"
+    over = "the drive axle" if caster[k] <= 0 else f"the casters (casters.behind_axle {v.casters.behind_axle_m:g} m)"
+    raise ModelError(
+        v.source,
+        key,
+        f"a centre of gravity between the drive axle (0 m) and the casters ({-v.casters.behind_axle_m:g} m)",
+        f"the vehicle's at {cog:+.3g} m with payload {payload[k]:g} kg, beyond {over}: it tips standing level",
+    )
+
+
 def check(v: Vehicle) -> None:
-    """Raise ModelError naming the first payload/pitch/roll where a load is <= 0 (the vehicle tips)."""
+    """Raise ModelError naming the first payload/pitch/roll where a load is <= 0 (the vehicle tips):
+    the centre-of-gravity key when it tips standing level, else envelope.pitch_max."""
+    _level_check(v)
     p, th, ph = _grid(v)
     drive, caster = dynamics.wheel_loads(v, p, th, ph)
     side = lateral_margin(v, p, ph)

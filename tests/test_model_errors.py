@@ -99,6 +99,32 @@ def test_tipping_names_payload_and_pitch(tmp_path, capsys):
     assert "envelope.pitch_max" in err and "caster load" in err and "payload 60 kg" in err and "pitch -5.00 deg" in err
 
 
+@pytest.mark.parametrize("seed", [3, 4])
+def test_tipping_standing_level_names_the_cog_key(tmp_path, capsys, seed):
+    """Regression: a body CoG behind the casters (or a payload CoG ahead of the axle) tips the vehicle
+    standing level, yet the error blamed envelope.pitch_max. Statics (common practice): a body on two
+    lines of support stands only while its CoG lies between them. Invented vehicles, seeded."""
+    import numpy as np
+
+    from tests.helpers import random_doc
+
+    rng = np.random.default_rng(seed)
+    doc = random_doc(lambda lo, hi: float(rng.uniform(lo, hi)))
+    caster = float(doc["casters"]["behind_axle"].split()[0])
+    if seed == 3:
+        doc["body"]["cog_ahead"] = f"{-1.5 * caster * 1000:.0f} mm"
+        key, beyond = "body.cog_ahead", "beyond the casters"
+    else:
+        doc["payload"]["cog_ahead"] = f"{caster * 1000:.0f} mm"
+        doc["payload"]["mass_max"] = f"{10 * float(doc['body']['mass'].split()[0])} kg"
+        key, beyond = "payload.cog_ahead", "beyond the drive axle"
+    path = write_model(tmp_path, doc)
+    code, _, err = _run(["predict", str(path)], capsys)
+    assert code == 2 and len(err.splitlines()) == 1
+    assert err.startswith(f"{path}: {key}: expected a centre of gravity between") and beyond in err, err
+    assert "tips standing level" in err and "pitch_max" not in err
+
+
 def test_lateral_tipping_names_roll(tmp_path, capsys):
     doc = demo_doc()
     doc["envelope"]["roll_max"] = "40 deg"
