@@ -93,6 +93,50 @@ def _input_resolution(fw: Firmware, inp: dict[str, np.ndarray]) -> dict[str, flo
     return out
 
 
+NEIGHBOUR_POINTS = 2000
+"""Random points (besides corners and deadband cases) over which neighbour_steps looks."""
+
+
+@dataclass(frozen=True)
+class NeighbourStep:
+    """The largest change of the generated feed-forward current (A) when one input moves from `at` to
+    `at + 1` firmware steps, the others held."""
+
+    amps: float
+    at: int
+
+
+def neighbour_steps(fw: Firmware) -> dict[str, NeighbourStep]:
+    """Per input, the largest current step of the integer program between neighbouring inputs, found over
+    the corners, the deadband cases, NEIGHBOUR_POINTS random points inside the envelope and every
+    combination of each input's edges and zero (a jump at zero speed, where the efficiency switches
+    between motoring and back-driving, shows up here). Sampled, not proven."""
+    lo, hi = interface.column_edges(fw.design.limits, FF_IN)
+    grid = np.meshgrid(*[np.unique([a, 0, b]) for a, b in zip(lo, hi)], indexing="ij")
+    rows = np.concatenate(
+        [
+            interface.fields_to_rows(FF_IN, envelope_points(fw, NEIGHBOUR_POINTS, 11)),
+            np.stack(grid, -1).reshape(-1, len(lo)),
+        ]
+    )
+    inp = interface.rows_to_fields(FF_IN, rows)
+    base = emulate.run(fw.design.feedforward, fw.tables, inp)["current"]
+    out = {}
+    for m in FF_IN.members:
+        best = NeighbourStep(0.0, 0)
+        for k, column in enumerate(m.columns):
+            moved = {n: a.copy() for n, a in inp.items()}
+            col = moved[m.name][:, k] if m.count == 2 else moved[m.name]
+            col += 1
+            jump = np.abs(emulate.run(fw.design.feedforward, fw.tables, moved)["current"] - base).max(axis=1)
+            jump[col > hi[FF_IN.columns.index(column)]] = 0
+            j = int(np.argmax(jump))
+            if jump[j] * fw.vehicle.firmware.current_lsb_a > best.amps:
+                best = NeighbourStep(float(jump[j]) * fw.vehicle.firmware.current_lsb_a, int(col[j]) - 1)
+        out[m.name] = best
+    return out
+
+
 def measure(fw: Firmware, count: int = 100_000, seed: int = 7) -> Accuracy:
     """Measured end-to-end error and its split over the envelope, A."""
     inp = envelope_points(fw, count, seed)

@@ -375,7 +375,7 @@ def report(model_path: str, out_dir: str) -> None:
     progress = ProgressLine("report")
     try:
         progress("measuring the error")
-        files = plots.report_files(fw, accuracy.measure(fw), envelope.analyse(v), folder, progress)
+        files = plots.report_files(fw, accuracy.measure(fw), envelope.analyse(v), folder, progress=progress)
     finally:
         progress.clear()
     outputs.write_set(files)

@@ -375,6 +375,32 @@ def _call_view(call: interface.Call, prefix: str) -> dict[str, Any]:
     }
 
 
+PARAMETER = {"m/s": "m_per_s", "m/s^2": "m_per_s2", "rad": "rad", "kg": "kg", "A": "amps"}
+"""The C parameter name of an SI value, by its unit (a name says its unit)."""
+
+
+def conversions(fw: Firmware) -> list[dict[str, str]]:
+    """One SI <-> step pair of helpers per quantity of the feed-forward call (inputs, then the current),
+    from the interface description; the step as a literal that reads back as the same double."""
+    seen: dict[str, dict[str, str]] = {}
+    for m in (*interface.FF_IN.members, *interface.FF_OUT.members):
+        step = interface.lsb(fw.vehicle, m)
+        seen.setdefault(
+            m.name,
+            {"name": m.name, "unit": m.unit, "param": PARAMETER[m.unit], "step": repr(step), "key": m.lsb_key},
+        )
+    return list(seen.values())
+
+
+def neighbour_lines(fw: Firmware) -> list[str]:
+    """The header's lines on the largest current step between neighbouring inputs (accuracy.neighbour_steps)."""
+    from .accuracy import neighbour_steps
+
+    steps = neighbour_steps(fw)
+    width = max(len(n) for n in steps)
+    return [f"{n + ':':<{width + 1}} {num(s.amps)} A (from {s.at} to {s.at + 1} steps)" for n, s in steps.items()]
+
+
 def context(fw: Firmware) -> dict[str, Any]:
     """The whole template context for one vehicle."""
     v = fw.vehicle
@@ -414,4 +440,6 @@ def context(fw: Firmware) -> dict[str, Any]:
         "fwd_bound": f"{num(fw.fwd_bound_mps2)} m/s^2 (goal {num(fw.fwd_budget_mps2)} m/s^2)",
         "total_bytes": fw.total_bytes,
         "acc_step": f"{num(fw.design.amps_per_acc)} A (current step / 2^{fw.design.guard_bits})",
+        "conversions": conversions(fw),
+        "neighbour_steps": neighbour_lines(fw),
     }

@@ -203,7 +203,7 @@ def _index(fw: Firmware, acc: Accuracy, names: list[str]) -> str:
 
 
 def report_files(
-    fw: Firmware, acc: Accuracy, rep: envelope.EnvelopeReport, folder: Path, progress: Progress = _quiet
+    fw: Firmware, acc: Accuracy, rep: envelope.EnvelopeReport, folder: Path, *, progress: Progress = _quiet
 ) -> dict[Path, str | bytes]:
     """Every PNG and index.html of the report, rendered in memory: file path -> contents. Nothing is
     written here (the caller writes the set at once)."""

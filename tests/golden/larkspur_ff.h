@@ -38,6 +38,88 @@ extern "C" {
  * Proven worst-case error of larkspur_forward: 0.0220891 m/s^2 (goal 0.0330371 m/s^2).
  * Table storage: 1054 bytes. */
 
+/* Largest change of the feed-forward current when one input moves to its neighbouring step (the others
+ * held), found over the envelope's corners, edges and zeros, its deadband cases and random points
+ * (sampled, not proven): what one step of each input costs the drive. A large speed step at zero is
+ * the efficiency switching between motoring and back-driving on a slope.
+ *   speed:   2.094 A (from 0 to 1 steps)
+ *   accel:   0.005 A (from -500 to -499 steps)
+ *   pitch:   0.021 A (from -175 to -174 steps)
+ *   roll:    0.006 A (from -105 to -104 steps)
+ *   payload: 0.011 A (from 0 to 1 steps)
+ */
+
+/* SI values <-> firmware steps, for set-up code, logging and tests. Double arithmetic: keep them out of
+ * the control tick on a core without a double-precision FPU. To steps: the nearest step, ties upward
+ * (floor(value / step + 0.5)), as kinetab's predict and golden vectors convert; the caller keeps the
+ * value inside int32 (the envelope edges above are far inside it). From steps: the exact product. */
+static inline int32_t larkspur_round_steps(double steps)
+{
+    double up = steps + 0.5;
+    int32_t t = (int32_t)up; /* toward zero; one less below zero when up has a fraction */
+    return ((double)t > up) ? t - 1 : t;
+}
+
+/* speed: one step is 0.0005 m/s (firmware.speed_lsb). */
+static inline int32_t larkspur_speed_to_steps(double m_per_s)
+{
+    return larkspur_round_steps(m_per_s / 0.0005);
+}
+static inline double larkspur_speed_from_steps(int32_t steps)
+{
+    return (double)steps * 0.0005;
+}
+
+/* accel: one step is 0.001 m/s^2 (firmware.accel_lsb). */
+static inline int32_t larkspur_accel_to_steps(double m_per_s2)
+{
+    return larkspur_round_steps(m_per_s2 / 0.001);
+}
+static inline double larkspur_accel_from_steps(int32_t steps)
+{
+    return (double)steps * 0.001;
+}
+
+/* pitch: one step is 0.0005 rad (firmware.angle_lsb). */
+static inline int32_t larkspur_pitch_to_steps(double rad)
+{
+    return larkspur_round_steps(rad / 0.0005);
+}
+static inline double larkspur_pitch_from_steps(int32_t steps)
+{
+    return (double)steps * 0.0005;
+}
+
+/* roll: one step is 0.0005 rad (firmware.angle_lsb). */
+static inline int32_t larkspur_roll_to_steps(double rad)
+{
+    return larkspur_round_steps(rad / 0.0005);
+}
+static inline double larkspur_roll_from_steps(int32_t steps)
+{
+    return (double)steps * 0.0005;
+}
+
+/* payload: one step is 0.1 kg (firmware.mass_lsb). */
+static inline int32_t larkspur_payload_to_steps(double kg)
+{
+    return larkspur_round_steps(kg / 0.1);
+}
+static inline double larkspur_payload_from_steps(int32_t steps)
+{
+    return (double)steps * 0.1;
+}
+
+/* current: one step is 0.001 A (firmware.current_lsb). */
+static inline int32_t larkspur_current_to_steps(double amps)
+{
+    return larkspur_round_steps(amps / 0.001);
+}
+static inline double larkspur_current_from_steps(int32_t steps)
+{
+    return (double)steps * 0.001;
+}
+
 enum { LARKSPUR_RIGHT = 0, LARKSPUR_LEFT = 1 };
 
 /* Feed-forward: motor currents for the planned motion. */
