@@ -130,3 +130,26 @@ def random_firmware_strategy(name: str = "veh"):
             assume(False)
 
     return build()
+
+
+def invented(seed: int, name: str, tweak=None):
+    """A random vehicle (random_doc, seeded numpy draws) that stands and whose 60 mA budget can be met:
+    its document and firmware. `tweak(doc, rng)` changes the document before it is tried."""
+    import numpy as np
+    from kinetab.generator import stability, synthesis
+    from kinetab.generator.errors import CheckFailed, ModelError
+
+    rng = np.random.default_rng(seed)
+    for _ in range(50):
+        doc = random_doc(lambda lo, hi: float(rng.uniform(lo, hi)))
+        doc["name"] = name
+        doc["firmware"]["current_budget"] = "60 mA"
+        if tweak is not None:
+            tweak(doc, rng)
+        try:
+            v = vehicle_from(doc)
+            stability.check(v)
+            return doc, synthesis.synthesise(v)
+        except (ModelError, CheckFailed):
+            continue
+    raise AssertionError(f"no random vehicle could be built in 50 draws (seed {seed})")

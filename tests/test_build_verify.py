@@ -262,25 +262,11 @@ def test_report_zooms_into_the_deadband_and_speaks_degrees(tmp_path, capsys):
 
 
 def _invented(tmp_path, seed: int):
-    """A random vehicle (helpers.random_doc, seeded) that builds; returns its model file and document."""
-    import numpy as np
-    from kinetab.generator import stability, synthesis
-    from kinetab.generator.errors import CheckFailed, ModelError
+    """A random vehicle that builds (helpers.invented, seeded); its model file and document."""
+    from tests.helpers import invented
 
-    from tests.helpers import random_doc, vehicle_from
-
-    rng = np.random.default_rng(seed)
-    for _ in range(50):
-        doc = random_doc(lambda lo, hi: float(rng.uniform(lo, hi)))
-        doc["name"] = "tamarack"
-        doc["firmware"]["current_budget"] = "60 mA"
-        try:
-            stability.check(vehicle_from(doc))
-            synthesis.synthesise(vehicle_from(doc))
-        except (ModelError, CheckFailed):
-            continue
-        return write_model(tmp_path, doc, "tamarack.toml"), doc
-    raise AssertionError("no random vehicle could be built in 50 draws")
+    doc, _ = invented(seed, "tamarack")
+    return write_model(tmp_path, doc, "tamarack.toml"), doc
 
 
 def test_rebuild_refreshes_the_vectors_in_its_folder(tmp_path, capsys):

@@ -10,36 +10,27 @@ import subprocess
 
 import numpy as np
 import pytest
-from kinetab.generator import hostc, interface, render, stability, synthesis
-from kinetab.generator.errors import CheckFailed, ModelError
+from kinetab.generator import hostc, interface, render
 
+from tests import helpers
 from tests.csteps import build_harness, needs_gcc, run_harness, write_files
-from tests.helpers import random_doc, vehicle_from
 
 pytestmark = [pytest.mark.slow, needs_gcc]
 
 
 @pytest.fixture(scope="module")
 def invented():
-    """A random vehicle with random firmware steps, seeded, that builds."""
-    rng = np.random.default_rng(2718)
-    for _ in range(50):
-        doc = random_doc(lambda lo, hi: float(rng.uniform(lo, hi)))
-        doc["name"] = "brisket"
-        doc["firmware"]["current_budget"] = "60 mA"
+    """A random vehicle with random speed and current steps (helpers.invented, seeded) that builds."""
+
+    def steps(doc, rng):
         doc["firmware"]["speed_lsb"] = f"{rng.uniform(0.0002, 0.002):.6g} m/s"
         doc["firmware"]["current_lsb"] = f"{rng.uniform(0.0005, 0.005):.6g} A"
-        try:
-            v = vehicle_from(doc)
-            stability.check(v)
-            return synthesis.synthesise(v)
-        except (ModelError, CheckFailed):
-            continue
-    raise AssertionError("no random vehicle could be built in 50 draws")
+
+    return helpers.invented(2718, "brisket", steps)[1]
 
 
 CALLER = """#include <stdio.h>
-#include <stdlib.h>
+#include <string.h>
 #include "brisket_ff.h"
 int main(void)
 {
@@ -67,7 +58,7 @@ def test_conversions_follow_their_stated_rule(invented, tmp_path):
         for n in names
     )
     src = tmp_path / "caller.c"
-    src.write_text(CALLER.replace("%s    }", branches + "    }").replace("#include <stdlib.h>", "#include <string.h>"))
+    src.write_text(CALLER.replace("%s    }", branches + "    }"))
     write_files(tmp_path, render.render(fw))
     exe = hostc.compile_c([src], tmp_path / "caller", include=[tmp_path])
     rng = np.random.default_rng(5)

@@ -9,29 +9,17 @@ import signal
 
 import numpy as np
 import pytest
-from kinetab.generator import cli_support, envelope, outputs, plots, stability, synthesis
-from kinetab.generator.errors import CheckFailed, ModelError
+from kinetab.generator import cli_support, envelope, outputs, plots
 
-from tests.helpers import random_doc, vehicle_from, write_model
+from tests import helpers
+from tests.helpers import write_model
 
 
 @pytest.fixture(scope="module")
 def invented(tmp_path_factory):
-    """A random vehicle (helpers.random_doc, seeded) whose budget can be met and that stands, with its file."""
-    rng = np.random.default_rng(1602)
-    for _ in range(50):
-        doc = random_doc(lambda lo, hi: float(rng.uniform(lo, hi)))
-        doc["name"] = "quillon"
-        doc["firmware"]["current_budget"] = "60 mA"
-        try:
-            v = vehicle_from(doc)
-            stability.check(v)
-            fw = synthesis.synthesise(v)
-        except (ModelError, CheckFailed):
-            continue
-        path = write_model(tmp_path_factory.mktemp("quillon"), doc, "quillon.toml")
-        return path, fw
-    raise AssertionError("no random vehicle could be synthesised in 50 draws")
+    """A random vehicle (helpers.invented, seeded) with its model file."""
+    doc, fw = helpers.invented(1602, "quillon")
+    return write_model(tmp_path_factory.mktemp("quillon"), doc, "quillon.toml"), fw
 
 
 def test_interrupted_report_leaves_the_old_set(invented, tmp_path, capsys, monkeypatch):
