@@ -153,3 +153,19 @@ def invented(seed: int, name: str, tweak=None):
         except (ModelError, CheckFailed):
             continue
     raise AssertionError(f"no random vehicle could be built in 50 draws (seed {seed})")
+
+
+def invented_feasible(seed: int, name: str):
+    """An invented vehicle (as `invented`) whose drive is sized for it: current limit and supply voltage
+    25 % above the envelope's peaks, so `build` and `verify` pass without --allow-infeasible-envelope.
+    Draws whose grip is short are skipped. Returns the document and its firmware."""
+    from kinetab.generator import envelope
+
+    for attempt in range(50):
+        doc, fw = invented(seed + 1000 * attempt, name)
+        current, voltage, _, _ = envelope.corner_peaks(vehicle_from(doc))
+        doc["drive"]["current_limit"] = f"{1.25 * current.value:.3f} A"
+        doc["drive"]["supply_voltage"] = f"{1.25 * voltage.value:.3f} V"
+        if not envelope.analyse(vehicle_from(doc)).problems:
+            return invented(seed + 1000 * attempt, name, lambda d, _rng: d.update(drive=doc["drive"]))
+    raise AssertionError(f"no invented vehicle had enough grip in 50 draws (seed {seed})")
