@@ -20,13 +20,34 @@ def _lvalues(st: interface.Struct) -> list[str]:
     return [f"{m.name}[{k}]" if m.count == 2 else m.name for m in st.members for k in range(m.count)]
 
 
+def _run(kind: messages.Kind, name: str, st: interface.Struct) -> list[tuple[str, int]]:
+    """(C lvalue in the struct, byte offset in the message) of each column of a field that carries a struct."""
+    layout = messages.LAYOUT[kind]
+    f = next(f for f in layout.fields if f.name == name)
+    assert f.columns == st.columns, f"{kind.name}.{name} carries {st.tag}'s columns in its order"
+    step = f.size // f.count
+    return [(lv, layout.offsets()[name] + step * k) for k, lv in enumerate(_lvalues(st))]
+
+
+def wire() -> dict[str, Any]:
+    """Message codes, lengths and every field's byte offset (the type byte at 0), from messages.LAYOUT."""
+    return {
+        "kinds": [(k.name, f"0x{int(k):02X}", 1 + messages.LAYOUT[k].size) for k in messages.Kind],
+        "at": {k.name: messages.LAYOUT[k].offsets() for k in messages.Kind},
+        "wire": {
+            "setpoint_inputs": _run(messages.Kind.SETPOINT, "inputs", interface.FF_IN),
+            "sample_ff": _run(messages.Kind.SAMPLE, "ff", interface.FF_OUT),
+            "sample_measured": _run(messages.Kind.SAMPLE, "measured", interface.MEASURED),
+        },
+    }
+
+
 def context(
     fw: Firmware, *, period_us: int = PERIOD_US, fifo_depth: int = FIFO_DEPTH, watchdog_ticks: int = WATCHDOG_TICKS
 ) -> dict[str, Any]:
     """Everything the link templates print; message layouts come from hil.messages."""
     prefix = fw.vehicle.name
     names = interface.file_names(prefix)
-    kinds = [(k.name, f"0x{int(k):02X}", 1 + messages.struct.calcsize(messages.LAYOUT[k][1])) for k in messages.Kind]
     measured = [(m.c_decl().ljust(19), m.c_comment()) for m in interface.MEASURED.members]
     return {
         "prefix": prefix,
@@ -44,7 +65,6 @@ def context(
         "watchdog_ticks": watchdog_ticks,
         "max_frame": framing.MAX_FRAME,
         "crc_rows": cformat.rows([f"0x{x:04X}u" for x in framing.crc_table()], per_row=8),
-        "kinds": kinds,
         "fault_codes": [(c.name, int(c)) for c in messages.FaultCode],
         "flag_last": messages.LAST,
         "flag_no_ff": messages.NO_FEEDFORWARD,
@@ -55,6 +75,7 @@ def context(
         "setpoint_fields": _lvalues(interface.FF_IN),
         "ff_fields": _lvalues(interface.FF_OUT),
         "measured_fields": _lvalues(interface.MEASURED),
+        **wire(),
     }
 
 

@@ -110,31 +110,99 @@ class Fault:
 
 Message = Hello | Identify | Arm | Armed | Setpoint | Halt | Sample | Fault
 
-LAYOUT: dict[Kind, tuple[type, str]] = {
-    Kind.HELLO: (Hello, "<B"),
-    Kind.IDENTIFY: (Identify, "<BIIHH"),
-    Kind.ARM: (Arm, "<HH"),
-    Kind.ARMED: (Armed, "<HH"),
-    Kind.SETPOINT: (Setpoint, f"<HB{N_IN}i"),
-    Kind.HALT: (Halt, "<"),
-    Kind.SAMPLE: (Sample, f"<HHHBB{N_OUT}i{N_MEAS}i"),
-    Kind.FAULT: (Fault, "<BH"),
+WIDTH = {"u8": "B", "u16": "H", "u32": "I", "i32": "i"}
+"""Wire type -> struct code (little-endian, no padding)."""
+
+
+@dataclass(frozen=True)
+class Field:
+    """One field of a message: the dataclass attribute it fills, its wire type and, for a run of
+    struct columns (a tuple attribute), the interface columns in order."""
+
+    name: str
+    wire: str  # "u8", "u16", "u32" or "i32"
+    columns: tuple[str, ...] = ()
+
+    @property
+    def count(self) -> int:
+        return len(self.columns) or 1
+
+    @property
+    def size(self) -> int:
+        return self.count * struct.calcsize("<" + WIDTH[self.wire])
+
+
+@dataclass(frozen=True)
+class Layout:
+    """A message's dataclass and its fields after the type byte, in wire order."""
+
+    cls: type
+    fields: tuple[Field, ...]
+
+    @property
+    def fmt(self) -> str:
+        return "<" + "".join(f"{f.count}{WIDTH[f.wire]}" if f.columns else WIDTH[f.wire] for f in self.fields)
+
+    @property
+    def size(self) -> int:
+        """Payload bytes after the type byte."""
+        return struct.calcsize(self.fmt)
+
+    def offsets(self) -> dict[str, int]:
+        """Byte offset of each field in the payload, the type byte at 0."""
+        out, at = {}, 1
+        for f in self.fields:
+            out[f.name] = at
+            at += f.size
+        return out
+
+
+LAYOUT: dict[Kind, Layout] = {
+    Kind.HELLO: Layout(Hello, (Field("version", "u8"),)),
+    Kind.IDENTIFY: Layout(
+        Identify,
+        (
+            Field("version", "u8"),
+            Field("fingerprint", "u32"),
+            Field("period_us", "u32"),
+            Field("fifo_depth", "u16"),
+            Field("watchdog_ms", "u16"),
+        ),
+    ),
+    Kind.ARM: Layout(Arm, (Field("first_seq", "u16"), Field("prefill", "u16"))),
+    Kind.ARMED: Layout(Armed, (Field("first_seq", "u16"), Field("free", "u16"))),
+    Kind.SETPOINT: Layout(
+        Setpoint, (Field("seq", "u16"), Field("flags", "u8"), Field("inputs", "i32", interface.FF_IN.columns))
+    ),
+    Kind.HALT: Layout(Halt, ()),
+    Kind.SAMPLE: Layout(
+        Sample,
+        (
+            Field("seq", "u16"),
+            Field("last_rx", "u16"),
+            Field("free", "u16"),
+            Field("status", "u8"),
+            Field("clamped", "u8"),
+            Field("ff", "i32", interface.FF_OUT.columns),
+            Field("measured", "i32", interface.MEASURED.columns),
+        ),
+    ),
+    Kind.FAULT: Layout(Fault, (Field("code", "u8"), Field("seq", "u16"))),
 }
-KIND_OF = {cls: kind for kind, (cls, _) in LAYOUT.items()}
+"""Every message on the wire, described once: the codecs below, the link C (hil/linkview.py) and the
+tables of PROTOCOL.md (checked by tests/test_framing.py) all read it."""
+KIND_OF = {layout.cls: kind for kind, layout in LAYOUT.items()}
 
 
 def encode(msg: Message) -> bytes:
     """The payload of a message (type byte and fields; the CRC is added by the framing)."""
     kind = KIND_OF[type(msg)]
-    fmt = LAYOUT[kind][1]
-    match msg:
-        case Setpoint():
-            fields: tuple[int, ...] = (msg.seq, msg.flags, *msg.inputs)
-        case Sample():
-            fields = (msg.seq, msg.last_rx, msg.free, msg.status, msg.clamped, *msg.ff, *msg.measured)
-        case _:
-            fields = tuple(getattr(msg, f) for f in msg.__dataclass_fields__)
-    return bytes([kind]) + struct.pack(fmt, *fields)
+    layout = LAYOUT[kind]
+    values: list[int] = []
+    for f in layout.fields:
+        value = getattr(msg, f.name)
+        values += list(value) if f.columns else [value]
+    return bytes([kind]) + struct.pack(layout.fmt, *values)
 
 
 TO_CONTROLLER = frozenset({Kind.HELLO, Kind.ARM, Kind.SETPOINT, Kind.HALT})
@@ -147,14 +215,14 @@ def decode(payload: bytes, kinds: frozenset[Kind] = TO_HOST) -> Message | str:
     if not payload or payload[0] not in {int(k) for k in kinds}:
         return "unknown_type"
     kind = Kind(payload[0])
-    cls, fmt = LAYOUT[kind]
-    if len(payload) - 1 != struct.calcsize(fmt):
+    layout = LAYOUT[kind]
+    if len(payload) - 1 != layout.size:
         return "length"
-    values = struct.unpack(fmt, payload[1:])
-    if cls is Setpoint:
-        return Setpoint(values[0], values[1], tuple(values[2:]))
-    if cls is Sample:
-        seq, last_rx, free, status, clamped = values[:5]
-        return Sample(seq, last_rx, free, status, clamped, tuple(values[5 : 5 + N_OUT]), tuple(values[5 + N_OUT :]))
-    msg: Message = cls(*values)
+    values = struct.unpack(layout.fmt, payload[1:])
+    fields: dict[str, object] = {}
+    at = 0
+    for f in layout.fields:
+        fields[f.name] = tuple(values[at : at + f.count]) if f.columns else values[at]
+        at += f.count
+    msg: Message = layout.cls(**fields)
     return msg

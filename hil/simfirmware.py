@@ -4,7 +4,7 @@ half of the simulated controller, running the same files a drive controller runs
 from __future__ import annotations
 
 import ctypes
-from dataclasses import dataclass
+from dataclasses import dataclass, field, fields
 from pathlib import Path
 
 from kinetab.generator import hostc, interface, render
@@ -16,20 +16,26 @@ N_IN = len(interface.FF_IN.columns)
 N_OUT = len(interface.FF_OUT.columns)
 N_MEAS = len(interface.MEASURED.columns)
 STATE_NAMES = ("idle", "armed", "running", "halted")
+TX_SIZE = 8192
+"""Bytes the glue buffers between two transmit drains (`SIM_TX_SIZE` in the C; more are counted as lost)."""
 
 
 @dataclass(frozen=True)
 class LinkStatus:
-    """The link's state and counters, read from the C."""
+    """The link's state and counters, read from the C: each field names the C expression that
+    `sim_status` copies into it (the glue template loops over these, the reader takes them by name)."""
 
-    state: str
-    fifo_count: int
-    frames_ok: int
-    drop_crc: int
-    drop_length: int
-    drop_unknown: int
-    tx_lost: int
-    drop_order: int
+    state: str = field(metadata={"c": "sim_link.state"})
+    fifo_count: int = field(metadata={"c": "sim_link.count"})
+    frames_ok: int = field(metadata={"c": "sim_link.frames_ok"})
+    drop_crc: int = field(metadata={"c": "sim_link.drop_crc"})
+    drop_length: int = field(metadata={"c": "sim_link.drop_length"})
+    drop_unknown: int = field(metadata={"c": "sim_link.drop_unknown"})
+    tx_lost: int = field(metadata={"c": "sim_tx_lost"})
+    drop_order: int = field(metadata={"c": "sim_link.drop_order"})
+
+
+STATUS_C = [(f.name, f.metadata["c"]) for f in fields(LinkStatus)]
 
 
 def sources(
@@ -44,6 +50,8 @@ def sources(
         source=interface.file_names(fw.vehicle.name)["sim_source"],
         link_header=interface.file_names(fw.vehicle.name)["link_header"],
         measured_type=interface.MEASURED.c_type(fw.vehicle.name),
+        tx_size=TX_SIZE,
+        status=STATUS_C,
     )
     files.update(render.render_set(render.SIM, fw.vehicle.name, ctx))
     return files
@@ -71,11 +79,11 @@ class SimFirmware:
         self.lib = ctypes.CDLL(str(lib))
         self.lib.sim_tx_take.restype = ctypes.c_uint32
         self.lib.sim_applied.restype = ctypes.c_uint32
-        self._tx = ctypes.create_string_buffer(8192)
+        self._tx = ctypes.create_string_buffer(TX_SIZE)
         self._inputs = (ctypes.c_int32 * N_IN)()
         self._ff = (ctypes.c_int32 * N_OUT)()
         self._halted = ctypes.c_int()
-        self._status = (ctypes.c_uint32 * 8)()
+        self._status = (ctypes.c_uint32 * len(STATUS_C))()
         self.lib.sim_init()
 
     def receive(self, data: bytes) -> None:
@@ -101,5 +109,6 @@ class SimFirmware:
 
     def status(self) -> LinkStatus:
         self.lib.sim_status(self._status)
-        s = list(self._status)
-        return LinkStatus(STATE_NAMES[s[0]] if s[0] < 4 else str(s[0]), *s[1:])
+        got: dict[str, int] = {name: int(x) for (name, _), x in zip(STATUS_C, self._status)}
+        state = got.pop("state")
+        return LinkStatus(state=STATE_NAMES[state] if state < len(STATE_NAMES) else str(state), **got)

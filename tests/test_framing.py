@@ -8,6 +8,9 @@ worked encodings reproduced with it."""
 
 from __future__ import annotations
 
+import re
+from pathlib import Path
+
 import pytest
 from cobs import cobs
 from crc import Calculator, Crc16
@@ -131,3 +134,32 @@ def test_crc_table_entries_are_xmodem_crcs_of_one_byte():
     zero register, which is CRC-16/XMODEM of that byte (the `crc` package as the oracle)."""
     xmodem = Calculator(Crc16.XMODEM)
     assert list(framing.crc_table()) == [xmodem.checksum(bytes([b])) for b in range(256)]
+
+
+def _document_fields(cell: str) -> list[tuple[str, str | tuple[str, ...]]]:
+    """The fields of one PROTOCOL.md table cell: ("u16", "seq") for a scalar, ("i32", (columns...)) for
+    `N x \\`i32\\` ... \\`a, b\\`` runs (N checked against the columns)."""
+    out: list[tuple[str, str | tuple[str, ...]]] = []
+    for m in re.finditer(r"(\d+) x `(\w+)`[^`]*`([\w, ]+)`|`(u8|u16|u32|i32) (\w+)`", cell):
+        if m.group(1):
+            columns = tuple(c.strip() for c in m.group(3).split(","))
+            assert int(m.group(1)) == len(columns), f"{cell}: {m.group(1)} x but {len(columns)} names"
+            out.append((m.group(2), columns))
+        else:
+            out.append((m.group(4), m.group(5)))
+    return out
+
+
+def test_protocol_document_tables_match_the_layout():
+    """PROTOCOL.md, the page a controller author reads, states the same message codes, fields, wire
+    types, order and lengths as messages.LAYOUT (which the codecs and the link C use)."""
+    text = (Path(messages.__file__).parent / "PROTOCOL.md").read_text(encoding="utf-8")
+    rows = re.findall(r"^\| (0x[0-9A-F]{2}) \| (\w+) \| (.*) \| (\d+) \|$", text, re.M)
+    assert {name for _, name, _, _ in rows} == {k.name for k in messages.Kind}
+    for code, name, cell, length in rows:
+        kind = messages.Kind[name]
+        layout = messages.LAYOUT[kind]
+        assert int(code, 16) == int(kind), name
+        assert int(length) == 1 + layout.size, f"{name}: document says {length} bytes"
+        expected = [(f.wire, f.columns if f.columns else f.name) for f in layout.fields]
+        assert _document_fields(cell) == expected, name
