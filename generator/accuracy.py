@@ -63,12 +63,7 @@ def envelope_points(fw: Firmware, count: int, seed: int) -> dict[str, np.ndarray
 
 def _describe(fw: Firmware, inp: dict[str, np.ndarray], k: int, side: int) -> str:
     si = {name: float(x) for name, x in interface.to_si(fw.vehicle, FF_IN, {n: a[k] for n, a in inp.items()}).items()}
-    return (
-        f"{('right', 'left')[side]} wheel at payload {si['payload_kg']:.4g} kg, speed "
-        f"{si['speed_right']:+.4g}/{si['speed_left']:+.4g} m/s, accel {si['accel_right']:+.4g}/"
-        f"{si['accel_left']:+.4g} m/s^2, pitch {np.degrees(si['pitch_rad']):+.3f} deg, roll "
-        f"{np.degrees(si['roll_rad']):+.3f} deg"
-    )
+    return interface.describe_point(FF_IN, si, interface.SIDES[side], digits=4)
 
 
 def _clamping(fw: Firmware, seed: int) -> Stat:

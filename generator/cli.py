@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import math
+from collections.abc import Callable
 from importlib import resources
 from pathlib import Path
 from typing import Any
@@ -11,7 +12,7 @@ from typing import Any
 import click
 import numpy as np
 
-from . import __version__, dynamics, emulate, envelope, interface, model, units
+from . import __version__, dynamics, emulate, envelope, interface, model
 from .cli_support import LazyGroup, ProgressLine, QuantityType, run
 from .errors import CheckFailed, UserError
 from .vehicle import Vehicle
@@ -53,19 +54,25 @@ def init(path: str, force: bool) -> None:
     click.echo(f"wrote {path} (invented demo vehicle; edit every value for your own; {note})")
 
 
-def _point_options(func):  # type: ignore[no-untyped-def]
-    specs = [
-        ("--payload", units.MASS, "kg", "Payload mass (bare number: kg)."),
-        ("--speed-right", units.SPEED, "m/s", "Right wheel rim speed (bare number: m/s)."),
-        ("--speed-left", units.SPEED, "m/s", "Left wheel rim speed (bare number: m/s)."),
-        ("--accel-right", units.ACCEL, "m/s**2", "Right wheel rim acceleration (bare number: m/s^2)."),
-        ("--accel-left", units.ACCEL, "m/s**2", "Left wheel rim acceleration (bare number: m/s^2)."),
-        ("--pitch", units.ANGLE, "deg", "Pitch, front up > 0 (bare number: deg)."),
-        ("--roll", units.ANGLE, "deg", "Roll, left side up > 0 (bare number: deg)."),
-    ]
-    for flag, kind, bare, text in reversed(specs):
-        func = click.option(flag, type=QuantityType(kind, bare), default="0", show_default=True, help=text)(func)
-    return func
+def point_options(st: interface.Struct) -> Callable[[Callable[..., Any]], Callable[..., Any]]:
+    """A decorator adding one option per input column of `st`, default 0, in its unit."""
+
+    def add(func: Callable[..., Any]) -> Callable[..., Any]:
+        options = [(m, column, label) for m in st.members for column, label in zip(m.columns, m.labels)]
+        for m, column, label in reversed(options):
+            assert m.quantity is not None, f"{m.name}: an input member states what a person types"
+            text = f"{label} (bare number: {m.typed_unit.replace('**', '^')})."
+            option = click.option(
+                "--" + column.replace("_", "-"),
+                type=QuantityType(m.quantity, m.typed_unit),
+                default="0",
+                show_default=True,
+                help=text,
+            )
+            func = option(func)
+        return func
+
+    return add
 
 
 def predict_point(v: Vehicle, op: dynamics.OperatingPoint) -> dict[str, Any]:
@@ -93,22 +100,13 @@ def predict_point(v: Vehicle, op: dynamics.OperatingPoint) -> dict[str, Any]:
 
 @cli.command(short_help="Forces, torque, current and voltage at one operating point.")
 @click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
-@_point_options
+@point_options(interface.FF_IN)
 @click.option("--json", "as_json", is_flag=True, help="Print JSON (SI units) instead of a table.")
-def predict(
-    model_path: str,
-    payload: float,
-    speed_right: float,
-    speed_left: float,
-    accel_right: float,
-    accel_left: float,
-    pitch: float,
-    roll: float,
-    as_json: bool,
-) -> None:
+def predict(model_path: str, as_json: bool, **point: float) -> None:
     """Evaluate the model at one operating point: forces, torque, current and voltage per wheel."""
     v = model.load(model_path)
-    op = dynamics.OperatingPoint(payload, speed_right, speed_left, accel_right, accel_left, pitch, roll)
+    si = interface.FF_IN.si_names()
+    op = dynamics.OperatingPoint(**{si[column]: value for column, value in point.items()})
     doc = predict_point(v, op)
     _fill_fixed(v, op, doc)
     if as_json:

@@ -6,6 +6,7 @@ Every function takes numpy-broadcastable arrays, so the same code evaluates one 
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
@@ -28,17 +29,20 @@ class Combined:
     yaw_inertia_kgm2: Array  # about the vertical axis through P (Steiner)
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, kw_only=True)
 class OperatingPoint:
-    """One or many operating points: payload kg, rim speeds m/s, rim accelerations m/s^2, angles rad."""
+    """One or many operating points: rim speeds m/s, rim accelerations m/s^2, angles rad, payload kg.
 
-    payload_kg: ArrayLike
+    Built by keyword only; its fields are the SI names of the feed-forward inputs in the order of the
+    firmware struct (interface.FF_IN), which a test holds them to."""
+
     speed_right: ArrayLike
     speed_left: ArrayLike
     accel_right: ArrayLike
     accel_left: ArrayLike
     pitch_rad: ArrayLike
     roll_rad: ArrayLike
+    payload_kg: ArrayLike
 
 
 @dataclass(frozen=True)
@@ -289,7 +293,7 @@ def force_from_current(v: Vehicle, current: ArrayLike, speed: ArrayLike) -> Arra
 
 def forward_accel(v: Vehicle, op: OperatingPoint, force_right: ArrayLike, force_left: ArrayLike) -> tuple[Array, Array]:
     """Forward dynamics: rim accelerations q'' = M^-1 (Q - V - F - R - G), m/s^2 (op's accels unused)."""
-    zero = OperatingPoint(op.payload_kg, op.speed_right, op.speed_left, 0.0, 0.0, op.pitch_rad, op.roll_rad)
+    zero = dataclasses.replace(op, accel_right=0.0, accel_left=0.0)
     right, left = wheel_forces(v, zero)
     rest_r = np.asarray(force_right, float) - right.total
     rest_l = np.asarray(force_left, float) - left.total

@@ -14,8 +14,9 @@ from dataclasses import dataclass, field
 import numpy as np
 from numpy.typing import ArrayLike
 
-from . import dynamics
+from . import dynamics, interface, model
 from .dynamics import OperatingPoint
+from .interface import FF_IN
 from .vehicle import Vehicle
 
 PAYLOAD_STEPS = 5  # empty, quarter, half, three quarters, full
@@ -87,7 +88,9 @@ def _straight(
 ) -> np.ndarray:
     """Per candidate (pitch, accel) pair: driving straight at every speed and roll stays within limits."""
     th, a, s, r = np.meshgrid(np.atleast_1d(pitch), np.atleast_1d(accel), speeds, roll, indexing="ij", sparse=False)
-    op = OperatingPoint(payload, s, s, a, a, th, r)
+    op = OperatingPoint(
+        speed_right=s, speed_left=s, accel_right=a, accel_left=a, pitch_rad=th, roll_rad=r, payload_kg=payload
+    )
     ok = np.ones(th.shape, dtype=bool)
     for m in margins(v, op):
         ok &= m.ok()
@@ -136,32 +139,35 @@ def payload_row(v: Vehicle, payload: float) -> PayloadRow:
     return PayloadRow(payload, hold, climb, accel)
 
 
-def _corners(v: Vehicle) -> tuple[OperatingPoint, list[tuple[float, ...]]]:
-    env, db = v.envelope, v.friction.deadband_mps
-    speeds = (-env.speed_max_mps, -db, 0.0, db, env.speed_max_mps)
-    accels = (-env.accel_max_mps2, 0.0, env.accel_max_mps2)
-    pitches = (-env.pitch_max_rad, 0.0, env.pitch_max_rad)
-    rolls = (-env.roll_max_rad, 0.0, env.roll_max_rad)
-    pts: list[tuple[float, ...]] = list(
-        itertools.product((0.0, v.payload.mass_max_kg), speeds, speeds, accels, accels, pitches, rolls)
-    )
-    cols = np.array(pts).T
-    return OperatingPoint(*cols), pts
+def _corner_values(v: Vehicle, m: interface.Member) -> tuple[float, ...]:
+    """The values an input takes at the corners: its envelope edges and zero (speeds also the deadband edges)."""
+    edge = float(model.value(v, m.edge_key))
+    values: tuple[float, ...] = (-edge, 0.0, edge) if m.signed else (0.0, edge)
+    if m is interface.SPEED:
+        db = v.friction.deadband_mps
+        values = (-edge, -db, 0.0, db, edge)
+    return values
 
 
-def _describe(pt: tuple[float, ...], wheel: str) -> str:
-    p, sr, sl, ar, al, th, ph = pt
-    return (
-        f"{wheel} wheel at payload {p:g} kg, speed {sr:+.3g}/{sl:+.3g} m/s, accel {ar:+.3g}/{al:+.3g} m/s^2, "
-        f"pitch {math.degrees(th):+.2f} deg, roll {math.degrees(ph):+.2f} deg"
-    )
+def _corners(v: Vehicle) -> tuple[OperatingPoint, np.ndarray]:
+    """Every combination of the corner values of every input column: the operating points and, per
+    point, the row of SI values in struct order."""
+    axes = [_corner_values(v, m) for m in FF_IN.members for _ in m.columns]
+    pts = np.array(list(itertools.product(*axes)))
+    op = OperatingPoint(**{name: pts[:, k] for k, name in enumerate(FF_IN.si_names().values())})
+    return op, pts
 
 
-def _peak(values: tuple[np.ndarray, np.ndarray], pts: list[tuple[float, ...]]) -> tuple[float, str]:
+def _describe_corner(row: np.ndarray, wheel: str) -> str:
+    si = {name: float(x) for name, x in zip(FF_IN.si_names().values(), row)}
+    return interface.describe_point(FF_IN, si, wheel, digits=3)
+
+
+def _peak(values: tuple[np.ndarray, np.ndarray], pts: np.ndarray) -> tuple[float, str]:
     k_r, k_l = int(np.argmax(values[0])), int(np.argmax(values[1]))
     if values[0][k_r] >= values[1][k_l]:
-        return float(values[0][k_r]), _describe(pts[k_r], "right")
-    return float(values[1][k_l]), _describe(pts[k_l], "left")
+        return float(values[0][k_r]), _describe_corner(pts[k_r], "right")
+    return float(values[1][k_l]), _describe_corner(pts[k_l], "left")
 
 
 def corner_peaks(v: Vehicle) -> tuple[Peak, Peak, Peak, list[str]]:

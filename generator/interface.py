@@ -9,19 +9,21 @@ their setpoints from it. Nothing else restates the order of the inputs.
 
 from __future__ import annotations
 
+import dataclasses
+import math
 import struct as _struct
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
-from . import model
+from . import model, units
 from .vehicle import Vehicle
 
 SIDES = ("right", "left")  # index 0 and 1 of every two-wheel member
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, kw_only=True)
 class Member:
     """One struct member: `count` is 2 for a per-wheel pair (right, left), else 1."""
 
@@ -31,9 +33,13 @@ class Member:
     unit: str  # SI unit of one step's value
     lsb_key: str  # model key of one step ("firmware.speed_lsb")
     limit: str  # Limits field of its envelope edge ("speed")
+    edge_key: str  # model key of that edge in SI ("envelope.speed_max")
     signed: bool = True  # False: the envelope is 0..limit (payload)
     si: tuple[str, ...] = ()  # OperatingPoint attributes, one per column
     steps: str = ""  # the name of its firmware step, for comments ("speed steps")
+    quantity: units.Kind | None = None  # what a person types for it on the command line
+    typed_unit: str = ""  # the unit of a bare number typed for it ("deg" for angles)
+    labels: tuple[str, ...] = ()  # per column, for option help ("Right wheel rim speed")
 
     @property
     def columns(self) -> tuple[str, ...]:
@@ -76,51 +82,109 @@ class Struct:
     def size(self) -> int:
         return _struct.calcsize(self.pack_format())
 
+    def lvalues(self) -> list[str]:
+        """The C lvalue of each column inside the struct (`speed[0]`, `pitch`), in column order."""
+        return [f"{m.name}[{k}]" if m.count == 2 else m.name for m in self.members for k in range(m.count)]
+
+    def si_names(self) -> dict[str, str]:
+        """Column -> OperatingPoint attribute ("pitch" -> "pitch_rad"), in struct order."""
+        return {c: a for m in self.members for c, a in zip(m.columns, m.si)}
+
     def member(self, name: str) -> Member:
         return next(m for m in self.members if m.name == name)
 
 
 SPEED = Member(
-    "speed",
-    2,
-    "rim speed per wheel",
-    "m/s",
-    "firmware.speed_lsb",
-    "speed",
-    steps="speed steps",
+    name="speed",
+    count=2,
+    what="rim speed per wheel",
+    unit="m/s",
+    lsb_key="firmware.speed_lsb",
+    limit="speed",
+    edge_key="envelope.speed_max",
     si=("speed_right", "speed_left"),
+    steps="speed steps",
+    quantity=units.SPEED,
+    typed_unit="m/s",
+    labels=("Right wheel rim speed", "Left wheel rim speed"),
 )
 ACCEL = Member(
-    "accel",
-    2,
-    "rim acceleration per wheel",
-    "m/s^2",
-    "firmware.accel_lsb",
-    "accel",
-    steps="accel steps",
+    name="accel",
+    count=2,
+    what="rim acceleration per wheel",
+    unit="m/s^2",
+    lsb_key="firmware.accel_lsb",
+    limit="accel",
+    edge_key="envelope.accel_max",
     si=("accel_right", "accel_left"),
+    steps="accel steps",
+    quantity=units.ACCEL,
+    typed_unit="m/s**2",
+    labels=("Right wheel rim acceleration", "Left wheel rim acceleration"),
 )
-PITCH = Member("pitch", 1, "front up > 0", "rad", "firmware.angle_lsb", "pitch", si=("pitch_rad",), steps="angle steps")
-ROLL = Member("roll", 1, "left side up > 0", "rad", "firmware.angle_lsb", "roll", si=("roll_rad",), steps="angle steps")
+PITCH = Member(
+    name="pitch",
+    count=1,
+    what="front up > 0",
+    unit="rad",
+    lsb_key="firmware.angle_lsb",
+    limit="pitch",
+    edge_key="envelope.pitch_max",
+    si=("pitch_rad",),
+    steps="angle steps",
+    quantity=units.ANGLE,
+    typed_unit="deg",
+    labels=("Pitch, front up > 0",),
+)
+ROLL = Member(
+    name="roll",
+    count=1,
+    what="left side up > 0",
+    unit="rad",
+    lsb_key="firmware.angle_lsb",
+    limit="roll",
+    edge_key="envelope.roll_max",
+    si=("roll_rad",),
+    steps="angle steps",
+    quantity=units.ANGLE,
+    typed_unit="deg",
+    labels=("Roll, left side up > 0",),
+)
 PAYLOAD = Member(
-    "payload",
-    1,
-    "payload mass",
-    "kg",
-    "firmware.mass_lsb",
-    "payload",
+    name="payload",
+    count=1,
+    what="payload mass",
+    unit="kg",
+    lsb_key="firmware.mass_lsb",
+    limit="payload",
+    edge_key="payload.mass_max",
     signed=False,
     si=("payload_kg",),
     steps="mass steps",
+    quantity=units.MASS,
+    typed_unit="kg",
+    labels=("Payload mass",),
 )
 CURRENT_IN = Member(
-    "current", 2, "measured motor current per wheel", "A", "firmware.current_lsb", "current", steps="current steps"
+    name="current",
+    count=2,
+    what="measured motor current per wheel",
+    unit="A",
+    lsb_key="firmware.current_lsb",
+    limit="current",
+    edge_key="drive.current_limit",
+    steps="current steps",
 )
-CURRENT_OUT = Member(
-    "current", 2, "feed-forward motor current per wheel", "A", "firmware.current_lsb", "current", steps="current steps"
-)
+CURRENT_OUT = dataclasses.replace(CURRENT_IN, what="feed-forward motor current per wheel")
 ACCEL_OUT = Member(
-    "accel", 2, "predicted rim acceleration per wheel", "m/s^2", "firmware.accel_lsb", "accel", steps="accel steps"
+    name="accel",
+    count=2,
+    what="predicted rim acceleration per wheel",
+    unit="m/s^2",
+    lsb_key="firmware.accel_lsb",
+    limit="accel",
+    edge_key="envelope.accel_max",
+    steps="accel steps",
 )
 
 FF_IN = Struct("ff_in", (SPEED, ACCEL, PITCH, ROLL, PAYLOAD))
@@ -218,11 +282,33 @@ def to_steps(v: Vehicle, st: Struct, si: dict[str, Any]) -> dict[str, np.ndarray
     return out
 
 
-def to_si(v: Vehicle, st: Struct, steps: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
-    """Firmware steps -> SI values keyed by OperatingPoint attribute (exact products)."""
+def si_of_fields(st: Struct, fields: dict[str, Any]) -> dict[str, np.ndarray]:
+    """SI values by member ({"speed": (n, 2), "pitch": scalar or (n,)}) -> keyed by OperatingPoint attribute."""
     out = {}
     for m in st.members:
-        a = np.asarray(steps[m.name], dtype=float) * lsb(v, m)
+        a = np.asarray(fields[m.name], dtype=float)
         for k, attr in enumerate(m.si):
             out[attr] = a[..., k] if m.count == 2 else a
     return out
+
+
+def to_si(v: Vehicle, st: Struct, steps: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+    """Firmware steps -> SI values keyed by OperatingPoint attribute (exact products)."""
+    return si_of_fields(st, {m.name: np.asarray(steps[m.name], dtype=float) * lsb(v, m) for m in st.members})
+
+
+def describe_point(st: Struct, si: dict[str, float], wheel: str, *, digits: int) -> str:
+    """One operating point in words, in struct order, values in the units a person types (angles in
+    degrees): "right wheel at speed +1.2/-1.2 m/s, ..., payload 60 kg". `si` is keyed by OperatingPoint
+    attribute; `digits` significant digits (angles: digits - 1 decimals)."""
+    parts = []
+    for m in st.members:
+        shown = m.typed_unit.replace("**", "^") or m.unit
+        factor = math.degrees(1.0) if (m.unit, m.typed_unit) == ("rad", "deg") else 1.0
+        values = [si[a] * factor for a in m.si]
+        if factor != 1.0:
+            text = "/".join(f"{x:+.{digits - 1}f}" for x in values)
+        else:
+            text = "/".join(f"{x:+.{digits}g}" if m.signed else f"{x:.{digits}g}" for x in values)
+        parts.append(f"{m.name} {text} {shown}")
+    return f"{wheel} wheel at " + ", ".join(parts)

@@ -4,6 +4,7 @@ from the measured speeds, and the model's predictions of the current."""
 from __future__ import annotations
 
 import csv
+import dataclasses
 import json
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -127,10 +128,10 @@ def accelerations(v: Vehicle, log: BenchLog) -> tuple[np.ndarray, str]:
     """Rim accelerations (n, 2) for the measured motion, and how they were obtained: the setpoint's when
     tracking was tight (RMS speed error below 0.5 % of speed_max), else a Savitzky-Golay derivative of
     the measured speeds (quadratic, 0.1 s window)."""
-    sp = np.column_stack([log.setpoint["speed_right"], log.setpoint["speed_left"]])
-    err = float(np.sqrt(np.mean((log.speed - sp) ** 2)))
+    asked = dynamics.OperatingPoint(**log.setpoint)
+    err = float(np.sqrt(np.mean((log.speed - np.column_stack([asked.speed_right, asked.speed_left])) ** 2)))
     if err < TIGHT_TRACKING * v.envelope.speed_max_mps:
-        acc = np.column_stack([log.setpoint["accel_right"], log.setpoint["accel_left"]])
+        acc = np.column_stack([asked.accel_right, asked.accel_left])
         return acc, f"setpoint accelerations (tracking was tight: RMS speed error {err * 1000:.2f} mm/s)"
     from scipy.signal import savgol_filter  # here: scipy.signal takes ~0.5 s to load
 
@@ -156,9 +157,10 @@ def smoothed_speed(log: BenchLog) -> np.ndarray:
 
 
 def operating_point(log: BenchLog, *, speed: np.ndarray, accel: np.ndarray) -> dynamics.OperatingPoint:
-    s = log.setpoint
-    return dynamics.OperatingPoint(
-        s["payload_kg"], speed[:, 0], speed[:, 1], accel[:, 0], accel[:, 1], s["pitch_rad"], s["roll_rad"]
+    """The setpoints' slope and payload with the measured speeds and their accelerations."""
+    asked = dynamics.OperatingPoint(**log.setpoint)
+    return dataclasses.replace(
+        asked, speed_right=speed[:, 0], speed_left=speed[:, 1], accel_right=accel[:, 0], accel_left=accel[:, 1]
     )
 
 

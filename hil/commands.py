@@ -224,18 +224,11 @@ def plan(
         p = planner.make_plan(v, duration_s=duration, period_s=period, rig=rig, payload=payload, pitch=pitch, roll=roll)
         cond = excite.condition(v, p, rig)[0]
     outputs.write_file(Path(out_path), planfile.to_csv(p))
-    use = planner.peak_current_use(v, _profile(p), rig=rig, payload=payload, pitch=pitch, roll=roll)
+    use = planner.plan_current_use(v, p.si(), rig=rig)
     click.echo(
         f"wrote {out_path}: {len(p)} rows of {period * 1000:g} ms, peak current {use:.0%} of the limit "
         f"({rig}); regressor condition number {cond:.3g}"
     )
-
-
-def _profile(p: Any) -> Any:
-    import numpy as np
-
-    c = p.columns
-    return np.column_stack([c["speed_right"], c["speed_left"], c["accel_right"], c["accel_left"]])
 
 
 @bench.command(short_help="Serve a simulated controller on a pseudo-terminal.")

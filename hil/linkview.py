@@ -16,28 +16,30 @@ PERIOD_US = 1000
 WATCHDOG_TICKS = 100
 
 
-def _lvalues(st: interface.Struct) -> list[str]:
-    return [f"{m.name}[{k}]" if m.count == 2 else m.name for m in st.members for k in range(m.count)]
-
-
-def _run(kind: messages.Kind, name: str, st: interface.Struct) -> list[tuple[str, int]]:
+def _run(layout: messages.Layout, name: str, st: interface.Struct) -> list[tuple[str, int]]:
     """(C lvalue in the struct, byte offset in the message) of each column of a field that carries a struct."""
-    layout = messages.LAYOUT[kind]
     f = next(f for f in layout.fields if f.name == name)
-    assert f.columns == st.columns, f"{kind.name}.{name} carries {st.tag}'s columns in its order"
+    assert f.columns == st.columns, f"{name} carries {st.tag}'s columns in its order"
     step = f.size // f.count
-    return [(lv, layout.offsets()[name] + step * k) for k, lv in enumerate(_lvalues(st))]
+    return [(lv, layout.offsets()[name] + step * k) for k, lv in enumerate(st.lvalues())]
 
 
-def wire() -> dict[str, Any]:
-    """Message codes, lengths and every field's byte offset (the type byte at 0), from messages.LAYOUT."""
+def wire(
+    table: dict[messages.Kind, messages.Layout] = messages.LAYOUT,
+    *,
+    inputs: interface.Struct = interface.FF_IN,
+    ff: interface.Struct = interface.FF_OUT,
+    measured: interface.Struct = interface.MEASURED,
+) -> dict[str, Any]:
+    """Message codes, lengths and every field's byte offset (the type byte at 0), from the layouts."""
+    kinds = messages.Kind
     return {
-        "kinds": [(k.name, f"0x{int(k):02X}", 1 + messages.LAYOUT[k].size) for k in messages.Kind],
-        "at": {k.name: messages.LAYOUT[k].offsets() for k in messages.Kind},
+        "kinds": [(k.name, f"0x{int(k):02X}", 1 + table[k].size) for k in kinds],
+        "at": {k.name: table[k].offsets() for k in kinds},
         "wire": {
-            "setpoint_inputs": _run(messages.Kind.SETPOINT, "inputs", interface.FF_IN),
-            "sample_ff": _run(messages.Kind.SAMPLE, "ff", interface.FF_OUT),
-            "sample_measured": _run(messages.Kind.SAMPLE, "measured", interface.MEASURED),
+            "setpoint_inputs": _run(table[kinds.SETPOINT], "inputs", inputs),
+            "sample_ff": _run(table[kinds.SAMPLE], "ff", ff),
+            "sample_measured": _run(table[kinds.SAMPLE], "measured", measured),
         },
     }
 
@@ -72,9 +74,9 @@ def context(
         "status_clamped": messages.STATUS_CLAMPED,
         "status_last": messages.STATUS_LAST,
         "measured": {"ctype": interface.MEASURED.c_type(prefix), "members": measured},
-        "setpoint_fields": _lvalues(interface.FF_IN),
-        "ff_fields": _lvalues(interface.FF_OUT),
-        "measured_fields": _lvalues(interface.MEASURED),
+        "setpoint_fields": interface.FF_IN.lvalues(),
+        "ff_fields": interface.FF_OUT.lvalues(),
+        "measured_fields": interface.MEASURED.lvalues(),
         **wire(),
     }
 

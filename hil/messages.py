@@ -157,38 +157,47 @@ class Layout:
         return out
 
 
-LAYOUT: dict[Kind, Layout] = {
-    Kind.HELLO: Layout(Hello, (Field("version", "u8"),)),
-    Kind.IDENTIFY: Layout(
-        Identify,
-        (
-            Field("version", "u8"),
-            Field("fingerprint", "u32"),
-            Field("period_us", "u32"),
-            Field("fifo_depth", "u16"),
-            Field("watchdog_ms", "u16"),
+def layouts(
+    inputs: interface.Struct = interface.FF_IN,
+    ff: interface.Struct = interface.FF_OUT,
+    measured: interface.Struct = interface.MEASURED,
+) -> dict[Kind, Layout]:
+    """Every message's layout; the setpoint and sample carry the columns of the interface structs."""
+    return {
+        Kind.HELLO: Layout(Hello, (Field("version", "u8"),)),
+        Kind.IDENTIFY: Layout(
+            Identify,
+            (
+                Field("version", "u8"),
+                Field("fingerprint", "u32"),
+                Field("period_us", "u32"),
+                Field("fifo_depth", "u16"),
+                Field("watchdog_ms", "u16"),
+            ),
         ),
-    ),
-    Kind.ARM: Layout(Arm, (Field("first_seq", "u16"), Field("prefill", "u16"))),
-    Kind.ARMED: Layout(Armed, (Field("first_seq", "u16"), Field("free", "u16"))),
-    Kind.SETPOINT: Layout(
-        Setpoint, (Field("seq", "u16"), Field("flags", "u8"), Field("inputs", "i32", interface.FF_IN.columns))
-    ),
-    Kind.HALT: Layout(Halt, ()),
-    Kind.SAMPLE: Layout(
-        Sample,
-        (
-            Field("seq", "u16"),
-            Field("last_rx", "u16"),
-            Field("free", "u16"),
-            Field("status", "u8"),
-            Field("clamped", "u8"),
-            Field("ff", "i32", interface.FF_OUT.columns),
-            Field("measured", "i32", interface.MEASURED.columns),
+        Kind.ARM: Layout(Arm, (Field("first_seq", "u16"), Field("prefill", "u16"))),
+        Kind.ARMED: Layout(Armed, (Field("first_seq", "u16"), Field("free", "u16"))),
+        Kind.SETPOINT: Layout(
+            Setpoint, (Field("seq", "u16"), Field("flags", "u8"), Field("inputs", "i32", inputs.columns))
         ),
-    ),
-    Kind.FAULT: Layout(Fault, (Field("code", "u8"), Field("seq", "u16"))),
-}
+        Kind.HALT: Layout(Halt, ()),
+        Kind.SAMPLE: Layout(
+            Sample,
+            (
+                Field("seq", "u16"),
+                Field("last_rx", "u16"),
+                Field("free", "u16"),
+                Field("status", "u8"),
+                Field("clamped", "u8"),
+                Field("ff", "i32", ff.columns),
+                Field("measured", "i32", measured.columns),
+            ),
+        ),
+        Kind.FAULT: Layout(Fault, (Field("code", "u8"), Field("seq", "u16"))),
+    }
+
+
+LAYOUT = layouts()
 """Every message on the wire, described once: the codecs below, the link C (hil/linkview.py) and the
 tables of PROTOCOL.md (checked by tests/test_framing.py) all read it."""
 KIND_OF = {layout.cls: kind for kind, layout in LAYOUT.items()}

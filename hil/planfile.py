@@ -9,19 +9,18 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
+from kinetab.generator import interface
 from kinetab.generator.errors import UserError
 
-PLAN_COLUMNS = ("t", "speed_right", "speed_left", "accel_right", "accel_left", "pitch", "roll", "payload")
+
+def plan_columns(st: interface.Struct = interface.FF_IN) -> tuple[str, ...]:
+    """Time, then the feed-forward inputs in SI units, in the firmware struct's order."""
+    return ("t", *st.columns)
+
+
+PLAN_COLUMNS = plan_columns()
 PHASE_COLUMN = "phase"
-SI_NAME = {
-    "speed_right": "speed_right",
-    "speed_left": "speed_left",
-    "accel_right": "accel_right",
-    "accel_left": "accel_left",
-    "pitch": "pitch_rad",
-    "roll": "roll_rad",
-    "payload": "payload_kg",
-}
+SI_NAME = interface.FF_IN.si_names()
 """Plan column -> the OperatingPoint attribute (and interface SI key) it holds."""
 PHASES = ("deadband", "accelerating", "cruising", "decelerating", "turning", "spin")
 

@@ -8,7 +8,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from kinetab.generator import dynamics
+from kinetab.generator import dynamics, interface, model
 from kinetab.generator.errors import UserError
 from kinetab.generator.vehicle import Vehicle
 from ruckig import ControlInterface, InputParameter, OutputParameter, Result, Ruckig
@@ -89,13 +89,32 @@ def _profile(v: Vehicle, segments: list[Segment], *, period_s: float, duration_s
     return prof
 
 
+def _fields(profile: np.ndarray, *, payload: float, pitch: float, roll: float) -> dict[str, np.ndarray]:
+    """A profile (rows of speed right, left, accel right, left) on a fixed slope and payload, as SI
+    values per interface member, one row each."""
+    n = len(profile)
+    return {
+        "speed": profile[:, :2],
+        "accel": profile[:, 2:],
+        "pitch": np.full(n, pitch),
+        "roll": np.full(n, roll),
+        "payload": np.full(n, payload),
+    }
+
+
 def peak_current_use(v: Vehicle, profile: np.ndarray, *, rig: str, payload: float, pitch: float, roll: float) -> float:
     """Largest |current| / current_limit along a profile with the float model of the rig."""
-    op = dynamics.OperatingPoint(payload, profile[:, 0], profile[:, 1], profile[:, 2], profile[:, 3], pitch, roll)
+    si = interface.si_of_fields(interface.FF_IN, _fields(profile, payload=payload, pitch=pitch, roll=roll))
+    return plan_current_use(v, si, rig=rig)
+
+
+def plan_current_use(v: Vehicle, si: dict[str, np.ndarray], *, rig: str) -> float:
+    """Largest |current| / current_limit over rows of setpoints (keyed by OperatingPoint attribute)."""
+    op = dynamics.OperatingPoint(**si)
     right, left = dynamics.rig_wheel_forces(v, op, rig)
     cur = np.maximum(
-        np.abs(dynamics.motor_current(v, right.total, profile[:, 0])),
-        np.abs(dynamics.motor_current(v, left.total, profile[:, 1])),
+        np.abs(dynamics.motor_current(v, right.total, op.speed_right)),
+        np.abs(dynamics.motor_current(v, left.total, op.speed_left)),
     )
     return float(np.max(cur)) / v.drive.current_limit_a
 
@@ -103,28 +122,8 @@ def peak_current_use(v: Vehicle, profile: np.ndarray, *, rig: str, payload: floa
 def plan_problem(v: Vehicle, plan: Plan, rig: str) -> str | None:
     """The first row of a plan outside the model's envelope or beyond the drive (current limit, supply
     voltage, by the float model of the rig), as one phrase; None when every row is inside."""
-    env, c = v.envelope, plan.columns
-    slack = 1 + 1e-6  # float dust of a plan written with 9 significant digits
-    checks = [
-        ("speed_right", env.speed_max_mps, "envelope.speed_max", "m/s"),
-        ("speed_left", env.speed_max_mps, "envelope.speed_max", "m/s"),
-        ("accel_right", env.accel_max_mps2, "envelope.accel_max", "m/s^2"),
-        ("accel_left", env.accel_max_mps2, "envelope.accel_max", "m/s^2"),
-        ("pitch", env.pitch_max_rad, "envelope.pitch_max", "rad"),
-        ("roll", env.roll_max_rad, "envelope.roll_max", "rad"),
-    ]
-    bad: list[tuple[int, str]] = []
-    for col, limit, key, unit in checks:
-        over = np.flatnonzero(np.abs(c[col]) > limit * slack + 1e-12)
-        if over.size:
-            k = int(over[0])
-            bad.append((k, f"{col} {c[col][k]:.6g} {unit} beyond {key} ({limit:.6g} {unit})"))
-    pay = np.flatnonzero((c["payload"] < 0) | (c["payload"] > v.payload.mass_max_kg * slack))
-    if pay.size:
-        k = int(pay[0])
-        bad.append(
-            (k, f"payload {c['payload'][k]:.6g} kg outside 0 .. payload.mass_max ({v.payload.mass_max_kg:g} kg)")
-        )
+    c = plan.columns
+    bad = [found for m in interface.FF_IN.members for col in m.columns if (found := _outside(v, m, col, c[col]))]
     drive = _drive_problem(v, plan, rig)
     if drive:
         bad.append(drive)
@@ -132,6 +131,22 @@ def plan_problem(v: Vehicle, plan: Plan, rig: str) -> str | None:
         return None
     k, text = min(bad)
     return f"row {k + 2} (t = {c['t'][k]:.6g} s): {text}"
+
+
+def _outside(v: Vehicle, m: interface.Member, col: str, values: np.ndarray) -> tuple[int, str] | None:
+    """The first row of one plan column outside the member's envelope edge, and the phrase naming it."""
+    limit = float(model.value(v, m.edge_key))
+    slack = 1 + 1e-6  # float dust of a plan written with 9 significant digits
+    if m.signed:
+        over = np.flatnonzero(np.abs(values) > limit * slack + 1e-12)
+        text = f"beyond {m.edge_key} ({limit:.6g} {m.unit})"
+    else:
+        over = np.flatnonzero((values < 0) | (values > limit * slack))
+        text = f"outside 0 .. {m.edge_key} ({limit:g} {m.unit})"
+    if not over.size:
+        return None
+    k = int(over[0])
+    return k, f"{col} {values[k]:.6g} {m.unit} {text}"
 
 
 def _drive_problem(v: Vehicle, plan: Plan, rig: str) -> tuple[int, str] | None:
@@ -183,17 +198,8 @@ def make_plan(
                 f"bench plan: even at 5 % of accel_max the current reaches {use:.0%} of drive.current_limit"
             )
         scale *= 0.8  # slow down: a smaller acceleration and jerk everywhere
-    n = len(profile)
-    cols = {
-        "t": np.arange(n) * period_s,
-        "speed_right": profile[:, 0],
-        "speed_left": profile[:, 1],
-        "accel_right": profile[:, 2],
-        "accel_left": profile[:, 3],
-        "pitch": np.full(n, pitch),
-        "roll": np.full(n, roll),
-        "payload": np.full(n, payload),
-    }
+    rows = interface.fields_to_rows(interface.FF_IN, _fields(profile, payload=payload, pitch=pitch, roll=roll))
+    cols = {"t": np.arange(len(profile)) * period_s, **dict(zip(interface.FF_IN.columns, rows.T))}
     assert tuple(cols) == PLAN_COLUMNS
     return Plan(cols, phase_of(profile[:, :2], profile[:, 2:], v.friction.deadband_mps))
 

@@ -8,6 +8,7 @@ state arrays are (batch, 2) instead of (2,)."""
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import dataclass, field
 
@@ -68,8 +69,9 @@ class Plant:
         opt = self.options
         # the setpoint's speed is where the period ends: the loop's reference now is that less one period
         # of the setpoint's acceleration (so perfect tracking needs no correction)
-        end = np.array([setpoint_si["speed_right"], setpoint_si["speed_left"]])
-        target = end - opt.period_s * np.array([setpoint_si["accel_right"], setpoint_si["accel_left"]])
+        asked = dynamics.OperatingPoint(**setpoint_si)
+        end = np.array([asked.speed_right, asked.speed_left], dtype=float)
+        target = end - opt.period_s * np.array([asked.accel_right, asked.accel_left], dtype=float)
         kp, ki = self.gains()
         error = target - self.speed
         low, high = self.current_range()
@@ -103,14 +105,12 @@ class Plant:
         """Semi-implicit Euler over dt: forces from the motor currents, accelerations from the rig."""
         v = self.truth
         force = dynamics.force_from_current(v, self.current, self.speed)
-        op = dynamics.OperatingPoint(
-            payload_kg=sp["payload_kg"],
+        op = dataclasses.replace(
+            dynamics.OperatingPoint(**sp),
             speed_right=self.speed[..., 0],
             speed_left=self.speed[..., 1],
             accel_right=0.0,
             accel_left=0.0,
-            pitch_rad=sp["pitch_rad"],
-            roll_rad=sp["roll_rad"],
         )
         ar, al = dynamics.rig_forward_accel(v, op, force[..., 0], force[..., 1], rig=self.options.rig)
         self.speed = self.speed + dt * np.stack([np.asarray(ar, float), np.asarray(al, float)], -1)

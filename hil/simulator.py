@@ -185,12 +185,4 @@ class Simulator:
 
 def _idle_setpoint() -> dict[str, float]:
     """Standing still, level, empty: what the vehicle holds before the first setpoint."""
-    return {
-        "speed_right": 0.0,
-        "speed_left": 0.0,
-        "accel_right": 0.0,
-        "accel_left": 0.0,
-        "payload_kg": 0.0,
-        "pitch_rad": 0.0,
-        "roll_rad": 0.0,
-    }
+    return {name: 0.0 for name in interface.FF_IN.si_names().values()}

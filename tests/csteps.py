@@ -18,12 +18,8 @@ MODES = {"feedforward": "ff", "forward": "fwd"}
 needs_gcc = pytest.mark.skipif(hostc.compiler() is None, reason="a C compiler is required (apt install gcc)")
 
 
-def _lvalues(st: interface.Struct) -> list[str]:
-    return [f"{m.name}[{k}]" if m.count == 2 else m.name for m in st.members for k in range(m.count)]
-
-
 def _call_view(call: interface.Call, prefix: str) -> dict[str, object]:
-    ins, outs = _lvalues(call.inputs), _lvalues(call.outputs)
+    ins, outs = call.inputs.lvalues(), call.outputs.lvalues()
     return {
         "name": call.name,
         "mode": MODES[call.name],

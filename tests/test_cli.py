@@ -101,7 +101,15 @@ def test_predict_json_shape_and_values(capsys):
         parts = f["inertia"] + f["coriolis"] + f["friction"] + f["rolling"] + f["gravity"]
         assert f["total"] == pytest.approx(parts, rel=1e-12)
     v = model.load(DEMO_PATH)
-    op = dynamics.OperatingPoint(30.0, 0.5, 0.4, 0.3, 0.0, math.radians(3), 0.02)
+    op = dynamics.OperatingPoint(
+        speed_right=0.5,
+        speed_left=0.4,
+        accel_right=0.3,
+        accel_left=0.0,
+        pitch_rad=math.radians(3),
+        roll_rad=0.02,
+        payload_kg=30.0,
+    )
     right, _ = dynamics.wheel_forces(v, op)
     assert doc["right"]["force"]["gravity"] == pytest.approx(float(right.gravity), rel=1e-12)
     assert np.array(doc["mass_matrix"]) == pytest.approx(dynamics.mass_matrix(v, 30.0), rel=1e-12)

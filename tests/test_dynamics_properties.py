@@ -37,13 +37,13 @@ def points(draw, v):
     f = lambda lo, hi: draw(st.floats(lo, hi, allow_nan=False))  # noqa: E731
     env = v.envelope
     return OperatingPoint(
-        f(0, v.payload.mass_max_kg),
-        f(-env.speed_max_mps, env.speed_max_mps),
-        f(-env.speed_max_mps, env.speed_max_mps),
-        f(-env.accel_max_mps2, env.accel_max_mps2),
-        f(-env.accel_max_mps2, env.accel_max_mps2),
-        f(-env.pitch_max_rad, env.pitch_max_rad),
-        f(-env.roll_max_rad, env.roll_max_rad),
+        payload_kg=f(0, v.payload.mass_max_kg),
+        speed_right=f(-env.speed_max_mps, env.speed_max_mps),
+        speed_left=f(-env.speed_max_mps, env.speed_max_mps),
+        accel_right=f(-env.accel_max_mps2, env.accel_max_mps2),
+        accel_left=f(-env.accel_max_mps2, env.accel_max_mps2),
+        pitch_rad=f(-env.pitch_max_rad, env.pitch_max_rad),
+        roll_rad=f(-env.roll_max_rad, env.roll_max_rad),
     )
 
 

@@ -276,6 +276,8 @@ def test_motor_direction_rule():
     assert dynamics.motor_torque(v, 100.0, 0.5) == pytest.approx(100 * r / (i * 0.85), rel=1e-12)
     assert dynamics.motor_torque(v, 100.0, 0.0) == pytest.approx(100 * r / (i * 0.85), rel=1e-12)
     assert dynamics.motor_torque(v, -100.0, 0.5) == pytest.approx(-100 * r * 0.80 / i, rel=1e-12)
-    op = OperatingPoint(0.0, 0.3, 0.3, 0.0, 0.0, 0.0, 0.0)
+    op = OperatingPoint(
+        speed_right=0.3, speed_left=0.3, accel_right=0.0, accel_left=0.0, pitch_rad=0.0, roll_rad=0.0, payload_kg=0.0
+    )
     right, _ = dynamics.wheel_forces(v, op)
     assert right.total == pytest.approx(right.friction + right.rolling, rel=1e-12)
