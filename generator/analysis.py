@@ -58,14 +58,20 @@ def _table_range(table: tb.Table) -> fx.Interval:
 
 
 def _interp_step(piece: tb.PieceData) -> int:
-    return int(np.max(np.abs(np.diff(piece.entries)))) if piece.segments > 0 else 0
+    """Largest difference of neighbouring entries: what the interpolation multiplies (0: none)."""
+    match piece.kind:
+        case tb.PieceKind.CONSTANT | tb.PieceKind.DIRECT:
+            return 0
+        case tb.PieceKind.ONE_SEGMENT | tb.PieceKind.INDEXED:
+            return int(np.max(np.abs(np.diff(piece.entries))))
+        case _:
+            assert_never(piece.kind)
 
 
 def _interp_wide(piece: tb.PieceData) -> bool:
-    if piece.segments == 0 or piece.shift == 0:
-        return False
+    """The interpolation product (e1 - e0) * f + half can leave 32 bits (never for a piece without one)."""
     step = _interp_step(piece)
-    return step > fx.word_max(32) or step * piece.mask + (1 << (piece.shift - 1)) > fx.word_max(32)
+    return step > 0 and (step > fx.word_max(32) or step * piece.mask + (1 << (piece.shift - 1)) > fx.word_max(32))
 
 
 def _interp_split(piece: tb.PieceData) -> bool:
@@ -80,7 +86,7 @@ def folded_segment(piece: tb.PieceData) -> tuple[int, int] | None:
     """A one-segment piece as one multiply-add: e0 + (((e1 - e0) d + h) >> s) = ((e1 - e0) d + C) >> s
     with C = e0 2^s + h (e0 2^s is a multiple of 2^s, so the floor is unchanged); (e1 - e0, C) when
     every value of the folded sum fits 32 bits for d in 0 .. 2^s - 1, else None."""
-    if piece.segments != 1 or piece.shift == 0:
+    if piece.kind is not tb.PieceKind.ONE_SEGMENT:
         return None
     e0, step = int(piece.entries[0]), int(piece.entries[1]) - int(piece.entries[0])
     const = (e0 << piece.shift) + rounding_half(piece.shift)

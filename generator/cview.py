@@ -94,8 +94,6 @@ def _piece_view(fw: Firmware, name: str, prefix: str, k: int) -> dict[str, Any]:
     """One piece of a table: its array, indexing constants and the comment lines about it."""
     spec, data, err = fw.tables[name].spec, fw.tables[name].pieces[k], fw.errors[name][k]
     piece, src = spec.pieces[k], _sources(fw)[spec.source]
-    width = 1 << data.shift
-    plural = "s" if data.segments > 1 else ""
     return {
         "array": f"{prefix}_tab_{name}_{k}",
         "count": len(data.entries),
@@ -108,7 +106,7 @@ def _piece_view(fw: Firmware, name: str, prefix: str, k: int) -> dict[str, Any]:
         "wide": fw.ff_proof.lookup_wide[name][k] and not fw.ff_proof.lookup_split[name][k],
         "split": fw.ff_proof.lookup_split[name][k],
         "fold": _fold_view(data),
-        "constant": data.segments == 0,
+        "kind": data.kind.value,
         "value": int(data.entries[0]),
         "entries": rows([int(e) for e in data.entries]),
         "describe": (
@@ -116,14 +114,26 @@ def _piece_view(fw: Firmware, name: str, prefix: str, k: int) -> dict[str, Any]:
             f"({num(piece.x0 * src.lsb)}..{num(piece.x1 * src.lsb)} {src.unit})"
             + (f", {piece.label}" if piece.label else "")
         ),
-        "layout": "constant"
-        if data.segments == 0
-        else "one entry per input step (no interpolation)"
-        if data.shift == 0
-        else f"{data.segments} segment{plural} of {width} steps, breakpoints at x0 + k*{width}",
+        "layout": _layout(data),
         "error": f"{num(err.total * spec.si_scale)} {spec.si_unit}"
         + (" (every input checked)" if err.exhaustive else " (dense sample plus slope margin)"),
     }
+
+
+def _layout(data: tb.PieceData) -> str:
+    """How the piece is stored, for its C comment."""
+    width = 1 << data.shift
+    match data.kind:
+        case tb.PieceKind.CONSTANT:
+            return "constant"
+        case tb.PieceKind.DIRECT:
+            return "one entry per input step (no interpolation)"
+        case tb.PieceKind.ONE_SEGMENT:
+            return f"1 segment of {width} steps, breakpoints at x0 + k*{width}"
+        case tb.PieceKind.INDEXED:
+            return f"{data.segments} segments of {width} steps, breakpoints at x0 + k*{width}"
+        case _:
+            assert_never(data.kind)
 
 
 def _fold_view(data: tb.PieceData) -> dict[str, int] | None:
@@ -150,7 +160,7 @@ def table_view(fw: Firmware, name: str, prefix: str) -> dict[str, Any]:
         "ctype": f"{'u' if _unsigned(table) else ''}int{spec.bits}_t",
         "symmetry": spec.symmetry,
         "split": spec.split_at,
-        "needs_x": spec.split_at is not None or any(p.segments > 0 for p in table.pieces),
+        "needs_x": spec.split_at is not None or any(p.kind is not tb.PieceKind.CONSTANT for p in table.pieces),
         "meaning": spec.meaning,
         "stored": _stored_text(spec, unsigned=_unsigned(table)),
         "step_si": _si_text(2.0**-spec.frac_bits * spec.si_scale, spec.si_unit),

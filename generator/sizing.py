@@ -12,7 +12,7 @@ from __future__ import annotations
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from functools import partial
-from typing import Any
+from typing import Any, assert_never
 
 import numpy as np
 
@@ -23,16 +23,27 @@ from .program import Lookup, Program
 
 Bound = Callable[[Mapping[str, Any]], Any]
 
-PIECE_INSTRUCTIONS = (1, 3, 6, 15)
-"""Instructions of one piece lookup by kind: constant, direct (one entry per input step), one segment,
-interpolated (indexed). Measured on Cortex-M0+ with zig and gcc-arm-none-eabi at -Os (both 0, 3, 6,
-15; tests/benchmarks/bench_piece_cost.py); the constant counted as 1, the load of its value."""
+
+def piece_instructions_of(kind: tb.PieceKind) -> int:
+    """Instructions of one piece lookup by kind. Measured on Cortex-M0+ with zig and gcc-arm-none-eabi
+    at -Os (both 0, 3, 6, 15; tests/benchmarks/bench_piece_cost.py); the constant counted as 1, the
+    load of its value."""
+    match kind:
+        case tb.PieceKind.CONSTANT:
+            return 1
+        case tb.PieceKind.DIRECT:
+            return 3
+        case tb.PieceKind.ONE_SEGMENT:
+            return 6
+        case tb.PieceKind.INDEXED:
+            return 15
+        case _:
+            assert_never(kind)
 
 
 def piece_instructions(data: tb.PieceData) -> int:
     """Instructions of one lookup of a piece by its kind: constant, direct, one segment or indexed."""
-    kind = 0 if data.segments == 0 else 1 if data.shift == 0 else 2 if data.segments == 1 else 3
-    return PIECE_INSTRUCTIONS[kind]
+    return piece_instructions_of(data.kind)
 
 
 @dataclass(frozen=True)

@@ -9,6 +9,8 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass, field
+from enum import Enum
+from typing import assert_never
 
 import numpy as np
 
@@ -55,6 +57,15 @@ class TableSpec:
         return self.pieces[0].x1 if len(self.pieces) == 2 else None
 
 
+class PieceKind(Enum):
+    """How a piece is looked up; each concern (emulate, prove, cost, C) matches on it exhaustively."""
+
+    CONSTANT = "constant"  # one entry, whatever the input
+    DIRECT = "direct"  # one entry per input step, no interpolation
+    ONE_SEGMENT = "one segment"  # two entries: the clamped input never reaches the next breakpoint
+    INDEXED = "indexed"  # segments of 2^shift steps, shift-and-mask index, interpolation
+
+
 @dataclass(frozen=True)
 class PieceData:
     segments: int  # 0: one constant entry
@@ -65,6 +76,14 @@ class PieceData:
     @property
     def mask(self) -> int:
         return (1 << self.shift) - 1
+
+    @property
+    def kind(self) -> PieceKind:
+        if self.segments == 0:
+            return PieceKind.CONSTANT
+        if self.shift == 0:
+            return PieceKind.DIRECT
+        return PieceKind.ONE_SEGMENT if self.segments == 1 else PieceKind.INDEXED
 
 
 @dataclass(frozen=True)
@@ -167,13 +186,20 @@ def build(spec: TableSpec, segments: tuple[int, ...]) -> Table:
 def lookup_piece(data: PieceData, x0: int, x: np.ndarray) -> np.ndarray:
     """Bit-exact interpolation: e[i] + (((e[i+1] - e[i]) * frac + half) >> s), int64 arithmetic."""
     e = data.entries
-    if data.segments == 0:
-        return np.full(np.shape(x), e[0], dtype=np.int64)
     d = np.asarray(x, dtype=np.int64) - x0
-    idx = d >> data.shift
-    frac = d & data.mask
-    lo = e[idx]
-    return lo + fx.shift_round((e[idx + 1] - lo) * frac, data.shift)
+    match data.kind:
+        case PieceKind.CONSTANT:
+            return np.full(np.shape(x), e[0], dtype=np.int64)
+        case PieceKind.DIRECT:
+            return e[d]
+        case PieceKind.ONE_SEGMENT:
+            return e[0] + fx.shift_round((e[1] - e[0]) * d, data.shift)
+        case PieceKind.INDEXED:
+            idx = d >> data.shift
+            lo = e[idx]
+            return lo + fx.shift_round((e[idx + 1] - lo) * (d & data.mask), data.shift)
+        case _:
+            assert_never(data.kind)
 
 
 def lookup(table: Table, x: np.ndarray) -> np.ndarray:
@@ -289,7 +315,7 @@ def piece_candidates(spec: TableSpec, piece: Piece) -> Candidates:
     for n in candidate_segments(piece):
         data = build_piece(spec, piece, n)
         err = piece_error(spec, piece, data, domain)
-        direct = data.segments > 0 and data.shift == 0  # one entry per input: the cheapest lookup but one
+        direct = data.kind is PieceKind.DIRECT  # one entry per input: the cheapest lookup but one
         if err.total < KEEP_RATIO * best or (direct and err.total <= best):
             out.segments.append(n)
             out.errors.append(err)

@@ -109,7 +109,8 @@ def main() -> None:
         "|---|" + "---|" * len(KINDS),
         *(f"| {k} | " + " | ".join(f"{r[n]:.0f}" for n in KINDS) + " |" for k, r in results.items()),
         "",
-        "Cost model used by the sizing: " + ", ".join(f"{n} {c}" for n, c in zip(KINDS, sizing.PIECE_INSTRUCTIONS)),
+        "Cost model used by the sizing: "
+        + ", ".join(f"{k.value} {sizing.piece_instructions_of(k)}" for k in sizing.tb.PieceKind),
     ]
     (HERE / "piece_cost_results.md").write_text("\n".join(lines) + "\n")
     print("\n".join(lines))
