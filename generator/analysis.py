@@ -15,7 +15,21 @@ import numpy as np
 from . import fixedpoint as fx
 from . import tables as tb
 from .errors import CheckFailed
-from .program import Backdrive, Clamp, Lookup, Mul, Op, Program, Store, Sum, op_range, rounding_half, split_fits
+from .program import (
+    Backdrive,
+    Clamp,
+    Lookup,
+    Mul,
+    Op,
+    Program,
+    Scale,
+    Store,
+    Sum,
+    op_range,
+    op_table,
+    rounding_half,
+    split_fits,
+)
 
 I32 = fx.Interval(fx.word_min(32), fx.word_max(32))
 I64 = fx.Interval(fx.word_min(64), fx.word_max(64))
@@ -36,7 +50,7 @@ class Proof:
         """The program's products that need a 64-bit multiply (no exact 32-bit form): signal names, and
         `lookup <table>` for an interpolation."""
         names = [name for name, w in self.wide.items() if w and not self.split[name]]
-        tables = {op.table for op in program.ops if isinstance(op, Lookup)}
+        tables = {table for op in program.ops if (table := op_table(op)) is not None}
         for table in sorted(tables):
             if any(w and not sp for w, sp in zip(self.lookup_wide[table], self.lookup_split[table])):
                 names.append(f"lookup {table}")
@@ -103,13 +117,11 @@ def prove(program: Program, tables: Mapping[str, tb.Table]) -> Proof:
     for op in program.ops:
         _check_op(program, op, rng, wide=wide, split=split)
         result = op_range(op, rng, lambda lk: _table_range(tables[lk.table]))
-        if isinstance(op, Store):
-            outputs[(op.field, op.index)] = rng[op.src].shift_round(op.shift)
-            continue
-        assert result is not None
         if not result.fits(32):
             raise _fail(program, f"signal {op.dst}", result)
         rng[op.dst] = result
+    for m in program.call.outputs.members:
+        outputs.update({(m.name, k): rng.pop(column) for k, column in enumerate(m.columns)})
     lookup_wide = {name: tuple(_interp_wide(p) for p in t.pieces) for name, t in tables.items()}
     lookup_split = {name: tuple(_interp_split(p) for p in t.pieces) for name, t in tables.items()}
     return Proof(rng, wide, split, lookup_wide, lookup_split, outputs)
@@ -129,12 +141,11 @@ def _check_op(
         case Clamp() | Lookup():
             pass
         case Mul():
-            rb = rng[op.b] if isinstance(op.b, str) else fx.Interval(op.b, op.b)
-            with_half = _with_half(rng[op.a] * rb, op.shift)
-            if not with_half.fits(64):
-                raise _fail(program, f"product {op.dst}", with_half)
-            wide[op.dst] = not with_half.fits(32)
-            split[op.dst] = _split_operand(rng[op.a], rb, op.shift) if wide[op.dst] else ""
+            _check_product(program, op.dst, ra=rng[op.a], rb=rng[op.b], shift=op.shift, wide=wide, split=split)
+        case Scale():
+            _check_product(
+                program, op.dst, ra=rng[op.a], rb=fx.Interval(op.k, op.k), shift=op.shift, wide=wide, split=split
+            )
         case Sum():
             total = fx.Interval(0, 0)
             for sign, name in op.terms:
@@ -151,6 +162,25 @@ def _check_op(
                 raise _fail(program, f"rounding of {op.field}[{op.index}]", with_half)
         case _:
             assert_never(op)
+
+
+def _check_product(
+    program: Program,
+    dst: str,
+    *,
+    ra: fx.Interval,
+    rb: fx.Interval,
+    shift: int,
+    wide: dict[str, bool],
+    split: dict[str, str],
+) -> None:
+    """A product must fit 64 bits with its rounding half; record whether it needs them, and which
+    operand to split for an exact two-part 32-bit form."""
+    with_half = _with_half(ra * rb, shift)
+    if not with_half.fits(64):
+        raise _fail(program, f"product {dst}", with_half)
+    wide[dst] = not with_half.fits(32)
+    split[dst] = _split_operand(ra, rb, shift) if wide[dst] else ""
 
 
 def _split_operand(ra: fx.Interval, rb: fx.Interval, shift: int) -> str:
@@ -183,16 +213,21 @@ def _error_step(op: Op, specs: Mapping[str, tb.TableSpec], mag: dict[str, float]
             mag[op.dst] = specs[op.table].max_abs * scale
             return lambda err, E: np.asarray(E[op.table]) * scale
         case Mul():
-            ma, bname = mag[op.a], op.b if isinstance(op.b, str) else None
-            mb = mag[bname] if bname is not None else float(abs(op.b))  # type: ignore[arg-type]
+            ma, mb, b = mag[op.a], mag[op.b], op.b
             scale, half = 2.0**-op.shift, 0.5 if op.shift > 0 else 0.0
             mag[op.dst] = ma * mb * scale
-            if op.a in zero and (bname is None or bname in zero) and half == 0:
+            if op.a in zero and b in zero and half == 0:
                 zero.add(op.dst)
                 return None
-            if bname is None:
-                return lambda err, E: (mb * e(err, op.a)) * scale + half
-            return lambda err, E: (ma * e(err, bname) + mb * e(err, op.a) + e(err, op.a) * e(err, bname)) * scale + half
+            return lambda err, E: (ma * e(err, b) + mb * e(err, op.a) + e(err, op.a) * e(err, b)) * scale + half
+        case Scale():
+            mk = float(abs(op.k))
+            scale, half = 2.0**-op.shift, 0.5 if op.shift > 0 else 0.0
+            mag[op.dst] = mag[op.a] * mk * scale
+            if op.a in zero and half == 0:
+                zero.add(op.dst)
+                return None
+            return lambda err, E: (mk * e(err, op.a)) * scale + half
         case Sum():
             mag[op.dst] = sum(mag[n] for _, n in op.terms)
             live = [n for _, n in op.terms if n not in zero]
@@ -206,6 +241,7 @@ def _error_step(op: Op, specs: Mapping[str, tb.TableSpec], mag: dict[str, float]
             return lambda err, E: e(err, op.src) * gain + dk * (ms + e(err, op.src)) + 0.5
         case Store():
             scale, half = 2.0**-op.shift, 0.5 if op.shift > 0 else 0.0
+            mag[op.dst] = mag[op.src] * scale
             return lambda err, E: e(err, op.src) * scale + half
         case _:
             assert_never(op)
@@ -228,16 +264,16 @@ class ErrorBound:
     """The error bound of one program as a callable: table errors -> worst output error in steps."""
 
     steps: tuple[tuple[Op, Step], ...]
+    outputs: tuple[str, ...]  # the output columns, which the program's stores write
 
     def __call__(self, table_error: TableErrors) -> Any:
         err: dict[str, Any] = {}
-        worst: Any = 0.0
         for op, step in self.steps:
-            value = step(err, table_error)
-            if isinstance(op, Store):
-                worst = np.maximum(worst, value)
-            else:
-                err[op.dst] = value
+            err[op.dst] = step(err, table_error)
+        worst: Any = 0.0
+        for column in self.outputs:
+            if column in err:  # a program may store only some outputs (tests build such)
+                worst = np.maximum(worst, err[column])
         return worst
 
 
@@ -250,7 +286,7 @@ def compile_bound(program: Program, specs: Mapping[str, tb.TableSpec]) -> ErrorB
         step = _error_step(op, specs, mag, zero)
         if step is not None:
             steps.append((op, step))
-    return ErrorBound(tuple(steps))
+    return ErrorBound(tuple(steps), program.call.outputs.columns)
 
 
 def error_bound(program: Program, specs: Mapping[str, tb.TableSpec], table_error: TableErrors) -> Any:

@@ -14,7 +14,21 @@ from . import fixedpoint as fx
 from . import tables as tb
 from .analysis import Proof
 from .cformat import num, rows, wrap
-from .program import Backdrive, Clamp, Lookup, Mul, Op, Program, Store, Sum, rounding_half, split
+from .program import (
+    Backdrive,
+    Clamp,
+    Lookup,
+    Mul,
+    Op,
+    Program,
+    Scale,
+    Store,
+    Sum,
+    op_inputs,
+    op_table,
+    rounding_half,
+    split,
+)
 from .synthesis import FORMAT_VERSION, Firmware
 
 CAUTION = (
@@ -233,20 +247,9 @@ def _op_view(op: Op, proof: Proof, clamp_names: list[str], prefix: str) -> dict[
         case Lookup():
             return {"kind": "lookup", "dst": op.dst, "func": f"{prefix}_lookup_{op.table}", "src": op.src}
         case Mul():
-            const = not isinstance(op.b, str)
-            return {
-                "kind": "mul",
-                "dst": op.dst,
-                "a": op.a,
-                "b": str(op.b),
-                "b_one": const and op.b == 1,
-                "shift": max(op.shift, 0),
-                "scale": 1 << max(-op.shift, 0),
-                "up": op.shift < 0,
-                "half": rounding_half(op.shift),
-                "wide": proof.wide[op.dst] and not proof.split[op.dst],
-                **_split_view(op, proof.split[op.dst]),
-            }
+            return _product_view(op.dst, op.a, op.b, shift=op.shift, proof=proof, b_one=False)
+        case Scale():
+            return _product_view(op.dst, op.a, str(op.k), shift=op.shift, proof=proof, b_one=op.k == 1)
         case Sum():
             terms = [("-" if s < 0 else ("" if i == 0 else "+"), n) for i, (s, n) in enumerate(op.terms)]
             return {"kind": "sum", "dst": op.dst, "terms": terms}
@@ -276,12 +279,29 @@ def _op_view(op: Op, proof: Proof, clamp_names: list[str], prefix: str) -> dict[
             assert_never(op)
 
 
-def _split_view(op: Mul, operand: str) -> dict[str, Any]:
+def _product_view(dst: str, a: str, b: str, *, shift: int, proof: Proof, b_one: bool) -> dict[str, Any]:
+    """A product of a signal and a signal or constant (`b` as C text), its rounding and wide forms."""
+    return {
+        "kind": "mul",
+        "dst": dst,
+        "a": a,
+        "b": b,
+        "b_one": b_one,
+        "shift": max(shift, 0),
+        "scale": 1 << max(-shift, 0),
+        "up": shift < 0,
+        "half": rounding_half(shift),
+        "wide": proof.wide[dst] and not proof.split[dst],
+        **_split_view(a, b, shift, proof.split[dst]),
+    }
+
+
+def _split_view(a: str, b: str, shift: int, operand: str) -> dict[str, Any]:
     """The exact two-part form of a wide product: `hi` split at the shift, `by` the other operand."""
     if not operand:
         return {"split": False}
-    hi, by = (op.a, str(op.b)) if operand == "a" else (str(op.b), op.a)
-    return {"split": True, "hi": hi, "by": by, "mask": f"0x{(1 << op.shift) - 1:X}"}
+    hi, by = (a, b) if operand == "a" else (b, a)
+    return {"split": True, "hi": hi, "by": by, "mask": f"0x{(1 << shift) - 1:X}"}
 
 
 OPERANDS = ("a", "b", "src", "speed", "hi", "by")
@@ -300,10 +320,11 @@ GroupKey = tuple[str, bool, int | None]
 
 def _group_key(op: Op, tables: dict[str, dict[str, Any]]) -> GroupKey | None:
     """Lookups that may share one inline block: same input, same symmetry class, same split."""
-    if not isinstance(op, Lookup):
+    table = op_table(op)
+    if table is None:
         return None
-    t = tables[op.table]
-    return (op.src, t["symmetry"] != "none", t["split"])
+    t = tables[table]
+    return (op_inputs(op)[0], t["symmetry"] != "none", t["split"])
 
 
 def program_view(
@@ -330,7 +351,7 @@ def program_view(
             j += 1
         if key is not None and j - k > 1:
             members: list[dict[str, Any]] = [
-                {"dst": op.dst, "t": tables[op.table]} for op in ops[k:j] if isinstance(op, Lookup)
+                {"dst": op.dst, "t": tables[table]} for op in ops[k:j] if (table := op_table(op)) is not None
             ]
             needs_x = key[2] is not None or any(m["t"]["needs_x"] for m in members)
             views.append(

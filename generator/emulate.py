@@ -15,7 +15,7 @@ import numpy as np
 
 from . import fixedpoint as fx
 from . import tables as tb
-from .program import Backdrive, Clamp, Lookup, Mul, Op, Program, Store, Sum, split
+from .program import Backdrive, Clamp, Lookup, Mul, Op, Program, Scale, Store, Sum, split
 
 INT32 = (fx.word_min(32), fx.word_max(32))
 
@@ -48,9 +48,11 @@ def _step(
             table = tables[op.table]
             return np.asarray(tb.lookup(table, src) if exact else tb.lookup_real(table, src, mode))
         case Mul():
-            a = env[op.a]
-            b = env[op.b] if isinstance(op.b, str) else op.b
+            a, b = env[op.a], env[op.b]
             return np.asarray(fx.shift_round(a * b, op.shift) if exact else a * b * 2.0**-op.shift)
+        case Scale():
+            a = env[op.a]
+            return np.asarray(fx.shift_round(a * op.k, op.shift) if exact else a * op.k * 2.0**-op.shift)
         case Sum():
             (sign0, first), rest = op.terms[0], op.terms[1:]
             total = sign0 * env[first]
@@ -72,10 +74,17 @@ def _step(
             assert_never(op)
 
 
-def _flag(op: Clamp, inputs: Mapping[str, np.ndarray]) -> np.ndarray:
-    raw = _input(inputs, op)
-    _check32(op.field, raw)
-    return ((raw < op.lo) | (raw > op.hi)).astype(np.int64) << op.bit
+def _flag(op: Op, inputs: Mapping[str, np.ndarray]) -> np.ndarray | None:
+    """The clamp bit an op sets where its input was outside (only a Clamp reads an input)."""
+    match op:
+        case Clamp():
+            raw = _input(inputs, op)
+            _check32(op.field, raw)
+            return ((raw < op.lo) | (raw > op.hi)).astype(np.int64) << op.bit
+        case Lookup() | Mul() | Scale() | Sum() | Backdrive() | Store():
+            return None
+        case _:
+            assert_never(op)
 
 
 def run(
@@ -117,17 +126,15 @@ def run_ops(
 ) -> tuple[dict[str, list[np.ndarray]], np.ndarray | None]:
     """Evaluate some of a program's ops into env; returns the stored outputs and the clamp flags."""
     flags: np.ndarray | None = None
-    out: dict[str, list[np.ndarray]] = {m.name: [np.zeros(0)] * m.count for m in program.call.outputs.members}
     for op in ops:
-        if isinstance(op, Clamp):
-            bit = _flag(op, inputs)
+        bit = _flag(op, inputs)
+        if bit is not None:
             flags = bit if flags is None else flags | bit
         value = _step(op, env, tables, inputs, mode=mode)
-        if isinstance(op, Store):
-            out[op.field][op.index] = value
-            continue
         if mode == "int":
             value = np.asarray(value, dtype=np.int64)
             _check32(op.dst, value)
         env[op.dst] = value
+    st = program.call.outputs
+    out = {m.name: [env.get(c, np.zeros(0)) for c in m.columns] for m in st.members}
     return out, flags

@@ -43,11 +43,21 @@ class Lookup:
 
 @dataclass(frozen=True)
 class Mul:
-    """dst = round(a * b / 2^shift) (ties up) for shift > 0, a * b * 2^-shift otherwise; b a signal or constant."""
+    """dst = round(a * b / 2^shift) (ties up) for shift > 0, a * b * 2^-shift otherwise; a, b signals."""
 
     dst: str
     a: str
-    b: str | int
+    b: str
+    shift: int
+
+
+@dataclass(frozen=True)
+class Scale:
+    """dst = round(a * k / 2^shift) (ties up) for shift > 0, a * k * 2^-shift otherwise; k a constant."""
+
+    dst: str
+    a: str
+    k: int
     shift: int
 
 
@@ -71,15 +81,16 @@ class Backdrive:
 
 @dataclass(frozen=True)
 class Store:
-    """out.field[index] = round(src / 2^shift)."""
+    """out.field[index] = round(src / 2^shift); `dst` is that output's column name (`current_right`)."""
 
+    dst: str
     field: str
     index: int
     src: str
     shift: int
 
 
-Op = Clamp | Lookup | Mul | Sum | Backdrive | Store
+Op = Clamp | Lookup | Mul | Scale | Sum | Backdrive | Store
 """Every op kind. A new kind is added here, then wherever `assert_never` fails the type check:
 op_range (below), emulate.run, analysis.prove, analysis._error_step, cview._op_view, ff/ops.j2."""
 
@@ -92,7 +103,9 @@ def op_inputs(op: Op) -> tuple[str, ...]:
         case Lookup():
             return (op.src,)
         case Mul():
-            return (op.a, op.b) if isinstance(op.b, str) else (op.a,)
+            return (op.a, op.b)
+        case Scale():
+            return (op.a,)
         case Sum():
             return tuple(name for _, name in op.terms)
         case Backdrive():
@@ -123,17 +136,38 @@ def split(program: Program) -> Split:
     slow_names: set[str] = set()
     slow, fast = [], []
     for op in program.ops:
-        is_slow = (isinstance(op, Clamp) and op.field in SLOW_FIELDS) or (
-            not isinstance(op, (Clamp, Store)) and all(name in slow_names for name in op_inputs(op))
-        )
-        if is_slow:
+        if _is_slow(op, slow_names):
             slow.append(op)
-            slow_names.add(op.dst)  # type: ignore[union-attr]  # a slow op is never a Store
+            slow_names.add(op.dst)
         else:
             fast.append(op)
     used = {name for op in fast for name in op_inputs(op)}
-    state = tuple(op.dst for op in slow if op.dst in used)  # type: ignore[union-attr]
+    state = tuple(op.dst for op in slow if op.dst in used)
     return Split(tuple(slow), tuple(fast), state)
+
+
+def _is_slow(op: Op, slow_names: set[str]) -> bool:
+    """A clamp of a slow input, or an op reading only slow signals; outputs are written at the fast rate."""
+    match op:
+        case Clamp():
+            return op.field in SLOW_FIELDS
+        case Store():
+            return False
+        case Lookup() | Mul() | Scale() | Sum() | Backdrive():
+            return all(name in slow_names for name in op_inputs(op))
+        case _:
+            assert_never(op)
+
+
+def op_table(op: Op) -> str | None:
+    """The table an op looks up, if any."""
+    match op:
+        case Lookup():
+            return op.table
+        case Clamp() | Mul() | Scale() | Sum() | Backdrive() | Store():
+            return None
+        case _:
+            assert_never(op)
 
 
 def rounding_half(shift: int) -> int:
@@ -141,18 +175,18 @@ def rounding_half(shift: int) -> int:
     return (1 << (shift - 1)) if shift > 0 else 0
 
 
-def op_range(op: Op, rng: dict[str, fx.Interval], lookup: Callable[[Lookup], fx.Interval]) -> fx.Interval | None:
-    """The value range an op's result can take, from the ranges of its operands (None for a Store,
-    which writes an output instead of a signal). `lookup` gives a table's range: estimated while
-    building, exact once the tables are sized."""
+def op_range(op: Op, rng: dict[str, fx.Interval], lookup: Callable[[Lookup], fx.Interval]) -> fx.Interval:
+    """The value range an op's result can take, from the ranges of its operands. `lookup` gives a
+    table's range: estimated while building, exact once the tables are sized."""
     match op:
         case Clamp():
             return fx.Interval(op.lo, op.hi)
         case Lookup():
             return lookup(op)
         case Mul():
-            rb = rng[op.b] if isinstance(op.b, str) else fx.Interval(op.b, op.b)
-            return (rng[op.a] * rb).shift_round(op.shift)
+            return (rng[op.a] * rng[op.b]).shift_round(op.shift)
+        case Scale():
+            return (rng[op.a] * fx.Interval(op.k, op.k)).shift_round(op.shift)
         case Sum():
             total = fx.Interval(0, 0)
             for sign, name in op.terms:
@@ -162,7 +196,7 @@ def op_range(op: Op, rng: dict[str, fx.Interval], lookup: Callable[[Lookup], fx.
             r = rng[op.src]
             return r.hull((r * fx.Interval(op.k, op.k)).shift_round(op.shift))
         case Store():
-            return None
+            return rng[op.src].shift_round(op.shift)
         case _:
             assert_never(op)
 
@@ -235,9 +269,7 @@ class _Builder:
     def _add(self, op: Op) -> None:
         """Append an op and record its result's range by the one range rule (op_range)."""
         self.p.ops.append(op)
-        r = op_range(op, self.rng, self._estimate)
-        if r is not None:
-            self.rng[op.dst] = r  # type: ignore[union-attr]  # every op with a range has a dst
+        self.rng[op.dst] = op_range(op, self.rng, self._estimate)
 
     def _estimate(self, op: Lookup) -> fx.Interval:
         """A table's range before it is sized: its largest value, one step of margin."""
@@ -253,10 +285,10 @@ class _Builder:
         self._add(Lookup(dst, table, src))
         return dst
 
-    def mul(self, dst: str, a: str, b: str | int, shift: int) -> str:
+    def mul(self, dst: str, a: str, b: str, shift: int) -> str:
         """Product with rounding. Unless the design is exact, a product too wide for 32 bits first
         rounds its operands down (pre-shift), balanced to add the least error (the bound counts it)."""
-        if isinstance(b, str) and not self.exact and shift > 0:
+        if not self.exact and shift > 0:
             pa, pb = _preshift(self.rng[a], self.rng[b], shift)
             a = self._shifted(a, pa) if pa else a
             b = self._shifted(b, pb) if pb else b
@@ -280,7 +312,12 @@ class _Builder:
     def _shifted(self, src: str, pre: int) -> str:
         """src rounded down by `pre` bits, computed once however many products use it."""
         name = f"{src}_s{pre}"
-        return name if name in self.rng else self.mul(name, src, 1, pre)
+        return name if name in self.rng else self.scale(name, src, 1, pre)
+
+    def scale(self, dst: str, a: str, k: int, shift: int) -> str:
+        """a times the constant k, with rounding (shift > 0) or scaled up (shift < 0)."""
+        self._add(Scale(dst, a, k, shift))
+        return dst
 
     def sum(self, dst: str, *terms: tuple[int, str]) -> str:
         self._add(Sum(dst, tuple(terms)))
@@ -300,7 +337,7 @@ class _Builder:
         return dst
 
     def store(self, fieldname: str, index: int, src: str, shift: int) -> None:
-        self._add(Store(fieldname, index, src, shift))
+        self._add(Store(f"{fieldname}_{interface.SIDES[index]}", fieldname, index, src, shift))
 
 
 def _fits32(prod: fx.Interval, shift: int) -> bool:
@@ -542,7 +579,7 @@ def _passive(bd: _Builder, side: str, sign: int, other: str) -> str:
     bd.mul(f"cor_{side}", "cor_pre", f"speed_{other}", bd.cor_shift)
     bd.lookup(f"t_fric_{side}", "friction", u)  # adjacent lookups of one input share abs and split in C
     bd.lookup(f"t_shape_{side}", "shape", u)
-    bd.mul(f"fric_{side}", f"t_fric_{side}", 1, s["friction"].frac_bits)
+    bd.scale(f"fric_{side}", f"t_fric_{side}", 1, s["friction"].frac_bits)
     bd.mul(f"roll_{side}", "r_level", f"t_shape_{side}", s["shape"].frac_bits)
     return bd.sum(
         f"passive_{side}",
@@ -581,7 +618,7 @@ def _forward(
     bd.lookup("t_minv12", "minv12", "payload")
     for side, sign, other in (("r", 1, "l"), ("l", -1, "r")):
         passive = _passive(bd, side, sign, other)
-        bd.mul(f"cur_acc_{side}", f"cur_{side}", 1, -guard)
+        bd.scale(f"cur_acc_{side}", f"cur_{side}", 1, -guard)
         bd.backdrive(
             f"effort_{side}",
             f"cur_acc_{side}",

@@ -19,7 +19,7 @@ import numpy as np
 from . import analysis
 from . import tables as tb
 from .errors import CheckFailed
-from .program import Lookup, Program
+from .program import Program, op_table
 
 Bound = Callable[[Mapping[str, Any]], Any]
 
@@ -93,9 +93,7 @@ class Sizing:
 
 
 def units_for(specs: Mapping[str, tb.TableSpec], names: list[str], program: Program | None = None) -> list[Unit]:
-    counts = (
-        {n: sum(1 for op in program.ops if isinstance(op, Lookup) and op.table == n) for n in names} if program else {}
-    )
+    counts = {n: sum(1 for op in program.ops if op_table(op) == n) for n in names} if program else {}
     return [
         Unit(n, k, tb.piece_candidates(specs[n], p), specs[n].bits // 8, max(1, counts.get(n, 1)))
         for n in names

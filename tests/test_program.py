@@ -68,7 +68,7 @@ def test_error_propagation_rules_on_a_small_program():
             program.Lookup("t_x", "t", "x"),
             program.Mul("p", "t_x", "x", 4),
             program.Sum("s", ((1, "p"), (-1, "p"))),
-            program.Store("current", 0, "s", 2),
+            program.Store("current_right", "current", 0, "s", 2),
         ],
     )
     scale = 2.0**spec.frac_bits

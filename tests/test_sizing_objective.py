@@ -79,7 +79,7 @@ def test_instruction_objective_on_the_demo_trades_bytes_for_instructions_within_
 
 def _instructions(fw: synthesis.Firmware) -> int:
     """The cost model summed over the feed-forward's lookups (as the sizing counts them)."""
-    tables = [op.table for op in fw.design.feedforward.ops if isinstance(op, program.Lookup)]
+    tables = [t for op in fw.design.feedforward.ops if (t := program.op_table(op)) is not None]
     return sum(sizing.piece_instructions(d) for t in tables for d in fw.tables[t].pieces)
 
 
