@@ -142,12 +142,12 @@ def measure(fw: Firmware, count: int = 100_000, seed: int = 7) -> Accuracy:
     err = got - ref
     k, side = np.unravel_index(int(np.argmax(np.abs(err))), err.shape)
     return Accuracy(
-        len(inp["pitch"]),
-        _stat(err),
-        _stat(interp - ref),
-        _stat(quant - interp),
-        _stat(got - quant),
-        _describe(fw, inp, int(k), int(side)),
-        _clamping(fw, seed),
-        _input_resolution(fw, inp),
+        points=len(inp["pitch"]),
+        total=_stat(err),
+        interpolation=_stat(interp - ref),
+        quantisation=_stat(quant - interp),
+        arithmetic=_stat(got - quant),
+        where=_describe(fw, inp, int(k), int(side)),
+        clamping=_clamping(fw, seed),
+        input_resolution=_input_resolution(fw, inp),
     )

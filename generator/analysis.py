@@ -15,7 +15,7 @@ import numpy as np
 from . import fixedpoint as fx
 from . import tables as tb
 from .errors import CheckFailed
-from .program import (
+from .ops import (
     Backdrive,
     Clamp,
     Lookup,
@@ -124,7 +124,9 @@ def prove(program: Program, tables: Mapping[str, tb.Table]) -> Proof:
         outputs.update({(m.name, k): rng.pop(column) for k, column in enumerate(m.columns)})
     lookup_wide = {name: tuple(_interp_wide(p) for p in t.pieces) for name, t in tables.items()}
     lookup_split = {name: tuple(_interp_split(p) for p in t.pieces) for name, t in tables.items()}
-    return Proof(rng, wide, split, lookup_wide, lookup_split, outputs)
+    return Proof(
+        ranges=rng, wide=wide, split=split, lookup_wide=lookup_wide, lookup_split=lookup_split, outputs=outputs
+    )
 
 
 def _with_half(prod: fx.Interval, shift: int) -> fx.Interval:

@@ -14,7 +14,7 @@ from . import fixedpoint as fx
 from . import tables as tb
 from .analysis import Proof
 from .cformat import num, rows, wrap
-from .program import (
+from .ops import (
     Backdrive,
     Clamp,
     Lookup,
@@ -62,36 +62,6 @@ def _sources(fw: Firmware) -> dict[str, Source]:
         "payload": Source(f.mass_lsb_kg, "kg"),
         "current": Source(f.current_lsb_a, "A"),
     }
-
-
-MODEL_KEYS = {
-    "payload": (
-        "body.mass",
-        "body.cog_ahead",
-        "body.cog_height",
-        "body.gyration_radius",
-        "payload.mass_max",
-        "payload.cog_ahead",
-        "payload.cog_height",
-        "payload.gyration_radius",
-        "wheels.track",
-    ),
-    "pitch": ("firmware.angle_lsb", "envelope.pitch_max"),
-    "roll": ("firmware.angle_lsb", "envelope.roll_max"),
-    "speed": (
-        "friction.coulomb",
-        "friction.breakaway",
-        "friction.stribeck_speed",
-        "friction.viscous",
-        "friction.deadband",
-        "friction.deadband_shape",
-    ),
-}
-EXTRA_KEYS = {
-    "m11": ("wheels.diameter", "wheels.inertia", "drive.gear_ratio", "drive.rotor_inertia"),
-    "roll_level": ("wheels.rolling_resistance", "casters.rolling_resistance", "casters.behind_axle"),
-    "roll_slope": ("wheels.rolling_resistance", "casters.rolling_resistance", "casters.behind_axle"),
-}
 
 
 def _model_value(fw: Firmware, dotted: str) -> str:
@@ -156,14 +126,6 @@ def _fold_view(data: tb.PieceData) -> dict[str, int] | None:
     return None if folded is None else {"scale": 1 << data.shift}
 
 
-def _model_keys(name: str, source: str) -> tuple[str, ...]:
-    """The model keys a table's values come from, for its comment."""
-    if name == "shape":
-        return ("friction.deadband", "friction.deadband_shape")
-    extra = EXTRA_KEYS.get(name, EXTRA_KEYS["m11"] if name in ("m12", "minv11", "minv12") else ())
-    return MODEL_KEYS[source] + extra
-
-
 def table_view(fw: Firmware, name: str, prefix: str) -> dict[str, Any]:
     """Everything the templates print about one table: arrays, lookup constants, comments."""
     table = fw.tables[name]
@@ -183,7 +145,7 @@ def table_view(fw: Firmware, name: str, prefix: str) -> dict[str, Any]:
         "input": spec.source,
         "input_lsb": f"{num(src.lsb)} {src.unit}",
         "pieces": [_piece_view(fw, name, prefix, k) for k in range(len(table.pieces))],
-        "models": wrap([_model_value(fw, key) for key in _model_keys(name, spec.source)]),
+        "models": wrap([_model_value(fw, key) for key in spec.model_keys]),
         "bytes": table.bytes,
         "lo": spec.pieces[0].x0,
         "hi": spec.pieces[-1].x1,

@@ -76,7 +76,7 @@ def combined(v: Vehicle, payload_kg: ArrayLike) -> Combined:
     c = (b.mass_kg * b.cog_ahead_m + p * q.cog_ahead_m) / m
     h = (b.mass_kg * b.cog_height_m + p * q.cog_height_m) / m
     inertia = b.mass_kg * (b.gyration_radius_m**2 + b.cog_ahead_m**2) + p * (q.gyration_radius_m**2 + q.cog_ahead_m**2)
-    return Combined(m, c, h, inertia)
+    return Combined(mass_kg=m, cog_ahead_m=c, cog_height_m=h, yaw_inertia_kgm2=inertia)
 
 
 def reflected_mass(v: Vehicle) -> float:
@@ -314,7 +314,11 @@ def rig_wheel_forces(v: Vehicle, op: OperatingPoint, rig: str) -> tuple[WheelFor
     sides = []
     for speed, accel in ((op.speed_right, op.accel_right), (op.speed_left, op.accel_left)):
         inertia = m_rot * np.asarray(accel, float) + zero
-        sides.append(WheelForces(inertia, zero, drivetrain_friction(v, speed), zero, zero))
+        sides.append(
+            WheelForces(
+                inertia=inertia, coriolis=zero, friction=drivetrain_friction(v, speed), rolling=zero, gravity=zero
+            )
+        )
     return sides[0], sides[1]
 
 

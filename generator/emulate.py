@@ -15,7 +15,7 @@ import numpy as np
 
 from . import fixedpoint as fx
 from . import tables as tb
-from .program import Backdrive, Clamp, Lookup, Mul, Op, Program, Scale, Store, Sum, split
+from .ops import Backdrive, Clamp, Lookup, Mul, Op, Program, Scale, Store, Sum, split
 
 INT32 = (fx.word_min(32), fx.word_max(32))
 

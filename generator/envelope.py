@@ -74,10 +74,10 @@ def margins(v: Vehicle, op: OperatingPoint) -> tuple[Margins, Margins]:
         voltage = dynamics.motor_voltage(v, current, speed)
         out.append(
             Margins(
-                np.abs(current) / v.drive.current_limit_a,
-                dynamics.traction_use(v, side, accel, drive_load),
-                np.abs(voltage) / v.drive.supply_voltage_v,
-                tip,
+                current=np.abs(current) / v.drive.current_limit_a,
+                traction=dynamics.traction_use(v, side, accel, drive_load),
+                voltage=np.abs(voltage) / v.drive.supply_voltage_v,
+                tipping=tip,
             )
         )
     return out[0], out[1]
@@ -136,7 +136,7 @@ def payload_row(v: Vehicle, payload: float) -> PayloadRow:
     )
     climb = _largest(lambda th: _straight(v, payload, th, roll, accel=env.accel_max_mps2, speeds=speeds), PITCH_CEILING)
     accel = _largest(lambda a: _straight(v, payload, env.pitch_max_rad, roll, accel=a, speeds=speeds), 50.0)
-    return PayloadRow(payload, hold, climb, accel)
+    return PayloadRow(payload_kg=payload, hold_pitch_rad=hold, climb_pitch_rad=climb, accel_on_pitch_max_mps2=accel)
 
 
 def _corner_values(v: Vehicle, m: interface.Member) -> tuple[float, ...]:
@@ -202,4 +202,6 @@ def analyse(v: Vehicle) -> EnvelopeReport:
     """Rows per payload plus peak current/voltage/traction over the envelope corners."""
     rows = [payload_row(v, float(p)) for p in np.linspace(0, v.payload.mass_max_kg, PAYLOAD_STEPS)]
     current, voltage, traction, problems = corner_peaks(v)
-    return EnvelopeReport(rows, current, voltage, traction, problems)
+    return EnvelopeReport(
+        rows=rows, peak_current=current, peak_voltage=voltage, peak_traction=traction, problems=problems
+    )

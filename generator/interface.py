@@ -213,8 +213,8 @@ class Call:
         return [(f"{prefix.upper()}_{self.clamp_tag}_{c.upper()}", 1 << k) for k, c in enumerate(self.inputs.columns)]
 
 
-FEEDFORWARD = Call("feedforward", FF_IN, FF_OUT, "CLAMPED")
-FORWARD = Call("forward", FWD_IN, FWD_OUT, "FWD_CLAMPED")
+FEEDFORWARD = Call(name="feedforward", inputs=FF_IN, outputs=FF_OUT, clamp_tag="CLAMPED")
+FORWARD = Call(name="forward", inputs=FWD_IN, outputs=FWD_OUT, clamp_tag="FWD_CLAMPED")
 CALLS = (FEEDFORWARD, FORWARD)
 
 
@@ -230,7 +230,7 @@ def file_names(prefix: str) -> dict[str, str]:
 
 
 def edges(limits: Any, member: Member) -> tuple[int, int]:
-    """The member's envelope in steps, from a `program.Limits`: (-limit, limit), or (0, limit)."""
+    """The member's envelope in steps, from a `tablespecs.Limits`: (-limit, limit), or (0, limit)."""
     hi = int(getattr(limits, member.limit))
     return (-hi if member.signed else 0), hi
 

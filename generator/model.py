@@ -64,7 +64,7 @@ def _key(
     choices: tuple[str, ...] = (),
 ) -> Key:
     check, expect = rng if rng is not None else (None, "")
-    return Key(kind, field, default, check, expect, meaning, choices)
+    return Key(kind=kind, field=field, default=default, check=check, expect=expect, meaning=meaning, choices=choices)
 
 
 def _eff() -> tuple[Callable[[float], bool], str]:
@@ -353,7 +353,7 @@ def _firmware_steps(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any])
 
 def _deadband_rules(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any]) -> None:
     """The deadband ends below speed_max. In steps it then ends at least one step below the envelope
-    edge, which rounds up while the deadband edge rounds down (program.limits_of)."""
+    edge, which rounds up while the deadband edge rounds down (tablespecs.limits_of)."""
     fr, env = s["friction"], s["envelope"]
     if fr["deadband"] >= env["speed_max"]:
         raise ModelError(

@@ -1,229 +1,33 @@
-"""The firmware feed-forward as a straight-line integer program: the specification the C follows.
-
-The builder turns a vehicle into table specs and two op lists (feed-forward and forward dynamics).
-Python decides every Q format, shift and constant here; the emulator interprets the ops, the
-analysis proves them, and the templates print one C statement per op.
+"""The builder of the firmware programs: the feed-forward and forward dynamics as straight-line
+integer programs over the tables (tablespecs.py), in the op vocabulary (ops.py). Python decides every
+Q format, shift and constant here; the C follows the ops one statement each.
 """
 
 from __future__ import annotations
 
 import math
-from collections.abc import Callable
-from dataclasses import dataclass, field
-from typing import assert_never
+from dataclasses import dataclass
 
-import numpy as np
-
-from . import dynamics, interface
 from . import fixedpoint as fx
+from . import interface
 from . import tables as tb
+from .ops import (
+    Backdrive,
+    Clamp,
+    Lookup,
+    Mul,
+    Op,
+    Program,
+    Scale,
+    Store,
+    Sum,
+    fits32,
+    op_range,
+    rounding_half,
+    split_fits,
+)
+from .tablespecs import Limits, limits_of, specs_for
 from .vehicle import Vehicle
-
-INT32_MAX = fx.word_max(32)
-
-
-@dataclass(frozen=True)
-class Clamp:
-    """dst = in.field[index] clamped to [lo, hi]; flags |= bit when it was outside."""
-
-    dst: str
-    field: str
-    index: int | None
-    lo: int
-    hi: int
-    bit: int
-
-
-@dataclass(frozen=True)
-class Lookup:
-    dst: str
-    table: str
-    src: str
-
-
-@dataclass(frozen=True)
-class Mul:
-    """dst = round(a * b / 2^shift) (ties up) for shift > 0, a * b * 2^-shift otherwise; a, b signals."""
-
-    dst: str
-    a: str
-    b: str
-    shift: int
-
-
-@dataclass(frozen=True)
-class Scale:
-    """dst = round(a * k / 2^shift) (ties up) for shift > 0, a * k * 2^-shift otherwise; k a constant."""
-
-    dst: str
-    a: str
-    k: int
-    shift: int
-
-
-@dataclass(frozen=True)
-class Sum:
-    dst: str
-    terms: tuple[tuple[int, str], ...]  # (+1 or -1, signal)
-
-
-@dataclass(frozen=True)
-class Backdrive:
-    """dst = src when src and speed do not oppose, else round(src * k / 2^shift)."""
-
-    dst: str
-    src: str
-    speed: str
-    k: int
-    shift: int
-    k_exact: float
-
-
-@dataclass(frozen=True)
-class Store:
-    """out.field[index] = round(src / 2^shift); `dst` is that output's column name (`current_right`)."""
-
-    dst: str
-    field: str
-    index: int
-    src: str
-    shift: int
-
-
-Op = Clamp | Lookup | Mul | Scale | Sum | Backdrive | Store
-"""Every op kind. A new kind is added here, then wherever `assert_never` fails the type check:
-op_range (below), emulate.run, analysis.prove, analysis._error_step, cview._op_view, ff/ops.j2."""
-
-
-def op_inputs(op: Op) -> tuple[str, ...]:
-    """The signals an op reads (a Clamp reads an input field, not a signal)."""
-    match op:
-        case Clamp():
-            return ()
-        case Lookup():
-            return (op.src,)
-        case Mul():
-            return (op.a, op.b)
-        case Scale():
-            return (op.a,)
-        case Sum():
-            return tuple(name for _, name in op.terms)
-        case Backdrive():
-            return (op.src, op.speed)
-        case Store():
-            return (op.src,)
-        case _:
-            assert_never(op)
-
-
-SLOW_FIELDS = ("pitch", "roll", "payload")
-"""Inputs that change slowly (an inclination filter at tens of hertz, a payload once per load)."""
-
-
-@dataclass(frozen=True)
-class Split:
-    """A program in two rates: the ops that depend only on the slow inputs, the rest, and the slow
-    signals the fast ops read (the state the slow part hands over, in program order)."""
-
-    slow: tuple[Op, ...]
-    fast: tuple[Op, ...]
-    state: tuple[str, ...]
-
-
-def split(program: Program) -> Split:
-    """Partition the ops by dataflow: an op is slow when it clamps a slow input or reads only slow
-    signals. Running the slow ops, then the fast ones, is the same program: the same integers."""
-    slow_names: set[str] = set()
-    slow, fast = [], []
-    for op in program.ops:
-        if _is_slow(op, slow_names):
-            slow.append(op)
-            slow_names.add(op.dst)
-        else:
-            fast.append(op)
-    used = {name for op in fast for name in op_inputs(op)}
-    state = tuple(op.dst for op in slow if op.dst in used)
-    return Split(tuple(slow), tuple(fast), state)
-
-
-def _is_slow(op: Op, slow_names: set[str]) -> bool:
-    """A clamp of a slow input, or an op reading only slow signals; outputs are written at the fast rate."""
-    match op:
-        case Clamp():
-            return op.field in SLOW_FIELDS
-        case Store():
-            return False
-        case Lookup() | Mul() | Scale() | Sum() | Backdrive():
-            return all(name in slow_names for name in op_inputs(op))
-        case _:
-            assert_never(op)
-
-
-def op_table(op: Op) -> str | None:
-    """The table an op looks up, if any."""
-    match op:
-        case Lookup():
-            return op.table
-        case Clamp() | Mul() | Scale() | Sum() | Backdrive() | Store():
-            return None
-        case _:
-            assert_never(op)
-
-
-def rounding_half(shift: int) -> int:
-    """What "add half, then shift right" adds: 2^(shift-1) for shift > 0, else nothing."""
-    return (1 << (shift - 1)) if shift > 0 else 0
-
-
-def op_range(op: Op, rng: dict[str, fx.Interval], lookup: Callable[[Lookup], fx.Interval]) -> fx.Interval:
-    """The value range an op's result can take, from the ranges of its operands. `lookup` gives a
-    table's range: estimated while building, exact once the tables are sized."""
-    match op:
-        case Clamp():
-            return fx.Interval(op.lo, op.hi)
-        case Lookup():
-            return lookup(op)
-        case Mul():
-            return (rng[op.a] * rng[op.b]).shift_round(op.shift)
-        case Scale():
-            return (rng[op.a] * fx.Interval(op.k, op.k)).shift_round(op.shift)
-        case Sum():
-            total = fx.Interval(0, 0)
-            for sign, name in op.terms:
-                total = total + (rng[name] if sign > 0 else -rng[name])
-            return total
-        case Backdrive():
-            r = rng[op.src]
-            return r.hull((r * fx.Interval(op.k, op.k)).shift_round(op.shift))
-        case Store():
-            return rng[op.src].shift_round(op.shift)
-        case _:
-            assert_never(op)
-
-
-@dataclass
-class Program:
-    """One C function (its structs described in `interface`) as a list of ops."""
-
-    call: interface.Call
-    ops: list[Op] = field(default_factory=list)
-
-    @property
-    def name(self) -> str:
-        return self.call.name
-
-
-@dataclass(frozen=True)
-class Limits:
-    """Envelope edges in firmware steps (see limits_of)."""
-
-    speed: int
-    accel: int
-    pitch: int
-    roll: int
-    payload: int
-    deadband: int
-    current: int
 
 
 @dataclass
@@ -239,23 +43,6 @@ class Design:
     accel_guard_bits: int
     amps_per_acc: float
     exact: bool = False  # products keep every operand bit (see design)
-
-
-def limits_of(v: Vehicle) -> Limits:
-    """Envelope edges in steps, each containing its stated limit (rounded up), so an input of exactly the
-    limit is inside; the deadband edge is the last step inside the deadband (rounded down)."""
-    fw, env = v.firmware, v.envelope
-    lim = Limits(
-        speed=fx.steps_covering(env.speed_max_mps, fw.speed_lsb_mps),
-        accel=fx.steps_covering(env.accel_max_mps2, fw.accel_lsb_mps2),
-        pitch=fx.steps_covering(env.pitch_max_rad, fw.angle_lsb_rad),
-        roll=fx.steps_covering(env.roll_max_rad, fw.angle_lsb_rad),
-        payload=fx.steps_covering(v.payload.mass_max_kg, fw.mass_lsb_kg),
-        deadband=fx.steps_within(v.friction.deadband_mps, fw.speed_lsb_mps),
-        current=fx.steps_covering(v.drive.current_limit_a, fw.current_lsb_a),
-    )
-    assert lim.deadband < lim.speed, "the loader keeps the deadband below speed_max"
-    return lim
 
 
 class _Builder:
@@ -278,7 +65,7 @@ class _Builder:
         return fx.Interval(-top, top)
 
     def clamp(self, dst: str, fieldname: str, index: int | None, *, lo: int, hi: int, bit: int) -> str:
-        self._add(Clamp(dst, fieldname, index, lo, hi, bit))
+        self._add(Clamp(dst=dst, field=fieldname, index=index, lo=lo, hi=hi, bit=bit))
         return dst
 
     def lookup(self, dst: str, table: str, src: str) -> str:
@@ -293,14 +80,14 @@ class _Builder:
             a = self._shifted(a, pa) if pa else a
             b = self._shifted(b, pb) if pb else b
             shift -= pa + pb
-        self._add(Mul(dst, a, b, shift))
+        self._add(Mul(dst=dst, a=a, b=b, shift=shift))
         return dst
 
     def product(self, dst: str, a: str, b: str) -> tuple[str, int]:
         """a * b kept in 32 bits: when the exact product could not fit, the operands are rounded down
         first (one bit at a time from the larger); returns the product and the bits dropped in all."""
         ka = kb = 0
-        while not _fits32(self.rng[a].shift_round(ka) * self.rng[b].shift_round(kb), 0):
+        while not fits32(self.rng[a].shift_round(ka) * self.rng[b].shift_round(kb), 0):
             if self.rng[a].shift_round(ka).magnitude() >= self.rng[b].shift_round(kb).magnitude():
                 ka += 1
             else:
@@ -316,7 +103,7 @@ class _Builder:
 
     def scale(self, dst: str, a: str, k: int, shift: int) -> str:
         """a times the constant k, with rounding (shift > 0) or scaled up (shift < 0)."""
-        self._add(Scale(dst, a, k, shift))
+        self._add(Scale(dst=dst, a=a, k=k, shift=shift))
         return dst
 
     def sum(self, dst: str, *terms: tuple[int, str]) -> str:
@@ -333,191 +120,37 @@ class _Builder:
         while not (self.bits == 16 or self.exact) and kbits > 1 and not _k_fits(self.rng[src], k_exact, kbits):
             kbits -= 1
         k = int(math.floor(k_exact * 2.0**kbits + 0.5))
-        self._add(Backdrive(dst, src, speed, k, kbits, k_exact))
+        self._add(Backdrive(dst=dst, src=src, speed=speed, k=k, shift=kbits, k_exact=k_exact))
         return dst
 
     def store(self, fieldname: str, index: int, src: str, shift: int) -> None:
-        self._add(Store(f"{fieldname}_{interface.SIDES[index]}", fieldname, index, src, shift))
-
-
-def _fits32(prod: fx.Interval, shift: int) -> bool:
-    half = rounding_half(shift)
-    return prod.lo >= -INT32_MAX - 1 and prod.hi + half <= INT32_MAX
-
-
-def split_fits(x: fx.Interval, y: fx.Interval, shift: int) -> bool:
-    """round(x * y / 2^s) = (x >> s) * y + (((x & (2^s - 1)) * y + half) >> s) exactly (x = (x >> s) 2^s +
-    its low bits); usable when both partial products fit 32 bits: no 64-bit multiply, which is a library
-    call on Cortex-M0+."""
-    if shift <= 0:
-        return False
-    high = fx.Interval(x.lo >> shift, x.hi >> shift) * y
-    low = fx.Interval(0, (1 << shift) - 1) * y
-    return high.fits(32) and _fits32(low, shift)
+        self._add(
+            Store(dst=f"{fieldname}_{interface.SIDES[index]}", field=fieldname, index=index, src=src, shift=shift)
+        )
 
 
 def _k_fits(src: fx.Interval, k_exact: float, kbits: int) -> bool:
     """Whether src * k (k_exact with kbits fraction bits) fits 32 bits directly or split at kbits."""
     k = fx.Interval(*(2 * [int(math.floor(k_exact * 2.0**kbits + 0.5))]))
-    return _fits32(src * k, kbits) or split_fits(src, k, kbits)
+    return fits32(src * k, kbits) or split_fits(src, k, kbits)
 
 
 def _preshift(ra: fx.Interval, rb: fx.Interval, shift: int) -> tuple[int, int]:
     """Bits (pa, pb) to round a and b down by, pa + pb <= shift, so that the product fits 32 bits,
     choosing the pair that adds the least error (|b| 2^(pa-1) + |a| 2^(pb-1)); (0, 0) when the product
     fits as it is or no pair makes it fit (the proof then picks an exact two-part or 64-bit form)."""
-    if _fits32(ra * rb, shift):
+    if fits32(ra * rb, shift):
         return 0, 0
     best: tuple[int, int, int] | None = None
     for pa in range(shift + 1):
         sa = ra.shift_round(pa)
         for pb in range(shift - pa + 1):
-            if _fits32(sa * rb.shift_round(pb), shift - pa - pb):
+            if fits32(sa * rb.shift_round(pb), shift - pa - pb):
                 cost = rb.magnitude() * rounding_half(pa) + ra.magnitude() * rounding_half(pb)
                 if best is None or cost < best[0]:
                     best = (cost, pa, pb)
                 break  # rounding b further only adds error
     return (best[1], best[2]) if best is not None else (0, 0)
-
-
-def _speed_pieces(v: Vehicle, lim: Limits, scale: float) -> tuple[tb.Piece, tb.Piece, tb.Piece, tb.Piece]:
-    """Friction and deadband-shape pieces of |u| in steps, split exactly at the deadband edge; each
-    piece's function continues smoothly past its end (breakpoints may sit there)."""
-    lsb = v.firmware.speed_lsb_mps
-
-    def inside(x: np.ndarray) -> np.ndarray:
-        return dynamics.deadband_inside(v, x * lsb)
-
-    fric_in = tb.Piece(
-        0, lim.deadband, lambda x: dynamics.friction_force(v, x * lsb, inside(x)) * scale, "inside the deadband"
-    )
-    fric_out = tb.Piece(
-        lim.deadband + 1, lim.speed, lambda x: dynamics.friction_force(v, x * lsb, 1.0) * scale, "outside the deadband"
-    )
-    shape_in = tb.Piece(0, lim.deadband, inside, "inside the deadband")
-    shape_out = tb.Piece(lim.deadband + 1, lim.speed, lambda x: np.ones(np.shape(x)), "outside the deadband")
-    return fric_in, fric_out, shape_in, shape_out
-
-
-@dataclass(frozen=True)
-class _Row:
-    """One table: its input, symmetry, pieces, stored unit and meaning, SI scale and unit."""
-
-    source: str
-    symmetry: str
-    pieces: tuple[tb.Piece, ...]
-    unit: str
-    meaning: str
-    si_scale: float
-    si_unit: str
-
-
-SYMBOLS = "(m: vehicle plus payload, c: their CoG ahead of P, b: half track)"
-
-
-def _payload_rows(v: Vehicle, lim: Limits, k: float) -> dict[str, _Row]:
-    """Payload tables: the dynamics' coefficients scaled to accumulator steps (k per newton)."""
-    fw = v.firmware
-    per_accel, per_speed2 = fw.accel_lsb_mps2 * k, fw.speed_lsb_mps**2 * k
-    acc = "accumulator step"
-
-    def row(f: Callable[[np.ndarray], np.ndarray], scale: float, unit: str, *, meaning: str, si: str) -> _Row:
-        """A one-piece payload table of f(payload in kg) * scale."""
-        piece = tb.Piece(0, lim.payload, lambda x: f(x * fw.mass_lsb_kg) * scale)
-        return _Row("payload", "none", (piece,), unit, meaning, 1 / scale, si)
-
-    def mass(entry: int) -> Callable[[np.ndarray], np.ndarray]:
-        return lambda p: dynamics.mass_matrix_entries(v, p)[entry]
-
-    def grav(entry: int) -> Callable[[np.ndarray], np.ndarray]:
-        return lambda p: dynamics.gravity_coefficients(v, p)[entry]
-
-    def rolling(entry: int) -> Callable[[np.ndarray], np.ndarray]:
-        return lambda p: dynamics.rolling_coefficients(v, p)[entry]
-
-    return {
-        "m11": row(mass(0), per_accel, f"{acc} per accel step", meaning="mass matrix M11 = M22", si="kg"),
-        "m12": row(mass(1), per_accel, f"{acc} per accel step", meaning="mass matrix M12 = M21", si="kg"),
-        "cor": row(
-            lambda p: dynamics.coriolis_coefficient(v, p),
-            per_speed2,
-            f"{acc} per speed step^2",
-            meaning=f"Coriolis coefficient m c / (4 b^2) {SYMBOLS}",
-            si="kg/m",
-        ),
-        "grav_pitch": row(grav(0), k, f"{acc} at sin = 1", meaning="gravity m g / 2 (m: vehicle plus payload)", si="N"),
-        "grav_roll": row(
-            grav(1),
-            k,
-            f"{acc} at cos*sin = 1",
-            meaning=f"roll gravity m c g / (2 b) {SYMBOLS}",
-            si="N",
-        ),
-        "roll_level": row(
-            rolling(0), k, f"{acc} at cos*cos = 1", meaning="rolling resistance on cos(pitch) cos(roll)", si="N"
-        ),
-        "roll_slope": row(
-            rolling(1), k, f"{acc} at sin = 1", meaning="rolling-resistance load transfer on sin(pitch)", si="N"
-        ),
-    }
-
-
-def _angle_rows(v: Vehicle, lim: Limits) -> dict[str, _Row]:
-    ang = v.firmware.angle_lsb_rad
-    rows = {}
-    for name, source, top in (("pitch", "pitch", lim.pitch), ("roll", "roll", lim.roll)):
-        rows[f"sin_{name}"] = _Row(
-            source, "odd", (tb.Piece(0, top, lambda x: np.sin(x * ang)),), "1", f"sin({name})", 1.0, "1"
-        )
-        rows[f"cos_{name}"] = _Row(
-            source, "even", (tb.Piece(0, top, lambda x: np.cos(x * ang)),), "1", f"cos({name})", 1.0, "1"
-        )
-    return {n: rows[n] for n in ("sin_pitch", "cos_pitch", "sin_roll", "cos_roll")}
-
-
-def _specs(v: Vehicle, lim: Limits, acc_amps: float) -> dict[str, tb.TableSpec]:
-    """Every table's function, in units that make each product land on the accumulator scale."""
-    fw, bits = v.firmware, fx.WORD_BITS[v.firmware.word]
-    k = dynamics.motor_gain(v) / acc_amps  # accumulator steps per newton at the rim
-    fric_in, fric_out, shape_in, shape_out = _speed_pieces(v, lim, k)
-    inv = acc_amps / dynamics.motor_gain(v) / fw.accel_lsb_mps2  # accel steps per (1/kg * accumulator step)
-
-    def minv(entry: int) -> tb.Func:
-        return lambda x: dynamics.inverse_mass_matrix_entries(v, x * fw.mass_lsb_kg)[entry] * inv
-
-    payload = _payload_rows(v, lim, k)
-    rows = {n: payload[n] for n in ("m11", "m12", "cor", "grav_pitch", "grav_roll", "roll_level", "roll_slope")}
-    rows |= _angle_rows(v, lim)
-    rows["friction"] = _Row(
-        "speed", "odd", (fric_in, fric_out), "accumulator step", "drivetrain friction F(u)", 1 / k, "N"
-    )
-    rows["shape"] = _Row(
-        "speed", "odd", (shape_in, shape_out), "1", f"deadband shape s(u), {v.friction.deadband_shape}", 1.0, "1"
-    )
-    for entry in (0, 1):
-        rows[f"minv1{entry + 1}"] = _Row(
-            "payload",
-            "none",
-            (tb.Piece(0, lim.payload, minv(entry)),),
-            "accel step per accumulator step",
-            f"inverse mass matrix entry 1{entry + 1}",
-            1 / inv,
-            "1/kg",
-        )
-    return {
-        name: tb.make_spec(
-            name,
-            r.source,
-            r.symmetry,
-            r.pieces,
-            bits=bits,
-            unit=r.unit,
-            meaning=r.meaning,
-            si_scale=r.si_scale,
-            si_unit=r.si_unit,
-        )
-        for name, r in rows.items()
-    }
 
 
 SIGNAL = {
@@ -644,7 +277,7 @@ def _guard_bits(peak_steps: float, top: int = 16) -> int:
 def _peak_current_steps(v: Vehicle, lim: Limits) -> float:
     """An upper bound of |accumulated motoring current| in current steps, from term maxima."""
     fw = v.firmware
-    specs = _specs(v, lim, fw.current_lsb_a)
+    specs = specs_for(v, lim, fw.current_lsb_a)
     mx = {n: s.max_abs for n, s in specs.items()}
     a, u = lim.accel, lim.speed
     return (
@@ -668,17 +301,17 @@ def design(v: Vehicle, *, exact: bool = False) -> Design:
     peak = _peak_current_steps(v, lim)
     guard = _guard_bits(peak)
     acc_amps = fw.current_lsb_a * 2.0**-guard
-    specs = _specs(v, lim, acc_amps)
+    specs = specs_for(v, lim, acc_amps)
     accel_peak = (specs["minv11"].max_abs + specs["minv12"].max_abs) * (peak + lim.current) * 2.0**guard * 2
     aguard = _guard_bits(accel_peak, top=8)
     return Design(
-        v,
-        specs,
-        _feedforward(v, specs, lim, guard=guard, exact=exact),
-        _forward(v, specs, lim, guard=guard, aguard=aguard, exact=exact),
-        lim,
-        guard,
-        aguard,
-        acc_amps,
-        exact,
+        vehicle=v,
+        specs=specs,
+        feedforward=_feedforward(v, specs, lim, guard=guard, exact=exact),
+        forward=_forward(v, specs, lim, guard=guard, aguard=aguard, exact=exact),
+        limits=lim,
+        guard_bits=guard,
+        accel_guard_bits=aguard,
+        amps_per_acc=acc_amps,
+        exact=exact,
     )

@@ -19,7 +19,7 @@ import numpy as np
 from . import analysis
 from . import tables as tb
 from .errors import CheckFailed
-from .program import Program, op_table
+from .ops import Program, op_table
 
 Bound = Callable[[Mapping[str, Any]], Any]
 
@@ -95,7 +95,13 @@ class Sizing:
 def units_for(specs: Mapping[str, tb.TableSpec], names: list[str], program: Program | None = None) -> list[Unit]:
     counts = {n: sum(1 for op in program.ops if op_table(op) == n) for n in names} if program else {}
     return [
-        Unit(n, k, tb.piece_candidates(specs[n], p), specs[n].bits // 8, max(1, counts.get(n, 1)))
+        Unit(
+            table=n,
+            piece=k,
+            cands=tb.piece_candidates(specs[n], p),
+            word_bytes=specs[n].bits // 8,
+            lookups=max(1, counts.get(n, 1)),
+        )
         for n in names
         for k, p in enumerate(specs[n].pieces)
     ]
@@ -274,4 +280,12 @@ def size(
     final = float(bound(analysis.table_errors(out_tables, out_errors)))
     total = sum(out_tables[n].bytes for n in names)
     instructions = sum(u.instructions(c) for u, c in zip(units, choice))
-    return Sizing(out_tables, out_errors, final, total, visited, instructions, over_cap)
+    return Sizing(
+        tables=out_tables,
+        errors=out_errors,
+        bound_steps=final,
+        total_bytes=total,
+        visited=visited,
+        instructions=instructions,
+        over_cap=over_cap,
+    )

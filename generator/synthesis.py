@@ -106,16 +106,16 @@ def _synthesise(v: Vehicle, des: program.Design, *, explain: bool = True) -> Fir
     tables = {n: fwd.tables[n] for n in des.specs}
     errors = {n: fwd.errors[n] for n in des.specs}
     return Firmware(
-        v,
-        des,
-        tables,
-        errors,
-        analysis.prove(des.feedforward, tables),
-        analysis.prove(des.forward, tables),
-        ff.bound_steps * fw.current_lsb_a,
-        fwd.bound_steps * fw.accel_lsb_mps2,
-        forward_budget(v),
-        fingerprint(v),
+        vehicle=v,
+        design=des,
+        tables=tables,
+        errors=errors,
+        ff_proof=analysis.prove(des.feedforward, tables),
+        fwd_proof=analysis.prove(des.forward, tables),
+        ff_bound_a=ff.bound_steps * fw.current_lsb_a,
+        fwd_bound_mps2=fwd.bound_steps * fw.accel_lsb_mps2,
+        fwd_budget_mps2=forward_budget(v),
+        fingerprint=fingerprint(v),
         over_cap=ff.over_cap or fwd.over_cap,
     )
 

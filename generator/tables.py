@@ -51,6 +51,7 @@ class TableSpec:
     max_abs: float  # largest |value| over the extended domain, target units
     si_scale: float = 1.0  # SI value = target value * si_scale
     si_unit: str = "1"
+    model_keys: tuple[str, ...] = ()  # the model keys its values come from, for its C comment
 
     @property
     def split_at(self) -> int | None:
@@ -116,6 +117,7 @@ def make_spec(
     meaning: str,
     si_scale: float = 1.0,
     si_unit: str = "1",
+    model_keys: tuple[str, ...] = (),
 ) -> TableSpec:
     """Choose the Q format from the value range over every breakpoint any size could use."""
     peak, sampled = 0.0, False
@@ -133,7 +135,18 @@ def make_spec(
     if sampled:
         peak *= 1.01  # sampled: leave room for a peak between samples
     return TableSpec(
-        name, source, symmetry, pieces, fx.frac_bits_for(peak, bits), bits, unit, meaning, peak, si_scale, si_unit
+        name=name,
+        source=source,
+        symmetry=symmetry,
+        pieces=pieces,
+        frac_bits=fx.frac_bits_for(peak, bits),
+        bits=bits,
+        unit=unit,
+        meaning=meaning,
+        max_abs=peak,
+        si_scale=si_scale,
+        si_unit=si_unit,
+        model_keys=model_keys,
     )
 
 
@@ -165,7 +178,7 @@ def build_piece(spec: TableSpec, piece: Piece, segments: int) -> PieceData:
         vals = piece.func(xs)
         mid = np.array([(float(np.max(vals)) + float(np.min(vals))) / 2])
         ints, sat = fx.quantise(mid, spec.frac_bits, spec.bits)
-        return PieceData(0, 0, ints, bool(sat.any()))
+        return PieceData(segments=0, shift=0, entries=ints, saturated=bool(sat.any()))
     s = shift_for(piece.span, segments)
     xs = piece.x0 + (np.arange(segments + 1, dtype=np.int64) << s)
     values = piece.func(xs)
@@ -176,7 +189,7 @@ def build_piece(spec: TableSpec, piece: Piece, segments: int) -> PieceData:
             f"table {spec.name}: value {values[k] * spec.si_scale:.6g} {spec.si_unit} at input "
             f"{int(xs[k])} does not fit {fx.q_name(spec.frac_bits, spec.bits)}"
         )
-    return PieceData(segments, s, ints, False)
+    return PieceData(segments=segments, shift=s, entries=ints, saturated=False)
 
 
 def build(spec: TableSpec, segments: tuple[int, ...]) -> Table:
@@ -290,7 +303,12 @@ def piece_error(
         gap = float(np.max(np.diff(xs)))
         slope = float(np.max(np.abs(np.diff(exact)) / np.diff(xs))) * 2
         margin = gap * slope
-    return PieceError(float(err[k]) + margin, float(np.max(np.abs(real - exact))) + margin, int(xs[k]), exhaustive)
+    return PieceError(
+        total=float(err[k]) + margin,
+        interpolation=float(np.max(np.abs(real - exact))) + margin,
+        where=int(xs[k]),
+        exhaustive=exhaustive,
+    )
 
 
 @dataclass

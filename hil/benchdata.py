@@ -72,16 +72,16 @@ def read_log(path: Path, rig: str | None = None) -> BenchLog:
     attrs = SI_NAME  # plan columns -> OperatingPoint attributes
     pair = lambda a, b: np.column_stack([get[a], get[b]])  # noqa: E731
     return BenchLog(
-        path,
-        rig or recorded,
-        get["t"],
-        phase,
-        {attrs[k]: get[k] for k in attrs},
-        pair("ff_current_right", "ff_current_left"),
-        pair("current_right", "current_left"),
-        pair("measured_speed_right", "measured_speed_left"),
-        (get["status"].astype(int) & messages.STATUS_MEASURED) != 0,
-        meta,
+        path=path,
+        rig=rig or recorded,
+        t=get["t"],
+        phase=phase,
+        setpoint={attrs[k]: get[k] for k in attrs},
+        ff=pair("ff_current_right", "ff_current_left"),
+        current=pair("current_right", "current_left"),
+        speed=pair("measured_speed_right", "measured_speed_left"),
+        valid=(get["status"].astype(int) & messages.STATUS_MEASURED) != 0,
+        meta=meta,
     )
 
 

@@ -119,14 +119,14 @@ def verdict(grams: list[np.ndarray], noise_n: float, margin: float = 1.0) -> ide
 
 
 @dataclass(frozen=True)
-class Design:
+class Campaign:
     """A campaign: its logs in the order to run them, and what it would still leave held."""
 
     logs: list[Candidate]
     held: list[tuple[str, ...]]
 
 
-def design(v: Vehicle, *, noise_a: float, duration_s: float, period_s: float) -> Design:
+def choose_runs(v: Vehicle, *, noise_a: float, duration_s: float, period_s: float) -> Campaign:
     """Add candidate logs in order until every coordinate is determined with MARGIN to spare (or the
     candidates run out); keep only those that helped."""
     noise_n = noise_a / dynamics.motor_gain(v)
@@ -145,7 +145,7 @@ def design(v: Vehicle, *, noise_a: float, duration_s: float, period_s: float) ->
             held = [tuple(fp.NAMES[j] for j in grp.members) for grp in after.groups]
         if not held and len(chosen) >= 2:
             break
-    return Design(chosen, held)
+    return Campaign(logs=chosen, held=held)
 
 
 def informations(

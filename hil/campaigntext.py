@@ -38,7 +38,7 @@ def campaign_files(
 ) -> tuple[dict[Path, str], str]:
     """{path: text} of the plans and CAMPAIGN.txt, and the text to print."""
     noise = noise_a if noise_a is not None else 0.01 * v.drive.current_limit_a
-    design = campaign.design(v, noise_a=noise, duration_s=duration_s, period_s=period_s)
+    design = campaign.choose_runs(v, noise_a=noise, duration_s=duration_s, period_s=period_s)
     files: dict[Path, str] = {}
     lines = [
         f"# Bench campaign for {v.name}",

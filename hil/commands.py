@@ -317,7 +317,9 @@ def simulate(
         outputs.check_target(Path(port_file))
     fw = synthesis.synthesise(v)
     opts = PlantOptions(period_s=period, rig=rig, current_noise_a=noise, encoder_counts=encoder_counts, seed=seed)
-    faults = LinkFaults(drop_rate, corrupt_rate, delay, garbage_every, seed)
+    faults = LinkFaults(
+        drop_rate=drop_rate, corrupt_rate=corrupt_rate, delay_s=delay, garbage_every_s=garbage_every, seed=seed
+    )
     with tempfile.TemporaryDirectory(prefix="kinetab-sim-") as tmp:
         sim = Simulator(
             fw, truth, options=opts, faults=faults, fifo_depth=fifo_depth, folder=Path(tmp), watchdog_s=watchdog

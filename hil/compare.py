@@ -28,12 +28,12 @@ class Stats:
 
 def stats(residual: np.ndarray) -> Stats:
     if residual.size == 0:
-        return Stats(0.0, 0.0, 0.0, 0)
+        return Stats(rms=0.0, max=0.0, bias=0.0, rows=0)
     return Stats(
-        float(np.sqrt(np.mean(residual**2))),
-        float(np.max(np.abs(residual))),
-        float(np.mean(residual)),
-        int(residual.size),
+        rms=float(np.sqrt(np.mean(residual**2))),
+        max=float(np.max(np.abs(residual))),
+        bias=float(np.mean(residual)),
+        rows=int(residual.size),
     )
 
 

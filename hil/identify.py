@@ -252,15 +252,19 @@ def _estimates(
         se = float(np.sqrt(max(cov[pos[j], pos[j]], 0.0)))
         tol = 1e-6 * max(abs(hi[j] - lo[j]) if np.isfinite(hi[j] - lo[j]) else 1.0, 1e-12)
         bound = fp.BOUND_TEXT[fp.NAMES[j]] if (x[j] - lo[j] <= tol or hi[j] - x[j] <= tol) else None
-        out[fp.NAMES[j]] = Estimate(float(x0[j]), float(x[j]), se, bound)
+        out[fp.NAMES[j]] = Estimate(model=float(x0[j]), estimate=float(x[j]), se=se, at_bound=bound)
     c, e = fp.INDEX["friction.coulomb"], fp.INDEX["friction.breakaway_excess"]
     if c in pos and e in pos:
         var = cov[pos[c], pos[c]] + cov[pos[e], pos[e]] + 2 * cov[pos[c], pos[e]]
-        out["friction.breakaway"] = Estimate(float(x0[c] + x0[e]), float(x[c] + x[e]), float(np.sqrt(max(var, 0))))
+        out["friction.breakaway"] = Estimate(
+            model=float(x0[c] + x0[e]), estimate=float(x[c] + x[e]), se=float(np.sqrt(max(var, 0)))
+        )
     b = fp.INDEX["drive.backdrive_factor"]
     if b in pos:
         k = out["drive.backdrive_factor"]
-        out["drive.backdrive_efficiency"] = Estimate(1 / k.model, 1 / k.estimate, k.se / k.estimate**2, k.at_bound)
+        out["drive.backdrive_efficiency"] = Estimate(
+            model=1 / k.model, estimate=1 / k.estimate, se=k.se / k.estimate**2, at_bound=k.at_bound
+        )
     return out
 
 
@@ -279,7 +283,12 @@ def _held(g: Group, x0: np.ndarray, x: np.ndarray, *, scale: np.ndarray, m: _Map
         var = float(lin @ cov[start : start + k, start : start + k] @ lin) if k else 0.0
         terms = tuple((float(c), fp.NAMES[j]) for c, j in zip(row, members) if c != 0)
         combos.append(
-            Combination(terms, float(row @ x0[members]), float(row @ x[members]), float(np.sqrt(max(var, 0))))
+            Combination(
+                terms=terms,
+                model=float(row @ x0[members]),
+                estimate=float(row @ x[members]),
+                se=float(np.sqrt(max(var, 0))),
+            )
         )
     return Held(names, g.why, tuple(combos))
 

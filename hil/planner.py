@@ -33,26 +33,31 @@ def _segments(v: Vehicle, rng: np.random.Generator | None = None) -> list[Segmen
     short plan still turns and spins (turns and spins excite the yaw inertia)."""
     crawl = min(0.5, 2.5 * v.friction.deadband_mps / v.envelope.speed_max_mps)  # just past the deadband
     out = [
-        Segment(0, 0, 0.2, 0.5),
-        Segment(crawl, crawl, 0.05, 0.5),
-        Segment(-crawl, -crawl, 0.05, 0.5),
-        Segment(0, 0, 0.05, 0.3),
+        Segment(right=0, left=0, accel=0.2, hold_s=0.5),
+        Segment(right=crawl, left=crawl, accel=0.05, hold_s=0.5),
+        Segment(right=-crawl, left=-crawl, accel=0.05, hold_s=0.5),
+        Segment(right=0, left=0, accel=0.05, hold_s=0.3),
     ]
     for d in (1, -1):  # forward, then backward
         out += [
-            Segment(0.25 * d, 0.25 * d, 0.3, 0.5),
-            Segment(0.5 * d, 0.25 * d, 0.6, 0.6),
-            Segment(0.75 * d, 0.75 * d, 1.0, 0.5),
-            Segment(1.0 * d, 1.0 * d, 1.0, 0.5),
-            Segment(0.3 * d, 0.5 * d, 0.6, 0.6),
-            Segment(0, 0, 1.0, 0.3),
-            Segment(0.3 * d, -0.3 * d, 0.4, 0.6),
-            Segment(0, 0, 0.4, 0.3),
+            Segment(right=0.25 * d, left=0.25 * d, accel=0.3, hold_s=0.5),
+            Segment(right=0.5 * d, left=0.25 * d, accel=0.6, hold_s=0.6),
+            Segment(right=0.75 * d, left=0.75 * d, accel=1.0, hold_s=0.5),
+            Segment(right=1.0 * d, left=1.0 * d, accel=1.0, hold_s=0.5),
+            Segment(right=0.3 * d, left=0.5 * d, accel=0.6, hold_s=0.6),
+            Segment(right=0, left=0, accel=1.0, hold_s=0.3),
+            Segment(right=0.3 * d, left=-0.3 * d, accel=0.4, hold_s=0.6),
+            Segment(right=0, left=0, accel=0.4, hold_s=0.3),
         ]
     if rng is None:
         return out
     jitter = lambda x: float(np.clip(x * rng.uniform(0.6, 1.4), -1.0, 1.0))  # noqa: E731
-    return [Segment(jitter(s.right), jitter(s.left), jitter(s.accel), s.hold_s * rng.uniform(0.5, 1.5)) for s in out]
+    return [
+        Segment(
+            right=jitter(s.right), left=jitter(s.left), accel=jitter(s.accel), hold_s=s.hold_s * rng.uniform(0.5, 1.5)
+        )
+        for s in out
+    ]
 
 
 def _profile(v: Vehicle, segments: list[Segment], *, period_s: float, duration_s: float, scale: float) -> np.ndarray:

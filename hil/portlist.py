@@ -25,7 +25,11 @@ def ports() -> list[Port]:
     out = []
     for info in list_ports.comports():
         usb = f"{info.vid:04X}:{info.pid:04X}" if info.vid is not None and info.pid is not None else ""
-        out.append(Port(info.device, usb, info.serial_number or "", info.description or ""))
+        out.append(
+            Port(
+                device=info.device, usb=usb, serial_number=info.serial_number or "", description=info.description or ""
+            )
+        )
     return sorted(out, key=lambda p: p.device)
 
 

@@ -132,7 +132,7 @@ def rows(v: Vehicle, logs: list[BenchLog], *, cutoff_hz: float = CUTOFF_HZ) -> R
             f"({cutoff_hz:g} Hz), then one row in {decimation(dt, cutoff_hz)}: {len(idx)} rows"
         )
     measured, speeds, which, sample, weight = (np.concatenate(b) for b in parts[:5])
-    return Rows(ops, measured, speeds, which, sample, how, weight)
+    return Rows(ops=ops, measured=measured, speed=speeds, log=which, sample=sample, how=how, weight=weight)
 
 
 AMBIGUOUS = 0.1  # a predicted force below this fraction of its RMS leaves the direction of power flow in doubt
@@ -241,4 +241,6 @@ def force_model(v: Vehicle, data: Rows) -> ForceModel:
         x[0] += step[0]
         x[j] += step[j]
         cross.append((at(x) - shifted[0] - shifted[j] + f0) / (step[0] * step[j]))
-    return ForceModel(v, data, x0, f0, cols, np.column_stack(cross), data.measured)
+    return ForceModel(
+        vehicle=v, data=data, x0=x0, f0=f0, cols=cols, cross=np.column_stack(cross), measured=data.measured
+    )

@@ -191,7 +191,7 @@ def run(
     sample in order (a sample lost on the way is counted and skipped). Returns "completed" or raises
     BenchFailed; the caller sends HALT on every way out."""
     first = 1
-    stream = Stream(rows, first, flags=flags)
+    stream = Stream(rows=rows, first_seq=first, flags=flags)
     armed = _arm(link, min(max(1, ident.fifo_depth // 2), PREFILL_MAX, len(rows)), port_name)
     stream.free, counters.fifo_depth, counters.fifo_free = armed.free, ident.fifo_depth, armed.free
     with SafePoints() as safe:

@@ -91,7 +91,7 @@ class Simulator:
         self.period_us = round(options.period_s * 1e6)
         ticks = max(1, round(watchdog_s / options.period_s))
         self.firmware = SimFirmware(fw, folder, period_us=self.period_us, fifo_depth=fifo_depth, watchdog_ticks=ticks)
-        self.plant = Plant(truth, options)
+        self.plant = Plant(truth=truth, options=options)
         rng = np.random.default_rng(faults.seed)
         self.to_controller, self.to_host = _Stream(faults, rng), _Stream(faults, rng)
         self.reader = framing.FrameReader()  # our own transmissions, to report why we halted

@@ -44,7 +44,7 @@ def identifiable_model(seed: int, *, duration_s: float):
     fit holds those, as it should)."""
     while True:
         doc, v, rng = random_model(seed)
-        design = campaign.design(v, noise_a=0.01 * v.drive.current_limit_a, duration_s=duration_s, period_s=0.001)
+        design = campaign.choose_runs(v, noise_a=0.01 * v.drive.current_limit_a, duration_s=duration_s, period_s=0.001)
         if not design.held:
             return doc, v, rng, design
         seed += 1000

@@ -151,13 +151,13 @@ def test_deadband_just_below_speed_max_stays_a_step_below_the_edge(tmp_path):
     """The envelope edge in steps rounds up (it contains speed_max) and the deadband edge rounds down, so
     a deadband below speed_max always ends at least one speed step below the edge (0.81 -> 8 steps,
     0.85 -> 9 steps of 0.1 m/s); a deadband at speed_max is refused."""
-    from kinetab.generator import model, program
+    from kinetab.generator import model, tablespecs
 
     doc = demo_doc()
     doc["envelope"]["speed_max"] = "0.85 m/s"
     doc["friction"]["deadband"] = "0.81 m/s"
     doc["firmware"]["speed_lsb"] = "0.1 m/s"
-    lim = program.limits_of(model.load(write_model(tmp_path, doc)))
+    lim = tablespecs.limits_of(model.load(write_model(tmp_path, doc)))
     assert (lim.deadband, lim.speed) == (8, 9)
     doc["friction"]["deadband"] = "0.85 m/s"
     with pytest.raises(model.ModelError, match="friction.deadband: expected a speed below envelope.speed_max"):

@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 from hypothesis import given
 from hypothesis import strategies as st
-from kinetab.generator import emulate, fixedpoint, interface, program, render, synthesis, vectors
+from kinetab.generator import emulate, fixedpoint, interface, ops, program, render, synthesis, vectors
 
 from tests import cortexm
 from tests.csteps import build_harness, needs_gcc, run_harness, write_files
@@ -36,7 +36,7 @@ def _c_two_part(x: int, y: int, s: int) -> int:
 def test_two_part_product_equals_the_rounded_product_whenever_it_is_chosen(x, y, s, data):
     """Exact integers (Python) as the reference: round(x*y/2^s) with ties up is floor((x*y + 2^(s-1)) / 2^s)."""
     rx, ry = fixedpoint.Interval(*x), fixedpoint.Interval(*y)
-    if not program.split_fits(rx, ry, s):
+    if not ops.split_fits(rx, ry, s):
         return
     for _ in range(20):
         a = data.draw(st.integers(rx.lo, rx.hi))
@@ -53,10 +53,10 @@ def test_operand_rounding_fits_with_the_least_added_error(a, b, shift):
 
     def fits(pa: int, pb: int) -> bool:
         prod = ra.shift_round(pa) * rb.shift_round(pb)
-        return prod.lo >= INT32.lo and prod.hi + program.rounding_half(shift - pa - pb) <= INT32.hi
+        return prod.lo >= INT32.lo and prod.hi + ops.rounding_half(shift - pa - pb) <= INT32.hi
 
     def cost(pa: int, pb: int) -> int:
-        return b * program.rounding_half(pa) + a * program.rounding_half(pb)
+        return b * ops.rounding_half(pa) + a * ops.rounding_half(pb)
 
     feasible = [(i, j) for i in range(shift + 1) for j in range(shift + 1 - i) if fits(i, j)]
     pa, pb = program._preshift(ra, rb, shift)

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-from kinetab.generator import accuracy, analysis, emulate, interface, program, synthesis
+from kinetab.generator import accuracy, analysis, emulate, interface, ops, synthesis
 from kinetab.generator import tables as tb
 
 from tests.firmware_fixtures import demo_firmware
@@ -61,14 +61,14 @@ def test_error_propagation_rules_on_a_small_program():
     spec = tb.make_spec(
         "t", "x", "none", (tb.Piece(0, 100, lambda x: 3.0 + 0.0 * x),), bits=16, unit="1", meaning="three"
     )
-    prog = program.Program(
+    prog = ops.Program(
         interface.FEEDFORWARD,
         [
-            program.Clamp("x", "pitch", None, -100, 100, 4),
-            program.Lookup("t_x", "t", "x"),
-            program.Mul("p", "t_x", "x", 4),
-            program.Sum("s", ((1, "p"), (-1, "p"))),
-            program.Store("current_right", "current", 0, "s", 2),
+            ops.Clamp("x", "pitch", None, -100, 100, 4),
+            ops.Lookup("t_x", "t", "x"),
+            ops.Mul("p", "t_x", "x", 4),
+            ops.Sum("s", ((1, "p"), (-1, "p"))),
+            ops.Store("current_right", "current", 0, "s", 2),
         ],
     )
     scale = 2.0**spec.frac_bits

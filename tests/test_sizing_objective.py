@@ -9,7 +9,7 @@ import itertools
 import numpy as np
 from hypothesis import given, settings
 from hypothesis import strategies as st
-from kinetab.generator import program, sizing, synthesis
+from kinetab.generator import ops, sizing, synthesis
 from kinetab.generator import tables as tb
 
 from tests.firmware_fixtures import demo_firmware
@@ -79,7 +79,7 @@ def test_instruction_objective_on_the_demo_trades_bytes_for_instructions_within_
 
 def _instructions(fw: synthesis.Firmware) -> int:
     """The cost model summed over the feed-forward's lookups (as the sizing counts them)."""
-    tables = [t for op in fw.design.feedforward.ops if (t := program.op_table(op)) is not None]
+    tables = [t for op in fw.design.feedforward.ops if (t := ops.op_table(op)) is not None]
     return sum(sizing.piece_instructions(d) for t in tables for d in fw.tables[t].pieces)
 
 

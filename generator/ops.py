@@ -1,0 +1,222 @@
+"""The op vocabulary of the firmware programs: each op kind, what it reads, the range of its result,
+and the split of a program into its slow and fast parts. The builder (program.py) emits ops; the
+emulator interprets them, the analysis proves them, and the templates print one C statement per op.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import assert_never
+
+from . import fixedpoint as fx
+from . import interface
+
+INT32_MAX = fx.word_max(32)
+
+
+@dataclass(frozen=True)
+class Clamp:
+    """dst = in.field[index] clamped to [lo, hi]; flags |= bit when it was outside."""
+
+    dst: str
+    field: str
+    index: int | None
+    lo: int
+    hi: int
+    bit: int
+
+
+@dataclass(frozen=True)
+class Lookup:
+    dst: str
+    table: str
+    src: str
+
+
+@dataclass(frozen=True)
+class Mul:
+    """dst = round(a * b / 2^shift) (ties up) for shift > 0, a * b * 2^-shift otherwise; a, b signals."""
+
+    dst: str
+    a: str
+    b: str
+    shift: int
+
+
+@dataclass(frozen=True)
+class Scale:
+    """dst = round(a * k / 2^shift) (ties up) for shift > 0, a * k * 2^-shift otherwise; k a constant."""
+
+    dst: str
+    a: str
+    k: int
+    shift: int
+
+
+@dataclass(frozen=True)
+class Sum:
+    dst: str
+    terms: tuple[tuple[int, str], ...]  # (+1 or -1, signal)
+
+
+@dataclass(frozen=True)
+class Backdrive:
+    """dst = src when src and speed do not oppose, else round(src * k / 2^shift)."""
+
+    dst: str
+    src: str
+    speed: str
+    k: int
+    shift: int
+    k_exact: float
+
+
+@dataclass(frozen=True)
+class Store:
+    """out.field[index] = round(src / 2^shift); `dst` is that output's column name (`current_right`)."""
+
+    dst: str
+    field: str
+    index: int
+    src: str
+    shift: int
+
+
+Op = Clamp | Lookup | Mul | Scale | Sum | Backdrive | Store
+"""Every op kind. A new kind is added here, then wherever `assert_never` fails the type check:
+op_range (below), emulate.run, analysis.prove, analysis._error_step, cview._op_view, ff/ops.j2."""
+
+
+def op_inputs(op: Op) -> tuple[str, ...]:
+    """The signals an op reads (a Clamp reads an input field, not a signal)."""
+    match op:
+        case Clamp():
+            return ()
+        case Lookup():
+            return (op.src,)
+        case Mul():
+            return (op.a, op.b)
+        case Scale():
+            return (op.a,)
+        case Sum():
+            return tuple(name for _, name in op.terms)
+        case Backdrive():
+            return (op.src, op.speed)
+        case Store():
+            return (op.src,)
+        case _:
+            assert_never(op)
+
+
+SLOW_FIELDS = ("pitch", "roll", "payload")
+"""Inputs that change slowly (an inclination filter at tens of hertz, a payload once per load)."""
+
+
+@dataclass(frozen=True)
+class Split:
+    """A program in two rates: the ops that depend only on the slow inputs, the rest, and the slow
+    signals the fast ops read (the state the slow part hands over, in program order)."""
+
+    slow: tuple[Op, ...]
+    fast: tuple[Op, ...]
+    state: tuple[str, ...]
+
+
+def split(program: Program) -> Split:
+    """Partition the ops by dataflow: an op is slow when it clamps a slow input or reads only slow
+    signals. Running the slow ops, then the fast ones, is the same program: the same integers."""
+    slow_names: set[str] = set()
+    slow, fast = [], []
+    for op in program.ops:
+        if _is_slow(op, slow_names):
+            slow.append(op)
+            slow_names.add(op.dst)
+        else:
+            fast.append(op)
+    used = {name for op in fast for name in op_inputs(op)}
+    state = tuple(op.dst for op in slow if op.dst in used)
+    return Split(tuple(slow), tuple(fast), state)
+
+
+def _is_slow(op: Op, slow_names: set[str]) -> bool:
+    """A clamp of a slow input, or an op reading only slow signals; outputs are written at the fast rate."""
+    match op:
+        case Clamp():
+            return op.field in SLOW_FIELDS
+        case Store():
+            return False
+        case Lookup() | Mul() | Scale() | Sum() | Backdrive():
+            return all(name in slow_names for name in op_inputs(op))
+        case _:
+            assert_never(op)
+
+
+def op_table(op: Op) -> str | None:
+    """The table an op looks up, if any."""
+    match op:
+        case Lookup():
+            return op.table
+        case Clamp() | Mul() | Scale() | Sum() | Backdrive() | Store():
+            return None
+        case _:
+            assert_never(op)
+
+
+def rounding_half(shift: int) -> int:
+    """What "add half, then shift right" adds: 2^(shift-1) for shift > 0, else nothing."""
+    return (1 << (shift - 1)) if shift > 0 else 0
+
+
+def op_range(op: Op, rng: dict[str, fx.Interval], lookup: Callable[[Lookup], fx.Interval]) -> fx.Interval:
+    """The value range an op's result can take, from the ranges of its operands. `lookup` gives a
+    table's range: estimated while building, exact once the tables are sized."""
+    match op:
+        case Clamp():
+            return fx.Interval(op.lo, op.hi)
+        case Lookup():
+            return lookup(op)
+        case Mul():
+            return (rng[op.a] * rng[op.b]).shift_round(op.shift)
+        case Scale():
+            return (rng[op.a] * fx.Interval(op.k, op.k)).shift_round(op.shift)
+        case Sum():
+            total = fx.Interval(0, 0)
+            for sign, name in op.terms:
+                total = total + (rng[name] if sign > 0 else -rng[name])
+            return total
+        case Backdrive():
+            r = rng[op.src]
+            return r.hull((r * fx.Interval(op.k, op.k)).shift_round(op.shift))
+        case Store():
+            return rng[op.src].shift_round(op.shift)
+        case _:
+            assert_never(op)
+
+
+@dataclass
+class Program:
+    """One C function (its structs described in `interface`) as a list of ops."""
+
+    call: interface.Call
+    ops: list[Op] = field(default_factory=list)
+
+    @property
+    def name(self) -> str:
+        return self.call.name
+
+
+def fits32(prod: fx.Interval, shift: int) -> bool:
+    half = rounding_half(shift)
+    return prod.lo >= -INT32_MAX - 1 and prod.hi + half <= INT32_MAX
+
+
+def split_fits(x: fx.Interval, y: fx.Interval, shift: int) -> bool:
+    """round(x * y / 2^s) = (x >> s) * y + (((x & (2^s - 1)) * y + half) >> s) exactly (x = (x >> s) 2^s +
+    its low bits); usable when both partial products fit 32 bits: no 64-bit multiply, which is a library
+    call on Cortex-M0+."""
+    if shift <= 0:
+        return False
+    high = fx.Interval(x.lo >> shift, x.hi >> shift) * y
+    low = fx.Interval(0, (1 << shift) - 1) * y
+    return high.fits(32) and fits32(low, shift)

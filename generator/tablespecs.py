@@ -1,0 +1,275 @@
+"""Table specs from the physics: each table's input, symmetry, pieces and units, the function it
+holds (from `dynamics`) and the model keys its values come from; and the envelope edges in steps.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from . import dynamics
+from . import fixedpoint as fx
+from . import tables as tb
+from .vehicle import Vehicle
+
+
+@dataclass(frozen=True)
+class Limits:
+    """Envelope edges in firmware steps (see limits_of)."""
+
+    speed: int
+    accel: int
+    pitch: int
+    roll: int
+    payload: int
+    deadband: int
+    current: int
+
+
+def limits_of(v: Vehicle) -> Limits:
+    """Envelope edges in steps, each containing its stated limit (rounded up), so an input of exactly the
+    limit is inside; the deadband edge is the last step inside the deadband (rounded down)."""
+    fw, env = v.firmware, v.envelope
+    lim = Limits(
+        speed=fx.steps_covering(env.speed_max_mps, fw.speed_lsb_mps),
+        accel=fx.steps_covering(env.accel_max_mps2, fw.accel_lsb_mps2),
+        pitch=fx.steps_covering(env.pitch_max_rad, fw.angle_lsb_rad),
+        roll=fx.steps_covering(env.roll_max_rad, fw.angle_lsb_rad),
+        payload=fx.steps_covering(v.payload.mass_max_kg, fw.mass_lsb_kg),
+        deadband=fx.steps_within(v.friction.deadband_mps, fw.speed_lsb_mps),
+        current=fx.steps_covering(v.drive.current_limit_a, fw.current_lsb_a),
+    )
+    assert lim.deadband < lim.speed, "the loader keeps the deadband below speed_max"
+    return lim
+
+
+def _speed_pieces(v: Vehicle, lim: Limits, scale: float) -> tuple[tb.Piece, tb.Piece, tb.Piece, tb.Piece]:
+    """Friction and deadband-shape pieces of |u| in steps, split exactly at the deadband edge; each
+    piece's function continues smoothly past its end (breakpoints may sit there)."""
+    lsb = v.firmware.speed_lsb_mps
+
+    def inside(x: np.ndarray) -> np.ndarray:
+        return dynamics.deadband_inside(v, x * lsb)
+
+    fric_in = tb.Piece(
+        x0=0,
+        x1=lim.deadband,
+        func=lambda x: dynamics.friction_force(v, x * lsb, inside(x)) * scale,
+        label="inside the deadband",
+    )
+    fric_out = tb.Piece(
+        x0=lim.deadband + 1,
+        x1=lim.speed,
+        func=lambda x: dynamics.friction_force(v, x * lsb, 1.0) * scale,
+        label="outside the deadband",
+    )
+    shape_in = tb.Piece(x0=0, x1=lim.deadband, func=inside, label="inside the deadband")
+    shape_out = tb.Piece(
+        x0=lim.deadband + 1, x1=lim.speed, func=lambda x: np.ones(np.shape(x)), label="outside the deadband"
+    )
+    return fric_in, fric_out, shape_in, shape_out
+
+
+@dataclass(frozen=True)
+class _Row:
+    """One table: its input, symmetry, pieces, stored unit and meaning, SI scale and unit."""
+
+    source: str
+    symmetry: str
+    pieces: tuple[tb.Piece, ...]
+    unit: str
+    meaning: str
+    si_scale: float
+    si_unit: str
+
+
+SYMBOLS = "(m: vehicle plus payload, c: their CoG ahead of P, b: half track)"
+
+
+def _si(scale: float, unit: str) -> dict[str, Any]:
+    """The SI scale and unit of a table stored at `scale` steps per SI unit."""
+    return {"si_scale": 1 / scale, "si_unit": unit}
+
+
+def _payload_rows(v: Vehicle, lim: Limits, k: float) -> dict[str, _Row]:
+    """Payload tables: the dynamics' coefficients scaled to accumulator steps (k per newton)."""
+    fw = v.firmware
+    per_accel, per_speed2 = fw.accel_lsb_mps2 * k, fw.speed_lsb_mps**2 * k
+    acc = "accumulator step"
+
+    def row(f: Callable[[np.ndarray], np.ndarray], scale: float, unit: str, *, meaning: str, si: str) -> _Row:
+        """A one-piece payload table of f(payload in kg) * scale."""
+        piece = tb.Piece(x0=0, x1=lim.payload, func=lambda x: f(x * fw.mass_lsb_kg) * scale)
+        return _Row(source="payload", symmetry="none", pieces=(piece,), unit=unit, meaning=meaning, **_si(scale, si))
+
+    def mass(entry: int) -> Callable[[np.ndarray], np.ndarray]:
+        return lambda p: dynamics.mass_matrix_entries(v, p)[entry]
+
+    def grav(entry: int) -> Callable[[np.ndarray], np.ndarray]:
+        return lambda p: dynamics.gravity_coefficients(v, p)[entry]
+
+    def rolling(entry: int) -> Callable[[np.ndarray], np.ndarray]:
+        return lambda p: dynamics.rolling_coefficients(v, p)[entry]
+
+    return {
+        "m11": row(mass(0), per_accel, f"{acc} per accel step", meaning="mass matrix M11 = M22", si="kg"),
+        "m12": row(mass(1), per_accel, f"{acc} per accel step", meaning="mass matrix M12 = M21", si="kg"),
+        "cor": row(
+            lambda p: dynamics.coriolis_coefficient(v, p),
+            per_speed2,
+            f"{acc} per speed step^2",
+            meaning=f"Coriolis coefficient m c / (4 b^2) {SYMBOLS}",
+            si="kg/m",
+        ),
+        "grav_pitch": row(grav(0), k, f"{acc} at sin = 1", meaning="gravity m g / 2 (m: vehicle plus payload)", si="N"),
+        "grav_roll": row(
+            grav(1),
+            k,
+            f"{acc} at cos*sin = 1",
+            meaning=f"roll gravity m c g / (2 b) {SYMBOLS}",
+            si="N",
+        ),
+        "roll_level": row(
+            rolling(0), k, f"{acc} at cos*cos = 1", meaning="rolling resistance on cos(pitch) cos(roll)", si="N"
+        ),
+        "roll_slope": row(
+            rolling(1), k, f"{acc} at sin = 1", meaning="rolling-resistance load transfer on sin(pitch)", si="N"
+        ),
+    }
+
+
+def _angle_rows(v: Vehicle, lim: Limits) -> dict[str, _Row]:
+    ang = v.firmware.angle_lsb_rad
+    rows = {}
+    for name, source, top in (("pitch", "pitch", lim.pitch), ("roll", "roll", lim.roll)):
+        rows[f"sin_{name}"] = _Row(
+            source=source,
+            symmetry="odd",
+            pieces=(tb.Piece(x0=0, x1=top, func=lambda x: np.sin(x * ang)),),
+            unit="1",
+            meaning=f"sin({name})",
+            si_scale=1.0,
+            si_unit="1",
+        )
+        rows[f"cos_{name}"] = _Row(
+            source=source,
+            symmetry="even",
+            pieces=(tb.Piece(x0=0, x1=top, func=lambda x: np.cos(x * ang)),),
+            unit="1",
+            meaning=f"cos({name})",
+            si_scale=1.0,
+            si_unit="1",
+        )
+    return {n: rows[n] for n in ("sin_pitch", "cos_pitch", "sin_roll", "cos_roll")}
+
+
+MODEL_KEYS = {
+    "payload": (
+        "body.mass",
+        "body.cog_ahead",
+        "body.cog_height",
+        "body.gyration_radius",
+        "payload.mass_max",
+        "payload.cog_ahead",
+        "payload.cog_height",
+        "payload.gyration_radius",
+        "wheels.track",
+    ),
+    "pitch": ("firmware.angle_lsb", "envelope.pitch_max"),
+    "roll": ("firmware.angle_lsb", "envelope.roll_max"),
+    "speed": (
+        "friction.coulomb",
+        "friction.breakaway",
+        "friction.stribeck_speed",
+        "friction.viscous",
+        "friction.deadband",
+        "friction.deadband_shape",
+    ),
+}
+EXTRA_KEYS = {
+    "m11": ("wheels.diameter", "wheels.inertia", "drive.gear_ratio", "drive.rotor_inertia"),
+    "roll_level": ("wheels.rolling_resistance", "casters.rolling_resistance", "casters.behind_axle"),
+    "roll_slope": ("wheels.rolling_resistance", "casters.rolling_resistance", "casters.behind_axle"),
+}
+
+
+def model_keys(name: str, source: str) -> tuple[str, ...]:
+    """The model keys a table's values come from, for its comment."""
+    if name == "shape":
+        return ("friction.deadband", "friction.deadband_shape")
+    extra = EXTRA_KEYS.get(name, EXTRA_KEYS["m11"] if name in ("m12", "minv11", "minv12") else ())
+    return MODEL_KEYS[source] + extra
+
+
+def _speed_rows(v: Vehicle, lim: Limits, k: float) -> dict[str, _Row]:
+    """Speed tables: drivetrain friction (accumulator steps, k per newton) and the deadband shape."""
+    fric_in, fric_out, shape_in, shape_out = _speed_pieces(v, lim, k)
+    return {
+        "friction": _Row(
+            source="speed",
+            symmetry="odd",
+            pieces=(fric_in, fric_out),
+            unit="accumulator step",
+            meaning="drivetrain friction F(u)",
+            si_scale=1 / k,
+            si_unit="N",
+        ),
+        "shape": _Row(
+            source="speed",
+            symmetry="odd",
+            pieces=(shape_in, shape_out),
+            unit="1",
+            meaning=f"deadband shape s(u), {v.friction.deadband_shape}",
+            si_scale=1.0,
+            si_unit="1",
+        ),
+    }
+
+
+def _inverse_rows(v: Vehicle, lim: Limits, inv: float) -> dict[str, _Row]:
+    """Inverse mass matrix tables of the payload, in accel steps per (1/kg * accumulator step) * inv."""
+    lsb = v.firmware.mass_lsb_kg
+
+    def minv(entry: int) -> tb.Func:
+        return lambda x: dynamics.inverse_mass_matrix_entries(v, x * lsb)[entry] * inv
+
+    return {
+        f"minv1{entry + 1}": _Row(
+            source="payload",
+            symmetry="none",
+            pieces=(tb.Piece(x0=0, x1=lim.payload, func=minv(entry)),),
+            unit="accel step per accumulator step",
+            meaning=f"inverse mass matrix entry 1{entry + 1}",
+            si_scale=1 / inv,
+            si_unit="1/kg",
+        )
+        for entry in (0, 1)
+    }
+
+
+def specs_for(v: Vehicle, lim: Limits, acc_amps: float) -> dict[str, tb.TableSpec]:
+    """Every table's function, in units that make each product land on the accumulator scale."""
+    fw, bits = v.firmware, fx.WORD_BITS[v.firmware.word]
+    k = dynamics.motor_gain(v) / acc_amps  # accumulator steps per newton at the rim
+    inv = acc_amps / dynamics.motor_gain(v) / fw.accel_lsb_mps2  # accel steps per (1/kg * accumulator step)
+    payload = _payload_rows(v, lim, k)
+    rows = {n: payload[n] for n in ("m11", "m12", "cor", "grav_pitch", "grav_roll", "roll_level", "roll_slope")}
+    rows |= _angle_rows(v, lim) | _speed_rows(v, lim, k) | _inverse_rows(v, lim, inv)
+    return {
+        name: tb.make_spec(
+            name,
+            r.source,
+            r.symmetry,
+            r.pieces,
+            bits=bits,
+            unit=r.unit,
+            meaning=r.meaning,
+            si_scale=r.si_scale,
+            si_unit=r.si_unit,
+            model_keys=model_keys(name, r.source),
+        )
+        for name, r in rows.items()
+    }
