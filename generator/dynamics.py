@@ -197,6 +197,21 @@ def wheel_loads(v: Vehicle, payload_kg: ArrayLike, pitch_rad: ArrayLike, roll_ra
     return drive, weight * upright - drive
 
 
+def lateral_margin(v: Vehicle, payload_kg: ArrayLike, roll_rad: ArrayLike) -> Array:
+    """b cos(phi) - h |sin(phi)|, m: > 0 while the CoG stays inside the drive-wheel track sideways."""
+    h = combined(v, payload_kg).cog_height_m
+    ph = np.asarray(roll_rad, float)
+    return half_track(v) * np.cos(ph) - h * np.abs(np.sin(ph))
+
+
+def tipping(v: Vehicle, payload_kg: ArrayLike, pitch_rad: ArrayLike, roll_rad: ArrayLike) -> Array:
+    """0 while both the drive wheels and the casters carry load; else 1 plus the missing load in N
+    (> 1: tipping, growing with how far), as a limit use comparable with the others."""
+    drive, caster = wheel_loads(v, payload_kg, pitch_rad, roll_rad)
+    least = np.minimum(drive, caster)
+    return np.maximum(-least, 0.0) + (least <= 0)
+
+
 def rolling_resistance(
     v: Vehicle, payload_kg: ArrayLike, pitch_rad: ArrayLike, roll_rad: ArrayLike, *, speed: ArrayLike
 ) -> Array:
@@ -303,6 +318,12 @@ def forward_accel(v: Vehicle, op: OperatingPoint, force_right: ArrayLike, force_
 
 RIGS = ("on-floor", "wheels-up")
 """Where the vehicle is on the bench: on its wheels, or lifted (wheels off the floor)."""
+
+
+def rig_currents(v: Vehicle, op: OperatingPoint, rig: str) -> Array:
+    """The motor currents (..., 2) of the right and left wheel, A, on the rig (see rig_wheel_forces)."""
+    right, left = rig_wheel_forces(v, op, rig)
+    return np.stack([motor_current(v, right.total, op.speed_right), motor_current(v, left.total, op.speed_left)], -1)
 
 
 def rig_wheel_forces(v: Vehicle, op: OperatingPoint, rig: str) -> tuple[WheelForces, WheelForces]:

@@ -66,8 +66,8 @@ class EnvelopeReport:
 def margins(v: Vehicle, op: OperatingPoint) -> tuple[Margins, Margins]:
     """Per-wheel limit use (current, traction, voltage, tipping) at the operating points."""
     right, left = dynamics.wheel_forces(v, op)
-    drive_load, caster_load = dynamics.wheel_loads(v, op.payload_kg, op.pitch_rad, op.roll_rad)
-    tip = np.maximum(-np.minimum(drive_load, caster_load), 0.0) + (np.minimum(drive_load, caster_load) <= 0)
+    drive_load, _ = dynamics.wheel_loads(v, op.payload_kg, op.pitch_rad, op.roll_rad)
+    tip = dynamics.tipping(v, op.payload_kg, op.pitch_rad, op.roll_rad)
     out = []
     for side, speed, accel in ((right, op.speed_right, op.accel_right), (left, op.speed_left, op.accel_left)):
         current = dynamics.motor_current(v, side.total, speed)

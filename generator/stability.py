@@ -20,12 +20,6 @@ def _grid(v: Vehicle) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     return p.ravel(), th.ravel(), ph.ravel()
 
 
-def lateral_margin(v: Vehicle, payload_kg: np.ndarray, roll_rad: np.ndarray) -> np.ndarray:
-    """b cos(phi) - h sin(phi), m: > 0 while the CoG stays inside the drive-wheel track sideways."""
-    h = dynamics.combined(v, payload_kg).cog_height_m
-    return dynamics.half_track(v) * np.cos(roll_rad) - h * np.abs(np.sin(roll_rad))
-
-
 def _level_check(v: Vehicle) -> None:
     """Standing level, empty or loaded: the combined centre of gravity must lie between the drive axle
     (0 m) and the casters, else the vehicle tips whatever the slope; the error names the CoG key."""
@@ -53,7 +47,7 @@ def check(v: Vehicle) -> None:
     _level_check(v)
     p, th, ph = _grid(v)
     drive, caster = dynamics.wheel_loads(v, p, th, ph)
-    side = lateral_margin(v, p, ph)
+    side = dynamics.lateral_margin(v, p, ph)
     for values, what in ((drive, "drive-wheel load"), (caster, "caster load")):
         bad = np.flatnonzero(values <= 0)
         if bad.size:

@@ -166,10 +166,7 @@ def operating_point(log: BenchLog, *, speed: np.ndarray, accel: np.ndarray) -> d
 
 def predicted_current(v: Vehicle, op: dynamics.OperatingPoint, rig: str) -> np.ndarray:
     """The float model's motor currents (n, 2), A, for the rig."""
-    right, left = dynamics.rig_wheel_forces(v, op, rig)
-    return np.column_stack(
-        [dynamics.motor_current(v, right.total, op.speed_right), dynamics.motor_current(v, left.total, op.speed_left)]
-    )
+    return np.asarray(dynamics.rig_currents(v, op, rig))
 
 
 def noise_floor(log: BenchLog) -> float:

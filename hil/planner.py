@@ -115,12 +115,7 @@ def peak_current_use(v: Vehicle, profile: np.ndarray, *, rig: str, payload: floa
 
 def plan_current_use(v: Vehicle, si: dict[str, np.ndarray], *, rig: str) -> float:
     """Largest |current| / current_limit over rows of setpoints (keyed by OperatingPoint attribute)."""
-    op = dynamics.OperatingPoint(**si)
-    right, left = dynamics.rig_wheel_forces(v, op, rig)
-    cur = np.maximum(
-        np.abs(dynamics.motor_current(v, right.total, op.speed_right)),
-        np.abs(dynamics.motor_current(v, left.total, op.speed_left)),
-    )
+    cur = np.abs(dynamics.rig_currents(v, dynamics.OperatingPoint(**si), rig))
     return float(np.max(cur)) / v.drive.current_limit_a
 
 
@@ -157,12 +152,11 @@ def _outside(v: Vehicle, m: interface.Member, col: str, values: np.ndarray) -> t
 def _drive_problem(v: Vehicle, plan: Plan, rig: str) -> tuple[int, str] | None:
     """The first row whose float-model current exceeds drive.current_limit or whose voltage exceeds
     drive.supply_voltage."""
-    si = plan.si()
-    op = dynamics.OperatingPoint(**si)
-    right, left = dynamics.rig_wheel_forces(v, op, rig)
+    op = dynamics.OperatingPoint(**plan.si())
+    currents = dynamics.rig_currents(v, op, rig)
     worst: list[tuple[int, str]] = []
-    for side, speed in ((right, si["speed_right"]), (left, si["speed_left"])):
-        current = np.broadcast_to(dynamics.motor_current(v, side.total, speed), np.shape(speed))
+    for k_side, speed in enumerate((np.asarray(op.speed_right, float), np.asarray(op.speed_left, float))):
+        current = np.broadcast_to(currents[..., k_side], np.shape(speed))
         volts = np.abs(dynamics.motor_voltage(v, current, speed))
         over = np.flatnonzero(np.abs(current) > v.drive.current_limit_a * (1 + 1e-6))
         if over.size:
