@@ -61,7 +61,7 @@ def envelope_points(fw: Firmware, count: int, seed: int) -> dict[str, np.ndarray
     return interface.rows_to_fields(FF_IN, rows[inside])
 
 
-def _describe(fw: Firmware, inp: dict[str, np.ndarray], k: int, side: int) -> str:
+def _describe_input(fw: Firmware, inp: dict[str, np.ndarray], k: int, side: int) -> str:
     si = {name: float(x) for name, x in interface.to_si(fw.vehicle, FF_IN, {n: a[k] for n, a in inp.items()}).items()}
     return interface.describe_point(FF_IN, si, interface.SIDES[side], digits=4)
 
@@ -147,7 +147,7 @@ def measure(fw: Firmware, count: int = 100_000, seed: int = 7) -> Accuracy:
         interpolation=_stat(interp - ref),
         quantisation=_stat(quant - interp),
         arithmetic=_stat(got - quant),
-        where=_describe(fw, inp, int(k), int(side)),
+        where=_describe_input(fw, inp, int(k), int(side)),
         clamping=_clamping(fw, seed),
         input_resolution=_input_resolution(fw, inp),
     )

@@ -24,10 +24,10 @@ from .ops import (
     Scale,
     Store,
     Sum,
+    by_rate,
     op_inputs,
     op_table,
     rounding_half,
-    split,
 )
 from .synthesis import FORMAT_VERSION, Firmware
 
@@ -135,8 +135,8 @@ def table_view(fw: Firmware, name: str, prefix: str) -> dict[str, Any]:
         "name": name,
         "ctype": f"{'u' if _unsigned(table) else ''}int{spec.bits}_t",
         "symmetry": spec.symmetry,
-        "split": spec.split_at,
-        "needs_x": spec.split_at is not None or any(p.kind is not tb.PieceKind.CONSTANT for p in table.pieces),
+        "piece_edge": spec.piece_edge,
+        "needs_x": spec.piece_edge is not None or any(p.kind is not tb.PieceKind.CONSTANT for p in table.pieces),
         "meaning": spec.meaning,
         "stored": _stored_text(spec, unsigned=_unsigned(table)),
         "step_si": _si_text(2.0**-spec.frac_bits * spec.si_scale, spec.si_unit),
@@ -281,12 +281,12 @@ GroupKey = tuple[str, bool, int | None]
 
 
 def _group_key(op: Op, tables: dict[str, dict[str, Any]]) -> GroupKey | None:
-    """Lookups that may share one inline block: same input, same symmetry class, same split."""
+    """Lookups that may share one inline block: same input, same symmetry class, same piece edge."""
     table = op_table(op)
     if table is None:
         return None
     t = tables[table]
-    return (op_inputs(op)[0], t["symmetry"] != "none", t["split"])
+    return (op_inputs(op)[0], t["symmetry"] != "none", t["piece_edge"])
 
 
 def program_view(
@@ -299,7 +299,7 @@ def program_view(
     flags: str = "flags",
     reads: dict[str, str] | None = None,
 ) -> dict[str, Any]:
-    """One view per op (of `ops`, default all); adjacent lookups of the same input with the same split
+    """One view per op (of `ops`, default all); adjacent lookups of the same input with the same piece edge
     share one inline block (one |x|, one comparison), which the compiler cannot merge across two calls
     on its own. `flags` is how the clamp bits are stored after the last clamp; `reads` maps signals to
     the C expression that reads them where they are used (the fast part's state members)."""
@@ -317,7 +317,14 @@ def program_view(
             ]
             needs_x = key[2] is not None or any(m["t"]["needs_x"] for m in members)
             views.append(
-                {"kind": "group", "src": key[0], "abs": key[1], "split": key[2], "members": members, "needs_x": needs_x}
+                {
+                    "kind": "group",
+                    "src": key[0],
+                    "abs": key[1],
+                    "piece_edge": key[2],
+                    "members": members,
+                    "needs_x": needs_x,
+                }
             )
         else:
             view = _op_view(ops[k], proof, [n for n, _ in prog.call.clamp_names(prefix)], prefix)
@@ -328,10 +335,10 @@ def program_view(
     return {"name": prog.name, "ops": views}
 
 
-def split_view(fw: Firmware, tables: dict[str, dict[str, Any]], prefix: str) -> dict[str, Any]:
+def rates_view(fw: Firmware, tables: dict[str, dict[str, Any]], prefix: str) -> dict[str, Any]:
     """The two-rate form of the feed-forward: slow and fast op lists and the state between them."""
     prog = fw.design.feedforward
-    parts = split(prog)
+    parts = by_rate(prog)
     state = []
     for name in parts.state:
         r = fw.ff_proof.ranges[name]
@@ -411,7 +418,7 @@ def context(fw: Firmware) -> dict[str, Any]:
         "guard": f"{prefix.upper()}_FF_H",
         "tables": list(tables.values()),
         "feedforward": program_view(fw.design.feedforward, fw.ff_proof, tables, prefix),
-        **split_view(fw, tables, prefix),
+        **rates_view(fw, tables, prefix),
         "forward": program_view(fw.design.forward, fw.fwd_proof, tables, prefix),
         "calls": [_call_view(call, prefix) for call in interface.CALLS],
         "limits": [

@@ -2,7 +2,7 @@
 
 Integer mode uses numpy int64 and checks after every op that the value fits the 32-bit signal the C
 stores it in, so a wrap would be an error here rather than a silent difference.
-Real modes drop rounding for the error split: "exact" evaluates the functions themselves (and must
+Real modes drop rounding for the error breakdown: "model" evaluates the functions themselves (and must
 equal the float model), "interp" interpolates unrounded breakpoints, "quant" the stored entries.
 """
 
@@ -15,7 +15,7 @@ import numpy as np
 
 from . import fixedpoint as fx
 from . import tables as tb
-from .ops import Backdrive, Clamp, Lookup, Mul, Op, Program, Scale, Store, Sum, split
+from .ops import Backdrive, Clamp, Lookup, Mul, Op, Program, Scale, Store, Sum, by_rate
 
 INT32 = (fx.word_min(32), fx.word_max(32))
 
@@ -38,21 +38,21 @@ def _step(
     op: Op, env: dict[str, np.ndarray], tables: Mapping[str, tb.Table], inputs: Mapping[str, np.ndarray], *, mode: str
 ) -> np.ndarray:
     """One op's result: integers exactly as the C computes them (mode "int"), or real values."""
-    exact = mode == "int"
+    integer = mode == "int"
     match op:
         case Clamp():
             val = np.clip(_input(inputs, op), op.lo, op.hi)
-            return val if exact else val.astype(float)
+            return val if integer else val.astype(float)
         case Lookup():
             src = np.asarray(env[op.src], dtype=np.int64)
             table = tables[op.table]
-            return np.asarray(tb.lookup(table, src) if exact else tb.lookup_real(table, src, mode))
+            return np.asarray(tb.lookup(table, src) if integer else tb.lookup_real(table, src, mode))
         case Mul():
             a, b = env[op.a], env[op.b]
-            return np.asarray(fx.shift_round(a * b, op.shift) if exact else a * b * 2.0**-op.shift)
+            return np.asarray(fx.shift_round(a * b, op.shift) if integer else a * b * 2.0**-op.shift)
         case Scale():
             a = env[op.a]
-            return np.asarray(fx.shift_round(a * op.k, op.shift) if exact else a * op.k * 2.0**-op.shift)
+            return np.asarray(fx.shift_round(a * op.k, op.shift) if integer else a * op.k * 2.0**-op.shift)
         case Sum():
             (sign0, first), rest = op.terms[0], op.terms[1:]
             total = sign0 * env[first]
@@ -62,14 +62,14 @@ def _step(
         case Backdrive():
             src, speed = env[op.src], env[op.speed]
             opposed = ((src > 0) & (speed < 0)) | ((src < 0) & (speed > 0))
-            if exact:
+            if integer:
                 scaled = fx.shift_round(src * op.k, op.shift)
             else:
                 scaled = src * (op.k * 2.0**-op.shift if mode == "quant" else op.k_exact)
             return np.where(opposed, scaled, src)
         case Store():
             src = env[op.src]
-            return np.asarray(fx.shift_round(src, op.shift) if exact else src * 2.0**-op.shift)
+            return np.asarray(fx.shift_round(src, op.shift) if integer else src * 2.0**-op.shift)
         case _:
             assert_never(op)
 
@@ -97,12 +97,12 @@ def run(
     return result
 
 
-def run_split(
+def run_by_rate(
     program: Program, tables: Mapping[str, tb.Table], inputs: Mapping[str, np.ndarray]
 ) -> dict[str, np.ndarray]:
     """The two-rate form: the slow ops give the state (and their clamp bits), the fast ops read it.
     Returns the same fields as run(), plus 'state' (n, len(state)) as the C's state struct holds it."""
-    parts = split(program)
+    parts = by_rate(program)
     env: dict[str, np.ndarray] = {}
     _, slow_flags = run_ops(program, parts.slow, tables, inputs, env=env, mode="int")
     state = {name: env[name] for name in parts.state}

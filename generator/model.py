@@ -227,7 +227,7 @@ def _suggest(word: str, options: list[str]) -> str:
     return f" (did you mean '{close[0]}'?)" if close else ""
 
 
-def _describe(raw: Any) -> str:
+def _describe_raw(raw: Any) -> str:
     if isinstance(raw, bool):
         return f"boolean {str(raw).lower()}"
     if isinstance(raw, (int, float)):
@@ -245,34 +245,34 @@ def _read_value(src: str, where: str, spec: Key, raw: Any) -> float | str:
         if not isinstance(raw, str) or raw not in spec.choices:
             words = " or ".join(f"'{c}'" for c in spec.choices)
             hint = _suggest(raw, list(spec.choices)) if isinstance(raw, str) else ""
-            raise ModelError(src, where, words, _describe(raw) + hint)
+            raise ModelError(src, where, words, _describe_raw(raw) + hint)
         return raw
     if spec.kind is RATIO:
         if isinstance(raw, bool) or not isinstance(raw, (int, float)):
-            raise ModelError(src, where, "a bare number, no unit", _describe(raw))
+            raise ModelError(src, where, "a bare number, no unit", _describe_raw(raw))
         value = float(raw)
         if not math.isfinite(value):
-            raise ModelError(src, where, "a finite number", _describe(raw))
+            raise ModelError(src, where, "a finite number", _describe_raw(raw))
         return value
     if isinstance(raw, bool) or not isinstance(raw, str):
-        found = _describe(raw) + (" without a unit" if isinstance(raw, (int, float)) else "")
+        found = _describe_raw(raw) + (" without a unit" if isinstance(raw, (int, float)) else "")
         raise ModelError(src, where, f"{spec.kind.name} with a unit, such as {spec.kind.example}", found)
     try:
         return units.parse(raw, spec.kind)
     except ValueError:
-        raise ModelError(src, where, f"{spec.kind.name}, such as {spec.kind.example}", _describe(raw)) from None
+        raise ModelError(src, where, f"{spec.kind.name}, such as {spec.kind.example}", _describe_raw(raw)) from None
 
 
 def _check_range(src: str, where: str, spec: Key, value: float | str, *, raw: Any) -> None:
     if spec.check is not None and isinstance(value, float) and not spec.check(value):
-        raise ModelError(src, where, f"a value {spec.expect}", _describe(raw))
+        raise ModelError(src, where, f"a value {spec.expect}", _describe_raw(raw))
 
 
 def _read_section(src: str, name: str, table: Any) -> dict[str, Any]:
     """Validate one section's keys and return SI values keyed by schema key (defaults resolved)."""
     schema = SCHEMA[name]
     if not isinstance(table, dict):
-        raise ModelError(src, name, "a [section] table", _describe(table))
+        raise ModelError(src, name, "a [section] table", _describe_raw(table))
     for key in table:
         if key not in schema:
             raise ModelError(
@@ -300,9 +300,9 @@ def _read_name(src: str, doc: dict[str, Any]) -> str:
         raise ModelError(src, "name", "a C-safe name such as 'cart'", "nothing (the key is required)")
     name = doc["name"]
     if not isinstance(name, str) or not NAME_PATTERN.fullmatch(name):
-        raise ModelError(src, "name", "a name matching [a-z][a-z0-9_]{0,31}", _describe(name))
+        raise ModelError(src, "name", "a name matching [a-z][a-z0-9_]{0,31}", _describe_raw(name))
     if name in C_KEYWORDS:
-        raise ModelError(src, "name", "a name that is not a C or C++ keyword", _describe(name))
+        raise ModelError(src, "name", "a name that is not a C or C++ keyword", _describe_raw(name))
     return name
 
 
@@ -314,7 +314,7 @@ def _cross_checks(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any]) -
             src,
             "friction.breakaway",
             f"a force >= friction.coulomb ({fr['coulomb']:g} N)",
-            _describe(raw["friction"]["breakaway"]),
+            _describe_raw(raw["friction"]["breakaway"]),
         )
     for part in ("body", "payload"):
         limit = 3 * wh["track"]  # a long cart on a narrow track still passes
@@ -323,7 +323,7 @@ def _cross_checks(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any]) -
                 src,
                 f"{part}.gyration_radius",
                 f"a radius up to 3 x wheels.track ({limit:g} m) for this vehicle",
-                _describe(raw[part]["gyration_radius"]),
+                _describe_raw(raw[part]["gyration_radius"]),
             )
     _firmware_steps(src, s, raw)
     _deadband_rules(src, s, raw)
@@ -347,7 +347,7 @@ def _firmware_steps(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any])
                 src,
                 f"firmware.{key}",
                 f"a step that puts {what} between 1 and 2^30 steps",
-                f"{_describe(raw['firmware'][key])} ({count:.3g} steps)",
+                f"{_describe_raw(raw['firmware'][key])} ({count:.3g} steps)",
             )
 
 
@@ -360,7 +360,7 @@ def _deadband_rules(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any])
             src,
             "friction.deadband",
             f"a speed below envelope.speed_max ({env['speed_max']:g} m/s)",
-            _describe(raw["friction"]["deadband"]),
+            _describe_raw(raw["friction"]["deadband"]),
         )
 
 

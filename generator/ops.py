@@ -1,5 +1,5 @@
 """The op vocabulary of the firmware programs: each op kind, what it reads, the range of its result,
-and the split of a program into its slow and fast parts. The builder (program.py) emits ops; the
+and the division of a program by rate (its slow and fast parts). The builder (program.py) emits ops; the
 emulator interprets them, the analysis proves them, and the templates print one C statement per op.
 """
 
@@ -114,7 +114,7 @@ SLOW_FIELDS = ("pitch", "roll", "payload")
 
 
 @dataclass(frozen=True)
-class Split:
+class Rates:
     """A program in two rates: the ops that depend only on the slow inputs, the rest, and the slow
     signals the fast ops read (the state the slow part hands over, in program order)."""
 
@@ -123,7 +123,7 @@ class Split:
     state: tuple[str, ...]
 
 
-def split(program: Program) -> Split:
+def by_rate(program: Program) -> Rates:
     """Partition the ops by dataflow: an op is slow when it clamps a slow input or reads only slow
     signals. Running the slow ops, then the fast ones, is the same program: the same integers."""
     slow_names: set[str] = set()
@@ -136,7 +136,7 @@ def split(program: Program) -> Split:
             fast.append(op)
     used = {name for op in fast for name in op_inputs(op)}
     state = tuple(op.dst for op in slow if op.dst in used)
-    return Split(tuple(slow), tuple(fast), state)
+    return Rates(slow=tuple(slow), fast=tuple(fast), state=state)
 
 
 def _is_slow(op: Op, slow_names: set[str]) -> bool:

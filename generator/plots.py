@@ -71,8 +71,8 @@ def _curves(fw: Firmware, name: str, lo: int, hi: int) -> tuple[np.ndarray, np.n
     spec = table.spec
     xs = np.unique(np.linspace(lo, hi, 4001).round().astype(np.int64))
     got = tb.lookup(table, xs) * 2.0**-spec.frac_bits * spec.si_scale
-    exact = tb.lookup_real(table, xs, "exact") * 2.0**-spec.frac_bits * spec.si_scale
-    return xs, got, exact
+    model_values = tb.lookup_real(table, xs, "model") * 2.0**-spec.frac_bits * spec.si_scale
+    return xs, got, model_values
 
 
 def _breakpoints(fw: Firmware, name: str) -> np.ndarray:
@@ -95,9 +95,9 @@ def _panel(fw: Firmware, name: str, axes: tuple[Any, Any], *, lo: int, hi: int) 
     """Model and table (breakpoints marked) on top, their difference below, on inputs lo..hi."""
     spec = fw.tables[name].spec
     per_step, unit = _input_axis(fw, spec.source)
-    xs, got, exact = _curves(fw, name, lo, hi)
+    xs, got, model_values = _curves(fw, name, lo, hi)
     top, bottom = axes
-    top.plot(xs * per_step, exact, label="model (float)", lw=2.5, color="#1b6f8a", zorder=1)
+    top.plot(xs * per_step, model_values, label="model (float)", lw=2.5, color="#1b6f8a", zorder=1)
     top.plot(xs * per_step, got, label="table (integer)", lw=1, color="#c2571a", zorder=2)
     bx = _breakpoints(fw, name)
     bx = bx[(bx >= lo) & (bx <= hi)]
@@ -105,7 +105,7 @@ def _panel(fw: Firmware, name: str, axes: tuple[Any, Any], *, lo: int, hi: int) 
     top.set_ylabel(_quantity(spec, name))
     top.set_xlabel(f"{spec.source} [{unit}]")
     top.legend(loc="best", fontsize=8)
-    bottom.plot(xs * per_step, got - exact, lw=1, color="#6a3d9a")
+    bottom.plot(xs * per_step, got - model_values, lw=1, color="#6a3d9a")
     bottom.set_ylabel(f"table - model [{spec.si_unit}]")
     bottom.set_xlabel(f"{spec.source} [{unit}]")
 
@@ -116,7 +116,7 @@ def table_plot(fw: Firmware, name: str) -> bytes:
     spec = fw.tables[name].spec
     hi = spec.pieces[-1].x1
     lo = -hi if spec.symmetry != "none" else spec.pieces[0].x0
-    zoom = spec.split_at
+    zoom = spec.piece_edge
     fig, axes = plt.subplots(2, 2 if zoom else 1, figsize=(11 if zoom else 7, 6), squeeze=False, layout="constrained")
     fig.suptitle(f"{fw.vehicle.name}: table {name}, {spec.meaning}", fontsize=10)
     _panel(fw, name, (axes[0][0], axes[1][0]), lo=lo, hi=hi)

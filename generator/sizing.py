@@ -1,4 +1,5 @@
-"""Automatic table sizing: the fewest table bytes whose proven end-to-end error bound meets the budget.
+"""Automatic table sizing: the cheapest tables whose proven end-to-end error bound meets the budget, by
+the model's objective (`firmware.sizing`: lookup instructions, then bytes; or bytes alone).
 
 Each table piece has a short list of candidate segment counts (constant, 1, 2, 4, ... up to exact,
 each kept only if it lowers the measured error). A depth-first branch and bound over the pieces,
@@ -60,7 +61,9 @@ INSTRUCTION_WEIGHT = 1 << 24  # above any table byte total: instructions decide,
 
 
 @dataclass(frozen=True)
-class Unit:
+class PieceSizes:
+    """One table piece's candidate sizes and what each costs: the unit the search chooses over."""
+
     table: str
     piece: int
     cands: tb.Candidates
@@ -92,10 +95,12 @@ class Sizing:
     over_cap: bool = False  # the budget needs more bytes than the cap: sized for fewest bytes instead
 
 
-def units_for(specs: Mapping[str, tb.TableSpec], names: list[str], program: Program | None = None) -> list[Unit]:
+def pieces_to_size(
+    specs: Mapping[str, tb.TableSpec], names: list[str], program: Program | None = None
+) -> list[PieceSizes]:
     counts = {n: sum(1 for op in program.ops if op_table(op) == n) for n in names} if program else {}
     return [
-        Unit(
+        PieceSizes(
             table=n,
             piece=k,
             cands=tb.piece_candidates(specs[n], p),
@@ -107,65 +112,65 @@ def units_for(specs: Mapping[str, tb.TableSpec], names: list[str], program: Prog
     ]
 
 
-def _merge(units: list[Unit], choice: list, fixed: Mapping[str, float]) -> dict[str, Any]:
+def _merge(pieces: list[PieceSizes], choice: list, fixed: Mapping[str, float]) -> dict[str, Any]:
     errs: dict[str, Any] = dict(fixed)
     seen: set[str] = set()
-    for u, e in zip(units, choice):
+    for u, e in zip(pieces, choice):
         errs[u.table] = np.maximum(errs[u.table], e) if u.table in seen else e
         seen.add(u.table)
     return errs
 
 
 def search(
-    bound: Bound, units: list[Unit], budget: float, fixed: Mapping[str, float], *, objective: Objective = BYTES
+    bound: Bound, pieces: list[PieceSizes], budget: float, fixed: Mapping[str, float], *, objective: Objective = BYTES
 ) -> tuple[list[int] | None, int]:
     """Branch and bound: the candidate index per unit with the least cost and bound <= budget (and
     bytes <= the objective's cap).
 
     Units whose dearest candidate costs most are decided first: their choice moves the total most,
     so the cost cut prunes early (18 nodes instead of ~2,700 on the demo, sizing for bytes)."""
-    order = sorted(range(len(units)), key=lambda k: -max(units[k].cost(c, objective.goal) for c in _all(units[k])))
-    choice, visited = _search([units[k] for k in order], bound, budget, fixed, objective=objective)
+    order = sorted(range(len(pieces)), key=lambda k: -max(pieces[k].cost(c, objective.goal) for c in _all(pieces[k])))
+    choice, visited = _search([pieces[k] for k in order], bound, budget, fixed, objective=objective)
     if choice is None:
         return None, visited
-    out = [0] * len(units)
+    out = [0] * len(pieces)
     for pos, k in enumerate(order):
         out[k] = choice[pos]
     return out, visited
 
 
-def _all(u: Unit) -> range:
+def _all(u: PieceSizes) -> range:
     return range(len(u.cands.segments))
 
 
 def _search(
-    units: list[Unit], bound: Bound, budget: float, fixed: Mapping[str, float], *, objective: Objective
+    pieces: list[PieceSizes], bound: Bound, budget: float, fixed: Mapping[str, float], *, objective: Objective
 ) -> tuple[list[int] | None, int]:
     goal, cap = objective.goal, objective.bytes_max
-    best_err = [u.error(len(u.cands.segments) - 1) for u in units]
-    lowest = _lowest_feasible(bound, units, budget, fixed, best_err=best_err)
+    best_err = [u.error(len(u.cands.segments) - 1) for u in pieces]
+    lowest = _lowest_feasible(bound, pieces, budget, fixed, best_err=best_err)
     if lowest is None:
         return None, 0
     # per unit, its feasible candidates cheapest first (with bytes, cost grows with the segment count)
-    orders = [sorted(range(lo, len(u.cands.segments)), key=partial(u.cost, goal=goal)) for u, lo in zip(units, lowest)]
-    rest_cost = _suffix([u.cost(o[0], goal) for u, o in zip(units, orders)])
-    rest_bytes = _suffix([min(u.bytes(c) for c in o) for u, o in zip(units, orders)])
+    orders = [sorted(range(lo, len(u.cands.segments)), key=partial(u.cost, goal=goal)) for u, lo in zip(pieces, lowest)]
+    rest_cost = _suffix([u.cost(o[0], goal) for u, o in zip(pieces, orders)])
+    rest_bytes = _suffix([min(u.bytes(c) for c in o) for u, o in zip(pieces, orders)])
     best: dict[str, Any] = {"cost": float("inf"), "choice": None}
-    start = _greedy(bound, units, budget, fixed, objective=objective)
+    start = _greedy(bound, pieces, budget, fixed, objective=objective)
     if start is not None:
-        best["cost"], best["choice"] = sum(u.cost(c, goal) for u, c in zip(units, start)) + 1, start
+        best["cost"], best["choice"] = sum(u.cost(c, goal) for u, c in zip(pieces, start)) + 1, start
     visited = 0
 
     def dfs(k: int, choice: list[int], used: int, used_bytes: int) -> None:
         nonlocal visited
         visited += 1
-        if k == len(units):
+        if k == len(pieces):
             best["cost"], best["choice"] = used, list(choice)
             return
-        u = units[k]
+        u = pieces[k]
         errs = np.array([e.total for e in u.cands.errors])
-        trial = [units[j].error(c) for j, c in enumerate(choice)] + [errs] + best_err[k + 1 :]
-        bounds = np.broadcast_to(bound(_merge(units, trial, fixed)), errs.shape)
+        trial = [pieces[j].error(c) for j, c in enumerate(choice)] + [errs] + best_err[k + 1 :]
+        bounds = np.broadcast_to(bound(_merge(pieces, trial, fixed)), errs.shape)
         for c in orders[k]:
             if used + u.cost(c, goal) + rest_cost[k + 1] >= best["cost"]:
                 break
@@ -182,15 +187,15 @@ def _suffix(values: list[int]) -> list[int]:
 
 
 def _lowest_feasible(
-    bound: Bound, units: list[Unit], budget: float, fixed: Mapping[str, float], *, best_err: list[float]
+    bound: Bound, pieces: list[PieceSizes], budget: float, fixed: Mapping[str, float], *, best_err: list[float]
 ) -> list[int] | None:
     """Per unit, its cheapest candidate that meets the budget with every other unit most accurate:
     no cheaper candidate can be part of any answer."""
     out = []
-    for k, u in enumerate(units):
+    for k, u in enumerate(pieces):
         errs = np.array([e.total for e in u.cands.errors])
         trial = best_err[:k] + [errs] + best_err[k + 1 :]
-        ok = np.flatnonzero(np.broadcast_to(bound(_merge(units, trial, fixed)), errs.shape) <= budget)
+        ok = np.flatnonzero(np.broadcast_to(bound(_merge(pieces, trial, fixed)), errs.shape) <= budget)
         if ok.size == 0:
             return None
         out.append(int(ok[0]))
@@ -198,21 +203,21 @@ def _lowest_feasible(
 
 
 def _greedy(
-    bound: Bound, units: list[Unit], budget: float, fixed: Mapping[str, float], *, objective: Objective
+    bound: Bound, pieces: list[PieceSizes], budget: float, fixed: Mapping[str, float], *, objective: Objective
 ) -> list[int] | None:
     """A good first answer for the search to beat: from most accurate, keep taking the change to a
     cheaper candidate that saves the most while the bound still holds; None when over the byte cap."""
     goal = objective.goal
-    choice = [len(u.cands.segments) - 1 for u in units]
+    choice = [len(u.cands.segments) - 1 for u in pieces]
 
     def at(ch: list[int]) -> float:
-        return float(bound(_merge(units, [u.error(c) for u, c in zip(units, ch)], fixed)))
+        return float(bound(_merge(pieces, [u.error(c) for u, c in zip(pieces, ch)], fixed)))
 
     if at(choice) > budget:
         return None
     while True:
         moves = []
-        for j, u in enumerate(units):
+        for j, u in enumerate(pieces):
             now = u.cost(choice[j], goal)
             for c in sorted(_all(u), key=partial(u.cost, goal=goal)):
                 if u.cost(c, goal) >= now:
@@ -224,18 +229,18 @@ def _greedy(
             break
         _, j, c = max(moves)
         choice[j] = c
-    return choice if sum(u.bytes(c) for u, c in zip(units, choice)) <= objective.bytes_max else None
+    return choice if sum(u.bytes(c) for u, c in zip(pieces, choice)) <= objective.bytes_max else None
 
 
-def limiting_table(bound: Bound, units: list[Unit], fixed: Mapping[str, float]) -> tuple[float, str]:
+def limiting_table(bound: Bound, pieces: list[PieceSizes], fixed: Mapping[str, float]) -> tuple[float, str]:
     """The bound with every piece at its most accurate size, and the table whose error costs most."""
-    best = [u.error(len(u.cands.segments) - 1) for u in units]
-    full = float(bound(_merge(units, best, fixed)))
+    best = [u.error(len(u.cands.segments) - 1) for u in pieces]
+    full = float(bound(_merge(pieces, best, fixed)))
     gains = {}
-    for name in {u.table for u in units}:
-        trial = [0.0 if u.table == name else e for u, e in zip(units, best)]
-        gains[name] = full - float(bound(_merge(units, trial, fixed)))
-    floor = float(bound(_merge(units, [0.0] * len(units), fixed)))
+    for name in {u.table for u in pieces}:
+        trial = [0.0 if u.table == name else e for u, e in zip(pieces, best)]
+        gains[name] = full - float(bound(_merge(pieces, trial, fixed)))
+    floor = float(bound(_merge(pieces, [0.0] * len(pieces), fixed)))
     worst = max(gains, key=lambda n: gains[n]) if gains and max(gains.values()) > 0 else "(output rounding)"
     return full, worst if full - floor > 1e-12 else "(arithmetic rounding)"
 
@@ -257,29 +262,29 @@ def size(
     fixed = dict(fixed or {})
     fixed_errors = dict(fixed_errors or {})
     fixed_max = {n: max(e.total for e in errs) for n, errs in fixed_errors.items()}
-    units = units_for(specs, names, program)
+    pieces = pieces_to_size(specs, names, program)
     bound = analysis.compile_bound(program, specs)
-    choice, visited = search(bound, units, budget_steps, fixed_max, objective=objective)
+    choice, visited = search(bound, pieces, budget_steps, fixed_max, objective=objective)
     over_cap = False
     if choice is None and objective != BYTES:
-        choice, more = search(bound, units, budget_steps, fixed_max, objective=BYTES)
+        choice, more = search(bound, pieces, budget_steps, fixed_max, objective=BYTES)
         visited, over_cap = visited + more, choice is not None
     if choice is None:
-        achievable, table = limiting_table(bound, units, fixed_max)
+        achievable, table = limiting_table(bound, pieces, fixed_max)
         raise CheckFailed(
             f"{what} cannot be met: the best achievable bound is {achievable:.4g} output steps "
             f"(limited by table '{table}') against a budget of {budget_steps:.4g} steps"
         )
     built: dict[str, list[tb.PieceData]] = {n: [] for n in names}
     errors: dict[str, list[tb.PieceError]] = {n: [] for n in names}
-    for u, c in zip(units, choice):
+    for u, c in zip(pieces, choice):
         built[u.table].append(u.cands.data[c])
         errors[u.table].append(u.cands.errors[c])
     out_tables = {**fixed, **{n: tb.Table(specs[n], tuple(built[n])) for n in names}}
     out_errors = {**fixed_errors, **{n: tuple(errors[n]) for n in names}}
     final = float(bound(analysis.table_errors(out_tables, out_errors)))
     total = sum(out_tables[n].bytes for n in names)
-    instructions = sum(u.instructions(c) for u, c in zip(units, choice))
+    instructions = sum(u.instructions(c) for u, c in zip(pieces, choice))
     return Sizing(
         tables=out_tables,
         errors=out_errors,

@@ -212,8 +212,8 @@ def best_bound_a(v: Vehicle, *, exact: bool = True) -> float:
     its most accurate candidate, products exact unless told): what a budget must allow at least."""
     des = program.design(v, exact=exact)
     names = [n for n in des.specs if not n.startswith("minv")]
-    units = sizing.units_for(des.specs, names)
-    achievable, _ = sizing.limiting_table(analysis.compile_bound(des.feedforward, des.specs), units, {})
+    pieces = sizing.pieces_to_size(des.specs, names)
+    achievable, _ = sizing.limiting_table(analysis.compile_bound(des.feedforward, des.specs), pieces, {})
     return achievable * v.firmware.current_lsb_a
 
 

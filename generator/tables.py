@@ -54,7 +54,8 @@ class TableSpec:
     model_keys: tuple[str, ...] = ()  # the model keys its values come from, for its C comment
 
     @property
-    def split_at(self) -> int | None:
+    def piece_edge(self) -> int | None:
+        """The last input of the first piece when there are two (the deadband edge), else None."""
         return self.pieces[0].x1 if len(self.pieces) == 2 else None
 
 
@@ -237,7 +238,7 @@ def _masks(spec: TableSpec, ax: np.ndarray) -> list[np.ndarray]:
 def lookup_real(table: Table, x: np.ndarray, mode: str) -> np.ndarray:
     """Real-valued counterpart in integer units, for the error split.
 
-    mode "exact": the function itself; "interp": interpolation of unrounded breakpoints;
+    mode "model": the function itself; "interp": interpolation of unrounded breakpoints;
     "quant": interpolation of the stored (rounded) entries without the lookup's own rounding.
     """
     x = np.asarray(x, dtype=np.int64)
@@ -246,7 +247,7 @@ def lookup_real(table: Table, x: np.ndarray, mode: str) -> np.ndarray:
     out = np.zeros(np.shape(x), dtype=float)
     for piece, data, mask in zip(spec.pieces, table.pieces, _masks(spec, ax)):
         xs = np.clip(ax, piece.x0, piece.x1)
-        if mode == "exact":
+        if mode == "model":
             vals = piece.func(xs) * 2.0**spec.frac_bits
         else:
             vals = _interp_real(spec, piece, data, xs, quantised=(mode == "quant"))

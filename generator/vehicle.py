@@ -68,7 +68,9 @@ class Envelope:
 
 
 @dataclass(frozen=True)
-class Firmware:
+class FirmwareFormat:
+    """The [firmware] section: the SI value of one step of each quantity, the table word, the budget."""
+
     speed_lsb_mps: float
     accel_lsb_mps2: float
     angle_lsb_rad: float
@@ -92,7 +94,7 @@ class Vehicle:
     drive: Drive
     friction: Friction
     envelope: Envelope
-    firmware: Firmware
+    firmware: FirmwareFormat
     source: str = "<model>"
 
     def normalised(self) -> dict[str, Any]:
@@ -110,5 +112,5 @@ SECTION_TYPES: dict[str, type] = {
     "drive": Drive,
     "friction": Friction,
     "envelope": Envelope,
-    "firmware": Firmware,
+    "firmware": FirmwareFormat,
 }

@@ -8,14 +8,12 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from kinetab.generator import dynamics
+from kinetab.generator import dynamics, interface
 from kinetab.generator.vehicle import Vehicle
 
 from . import benchdata
 from .benchdata import BenchLog
 from .planfile import PHASES
-
-SIDES = ("right", "left")
 
 
 @dataclass(frozen=True)
@@ -79,7 +77,7 @@ def compare(v: Vehicle, log: BenchLog, *, tolerance_a: float | None = None) -> d
     residual = (log.current - primary)[ok]
     noise = benchdata.noise_floor(log)
     tol = tolerance_a if tolerance_a is not None else math.hypot(v.firmware.current_budget_a, noise)
-    per_wheel = {s: stats(residual[:, k]) for k, s in enumerate(SIDES)}
+    per_wheel = {s: stats(residual[:, k]) for k, s in enumerate(interface.SIDES)}
     passed = all(st.rms <= tol for st in per_wheel.values())
     phases = log.phase[ok]
     return {
@@ -95,10 +93,10 @@ def compare(v: Vehicle, log: BenchLog, *, tolerance_a: float | None = None) -> d
         else "sqrt(current_budget^2 + noise_floor^2), on the RMS residual of each wheel",
         "passed": passed,
         "wheels": {s: vars(st) for s, st in per_wheel.items()},
-        "at_setpoint": {s: vars(stats((log.current - at_setpoint)[ok][:, k])) for k, s in enumerate(SIDES)},
-        "at_measured": {s: vars(stats((log.current - at_measured)[ok][:, k])) for k, s in enumerate(SIDES)},
+        "at_setpoint": {s: vars(stats((log.current - at_setpoint)[ok][:, k])) for k, s in enumerate(interface.SIDES)},
+        "at_measured": {s: vars(stats((log.current - at_measured)[ok][:, k])) for k, s in enumerate(interface.SIDES)},
         "phases": {
-            p: {s: vars(stats(residual[phases == p][:, k])) for k, s in enumerate(SIDES)}
+            p: {s: vars(stats(residual[phases == p][:, k])) for k, s in enumerate(interface.SIDES)}
             for p in PHASES
             if np.any(phases == p)
         },

@@ -9,7 +9,7 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-from kinetab.generator import outputs
+from kinetab.generator import interface, outputs
 
 from .benchdata import BenchLog
 
@@ -21,7 +21,6 @@ PHASE_COLOURS = {
     "turning": "#d6e4f0",
     "spin": "#eadcf0",
 }
-SIDES = ("right", "left")
 
 
 def _shade(ax: Any, t: np.ndarray, phase: np.ndarray) -> None:
@@ -36,7 +35,7 @@ def _currents(axes: Any, log: BenchLog, pred: np.ndarray) -> None:
     """One panel per wheel: measured and model current over time, phases shaded, a legend for both."""
     from matplotlib.patches import Patch
 
-    for k, (ax, side) in enumerate(zip(axes, SIDES)):
+    for k, (ax, side) in enumerate(zip(axes, interface.SIDES)):
         _shade(ax, log.t, log.phase)
         ax.plot(log.t, log.current[:, k], lw=0.6, color="#1b6f8a", label="measured")
         ax.plot(log.t, pred[:, k], lw=0.9, color="#c2571a", label="model")
@@ -52,7 +51,7 @@ def _phase_bars(ax: Any, doc: dict[str, Any]) -> None:
     names = ["all", *doc["phases"]]
     rows = {"all": doc["wheels"], **doc["phases"]}
     x = np.arange(len(names))
-    for k, side in enumerate(SIDES):
+    for k, side in enumerate(interface.SIDES):
         ax.bar(x + (k - 0.5) * 0.38, [rows[n][side]["rms"] * 1000 for n in names], 0.38, label=f"{side} wheel")
     ax.axhline(
         doc["tolerance_a"] * 1000, color="#c2571a", ls="--", label=f"tolerance {doc['tolerance_a'] * 1000:.3g} mA"
@@ -76,11 +75,11 @@ def render(log: BenchLog, doc: dict[str, Any], *, model_name: str) -> bytes:
     pred, res = doc["series"]["predicted"], doc["series"]["residual_full"]
     fig, axes = plt.subplots(4, 1, figsize=(10, 13))
     verdict = "PASS" if doc["passed"] else "FAIL"
-    rms = ", ".join(f"{s} {doc['wheels'][s]['rms'] * 1000:.1f} mA" for s in SIDES)
+    rms = ", ".join(f"{s} {doc['wheels'][s]['rms'] * 1000:.1f} mA" for s in interface.SIDES)
     fig.suptitle(f"{model_name} against {Path(doc['log']).name} ({doc['rig']}): {verdict} (RMS {rms})")
     _currents(axes[:2], log, pred)
     _phase_bars(axes[2], doc)
-    for k, side in enumerate(SIDES):
+    for k, side in enumerate(interface.SIDES):
         axes[3].plot(log.speed[log.valid, k], res[log.valid, k] * 1000, ".", ms=1, alpha=0.4, label=f"{side} wheel")
     axes[3].set_xlabel("measured rim speed [m/s]")
     axes[3].set_ylabel("measured - model [mA]")

@@ -25,14 +25,14 @@ def _run(layout: messages.Layout, name: str, st: interface.Struct) -> list[tuple
 
 
 def wire(
-    table: dict[messages.Kind, messages.Layout] = messages.LAYOUT,
+    table: dict[messages.MessageType, messages.Layout] = messages.LAYOUT,
     *,
     inputs: interface.Struct = interface.FF_IN,
     ff: interface.Struct = interface.FF_OUT,
     measured: interface.Struct = interface.MEASURED,
 ) -> dict[str, Any]:
     """Message codes, lengths and every field's byte offset (the type byte at 0), from the layouts."""
-    kinds = messages.Kind
+    kinds = messages.MessageType
     return {
         "kinds": [(k.name, f"0x{int(k):02X}", 1 + table[k].size) for k in kinds],
         "at": {k.name: table[k].offsets() for k in kinds},

@@ -16,7 +16,7 @@ from kinetab.generator import interface
 PROTOCOL_VERSION = 2  # 2: setpoint flag bit 1 (no feed-forward)
 
 
-class Kind(IntEnum):
+class MessageType(IntEnum):
     """Type byte of each message; host to controller below 0x80, controller to host from 0x80."""
 
     HELLO = 0x01
@@ -161,11 +161,11 @@ def layouts(
     inputs: interface.Struct = interface.FF_IN,
     ff: interface.Struct = interface.FF_OUT,
     measured: interface.Struct = interface.MEASURED,
-) -> dict[Kind, Layout]:
+) -> dict[MessageType, Layout]:
     """Every message's layout; the setpoint and sample carry the columns of the interface structs."""
     return {
-        Kind.HELLO: Layout(Hello, (Field("version", "u8"),)),
-        Kind.IDENTIFY: Layout(
+        MessageType.HELLO: Layout(Hello, (Field("version", "u8"),)),
+        MessageType.IDENTIFY: Layout(
             Identify,
             (
                 Field("version", "u8"),
@@ -175,13 +175,13 @@ def layouts(
                 Field("watchdog_ms", "u16"),
             ),
         ),
-        Kind.ARM: Layout(Arm, (Field("first_seq", "u16"), Field("prefill", "u16"))),
-        Kind.ARMED: Layout(Armed, (Field("first_seq", "u16"), Field("free", "u16"))),
-        Kind.SETPOINT: Layout(
+        MessageType.ARM: Layout(Arm, (Field("first_seq", "u16"), Field("prefill", "u16"))),
+        MessageType.ARMED: Layout(Armed, (Field("first_seq", "u16"), Field("free", "u16"))),
+        MessageType.SETPOINT: Layout(
             Setpoint, (Field("seq", "u16"), Field("flags", "u8"), Field("inputs", "i32", inputs.columns))
         ),
-        Kind.HALT: Layout(Halt, ()),
-        Kind.SAMPLE: Layout(
+        MessageType.HALT: Layout(Halt, ()),
+        MessageType.SAMPLE: Layout(
             Sample,
             (
                 Field("seq", "u16"),
@@ -193,7 +193,7 @@ def layouts(
                 Field("measured", "i32", measured.columns),
             ),
         ),
-        Kind.FAULT: Layout(Fault, (Field("code", "u8"), Field("seq", "u16"))),
+        MessageType.FAULT: Layout(Fault, (Field("code", "u8"), Field("seq", "u16"))),
     }
 
 
@@ -214,16 +214,16 @@ def encode(msg: Message) -> bytes:
     return bytes([kind]) + struct.pack(layout.fmt, *values)
 
 
-TO_CONTROLLER = frozenset({Kind.HELLO, Kind.ARM, Kind.SETPOINT, Kind.HALT})
-TO_HOST = frozenset({Kind.IDENTIFY, Kind.ARMED, Kind.SAMPLE, Kind.FAULT})
+TO_CONTROLLER = frozenset({MessageType.HELLO, MessageType.ARM, MessageType.SETPOINT, MessageType.HALT})
+TO_HOST = frozenset({MessageType.IDENTIFY, MessageType.ARMED, MessageType.SAMPLE, MessageType.FAULT})
 
 
-def decode(payload: bytes, kinds: frozenset[Kind] = TO_HOST) -> Message | str:
+def decode(payload: bytes, kinds: frozenset[MessageType] = TO_HOST) -> Message | str:
     """A message of one of `kinds` (what this side receives), or the cause it is dropped for:
     "unknown_type" or "length". Never raises."""
     if not payload or payload[0] not in {int(k) for k in kinds}:
         return "unknown_type"
-    kind = Kind(payload[0])
+    kind = MessageType(payload[0])
     layout = LAYOUT[kind]
     if len(payload) - 1 != layout.size:
         return "length"

@@ -199,7 +199,7 @@ def test_two_rates_equal_the_one_call_form_and_the_emulation(demo_dir):
     exe = build_harness(demo_dir, "larkspur")
     assert np.array_equal(run_harness(exe, rows[:, :n], "split"), rows[:, n:])
     inp = interface.rows_to_fields(interface.FF_IN, rows[:, :n])
-    both = emulate.run_split(fw.design.feedforward, fw.tables, inp)
+    both = emulate.run_by_rate(fw.design.feedforward, fw.tables, inp)
     assert np.array_equal(both["current"], rows[:, n : n + 2]) and np.array_equal(both["clamped"], rows[:, n + 2])
 
 

@@ -155,9 +155,9 @@ def test_protocol_document_tables_match_the_layout():
     types, order and lengths as messages.LAYOUT (which the codecs and the link C use)."""
     text = (Path(messages.__file__).parent / "PROTOCOL.md").read_text(encoding="utf-8")
     rows = re.findall(r"^\| (0x[0-9A-F]{2}) \| (\w+) \| (.*) \| (\d+) \|$", text, re.M)
-    assert {name for _, name, _, _ in rows} == {k.name for k in messages.Kind}
+    assert {name for _, name, _, _ in rows} == {k.name for k in messages.MessageType}
     for code, name, cell, length in rows:
-        kind = messages.Kind[name]
+        kind = messages.MessageType[name]
         layout = messages.LAYOUT[kind]
         assert int(code, 16) == int(kind), name
         assert int(length) == 1 + layout.size, f"{name}: document says {length} bytes"

@@ -44,7 +44,7 @@ def test_an_added_input_reaches_plan_wire_c_and_options():
     assert planfile.plan_columns(EXTENDED) == (*planfile.PLAN_COLUMNS, "yaw_rate")
 
     table = messages.layouts(inputs=EXTENDED)
-    assert table[messages.Kind.SETPOINT].size == messages.LAYOUT[messages.Kind.SETPOINT].size + 4
+    assert table[messages.MessageType.SETPOINT].size == messages.LAYOUT[messages.MessageType.SETPOINT].size + 4
     view = linkview.wire(table, inputs=EXTENDED)
     lvalue, offset = view["wire"]["setpoint_inputs"][-1]
     assert (lvalue, offset) == ("yaw_rate", 1 + 2 + 1 + 4 * n)  # type byte, u16 seq, u8 flags, n x i32

@@ -24,10 +24,10 @@ def _random_inputs(lim, n, rng):
 
 
 def test_program_algebra_equals_float_model():
-    """Run without tables or rounding ("exact" mode), the program reproduces dynamics.py to 1e-9."""
+    """Run without tables or rounding ("model" mode), the program reproduces dynamics.py to 1e-9."""
     fw = demo_firmware()
     inp = _random_inputs(fw.design.limits, 20000, np.random.default_rng(3))
-    exact = emulate.run(fw.design.feedforward, fw.tables, inp, "exact")["current"] * fw.vehicle.firmware.current_lsb_a
+    exact = emulate.run(fw.design.feedforward, fw.tables, inp, "model")["current"] * fw.vehicle.firmware.current_lsb_a
     ref = accuracy.reference_current(fw, accuracy.operating_point(fw, inp))
     assert exact == pytest.approx(ref, rel=1e-9, abs=1e-9)
 
@@ -47,7 +47,7 @@ def test_forward_program_algebra_equals_float_forward_dynamics():
     qr = dynamics.force_from_current(v, cur[:, 0] * lsb, op.speed_right)
     ql = dynamics.force_from_current(v, cur[:, 1] * lsb, op.speed_left)
     ref = np.stack(dynamics.forward_accel(v, op, qr, ql), -1)
-    got = emulate.run(fw.design.forward, fw.tables, fin, "exact")["accel"] * v.firmware.accel_lsb_mps2
+    got = emulate.run(fw.design.forward, fw.tables, fin, "model")["accel"] * v.firmware.accel_lsb_mps2
     assert got == pytest.approx(ref, rel=1e-9, abs=1e-9)
     fixed = emulate.run(fw.design.forward, fw.tables, fin)["accel"] * v.firmware.accel_lsb_mps2
     assert np.max(np.abs(fixed - ref)) <= fw.fwd_bound_mps2

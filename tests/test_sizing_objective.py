@@ -17,7 +17,7 @@ from tests.firmware_fixtures import demo_firmware
 KIND_SHAPES = {0: (0, 0), 1: (1, 6), 2: (4, 4), 3: (64, 0)}  # candidate -> (segments, shift): the four kinds
 
 
-def _unit(name: str, errors: list[float], lookups: int) -> sizing.Unit:
+def _unit(name: str, errors: list[float], lookups: int) -> sizing.PieceSizes:
     """A table piece with four candidates (constant, one segment, indexed, direct) and given errors."""
     cands = tb.Candidates()
     for k, err in enumerate(errors):
@@ -25,7 +25,7 @@ def _unit(name: str, errors: list[float], lookups: int) -> sizing.Unit:
         cands.segments.append(segments)
         cands.errors.append(tb.PieceError(err, err, 0, True))
         cands.data.append(tb.PieceData(segments, shift, np.zeros(segments + 1, dtype=np.int64)))
-    return sizing.Unit(name, 0, cands, 2, lookups)
+    return sizing.PieceSizes(table=name, piece=0, cands=cands, word_bytes=2, lookups=lookups)
 
 
 def _bound(weights: dict[str, float]):
