@@ -31,9 +31,6 @@ from .ops import (
     split_fits,
 )
 
-I32 = fx.Interval(fx.word_min(32), fx.word_max(32))
-I64 = fx.Interval(fx.word_min(64), fx.word_max(64))
-
 
 @dataclass(frozen=True)
 class Proof:

@@ -329,6 +329,8 @@ def rig_currents(v: Vehicle, op: OperatingPoint, rig: str) -> Array:
 def rig_wheel_forces(v: Vehicle, op: OperatingPoint, rig: str) -> tuple[WheelForces, WheelForces]:
     """wheel_forces on the floor; with the wheels up only the rotating parts (the reflected wheel and
     rotor inertia) and the drivetrain friction act: no vehicle mass, no ground, no gravity."""
+    if rig not in RIGS:
+        raise ValueError(f"rig: expected one of {', '.join(RIGS)}, found {rig!r}")
     if rig == "on-floor":
         return wheel_forces(v, op)
     m_rot, zero = reflected_mass(v), np.zeros(np.shape(np.asarray(op.speed_right, float)))

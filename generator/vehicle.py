@@ -78,8 +78,8 @@ class FirmwareFormat:
     current_lsb_a: float
     current_budget_a: float
     word: str
-    sizing: str = "instructions"  # what sizing minimises: "instructions" (then bytes) or "bytes"
-    table_bytes_max: float = 2048.0  # cap on table bytes when minimising instructions
+    sizing: str  # what sizing minimises: "instructions" (then bytes) or "bytes"
+    table_bytes_max: float  # cap on table bytes when minimising instructions
 
 
 @dataclass(frozen=True)

@@ -9,7 +9,7 @@ from pathlib import Path
 from typing import Any
 
 import click
-from kinetab.generator import model, units
+from kinetab.generator import dynamics, model, units
 from kinetab.generator.cli_support import ProgressLine, QuantityType
 from kinetab.generator.errors import UserError
 
@@ -20,7 +20,7 @@ CAUTION = (
     "estimates, not a safety function. Follow the applicable standards (e.g. ISO 3691-4, IEC 61508,\n"
     "ISO 13849, IEC 61800-5-2) and local regulations and licensed practice."
 )
-RIG = click.Choice(["on-floor", "wheels-up"])
+RIG = click.Choice(list(dynamics.RIGS))
 RIG_OPTION = click.option(
     "--rig", type=RIG, default="on-floor", show_default=True, help="Wheels on the floor or lifted."
 )

@@ -245,6 +245,7 @@ def test_report_into_an_unwritable_place_is_one_line(tmp_path, capsys):
     assert code == 2 and err.count("\n") == 1 and "Traceback" not in err
 
 
+@pytest.mark.slow  # renders a whole report (8 s)
 def test_report_zooms_into_the_deadband_and_speaks_degrees(tmp_path, capsys):
     """Regression: the friction table's structure sat in 2 % of the axis, and angle axes were in radians
     while the command line speaks degrees: split tables get a second, zoomed column; angles are degrees."""

@@ -9,6 +9,18 @@ from kinetab.generator.model import SCHEMA
 ROOT = Path(__file__).resolve().parents[1]
 
 
+def test_readme_model_reference_is_the_schema():
+    """README's model-key table is exactly what model.reference_rows writes from the schema (keys, kinds,
+    defaults, meanings, accepted values): edit the schema, then paste the rows."""
+    from kinetab.generator import model
+
+    rows = model.reference_rows()
+    lines = (ROOT / "README.md").read_text().splitlines()
+    start = lines.index(rows[0])
+    assert lines[start : start + len(rows)] == rows
+    assert not lines[start + len(rows)].startswith("|"), "README's table has rows the schema does not"
+
+
 def test_every_model_key_in_readme_reference():
     readme = (ROOT / "README.md").read_text()
     for section, keys in SCHEMA.items():

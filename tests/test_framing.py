@@ -67,6 +67,7 @@ def test_cobs_equals_the_cobs_package_and_round_trips(data):
     assert framing.cobs_decode(encoded) == data
 
 
+@pytest.mark.slow  # a fuzz of 10 000 inputs (8 s); the fast tier keeps the examples and the oracles
 @settings(max_examples=10_000, derandomize=True, suppress_health_check=[HealthCheck.too_slow])
 @given(st.binary(max_size=300))
 def test_reader_never_raises_on_garbage(data):
@@ -79,6 +80,7 @@ def test_reader_never_raises_on_garbage(data):
 _SETPOINT = messages.encode(messages.Setpoint(7, 0, tuple(range(-3, messages.N_IN - 3))))
 
 
+@pytest.mark.slow  # 10 000 corruptions (15 s)
 @settings(max_examples=10_000, derandomize=True, suppress_health_check=[HealthCheck.too_slow])
 @given(st.lists(st.tuples(st.integers(0, 1000), st.integers(0, 7)), min_size=1, max_size=3, unique_by=lambda t: t))
 def test_every_corrupted_frame_is_rejected(flips):

@@ -224,6 +224,7 @@ def test_a_float_model_campaign_recovers_every_coordinate():
     assert_close(v, result, x_true, 0.01)
 
 
+@pytest.mark.slow  # three 15 s logs fitted (3-9 s)
 def test_bounds_hold_and_a_bound_is_named():
     """A truth with no viscous friction at all, fitted from a model that has some: the estimate ends on
     its bound (0) and says so, and never goes below."""
@@ -251,6 +252,7 @@ def test_compare_passes_the_right_model_and_fails_a_wrong_one():
     assert not wrong["passed"] and wrong["likely_terms"][0]["term"] in ("inertia", "gravity", "rolling")
 
 
+@pytest.mark.slow  # 13 candidate plans scored (3-4 s)
 def test_plan_for_fit_is_no_worse_conditioned_than_the_default():
     """--for-fit picks, among the default and perturbed plans, the most parameters told apart and then
     the smallest condition number (the optimal-excitation criterion; Gautier and Khalil, from memory)."""

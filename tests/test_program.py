@@ -105,6 +105,7 @@ def test_worst_int32_inputs_do_not_wrap():
     emulate.run(fw.design.forward, fw.tables, fin)
 
 
+@pytest.mark.slow  # synthesises 15 random vehicles (8 s)
 @settings(max_examples=15, deadline=None, suppress_health_check=[HealthCheck.too_slow, HealthCheck.filter_too_much])
 @given(fw=random_firmware_strategy("larkspur"), seed=st.integers(0, 2**31))
 def test_random_models_no_wrap_clamp_and_stay_within_promised_bound(fw, seed):

@@ -22,6 +22,7 @@ def invented(tmp_path_factory):
     return write_model(tmp_path_factory.mktemp("quillon"), doc, "quillon.toml"), fw
 
 
+@pytest.mark.slow  # renders most of a report (5 s)
 def test_interrupted_report_leaves_the_old_set(invented, tmp_path, capsys, monkeypatch):
     """Regression: Ctrl-C while `report` drew left 8 new PNGs beside the old index.html (exit 130)."""
     import kinetab
@@ -61,6 +62,7 @@ def test_ctrl_c_among_the_renames_is_held_until_the_set_is_whole(tmp_path, monke
     assert seen and all(p.read_text() == text for p, text in files.items())
 
 
+@pytest.mark.slow  # renders a whole report (8 s)
 def test_report_writes_the_whole_set_and_no_progress_off_a_terminal(invented, tmp_path, capsys):
     """Through the command line: one PNG per table plus error and envelope, index.html showing each of
     them; stderr not a terminal (pytest's capture), so no progress line, and stdout one result line.

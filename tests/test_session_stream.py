@@ -1,0 +1,74 @@
+"""The host's credit flow and repair (session.Stream) with an injected clock: every time is a number
+the test chooses, so the rules of hil/PROTOCOL.md ("Host", step 4) are checked without waiting and
+whatever the machine's load."""
+
+from __future__ import annotations
+
+from kinetab.hil import messages, session
+
+N_IN = messages.N_IN
+
+
+def _rows(n: int) -> list[tuple[int, ...]]:
+    return [tuple([k] * N_IN) for k in range(n)]
+
+
+def _seqs(sent: list[messages.Message]) -> list[int]:
+    return [m.seq for m in sent if isinstance(m, messages.Setpoint)]
+
+
+def test_credit_is_free_slots_less_what_is_in_flight():
+    """Send at most free - (last_sent - last_rx) (PROTOCOL.md, host step 4)."""
+    s = session.Stream(rows=_rows(20), first_seq=1, free=4)
+    assert _seqs(s.take(10, now=0.0)) == [1, 2, 3, 4]
+    assert s.credit() == 0 and s.take(10, now=0.001) == []
+    s.report(free=4, last_rx=2, now=0.002)  # two received (and consumed), two still in flight
+    assert s.credit() == 2
+    assert _seqs(s.take(10, now=0.002)) == [5, 6]
+    s.report(free=0, last_rx=6, now=0.003)  # a full FIFO gives no credit, however much has arrived
+    assert s.credit() == 0 and s.take(10, now=0.003) == []
+
+
+def test_a_lost_setpoint_is_sent_again_once_reported_late_enough():
+    """A sample that arrives RESEND_S or more after a setpoint was sent and still lacks it: send again
+    from last_rx + 1; a report sooner than that is not yet evidence of a loss."""
+    s = session.Stream(rows=_rows(10), first_seq=1, free=8)
+    s.take(4, now=0.0)  # seq 1..4 sent at t = 0
+    s.report(free=8, last_rx=1, now=0.5 * session.RESEND_S)
+    s.repair(now=0.5 * session.RESEND_S)
+    assert s.next_index == 4  # too soon: seq 2 may still be on its way
+    s.report(free=8, last_rx=1, now=2 * session.RESEND_S)
+    s.repair(now=2 * session.RESEND_S)
+    assert s.next_index == 1  # from seq 2 again
+    assert _seqs(s.take(3, now=3 * session.RESEND_S)) == [2, 3, 4]
+
+
+def test_before_the_first_report_the_prefill_is_resent_after_a_quiet_spell():
+    s = session.Stream(rows=_rows(10), first_seq=1, free=8)
+    s.take(8, now=0.0)
+    s.repair(now=0.5 * session.START_RESEND_S)
+    assert s.next_index == 8
+    s.repair(now=2 * session.START_RESEND_S)
+    assert s.next_index == 0 and _seqs(s.take(2, now=0.2)) == [1, 2]
+
+
+def test_late_and_repeated_reports_never_move_the_acknowledgement_back():
+    s = session.Stream(rows=_rows(10), first_seq=1, free=8)
+    s.take(6, now=0.0)
+    s.report(free=8, last_rx=6, now=0.01)  # all six received
+    s.report(free=8, last_rx=3, now=0.02)  # an older sample arriving late
+    assert s.acked == 5 and s.next_index == 6
+    s.repair(now=0.03)
+    assert s.next_index == 6  # nothing is missing: no resend
+
+
+def test_sequence_numbers_wrap_and_the_last_setpoint_is_flagged():
+    """u16 sequence numbers wrap from 65535 to 0; the final setpoint carries LAST, every one the
+    stream's flags (here: no feed-forward, the wheels-up rig)."""
+    s = session.Stream(rows=_rows(4), first_seq=65534, free=8, flags=messages.NO_FEEDFORWARD)
+    sent = s.take(8, now=0.0)
+    assert _seqs(sent) == [65534, 65535, 0, 1]
+    flags = [m.flags for m in sent if isinstance(m, messages.Setpoint)]
+    assert flags == [messages.NO_FEEDFORWARD] * 3 + [messages.NO_FEEDFORWARD | messages.LAST]
+    s.report(free=8, last_rx=0, now=0.01)  # received up to the wrapped seq 0: row index 2
+    assert s.acked == 2
