@@ -5,7 +5,6 @@ Templates only lay out text; no arithmetic happens in them.
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 from typing import Any, assert_never
 
@@ -52,16 +51,33 @@ class Source:
     unit: str
 
 
+STEPPED = (*interface.FF_IN.members, interface.CURRENT_OUT)
+"""Every quantity the firmware holds in steps: the inputs, then the current."""
+
+
 def _sources(fw: Firmware) -> dict[str, Source]:
-    f = fw.vehicle.firmware
-    return {
-        "speed": Source(f.speed_lsb_mps, "m/s"),
-        "accel": Source(f.accel_lsb_mps2, "m/s^2"),
-        "pitch": Source(f.angle_lsb_rad, "rad"),
-        "roll": Source(f.angle_lsb_rad, "rad"),
-        "payload": Source(f.mass_lsb_kg, "kg"),
-        "current": Source(f.current_lsb_a, "A"),
-    }
+    """Per quantity: one step in SI units, for comments."""
+    return {m.name: Source(interface.lsb(fw.vehicle, m), m.unit) for m in STEPPED}
+
+
+def _limit_lines(fw: Firmware) -> list[tuple[str, int, str]]:
+    """(`<QUANTITY>_MAX`, its envelope edge in steps, that edge as a person reads it) per quantity."""
+    out = []
+    for m in STEPPED:
+        steps = getattr(fw.design.limits, m.limit)
+        unit, convert = interface.shown(m)
+        out.append((f"{m.name.upper()}_MAX", steps, f"{num(convert(steps * interface.lsb(fw.vehicle, m)))} {unit}"))
+    return out
+
+
+def _lsb_lines(fw: Firmware) -> list[tuple[str, str]]:
+    """One step of each quantity in SI units; quantities sharing a step key share a line ("pitch, roll")."""
+    keys: dict[str, list[interface.Member]] = {}
+    for m in STEPPED:
+        keys.setdefault(m.lsb_key, []).append(m)
+    return [
+        (", ".join(m.name for m in ms), f"{num(interface.lsb(fw.vehicle, ms[0]))} {ms[0].unit}") for ms in keys.values()
+    ]
 
 
 def _model_value(fw: Firmware, dotted: str) -> str:
@@ -405,7 +421,7 @@ def context(fw: Firmware) -> dict[str, Any]:
     """The whole template context for one vehicle."""
     v = fw.vehicle
     prefix = v.name
-    lim, f = fw.design.limits, v.firmware
+    f = v.firmware
     tables = {n: table_view(fw, n, prefix) for n in fw.tables}
     return {
         "prefix": prefix,
@@ -421,21 +437,8 @@ def context(fw: Firmware) -> dict[str, Any]:
         **rates_view(fw, tables, prefix),
         "forward": program_view(fw.design.forward, fw.fwd_proof, tables, prefix),
         "calls": [_call_view(call, prefix) for call in interface.CALLS],
-        "limits": [
-            ("SPEED_MAX", lim.speed, f"{num(lim.speed * f.speed_lsb_mps)} m/s"),
-            ("ACCEL_MAX", lim.accel, f"{num(lim.accel * f.accel_lsb_mps2)} m/s^2"),
-            ("PITCH_MAX", lim.pitch, f"{num(math.degrees(lim.pitch * f.angle_lsb_rad))} deg"),
-            ("ROLL_MAX", lim.roll, f"{num(math.degrees(lim.roll * f.angle_lsb_rad))} deg"),
-            ("PAYLOAD_MAX", lim.payload, f"{num(lim.payload * f.mass_lsb_kg)} kg"),
-            ("CURRENT_MAX", lim.current, f"{num(lim.current * f.current_lsb_a)} A"),
-        ],
-        "lsbs": [
-            ("speed", f"{num(f.speed_lsb_mps)} m/s"),
-            ("accel", f"{num(f.accel_lsb_mps2)} m/s^2"),
-            ("pitch, roll", f"{num(f.angle_lsb_rad)} rad"),
-            ("payload", f"{num(f.mass_lsb_kg)} kg"),
-            ("current", f"{num(f.current_lsb_a)} A"),
-        ],
+        "limits": _limit_lines(fw),
+        "lsbs": _lsb_lines(fw),
         "ff_bound": f"{num(fw.ff_bound_a)} A (budget {num(f.current_budget_a)} A)",
         "fwd_bound": f"{num(fw.fwd_bound_mps2)} m/s^2 (goal {num(fw.fwd_budget_mps2)} m/s^2)",
         "total_bytes": fw.total_bytes,

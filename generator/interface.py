@@ -297,18 +297,30 @@ def to_si(v: Vehicle, st: Struct, steps: dict[str, np.ndarray]) -> dict[str, np.
     return si_of_fields(st, {m.name: np.asarray(steps[m.name], dtype=float) * lsb(v, m) for m in st.members})
 
 
+def shown(m: Member) -> tuple[str, Any]:
+    """How a person reads the member's values: the unit (as typed on the command line, "deg" for
+    angles; SI for outputs) and the conversion from SI."""
+    if (m.unit, m.typed_unit) == ("rad", "deg"):
+        return "deg", math.degrees
+    return (m.typed_unit.replace("**", "^") or m.unit), float
+
+
+def by_name(name: str) -> Member:
+    """The feed-forward input member, or the output current, of that name (a table's source)."""
+    return next(m for m in (*FF_IN.members, CURRENT_OUT) if m.name == name)
+
+
 def describe_point(st: Struct, si: dict[str, float], wheel: str, *, digits: int) -> str:
     """One operating point in words, in struct order, values in the units a person types (angles in
     degrees): "right wheel at speed +1.2/-1.2 m/s, ..., payload 60 kg". `si` is keyed by OperatingPoint
     attribute; `digits` significant digits (angles: digits - 1 decimals)."""
     parts = []
     for m in st.members:
-        shown = m.typed_unit.replace("**", "^") or m.unit
-        factor = math.degrees(1.0) if (m.unit, m.typed_unit) == ("rad", "deg") else 1.0
-        values = [si[a] * factor for a in m.si]
-        if factor != 1.0:
+        unit, convert = shown(m)
+        values = [convert(si[a]) for a in m.si]
+        if unit == "deg":
             text = "/".join(f"{x:+.{digits - 1}f}" for x in values)
         else:
             text = "/".join(f"{x:+.{digits}g}" if m.signed else f"{x:.{digits}g}" for x in values)
-        parts.append(f"{m.name} {text} {shown}")
+        parts.append(f"{m.name} {text} {unit}")
     return f"{wheel} wheel at " + ", ".join(parts)

@@ -14,7 +14,7 @@ from typing import Any
 
 import numpy as np
 
-from . import emulate, envelope
+from . import emulate, envelope, interface
 from . import tables as tb
 from .accuracy import Accuracy, envelope_points, operating_point, reference_current
 from .synthesis import Firmware
@@ -49,20 +49,12 @@ def _quiet(_: str) -> None:
     """No progress shown."""
 
 
-AXIS = {"payload": ("kg", 1.0), "pitch": ("deg", 180 / math.pi), "roll": ("deg", 180 / math.pi), "speed": ("m/s", 1.0)}
-"""Per table input: the axis unit and the factor from SI (angles in degrees, as the command line)."""
-
-
 def _input_axis(fw: Firmware, source: str) -> tuple[float, str]:
-    """Axis units per firmware step of the input, and the axis unit."""
-    lsb = {
-        "payload": fw.vehicle.firmware.mass_lsb_kg,
-        "pitch": fw.vehicle.firmware.angle_lsb_rad,
-        "roll": fw.vehicle.firmware.angle_lsb_rad,
-        "speed": fw.vehicle.firmware.speed_lsb_mps,
-    }[source]
-    unit, factor = AXIS[source]
-    return lsb * factor, unit
+    """Axis units per firmware step of a table's input, and the axis unit (angles in degrees, as typed
+    on the command line)."""
+    m = interface.by_name(source)
+    unit, convert = interface.shown(m)
+    return convert(interface.lsb(fw.vehicle, m)), unit
 
 
 def _curves(fw: Firmware, name: str, lo: int, hi: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:

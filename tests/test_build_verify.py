@@ -249,9 +249,10 @@ def test_report_into_an_unwritable_place_is_one_line(tmp_path, capsys):
 def test_report_zooms_into_the_deadband_and_speaks_degrees(tmp_path, capsys):
     """Regression: the friction table's structure sat in 2 % of the axis, and angle axes were in radians
     while the command line speaks degrees: split tables get a second, zoomed column; angles are degrees."""
+    import math
     import struct
 
-    from kinetab.generator import plots
+    from kinetab.generator import model, plots, synthesis
 
     assert run(["report", str(DEMO_PATH), "-o", str(tmp_path / "rep")], capsys)[0] == 0
 
@@ -259,7 +260,9 @@ def test_report_zooms_into_the_deadband_and_speaks_degrees(tmp_path, capsys):
         return struct.unpack(">I", (tmp_path / "rep" / name).read_bytes()[16:20])[0]
 
     assert width("table_friction.png") > 1.4 * width("table_m11.png")
-    assert plots.AXIS["pitch"][0] == "deg" and plots.AXIS["roll"][0] == "deg"
+    fw = synthesis.synthesise(model.load(DEMO_PATH))
+    assert plots._input_axis(fw, "pitch")[1] == "deg" and plots._input_axis(fw, "roll")[1] == "deg"
+    assert plots._input_axis(fw, "pitch")[0] == pytest.approx(math.degrees(fw.vehicle.firmware.angle_lsb_rad))
 
 
 def _invented(tmp_path, seed: int):
