@@ -235,7 +235,7 @@ def _error_step(op: Op, specs: Mapping[str, tb.TableSpec], mag: dict[str, float]
                 return None
             return _sum_step(live)
         case Backdrive():
-            gain, dk, ms = max(1.0, op.k_exact), abs(op.k * 2.0**-op.shift - op.k_exact), mag[op.src]
+            gain, dk, ms = max(1.0, op.k_real), abs(op.k * 2.0**-op.shift - op.k_real), mag[op.src]
             mag[op.dst] = ms * gain
             return lambda err, E: e(err, op.src) * gain + dk * (ms + e(err, op.src)) + 0.5
         case Store():

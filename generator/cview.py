@@ -243,7 +243,7 @@ def _op_view(op: Op, proof: Proof, clamp_names: list[str], prefix: str) -> dict[
                 "wide": proof.wide[op.dst],
                 "split": bool(proof.split[op.dst]),
                 "mask": f"0x{(1 << op.shift) - 1:X}",
-                "k_exact": num(op.k_exact),
+                "k_real": num(op.k_real),
             }
         case Store():
             return {

@@ -65,7 +65,7 @@ def _step(
             if integer:
                 scaled = fx.shift_round(src * op.k, op.shift)
             else:
-                scaled = src * (op.k * 2.0**-op.shift if mode == "quant" else op.k_exact)
+                scaled = src * (op.k * 2.0**-op.shift if mode == "quant" else op.k_real)
             return np.where(opposed, scaled, src)
         case Store():
             src = env[op.src]

@@ -69,7 +69,7 @@ class Backdrive:
     speed: str
     k: int
     shift: int
-    k_exact: float
+    k_real: float
 
 
 @dataclass(frozen=True)

@@ -110,17 +110,17 @@ class _Builder:
         self._add(Sum(dst, tuple(terms)))
         return dst
 
-    def backdrive(self, dst: str, src: str, speed: str, k_exact: float) -> str:
-        """k_exact in fixed point: 14 fraction bits with int16 tables; with int32, 30 in an exact design,
+    def backdrive(self, dst: str, src: str, speed: str, k_real: float) -> str:
+        """k_real in fixed point: 14 fraction bits with int16 tables; with int32, 30 in an exact design,
         else the most that keeps the product in 32 bits (directly or in two exact parts)."""
         top = 14 if self.bits == 16 else 30
-        if k_exact > 1:
-            top -= math.ceil(math.log2(k_exact))
+        if k_real > 1:
+            top -= math.ceil(math.log2(k_real))
         kbits = top
-        while not (self.bits == 16 or self.exact) and kbits > 1 and not _k_fits(self.rng[src], k_exact, kbits):
+        while not (self.bits == 16 or self.exact) and kbits > 1 and not _k_fits(self.rng[src], k_real, kbits):
             kbits -= 1
-        k = int(math.floor(k_exact * 2.0**kbits + 0.5))
-        self._add(Backdrive(dst=dst, src=src, speed=speed, k=k, shift=kbits, k_exact=k_exact))
+        k = int(math.floor(k_real * 2.0**kbits + 0.5))
+        self._add(Backdrive(dst=dst, src=src, speed=speed, k=k, shift=kbits, k_real=k_real))
         return dst
 
     def store(self, fieldname: str, index: int, src: str, shift: int) -> None:
@@ -129,9 +129,9 @@ class _Builder:
         )
 
 
-def _k_fits(src: fx.Interval, k_exact: float, kbits: int) -> bool:
-    """Whether src * k (k_exact with kbits fraction bits) fits 32 bits directly or split at kbits."""
-    k = fx.Interval(*(2 * [int(math.floor(k_exact * 2.0**kbits + 0.5))]))
+def _k_fits(src: fx.Interval, k_real: float, kbits: int) -> bool:
+    """Whether src * k (k_real with kbits fraction bits) fits 32 bits directly or split at kbits."""
+    k = fx.Interval(*(2 * [int(math.floor(k_real * 2.0**kbits + 0.5))]))
     return fits32(src * k, kbits) or split_fits(src, k, kbits)
 
 
