@@ -1,5 +1,5 @@
 """Instructions per table-piece kind on Cortex-M (unicorn): the calibration of the sizing's cost model
-(`sizing.PIECE_INSTRUCTIONS`). Each kind is the generated C form (the `piece` macro of ff/ops.j2) in
+(`sizing.piece_instructions_of`). Each kind is the generated C form (the `piece` macro of ff/ops.j2) in
 its own function; the count is the call's instructions less an empty function's, median over inputs.
 Writes tests/benchmarks/piece_cost_results.md and .json.
 
