@@ -256,12 +256,18 @@ def lookup_real(table: Table, x: np.ndarray, mode: str) -> np.ndarray:
 
 
 def _interp_real(spec: TableSpec, piece: Piece, data: PieceData, xs: np.ndarray, *, quantised: bool) -> np.ndarray:
-    if data.segments == 0:
-        value = data.entries[0] if quantised else _constant_real(spec, piece)
-        return np.full(np.shape(xs), float(value))
-    bx = piece.x0 + (np.arange(data.segments + 1, dtype=np.int64) << data.shift)
-    ys = data.entries.astype(float) if quantised else piece.func(bx) * 2.0**spec.frac_bits
-    return np.interp(xs.astype(float), bx.astype(float), ys)
+    """The piece without rounding: its stored entries (quantised) or the function at its breakpoints,
+    interpolated; a constant piece's value (stored, or the function's midrange)."""
+    match data.kind:
+        case PieceKind.CONSTANT:
+            value = data.entries[0] if quantised else _constant_real(spec, piece)
+            return np.full(np.shape(xs), float(value))
+        case PieceKind.DIRECT | PieceKind.ONE_SEGMENT | PieceKind.INDEXED:
+            bx = piece.x0 + (np.arange(data.segments + 1, dtype=np.int64) << data.shift)
+            ys = data.entries.astype(float) if quantised else piece.func(bx) * 2.0**spec.frac_bits
+            return np.interp(xs.astype(float), bx.astype(float), ys)
+        case _:
+            assert_never(data.kind)
 
 
 def _constant_real(spec: TableSpec, piece: Piece) -> float:
