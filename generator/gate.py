@@ -85,6 +85,10 @@ def companion_check(fw: Firmware, path: Path, model_path: str) -> Check:
 
 def _remake(path: Path, text: str, model_path: str) -> str:
     """The command that writes `path` again, with the control period the file was made for."""
+    match = BANNER.search(text)
+    board_h = path.parent / f"{match.group(1) if match else ''}_board.h"
+    if board_h.is_file():  # a reference firmware project (`bench firmware`) writes every file of the folder
+        return _remake_firmware(board_h, model_path)
     if path.stem.endswith("_link"):
         header = path.with_suffix(".h")
         if header != path and header.is_file():
@@ -93,6 +97,20 @@ def _remake(path: Path, text: str, model_path: str) -> str:
         option = f" --period '{int(period.group(1))} us'" if period else ""
         return f"kinetab bench link {model_path} -o {path.parent}{option}"
     return f"the kinetab command that wrote {path.name}, for {model_path}"
+
+
+def _remake_firmware(board_h: Path, model_path: str) -> str:
+    """`kinetab bench firmware` with the board, period and FIFO depth the project was made with."""
+    folder, prefix = board_h.parent, board_h.name.removesuffix("_board.h")
+    board = re.search(r'BOARD_NAME "([^"]+)"', board_h.read_text(encoding="utf-8", errors="replace"))
+    link_h = folder / f"{prefix}_link.h"
+    link = link_h.read_text(encoding="utf-8", errors="replace") if link_h.is_file() else ""
+    period, depth = re.search(r"_LINK_PERIOD_US (\d+)u", link), re.search(r"_LINK_FIFO_DEPTH (\d+)u", link)
+    return (
+        f"kinetab bench firmware {model_path} --board {board.group(1) if board else 'BOARD'} -o {folder}"
+        + (f" --period '{int(period.group(1))} us'" if period else "")
+        + (f" --fifo-depth {int(depth.group(1))}" if depth else "")
+    )
 
 
 def summary(checks: list[Check], source: str) -> str:

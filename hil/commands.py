@@ -96,6 +96,29 @@ def link(model_path: str, out_dir: str, period: float) -> None:
     click.echo(f"wrote {', '.join(str(Path(out_dir) / n) for n in files)}")
 
 
+@bench.command(short_help="Generate a reference firmware project for an emulated or real board.")
+@click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
+@click.option("--board", "board_name", required=True, help="Target board: mps2-an386 (Cortex-M4) or mps2-an385 (M3).")
+@click.option("-o", "--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Output folder.")
+@_period_option("Control period of the firmware's tick")
+@click.option("--fifo-depth", type=click.IntRange(2, 4096), default=64, show_default=True, help="Setpoint FIFO depth.")
+def firmware(model_path: str, board_name: str, out_dir: str, period: float, fifo_depth: int) -> None:
+    """Write a bare-metal firmware project into OUT: the feed-forward and link C, main, startup, UART
+    driver, linker script and Makefile for BOARD. `make` builds it with arm-none-eabi-gcc; `make run`
+    starts it on qemu-system-arm with the bench link on a pseudo-terminal."""
+    from kinetab.generator import outputs, synthesis
+
+    from . import boards, firmwareview
+
+    board = boards.board(board_name)
+    if not out_dir.strip():
+        raise UserError("-o/--out: expected an output folder, found an empty name (use '.' for this folder)")
+    fw = synthesis.synthesise(model.load(model_path))
+    files = firmwareview.render_project(fw, board, period_us=round(period * 1e6), fifo_depth=fifo_depth)
+    outputs.write_set({Path(out_dir) / name: text for name, text in files.items()})
+    click.echo(f"wrote {len(files)} files into {out_dir} for {board.title}: make, then make run")
+
+
 @bench.command(short_help="Measured against predicted current, per wheel and phase; exit 1 on a mismatch.")
 @click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
 @click.argument("log_path", metavar="LOG", type=click.Path(dir_okay=False))

@@ -314,3 +314,23 @@ def test_verify_checks_the_link_files_of_the_model(tmp_path, capsys):
     kinetab.main(["bench", "link", str(path), "-o", str(out), "--period", "2000 us"])
     capsys.readouterr()
     assert run(["verify", str(path), str(out), "--allow-infeasible-envelope"], capsys)[0] == 0
+
+
+def test_verify_names_the_firmware_command_for_a_stale_firmware_project(tmp_path, capsys):
+    """A folder `bench firmware` wrote: after a model change verify fails on each of its C files and
+    names the command that remakes them, with the board, period and FIFO depth they were made for."""
+    import kinetab
+
+    path, doc = _invented(tmp_path, 79)
+    out = tmp_path / "fw"
+    args = ["bench", "firmware", str(path), "--board", "mps2-an385", "-o", str(out), "--period", "20 ms"]
+    kinetab.main([*args, "--fifo-depth", "16"])
+    capsys.readouterr()
+    code, text, err = run(["verify", str(path), str(out), "--allow-infeasible-envelope"], capsys)
+    assert code == 0 and "tamarack_main.c: fresh" in text and "tamarack_uart.h: fresh" in text, err
+    doc["body"]["mass"] = f"{float(doc['body']['mass'].split()[0]) * 1.1} kg"
+    write_model(tmp_path, doc, "tamarack.toml")
+    code, text, err = run(["verify", str(path), str(out), "--allow-infeasible-envelope"], capsys)
+    stale = [line for line in err.splitlines() if "stale: made from fingerprint" in line]
+    command = f"run: kinetab bench firmware {path} --board mps2-an385 -o {out} --period '20000 us' --fifo-depth 16"
+    assert code == 1 and len(stale) == 7 and all(command in line for line in stale), err

@@ -1,0 +1,86 @@
+"""The reference firmware project for one board: the generated feed-forward and link C with a
+bare-metal main, startup, UART driver, linker script and Makefile (templates/fw/), for a user to copy."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from kinetab.generator import cformat, interface, render
+from kinetab.generator.synthesis import Firmware
+
+from . import linkview
+from .boards import Board
+
+
+def file_names(prefix: str, board: Board) -> dict[str, str]:
+    """Every file of the project besides the feed-forward and link files, by role."""
+    return {
+        "main": f"{prefix}_main.c",
+        "startup": f"{prefix}_startup.c",
+        "uart_source": f"{prefix}_uart.c",
+        "uart_header": f"{prefix}_uart.h",
+        "board": f"{prefix}_board.h",
+        "linker": f"{board.name}.ld",
+        "makefile": "Makefile",
+    }
+
+
+TEMPLATES = {
+    "main": "fw/main.c.j2",
+    "startup": "fw/startup.c.j2",
+    "uart_source": "fw/uart.c.j2",
+    "uart_header": "fw/uart.h.j2",
+    "board": "fw/board.h.j2",
+    "linker": "fw/linker.ld.j2",
+    "makefile": "fw/Makefile.j2",
+}
+
+
+def _measure_copies() -> list[tuple[str, str]]:
+    """(measured lvalue, command lvalue): each measured column from the same-named column of the
+    feed-forward output (the current) or of the setpoint (the speed)."""
+    out = []
+    for m in interface.MEASURED.members:
+        owner = "ff" if any(o.name == m.name for o in interface.FF_OUT.members) else "setpoint"
+        lvalues = [f"{m.name}[{k}]" if m.count == 2 else m.name for k in range(m.count)]
+        out += [(lv, f"{owner}.{lv}") for lv in lvalues]
+    return out
+
+
+def context(fw: Firmware, board: Board, *, period_us: int, fifo_depth: int) -> dict[str, Any]:
+    """Everything the firmware templates print (the link's context, the board, the file names)."""
+    prefix = fw.vehicle.name
+    names = file_names(prefix, board)
+    generated = interface.file_names(prefix)
+    ctx = linkview.context(fw, period_us=period_us, fifo_depth=fifo_depth)
+    ctx.update(
+        names={**names, "link_header": generated["link_header"]},
+        board={
+            **vars(board),
+            "uart_base_hex": f"0x{board.uart_base:08X}",
+            "flash_origin_hex": f"0x{board.flash_origin:08X}",
+            "ram_origin_hex": f"0x{board.ram_origin:08X}",
+        },
+        measured_type=interface.MEASURED.c_type(prefix),
+        measure_copies=_measure_copies(),
+        sources=[
+            generated["ff_source"],
+            generated["link_source"],
+            names["main"],
+            names["startup"],
+            names["uart_source"],
+        ],
+        headers=[generated["ff_header"], generated["link_header"], names["board"], names["uart_header"]],
+    )
+    return ctx
+
+
+def render_project(fw: Firmware, board: Board, *, period_us: int, fifo_depth: int) -> dict[str, str]:
+    """Every file of the project: the feed-forward and link files and the board's own."""
+    files = dict(render.render(fw))
+    files.update(linkview.render_link(fw, period_us=period_us, fifo_depth=fifo_depth))
+    ctx = context(fw, board, period_us=period_us, fifo_depth=fifo_depth)
+    env = render.environment()
+    for role, template in TEMPLATES.items():
+        files[ctx["names"][role]] = cformat.tidy(env.get_template(template).render(**ctx))
+    return files
