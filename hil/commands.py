@@ -104,8 +104,9 @@ def link(model_path: str, out_dir: str, period: float) -> None:
 @click.option("--fifo-depth", type=click.IntRange(2, 4096), default=64, show_default=True, help="Setpoint FIFO depth.")
 def firmware(model_path: str, board_name: str, out_dir: str, period: float, fifo_depth: int) -> None:
     """Write a bare-metal firmware project into OUT: the feed-forward and link C, main, startup, UART
-    driver, linker script and Makefile for BOARD. `make` builds it with arm-none-eabi-gcc; `make run`
-    starts it on qemu-system-arm with the bench link on a pseudo-terminal."""
+    driver, linker script, Makefile and CMake project for BOARD. `make` builds it with arm-none-eabi-gcc;
+    `make run` starts it on qemu-system-arm with the bench link on a pseudo-terminal; the CMake build
+    regenerates the C when the model changes and runs kinetab verify."""
     from kinetab.generator import outputs, synthesis
 
     from . import boards, firmwareview
@@ -114,7 +115,13 @@ def firmware(model_path: str, board_name: str, out_dir: str, period: float, fifo
     if not out_dir.strip():
         raise UserError("-o/--out: expected an output folder, found an empty name (use '.' for this folder)")
     fw = synthesis.synthesise(model.load(model_path))
-    files = firmwareview.render_project(fw, board, period_us=round(period * 1e6), fifo_depth=fifo_depth)
+    files = firmwareview.render_project(
+        fw,
+        board,
+        period_us=round(period * 1e6),
+        fifo_depth=fifo_depth,
+        model_path=Path(model_path).resolve().as_posix(),
+    )
     outputs.write_set({Path(out_dir) / name: text for name, text in files.items()})
     click.echo(f"wrote {len(files)} files into {out_dir} for {board.title}: make, then make run")
 

@@ -22,6 +22,8 @@ def file_names(prefix: str, board: Board) -> dict[str, str]:
         "board": f"{prefix}_board.h",
         "linker": f"{board.name}.ld",
         "makefile": "Makefile",
+        "cmake": "CMakeLists.txt",
+        "toolchain": "arm-none-eabi.cmake",
     }
 
 
@@ -33,6 +35,8 @@ TEMPLATES = {
     "board": "fw/board.h.j2",
     "linker": "fw/linker.ld.j2",
     "makefile": "fw/Makefile.j2",
+    "cmake": "fw/CMakeLists.txt.j2",
+    "toolchain": "fw/toolchain.cmake.j2",
 }
 
 
@@ -47,7 +51,14 @@ def _measure_copies() -> list[tuple[str, str]]:
     return out
 
 
-def context(fw: Firmware, board: Board, *, period_us: int, fifo_depth: int) -> dict[str, Any]:
+def _cmake_quoted(text: str) -> str:
+    """Text for the inside of a CMake quoted argument (backslash, quote, dollar and semicolon escaped)."""
+    for ch in ("\\", '"', "$", ";"):
+        text = text.replace(ch, "\\" + ch)
+    return text
+
+
+def context(fw: Firmware, board: Board, *, period_us: int, fifo_depth: int, model_path: str) -> dict[str, Any]:
     """Everything the firmware templates print (the link's context, the board, the file names)."""
     prefix = fw.vehicle.name
     names = file_names(prefix, board)
@@ -61,6 +72,8 @@ def context(fw: Firmware, board: Board, *, period_us: int, fifo_depth: int) -> d
             "flash_origin_hex": f"0x{board.flash_origin:08X}",
             "ram_origin_hex": f"0x{board.ram_origin:08X}",
         },
+        generated=generated,
+        model_path=_cmake_quoted(model_path),
         measured_type=interface.MEASURED.c_type(prefix),
         measure_copies=_measure_copies(),
         sources=[
@@ -75,11 +88,12 @@ def context(fw: Firmware, board: Board, *, period_us: int, fifo_depth: int) -> d
     return ctx
 
 
-def render_project(fw: Firmware, board: Board, *, period_us: int, fifo_depth: int) -> dict[str, str]:
-    """Every file of the project: the feed-forward and link files and the board's own."""
+def render_project(fw: Firmware, board: Board, *, period_us: int, fifo_depth: int, model_path: str) -> dict[str, str]:
+    """Every file of the project: the feed-forward and link files and the board's own; the CMake
+    project names `model_path` (absolute) as the file it regenerates the C from."""
     files = dict(render.render(fw))
     files.update(linkview.render_link(fw, period_us=period_us, fifo_depth=fifo_depth))
-    ctx = context(fw, board, period_us=period_us, fifo_depth=fifo_depth)
+    ctx = context(fw, board, period_us=period_us, fifo_depth=fifo_depth, model_path=model_path)
     env = render.environment()
     for role, template in TEMPLATES.items():
         files[ctx["names"][role]] = cformat.tidy(env.get_template(template).render(**ctx))

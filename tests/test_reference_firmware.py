@@ -28,11 +28,15 @@ from tests.helpers import invented_feasible, to_toml
 
 KINETAB = [sys.executable, "-m", "kinetab.generator"]
 PERIOD = "50 ms"
-needs_tools = pytest.mark.skipif(
-    any(shutil.which(t) is None for t in ("arm-none-eabi-gcc", "make", "qemu-system-arm")),
-    reason="needs arm-none-eabi-gcc, make and qemu-system-arm (apt install gcc-arm-none-eabi qemu-system-arm)",
-)
-pytestmark = [pytest.mark.slow, needs_tools]
+
+
+def _needs(*tools: str) -> pytest.MarkDecorator:
+    missing = [t for t in tools if shutil.which(t) is None]
+    return pytest.mark.skipif(bool(missing), reason=f"needs {', '.join(missing)} (apt, see .ci/run)")
+
+
+needs_qemu = _needs("arm-none-eabi-gcc", "make", "qemu-system-arm")
+pytestmark = [pytest.mark.slow]
 
 
 def _kinetab(*args: str, cwd: Path) -> subprocess.CompletedProcess[str]:
@@ -98,6 +102,7 @@ def _identify(port: str) -> messages.Identify:
     pytest.fail(f"no IDENTIFY from {port} within 60 s")
 
 
+@needs_qemu
 @pytest.mark.parametrize("board", ["mps2-an386", "mps2-an385"])
 def test_the_firmware_builds_boots_and_identifies_itself(vehicle, board):
     folder, path, fw = vehicle
@@ -110,6 +115,7 @@ def test_the_firmware_builds_boots_and_identifies_itself(vehicle, board):
     assert (ident.version, ident.period_us, ident.fifo_depth) == (messages.PROTOCOL_VERSION, 50_000, 16)
 
 
+@needs_qemu
 def test_a_bench_run_against_the_emulated_board_matches_the_emulation_bit_for_bit(vehicle):
     """`bench plan` and `bench run` against the firmware on the emulated Cortex-M4: every setpoint is
     answered once, in order, and the feed-forward current the firmware computed on the emulated core
@@ -142,3 +148,41 @@ def test_an_unknown_board_is_one_line_and_writes_nothing(vehicle, tmp_path):
     done = _kinetab("bench", "firmware", str(path), "--board", "mps3", "-o", str(tmp_path / "out"), cwd=tmp_path)
     assert done.returncode == 2 and done.stderr.count("\n") == 1 and "mps2-an386" in done.stderr
     assert not (tmp_path / "out").exists()
+
+
+@_needs("arm-none-eabi-gcc", "cmake")
+def test_the_cmake_project_regenerates_on_a_model_change_and_gates_on_verify(vehicle, tmp_path):
+    """The user's day-to-day loop in their own build system: the CMake project builds the ELF; after a
+    model change the next build regenerates the feed-forward C, then verify fails the build naming the
+    command that remakes the rest; after that command the build passes again."""
+    _, source, _ = vehicle
+    path = tmp_path / source.name
+    path.write_text(source.read_text(encoding="utf-8"), encoding="utf-8")
+    out, build = tmp_path / "fw", tmp_path / "build"
+    remake = ["bench", "firmware", str(path), "--board", "mps2-an386", "-o", str(out), "--period", "20 ms"]
+    assert _kinetab(*remake, cwd=tmp_path).returncode == 0
+    kinetab_cmd = ";".join(KINETAB)  # a CMake list: the package under test, as a command
+    configure = subprocess.run(
+        ["cmake", "-S", str(out), "-B", str(build), f"-DCMAKE_TOOLCHAIN_FILE={out / 'arm-none-eabi.cmake'}",
+         f"-DKINETAB={kinetab_cmd}"],
+        capture_output=True, text=True, timeout=300,
+    )  # fmt: skip
+    assert configure.returncode == 0, configure.stdout + configure.stderr
+
+    def cmake_build() -> subprocess.CompletedProcess[str]:
+        return subprocess.run(["cmake", "--build", str(build)], capture_output=True, text=True, timeout=600)
+
+    first = cmake_build()
+    assert first.returncode == 0 and "verify: all" in first.stdout and (build / "tugboat.elf").exists(), first.stdout
+    text = path.read_text(encoding="utf-8")
+    mass = re.search(r'^mass = "([0-9.e+-]+) kg"', text, re.M)
+    assert mass
+    time.sleep(1.1)  # a newer modification time than the generated files, whatever the file system's resolution
+    path.write_text(text.replace(mass.group(0), f'mass = "{float(mass.group(1)) * 1.05} kg"', 1), encoding="utf-8")
+    stale = cmake_build()
+    log = stale.stdout + stale.stderr
+    assert stale.returncode != 0 and "kinetab: feed-forward tables from" in log
+    assert f"run: kinetab bench firmware {path} --board mps2-an386 -o {out} --period '20000 us'" in log, log
+    assert _kinetab(*remake, cwd=tmp_path).returncode == 0
+    again = cmake_build()
+    assert again.returncode == 0, again.stdout + again.stderr
