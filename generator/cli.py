@@ -13,7 +13,7 @@ import click
 import numpy as np
 
 from . import __version__, dynamics, emulate, envelope, interface, model
-from .cli_support import LazyGroup, ProgressLine, QuantityType, run
+from .cli_support import LazyGroup, ProgressLine, QuantityType, out_folder, run
 from .errors import CheckFailed, UserError
 from .vehicle import Vehicle
 
@@ -215,12 +215,6 @@ def _envelope_table(v: Vehicle, rep: envelope.EnvelopeReport) -> str:
     return "\n".join(lines)
 
 
-def _out_dir(text: str) -> Path:
-    if not text.strip():
-        raise UserError("-o/--out: expected an output folder, found an empty name (use '.' for this folder)")
-    return Path(text)
-
-
 def _envelope_gate(v: Vehicle, allow: bool) -> None:
     """build refuses an infeasible envelope unless the user accepts it, and says so either way."""
     from . import gate
@@ -251,7 +245,7 @@ def build(model_path: str, out_dir: str, vectors_path: str | None, allow: bool) 
     infeasible (unless accepted) or the budget cannot be met."""
     from . import gate, outputs, render, synthesis, vectors
 
-    folder = _out_dir(out_dir)
+    folder = out_folder(out_dir)
     v = model.load(model_path)
     _envelope_gate(v, allow)
     fw = synthesis.synthesise(v)
@@ -310,7 +304,7 @@ def verify(
     budget holds; else 1, with one line per failed check."""
     from . import accuracy, gate, outputs, synthesis
 
-    folder = _out_dir(out_dir)
+    folder = out_folder(out_dir)
     v = model.load(model_path)
     env, problems = gate.envelope_check(v, allow=allow)
     try:
@@ -364,7 +358,7 @@ def report(model_path: str, out_dir: str) -> None:
     """Plots (PNG) of every table, the error distribution and the envelope, with an index.html."""
     from . import accuracy, outputs, plots, synthesis
 
-    folder = _out_dir(out_dir)
+    folder = out_folder(out_dir)
     v = model.load(model_path)
     for problem in envelope.corner_peaks(v)[3]:
         click.echo(f"warning: {v.source}: envelope: {problem}", err=True)

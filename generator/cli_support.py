@@ -8,6 +8,7 @@ import importlib
 import signal
 import sys
 import threading
+from pathlib import Path
 from typing import Any
 
 import click
@@ -92,6 +93,13 @@ def run(group: click.Group, argv: list[str] | None) -> None:
     finally:
         for sig, handler in previous.items():
             signal.signal(sig, handler)
+
+
+def out_folder(text: str) -> Path:
+    """The -o/--out folder; an empty name is a user error (a blank in a script's variable)."""
+    if not text.strip():
+        raise UserError("-o/--out: expected an output folder, found an empty name (use '.' for this folder)")
+    return Path(text)
 
 
 class ProgressLine:

@@ -46,6 +46,10 @@ class Member:
         """Flat column names: `speed_right, speed_left` for a pair, `pitch` for a scalar."""
         return tuple(f"{self.name}_{s}" for s in SIDES) if self.count == 2 else (self.name,)
 
+    def lvalues(self) -> list[str]:
+        """The C lvalue of each column inside its struct: `speed[0]`, `speed[1]`, or `pitch`."""
+        return [f"{self.name}[{k}]" for k in range(2)] if self.count == 2 else [self.name]
+
     def c_decl(self) -> str:
         return f"int32_t {self.name}[2];" if self.count == 2 else f"int32_t {self.name};"
 
@@ -84,7 +88,7 @@ class Struct:
 
     def lvalues(self) -> list[str]:
         """The C lvalue of each column inside the struct (`speed[0]`, `pitch`), in column order."""
-        return [f"{m.name}[{k}]" if m.count == 2 else m.name for m in self.members for k in range(m.count)]
+        return [lv for m in self.members for lv in m.lvalues()]
 
     def si_names(self) -> dict[str, str]:
         """Column -> OperatingPoint attribute ("pitch" -> "pitch_rad"), in struct order."""

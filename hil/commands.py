@@ -10,7 +10,7 @@ from typing import Any
 
 import click
 from kinetab.generator import dynamics, model, units
-from kinetab.generator.cli_support import ProgressLine, QuantityType
+from kinetab.generator.cli_support import ProgressLine, QuantityType, out_folder
 from kinetab.generator.errors import UserError
 
 CAUTION = (
@@ -88,8 +88,7 @@ def link(model_path: str, out_dir: str, period: float) -> None:
 
     from . import linkview
 
-    if not out_dir.strip():
-        raise UserError("-o/--out: expected an output folder, found an empty name (use '.' for this folder)")
+    out_folder(out_dir)  # refuses an empty name
     v = model.load(model_path)
     files = linkview.render_link(synthesis.synthesise(v), period_us=round(period * 1e6))
     outputs.write_set({Path(out_dir) / name: text for name, text in files.items()})
@@ -112,8 +111,7 @@ def firmware(model_path: str, board_name: str, out_dir: str, period: float, fifo
     from . import boards, firmwareview
 
     board = boards.board(board_name)
-    if not out_dir.strip():
-        raise UserError("-o/--out: expected an output folder, found an empty name (use '.' for this folder)")
+    out_folder(out_dir)  # refuses an empty name
     fw = synthesis.synthesise(model.load(model_path))
     files = firmwareview.render_project(
         fw,
@@ -438,8 +436,7 @@ def campaign(model_path: str, out_dir: str, duration: float, period: float, nois
 
     from . import campaigntext
 
-    if not out_dir.strip():
-        raise UserError("-o/--out: expected an output folder, found an empty name (use '.' for this folder)")
+    out_folder(out_dir)  # refuses an empty name
     _check_period("bench campaign", period)
     if duration < 5:
         raise UserError("bench campaign: --duration: expected at least 5 s (room to start and stop)")

@@ -46,8 +46,7 @@ def _measure_copies() -> list[tuple[str, str]]:
     out = []
     for m in interface.MEASURED.members:
         owner = "ff" if any(o.name == m.name for o in interface.FF_OUT.members) else "setpoint"
-        lvalues = [f"{m.name}[{k}]" if m.count == 2 else m.name for k in range(m.count)]
-        out += [(lv, f"{owner}.{lv}") for lv in lvalues]
+        out += [(lv, f"{owner}.{lv}") for lv in m.lvalues()]
     return out
 
 
