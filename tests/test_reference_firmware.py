@@ -186,3 +186,18 @@ def test_the_cmake_project_regenerates_on_a_model_change_and_gates_on_verify(veh
     assert _kinetab(*remake, cwd=tmp_path).returncode == 0
     again = cmake_build()
     assert again.returncode == 0, again.stdout + again.stderr
+
+
+@needs_qemu
+def test_readme_emulated_board_block_runs_as_written(tmp_path):
+    """README's emulated-board block, verbatim, on an invented vehicle saved as cart.toml: the firmware is
+    written, built, started, and a bench run against it completes."""
+    from tests.test_readme_sequence import _run, _tools, block
+
+    doc, _ = invented_feasible(1804, "cart")
+    work = tmp_path / "work"
+    work.mkdir()
+    (work / "cart.toml").write_text(to_toml(doc), encoding="utf-8")
+    _run(block("kinetab bench firmware"), work, _tools(tmp_path), "emulated-board block")
+    meta = json.loads((work / "log.json").read_text())
+    assert meta["ended"] == "completed" and meta["samples"] == 100
