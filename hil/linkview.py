@@ -14,6 +14,9 @@ FIFO_DEPTH = 64
 pseudo-terminal (21 ms); 64 x 32 bytes of RAM. Firmware may override it with -D<NAME>_LINK_FIFO_DEPTH."""
 PERIOD_US = 1000
 WATCHDOG_TICKS = 100
+FAULT_REPEATS = 20
+"""Times the controller sends a halt's fault message again (one watchdog time apart) until the host
+answers: 2 s at the defaults, the host's answer timeout, so one lost frame never fails a run."""
 
 
 def _run(layout: messages.Layout, name: str, st: interface.Struct) -> list[tuple[str, int]]:
@@ -65,6 +68,7 @@ def context(
         "fifo_depth": fifo_depth,
         "period_us": period_us,
         "watchdog_ticks": watchdog_ticks,
+        "fault_repeats": FAULT_REPEATS,
         "max_frame": framing.MAX_FRAME,
         "crc_rows": cformat.rows([f"0x{x:04X}u" for x in framing.crc_table()], per_row=8),
         "fault_codes": [(c.name, int(c)) for c in messages.FaultCode],

@@ -33,6 +33,7 @@ class LinkStatus:
     drop_unknown: int = field(metadata={"c": "sim_link.drop_unknown"})
     tx_lost: int = field(metadata={"c": "sim_tx_lost"})
     drop_order: int = field(metadata={"c": "sim_link.drop_order"})
+    repeats: int = field(metadata={"c": "sim_link.repeats"})  # a halt's fault messages still to send again
 
 
 STATUS_C = [(f.name, f.metadata["c"]) for f in fields(LinkStatus)]

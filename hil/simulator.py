@@ -25,6 +25,12 @@ from . import framing, messages
 from .plant import Plant, PlantOptions
 from .simfirmware import SimFirmware
 
+CATCH_UP_S = 0.005
+"""After this process stalls (a loaded machine), resume ticking rather than run the missed ticks in a
+burst: a real controller never stalls, and a burst drains the FIFO faster than any controller would
+(the likely cause of one "fifo dry" on a loaded CI machine, with 50 ms allowed). A stalled
+simulation runs slow instead."""
+
 
 @dataclass(frozen=True)
 class LinkFaults:
@@ -101,19 +107,20 @@ class Simulator:
         self._next_garbage = 0.0
 
     def run(self, *, linger_s: float = 1.0, announce: bool = True) -> int:
-        """Serve until a halt (then linger so the host reads the last frames); 0 when the plan ended
-        or the host halted, 1 on any other halt."""
+        """Serve until a halt, then linger at least linger_s and while the controller still repeats the
+        halt's fault message (the host has not answered), so the host can read it; 0 when the plan
+        ended or the host halted, 1 on any other halt."""
         if announce:
             print(self.path, flush=True)
         next_tick = time.perf_counter()
         halted_at = None
-        while halted_at is None or time.perf_counter() - halted_at < linger_s:
+        while halted_at is None or time.perf_counter() - halted_at < linger_s or self.firmware.status().repeats:
             now = time.perf_counter()
             self._io(now)
             if now >= next_tick:
                 self._tick()
                 next_tick += self.options.period_s
-                next_tick = max(next_tick, now - 0.05)  # after a long stall, do not burst more than 50 ms
+                next_tick = max(next_tick, now - CATCH_UP_S)
                 if self.halt is not None and halted_at is None:
                     halted_at = now
                     self._say_halt()

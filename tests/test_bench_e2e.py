@@ -175,7 +175,8 @@ def test_host_silent_the_controller_halts_on_its_watchdog(tmp_path, watchdog, ms
     while time.monotonic() < deadline and not faults:
         faults = [m for m in link.receive(0.1) if isinstance(m, messages.Fault)]
     port.close()
-    assert faults == [messages.Fault(messages.FaultCode.WATCHDOG, 5)] and ident.watchdog_ms == ms
+    # one fault, or it and its repeats (one watchdog time apart) should this process have stalled
+    assert set(faults) == {messages.Fault(messages.FaultCode.WATCHDOG, 5)} and ident.watchdog_ms == ms
     code, err = sim.finish()
     assert code == 1 and "halted: watchdog" in err
 

@@ -227,3 +227,39 @@ def test_generated_c_strict_with_gcc_arm_none_eabi(link_dir, target, tmp_path):
             str(tmp_path / f"{name}.o"),
         ]
         subprocess.run(cmd, check=True, capture_output=True, text=True)
+
+
+def _tick_collect(fwlib, ticks: int) -> list[tuple[int, object]]:
+    out = []
+    for t in range(ticks):
+        fwlib.tick()
+        out += [(t, m) for m in _received(fwlib)]
+    return out
+
+
+def test_a_halt_is_reported_again_until_the_host_answers(firmware):
+    """The controller's own halt (here the end of the plan) is sent again every watchdog time, at most
+    FAULT_REPEATS times, so one lost frame cannot fail a completed run; HELLO, ARM or HALT stops it;
+    the host's own HALT is not repeated. PROTOCOL.md states the same count."""
+    end = messages.Fault(messages.FaultCode.END, 1)
+    _send(firmware, messages.Arm(1, 1), messages.Setpoint(1, messages.LAST, (0,) * messages.N_IN))
+    _received(firmware)
+    seen = _tick_collect(firmware, 2 + 100 * (linkview.FAULT_REPEATS + 3))
+    faults = [(t, m) for t, m in seen if isinstance(m, messages.Fault)]
+    assert [m for _, m in faults] == [end] * (1 + linkview.FAULT_REPEATS)
+    gaps = {b[0] - a[0] for a, b in zip(faults, faults[1:])}
+    assert gaps == {linkview.WATCHDOG_TICKS} and firmware.status().repeats == 0
+    # answered after the first repeat: no more
+    _send(firmware, messages.Arm(2, 1), messages.Setpoint(2, messages.LAST, (0,) * messages.N_IN))
+    _received(firmware)
+    seen = _tick_collect(firmware, 2 + linkview.WATCHDOG_TICKS)
+    assert [m for _, m in seen if isinstance(m, messages.Fault)] == [messages.Fault(messages.FaultCode.END, 2)] * 2
+    _send(firmware, messages.Hello())
+    assert [type(m) for m in _received(firmware)] == [messages.Identify]
+    assert _tick_collect(firmware, 5 * linkview.WATCHDOG_TICKS) == []
+    # the host's HALT: reported once
+    _send(firmware, messages.Arm(3, 1), messages.Setpoint(3, 0, (0,) * messages.N_IN), messages.Halt())
+    assert _received(firmware)[-1] == messages.Fault(messages.FaultCode.HALT, 3)
+    assert _tick_collect(firmware, 3 * linkview.WATCHDOG_TICKS) == []
+    protocol = (__import__("pathlib").Path(__file__).parents[1] / "hil" / "PROTOCOL.md").read_text()
+    assert f"at most {linkview.FAULT_REPEATS} more times" in protocol
