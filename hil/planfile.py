@@ -96,4 +96,22 @@ def read_plan(path: Path) -> Plan:
     data = np.array(values)
     if not np.all(np.isfinite(data)):
         raise UserError(f"{path}: every value must be a finite number")
+    _check_time(path, data[:, 0])
     return Plan({c: data[:, k] for k, c in enumerate(PLAN_COLUMNS)}, phases)
+
+
+def _check_time(path: Path, t: np.ndarray) -> None:
+    """One row per control period: t rises by the same step on every row (to its 9 printed digits)."""
+    if len(t) < 2:
+        return
+    step = np.diff(t)
+    bad = np.flatnonzero(np.abs(step - step[0]) > 1e-6 * step[0] + 1e-8 * np.abs(t[1:]))
+    if step[0] <= 0 or len(bad):
+        line = 3 + (int(bad[0]) if len(bad) else 0)
+        raise UserError(f"{path}:{line}: t must rise by one control period per row ({step[0]:.9g} s at line 3)")
+
+
+def period_s(plan: Plan) -> float | None:
+    """The plan's control period (its time step), None for a one-row plan."""
+    t = plan.columns[PLAN_COLUMNS[0]]
+    return float(t[1] - t[0]) if len(t) > 1 else None

@@ -93,6 +93,7 @@ def bench_run(
         ident = session.handshake(link, url)
         meta["controller"] = _controller(ident)
         session.check_identity(ident, fingerprint, url)
+        session.check_period(ident, planfile.period_s(plan), url, str(plan_path))
 
         def on_sample(index: int, sample: messages.Sample) -> None:
             log.add(index, sample)

@@ -119,6 +119,17 @@ def check_identity(ident: messages.Identify, fingerprint: int, port_name: str) -
         )
 
 
+def check_period(ident: messages.Identify, plan_period_s: float | None, port_name: str, plan_name: str) -> None:
+    """Stop before arming when the plan's rows are not one per control period of this controller: the
+    controller consumes one row per tick, so the motion would run slower or faster than planned."""
+    if plan_period_s is None or abs(plan_period_s * 1e6 - ident.period_us) <= 1e-3 * ident.period_us:
+        return
+    raise BenchFailed(
+        f"{port_name}: the controller ticks every {ident.period_us / 1000:g} ms, {plan_name} has a row every "
+        f"{plan_period_s * 1000:g} ms; make the plan with `kinetab bench plan --period {ident.period_us / 1000:g}`"
+    )
+
+
 Rows = list[tuple[int, ...]]  # setpoints: interface.FF_IN columns in firmware steps
 
 

@@ -160,3 +160,19 @@ def test_campaign_writes_plans_inside_the_envelope_and_the_steps(bench, tmp_path
     for p in plans:
         rig = "wheels-up" if "wheels-up" in p.name else "on-floor"
         assert planner.plan_problem(v, planfile.read_plan(p), rig) is None
+
+
+def test_a_plan_whose_time_does_not_rise_by_one_period_per_row_is_refused(bench, tmp_path, capsys):
+    """The controller consumes one row per tick, so a row missing (t jumps two periods) or a step that
+    changes is refused with the file and line, before the port is opened."""
+    folder, path, _ = bench
+    v = model.load(path)
+    plan = planner.make_plan(v, duration_s=5, period_s=0.002, rig="on-floor")
+    lines = planfile.to_csv(plan).splitlines(keepends=True)
+    del lines[40]  # the data row with t = 39 periods: line 41 now jumps by two
+    (tmp_path / "gap.csv").write_text("".join(lines), encoding="utf-8")
+    args = ["bench", "run", str(path), "--port", "/nonexistent/tty", "--plan", str(tmp_path / "gap.csv")]
+    code, _, err = run([*args, "--log", str(tmp_path / "log.csv"), "--yes"], capsys)
+    assert code == 2 and f"{tmp_path / 'gap.csv'}:41:" in err and "one control period per row" in err
+    assert "/nonexistent" not in err and not (tmp_path / "log.csv").exists()
+    assert planfile.period_s(plan) == pytest.approx(0.002)

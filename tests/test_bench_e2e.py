@@ -195,6 +195,25 @@ def test_fingerprint_mismatch_is_refused_before_arming(tmp_path):
     assert json.loads(log.with_suffix(".json").read_text())["samples"] == 0
 
 
+def test_a_plan_at_another_period_is_refused_before_arming(tmp_path):
+    """A plan with a row every 2 ms on a controller that ticks every 1 ms would run at half speed: refused
+    after the handshake, naming both periods and the command that makes a fitting plan."""
+    path = tmp_path / "plan.csv"
+    subprocess.run(
+        [*KINETAB, "bench", "plan", str(DEMO_PATH), "-o", str(path), "--duration", "5", "--period", "2"],
+        cwd=ROOT,
+        check=True,
+        capture_output=True,
+    )
+    sim, log = Sim(DEMO_PATH), tmp_path / "log.csv"
+    run = _run(sim.port, path, log)
+    _, err = run.communicate(timeout=30)
+    assert run.returncode == 1 and "ticks every 1 ms" in err and "row every 2 ms" in err and "--period 1" in err
+    assert sim.proc.poll() is None  # never armed, never halted: still waiting
+    sim.proc.kill()
+    assert json.loads(log.with_suffix(".json").read_text())["samples"] == 0
+
+
 def test_nothing_answers(tmp_path):
     plan, log = _plan(tmp_path, 5), tmp_path / "log.csv"
     master, slave = os.openpty()
