@@ -144,6 +144,7 @@ class Stream:
     free: int = 0  # free slots the controller last reported
     acked: int = -1  # index of the newest setpoint the controller had received then
     heard_at: float | None = None  # when the controller last reported (None: not yet)
+    progressed: bool = False  # the last report showed setpoints received since the one before
     sent_at: list[float] = field(default_factory=list)
     flags: int = 0  # flags every setpoint carries (messages.NO_FEEDFORWARD)
 
@@ -155,22 +156,26 @@ class Stream:
         """A sample's free slots and last received sequence number (unwrapped near what was sent)."""
         self.free = free
         behind = (self.first_seq + self.next_index - 1 - last_rx) & 0xFFFF
+        before = self.acked
         self.acked = max(self.acked, self.next_index - 1 - behind)
+        self.progressed = self.acked > before
         self.next_index = max(self.next_index, self.acked + 1)  # never send again what has arrived
         self.heard_at = now
 
     def repair(self, now: float) -> None:
         """Go back to the first setpoint not received when the controller, reporting at least RESEND_S
-        after it was sent, still lacks it. Before its first report (a deep FIFO's prefill can take
-        longer than RESEND_S to send) only when nothing has been sent for START_RESEND_S, well within
-        the controller's watchdog."""
+        after it was sent, still lacks it and received nothing since its report before: a lost frame
+        stalls the controller's sequence, while on a slow link (a low baud rate, an emulator) setpoints
+        still in flight keep arriving and are not sent again. Before its first report (a deep FIFO's
+        prefill can take longer than RESEND_S to send) only when nothing has been sent for
+        START_RESEND_S, well within the controller's watchdog."""
         first_missing = self.acked + 1
         if first_missing >= self.next_index:
             return
         if self.heard_at is None:
             due = now - self.sent_at[self.next_index - 1] > START_RESEND_S
         else:
-            due = self.heard_at - self.sent_at[first_missing] > RESEND_S
+            due = not self.progressed and self.heard_at - self.sent_at[first_missing] > RESEND_S
         if due:
             self.next_index = first_missing
 

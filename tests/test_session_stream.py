@@ -43,6 +43,21 @@ def test_a_lost_setpoint_is_sent_again_once_reported_late_enough():
     assert _seqs(s.take(3, now=3 * session.RESEND_S)) == [2, 3, 4]
 
 
+def test_on_a_slow_link_setpoints_still_arriving_are_not_sent_again():
+    """A slow link (an emulated UART, a low baud rate) takes many periods to carry a prefill: while each
+    report shows setpoints received since the one before, the rest are in flight, not lost; a report
+    showing none received (a lost frame stalls the sequence) sends again from the first missing."""
+    s = session.Stream(rows=_rows(40), first_seq=1, free=32)
+    s.take(32, now=0.0)
+    for k, now in enumerate((0.05, 0.10, 0.15), start=1):  # three setpoints arrive per 50 ms period
+        s.report(free=32, last_rx=3 * k, now=now)
+        s.repair(now=now)
+        assert s.next_index == 32, k  # long past RESEND_S, but arriving: no resend
+    s.report(free=32, last_rx=9, now=0.20)  # nothing since the last report: seq 10 was lost
+    s.repair(now=0.20)
+    assert s.next_index == 9 and _seqs(s.take(2, now=0.2)) == [10, 11]
+
+
 def test_before_the_first_report_the_prefill_is_resent_after_a_quiet_spell():
     s = session.Stream(rows=_rows(10), first_seq=1, free=8)
     s.take(8, now=0.0)
