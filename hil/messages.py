@@ -203,15 +203,30 @@ tables of PROTOCOL.md (checked by tests/test_framing.py) all read it."""
 KIND_OF = {layout.cls: kind for kind, layout in LAYOUT.items()}
 
 
-def encode(msg: Message) -> bytes:
-    """The payload of a message (type byte and fields; the CRC is added by the framing)."""
-    kind = KIND_OF[type(msg)]
-    layout = LAYOUT[kind]
+def pack(layout: Layout, msg: object) -> bytes:
+    """The fields of `msg` in `layout`'s wire order (after the type byte)."""
     values: list[int] = []
     for f in layout.fields:
         value = getattr(msg, f.name)
         values += list(value) if f.columns else [value]
-    return bytes([kind]) + struct.pack(layout.fmt, *values)
+    return struct.pack(layout.fmt, *values)
+
+
+def unpack(layout: Layout, body: bytes) -> object:
+    """The message `layout` describes from its fields (after the type byte; the length already checked)."""
+    values = struct.unpack(layout.fmt, body)
+    fields: dict[str, object] = {}
+    at = 0
+    for f in layout.fields:
+        fields[f.name] = tuple(values[at : at + f.count]) if f.columns else values[at]
+        at += f.count
+    return layout.cls(**fields)
+
+
+def encode(msg: Message) -> bytes:
+    """The payload of a message (type byte and fields; the CRC is added by the framing)."""
+    kind = KIND_OF[type(msg)]
+    return bytes([kind]) + pack(LAYOUT[kind], msg)
 
 
 TO_CONTROLLER = frozenset({MessageType.HELLO, MessageType.ARM, MessageType.SETPOINT, MessageType.HALT})
@@ -227,11 +242,5 @@ def decode(payload: bytes, kinds: frozenset[MessageType] = TO_HOST) -> Message |
     layout = LAYOUT[kind]
     if len(payload) - 1 != layout.size:
         return "length"
-    values = struct.unpack(layout.fmt, payload[1:])
-    fields: dict[str, object] = {}
-    at = 0
-    for f in layout.fields:
-        fields[f.name] = tuple(values[at : at + f.count]) if f.columns else values[at]
-        at += f.count
-    msg: Message = layout.cls(**fields)
+    msg: Message = unpack(layout, payload[1:])  # type: ignore[assignment]
     return msg

@@ -16,6 +16,13 @@ import numpy as np
 from kinetab.generator import dynamics
 from kinetab.generator.vehicle import Vehicle
 
+MAX_STEP_S = 0.001
+"""The longest integration step: a slow control period (an emulated board ticks every 50 ms) is split
+so the explicit integration stays accurate and stable for any vehicle."""
+LOOP_PERIODS = 4
+"""The velocity loop's time constant is at least this many control periods: a sampled PI loop as fast
+as its own period is unstable (common practice: a loop several times slower than its sampling)."""
+
 
 @dataclass(frozen=True)
 class PlantOptions:
@@ -26,7 +33,7 @@ class PlantOptions:
     current_noise_a: float = 0.0  # standard deviation of the measured current
     encoder_counts: int = 4096  # encoder counts per motor turn
     loop_time_s: float = 0.05  # time constant of the velocity loop on its own (sets the PI gains)
-    substeps: int = 2
+    substeps: int = 2  # integration steps per period (more when a step would exceed MAX_STEP_S)
     seed: int = 1
     batch: int = 0  # 0: one vehicle, state (2,); n > 0: n independent copies, state (n, 2)
 
@@ -61,8 +68,9 @@ class Plant:
             inertia = float(dynamics.mass_matrix_entries(v, v.payload.mass_max_kg / 2)[0])
         else:
             inertia = dynamics.reflected_mass(v)
-        kp = inertia / self.options.loop_time_s * dynamics.motor_gain(v)
-        return kp, kp / (5 * self.options.loop_time_s)
+        loop_s = max(self.options.loop_time_s, LOOP_PERIODS * self.options.period_s)
+        kp = inertia / loop_s * dynamics.motor_gain(v)
+        return kp, kp / (5 * loop_s)
 
     def step(self, setpoint_si: dict[str, float], ff_current_a: np.ndarray) -> None:
         """One control period with the setpoint and feed-forward current applied."""
@@ -79,9 +87,7 @@ class Plant:
         self.current = np.clip(command, low, high)
         free = (command > low) & (command < high)  # integrate only while unsaturated (anti-windup)
         self.integral = self.integral + np.where(free, error * opt.period_s, 0.0)
-        dt = opt.period_s / opt.substeps
-        for _ in range(opt.substeps):
-            self._advance(setpoint_si, dt)
+        self._integrate(setpoint_si)
 
     def current_range(self) -> tuple[np.ndarray, np.ndarray]:
         """What the drive can put through each motor now, A: the current limit, and the supply voltage
@@ -97,9 +103,13 @@ class Plant:
         """One control period with the motors halted (no current); the PI starts afresh afterwards."""
         self.current = np.zeros_like(self.speed)
         self.integral = np.zeros_like(self.speed)
-        dt = self.options.period_s / self.options.substeps
-        for _ in range(self.options.substeps):
-            self._advance(setpoint_si, dt)
+        self._integrate(setpoint_si)
+
+    def _integrate(self, setpoint_si: dict[str, float]) -> None:
+        """One control period in steps of at most MAX_STEP_S (and at least `substeps` of them)."""
+        n = max(self.options.substeps, math.ceil(self.options.period_s / MAX_STEP_S - 1e-9))
+        for _ in range(n):
+            self._advance(setpoint_si, self.options.period_s / n)
 
     def _advance(self, sp: dict[str, float], dt: float) -> None:
         """Semi-implicit Euler over dt: forces from the motor currents, accelerations from the rig."""

@@ -17,13 +17,13 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
-from kinetab.generator import interface
 from kinetab.generator.synthesis import Firmware
 from kinetab.generator.vehicle import Vehicle
 
 from . import framing, messages
 from .plant import Plant, PlantOptions
 from .simfirmware import SimFirmware
+from .stepdrive import StepDrive
 
 CATCH_UP_S = 0.005
 """After this process stalls (a loaded machine), resume ticking rather than run the missed ticks in a
@@ -97,13 +97,12 @@ class Simulator:
         self.period_us = round(options.period_s * 1e6)
         ticks = max(1, round(watchdog_s / options.period_s))
         self.firmware = SimFirmware(fw, folder, period_us=self.period_us, fifo_depth=fifo_depth, watchdog_ticks=ticks)
-        self.plant = Plant(truth=truth, options=options)
+        self.drive = StepDrive(fw, Plant(truth=truth, options=options))
         rng = np.random.default_rng(faults.seed)
         self.to_controller, self.to_host = _Stream(faults, rng), _Stream(faults, rng)
         self.reader = framing.FrameReader()  # our own transmissions, to report why we halted
         self.halt: messages.Fault | None = None
         self.master, self.slave, self.path = open_port()
-        self._last = _idle_setpoint()
         self._next_garbage = 0.0
 
     def run(self, *, linger_s: float = 1.0, announce: bool = True) -> int:
@@ -158,19 +157,10 @@ class Simulator:
 
     def _tick(self) -> None:
         """One control period: measure the one that ended, let the link C tick, run the vehicle."""
-        current, speed = self.plant.measure()
-        f = self.fw.vehicle.firmware
-        steps = [*np.round(current / f.current_lsb_a), *np.round(speed / f.speed_lsb_mps)]
-        self.firmware.set_measured(tuple(int(np.clip(x, -(2**31), 2**31 - 1)) for x in steps))
+        self.firmware.set_measured(self.drive.measure())
         self.firmware.tick()
         count, inputs, ff, halted = self.firmware.applied()
-        if halted or count == 0:  # motors off: the vehicle coasts
-            self.plant.coast(self._last)
-            return
-        fields = interface.rows_to_fields(interface.FF_IN, np.array([inputs], dtype=np.int64))
-        si = interface.to_si(self.fw.vehicle, interface.FF_IN, fields)
-        self._last = {k: float(np.asarray(val).ravel()[0]) for k, val in si.items()}
-        self.plant.step(self._last, np.array(ff, dtype=float) * f.current_lsb_a)
+        self.drive.apply(inputs, ff, halted=halted or count == 0)
 
     def _wait(self, deadline: float) -> None:
         timeout = max(0.0, min(deadline - time.perf_counter(), 0.005))
@@ -188,8 +178,3 @@ class Simulator:
             file=sys.stderr,
             flush=True,
         )
-
-
-def _idle_setpoint() -> dict[str, float]:
-    """Standing still, level, empty: what the vehicle holds before the first setpoint."""
-    return {name: 0.0 for name in interface.FF_IN.si_names().values()}

@@ -1,0 +1,99 @@
+"""The drive wire: what the reference firmware on an emulated board exchanges with the simulated drive
+on the host, over a second UART standing in for the PWM, the current sensors and the encoders.
+
+Every control tick the firmware sends a COMMAND (the setpoint and feed-forward it applies, or a halt);
+the drive advances the vehicle one period and answers with a READING (what it measured over that
+period), which the firmware's measure hook reports at the next tick. One type byte, then little-endian
+fields, like the bench link (hil/messages.py); each frame is COBS-encoded and ends in a zero byte, without
+the link's CRC: the emulator's socket does not corrupt bytes, and the fixed length catches a lost one.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from enum import IntEnum
+from typing import Any
+
+from kinetab.generator import interface
+
+from . import framing, messages
+from .messages import Field, Layout
+
+TICK_MODULO = 1 << 16
+"""The tick counter on the wire is 16 bits and wraps; a reading answers the command of the same tick."""
+
+
+class DriveType(IntEnum):
+    """Type byte of each drive-wire message."""
+
+    COMMAND = 0x41  # firmware to drive
+    READING = 0x42  # drive to firmware
+
+
+@dataclass(frozen=True)
+class Command:
+    tick: int  # the firmware's control tick, modulo 2^16
+    halted: int  # 1: motors off (no setpoint applied this tick)
+    inputs: tuple[int, ...]  # interface.FF_IN columns, firmware steps
+    ff: tuple[int, ...]  # interface.FF_OUT columns, current steps
+
+
+@dataclass(frozen=True)
+class Reading:
+    tick: int  # the command this reading answers
+    measured: tuple[int, ...]  # interface.MEASURED columns: current steps, speed steps
+
+
+LAYOUT = {
+    DriveType.COMMAND: Layout(
+        Command,
+        (
+            Field("tick", "u16"),
+            Field("halted", "u8"),
+            Field("inputs", "i32", interface.FF_IN.columns),
+            Field("ff", "i32", interface.FF_OUT.columns),
+        ),
+    ),
+    DriveType.READING: Layout(Reading, (Field("tick", "u16"), Field("measured", "i32", interface.MEASURED.columns))),
+}
+"""Both messages, described once: the codecs below and the firmware's drive C (hil/firmwareview.py) read it."""
+
+
+def frame(msg: Command | Reading) -> bytes:
+    """The wire bytes of one message: COBS(type byte and fields) and the zero delimiter."""
+    kind = DriveType.COMMAND if isinstance(msg, Command) else DriveType.READING
+    return framing.cobs_encode(bytes([kind]) + messages.pack(LAYOUT[kind], msg)) + b"\x00"
+
+
+def decode(encoded: bytes) -> Command | Reading | None:
+    """The message in one COBS frame (without its delimiter), or None for a damaged or unknown one."""
+    payload = framing.cobs_decode(encoded)
+    if not payload or payload[0] not in {int(k) for k in DriveType}:
+        return None
+    layout = LAYOUT[DriveType(payload[0])]
+    if len(payload) - 1 != layout.size:
+        return None
+    msg: Command | Reading = messages.unpack(layout, payload[1:])  # type: ignore[assignment]
+    return msg
+
+
+def c_context() -> dict[str, Any]:
+    """Type codes, lengths and the byte offset of every field and struct column, for the drive C."""
+
+    def columns(kind: DriveType, name: str, st: interface.Struct) -> list[tuple[str, int]]:
+        f = next(f for f in LAYOUT[kind].fields if f.name == name)
+        assert f.columns == st.columns and f.wire == "i32", f"{name} carries {st.tag}'s columns as int32"
+        at = LAYOUT[kind].offsets()[name]
+        return [(lv, at + 4 * k) for k, lv in enumerate(st.lvalues())]
+
+    return {
+        "command_code": f"0x{int(DriveType.COMMAND):02X}",
+        "reading_code": f"0x{int(DriveType.READING):02X}",
+        "command_bytes": 1 + LAYOUT[DriveType.COMMAND].size,
+        "reading_bytes": 1 + LAYOUT[DriveType.READING].size,
+        "command_at": LAYOUT[DriveType.COMMAND].offsets(),
+        "reading_at": LAYOUT[DriveType.READING].offsets(),
+        "command_inputs": columns(DriveType.COMMAND, "inputs", interface.FF_IN),
+        "command_ff": columns(DriveType.COMMAND, "ff", interface.FF_OUT),
+        "reading_measured": columns(DriveType.READING, "measured", interface.MEASURED),
+    }

@@ -1,0 +1,50 @@
+"""The simulated drive seen through the firmware's integers: the plant (hil/plant.py) advanced one control
+period per applied command, and measured in firmware steps. Both the host simulation and the drive behind
+the emulated board use it, so the two cannot differ in how a command becomes physics."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+from kinetab.generator import interface
+from kinetab.generator.errors import InternalError
+from kinetab.generator.synthesis import Firmware
+
+from .plant import Plant
+
+INT32 = (-(2**31), 2**31 - 1)
+
+
+def idle_setpoint() -> dict[str, float]:
+    """Standing still, level, empty: what the vehicle holds before the first setpoint."""
+    return {name: 0.0 for name in interface.FF_IN.si_names().values()}
+
+
+@dataclass
+class StepDrive:
+    """The plant behind one controller; `last` is the setpoint the vehicle coasts under when halted."""
+
+    fw: Firmware
+    plant: Plant
+    last: dict[str, float] = field(default_factory=idle_setpoint)
+
+    def measure(self) -> tuple[int, ...]:
+        """The period that ended, as the MEASURED columns in firmware steps (an int32 sensor saturates)."""
+        current, speed = self.plant.measure()
+        if not (np.all(np.isfinite(current)) and np.all(np.isfinite(speed))):
+            raise InternalError("the simulated vehicle diverged (a current or speed is not finite)")
+        f = self.fw.vehicle.firmware
+        steps = [*np.round(current / f.current_lsb_a), *np.round(speed / f.speed_lsb_mps)]
+        return tuple(int(np.clip(x, *INT32)) for x in steps)
+
+    def apply(self, inputs: Sequence[int], ff: Sequence[int], *, halted: bool) -> None:
+        """One period under a setpoint (FF_IN steps) and its feed-forward (FF_OUT current steps), or coasting."""
+        if halted:  # motors off: the vehicle coasts
+            self.plant.coast(self.last)
+            return
+        fields = interface.rows_to_fields(interface.FF_IN, np.array([inputs], dtype=np.int64))
+        si = interface.to_si(self.fw.vehicle, interface.FF_IN, fields)
+        self.last = {k: float(np.asarray(val).ravel()[0]) for k, val in si.items()}
+        self.plant.step(self.last, np.array(ff, dtype=float) * self.fw.vehicle.firmware.current_lsb_a)
