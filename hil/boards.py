@@ -3,9 +3,10 @@ the UART the bench link uses and its interrupt numbers, the core clock), one des
 
 Both are Arm MPS2 FPGA images that `qemu-system-arm` emulates (machines `mps2-an386` and `mps2-an385`):
 SSRAM1 holds the code at 0x00000000, SSRAM2/3 the data at 0x20000000; the CMSDK APB UART0 at
-0x40004000 raises interrupt 0 on receive and 1 on transmit; the system clock is 25 MHz (Arm, "Cortex-M4
-/ Cortex-M3 Prototyping System" application notes AN386 / AN385; the addresses were checked with the
-emulator's `info mtree`)."""
+0x40004000 raises interrupt 0 on receive and 1 on transmit, UART1 at 0x40005000 interrupts 2 and 3
+(the simulated drive's wire; qemu's `-serial` options map to UART0, UART1 in order); the system clock
+is 25 MHz (Arm, "Cortex-M4 / Cortex-M3 Prototyping System" application notes AN386 / AN385; the
+addresses were checked with the emulator's `info mtree`, UART1's interrupts in qemu's hw/arm/mps2.c)."""
 
 from __future__ import annotations
 
@@ -30,6 +31,9 @@ class Board:
     uart_base: int  # CMSDK APB UART used by the bench link
     uart_rx_irq: int
     uart_tx_irq: int
+    drive_uart_base: int  # CMSDK APB UART of the simulated drive (emulated board only)
+    drive_uart_rx_irq: int
+    drive_uart_tx_irq: int
     clock_hz: int  # SysTick counts this clock
     irq_count: int  # external interrupt lines in the vector table
 
@@ -46,6 +50,9 @@ AN386 = Board(
     uart_base=0x40004000,
     uart_rx_irq=0,
     uart_tx_irq=1,
+    drive_uart_base=0x40005000,
+    drive_uart_rx_irq=2,
+    drive_uart_tx_irq=3,
     clock_hz=25_000_000,
     irq_count=32,
 )

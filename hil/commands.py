@@ -104,7 +104,7 @@ def link(model_path: str, out_dir: str, period: float) -> None:
 def firmware(model_path: str, board_name: str, out_dir: str, period: float, fifo_depth: int) -> None:
     """Write a bare-metal firmware project into OUT: the feed-forward and link C, main, startup, UART
     driver, linker script, Makefile and CMake project for BOARD. `make` builds it with arm-none-eabi-gcc;
-    `make run` starts it on qemu-system-arm with the bench link on a pseudo-terminal; the CMake build
+    `kinetab bench simulate --board` runs it on qemu-system-arm with the simulated drive; the CMake build
     regenerates the C when the model changes and runs kinetab verify."""
     from kinetab.generator import outputs, synthesis
 
@@ -121,7 +121,8 @@ def firmware(model_path: str, board_name: str, out_dir: str, period: float, fifo
         model_path=Path(model_path).resolve().as_posix(),
     )
     outputs.write_set({Path(out_dir) / name: text for name, text in files.items()})
-    click.echo(f"wrote {len(files)} files into {out_dir} for {board.title}: make, then make run")
+    runs = f"kinetab bench simulate --board {board.name} runs it on the emulator"
+    click.echo(f"wrote {len(files)} files into {out_dir} for {board.title}: make builds it; {runs}")
 
 
 @bench.command(short_help="Measured against predicted current, per wheel and phase; exit 1 on a mismatch.")
@@ -288,9 +289,8 @@ def plan(
 @click.option(
     "--watchdog",
     type=QuantityType(SECONDS, "ms"),
-    default="100 ms",
-    show_default=True,
-    help="Halt the motors after this long without a valid frame (bare number: ms).",
+    help="Halt the motors after this long without a valid frame (bare number: ms; default: 100 ms or five "
+    "control periods, whichever is longer: at a slow period the host sends one setpoint per period).",
 )
 @click.option("--drop-rate", type=click.FloatRange(0, 1), default=0.0, help="Test faults: drop bytes (probability).")
 @click.option("--corrupt-rate", type=click.FloatRange(0, 1), default=0.0, help="Test faults: flip a bit (probability).")
@@ -308,6 +308,11 @@ def plan(
 )
 @click.option("--seed", type=int, default=1, show_default=True, help="Seed of the noise and the faults.")
 @click.option(
+    "--board",
+    "board_name",
+    help="Run the reference firmware on this emulated board (mps2-an386, mps2-an385) instead of on this host.",
+)
+@click.option(
     "--port-file",
     type=click.Path(dir_okay=False),
     help="Also write the port's path to this file (atomically, once the port is open): a script can wait for it.",
@@ -320,17 +325,20 @@ def simulate(
     rig: str,
     encoder_counts: int,
     fifo_depth: int,
-    watchdog: float,
+    watchdog: float | None,
     drop_rate: float,
     corrupt_rate: float,
     delay: float,
     garbage_every: float,
     seed: int,
+    board_name: str | None,
     port_file: str | None,
 ) -> None:
     """Compile the link and feed-forward C of MODEL for this host, drive a simulated vehicle (TRUE_MODEL's
     physics under a velocity PI loop plus the feed-forward) and serve it on a pseudo-terminal, whose path
-    is the first line printed. Runs until the motors are halted, or until killed."""
+    is the first line printed. Runs until the motors are halted, or until killed. With --board, the
+    reference firmware runs on qemu-system-arm instead, driving the same simulated vehicle; it runs
+    until killed (a board stays on after a halt and takes the next run)."""
     from kinetab.generator import outputs, synthesis
 
     from .plant import PlantOptions
@@ -339,15 +347,18 @@ def simulate(
     v = model.load(model_path)
     truth = model.load(truth_path) if truth_path else v
     _check_period("bench simulate", period)
-    if not period <= watchdog <= 60:
-        raise UserError("bench simulate: --watchdog: expected between one control period and 60 s")
+    watchdog = _watchdog_s(watchdog, period)
     if port_file:
         outputs.check_target(Path(port_file))
-    fw = synthesis.synthesise(v)
-    opts = PlantOptions(period_s=period, rig=rig, current_noise_a=noise, encoder_counts=encoder_counts, seed=seed)
     faults = LinkFaults(
         drop_rate=drop_rate, corrupt_rate=corrupt_rate, delay_s=delay, garbage_every_s=garbage_every, seed=seed
     )
+    fw = synthesis.synthesise(v)
+    opts = PlantOptions(period_s=period, rig=rig, current_noise_a=noise, encoder_counts=encoder_counts, seed=seed)
+    if board_name:
+        _refuse_faults(faults)
+        sys.exit(_simulate_board(fw, truth, board_name, opts=opts, fifo_depth=fifo_depth, watchdog_s=watchdog,
+                                 port_file=port_file))  # fmt: skip
     with tempfile.TemporaryDirectory(prefix="kinetab-sim-") as tmp:
         sim = Simulator(
             fw, truth, options=opts, faults=faults, fifo_depth=fifo_depth, folder=Path(tmp), watchdog_s=watchdog
@@ -356,6 +367,58 @@ def simulate(
             outputs.write_file(Path(port_file), sim.path + "\n")
         code = sim.run()
     sys.exit(code)
+
+
+def _watchdog_s(watchdog: float | None, period: float) -> float:
+    """--watchdog, or its default: 100 ms or five control periods, whichever is longer."""
+    watchdog = max(0.1, 5 * period) if watchdog is None else watchdog
+    if not period <= watchdog <= 60:
+        raise UserError("bench simulate: --watchdog: expected between one control period and 60 s")
+    return watchdog
+
+
+_FAULT_OPTIONS = {"drop_rate": "--drop-rate", "corrupt_rate": "--corrupt-rate", "delay_s": "--delay",
+                  "garbage_every_s": "--garbage-every"}  # fmt: skip
+
+
+def _refuse_faults(faults: Any) -> None:
+    """Fault injection belongs to the host simulation: a UserError naming the first one asked with --board."""
+    for name, flag in _FAULT_OPTIONS.items():
+        if getattr(faults, name):
+            raise UserError(f"bench simulate: {flag}: fault injection is for the host simulation, not --board")
+
+
+def _simulate_board(
+    fw: Any, truth: Any, board_name: str, *, opts: Any, fifo_depth: int, watchdog_s: float, port_file: str | None
+) -> int:
+    """`bench simulate --board`: build the reference firmware, run it on qemu-system-arm with the simulated
+    drive, print the link's port first; until the emulator exits or the command is stopped."""
+    from kinetab.generator import outputs
+
+    from . import boards, boardsim
+    from .plant import Plant
+    from .session import BenchFailed
+    from .stepdrive import StepDrive
+
+    board = boards.board(board_name)
+    boardsim.check_tools("bench simulate --board")
+    with tempfile.TemporaryDirectory(prefix="kinetab-board-") as tmp:
+        period_us = round(opts.period_s * 1e6)
+        spec = boardsim.Build(period_us=period_us, fifo_depth=fifo_depth, folder=Path(tmp) / "fw",
+                              watchdog_ticks=max(1, round(watchdog_s / opts.period_s)))  # fmt: skip
+        elf = boardsim.build(fw, board, spec)
+        emulated = boardsim.EmulatedBoard(board, elf, StepDrive(fw, Plant(truth=truth, options=opts)), Path(tmp))
+        try:
+            click.echo(emulated.port)
+            if port_file:
+                outputs.write_file(Path(port_file), emulated.port + "\n")
+            click.echo(f"{board.title} running the reference firmware; Ctrl-C stops it", err=True)
+            code = emulated.serve()
+        finally:
+            emulated.close()
+    if code != 0:
+        raise BenchFailed(f"bench simulate: qemu-system-arm exited with code {code}")
+    return 0
 
 
 @bench.command(short_help="Stream a plan to the controller and log what it measures.")

@@ -8,7 +8,7 @@ from typing import Any
 from kinetab.generator import cformat, interface, render
 from kinetab.generator.synthesis import Firmware
 
-from . import linkview
+from . import drivewire, linkview
 from .boards import Board
 
 
@@ -19,6 +19,8 @@ def file_names(prefix: str, board: Board) -> dict[str, str]:
         "startup": f"{prefix}_startup.c",
         "uart_source": f"{prefix}_uart.c",
         "uart_header": f"{prefix}_uart.h",
+        "drive_source": f"{prefix}_drive.c",
+        "drive_header": f"{prefix}_drive.h",
         "board": f"{prefix}_board.h",
         "linker": f"{board.name}.ld",
         "makefile": "Makefile",
@@ -32,22 +34,14 @@ TEMPLATES = {
     "startup": "fw/startup.c.j2",
     "uart_source": "fw/uart.c.j2",
     "uart_header": "fw/uart.h.j2",
+    "drive_source": "fw/drive.c.j2",
+    "drive_header": "fw/drive.h.j2",
     "board": "fw/board.h.j2",
     "linker": "fw/linker.ld.j2",
     "makefile": "fw/Makefile.j2",
     "cmake": "fw/CMakeLists.txt.j2",
     "toolchain": "fw/toolchain.cmake.j2",
 }
-
-
-def _measure_copies() -> list[tuple[str, str]]:
-    """(measured lvalue, command lvalue): each measured column from the same-named column of the
-    feed-forward output (the current) or of the setpoint (the speed)."""
-    out = []
-    for m in interface.MEASURED.members:
-        owner = "ff" if any(o.name == m.name for o in interface.FF_OUT.members) else "setpoint"
-        out += [(lv, f"{owner}.{lv}") for lv in m.lvalues()]
-    return out
 
 
 def _cmake_quoted(text: str) -> str:
@@ -57,42 +51,67 @@ def _cmake_quoted(text: str) -> str:
     return text
 
 
-def context(fw: Firmware, board: Board, *, period_us: int, fifo_depth: int, model_path: str) -> dict[str, Any]:
+def context(
+    fw: Firmware,
+    board: Board,
+    *,
+    period_us: int,
+    fifo_depth: int,
+    model_path: str,
+    watchdog_ticks: int = linkview.WATCHDOG_TICKS,
+) -> dict[str, Any]:
     """Everything the firmware templates print (the link's context, the board, the file names)."""
     prefix = fw.vehicle.name
     names = file_names(prefix, board)
     generated = interface.file_names(prefix)
-    ctx = linkview.context(fw, period_us=period_us, fifo_depth=fifo_depth)
+    ctx = linkview.context(fw, period_us=period_us, fifo_depth=fifo_depth, watchdog_ticks=watchdog_ticks)
     ctx.update(
         names={**names, "link_header": generated["link_header"]},
         board={
             **vars(board),
             "uart_base_hex": f"0x{board.uart_base:08X}",
+            "drive_uart_base_hex": f"0x{board.drive_uart_base:08X}",
             "flash_origin_hex": f"0x{board.flash_origin:08X}",
             "ram_origin_hex": f"0x{board.ram_origin:08X}",
         },
         generated=generated,
         model_path=_cmake_quoted(model_path),
         measured_type=interface.MEASURED.c_type(prefix),
-        measure_copies=_measure_copies(),
+        drive=drivewire.c_context(),
         sources=[
             generated["ff_source"],
             generated["link_source"],
             names["main"],
             names["startup"],
             names["uart_source"],
+            names["drive_source"],
         ],
-        headers=[generated["ff_header"], generated["link_header"], names["board"], names["uart_header"]],
+        headers=[
+            generated["ff_header"],
+            generated["link_header"],
+            names["board"],
+            names["uart_header"],
+            names["drive_header"],
+        ],
     )
     return ctx
 
 
-def render_project(fw: Firmware, board: Board, *, period_us: int, fifo_depth: int, model_path: str) -> dict[str, str]:
+def render_project(
+    fw: Firmware,
+    board: Board,
+    *,
+    period_us: int,
+    fifo_depth: int,
+    model_path: str,
+    watchdog_ticks: int = linkview.WATCHDOG_TICKS,
+) -> dict[str, str]:
     """Every file of the project: the feed-forward and link files and the board's own; the CMake
     project names `model_path` (absolute) as the file it regenerates the C from."""
     files = dict(render.render(fw))
-    files.update(linkview.render_link(fw, period_us=period_us, fifo_depth=fifo_depth))
-    ctx = context(fw, board, period_us=period_us, fifo_depth=fifo_depth, model_path=model_path)
+    link = {"period_us": period_us, "fifo_depth": fifo_depth, "watchdog_ticks": watchdog_ticks}
+    files.update(linkview.render_link(fw, **link))
+    ctx = context(fw, board, model_path=model_path, **link)
     env = render.environment()
     for role, template in TEMPLATES.items():
         files[ctx["names"][role]] = cformat.tidy(env.get_template(template).render(**ctx))

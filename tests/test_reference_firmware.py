@@ -1,18 +1,21 @@
-"""The reference firmware (`kinetab bench firmware`) on emulated Arm MPS2 boards: the project's own
-Makefile builds it with arm-none-eabi-gcc, qemu-system-arm runs it (a real Cortex-M instruction set,
-vector table, SysTick and CMSDK UART interrupts), and the bench talks to it over the emulated UART on a
-pseudo-terminal. The feed-forward current the firmware computed is checked against the Python emulation
-of the same program, row by row (the compiler and the emulator are outside the project).
+"""The reference firmware (`kinetab bench firmware`) on emulated Arm MPS2 boards, as `kinetab bench simulate
+--board` runs it: the project's own Makefile builds it with arm-none-eabi-gcc, qemu-system-arm runs it (a
+real Cortex-M instruction set, vector table, SysTick and CMSDK UART interrupts), the bench talks to it over
+the emulated UART0 on a pseudo-terminal, and the simulated drive answers its UART1. The feed-forward
+current the firmware computed is checked against the Python emulation of the same program, row by row,
+and the measurements against the host simulation (the compiler and the emulator are outside the project).
 
-The emulator delivers host bytes to the CMSDK UART at about 4.5 kB/s (one byte per emulator main-loop
-turn, measured with qemu 7.2), so these runs use a 50 ms control period (under 1 kB/s of setpoints)."""
+The emulator delivers host bytes to a CMSDK UART one per emulator main-loop turn (a few kB/s, measured
+with qemu 7.2), so these runs use a 50 ms control period."""
 
 from __future__ import annotations
 
 import csv
 import json
+import os
 import re
 import shutil
+import signal
 import subprocess
 import sys
 import time
@@ -22,7 +25,7 @@ import numpy as np
 import pytest
 import serial
 from kinetab.generator import emulate, interface, model, synthesis
-from kinetab.hil import boards, framing, messages, planfile
+from kinetab.hil import framing, messages, planfile, session
 
 from tests.helpers import invented_feasible, to_toml
 
@@ -53,38 +56,74 @@ def vehicle(tmp_path_factory):
     return folder, path, fw
 
 
-class Board:
-    """qemu-system-arm running an ELF with the first UART on a pseudo-terminal."""
+class BoardSim:
+    """A `bench simulate MODEL --board B` process: the link's port is the first line it prints."""
 
-    def __init__(self, machine: str, elf: Path) -> None:
-        self.proc = subprocess.Popen(
-            ["qemu-system-arm", "-machine", machine, "-display", "none", "-monitor", "none", "-serial", "pty"]
-            + ["-kernel", str(elf)],
-            stdout=subprocess.PIPE,
-            stderr=subprocess.STDOUT,
-            text=True,
-        )
-        assert self.proc.stdout is not None
-        line = self.proc.stdout.readline()  # "char device redirected to /dev/pts/N (label serial0)"
-        found = re.search(r"(/dev/pts/\d+)", line)
-        assert found, line
-        self.port = found.group(1)
+    def __init__(self, model_path: Path, board: str, *extra: str) -> None:
+        args = ["bench", "simulate", str(model_path), "--board", board, "--period", PERIOD, *extra]
+        self.proc = subprocess.Popen([*KINETAB, *args], stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+        assert self.proc.stdout is not None and self.proc.stderr is not None
+        self.port = self.proc.stdout.readline().strip()
+        assert self.port.startswith("/dev/"), self.proc.stderr.read()
 
-    def close(self) -> None:
-        self.proc.kill()
-        self.proc.wait(timeout=10)
+    def children(self) -> list[int]:
+        """Processes this one started (the emulator), from /proc."""
+        text = Path(f"/proc/{self.proc.pid}/task/{self.proc.pid}/children").read_text()
+        return [int(pid) for pid in text.split()]
+
+    def stop(self, sig: int = signal.SIGTERM) -> tuple[int, str]:
+        """Send `sig`, wait; (exit code, stderr). Fails if a process it started outlives it."""
+        started = self.children()
+        self.proc.send_signal(sig)
+        try:
+            _, err = self.proc.communicate(timeout=30)
+        except subprocess.TimeoutExpired:
+            self.proc.kill()
+            _, err = self.proc.communicate()
+        left = [pid for pid in started if _state(pid) not in ("gone", "Z")]
+        assert not left, f"left running: {left}"
+        return self.proc.returncode, err
 
 
-def _build(folder: Path, model_path: Path, board: str) -> Path:
-    out = folder / board
-    done = _kinetab("bench", "firmware", str(model_path), "--board", board, "-o", str(out), "--period", PERIOD,
-                    "--fifo-depth", "16", cwd=folder)  # fmt: skip
+def _state(pid: int) -> str:
+    """The process's state letter from /proc (R, S, Z, ...), or "gone"."""
+    try:
+        return Path(f"/proc/{pid}/stat").read_text().split(")")[-1].split()[0]
+    except OSError:
+        return "gone"
+
+
+@pytest.fixture
+def board_sim():
+    """Start `bench simulate --board`; stopped (and checked for leftovers) at the end of the test."""
+    running: list[BoardSim] = []
+
+    def start(model_path: Path, board: str = "mps2-an386", *extra: str) -> BoardSim:
+        running.append(BoardSim(model_path, board, *extra))
+        return running[-1]
+
+    yield start
+    for sim in running:
+        if sim.proc.poll() is None:
+            sim.stop()
+
+
+def _plan(folder: Path, path: Path, seconds: float, name: str = "plan.csv") -> Path:
+    plan = folder / name
+    done = _kinetab("bench", "plan", str(path), "-o", str(plan), "--duration", str(seconds), "--period", PERIOD,
+                    cwd=folder)  # fmt: skip
     assert done.returncode == 0, done.stderr
-    make = subprocess.run(["make", "-C", str(out)], capture_output=True, text=True, timeout=300)
-    assert make.returncode == 0, make.stdout + make.stderr
-    elf = out / f"{model.load(model_path).name}.elf"
-    assert elf.exists()
-    return elf
+    return plan
+
+
+def _run(folder: Path, path: Path, port: str, plan: Path, log: Path) -> subprocess.CompletedProcess[str]:
+    return _kinetab("bench", "run", str(path), "--port", port, "--plan", str(plan), "--log", str(log), "--yes",
+                    cwd=folder)  # fmt: skip
+
+
+def _rows(log: Path) -> list[dict[str, str]]:
+    with log.open() as fh:
+        return list(csv.DictReader(fh))
 
 
 def _identify(port: str) -> messages.Identify:
@@ -103,44 +142,104 @@ def _identify(port: str) -> messages.Identify:
 
 
 @needs_qemu
-@pytest.mark.parametrize("board", ["mps2-an386", "mps2-an385"])
-def test_the_firmware_builds_boots_and_identifies_itself(vehicle, board):
-    folder, path, fw = vehicle
-    running = Board(boards.board(board).qemu_machine, _build(folder, path, board))
-    try:
-        ident = _identify(running.port)
-    finally:
-        running.close()
+@pytest.mark.parametrize("board,sig", [("mps2-an386", signal.SIGTERM), ("mps2-an385", signal.SIGINT)])
+def test_the_firmware_boots_identifies_itself_and_stops_with_no_process_left(vehicle, board_sim, board, sig):
+    """`bench simulate --board` builds the firmware, runs it on the emulator and prints the port first;
+    SIGTERM or Ctrl-C stops the emulator with it."""
+    _, path, fw = vehicle
+    sim = board_sim(path, board, "--watchdog", "200 ms")
+    assert len(sim.children()) == 1
+    ident = _identify(sim.port)
     assert ident.fingerprint == fw.fingerprint
-    assert (ident.version, ident.period_us, ident.fifo_depth) == (messages.PROTOCOL_VERSION, 50_000, 16)
+    assert (ident.version, ident.period_us, ident.fifo_depth, ident.watchdog_ms) == (
+        messages.PROTOCOL_VERSION, 50_000, 64, 200)  # fmt: skip
+    code, err = sim.stop(sig)
+    assert code == 128 + sig and err.strip().splitlines()[-1] in ("kinetab: terminated", "kinetab: interrupted")
 
 
 @needs_qemu
-def test_a_bench_run_against_the_emulated_board_matches_the_emulation_bit_for_bit(vehicle):
-    """`bench plan` and `bench run` against the firmware on the emulated Cortex-M4: every setpoint is
-    answered once, in order, and the feed-forward current the firmware computed on the emulated core
-    equals the Python emulation of the program on the logged setpoints."""
+def test_thirty_seconds_on_the_board_bit_exact_and_as_on_the_host(vehicle, board_sim):
+    """A 30-s plan (600 periods of 50 ms) on the emulated Cortex-M4: every setpoint answered once and in
+    order, no drops, no FIFO underrun; the feed-forward current the firmware computed on the emulated core
+    equals the Python emulation of the program on every row; and the measurements (the same simulated
+    drive, reached over the drive UART) equal the host simulation's on the same plan, row for row."""
     folder, path, fw = vehicle
-    running = Board(boards.AN386.qemu_machine, _build(folder, path, "mps2-an386"))
-    try:
-        plan, log = folder / "plan.csv", folder / "log.csv"
-        done = _kinetab("bench", "plan", str(path), "-o", str(plan), "--duration", "5", "--period", PERIOD, cwd=folder)
-        assert done.returncode == 0, done.stderr
-        done = _kinetab("bench", "run", str(path), "--port", running.port, "--plan", str(plan), "--log", str(log),
-                        "--yes", cwd=folder)  # fmt: skip
-        assert done.returncode == 0, done.stderr
-    finally:
-        running.close()
-    meta = json.loads(log.with_suffix(".json").read_text())
-    assert meta["ended"] == "completed" and meta["samples"] == meta["log_rows"] == 100
-    assert meta["missing_samples"] == 0 and not any(meta["drops"].values())
-    with log.open() as fh:
-        rows = list(csv.DictReader(fh))
+    plan = _plan(folder, path, 30)
+    logs = {"board": folder / "board.csv", "host": folder / "host.csv"}
+    done = _run(folder, path, board_sim(path).port, plan, logs["board"])
+    assert done.returncode == 0, done.stderr
+    host = subprocess.Popen([*KINETAB, "bench", "simulate", str(path), "--period", PERIOD],
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)  # fmt: skip
+    assert host.stdout is not None
+    done = _run(folder, path, host.stdout.readline().strip(), plan, logs["host"])
+    host.communicate(timeout=30)
+    assert done.returncode == 0, done.stderr
+    meta = json.loads(logs["board"].with_suffix(".json").read_text())
+    assert meta["ended"] == "completed" and meta["samples"] == meta["log_rows"] == 600
+    assert meta["missing_samples"] == 0 and not any(meta["drops"].values()) and meta["faults"] == []
+    rows = _rows(logs["board"])
+    assert [int(r["seq"]) for r in rows] == list(range(1, 601))
     si = {planfile.SI_NAME[c]: np.array([float(r[c]) for r in rows]) for c in planfile.PLAN_COLUMNS[1:]}
     want = emulate.run(fw.design.feedforward, fw.tables, interface.to_steps(fw.vehicle, interface.FF_IN, si))["current"]
     amps = np.array([[float(r["ff_current_right"]), float(r["ff_current_left"])] for r in rows])
     got = np.round(amps / fw.vehicle.firmware.current_lsb_a).astype(np.int64)
     assert np.array_equal(got, want) and np.abs(want).max() > 0
+    measured = ["current_right", "current_left", "measured_speed_right", "measured_speed_left"]
+    assert [[r[c] for c in measured] for r in rows] == [[r[c] for c in measured] for r in _rows(logs["host"])]
+    assert max(abs(float(r["measured_speed_right"])) for r in rows) > 0.05  # the vehicle moved
+
+
+@needs_qemu
+def test_the_board_refuses_another_vehicle_and_survives_garbage(vehicle, board_sim, tmp_path):
+    """A plan for another model is refused before arming (fingerprint); random bytes on the link are
+    dropped by the firmware, which then runs a plan to the end."""
+    folder, path, fw = vehicle
+    doc, other_fw = invented_feasible(1805, "tugboat")
+    other = tmp_path / "tugboat.toml"
+    other.write_text(to_toml(doc), encoding="utf-8")
+    assert other_fw.fingerprint != fw.fingerprint
+    sim = board_sim(path)
+    refused = _run(tmp_path, other, sim.port, _plan(tmp_path, other, 5), tmp_path / "other.csv")
+    assert refused.returncode == 1 and "fingerprint mismatch" in refused.stderr, refused.stderr
+    assert f"0x{fw.fingerprint:08X}" in refused.stderr
+    with serial.Serial(sim.port) as link:
+        link.write(bytes(np.random.default_rng(5).integers(0, 256, 600, dtype=np.uint8)) + b"\x00")
+        link.flush()
+    log = tmp_path / "log.csv"
+    done = _run(folder, path, sim.port, _plan(tmp_path, path, 5), log)
+    assert done.returncode == 0, done.stderr
+    assert json.loads(log.with_suffix(".json").read_text())["samples"] == 100
+
+
+@needs_qemu
+def test_a_silent_host_makes_the_firmware_halt_on_its_watchdog(vehicle, board_sim):
+    _, path, _ = vehicle
+    sim = board_sim(path, "mps2-an386", "--watchdog", "200 ms")
+    _identify(sim.port)  # the emulator is up
+    port = serial.serial_for_url(sim.port, timeout=0.1)
+    link = session.Link(port)
+    session.handshake(link, sim.port)
+    link.send(messages.Arm(1, 8))
+    link.send_many([messages.Setpoint(k, 0, (0,) * messages.N_IN) for k in range(1, 6)])  # then silence
+    deadline, faults = time.monotonic() + 20, []
+    while time.monotonic() < deadline and not faults:
+        faults = [m for m in link.receive(0.1) if isinstance(m, messages.Fault)]
+    port.close()
+    assert faults and set(faults) == {messages.Fault(messages.FaultCode.WATCHDOG, 5)}, faults
+
+
+def test_bench_simulate_board_missing_tools_and_fault_options_are_one_line(vehicle, tmp_path):
+    """Without the cross compiler on PATH: one line naming the Debian package, exit 2. Fault injection
+    belongs to the host simulation: refused with --board."""
+    _, path, _ = vehicle
+    empty = tmp_path / "bin"
+    empty.mkdir()
+    done = subprocess.run([*KINETAB, "bench", "simulate", str(path), "--board", "mps2-an386"], cwd=tmp_path,
+                          capture_output=True, text=True, env={**os.environ, "PATH": str(empty)})  # fmt: skip
+    assert done.returncode == 2 and done.stderr.count("\n") == 1, done.stderr
+    assert "arm-none-eabi-gcc" in done.stderr and "gcc-arm-none-eabi" in done.stderr and not done.stdout
+    done = _kinetab("bench", "simulate", str(path), "--board", "mps2-an386", "--drop-rate", "0.1", cwd=tmp_path)
+    assert done.returncode == 2 and done.stderr.count("\n") == 1 and "--drop-rate" in done.stderr, done.stderr
 
 
 def test_an_unknown_board_is_one_line_and_writes_nothing(vehicle, tmp_path):

@@ -1,0 +1,163 @@
+"""The reference firmware on an emulated board, served like the host simulation: the project built with
+arm-none-eabi-gcc, run on qemu-system-arm with the bench link on a pseudo-terminal, and the simulated
+drive (hil/stepdrive.py, the same physics as the host simulation) answering the firmware's drive UART
+over a Unix socket, one control period per command (hil/drivewire.py)."""
+
+from __future__ import annotations
+
+import os
+import re
+import select
+import shutil
+import socket
+import subprocess
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from kinetab.generator import outputs
+from kinetab.generator.errors import InternalError, UserError
+from kinetab.generator.synthesis import Firmware
+
+from . import drivewire, firmwareview
+from .boards import Board
+from .session import BenchFailed
+from .stepdrive import StepDrive
+
+TOOLS = {"arm-none-eabi-gcc": "gcc-arm-none-eabi", "make": "make", "qemu-system-arm": "qemu-system-arm"}
+"""Each program the emulated board needs -> the Debian package that installs it."""
+START_TIMEOUT_S = 30.0
+"""How long the emulator may take to open its pseudo-terminal and connect the drive UART."""
+
+
+def check_tools(command: str) -> None:
+    """A UserError naming the Debian package of the first program missing from PATH."""
+    for tool, package in TOOLS.items():
+        if shutil.which(tool) is None:
+            raise UserError(f"{command}: {tool} not found on PATH; install the Debian package {package}")
+
+
+@dataclass(frozen=True, kw_only=True)
+class Build:
+    """How the firmware is built: the link's settings and the folder its project is written into."""
+
+    period_us: int
+    fifo_depth: int
+    watchdog_ticks: int
+    folder: Path
+
+
+def build(fw: Firmware, board: Board, spec: Build) -> Path:
+    """Write the reference firmware project into spec.folder and build it with its own Makefile; the ELF."""
+    files = firmwareview.render_project(
+        fw,
+        board,
+        period_us=spec.period_us,
+        fifo_depth=spec.fifo_depth,
+        watchdog_ticks=spec.watchdog_ticks,
+        model_path=(spec.folder / "model.toml").as_posix(),
+    )
+    outputs.write_set({spec.folder / name: text for name, text in files.items()})
+    done = subprocess.run(["make", "-s", "-C", str(spec.folder)], capture_output=True, text=True, check=False)
+    if done.returncode != 0:
+        last = (done.stderr.strip() or done.stdout.strip() or "no output").splitlines()[-1]
+        raise InternalError(f"the generated firmware did not build with arm-none-eabi-gcc: {last}")
+    return spec.folder / f"{fw.vehicle.name}.elf"
+
+
+@dataclass
+class DrivePeer:
+    """The simulated drive on the host end of the firmware's drive UART: each COMMAND advances the
+    vehicle one period and is answered by a READING of that period."""
+
+    drive: StepDrive
+    conn: socket.socket
+    pending: bytearray = field(default_factory=bytearray)
+    commands: int = 0
+    bad_frames: int = 0
+
+    def serve(self, timeout_s: float) -> bool:
+        """Answer what arrives within timeout_s; False once the emulator has closed the socket."""
+        if not select.select([self.conn], [], [], timeout_s)[0]:
+            return True
+        data = self.conn.recv(65536)
+        if not data:
+            return False
+        self.pending += data
+        *frames, rest = bytes(self.pending).split(b"\x00")
+        self.pending = bytearray(rest)
+        replies = b"".join(self._answer(f) for f in frames if f)
+        if replies:
+            self.conn.sendall(replies)
+        return True
+
+    def _answer(self, encoded: bytes) -> bytes:
+        msg = drivewire.decode(encoded)
+        if not isinstance(msg, drivewire.Command):
+            self.bad_frames += 1
+            return b""
+        self.commands += 1
+        self.drive.apply(msg.inputs, msg.ff, halted=msg.halted != 0)
+        return drivewire.frame(drivewire.Reading(tick=msg.tick, measured=self.drive.measure()))
+
+
+class EmulatedBoard:
+    """qemu-system-arm running the firmware: UART0 on a pseudo-terminal (its path in `port`), UART1
+    connected to the simulated drive. Close it to stop the emulator (also on Ctrl-C)."""
+
+    def __init__(self, board: Board, elf: Path, drive: StepDrive, folder: Path) -> None:
+        sock_path = folder / "drive.sock"
+        listener = socket.socket(socket.AF_UNIX, socket.SOCK_STREAM)
+        listener.bind(str(sock_path))
+        listener.listen(1)
+        args = ["qemu-system-arm", "-machine", board.qemu_machine, "-display", "none", "-monitor", "none"]
+        args += ["-serial", "pty", "-serial", f"unix:{sock_path}", "-kernel", str(elf)]
+        self.proc = subprocess.Popen(args, stdout=subprocess.PIPE, stderr=subprocess.STDOUT)
+        try:
+            self.port = self._read_port()
+            self.peer = DrivePeer(drive=drive, conn=self._accept(listener))
+        except BaseException:
+            self.close()
+            raise
+        finally:
+            listener.close()
+
+    def _read_port(self) -> str:
+        """The pseudo-terminal qemu names on its first line ("char device redirected to /dev/pts/N ...")."""
+        assert self.proc.stdout is not None
+        fd, seen, deadline = self.proc.stdout.fileno(), b"", time.monotonic() + START_TIMEOUT_S
+        while b"\n" not in seen and time.monotonic() < deadline:
+            if select.select([fd], [], [], 0.1)[0]:
+                chunk = os.read(fd, 4096)
+                if not chunk:
+                    break
+                seen += chunk
+        found = re.search(rb"(/dev/\S+)", seen)
+        if not found:
+            first = seen.decode(errors="replace").strip().splitlines()[:1] or ["no output"]
+            raise BenchFailed(f"bench simulate: qemu-system-arm did not open the link port: {first[0]}")
+        return found.group(1).decode()
+
+    def _accept(self, listener: socket.socket) -> socket.socket:
+        listener.settimeout(START_TIMEOUT_S)
+        try:
+            conn, _ = listener.accept()
+        except TimeoutError:
+            raise BenchFailed("bench simulate: qemu-system-arm did not connect the drive UART") from None
+        return conn
+
+    def serve(self) -> int:
+        """Drive the vehicle until the emulator exits; its exit code."""
+        while self.peer.serve(0.2):
+            if self.proc.poll() is not None:
+                break
+        return self.proc.wait()
+
+    def close(self) -> None:
+        """Stop the emulator and wait for it: no process is left behind."""
+        if self.proc.poll() is None:
+            self.proc.kill()
+        self.proc.wait()
+        peer = getattr(self, "peer", None)
+        if peer is not None:
+            peer.conn.close()
