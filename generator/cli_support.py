@@ -135,6 +135,10 @@ class Interrupted(BaseException):
 
 
 def _raise_interrupted(signum: int, _frame: object) -> None:
+    """The first Ctrl-C or SIGTERM stops the command; later ones are ignored, so they cannot cut short
+    the cleanup the first one started (halting the motors, stopping an emulator)."""
+    for sig in (signal.SIGINT, signal.SIGTERM):
+        signal.signal(sig, signal.SIG_IGN)
     raise Interrupted(signum)
 
 

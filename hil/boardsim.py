@@ -47,8 +47,29 @@ class Build:
     folder: Path
 
 
-def build(fw: Firmware, board: Board, spec: Build) -> Path:
-    """Write the reference firmware project into spec.folder and build it with its own Makefile; the ELF."""
+@dataclass(frozen=True)
+class Built:
+    """The firmware's ELF and its sizes in bytes, as arm-none-eabi-size reports them."""
+
+    elf: Path
+    text: int
+    data: int
+    bss: int
+
+    def report(self) -> str:
+        """Flash holds the code, constants and the initial .data; RAM .data, .bss and the stack."""
+        return (
+            f"built {self.elf.name}: flash {self.text + self.data} bytes, RAM {self.data + self.bss} bytes "
+            f"static + {firmwareview.STACK_BYTES} stack"
+        )
+
+
+SIZE_LINE = re.compile(r"^\s*(\d+)\s+(\d+)\s+(\d+)\s+\d+\s+[0-9a-fA-F]+\s+\S+\.elf\s*$", re.M)
+"""arm-none-eabi-size's Berkeley line (text data bss dec hex file), which the Makefile prints."""
+
+
+def build(fw: Firmware, board: Board, spec: Build) -> Built:
+    """Write the reference firmware project into spec.folder and build it with its own Makefile."""
     files = firmwareview.render_project(
         fw,
         board,
@@ -62,7 +83,11 @@ def build(fw: Firmware, board: Board, spec: Build) -> Path:
     if done.returncode != 0:
         last = (done.stderr.strip() or done.stdout.strip() or "no output").splitlines()[-1]
         raise InternalError(f"the generated firmware did not build with arm-none-eabi-gcc: {last}")
-    return spec.folder / f"{fw.vehicle.name}.elf"
+    sizes = SIZE_LINE.search(done.stdout)
+    if sizes is None:
+        raise InternalError(f"the firmware build printed no size line: {done.stdout.strip()[-200:]}")
+    text, data, bss = (int(x) for x in sizes.groups())
+    return Built(elf=spec.folder / f"{fw.vehicle.name}.elf", text=text, data=data, bss=bss)
 
 
 @dataclass
@@ -75,6 +100,8 @@ class DrivePeer:
     pending: bytearray = field(default_factory=bytearray)
     commands: int = 0
     bad_frames: int = 0
+    late_ticks: int = 0  # the firmware's latest figures (drivewire.Command)
+    stack_bytes: int = 0
 
     def serve(self, timeout_s: float) -> bool:
         """Answer what arrives within timeout_s; False once the emulator has closed the socket."""
@@ -97,6 +124,7 @@ class DrivePeer:
             self.bad_frames += 1
             return b""
         self.commands += 1
+        self.late_ticks, self.stack_bytes = msg.late_ticks, msg.stack_bytes
         self.drive.apply(msg.inputs, msg.ff, halted=msg.halted != 0)
         return drivewire.frame(drivewire.Reading(tick=msg.tick, measured=self.drive.measure()))
 
@@ -152,6 +180,14 @@ class EmulatedBoard:
             if self.proc.poll() is not None:
                 break
         return self.proc.wait()
+
+    def health(self) -> str:
+        """What the firmware reported over the run: for the closing line."""
+        peer = self.peer
+        return (
+            f"firmware: {peer.commands} control ticks, {peer.late_ticks} of them late waiting for the drive, "
+            f"worst stack {peer.stack_bytes} of {firmwareview.STACK_BYTES} bytes; {peer.bad_frames} bad drive frames"
+        )
 
     def close(self) -> None:
         """Stop the emulator and wait for it: no process is left behind."""

@@ -406,16 +406,17 @@ def _simulate_board(
         period_us = round(opts.period_s * 1e6)
         spec = boardsim.Build(period_us=period_us, fifo_depth=fifo_depth, folder=Path(tmp) / "fw",
                               watchdog_ticks=max(1, round(watchdog_s / opts.period_s)))  # fmt: skip
-        elf = boardsim.build(fw, board, spec)
-        emulated = boardsim.EmulatedBoard(board, elf, StepDrive(fw, Plant(truth=truth, options=opts)), Path(tmp))
+        built = boardsim.build(fw, board, spec)
+        emulated = boardsim.EmulatedBoard(board, built.elf, StepDrive(fw, Plant(truth=truth, options=opts)), Path(tmp))
         try:
             click.echo(emulated.port)
             if port_file:
                 outputs.write_file(Path(port_file), emulated.port + "\n")
-            click.echo(f"{board.title} running the reference firmware; Ctrl-C stops it", err=True)
+            click.echo(f"{built.report()}; {board.title} runs it; Ctrl-C stops it", err=True)
             code = emulated.serve()
         finally:
             emulated.close()
+            click.echo(emulated.health(), err=True)
     if code != 0:
         raise BenchFailed(f"bench simulate: qemu-system-arm exited with code {code}")
     return 0

@@ -36,6 +36,8 @@ class Command:
     halted: int  # 1: motors off (no setpoint applied this tick)
     inputs: tuple[int, ...]  # interface.FF_IN columns, firmware steps
     ff: tuple[int, ...]  # interface.FF_OUT columns, current steps
+    late_ticks: int  # control ticks the firmware so far ran late waiting for the drive's answer
+    stack_bytes: int  # the most stack the firmware used so far (its painted stack)
 
 
 @dataclass(frozen=True)
@@ -52,6 +54,8 @@ LAYOUT = {
             Field("halted", "u8"),
             Field("inputs", "i32", interface.FF_IN.columns),
             Field("ff", "i32", interface.FF_OUT.columns),
+            Field("late_ticks", "u32"),
+            Field("stack_bytes", "u32"),
         ),
     ),
     DriveType.READING: Layout(Reading, (Field("tick", "u16"), Field("measured", "i32", interface.MEASURED.columns))),

@@ -29,6 +29,10 @@ def file_names(prefix: str, board: Board) -> dict[str, str]:
     }
 
 
+STACK_BYTES = 8192
+"""The main stack the linker script reserves at the top of RAM (the build fails if .data and .bss reach
+it); the startup paints it so the firmware can report its worst use."""
+
 TEMPLATES = {
     "main": "fw/main.c.j2",
     "startup": "fw/startup.c.j2",
@@ -78,6 +82,7 @@ def context(
         model_path=_cmake_quoted(model_path),
         measured_type=interface.MEASURED.c_type(prefix),
         drive=drivewire.c_context(),
+        stack_bytes=STACK_BYTES,
         sources=[
             generated["ff_source"],
             generated["link_source"],

@@ -34,9 +34,10 @@ def skiff():
     values=st.lists(I32, min_size=N_IN + N_OUT, max_size=N_IN + N_OUT),
 )
 def test_a_command_is_cobs_of_its_type_byte_and_little_endian_fields(tick, halted, values):
-    msg = drivewire.Command(tick=tick, halted=halted, inputs=tuple(values[:N_IN]), ff=tuple(values[N_IN:]))
+    inputs, ff = tuple(values[:N_IN]), tuple(values[N_IN:])
+    msg = drivewire.Command(tick=tick, halted=halted, inputs=inputs, ff=ff, late_ticks=7, stack_bytes=2**32 - 1)
     wire = drivewire.frame(msg)
-    body = struct.pack(f"<BHB{len(values)}i", drivewire.DriveType.COMMAND, tick, halted, *values)
+    body = struct.pack(f"<BHB{len(values)}iII", drivewire.DriveType.COMMAND, tick, halted, *values, 7, 2**32 - 1)
     assert wire == cobs.encode(body) + b"\x00" and wire.count(0) == 1
     assert drivewire.decode(wire[:-1]) == msg
 
@@ -54,9 +55,9 @@ def test_a_reading_round_trips_and_a_damaged_one_is_refused(tick, measured):
 def test_the_c_offsets_follow_the_layout():
     """Every field and column offset the drive C uses lies inside its message, without overlap."""
     ctx = drivewire.c_context()
-    cmd = [ctx["command_at"]["tick"], ctx["command_at"]["halted"]] + [
-        o for _, o in ctx["command_inputs"] + ctx["command_ff"]
-    ]
+    at = ctx["command_at"]
+    cmd = [at["tick"], at["halted"], at["late_ticks"], at["stack_bytes"]]
+    cmd += [o for _, o in ctx["command_inputs"] + ctx["command_ff"]]
     widths = [2, 1] + [4] * (len(cmd) - 2)
     spans = sorted(zip(cmd, widths))
     assert spans[0][0] == 1 and all(a + w == b for (a, w), (b, _) in zip(spans, spans[1:]))

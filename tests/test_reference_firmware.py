@@ -71,10 +71,12 @@ class BoardSim:
         text = Path(f"/proc/{self.proc.pid}/task/{self.proc.pid}/children").read_text()
         return [int(pid) for pid in text.split()]
 
-    def stop(self, sig: int = signal.SIGTERM) -> tuple[int, str]:
-        """Send `sig`, wait; (exit code, stderr). Fails if a process it started outlives it."""
+    def stop(self, *sigs: int) -> tuple[int, str]:
+        """Send the signals (SIGTERM by default) at once, wait; (exit code, stderr). Fails if a process it
+        started outlives it."""
         started = self.children()
-        self.proc.send_signal(sig)
+        for sig in sigs or (signal.SIGTERM,):
+            self.proc.send_signal(sig)
         try:
             _, err = self.proc.communicate(timeout=30)
         except subprocess.TimeoutExpired:
@@ -142,10 +144,12 @@ def _identify(port: str) -> messages.Identify:
 
 
 @needs_qemu
-@pytest.mark.parametrize("board,sig", [("mps2-an386", signal.SIGTERM), ("mps2-an385", signal.SIGINT)])
-def test_the_firmware_boots_identifies_itself_and_stops_with_no_process_left(vehicle, board_sim, board, sig):
+@pytest.mark.parametrize(
+    "board,sigs", [("mps2-an386", (signal.SIGTERM,)), ("mps2-an385", (signal.SIGINT, signal.SIGINT))]
+)
+def test_the_firmware_boots_identifies_itself_and_stops_with_no_process_left(vehicle, board_sim, board, sigs):
     """`bench simulate --board` builds the firmware, runs it on the emulator and prints the port first;
-    SIGTERM or Ctrl-C stops the emulator with it."""
+    SIGTERM, or Ctrl-C pressed twice, stops the emulator with it and still reports the firmware's health."""
     _, path, fw = vehicle
     sim = board_sim(path, board, "--watchdog", "200 ms")
     assert len(sim.children()) == 1
@@ -153,8 +157,9 @@ def test_the_firmware_boots_identifies_itself_and_stops_with_no_process_left(veh
     assert ident.fingerprint == fw.fingerprint
     assert (ident.version, ident.period_us, ident.fifo_depth, ident.watchdog_ms) == (
         messages.PROTOCOL_VERSION, 50_000, 64, 200)  # fmt: skip
-    code, err = sim.stop(sig)
-    assert code == 128 + sig and err.strip().splitlines()[-1] in ("kinetab: terminated", "kinetab: interrupted")
+    code, err = sim.stop(*sigs)
+    assert code == 128 + sigs[0] and err.strip().splitlines()[-1] in ("kinetab: terminated", "kinetab: interrupted")
+    assert "firmware: " in err and "0 bad drive frames" in err, err
 
 
 @needs_qemu
@@ -249,11 +254,20 @@ def test_an_unknown_board_is_one_line_and_writes_nothing(vehicle, tmp_path):
     assert not (tmp_path / "out").exists()
 
 
-@_needs("arm-none-eabi-gcc", "cmake")
+def _sections(elf: Path) -> list[tuple[str, int, int]]:
+    """(name, address, size) of every section the firmware loads, read with pyelftools."""
+    from elftools.elf.elffile import ELFFile
+
+    with elf.open("rb") as fh:
+        return [(s.name, s["sh_addr"], s["sh_size"]) for s in ELFFile(fh).iter_sections() if s["sh_flags"] & 2]
+
+
+@_needs("arm-none-eabi-gcc", "cmake", "make")
 def test_the_cmake_project_regenerates_on_a_model_change_and_gates_on_verify(vehicle, tmp_path):
-    """The user's day-to-day loop in their own build system: the CMake project builds the ELF; after a
-    model change the next build regenerates the feed-forward C, then verify fails the build naming the
-    command that remakes the rest; after that command the build passes again."""
+    """The user's day-to-day loop in their own build system: the CMake project (configured as README says)
+    builds the ELF, with the same loaded sections as the Makefile's build; after a model change the next
+    build regenerates the feed-forward C, then verify fails the build naming the command that remakes the
+    rest; after that command the build passes again."""
     _, source, _ = vehicle
     path = tmp_path / source.name
     path.write_text(source.read_text(encoding="utf-8"), encoding="utf-8")
@@ -262,7 +276,7 @@ def test_the_cmake_project_regenerates_on_a_model_change_and_gates_on_verify(veh
     assert _kinetab(*remake, cwd=tmp_path).returncode == 0
     kinetab_cmd = ";".join(KINETAB)  # a CMake list: the package under test, as a command
     configure = subprocess.run(
-        ["cmake", "-S", str(out), "-B", str(build), f"-DCMAKE_TOOLCHAIN_FILE={out / 'arm-none-eabi.cmake'}",
+        ["cmake", "-S", str(out), "-B", str(build), "-DCMAKE_TOOLCHAIN_FILE=arm-none-eabi.cmake",
          f"-DKINETAB={kinetab_cmd}"],
         capture_output=True, text=True, timeout=300,
     )  # fmt: skip
@@ -273,6 +287,9 @@ def test_the_cmake_project_regenerates_on_a_model_change_and_gates_on_verify(veh
 
     first = cmake_build()
     assert first.returncode == 0 and "verify: all" in first.stdout and (build / "tugboat.elf").exists(), first.stdout
+    assert subprocess.run(["make", "-s", "-C", str(out)], capture_output=True, timeout=300).returncode == 0
+    made = _sections(out / "tugboat.elf")
+    assert _sections(build / "tugboat.elf") == made and {".text", ".data", ".bss"} <= {n for n, _, _ in made}
     text = path.read_text(encoding="utf-8")
     mass = re.search(r'^mass = "([0-9.e+-]+) kg"', text, re.M)
     assert mass
@@ -300,3 +317,41 @@ def test_readme_emulated_board_block_runs_as_written(tmp_path):
     _run(block("kinetab bench firmware"), work, _tools(tmp_path), "emulated-board block")
     meta = json.loads((work / "log.json").read_text())
     assert meta["ended"] == "completed" and meta["samples"] == 100
+
+
+@needs_qemu
+def test_the_build_reports_flash_ram_and_the_painted_stack(vehicle, board_sim, tmp_path):
+    """`bench simulate --board` reports the firmware's flash and RAM, which equal the ELF's section sizes
+    (read with pyelftools from the same project built by its Makefile), and at the end the worst stack
+    the firmware measured by painting: at least the largest frame gcc's -fstack-usage gives for any of
+    its functions, and inside the stack the linker script reserves."""
+    from elftools.elf.elffile import ELFFile
+    from kinetab.hil import firmwareview
+
+    _, path, fw = vehicle
+    out = tmp_path / "fw"
+    made = _kinetab("bench", "firmware", str(path), "--board", "mps2-an386", "-o", str(out), "--period", PERIOD,
+                    cwd=tmp_path)  # fmt: skip
+    assert made.returncode == 0, made.stderr
+    assert subprocess.run(["make", "-s", "-C", str(out)], capture_output=True).returncode == 0
+    with (out / f"{fw.vehicle.name}.elf").open("rb") as fh:
+        size = {s.name: s["sh_size"] for s in ELFFile(fh).iter_sections()}
+    sources = sorted(str(p.name) for p in out.glob("*.c"))
+    cflags = ["-mcpu=cortex-m4", "-mthumb", "-Os", "-std=c99", "-ffreestanding", "-ffunction-sections"]
+    usage = subprocess.run(
+        ["arm-none-eabi-gcc", *cflags, "-fstack-usage", "-c", *sources], cwd=out, capture_output=True
+    )
+    assert usage.returncode == 0, usage.stderr
+    frames = [int(line.split("\t")[1]) for su in out.glob("*.su") for line in su.read_text().splitlines()]
+    sim = board_sim(path, "mps2-an386", "--watchdog", "5 s")  # the defaults of `bench firmware`: the same C
+    assert sim.proc.stderr is not None
+    report = sim.proc.stderr.readline()
+    flash = size[".text"] + size[".data"]
+    ram = size[".data"] + size[".bss"]
+    assert f"flash {flash} bytes, RAM {ram} bytes static + {firmwareview.STACK_BYTES} stack" in report, report
+    _identify(sim.port)
+    _identify(sim.port)  # the tick answering it reports the stack measured after the first answer
+    code, err = sim.stop()
+    found = re.search(r"worst stack (\d+) of (\d+) bytes", err)
+    assert found, err
+    assert max(frames) <= int(found.group(1)) < int(found.group(2)) == firmwareview.STACK_BYTES
