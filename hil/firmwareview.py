@@ -33,6 +33,16 @@ STACK_BYTES = 8192
 """The main stack the linker script reserves at the top of RAM (the build fails if .data and .bss reach
 it); the startup paints it so the firmware can report its worst use."""
 
+SLOW_RATE_HZ = 50
+"""The highest rate the reference firmware runs the slow part of the feed-forward at: pitch, roll and
+payload come from an inclination filter and a load estimate, far slower than 50 Hz."""
+
+
+def slow_ticks(period_us: int) -> int:
+    """Control ticks per run of the slow part: the fewest that keep it at or under SLOW_RATE_HZ."""
+    return max(1, -(-1_000_000 // (SLOW_RATE_HZ * period_us)))
+
+
 TEMPLATES = {
     "main": "fw/main.c.j2",
     "startup": "fw/startup.c.j2",
@@ -83,6 +93,8 @@ def context(
         measured_type=interface.MEASURED.c_type(prefix),
         drive=drivewire.c_context(),
         stack_bytes=STACK_BYTES,
+        slow_ticks=slow_ticks(period_us),
+        slow_hz=f"{1e6 / (slow_ticks(period_us) * period_us):g}",
         sources=[
             generated["ff_source"],
             generated["link_source"],

@@ -69,6 +69,7 @@ class SimFirmware:
         period_us: int,
         fifo_depth: int,
         watchdog_ticks: int = linkview.WATCHDOG_TICKS,
+        defines: tuple[str, ...] = (),
     ) -> None:
         names = interface.file_names(fw.vehicle.name)
         for name, text in sources(
@@ -76,7 +77,9 @@ class SimFirmware:
         ).items():
             (folder / name).write_text(text, encoding="utf-8")
         c_files = [folder / names[k] for k in ("ff_source", "link_source", "sim_source")]
-        lib = hostc.compile_c(c_files, folder / "libsimfw.so", include=[folder], extra=["-shared", "-fPIC"])
+        lib = hostc.compile_c(
+            c_files, folder / "libsimfw.so", include=[folder], defines=defines, extra=["-shared", "-fPIC"]
+        )
         self.lib = ctypes.CDLL(str(lib))
         self.lib.sim_tx_take.restype = ctypes.c_uint32
         self.lib.sim_applied.restype = ctypes.c_uint32

@@ -263,3 +263,44 @@ def test_a_halt_is_reported_again_until_the_host_answers(firmware):
     assert _tick_collect(firmware, 3 * linkview.WATCHDOG_TICKS) == []
     protocol = (__import__("pathlib").Path(__file__).parents[1] / "hil" / "PROTOCOL.md").read_text()
     assert f"at most {linkview.FAULT_REPEATS} more times" in protocol
+
+
+@pytest.fixture(scope="module")
+def dory():
+    from tests.helpers import invented_feasible
+
+    return invented_feasible(1806, "dory")[1]
+
+
+def test_the_slow_part_runs_at_its_own_rate(dory, tmp_path):
+    """With <NAME>_LINK_SLOW_TICKS = 4 the link runs the slow part of the feed-forward (pitch, roll,
+    payload) on the first setpoint of a run and every fourth after it, the fast part every tick: each
+    sample's current is the emulation's on the setpoint's speeds and accelerations with the slow inputs of
+    the last slow tick. The default (1) is the whole feed-forward every tick (the other tests)."""
+    name = dory.vehicle.name.upper()
+    firmware = simfirmware.SimFirmware(
+        dory, tmp_path, period_us=1000, fifo_depth=16, defines=(f"{name}_LINK_SLOW_TICKS=4",)
+    )
+    n = 11
+    rng = np.random.default_rng(1807)
+    rows = np.column_stack(
+        [rng.integers(-800, 800, (n, 4)), np.arange(n) * 37 - 150, np.arange(n) * -23 + 90, np.arange(n) * 41]
+    ).astype(np.int64)
+    _send(firmware, messages.Arm(1, n))
+    _received(firmware)
+    _send(
+        firmware,
+        *[messages.Setpoint(k + 1, messages.LAST * (k == n - 1), tuple(map(int, r))) for k, r in enumerate(rows)],
+    )
+    firmware.set_measured((0, 0, 0, 0))
+    samples = [m for _, m in _tick_collect(firmware, n + 2) if isinstance(m, messages.Sample)]
+    latched = rows.copy()
+    slow = [interface.FF_IN.columns.index(c) for c in ("pitch", "roll", "payload")]
+    latched[:, slow] = rows[(np.arange(n) // 4) * 4][:, slow]
+
+    def current(r: np.ndarray) -> list[tuple[int, ...]]:
+        out = emulate.run(dory.design.feedforward, dory.tables, interface.rows_to_fields(interface.FF_IN, r))
+        return [tuple(int(x) for x in w) for w in out["current"]]
+
+    assert [s.seq for s in samples] == list(range(1, n + 1))
+    assert [s.ff for s in samples] == current(latched) != current(rows)

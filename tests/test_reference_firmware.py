@@ -247,6 +247,19 @@ def test_bench_simulate_board_missing_tools_and_fault_options_are_one_line(vehic
     assert done.returncode == 2 and done.stderr.count("\n") == 1 and "--drop-rate" in done.stderr, done.stderr
 
 
+@pytest.mark.parametrize("period,ticks", [("1 ms", 20), ("7 ms", 3), ("20 ms", 1), ("50 ms", 1)])
+def test_the_project_runs_the_slow_part_at_fifty_hertz_at_most(vehicle, tmp_path, period, ticks):
+    """The Makefile and the CMake project both set <NAME>_LINK_SLOW_TICKS to the fewest ticks that keep
+    the slow part of the feed-forward at or under 50 Hz (1 ms: every 20th tick; 7 ms: every 3rd, 47.6 Hz)."""
+    _, path, fw = vehicle
+    out = tmp_path / "fw"
+    done = _kinetab("bench", "firmware", str(path), "--board", "mps2-an385", "-o", str(out), "--period", period,
+                    cwd=tmp_path)  # fmt: skip
+    assert done.returncode == 0, done.stderr
+    flag = f"{fw.vehicle.name.upper()}_LINK_SLOW_TICKS={ticks}"
+    assert f"-D{flag}" in (out / "Makefile").read_text() and flag in (out / "CMakeLists.txt").read_text()
+
+
 def test_an_unknown_board_is_one_line_and_writes_nothing(vehicle, tmp_path):
     _, path, _ = vehicle
     done = _kinetab("bench", "firmware", str(path), "--board", "mps3", "-o", str(tmp_path / "out"), cwd=tmp_path)
