@@ -25,7 +25,9 @@ ANSWER_TIMEOUT_S = 2.0  # no frame from the controller this long while running: 
 HELLO_TRIES = 3
 HELLO_WAIT_S = 1.0
 RESEND_S = 0.005  # a setpoint the controller reports missing this long after it was sent is sent again
-START_RESEND_S = 0.05  # before the first sample: no report yet, so resend the prefill after this long
+SETPOINT_FRAME_BYTES = len(framing.frame(messages.encode(messages.Setpoint(0xFFFF, 0xFF, (-1,) * messages.N_IN))))
+"""Bytes of one setpoint frame on the wire, near enough (COBS may add a byte or two) for rate estimates."""
+START_RESEND_S = 0.05  # before the first sample: no report yet, so resend the prefill after this long (doubling)
 PREFILL_MAX = 64  # the run starts after half the FIFO or this many setpoints; a deep FIFO fills as it runs
 
 
@@ -145,6 +147,9 @@ class Stream:
     acked: int = -1  # index of the newest setpoint the controller had received then
     heard_at: float | None = None  # when the controller last reported (None: not yet)
     progressed: bool = False  # the last report showed setpoints received since the one before
+    peak_bps: float = 0.0  # the fastest the link was seen to deliver setpoints, bytes per second
+    hold_until: float = 0.0  # no resend before this: what the last resend superseded may still be arriving
+    start_resends: int = 0  # resends before the first report (each waits twice as long as the one before)
     sent_at: list[float] = field(default_factory=list)
     flags: int = 0  # flags every setpoint carries (messages.NO_FEEDFORWARD)
 
@@ -159,6 +164,9 @@ class Stream:
         before = self.acked
         self.acked = max(self.acked, self.next_index - 1 - behind)
         self.progressed = self.acked > before
+        since = self.heard_at if self.heard_at is not None else (self.sent_at[0] if self.sent_at else now)
+        if self.progressed and now > since:  # the first report: since the first setpoint was sent
+            self.peak_bps = max(self.peak_bps, (self.acked - before) * SETPOINT_FRAME_BYTES / (now - since))
         self.next_index = max(self.next_index, self.acked + 1)  # never send again what has arrived
         self.heard_at = now
 
@@ -168,15 +176,21 @@ class Stream:
         stalls the controller's sequence, while on a slow link (a low baud rate, an emulator) setpoints
         still in flight keep arriving and are not sent again. Before its first report (a deep FIFO's
         prefill can take longer than RESEND_S to send) only when nothing has been sent for
-        START_RESEND_S, well within the controller's watchdog."""
+        START_RESEND_S, well within the controller's watchdog, then twice as long each time (a slow link
+        may still be carrying the prefill). After a resend, not again until what it
+        superseded could have arrived at the fastest rate the link was seen to deliver (plus RESEND_S):
+        frames still on their way are dropped as out of order and show no progress meanwhile."""
         first_missing = self.acked + 1
         if first_missing >= self.next_index:
             return
         if self.heard_at is None:
-            due = now - self.sent_at[self.next_index - 1] > START_RESEND_S
+            due = now - self.sent_at[self.next_index - 1] > START_RESEND_S * 2**self.start_resends
+            self.start_resends += due
         else:
             due = not self.progressed and self.heard_at - self.sent_at[first_missing] > RESEND_S
-        if due:
+        if due and now >= self.hold_until:
+            superseded = (self.next_index - first_missing) * SETPOINT_FRAME_BYTES
+            self.hold_until = now + RESEND_S + (superseded / self.peak_bps if self.peak_bps > 0 else 0.0)
             self.next_index = first_missing
 
     def take(self, most: int, now: float) -> list[messages.Message]:

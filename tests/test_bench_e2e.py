@@ -234,7 +234,7 @@ def test_interrupted_run_halts_and_keeps_the_log(tmp_path, sig, code):
     plan, log = _plan(tmp_path, 20), tmp_path / "log.csv"
     sim = Sim(DEMO_PATH)
     run = _run(sim.port, plan, log)
-    time.sleep(3)
+    _wait_for_rows(log, 600, run)  # well into the run, however loaded the machine
     run.send_signal(sig)
     _, err = run.communicate(timeout=30)
     assert run.returncode == code, err

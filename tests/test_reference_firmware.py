@@ -156,7 +156,7 @@ def test_the_firmware_boots_identifies_itself_and_stops_with_no_process_left(veh
     ident = _identify(sim.port)
     assert ident.fingerprint == fw.fingerprint
     assert (ident.version, ident.period_us, ident.fifo_depth, ident.watchdog_ms) == (
-        messages.PROTOCOL_VERSION, 50_000, 64, 200)  # fmt: skip
+        messages.PROTOCOL_VERSION, 50_000, 16, 200)  # fmt: skip
     code, err = sim.stop(*sigs)
     assert code == 128 + sigs[0] and err.strip().splitlines()[-1] in ("kinetab: terminated", "kinetab: interrupted")
     assert "firmware: " in err and "0 bad drive frames" in err, err
@@ -173,7 +173,7 @@ def test_thirty_seconds_on_the_board_bit_exact_and_as_on_the_host(vehicle, board
     logs = {"board": folder / "board.csv", "host": folder / "host.csv"}
     done = _run(folder, path, board_sim(path).port, plan, logs["board"])
     assert done.returncode == 0, done.stderr
-    host = subprocess.Popen([*KINETAB, "bench", "simulate", str(path), "--period", PERIOD],
+    host = subprocess.Popen([*KINETAB, "bench", "simulate", str(path), "--period", PERIOD, "--fifo-depth", "256"],
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)  # fmt: skip
     assert host.stdout is not None
     done = _run(folder, path, host.stdout.readline().strip(), plan, logs["host"])
@@ -344,7 +344,7 @@ def test_the_build_reports_flash_ram_and_the_painted_stack(vehicle, board_sim, t
     _, path, fw = vehicle
     out = tmp_path / "fw"
     made = _kinetab("bench", "firmware", str(path), "--board", "mps2-an386", "-o", str(out), "--period", PERIOD,
-                    cwd=tmp_path)  # fmt: skip
+                    "--fifo-depth", "16", cwd=tmp_path)  # fmt: skip
     assert made.returncode == 0, made.stderr
     assert subprocess.run(["make", "-s", "-C", str(out)], capture_output=True).returncode == 0
     with (out / f"{fw.vehicle.name}.elf").open("rb") as fh:
@@ -356,7 +356,7 @@ def test_the_build_reports_flash_ram_and_the_painted_stack(vehicle, board_sim, t
     )
     assert usage.returncode == 0, usage.stderr
     frames = [int(line.split("\t")[1]) for su in out.glob("*.su") for line in su.read_text().splitlines()]
-    sim = board_sim(path, "mps2-an386", "--watchdog", "5 s")  # the defaults of `bench firmware`: the same C
+    sim = board_sim(path, "mps2-an386", "--watchdog", "5 s")  # as `bench firmware` above: the same C
     assert sim.proc.stderr is not None
     report = sim.proc.stderr.readline()
     flash = size[".text"] + size[".data"]
@@ -368,3 +368,58 @@ def test_the_build_reports_flash_ram_and_the_painted_stack(vehicle, board_sim, t
     found = re.search(r"worst stack (\d+) of (\d+) bytes", err)
     assert found, err
     assert max(frames) <= int(found.group(1)) < int(found.group(2)) == firmwareview.STACK_BYTES
+
+
+def _campaign_log(folder: Path, path: Path, truth: Path, rig: str, board: str | None) -> Path:
+    """One 30-s run of the rig's plan against the true vehicle, on the emulated board or on the host."""
+    plan = folder / f"plan_{rig}.csv"  # written by the test, before the runs start
+    args = ["bench", "simulate", str(path), "--truth", str(truth), "--noise", "20 mA", "--rig", rig, "--period", PERIOD]
+    args += ["--fifo-depth", "32"]  # 1.6 s of setpoints: rides out a loaded machine's stalls
+    args += ["--board", board] if board else []
+    sim = subprocess.Popen([*KINETAB, *args], stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    assert sim.stdout is not None
+    log = folder / f"log_{rig}_{board or 'host'}.csv"
+    try:
+        done = _kinetab("bench", "run", str(path), "--port", sim.stdout.readline().strip(), "--plan", str(plan),
+                        "--log", str(log), "--rig", rig, "--yes", cwd=folder)  # fmt: skip
+    finally:
+        sim.terminate()
+        sim.communicate(timeout=30)
+    assert done.returncode == 0, done.stderr
+    return log
+
+
+@needs_qemu
+def test_a_fit_against_the_board_recovers_the_truth_as_well_as_against_the_host(vehicle, tmp_path):
+    """Truth: body mass +15 %, with 20 mA current noise. A wheels-up and an on-floor run of 30 s at 50 ms on
+    the emulated board, and the same against the host simulation: `bench fit` on the board's logs finds
+    the true mass and Coulomb friction within 3 sigma, and the two fits agree within their combined
+    3 sigma with error bars of the same size (at most 1.5 times apart)."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    from kinetab.generator import model
+
+    _, path, _ = vehicle
+    text = path.read_text(encoding="utf-8")
+    mass = re.search(r'^mass = "([0-9.e+-]+) kg"', text, re.M)
+    assert mass
+    truth = tmp_path / "truth.toml"
+    truth.write_text(text.replace(mass.group(0), f'mass = "{float(mass.group(1)) * 1.15} kg"', 1), encoding="utf-8")
+    for rig in ("wheels-up", "on-floor"):  # the plans first, then the four runs at once
+        assert _kinetab("bench", "plan", str(path), "-o", str(tmp_path / f"plan_{rig}.csv"), "--duration", "30",
+                 "--period", PERIOD, "--rig", rig, cwd=tmp_path).returncode == 0  # fmt: skip
+    runs = [(rig, board) for board in ("mps2-an386", None) for rig in ("wheels-up", "on-floor")]
+    with ThreadPoolExecutor(2) as pool:  # two at a time: an emulated board needs a core
+        logs = list(pool.map(lambda run: _campaign_log(tmp_path, path, truth, *run), runs))
+    fits = {}
+    for name, pair in (("board", logs[:2]), ("host", logs[2:])):
+        done = _kinetab("bench", "fit", str(path), *map(str, pair), "--json", cwd=tmp_path)
+        assert done.returncode == 0, done.stderr
+        fits[name] = {e["parameter"]: e["si"] for e in json.loads(done.stdout)["estimates"]}
+    t = model.load(truth)
+    for key, want in (("body.mass", t.body.mass_kg), ("friction.coulomb", t.friction.coulomb_n)):
+        board, host = fits["board"][key], fits["host"][key]
+        assert abs(board["estimate"] - want) <= 3 * board["standard_error"], (key, board, want)
+        combined = (board["standard_error"] ** 2 + host["standard_error"] ** 2) ** 0.5
+        assert abs(board["estimate"] - host["estimate"]) <= 3 * combined, (key, board, host)
+        assert 1 / 1.5 <= board["standard_error"] / host["standard_error"] <= 1.5, (key, board, host)

@@ -4,6 +4,7 @@ whatever the machine's load."""
 
 from __future__ import annotations
 
+import pytest
 from kinetab.hil import messages, session
 
 N_IN = messages.N_IN
@@ -58,13 +59,41 @@ def test_on_a_slow_link_setpoints_still_arriving_are_not_sent_again():
     assert s.next_index == 9 and _seqs(s.take(2, now=0.2)) == [10, 11]
 
 
+def test_after_a_resend_what_it_superseded_may_drain_before_the_next():
+    """Frames sent before a resend keep arriving (and are dropped as out of order) for as long as the link
+    takes to carry them: no second resend until they could have arrived at the fastest rate the link was
+    seen to deliver, plus RESEND_S. On a fast link that is a few milliseconds."""
+    frame = session.SETPOINT_FRAME_BYTES
+    for bps in (1_000.0, 1_000_000.0):  # an emulated UART; a USB link
+        s = session.Stream(rows=_rows(60), first_seq=1, free=40)
+        s.take(40, now=0.0)
+        s.report(free=40, last_rx=10, now=10 * frame / bps)  # ten frames delivered at `bps`
+        t = 10 * frame / bps
+        s.report(free=40, last_rx=10, now=t + 0.01)  # then a loss: no progress
+        s.repair(now=t + 0.01)
+        assert s.next_index == 10 and s.peak_bps == pytest.approx(bps)
+        s.take(40, now=t + 0.01)  # seq 11..50 again: 40 frames superseded the 30 in flight
+        drain = 30 * frame / bps + session.RESEND_S
+        s.report(free=40, last_rx=10, now=t + 0.01 + 0.5 * drain)
+        s.repair(now=t + 0.01 + 0.5 * drain)
+        assert s.next_index == 50, bps  # the old frames may still be arriving: wait
+        s.report(free=40, last_rx=10, now=t + 0.01 + 1.5 * drain)
+        s.repair(now=t + 0.01 + 1.5 * drain)
+        assert s.next_index == 10, bps  # long enough: the resend itself was lost, send again
+
+
 def test_before_the_first_report_the_prefill_is_resent_after_a_quiet_spell():
     s = session.Stream(rows=_rows(10), first_seq=1, free=8)
     s.take(8, now=0.0)
     s.repair(now=0.5 * session.START_RESEND_S)
     assert s.next_index == 8
     s.repair(now=2 * session.START_RESEND_S)
-    assert s.next_index == 0 and _seqs(s.take(2, now=0.2)) == [1, 2]
+    assert s.next_index == 0 and _seqs(s.take(8, now=0.2)) == list(range(1, 9))
+    # still no report: the next resend waits twice as long (a slow link may still carry the prefill)
+    s.repair(now=0.2 + 1.5 * session.START_RESEND_S)
+    assert s.next_index == 8
+    s.repair(now=0.2 + 2.5 * session.START_RESEND_S)
+    assert s.next_index == 0
 
 
 def test_late_and_repeated_reports_never_move_the_acknowledgement_back():
