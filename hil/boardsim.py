@@ -5,7 +5,6 @@ over a Unix socket, one control period per command (hil/drivewire.py)."""
 
 from __future__ import annotations
 
-import os
 import re
 import select
 import shutil
@@ -119,6 +118,7 @@ class DrivePeer:
         return True
 
     def _answer(self, encoded: bytes) -> bytes:
+        """The READING that answers one COMMAND frame (the vehicle advanced one period), or nothing."""
         msg = drivewire.decode(encoded)
         if not isinstance(msg, drivewire.Command):
             self.bad_frames += 1
@@ -131,51 +131,61 @@ class DrivePeer:
 
 class EmulatedBoard:
     """qemu-system-arm running the firmware: UART0 on a pseudo-terminal (its path in `port`), UART1
-    connected to the simulated drive. Close it to stop the emulator (also on Ctrl-C)."""
+    connected to the simulated drive. Close it to stop the emulator (also on Ctrl-C). qemu's own output
+    goes to a file in `folder`, so it can never block on a full pipe."""
 
     def __init__(self, board: Board, elf: Path, drive: StepDrive, folder: Path) -> None:
-        sock_path = folder / "drive.sock"
-        listener = socket.socket(socket.AF_UNIX, socket.SOCK_STREAM)
-        listener.bind(str(sock_path))
-        listener.listen(1)
+        sock_path, self.out_path = folder / "drive.sock", folder / "qemu.out"
         args = ["qemu-system-arm", "-machine", board.qemu_machine, "-display", "none", "-monitor", "none"]
         args += ["-serial", "pty", "-serial", f"unix:{sock_path}", "-kernel", str(elf)]
-        self.proc = subprocess.Popen(args, stdout=subprocess.PIPE, stderr=subprocess.STDOUT)
-        try:
-            self.port = self._read_port()
-            self.peer = DrivePeer(drive=drive, conn=self._accept(listener))
-        except BaseException:
-            self.close()
-            raise
-        finally:
-            listener.close()
+        self.proc: subprocess.Popen[bytes] | None = None
+        self.peer: DrivePeer | None = None
+        with socket.socket(socket.AF_UNIX, socket.SOCK_STREAM) as listener:
+            try:
+                listener.bind(str(sock_path))
+                listener.listen(1)
+                with self.out_path.open("wb") as out:
+                    self.proc = subprocess.Popen(args, stdout=out, stderr=subprocess.STDOUT)
+                self.port = self._read_port()
+                self.peer = DrivePeer(drive=drive, conn=self._accept(listener))
+            except BaseException:
+                self.close()
+                raise
+
+    def _qemu_said(self) -> str:
+        """qemu's output so far, one line."""
+        return " ".join(self.out_path.read_text(errors="replace").split()) or "no output"
 
     def _read_port(self) -> str:
-        """The pseudo-terminal qemu names on its first line ("char device redirected to /dev/pts/N ...")."""
-        assert self.proc.stdout is not None
-        fd, seen, deadline = self.proc.stdout.fileno(), b"", time.monotonic() + START_TIMEOUT_S
-        while b"\n" not in seen and time.monotonic() < deadline:
-            if select.select([fd], [], [], 0.1)[0]:
-                chunk = os.read(fd, 4096)
-                if not chunk:
-                    break
-                seen += chunk
-        found = re.search(rb"(/dev/\S+)", seen)
-        if not found:
-            first = seen.decode(errors="replace").strip().splitlines()[:1] or ["no output"]
-            raise BenchFailed(f"bench simulate: qemu-system-arm did not open the link port: {first[0]}")
-        return found.group(1).decode()
+        """The pseudo-terminal qemu names ("char device redirected to /dev/pts/N (label serial0)")."""
+        assert self.proc is not None
+        deadline = time.monotonic() + START_TIMEOUT_S
+        while time.monotonic() < deadline:
+            found = re.search(r"redirected to (/dev/\S+)", self.out_path.read_text(errors="replace"))
+            if found:
+                return found.group(1)
+            if self.proc.poll() is not None:
+                break
+            time.sleep(0.02)
+        raise BenchFailed(f"bench simulate: qemu-system-arm did not open the link port: {self._qemu_said()}")
 
     def _accept(self, listener: socket.socket) -> socket.socket:
-        listener.settimeout(START_TIMEOUT_S)
-        try:
-            conn, _ = listener.accept()
-        except TimeoutError:
-            raise BenchFailed("bench simulate: qemu-system-arm did not connect the drive UART") from None
-        return conn
+        """The emulator's connection to the drive UART's socket; BenchFailed if it exits or never connects."""
+        assert self.proc is not None
+        listener.settimeout(0.1)
+        deadline = time.monotonic() + START_TIMEOUT_S
+        while time.monotonic() < deadline and self.proc.poll() is None:
+            try:
+                conn, _ = listener.accept()
+            except TimeoutError:
+                continue
+            conn.settimeout(None)
+            return conn
+        raise BenchFailed(f"bench simulate: qemu-system-arm did not connect the drive UART: {self._qemu_said()}")
 
     def serve(self) -> int:
         """Drive the vehicle until the emulator exits; its exit code."""
+        assert self.proc is not None and self.peer is not None
         while self.peer.serve(0.2):
             if self.proc.poll() is not None:
                 break
@@ -184,6 +194,8 @@ class EmulatedBoard:
     def health(self) -> str:
         """What the firmware reported over the run: for the closing line."""
         peer = self.peer
+        if peer is None:
+            return "firmware: never connected its drive UART"
         return (
             f"firmware: {peer.commands} control ticks, {peer.late_ticks} of them late waiting for the drive, "
             f"worst stack {peer.stack_bytes} of {firmwareview.STACK_BYTES} bytes; {peer.bad_frames} bad drive frames"
@@ -191,9 +203,9 @@ class EmulatedBoard:
 
     def close(self) -> None:
         """Stop the emulator and wait for it: no process is left behind."""
-        if self.proc.poll() is None:
-            self.proc.kill()
-        self.proc.wait()
-        peer = getattr(self, "peer", None)
-        if peer is not None:
-            peer.conn.close()
+        if self.proc is not None:
+            if self.proc.poll() is None:
+                self.proc.kill()
+            self.proc.wait()
+        if self.peer is not None:
+            self.peer.conn.close()

@@ -6,12 +6,19 @@ import json
 import sys
 import tempfile
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import click
 from kinetab.generator import dynamics, model, units
 from kinetab.generator.cli_support import ProgressLine, QuantityType, out_folder
 from kinetab.generator.errors import UserError
+
+if TYPE_CHECKING:
+    from kinetab.generator.synthesis import Firmware
+    from kinetab.generator.vehicle import Vehicle
+
+    from .plant import PlantOptions
+    from .simulator import LinkFaults
 
 CAUTION = (
     "CAUTION: a bench run moves the motors. Lift the wheels off the floor or restrain the vehicle, keep an\n"
@@ -121,7 +128,7 @@ def firmware(model_path: str, board_name: str, out_dir: str, period: float, fifo
         model_path=Path(model_path).resolve().as_posix(),
     )
     outputs.write_set({Path(out_dir) / name: text for name, text in files.items()})
-    runs = f"kinetab bench simulate --board {board.name} runs it on the emulator"
+    runs = f"kinetab bench simulate --board {board.name} runs the same firmware on the emulator"
     click.echo(f"wrote {len(files)} files into {out_dir} for {board.title}: make builds it; {runs}")
 
 
@@ -342,7 +349,7 @@ def simulate(
 
     from .linkview import FIFO_DEPTH
     from .plant import PlantOptions
-    from .simulator import LinkFaults, Simulator
+    from .simulator import LinkFaults
 
     v = model.load(model_path)
     truth = model.load(truth_path) if truth_path else v
@@ -360,14 +367,32 @@ def simulate(
         _refuse_faults(faults)
         sys.exit(_simulate_board(fw, truth, board_name, opts=opts, fifo_depth=fifo_depth, watchdog_s=watchdog,
                                  port_file=port_file))  # fmt: skip
+    sys.exit(_simulate_host(fw, truth, opts=opts, faults=faults, fifo_depth=fifo_depth, watchdog_s=watchdog,
+                            port_file=port_file))  # fmt: skip
+
+
+def _simulate_host(
+    fw: Firmware,
+    truth: Vehicle,
+    *,
+    opts: PlantOptions,
+    faults: LinkFaults,
+    fifo_depth: int,
+    watchdog_s: float,
+    port_file: str | None,
+) -> int:
+    """`bench simulate` on this host: the link and feed-forward C via ctypes, served on a pseudo-terminal."""
+    from kinetab.generator import outputs
+
+    from .simulator import Simulator
+
     with tempfile.TemporaryDirectory(prefix="kinetab-sim-") as tmp:
         sim = Simulator(
-            fw, truth, options=opts, faults=faults, fifo_depth=fifo_depth, folder=Path(tmp), watchdog_s=watchdog
+            fw, truth, options=opts, faults=faults, fifo_depth=fifo_depth, folder=Path(tmp), watchdog_s=watchdog_s
         )
         if port_file:
             outputs.write_file(Path(port_file), sim.path + "\n")
-        code = sim.run()
-    sys.exit(code)
+        return sim.run()
 
 
 BOARD_FIFO_DEPTH = 16
@@ -375,19 +400,19 @@ BOARD_FIFO_DEPTH = 16
 quickly, so the first sample comes well within the host's answer timeout even on a loaded machine."""
 
 
-def _watchdog_s(watchdog: float | None, period: float) -> float:
+def _watchdog_s(watchdog_s: float | None, period_s: float) -> float:
     """--watchdog, or its default: 100 ms or five control periods, whichever is longer."""
-    watchdog = max(0.1, 5 * period) if watchdog is None else watchdog
-    if not period <= watchdog <= 60:
+    watchdog_s = max(0.1, 5 * period_s) if watchdog_s is None else watchdog_s
+    if not period_s <= watchdog_s <= 60:
         raise UserError("bench simulate: --watchdog: expected between one control period and 60 s")
-    return watchdog
+    return watchdog_s
 
 
 _FAULT_OPTIONS = {"drop_rate": "--drop-rate", "corrupt_rate": "--corrupt-rate", "delay_s": "--delay",
                   "garbage_every_s": "--garbage-every"}  # fmt: skip
 
 
-def _refuse_faults(faults: Any) -> None:
+def _refuse_faults(faults: LinkFaults) -> None:
     """Fault injection belongs to the host simulation: a UserError naming the first one asked with --board."""
     for name, flag in _FAULT_OPTIONS.items():
         if getattr(faults, name):
@@ -395,7 +420,14 @@ def _refuse_faults(faults: Any) -> None:
 
 
 def _simulate_board(
-    fw: Any, truth: Any, board_name: str, *, opts: Any, fifo_depth: int, watchdog_s: float, port_file: str | None
+    fw: Firmware,
+    truth: Vehicle,
+    board_name: str,
+    *,
+    opts: PlantOptions,
+    fifo_depth: int,
+    watchdog_s: float,
+    port_file: str | None,
 ) -> int:
     """`bench simulate --board`: build the reference firmware, run it on qemu-system-arm with the simulated
     drive, print the link's port first; until the emulator exits or the command is stopped."""

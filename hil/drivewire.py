@@ -32,6 +32,8 @@ class DriveType(IntEnum):
 
 @dataclass(frozen=True)
 class Command:
+    """Firmware to drive, every control tick: what to apply this period, and two health figures."""
+
     tick: int  # the firmware's control tick, modulo 2^16
     halted: int  # 1: motors off (no setpoint applied this tick)
     inputs: tuple[int, ...]  # interface.FF_IN columns, firmware steps
@@ -42,6 +44,8 @@ class Command:
 
 @dataclass(frozen=True)
 class Reading:
+    """Drive to firmware: what was measured over the period of the command it answers."""
+
     tick: int  # the command this reading answers
     measured: tuple[int, ...]  # interface.MEASURED columns: current steps, speed steps
 

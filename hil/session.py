@@ -150,6 +150,7 @@ class Stream:
     peak_bps: float = 0.0  # the fastest the link was seen to deliver setpoints, bytes per second
     hold_until: float = 0.0  # no resend before this: what the last resend superseded may still be arriving
     start_resends: int = 0  # resends before the first report (each waits twice as long as the one before)
+    first_sent_at: float | None = None  # when the first setpoint was first sent (a resend does not move it)
     sent_at: list[float] = field(default_factory=list)
     flags: int = 0  # flags every setpoint carries (messages.NO_FEEDFORWARD)
 
@@ -160,12 +161,13 @@ class Stream:
     def report(self, free: int, last_rx: int, now: float) -> None:
         """A sample's free slots and last received sequence number (unwrapped near what was sent)."""
         self.free = free
-        behind = (self.first_seq + self.next_index - 1 - last_rx) & 0xFFFF
+        sent = len(self.sent_at)  # rows sent at least once: last_rx is never beyond them, even mid-resend
+        behind = (self.first_seq + sent - 1 - last_rx) & 0xFFFF
         before = self.acked
-        self.acked = max(self.acked, self.next_index - 1 - behind)
+        self.acked = max(self.acked, sent - 1 - behind)
         self.progressed = self.acked > before
-        since = self.heard_at if self.heard_at is not None else (self.sent_at[0] if self.sent_at else now)
-        if self.progressed and now > since:  # the first report: since the first setpoint was sent
+        since = self.heard_at if self.heard_at is not None else self.first_sent_at
+        if self.progressed and since is not None and now > since:  # the first report: since the first send
             self.peak_bps = max(self.peak_bps, (self.acked - before) * SETPOINT_FRAME_BYTES / (now - since))
         self.next_index = max(self.next_index, self.acked + 1)  # never send again what has arrived
         self.heard_at = now
@@ -195,6 +197,8 @@ class Stream:
 
     def take(self, most: int, now: float) -> list[messages.Message]:
         n = min(self.credit(), most, len(self.rows) - self.next_index)
+        if n and self.first_sent_at is None:
+            self.first_sent_at = now
         out: list[messages.Message] = []
         for k in range(self.next_index, self.next_index + n):
             flags = self.flags | (messages.LAST if k == len(self.rows) - 1 else 0)

@@ -49,6 +49,22 @@ def test_ctrl_c_during_a_command_is_one_line_and_130():
     assert done.returncode == 130 and done.stderr == "kinetab: interrupted\n", done.stderr
 
 
+def test_a_second_signal_does_not_cut_the_cleanup_short():
+    """Ctrl-C starts the cleanup (halting the motors, stopping an emulator); a SIGTERM arriving during it
+    is ignored, so the cleanup finishes and the exit code is the first signal's."""
+    code = (
+        "import kinetab, signal, os, sys\n"
+        "from kinetab.generator import model\n"
+        "def boom(*a, **k):\n"
+        "    try:\n        os.kill(os.getpid(), signal.SIGINT)\n        import time; time.sleep(5)\n"
+        "    finally:\n        os.kill(os.getpid(), signal.SIGTERM)\n        sys.stderr.write('cleanup done\\n')\n"
+        "model.load = boom\n"
+        f"kinetab.main(['envelope', {str(ROOT / 'generator' / 'demos' / 'larkspur.toml')!r}])\n"
+    )
+    done = subprocess.run([sys.executable, "-c", code], cwd=ROOT, capture_output=True, text=True, timeout=60)
+    assert done.returncode == 130 and done.stderr == "cleanup done\nkinetab: interrupted\n", done.stderr
+
+
 @pytest.mark.parametrize("signum", [signal.SIGINT, signal.SIGTERM])
 def test_a_signal_while_streaming_waits_for_the_next_safe_point(signum):
     """Regression (seen once in CI: LOG.json counted 1,949 samples, the log held 1,950 rows): a signal

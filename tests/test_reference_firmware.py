@@ -64,7 +64,9 @@ class BoardSim:
         self.proc = subprocess.Popen([*KINETAB, *args], stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
         assert self.proc.stdout is not None and self.proc.stderr is not None
         self.port = self.proc.stdout.readline().strip()
-        assert self.port.startswith("/dev/"), self.proc.stderr.read()
+        if not self.port.startswith("/dev/"):
+            self.proc.kill()  # before reading its errors: a live process would never close them
+            pytest.fail(f"bench simulate --board printed no port: {self.proc.communicate()[1]}")
 
     def children(self) -> list[int]:
         """Processes this one started (the emulator), from /proc."""
@@ -176,8 +178,11 @@ def test_thirty_seconds_on_the_board_bit_exact_and_as_on_the_host(vehicle, board
     host = subprocess.Popen([*KINETAB, "bench", "simulate", str(path), "--period", PERIOD, "--fifo-depth", "256"],
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)  # fmt: skip
     assert host.stdout is not None
-    done = _run(folder, path, host.stdout.readline().strip(), plan, logs["host"])
-    host.communicate(timeout=30)
+    try:
+        done = _run(folder, path, host.stdout.readline().strip(), plan, logs["host"])
+    finally:
+        host.terminate()
+        host.communicate(timeout=30)
     assert done.returncode == 0, done.stderr
     meta = json.loads(logs["board"].with_suffix(".json").read_text())
     assert meta["ended"] == "completed" and meta["samples"] == meta["log_rows"] == 600

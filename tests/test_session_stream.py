@@ -94,6 +94,23 @@ def test_before_the_first_report_the_prefill_is_resent_after_a_quiet_spell():
     assert s.next_index == 8
     s.repair(now=0.2 + 2.5 * session.START_RESEND_S)
     assert s.next_index == 0
+    # the first report measures the link from the first send, not from the resend
+    s.take(8, now=0.3)
+    s.report(free=8, last_rx=8, now=0.4)
+    assert s.peak_bps == pytest.approx(8 * session.SETPOINT_FRAME_BYTES / 0.4)
+
+
+def test_a_report_during_a_resend_acknowledges_what_arrived_before_it():
+    """Regression (a slow controller, 50 ms ticks): the prefill was sent again before the first sample,
+    which then reported every prefilled setpoint received while the resend was only part way. The host
+    read last_rx as behind what it had sent, acknowledged nothing, and never sent past the FIFO."""
+    s = session.Stream(rows=_rows(20), first_seq=1, free=8)
+    s.take(8, now=0.0)
+    s.repair(now=2 * session.START_RESEND_S)
+    assert s.next_index == 0 and _seqs(s.take(3, now=0.11)) == [1, 2, 3]
+    s.report(free=8, last_rx=8, now=0.12)  # all eight arrived (the first time round)
+    assert s.acked == 7 and s.next_index == 8 and s.credit() == 8
+    assert _seqs(s.take(8, now=0.13)) == list(range(9, 17))
 
 
 def test_late_and_repeated_reports_never_move_the_acknowledgement_back():
