@@ -118,7 +118,7 @@ def main() -> None:
     ]
     for r in results:
         lines.append(
-            f"| {r['period_ms']} ms | {1000 / r['period_ms']:.3g}/s | {r['ended']} | {r['samples']}/{r['rows']} | "
+            f"| {r['period_ms']} ms | {1000 / r['period_ms']:.4g}/s | {r['ended']} | {r['samples']}/{r['rows']} | "
             f"{r['drops']} | {r['missing']} | {r['samples_per_s']:.1f}/s | {r['late_ticks']} | "
             f"{r['host_cpu_per_s']:.2f} s |"
         )
