@@ -88,12 +88,6 @@ def decode(encoded: bytes) -> Command | Reading | None:
 def c_context() -> dict[str, Any]:
     """Type codes, lengths and the byte offset of every field and struct column, for the drive C."""
 
-    def columns(kind: DriveType, name: str, st: interface.Struct) -> list[tuple[str, int]]:
-        f = next(f for f in LAYOUT[kind].fields if f.name == name)
-        assert f.columns == st.columns and f.wire == "i32", f"{name} carries {st.tag}'s columns as int32"
-        at = LAYOUT[kind].offsets()[name]
-        return [(lv, at + 4 * k) for k, lv in enumerate(st.lvalues())]
-
     return {
         "command_code": f"0x{int(DriveType.COMMAND):02X}",
         "reading_code": f"0x{int(DriveType.READING):02X}",
@@ -101,7 +95,7 @@ def c_context() -> dict[str, Any]:
         "reading_bytes": 1 + LAYOUT[DriveType.READING].size,
         "command_at": LAYOUT[DriveType.COMMAND].offsets(),
         "reading_at": LAYOUT[DriveType.READING].offsets(),
-        "command_inputs": columns(DriveType.COMMAND, "inputs", interface.FF_IN),
-        "command_ff": columns(DriveType.COMMAND, "ff", interface.FF_OUT),
-        "reading_measured": columns(DriveType.READING, "measured", interface.MEASURED),
+        "command_inputs": LAYOUT[DriveType.COMMAND].column_offsets("inputs", interface.FF_IN),
+        "command_ff": LAYOUT[DriveType.COMMAND].column_offsets("ff", interface.FF_OUT),
+        "reading_measured": LAYOUT[DriveType.READING].column_offsets("measured", interface.MEASURED),
     }

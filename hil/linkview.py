@@ -19,14 +19,6 @@ FAULT_REPEATS = 20
 answers: 2 s at the defaults, the host's answer timeout, so one lost frame never fails a run."""
 
 
-def _run(layout: messages.Layout, name: str, st: interface.Struct) -> list[tuple[str, int]]:
-    """(C lvalue in the struct, byte offset in the message) of each column of a field that carries a struct."""
-    f = next(f for f in layout.fields if f.name == name)
-    assert f.columns == st.columns, f"{name} carries {st.tag}'s columns in its order"
-    step = f.size // f.count
-    return [(lv, layout.offsets()[name] + step * k) for k, lv in enumerate(st.lvalues())]
-
-
 def wire(
     table: dict[messages.MessageType, messages.Layout] = messages.LAYOUT,
     *,
@@ -40,9 +32,9 @@ def wire(
         "kinds": [(k.name, f"0x{int(k):02X}", 1 + table[k].size) for k in kinds],
         "at": {k.name: table[k].offsets() for k in kinds},
         "wire": {
-            "setpoint_inputs": _run(table[kinds.SETPOINT], "inputs", inputs),
-            "sample_ff": _run(table[kinds.SAMPLE], "ff", ff),
-            "sample_measured": _run(table[kinds.SAMPLE], "measured", measured),
+            "setpoint_inputs": table[kinds.SETPOINT].column_offsets("inputs", inputs),
+            "sample_ff": table[kinds.SAMPLE].column_offsets("ff", ff),
+            "sample_measured": table[kinds.SAMPLE].column_offsets("measured", measured),
         },
     }
 

@@ -148,6 +148,13 @@ class Layout:
         """Payload bytes after the type byte."""
         return struct.calcsize(self.fmt)
 
+    def column_offsets(self, name: str, st: interface.Struct) -> list[tuple[str, int]]:
+        """(C lvalue in the struct, byte offset in the message) of each column of the field that carries `st`."""
+        f = next(f for f in self.fields if f.name == name)
+        assert f.columns == st.columns, f"{name} carries {st.tag}'s columns in its order"
+        step = f.size // f.count
+        return [(lv, self.offsets()[name] + step * k) for k, lv in enumerate(st.lvalues())]
+
     def offsets(self) -> dict[str, int]:
         """Byte offset of each field in the payload, the type byte at 0."""
         out, at = {}, 1
