@@ -12,9 +12,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import dynamics, emulate, interface
+from . import dynamics, emulate, interface, region
 from .interface import FF_IN
 from .synthesis import Firmware
+from .tablespecs import Limits
 from .vectors import feedforward_inputs
 
 
@@ -52,13 +53,22 @@ def _stat(err: np.ndarray) -> Stat:
     return Stat(float(np.max(np.abs(err))), float(np.sqrt(np.mean(err**2))))
 
 
+def inside_envelope(lim: Limits, rows: np.ndarray) -> np.ndarray:
+    """Which rows of feed-forward inputs (steps) lie inside the envelope: every column within its edges,
+    and the speed and acceleration pairs inside their regions (region.py)."""
+    lo, hi = interface.column_edges(lim, FF_IN)
+    ok = np.all((rows >= lo) & (rows <= hi), axis=1)
+    fields = interface.rows_to_fields(FF_IN, rows)
+    for name, pair in (("speed", lim.speed_pair), ("accel", lim.accel_pair)):
+        ok &= region.inside(fields[name][:, 0], fields[name][:, 1], pair)
+    return ok
+
+
 def envelope_points(fw: Firmware, count: int, seed: int) -> dict[str, np.ndarray]:
     """Corners and deadband cases (inside the envelope only) plus `count` random points."""
     lim = fw.design.limits
     rows = interface.fields_to_rows(FF_IN, feedforward_inputs(lim, count + 3000, seed))
-    lo, hi = interface.column_edges(lim, FF_IN)
-    inside = np.all((rows >= lo) & (rows <= hi), axis=1)
-    return interface.rows_to_fields(FF_IN, rows[inside])
+    return interface.rows_to_fields(FF_IN, rows[inside_envelope(lim, rows)])
 
 
 def _describe_input(fw: Firmware, inp: dict[str, np.ndarray], k: int, side: int) -> str:
@@ -108,10 +118,11 @@ def neighbour_steps(fw: Firmware) -> dict[str, NeighbourStep]:
     between motoring and back-driving, shows up here). Sampled, not proven."""
     lo, hi = interface.column_edges(fw.design.limits, FF_IN)
     grid = np.meshgrid(*[np.unique([a, 0, b]) for a, b in zip(lo, hi)], indexing="ij")
+    edges = np.stack(grid, -1).reshape(-1, len(lo))
     rows = np.concatenate(
         [
             interface.fields_to_rows(FF_IN, envelope_points(fw, NEIGHBOUR_POINTS, 11)),
-            np.stack(grid, -1).reshape(-1, len(lo)),
+            edges[inside_envelope(fw.design.limits, edges)],
         ]
     )
     inp = interface.rows_to_fields(FF_IN, rows)
@@ -119,12 +130,12 @@ def neighbour_steps(fw: Firmware) -> dict[str, NeighbourStep]:
     out = {}
     for m in FF_IN.members:
         best = NeighbourStep(0.0, 0)
-        for k, column in enumerate(m.columns):
+        for k in range(len(m.columns)):
             moved = {n: a.copy() for n, a in inp.items()}
             col = moved[m.name][:, k] if m.count == 2 else moved[m.name]
             col += 1
             jump = np.abs(emulate.run(fw.design.feedforward, fw.tables, moved)["current"] - base).max(axis=1)
-            jump[col > hi[FF_IN.columns.index(column)]] = 0
+            jump[~inside_envelope(fw.design.limits, interface.fields_to_rows(FF_IN, moved))] = 0
             j = int(np.argmax(jump))
             if jump[j] * fw.vehicle.firmware.current_lsb_a > best.amps:
                 best = NeighbourStep(float(jump[j]) * fw.vehicle.firmware.current_lsb_a, int(col[j]) - 1)

@@ -21,6 +21,7 @@ from .ops import (
     Lookup,
     Mul,
     Op,
+    PairClamp,
     Program,
     Scale,
     Store,
@@ -139,6 +140,10 @@ def _check_op(
     match op:
         case Clamp() | Lookup():
             pass
+        case PairClamp():
+            both = fx.Interval(-2 * op.edge, 2 * op.edge)  # r + l and r - l of two box-clamped wheels
+            if not both.fits(32):
+                raise _fail(program, f"the sum of the pair {op.right}, {op.left}", both)
         case Mul():
             _check_product(program, op.dst, ra=rng[op.a], rb=rng[op.b], shift=op.shift, wide=wide, split=split)
         case Scale():
@@ -203,8 +208,8 @@ def _error_step(op: Op, specs: Mapping[str, tb.TableSpec], mag: dict[str, float]
     left out (adding an exact 0.0 changes no float), which makes the bound fast enough for sizing."""
     e = lambda err, name: 0.0 if name in zero else err[name]  # noqa: E731
     match op:
-        case Clamp():
-            mag[op.dst] = float(max(abs(op.lo), abs(op.hi)))
+        case Clamp() | PairClamp():  # exact: the model is evaluated at the clamped input (or pair)
+            mag[op.dst] = float(op_range(op, {}, lambda _: fx.Interval(0, 0)).magnitude())
             zero.add(op.dst)
             return None
         case Lookup():

@@ -188,11 +188,31 @@ def _deg(rad: float) -> str:
     return "   none" if rad < 0 else f"{math.degrees(rad):7.2f}"
 
 
+def _body_limits_line(env: Any) -> list[str]:
+    """The body-frame limits that are set, as one line (none: no line, the wheel box alone)."""
+    parts = [
+        f"{name} {value:g} {unit}"
+        for name, value, unit in (
+            ("forward_speed_max", env.forward_speed_max_mps, "m/s"),
+            ("forward_accel_max", env.forward_accel_max_mps2, "m/s^2"),
+            ("yaw_rate_max", None if env.yaw_rate_max_radps is None else math.degrees(env.yaw_rate_max_radps), "deg/s"),
+            (
+                "yaw_accel_max",
+                None if env.yaw_accel_max_radps2 is None else math.degrees(env.yaw_accel_max_radps2),
+                "deg/s^2",
+            ),
+        )
+        if value is not None
+    ]
+    return [f"  body frame: {', '.join(parts)}"] if parts else []
+
+
 def _envelope_table(v: Vehicle, rep: envelope.EnvelopeReport) -> str:
     env = v.envelope
     lines = [
         f"envelope of '{v.name}': speed_max {env.speed_max_mps:g} m/s, accel_max {env.accel_max_mps2:g} m/s^2, "
         f"pitch_max {math.degrees(env.pitch_max_rad):g} deg, roll_max {math.degrees(env.roll_max_rad):g} deg",
+        *_body_limits_line(env),
         "",
         f"{'payload':>9} {'hold pitch':>11} {'climb pitch':>12} {'accel on':>10}",
         f"{'[kg]':>9} {'[deg]':>11} {'[deg]':>12} {'pitch_max':>10}",
@@ -202,7 +222,7 @@ def _envelope_table(v: Vehicle, rep: envelope.EnvelopeReport) -> str:
         lines.append(f"{r.payload_kg:9.2f} {_deg(r.hold_pitch_rad):>11} {_deg(r.climb_pitch_rad):>12} {acc:>10}")
     lines += [
         "",
-        "hold: standing still either way at roll_max; climb: at accel_max, 0..speed_max;",
+        "hold: standing still either way at roll_max; climb: straight at full acceleration, all speeds;",
         "accel on pitch_max: m/s^2, straight climb; limits: current, grip, voltage, tipping.",
         "",
         f"peak current  {rep.peak_current.value:8.2f} A  of {v.drive.current_limit_a:g} A   ({rep.peak_current.where})",

@@ -19,6 +19,7 @@ from .ops import (
     Lookup,
     Mul,
     Op,
+    PairClamp,
     Program,
     Scale,
     Store,
@@ -67,6 +68,14 @@ def _limit_lines(fw: Firmware) -> list[tuple[str, int, str]]:
         steps = getattr(fw.design.limits, m.limit)
         unit, convert = interface.shown(m)
         out.append((f"{m.name.upper()}_MAX", steps, f"{num(convert(steps * interface.lsb(fw.vehicle, m)))} {unit}"))
+    for m, pair in ((interface.SPEED, fw.design.limits.speed_pair), (interface.ACCEL, fw.design.limits.accel_pair)):
+        if pair.is_box:
+            continue
+        unit, half = interface.shown(m)[0], interface.lsb(fw.vehicle, m) / 2
+        name = m.name.upper()
+        out.append((f"{name}_SUM_MAX", int(pair.sum_max), f"|right + left|: forward {num(pair.sum_max * half)} {unit}"))
+        turn = f"|right - left|: {num(pair.diff_max * half)} {unit} per wheel in a turn"
+        out.append((f"{name}_DIFF_MAX", int(pair.diff_max), turn))
     return out
 
 
@@ -217,11 +226,29 @@ def _clamp_view(op: Clamp, bit_name: str, prefix: str) -> dict[str, Any]:
     }
 
 
+def _pair_view(op: PairClamp, bit_name: str) -> dict[str, Any]:
+    """A pair clamp: the turn (difference) first, then the forward part (sum), as region.clamp."""
+    return {
+        "kind": "pair_clamp",
+        "dst": op.dst,
+        "right": op.right,
+        "left": op.left,
+        "own": op.right if op.side == 0 else op.left,
+        "sign": "+" if op.side == 0 else "-",
+        "edge2": 2 * op.edge,
+        "sum_max": op.sum_max,
+        "diff_max": op.diff_max,
+        "bit": bit_name,
+    }
+
+
 def _op_view(op: Op, proof: Proof, clamp_names: list[str], prefix: str) -> dict[str, Any]:
     """What ops.j2 prints for one op (the C form of each op kind lives in that template)."""
     match op:
         case Clamp():
             return _clamp_view(op, clamp_names[op.bit], prefix)
+        case PairClamp():
+            return _pair_view(op, clamp_names[op.bit])
         case Lookup():
             return {"kind": "lookup", "dst": op.dst, "func": f"{prefix}_lookup_{op.table}", "src": op.src}
         case Mul():
@@ -282,7 +309,7 @@ def _split_view(a: str, b: str, shift: int, operand: str) -> dict[str, Any]:
     return {"split": True, "hi": hi, "by": by, "mask": f"0x{(1 << shift) - 1:X}"}
 
 
-OPERANDS = ("a", "b", "src", "speed", "hi", "by")
+OPERANDS = ("a", "b", "src", "speed", "hi", "by", "right", "left", "own")
 
 
 def _renamed(view: dict[str, Any], reads: dict[str, str]) -> dict[str, Any]:
@@ -346,7 +373,7 @@ def program_view(
             view = _op_view(ops[k], proof, [n for n, _ in prog.call.clamp_names(prefix)], prefix)
             views.append(_renamed(view, reads) if reads else view)
         k = j
-    last = max(i for i, v in enumerate(views) if v["kind"] == "clamp")
+    last = max(i for i, v in enumerate(views) if v["kind"] in ("clamp", "pair_clamp"))
     views.insert(last + 1, {"kind": flags})
     return {"name": prog.name, "ops": views}
 

@@ -14,8 +14,9 @@ from typing import assert_never
 import numpy as np
 
 from . import fixedpoint as fx
+from . import region
 from . import tables as tb
-from .ops import Backdrive, Clamp, Lookup, Mul, Op, Program, Scale, Store, Sum, by_rate
+from .ops import Backdrive, Clamp, Lookup, Mul, Op, PairClamp, Program, Scale, Store, Sum, by_rate
 
 INT32 = (fx.word_min(32), fx.word_max(32))
 
@@ -43,6 +44,8 @@ def _step(
         case Clamp():
             val = np.clip(_input(inputs, op), op.lo, op.hi)
             return val if integer else val.astype(float)
+        case PairClamp():
+            return _pair(op, env).astype(np.int64 if integer else float)
         case Lookup():
             src = np.asarray(env[op.src], dtype=np.int64)
             table = tables[op.table]
@@ -74,13 +77,25 @@ def _step(
             assert_never(op)
 
 
-def _flag(op: Op, inputs: Mapping[str, np.ndarray]) -> np.ndarray | None:
-    """The clamp bit an op sets where its input was outside (only a Clamp reads an input)."""
+def _pair(op: PairClamp, env: Mapping[str, np.ndarray]) -> np.ndarray:
+    """One wheel of the pair after region.clamp (the integers the C computes; clamped inputs are whole)."""
+    reg = region.PairRegion(edge=op.edge, sum_max=op.sum_max, diff_max=op.diff_max)
+    right = np.asarray(env[op.right]).astype(np.int64)
+    left = np.asarray(env[op.left]).astype(np.int64)
+    return region.clamp(right, left, reg, integer=True)[op.side]
+
+
+def _flag(op: Op, inputs: Mapping[str, np.ndarray], env: Mapping[str, np.ndarray]) -> np.ndarray | None:
+    """The clamp bit an op sets where its input was outside (a Clamp reads an input; a PairClamp sets
+    its wheel's bit where the region moved that wheel)."""
     match op:
         case Clamp():
             raw = _input(inputs, op)
             _check32(op.field, raw)
             return ((raw < op.lo) | (raw > op.hi)).astype(np.int64) << op.bit
+        case PairClamp():
+            own = np.asarray(env[op.right if op.side == 0 else op.left]).astype(np.int64)
+            return (_pair(op, env) != own).astype(np.int64) << op.bit
         case Lookup() | Mul() | Scale() | Sum() | Backdrive() | Store():
             return None
         case _:
@@ -127,7 +142,7 @@ def run_ops(
     """Evaluate some of a program's ops into env; returns the stored outputs and the clamp flags."""
     flags: np.ndarray | None = None
     for op in ops:
-        bit = _flag(op, inputs)
+        bit = _flag(op, inputs, env)
         if bit is not None:
             flags = bit if flags is None else flags | bit
         value = _step(op, env, tables, inputs, mode=mode)

@@ -14,7 +14,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from numpy.typing import ArrayLike
 
-from . import dynamics, interface, model
+from . import dynamics, interface, model, region
 from .dynamics import OperatingPoint
 from .interface import FF_IN
 from .vehicle import Vehicle
@@ -117,14 +117,22 @@ def _largest(ok: Callable[[np.ndarray], np.ndarray], hi: float, steps: int = 64,
     return lo_x
 
 
+def straight_limits(v: Vehicle) -> tuple[float, float]:
+    """The fastest and the hardest the vehicle drives straight ahead (equal wheels) inside the region,
+    m/s and m/s^2: each wheel's edge, or the forward limit when that is lower."""
+    speeds, accels = region.speed_region(v), region.accel_region(v)
+    return min(speeds.edge, speeds.sum_max / 2), min(accels.edge, accels.sum_max / 2)
+
+
 def _speed_sweep(v: Vehicle) -> np.ndarray:
     db = v.friction.deadband_mps
-    return np.unique(np.concatenate([np.linspace(0, v.envelope.speed_max_mps, 41), [db, 1.001 * db]]))
+    return np.unique(np.concatenate([np.linspace(0, straight_limits(v)[0], 41), [db, 1.001 * db]]))
 
 
 def payload_row(v: Vehicle, payload: float) -> PayloadRow:
     env = v.envelope
     roll = np.array([-env.roll_max_rad, 0.0, env.roll_max_rad])
+    accel_max = straight_limits(v)[1]
     speeds = _speed_sweep(v)
     still = np.array([0.0])
     hold = _largest(
@@ -134,7 +142,7 @@ def payload_row(v: Vehicle, payload: float) -> PayloadRow:
         ),
         PITCH_CEILING,
     )
-    climb = _largest(lambda th: _straight(v, payload, th, roll, accel=env.accel_max_mps2, speeds=speeds), PITCH_CEILING)
+    climb = _largest(lambda th: _straight(v, payload, th, roll, accel=accel_max, speeds=speeds), PITCH_CEILING)
     accel = _largest(lambda a: _straight(v, payload, env.pitch_max_rad, roll, accel=a, speeds=speeds), 50.0)
     return PayloadRow(payload_kg=payload, hold_pitch_rad=hold, climb_pitch_rad=climb, accel_on_pitch_max_mps2=accel)
 
@@ -149,11 +157,30 @@ def _corner_values(v: Vehicle, m: interface.Member) -> tuple[float, ...]:
     return values
 
 
+def _pair_corners(v: Vehicle, m: interface.Member) -> np.ndarray:
+    """Corner pairs (k, 2) of a wheel pair: every pair of its corner values moved into the region, then the
+    region's own vertices (region.py); the same pairs in the same order as before when it is a box."""
+    values = _corner_values(v, m)
+    reg = region.speed_region(v) if m is interface.SPEED else region.accel_region(v)
+    pairs = np.array(list(itertools.product(values, values)))
+    right, left = region.clamp(pairs[:, 0], pairs[:, 1], reg, integer=False)
+    found: list[tuple[float, float]] = []
+    for pair in [*zip(right.tolist(), left.tolist()), *map(tuple, region.vertices(reg).tolist())]:
+        if pair not in found:
+            found.append(pair)
+    return np.array(found)
+
+
 def _corners(v: Vehicle) -> tuple[OperatingPoint, np.ndarray]:
-    """Every combination of the corner values of every input column: the operating points and, per
-    point, the row of SI values in struct order."""
-    axes = [_corner_values(v, m) for m in FF_IN.members for _ in m.columns]
-    pts = np.array(list(itertools.product(*axes)))
+    """Every combination of the corner values of every input (wheel pairs: their corner pairs inside the
+    region): the operating points and, per point, the row of SI values in struct order."""
+    axes: list[list[tuple[float, ...]]] = []
+    for m in FF_IN.members:
+        if m.count == 2:
+            axes.append([tuple(p) for p in _pair_corners(v, m)])
+        else:
+            axes.append([(x,) for x in _corner_values(v, m)])
+    pts = np.array([sum(combo, ()) for combo in itertools.product(*axes)])
     op = OperatingPoint(**{name: pts[:, k] for k, name in enumerate(FF_IN.si_names().values())})
     return op, pts
 

@@ -42,6 +42,7 @@ class Key:
     expect: str
     meaning: str
     choices: tuple[str, ...] = ()
+    optional: bool = False  # absent: the field is None (no such limit), and the fingerprint leaves it out
 
 
 def _within(lo: float | None, hi: float, unit: str, lo_open: bool = True) -> tuple[Callable[[float], bool], str]:
@@ -62,9 +63,19 @@ def _key(
     *,
     default: Any = None,
     choices: tuple[str, ...] = (),
+    optional: bool = False,
 ) -> Key:
     check, expect = rng if rng is not None else (None, "")
-    return Key(kind=kind, field=field, default=default, check=check, expect=expect, meaning=meaning, choices=choices)
+    return Key(
+        kind=kind,
+        field=field,
+        default=default,
+        check=check,
+        expect=expect,
+        meaning=meaning,
+        choices=choices,
+        optional=optional,
+    )
 
 
 def _eff() -> tuple[Callable[[float], bool], str]:
@@ -178,6 +189,34 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "accel_max": K(L.ACCEL, "accel_max_mps2", U(0, 50, "m/s^2"), "largest rim acceleration of either wheel"),
         "pitch_max": K(L.ANGLE, "pitch_max_rad", _angle(), "steepest pitch either way (front up > 0)"),
         "roll_max": K(L.ANGLE, "roll_max_rad", _angle(), "steepest roll either way (left up > 0)"),
+        "forward_speed_max": K(
+            L.SPEED,
+            "forward_speed_max_mps",
+            U(0, 30, "m/s"),
+            "largest speed of P, (u_R + u_L)/2, either way (default: none beyond speed_max)",
+            optional=True,
+        ),
+        "forward_accel_max": K(
+            L.ACCEL,
+            "forward_accel_max_mps2",
+            U(0, 50, "m/s^2"),
+            "largest acceleration of P either way (default: none beyond accel_max)",
+            optional=True,
+        ),
+        "yaw_rate_max": K(
+            L.YAW_RATE,
+            "yaw_rate_max_radps",
+            U(0, 100, "rad/s"),
+            "largest yaw rate, (u_R - u_L)/track, either way (default: none beyond speed_max)",
+            optional=True,
+        ),
+        "yaw_accel_max": K(
+            L.YAW_ACCEL,
+            "yaw_accel_max_radps2",
+            U(0, 1000, "rad/s^2"),
+            "largest yaw acceleration either way (default: none beyond accel_max)",
+            optional=True,
+        ),
     },
     "firmware": {
         "speed_lsb": K(L.SPEED, "speed_lsb_mps", U(0, 30, "m/s"), "rim speed of one firmware speed step"),
@@ -215,10 +254,10 @@ FIELDS: dict[str, tuple[str, str]] = {
 
 
 def value(v: Vehicle, dotted: str) -> float | str:
-    """The SI value (or choice word) of a model key in a validated vehicle."""
+    """The SI value (or choice word) of a model key in a validated vehicle (an optional key must be set)."""
     section, field = FIELDS[dotted]
     result = getattr(getattr(v, section), field)
-    assert isinstance(result, (float, str))
+    assert isinstance(result, (float, str)), f"{dotted} is not set"
     return result
 
 
@@ -282,6 +321,9 @@ def _read_section(src: str, name: str, table: Any) -> dict[str, Any]:
     for key, spec in schema.items():
         where = f"{name}.{key}"
         if key not in table:
+            if spec.optional:
+                values[key] = None
+                continue
             if spec.default is None:
                 raise ModelError(
                     src, where, f"{spec.kind.name} such as {spec.kind.example}", "nothing (the key is required)"
@@ -333,9 +375,17 @@ def _firmware_steps(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any])
     """Every span the firmware counts in steps lies between 1 and 2^30 of them (checked before the
     deadband rules, so a step coarser than the envelope names the step, not the deadband)."""
     fr, env, fw = s["friction"], s["envelope"], s["firmware"]
+    half_track = s["wheels"]["track"] / 2
+    body = [
+        ("speed_lsb", env["forward_speed_max"], "envelope.forward_speed_max"),
+        ("accel_lsb", env["forward_accel_max"], "envelope.forward_accel_max"),
+        ("speed_lsb", _times(env["yaw_rate_max"], half_track), "yaw_rate_max x track/2"),
+        ("accel_lsb", _times(env["yaw_accel_max"], half_track), "yaw_accel_max x track/2"),
+    ]
     steps = [
         ("speed_lsb", env["speed_max"], "envelope.speed_max"),
         ("accel_lsb", env["accel_max"], "envelope.accel_max"),
+        *[(key, span, what) for key, span, what in body if span is not None],
         ("angle_lsb", max(env["pitch_max"], env["roll_max"]), "the larger of pitch_max and roll_max"),
         ("mass_lsb", s["payload"]["mass_max"], "payload.mass_max"),
         ("speed_lsb", fr["deadband"], "friction.deadband"),
@@ -351,15 +401,24 @@ def _firmware_steps(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any])
             )
 
 
+def _times(x: float | None, k: float) -> float | None:
+    return None if x is None else x * k
+
+
 def _deadband_rules(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any]) -> None:
     """The deadband ends below speed_max. In steps it then ends at least one step below the envelope
     edge, which rounds up while the deadband edge rounds down (tablespecs.limits_of)."""
     fr, env = s["friction"], s["envelope"]
-    if fr["deadband"] >= env["speed_max"]:
+    top, what = env["speed_max"], "envelope.speed_max"
+    if env["forward_speed_max"] is not None and env["yaw_rate_max"] is not None:
+        both = env["forward_speed_max"] + s["wheels"]["track"] / 2 * env["yaw_rate_max"]
+        if both < top:  # the fastest a wheel can go inside the body-frame limits (region.py)
+            top, what = both, "forward_speed_max + yaw_rate_max x track/2"
+    if fr["deadband"] >= top:
         raise ModelError(
             src,
             "friction.deadband",
-            f"a speed below envelope.speed_max ({env['speed_max']:g} m/s)",
+            f"a speed below {what} ({top:g} m/s)",
             _describe_raw(raw["friction"]["deadband"]),
         )
 
@@ -422,7 +481,7 @@ def reference_rows() -> list[str]:
             else:
                 kind = f"{spec.kind.name.split(' ', 1)[1]} (e.g. {spec.kind.example})"
             shown = f"{spec.default:g}" if isinstance(spec.default, float) else spec.default
-            default = "required" if spec.default is None else f"= `{shown}`"
+            default = "optional" if spec.optional else "required" if spec.default is None else f"= `{shown}`"
             meaning = spec.meaning.replace("|", "\\|")
             rows.append(f"| `{section}.{key}` | {kind} | {default} | {meaning} | {spec.expect} |")
     return rows

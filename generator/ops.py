@@ -27,6 +27,22 @@ class Clamp:
     bit: int
 
 
+@dataclass(frozen=True, kw_only=True)
+class PairClamp:
+    """dst = wheel `side` (0 right, 1 left) of the pair (right, left), both already box-clamped to
+    +-edge, moved into the region |r + l| <= sum_max, |r - l| <= diff_max by region.clamp; flags |= bit
+    when that wheel moved. sum_max and diff_max are even."""
+
+    dst: str
+    right: str
+    left: str
+    side: int
+    edge: int
+    sum_max: int
+    diff_max: int
+    bit: int
+
+
 @dataclass(frozen=True)
 class Lookup:
     dst: str
@@ -83,7 +99,7 @@ class Store:
     shift: int
 
 
-Op = Clamp | Lookup | Mul | Scale | Sum | Backdrive | Store
+Op = Clamp | PairClamp | Lookup | Mul | Scale | Sum | Backdrive | Store
 """Every op kind. A new kind is added here, then wherever `assert_never` fails the type check:
 op_range (below), emulate.run, analysis.prove, analysis._error_step, cview._op_view, ff/ops.j2."""
 
@@ -93,6 +109,8 @@ def op_inputs(op: Op) -> tuple[str, ...]:
     match op:
         case Clamp():
             return ()
+        case PairClamp():
+            return (op.right, op.left)
         case Lookup():
             return (op.src,)
         case Mul():
@@ -146,7 +164,7 @@ def _is_slow(op: Op, slow_names: set[str]) -> bool:
             return op.field in SLOW_FIELDS
         case Store():
             return False
-        case Lookup() | Mul() | Scale() | Sum() | Backdrive():
+        case PairClamp() | Lookup() | Mul() | Scale() | Sum() | Backdrive():
             return all(name in slow_names for name in op_inputs(op))
         case _:
             assert_never(op)
@@ -157,7 +175,7 @@ def op_table(op: Op) -> str | None:
     match op:
         case Lookup():
             return op.table
-        case Clamp() | Mul() | Scale() | Sum() | Backdrive() | Store():
+        case Clamp() | PairClamp() | Mul() | Scale() | Sum() | Backdrive() | Store():
             return None
         case _:
             assert_never(op)
@@ -174,6 +192,8 @@ def op_range(op: Op, rng: dict[str, fx.Interval], lookup: Callable[[Lookup], fx.
     match op:
         case Clamp():
             return fx.Interval(op.lo, op.hi)
+        case PairClamp():
+            return fx.Interval(-op.edge, op.edge)
         case Lookup():
             return lookup(op)
         case Mul():

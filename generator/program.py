@@ -17,6 +17,7 @@ from .ops import (
     Lookup,
     Mul,
     Op,
+    PairClamp,
     Program,
     Scale,
     Store,
@@ -67,6 +68,10 @@ class _Builder:
     def clamp(self, dst: str, fieldname: str, index: int | None, *, lo: int, hi: int, bit: int) -> str:
         self._add(Clamp(dst=dst, field=fieldname, index=index, lo=lo, hi=hi, bit=bit))
         return dst
+
+    def pair_clamp(self, op: PairClamp) -> str:
+        self._add(op)
+        return op.dst
 
     def lookup(self, dst: str, table: str, src: str) -> str:
         self._add(Lookup(dst, table, src))
@@ -164,14 +169,33 @@ SIGNAL = {
 
 
 def _clamps(bd: _Builder, lim: Limits, call: interface.Call, order: tuple[str, ...]) -> None:
-    """Clamp every input member in `order`; bounds and flag bits come from the interface."""
+    """Clamp every input member in `order`; bounds and flag bits come from the interface. A wheel pair
+    whose region is not a box (body-frame limits) is clamped to the box, then into the region."""
+    pairs = {"speed": lim.speed_pair, "accel": lim.accel_pair}
     for name in order:
         m = call.inputs.member(name)
         hi = getattr(lim, m.limit)
         lo = -hi if m.signed else 0
+        pair = pairs.get(name) if m.count == 2 else None
+        boxed = pair is not None and not pair.is_box
         for side, column in enumerate(m.columns):
-            dst = f"{SIGNAL[name]}_{'rl'[side]}" if m.count == 2 else SIGNAL[name]
+            dst = f"{SIGNAL[name]}_{'box_' if boxed else ''}{'rl'[side]}" if m.count == 2 else SIGNAL[name]
             bd.clamp(dst, name, side if m.count == 2 else None, lo=lo, hi=hi, bit=call.clamp_bit(column))
+        if pair is not None and boxed:
+            for side, column in enumerate(m.columns):
+                sig = SIGNAL[name]
+                bd.pair_clamp(
+                    PairClamp(
+                        dst=f"{sig}_{'rl'[side]}",
+                        right=f"{sig}_box_r",
+                        left=f"{sig}_box_l",
+                        side=side,
+                        edge=hi,
+                        sum_max=int(pair.sum_max),
+                        diff_max=int(pair.diff_max),
+                        bit=call.clamp_bit(column),
+                    )
+                )
 
 
 def _common(bd: _Builder, lim: Limits, call: interface.Call, pair: str) -> None:

@@ -10,7 +10,7 @@ from typing import Any
 
 import numpy as np
 
-from . import dynamics
+from . import dynamics, region
 from . import fixedpoint as fx
 from . import tables as tb
 from .vehicle import Vehicle
@@ -18,7 +18,8 @@ from .vehicle import Vehicle
 
 @dataclass(frozen=True)
 class Limits:
-    """Envelope edges in firmware steps (see limits_of)."""
+    """Envelope edges in firmware steps (see limits_of); speed and accel are each wheel's edge of the
+    region (the box cut by the body-frame limits, region.py), which the pairs refine."""
 
     speed: int
     accel: int
@@ -27,22 +28,27 @@ class Limits:
     payload: int
     deadband: int
     current: int
+    speed_pair: region.PairRegion
+    accel_pair: region.PairRegion
 
 
 def limits_of(v: Vehicle) -> Limits:
     """Envelope edges in steps, each containing its stated limit (rounded up), so an input of exactly the
     limit is inside; the deadband edge is the last step inside the deadband (rounded down)."""
     fw, env = v.firmware, v.envelope
+    speeds, accels = region.speed_steps(v), region.accel_steps(v)
     lim = Limits(
-        speed=fx.steps_covering(env.speed_max_mps, fw.speed_lsb_mps),
-        accel=fx.steps_covering(env.accel_max_mps2, fw.accel_lsb_mps2),
+        speed=int(speeds.edge),
+        accel=int(accels.edge),
         pitch=fx.steps_covering(env.pitch_max_rad, fw.angle_lsb_rad),
         roll=fx.steps_covering(env.roll_max_rad, fw.angle_lsb_rad),
         payload=fx.steps_covering(v.payload.mass_max_kg, fw.mass_lsb_kg),
         deadband=fx.steps_within(v.friction.deadband_mps, fw.speed_lsb_mps),
         current=fx.steps_covering(v.drive.current_limit_a, fw.current_lsb_a),
+        speed_pair=speeds,
+        accel_pair=accels,
     )
-    assert lim.deadband < lim.speed, "the loader keeps the deadband below speed_max"
+    assert lim.deadband < lim.speed, "the loader keeps the deadband below each wheel's largest speed"
     return lim
 
 

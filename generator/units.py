@@ -31,6 +31,8 @@ TORQUE_CONSTANT = Kind("a torque constant", "N*m/A", "'0.058 N*m/A'")
 RESISTANCE = Kind("a resistance", "ohm", "'0.6 ohm'")
 CURRENT = Kind("a current", "A", "'12 A'")
 VOLTAGE = Kind("a voltage", "V", "'24 V'")
+YAW_RATE = Kind("an angular speed", "rad/s", "'90 deg/s'")
+YAW_ACCEL = Kind("an angular acceleration", "rad/s**2", "'180 deg/s^2'")
 
 _ANGLE_UNITS = {"radian", "degree", "arcminute", "arcsecond", "turn", "gradian", "milliradian"}
 
@@ -43,6 +45,14 @@ def registry() -> pint.UnitRegistry:
         return pint.UnitRegistry(cache_folder=":auto:")
     except Exception:  # an unwritable or broken cache must never stop the tool
         return pint.UnitRegistry()
+
+
+def _check_turning(text: str, q: Any) -> None:
+    """An angular speed or acceleration names its angle ('90 deg/s', '1.5 rad/s'): pint counts radians as
+    dimensionless, so '2 Hz' or '2 1/s' would otherwise pass as 2 rad/s, off by 2 pi for hertz."""
+    above = {name for name, power in q.unit_items() if power > 0}
+    if not above or not above <= _ANGLE_UNITS:
+        raise ValueError(f"{text!r} names no angle over time")
 
 
 def parse(text: str, kind: Kind) -> float:
@@ -58,6 +68,8 @@ def parse(text: str, kind: Kind) -> float:
         names = {name for name, _ in q.unit_items()}
         if not names or not names <= _ANGLE_UNITS:
             raise ValueError(f"{text!r} has no angle unit")
+    elif kind in (YAW_RATE, YAW_ACCEL):
+        _check_turning(text, q)
     elif q.dimensionless:
         raise ValueError(f"{text!r} has no unit")
     try:

@@ -12,7 +12,7 @@ from typing import Any
 
 import numpy as np
 
-from . import emulate, interface
+from . import emulate, interface, region
 from .interface import FF_IN, FF_OUT
 
 
@@ -23,6 +23,23 @@ def _corners(lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
     for k, pair in enumerate(pairs):
         choices.append((lo[k], 0, hi[k]) if pair else (lo[k], hi[k]))
     return np.array(list(itertools.product(*choices)))
+
+
+def _region_rows(lim: Any, lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
+    """The speed and acceleration regions' vertices (whole steps: the diagonals are even), combined, with
+    both edges of the other inputs; none when both regions are boxes (their corners are in _corners)."""
+    if lim.speed_pair.is_box and lim.accel_pair.is_box:
+        return np.zeros((0, len(lo)), dtype=np.int64)
+    pairs = [FF_IN.columns.index(c) for name in ("speed", "accel") for c in FF_IN.member(name).columns]
+    rest = [k for k in range(len(lo)) if k not in pairs]
+    vertex_sets = [region.vertices(p).astype(np.int64) for p in (lim.speed_pair, lim.accel_pair)]
+    rows = []
+    for sp, ac in itertools.product(*vertex_sets):
+        for other in itertools.product(*[(lo[k], hi[k]) for k in rest]):
+            row = np.zeros(len(lo), dtype=np.int64)
+            row[pairs], row[rest] = [*sp, *ac], other
+            rows.append(row)
+    return np.array(rows, dtype=np.int64)
 
 
 def _special_rows(lim: Any, lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
@@ -53,7 +70,7 @@ def feedforward_inputs(lim: Any, count: int = 10_000, seed: int = 20261202) -> d
     """Inputs in firmware steps: every corner, the deadband edges, clamping cases, then random points."""
     rng = np.random.default_rng(seed)
     lo, hi = interface.column_edges(lim, FF_IN)
-    fixed = np.concatenate([_corners(lo, hi), _special_rows(lim, lo, hi)])
+    fixed = np.concatenate([_corners(lo, hi), _special_rows(lim, lo, hi), _region_rows(lim, lo, hi)])
     n = max(count - len(fixed), 0)
     rand = np.stack([rng.integers(a, b + 1, n) for a, b in zip(lo, hi)], axis=-1)
     db = lim.deadband

@@ -65,6 +65,10 @@ class Envelope:
     accel_max_mps2: float
     pitch_max_rad: float
     roll_max_rad: float
+    forward_speed_max_mps: float | None = None  # body-frame limits (region.py); None: no such limit
+    forward_accel_max_mps2: float | None = None
+    yaw_rate_max_radps: float | None = None
+    yaw_accel_max_radps2: float | None = None
 
 
 @dataclass(frozen=True)
@@ -98,9 +102,11 @@ class Vehicle:
     source: str = "<model>"
 
     def normalised(self) -> dict[str, Any]:
-        """The model as plain SI numbers (no source path): what the fingerprint hashes."""
+        """The model as plain SI numbers (no source path): what the fingerprint hashes. Optional limits
+        that are not set are left out, so a model without them keeps its fingerprint."""
         data = asdict(self)
         data.pop("source")
+        data["envelope"] = {k: x for k, x in data["envelope"].items() if x is not None}  # unset optional limits
         return data
 
 

@@ -8,10 +8,10 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from kinetab.generator import dynamics, interface, model
+from kinetab.generator import dynamics, interface, model, region
 from kinetab.generator.errors import UserError
 from kinetab.generator.vehicle import Vehicle
-from ruckig import ControlInterface, InputParameter, OutputParameter, Result, Ruckig
+from ruckig import ControlInterface, InputParameter, OutputParameter, Result, Ruckig, Synchronization
 
 from .planfile import PLAN_COLUMNS, Plan, phase_of
 
@@ -60,23 +60,45 @@ def _segments(v: Vehicle, rng: np.random.Generator | None = None) -> list[Segmen
     ]
 
 
+def _target(v: Vehicle, seg: Segment) -> list[float]:
+    """The segment's rim speeds (fractions of speed_max) moved into the speed region (region.clamp)."""
+    speed_max = v.envelope.speed_max_mps
+    right, left = region.clamp(seg.right * speed_max, seg.left * speed_max, region.speed_region(v), integer=False)
+    return [float(right), float(left)]
+
+
+def _accel_limits(v: Vehicle, start: list[float], target: list[float], accel: float) -> list[float]:
+    """Per-wheel acceleration limits for a move from `start` to `target` speeds: `accel` (a fraction of
+    what the region allows along the move's direction) shared in proportion to each wheel's change, so the
+    phase-synchronised move runs along a straight line and its accelerations stay inside the region."""
+    change = np.array(target) - np.array(start)
+    top = float(np.max(np.abs(change)))
+    if top == 0:
+        return [accel * region.accel_region(v).edge] * 2
+    u = change / top  # |u|_inf = 1
+    reg = region.accel_region(v)
+    along = min(reg.edge, *(lim / abs(x) for lim, x in ((reg.sum_max, u.sum()), (reg.diff_max, u[0] - u[1])) if x))
+    return [max(accel * along * abs(x), 1e-9) for x in u]
+
+
 def _profile(v: Vehicle, segments: list[Segment], *, period_s: float, duration_s: float, scale: float) -> np.ndarray:
-    """Rim speeds and accelerations (n, 4) along the segments, repeated until duration_s, stopped at the end."""
-    env = v.envelope
+    """Rim speeds and accelerations (n, 4) along the segments, repeated until duration_s, stopped at the end.
+    Each move is phase-synchronised (a straight line in the plane of the two wheel speeds), so the
+    speeds and accelerations stay inside their regions (convex) from one held pair to the next."""
     otg, inp, out = Ruckig(2, period_s), InputParameter(2), OutputParameter(2)
-    inp.control_interface = ControlInterface.Velocity
+    inp.control_interface, inp.synchronization = ControlInterface.Velocity, Synchronization.Phase
     inp.current_position, inp.current_velocity, inp.current_acceleration = [0.0, 0.0], [0.0, 0.0], [0.0, 0.0]
-    inp.max_velocity = [env.speed_max_mps] * 2
+    inp.max_velocity = [region.speed_region(v).edge] * 2
     rows: list[list[float]] = []
     n_total = int(round(duration_s / period_s))
     k = 0
     while len(rows) < n_total:
         seg = segments[k % len(segments)]
         stopping = len(rows) >= n_total - int(3 / period_s)  # leave room to stop
-        target = [0.0, 0.0] if stopping else [seg.right * env.speed_max_mps, seg.left * env.speed_max_mps]
-        accel = max(seg.accel, 0.2) * env.accel_max_mps2 * scale
+        target = [0.0, 0.0] if stopping else _target(v, seg)
+        limits = _accel_limits(v, list(inp.current_velocity), target, max(seg.accel, 0.2) * scale)
         inp.target_velocity, inp.target_acceleration = target, [0.0, 0.0]
-        inp.max_acceleration, inp.max_jerk = [accel] * 2, [accel / JERK_TIME_S] * 2
+        inp.max_acceleration, inp.max_jerk = limits, [a / JERK_TIME_S for a in limits]
         result = Result.Working
         while result == Result.Working and len(rows) < n_total:
             result = otg.update(inp, out)
@@ -89,8 +111,16 @@ def _profile(v: Vehicle, segments: list[Segment], *, period_s: float, duration_s
         k += 1
         if stopping:
             rows.extend([[0.0, 0.0, 0.0, 0.0]] * max(0, n_total - len(rows)))
-    prof = np.array(rows[:n_total])
-    prof[:, :2] = np.clip(prof[:, :2], -env.speed_max_mps, env.speed_max_mps)  # float dust past the limit
+    return _inside_regions(v, np.array(rows[:n_total]))
+
+
+def _inside_regions(v: Vehicle, prof: np.ndarray) -> np.ndarray:
+    """The profile with float dust past a region's edge clamped away; more than dust is a planner bug."""
+    for cols, reg in ((slice(0, 2), region.speed_region(v)), (slice(2, 4), region.accel_region(v))):
+        pair = prof[:, cols]
+        assert region.inside(pair[:, 0], pair[:, 1], reg, slack=1e-6).all(), "a planned move left its region"
+        right, left = region.clamp(pair[:, 0], pair[:, 1], reg, integer=False)
+        prof[:, cols] = np.stack([right, left], -1)
     return prof
 
 
@@ -124,6 +154,7 @@ def plan_problem(v: Vehicle, plan: Plan, rig: str) -> str | None:
     voltage, by the float model of the rig), as one phrase; None when every row is inside."""
     c = plan.columns
     bad = [found for m in interface.FF_IN.members for col in m.columns if (found := _outside(v, m, col, c[col]))]
+    bad += [found for m in (interface.SPEED, interface.ACCEL) if (found := _outside_region(v, m, plan))]
     drive = _drive_problem(v, plan, rig)
     if drive:
         bad.append(drive)
@@ -147,6 +178,33 @@ def _outside(v: Vehicle, m: interface.Member, col: str, values: np.ndarray) -> t
         return None
     k = int(over[0])
     return k, f"{col} {values[k]:.6g} {m.unit} {text}"
+
+
+def _outside_region(v: Vehicle, m: interface.Member, plan: Plan) -> tuple[int, str] | None:
+    """The first row whose wheel pair breaks a body-frame limit that is set (forward, or yaw: the
+    difference over the track), and the phrase naming the key."""
+    right, left = (np.asarray(plan.columns[col], float) for col in m.columns)
+    env, track = v.envelope, v.wheels.track_m
+    if m is interface.SPEED:
+        limits = [
+            ("envelope.forward_speed_max", env.forward_speed_max_mps, (right + left) / 2, "m/s"),
+            ("envelope.yaw_rate_max", env.yaw_rate_max_radps, (right - left) / track, "rad/s"),
+        ]
+    else:
+        limits = [
+            ("envelope.forward_accel_max", env.forward_accel_max_mps2, (right + left) / 2, "m/s^2"),
+            ("envelope.yaw_accel_max", env.yaw_accel_max_radps2, (right - left) / track, "rad/s^2"),
+        ]
+    found = []
+    for key, limit, value, unit in limits:
+        if limit is None:
+            continue
+        over = np.flatnonzero(np.abs(value) > limit * (1 + 1e-6) + 1e-12)
+        if over.size:
+            k = int(over[0])
+            pair = f"{m.name}_right/left {right[k]:.6g}/{left[k]:.6g} {m.unit}"
+            found.append((k, f"{pair}: {value[k]:.6g} {unit} beyond {key} ({limit:.6g} {unit})"))
+    return min(found) if found else None
 
 
 def _drive_problem(v: Vehicle, plan: Plan, rig: str) -> tuple[int, str] | None:
