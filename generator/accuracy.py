@@ -26,6 +26,15 @@ class Stat:
 
 
 @dataclass(frozen=True)
+class NeighbourStep:
+    """The largest change of the generated feed-forward current (A) when one input moves from `at` to
+    `at + 1` firmware steps, the others held."""
+
+    amps: float
+    at: int
+
+
+@dataclass(frozen=True)
 class Accuracy:
     """Amps throughout; `where` describes the worst point in SI units."""
 
@@ -37,6 +46,7 @@ class Accuracy:
     where: str
     clamping: Stat
     input_resolution: dict[str, float]
+    neighbour: dict[str, NeighbourStep]
 
 
 def operating_point(fw: Firmware, inp: dict[str, np.ndarray]) -> dynamics.OperatingPoint:
@@ -102,15 +112,6 @@ NEIGHBOUR_POINTS = 2000
 """Random points (besides corners and deadband cases) over which neighbour_steps looks."""
 
 
-@dataclass(frozen=True)
-class NeighbourStep:
-    """The largest change of the generated feed-forward current (A) when one input moves from `at` to
-    `at + 1` firmware steps, the others held."""
-
-    amps: float
-    at: int
-
-
 def neighbour_steps(fw: Firmware) -> dict[str, NeighbourStep]:
     """Per input, the largest current step of the integer program between neighbouring inputs, found over
     the corners, the deadband cases, NEIGHBOUR_POINTS random points inside the envelope and every
@@ -143,6 +144,25 @@ def neighbour_steps(fw: Firmware) -> dict[str, NeighbourStep]:
     return out
 
 
+def step_limit_a(fw: Firmware) -> tuple[float, str]:
+    """The largest current step between neighbouring inputs verify accepts, A, and where it comes from:
+    firmware.current_step_max, else STEP_BUDGETS x current_budget (two neighbouring outputs may each be
+    off by the budget, and the model itself may change by as much again over one step at zero speed)."""
+    f = fw.vehicle.firmware
+    if f.current_step_max_a is not None:
+        return f.current_step_max_a, "firmware.current_step_max"
+    return STEP_BUDGETS * f.current_budget_a, f"{STEP_BUDGETS} x firmware.current_budget"
+
+
+STEP_BUDGETS = 4
+
+
+def largest_step(steps: dict[str, NeighbourStep]) -> tuple[str, NeighbourStep]:
+    """The input whose neighbouring step changes the current most, and that step."""
+    name = max(steps, key=lambda n: steps[n].amps)
+    return name, steps[name]
+
+
 def measure(fw: Firmware, count: int = 100_000, seed: int = 7) -> Accuracy:
     """Measured end-to-end error and its split over the envelope, A."""
     inp = envelope_points(fw, count, seed)
@@ -161,4 +181,5 @@ def measure(fw: Firmware, count: int = 100_000, seed: int = 7) -> Accuracy:
         where=_describe_input(fw, inp, int(k), int(side)),
         clamping=_clamping(fw, seed),
         input_resolution=_input_resolution(fw, inp),
+        neighbour=neighbour_steps(fw),
     )

@@ -112,9 +112,10 @@ def prove(program: Program, tables: Mapping[str, tb.Table]) -> Proof:
     wide: dict[str, bool] = {}
     split: dict[str, str] = {}
     outputs: dict[tuple[str, int], fx.Interval] = {}
+    table_range = lambda op: _table_range(tables[op.table])  # noqa: E731
     for op in program.ops:
-        _check_op(program, op, rng, wide=wide, split=split)
-        result = op_range(op, rng, lambda lk: _table_range(tables[lk.table]))
+        _check_op(program, op, rng, wide=wide, split=split, table_range=table_range)
+        result = op_range(op, rng, table_range)
         if not result.fits(32):
             raise _fail(program, f"signal {op.dst}", result)
         rng[op.dst] = result
@@ -133,7 +134,13 @@ def _with_half(prod: fx.Interval, shift: int) -> fx.Interval:
 
 
 def _check_op(
-    program: Program, op: Op, rng: dict[str, fx.Interval], *, wide: dict[str, bool], split: dict[str, str]
+    program: Program,
+    op: Op,
+    rng: dict[str, fx.Interval],
+    *,
+    wide: dict[str, bool],
+    split: dict[str, str],
+    table_range: Callable[[Any], fx.Interval],
 ) -> None:
     """What each op needs beyond its result range: which products need 64 bits, which partial sums and
     roundings would overflow (CheckFailed)."""
@@ -157,7 +164,7 @@ def _check_op(
                 if not total.fits(32):
                     raise _fail(program, f"partial sum of {op.dst}", total)
         case Backdrive():
-            k = fx.Interval(op.k, op.k)
+            k = table_range(op) if op.table is not None else fx.Interval(op.k, op.k)
             wide[op.dst] = not _with_half(rng[op.src] * k, op.shift).fits(32)
             split[op.dst] = "a" if wide[op.dst] and split_fits(rng[op.src], k, op.shift) else ""
         case Store():
@@ -202,7 +209,8 @@ Step = Callable[[dict[str, Any], TableErrors], Any]
 def _error_step(op: Op, specs: Mapping[str, tb.TableSpec], mag: dict[str, float], zero: set[str]) -> Step | None:
     """One op's error propagation (integer units of each signal; A, B ideal values, e their errors):
       a*b/2^s: (|A| e_b + |B| e_a + e_a e_b) / 2^s + 1/2 when s > 0;  sum: the sum of the errors;
-      lookup: the table's worst error;  backdrive: e*max(1, k) + |k_int - k|(|A| + e) + 1/2;
+      lookup: the table's worst error;  backdrive: e*max(1, k) + |k_int - k|(|A| + e) + 1/2, or with a
+      factor table T (error e_T): (|A| + e) e_T + e*max|T| + 1/2;
       store: e/2^s + 1/2 when s > 0.
     Records the result's magnitude in `mag`; signals known to be exact go in `zero` and their terms are
     left out (adding an exact 0.0 changes no float), which makes the bound fast enough for sizing."""
@@ -240,15 +248,28 @@ def _error_step(op: Op, specs: Mapping[str, tb.TableSpec], mag: dict[str, float]
                 return None
             return _sum_step(live)
         case Backdrive():
-            gain, dk, ms = max(1.0, op.k_real), abs(op.k * 2.0**-op.shift - op.k_real), mag[op.src]
-            mag[op.dst] = ms * gain
-            return lambda err, E: e(err, op.src) * gain + dk * (ms + e(err, op.src)) + 0.5
+            return _backdrive_step(op, specs, mag, e)
         case Store():
             scale, half = 2.0**-op.shift, 0.5 if op.shift > 0 else 0.0
             mag[op.dst] = mag[op.src] * scale
             return lambda err, E: e(err, op.src) * scale + half
         case _:
             assert_never(op)
+
+
+def _backdrive_step(
+    op: Backdrive, specs: Mapping[str, tb.TableSpec], mag: dict[str, float], e: Callable[[Any, str], Any]
+) -> Step:
+    """A constant factor k (its fixed-point value k_int): e*max(1, k) + |k_int - k|(|A| + e) + 1/2; a factor
+    table T (worst error e_T): (|A| + e) e_T + e*max|T| + 1/2 (the product's terms, as for a Mul)."""
+    ms = mag[op.src]
+    if op.table is not None:
+        gain, table = max(1.0, specs[op.table].max_abs), op.table
+        mag[op.dst] = ms * gain
+        return lambda err, E: (ms + e(err, op.src)) * np.asarray(E[table]) + e(err, op.src) * gain + 0.5
+    gain, dk = max(1.0, op.k_real), abs(op.k * 2.0**-op.shift - op.k_real)
+    mag[op.dst] = ms * gain
+    return lambda err, E: e(err, op.src) * gain + dk * (ms + e(err, op.src)) + 0.5
 
 
 def _sum_step(live: list[str]) -> Step:

@@ -263,7 +263,7 @@ ALLOW_HELP = "Build or pass even when the envelope exceeds the drive's current, 
 def build(model_path: str, out_dir: str, vectors_path: str | None, allow: bool) -> None:
     """Generate <name>_ff.h and <name>_ff.c into OUT, all files or none; exit 1 if the envelope is
     infeasible (unless accepted) or the budget cannot be met."""
-    from . import gate, outputs, render, synthesis, vectors
+    from . import accuracy, gate, outputs, render, synthesis, vectors
 
     folder = out_folder(out_dir)
     v = model.load(model_path)
@@ -284,6 +284,11 @@ def build(model_path: str, out_dir: str, vectors_path: str | None, allow: bool) 
         f"{fw.ff_bound_a * 1000:.3f} mA of {v.firmware.current_budget_a * 1000:.3f} mA budget; "
         f"{synthesis.sizing_note(fw)}; {synthesis.products_note(fw)}",
         err=vectors_path == "-",
+    )
+    step = gate.step_check(fw, accuracy.neighbour_steps(fw))
+    click.echo(
+        step.detail if step.ok else f"warning: {step.detail} (verify fails on it)",
+        err=not step.ok or vectors_path == "-",
     )
     for check in (gate.companion_check(fw, path, model_path) for path in gate.companions(fw, folder)):
         if not check.ok:
@@ -340,7 +345,9 @@ def verify(
         env,
         gate.budget_check(fw),
     ]
-    doc = outputs.report(fw, accuracy.measure(fw), checks, problems)
+    acc = accuracy.measure(fw)
+    checks.append(gate.step_check(fw, acc.neighbour))
+    doc = outputs.report(fw, acc, checks, problems)
     _write_reports(doc, report_path, junit_path)
     click.echo(
         f"accuracy: proven bound {fw.ff_bound_a * 1000:.3f} mA, measured max "

@@ -93,6 +93,8 @@ def _model_value(fw: Firmware, dotted: str) -> str:
     """`section.key = value unit` from the validated model (SI), for table comments."""
     section, key = dotted.split(".")
     spec = model.SCHEMA[section][key]
+    if getattr(getattr(fw.vehicle, section), spec.field) is None:
+        return f"{dotted} not set (its default applies)"
     value = model.value(fw.vehicle, dotted)
     unit = spec.kind.si.replace("**", "^")
     text = num(value) if isinstance(value, float) else value
@@ -264,13 +266,14 @@ def _op_view(op: Op, proof: Proof, clamp_names: list[str], prefix: str) -> dict[
                 "dst": op.dst,
                 "src": op.src,
                 "speed": op.speed,
-                "k": op.k,
+                "k": "k" if op.table is not None else op.k,
                 "shift": op.shift,
                 "half": rounding_half(op.shift),
                 "wide": proof.wide[op.dst],
                 "split": bool(proof.split[op.dst]),
                 "mask": f"0x{(1 << op.shift) - 1:X}",
                 "k_real": num(op.k_real),
+                "factor": None if op.table is None else f"{prefix}_lookup_{op.table}",
             }
         case Store():
             return {
@@ -325,7 +328,7 @@ GroupKey = tuple[str, bool, int | None]
 
 def _group_key(op: Op, tables: dict[str, dict[str, Any]]) -> GroupKey | None:
     """Lookups that may share one inline block: same input, same symmetry class, same piece edge."""
-    table = op_table(op)
+    table = op_table(op) if isinstance(op, Lookup) else None  # a Backdrive's table is looked up in its branch
     if table is None:
         return None
     t = tables[table]

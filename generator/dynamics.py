@@ -278,12 +278,40 @@ def opposed(effort: ArrayLike, speed: ArrayLike) -> NDArray[np.bool_]:
     return ((q > 0) & (u < 0)) | ((q < 0) & (u > 0))
 
 
+def blend_width(v: Vehicle) -> float:
+    """Rim speed over which the efficiency moves from motoring to back-driving, m/s (0: a switch): the
+    model's drive.blend_speed, else twice the deadband and at least four firmware speed steps, so the
+    change is spread over as many steps as friction's own ramp and more (docs/physics.md, Motor)."""
+    if v.drive.blend_speed_mps is not None:
+        return v.drive.blend_speed_mps
+    return max(2 * v.friction.deadband_mps, BLEND_STEPS_MIN * v.firmware.speed_lsb_mps)
+
+
+BLEND_STEPS_MIN = 4
+"""The default blend band spans at least this many firmware speed steps."""
+
+
+def backdrive_ratio(v: Vehicle) -> float:
+    """k = eta eta_back: the back-driven motor torque over the motoring one for the same rim force."""
+    return v.drive.efficiency * v.drive.backdrive_efficiency
+
+
+def backdrive_factor(v: Vehicle, speed: ArrayLike) -> Array:
+    """f(u) = 1 + (k - 1) min(1, |u|/w): the back-driven torque over the motoring torque for the same
+    rim force at rim speed u; 1 at standstill, k beyond the blend width w (with w = 0: k for u != 0)."""
+    a, w = np.abs(np.asarray(speed, float)), blend_width(v)
+    share = np.where(a > 0, 1.0, 0.0) if w == 0 else np.minimum(1.0, a / w)
+    return 1 + (backdrive_ratio(v) - 1) * share
+
+
 def motor_torque(v: Vehicle, force: ArrayLike, speed: ArrayLike) -> Array:
-    """Motor torque, N*m: Q r/(i eta) when Q*u >= 0 (motoring, standstill), Q r eta_back/i otherwise."""
+    """Motor torque, N*m: Q r/(i eta) when Q*u >= 0 (motoring, standstill); when the wheel drives the
+    motor, that times backdrive_factor (Q r eta_back/i beyond the blend width)."""
     q, u = np.asarray(force, float), np.asarray(speed, float)
     r, i = wheel_radius(v), v.drive.gear_ratio
     motoring = ~opposed(q, u)
-    return np.where(motoring, q * r / (i * v.drive.efficiency), q * r * v.drive.backdrive_efficiency / i)
+    scale = np.where(motoring, 1.0, backdrive_factor(v, u))
+    return q * r / (i * v.drive.efficiency) * scale
 
 
 def motor_current(v: Vehicle, force: ArrayLike, speed: ArrayLike) -> Array:
@@ -303,7 +331,8 @@ def force_from_current(v: Vehicle, current: ArrayLike, speed: ArrayLike) -> Arra
     r, i = wheel_radius(v), v.drive.gear_ratio
     torque = i_m * v.drive.torque_constant_nm_per_a
     motoring = ~opposed(i_m, u)
-    return np.where(motoring, torque * i * v.drive.efficiency / r, torque * i / (r * v.drive.backdrive_efficiency))
+    scale = np.where(motoring, 1.0, 1.0 / backdrive_factor(v, u))
+    return torque * i * v.drive.efficiency / r * scale
 
 
 def forward_accel(v: Vehicle, op: OperatingPoint, force_right: ArrayLike, force_left: ArrayLike) -> tuple[Array, Array]:

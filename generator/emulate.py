@@ -65,7 +65,12 @@ def _step(
         case Backdrive():
             src, speed = env[op.src], env[op.speed]
             opposed = ((src > 0) & (speed < 0)) | ((src < 0) & (speed > 0))
-            if integer:
+            if op.table is not None:
+                at = np.asarray(speed, dtype=np.int64)
+                table = tables[op.table]
+                factor = tb.lookup(table, at) if integer else np.asarray(tb.lookup_real(table, at, mode))
+                scaled = fx.shift_round(src * factor, op.shift) if integer else src * factor * 2.0**-op.shift
+            elif integer:
                 scaled = fx.shift_round(src * op.k, op.shift)
             else:
                 scaled = src * (op.k * 2.0**-op.shift if mode == "quant" else op.k_real)

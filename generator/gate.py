@@ -6,6 +6,7 @@ import re
 from pathlib import Path
 
 from . import envelope, render, vectors
+from .accuracy import NeighbourStep, largest_step, step_limit_a
 from .outputs import Check, check_file
 from .synthesis import Firmware
 from .vehicle import Vehicle
@@ -32,6 +33,25 @@ def budget_check(fw: Firmware) -> Check:
     ok = fw.ff_bound_a <= f.current_budget_a
     return Check(
         "error budget", ok, f"proven bound {fw.ff_bound_a * 1000:.3f} mA, budget {f.current_budget_a * 1000:.3f} mA"
+    )
+
+
+def step_check(fw: Firmware, steps: dict[str, NeighbourStep]) -> Check:
+    """The largest current step between neighbouring firmware inputs against its limit (a command that
+    jumps by more at zero speed on a slope jerks the drive as a cart starts or stops)."""
+    limit, why = step_limit_a(fw)
+    name, worst = largest_step(steps)
+    detail = (
+        f"largest current step between neighbouring inputs {worst.amps * 1000:.1f} mA ({name} from {worst.at} to "
+        f"{worst.at + 1} steps), limit {limit * 1000:.1f} mA ({why})"
+    )
+    if worst.amps <= limit:
+        return Check("current step", True, detail)
+    return Check(
+        "current step",
+        False,
+        f"{fw.vehicle.source}: {detail}; widen drive.blend_speed, make firmware.{name}_lsb finer, "
+        "or raise firmware.current_step_max",
     )
 
 

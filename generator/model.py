@@ -156,6 +156,14 @@ SCHEMA: dict[str, dict[str, Key]] = {
         ),
         "current_limit": K(L.CURRENT, "current_limit_a", U(0, 10000, "A"), "largest motor current the drive allows"),
         "supply_voltage": K(L.VOLTAGE, "supply_voltage_v", U(0, 2000, "V"), "drive supply (bus) voltage"),
+        "blend_speed": K(
+            L.SPEED,
+            "blend_speed_mps",
+            U(0, 10, "m/s", False),
+            "rim speed over which the efficiency moves from motoring to back-driving, so the current has no "
+            "step at zero speed; 0: a switch (default: 2 x friction.deadband, at least 4 speed steps)",
+            optional=True,
+        ),
     },
     "friction": {
         "coulomb": K(
@@ -235,6 +243,13 @@ SCHEMA: dict[str, dict[str, Key]] = {
             "what table sizing minimises within the budget: table bytes, or lookup instructions (then bytes)",
             default="instructions",
             choices=("instructions", "bytes"),
+        ),
+        "current_step_max": K(
+            L.CURRENT,
+            "current_step_max_a",
+            U(0, 10000, "A"),
+            "largest current change between neighbouring firmware inputs verify accepts (default: 4 x current_budget)",
+            optional=True,
         ),
         "table_bytes_max": K(
             RATIO,
@@ -381,6 +396,7 @@ def _firmware_steps(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any])
         ("accel_lsb", env["forward_accel_max"], "envelope.forward_accel_max"),
         ("speed_lsb", _times(env["yaw_rate_max"], half_track), "yaw_rate_max x track/2"),
         ("accel_lsb", _times(env["yaw_accel_max"], half_track), "yaw_accel_max x track/2"),
+        ("speed_lsb", s["drive"]["blend_speed"] or None, "drive.blend_speed"),
     ]
     steps = [
         ("speed_lsb", env["speed_max"], "envelope.speed_max"),

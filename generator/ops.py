@@ -78,14 +78,17 @@ class Sum:
 
 @dataclass(frozen=True)
 class Backdrive:
-    """dst = src when src and speed do not oppose, else round(src * k / 2^shift)."""
+    """dst = src when src and speed do not oppose, else round(src * k / 2^shift): k the constant, or with a
+    `table` the table's value at speed (the blended factor, in the table's Q format: shift = its fraction
+    bits), looked up only on that branch."""
 
     dst: str
     src: str
     speed: str
     k: int
     shift: int
-    k_real: float
+    k_real: float  # the factor beyond any blend band
+    table: str | None = None
 
 
 @dataclass(frozen=True)
@@ -175,7 +178,9 @@ def op_table(op: Op) -> str | None:
     match op:
         case Lookup():
             return op.table
-        case Clamp() | PairClamp() | Mul() | Scale() | Sum() | Backdrive() | Store():
+        case Backdrive():
+            return op.table
+        case Clamp() | PairClamp() | Mul() | Scale() | Sum() | Store():
             return None
         case _:
             assert_never(op)
@@ -186,7 +191,7 @@ def rounding_half(shift: int) -> int:
     return (1 << (shift - 1)) if shift > 0 else 0
 
 
-def op_range(op: Op, rng: dict[str, fx.Interval], lookup: Callable[[Lookup], fx.Interval]) -> fx.Interval:
+def op_range(op: Op, rng: dict[str, fx.Interval], lookup: Callable[[Lookup | Backdrive], fx.Interval]) -> fx.Interval:
     """The value range an op's result can take, from the ranges of its operands. `lookup` gives a
     table's range: estimated while building, exact once the tables are sized."""
     match op:
@@ -207,7 +212,8 @@ def op_range(op: Op, rng: dict[str, fx.Interval], lookup: Callable[[Lookup], fx.
             return total
         case Backdrive():
             r = rng[op.src]
-            return r.hull((r * fx.Interval(op.k, op.k)).shift_round(op.shift))
+            factor = lookup(op) if op.table is not None else fx.Interval(op.k, op.k)
+            return r.hull((r * factor).shift_round(op.shift))
         case Store():
             return rng[op.src].shift_round(op.shift)
         case _:

@@ -208,6 +208,7 @@ def report(fw: Firmware, acc: Accuracy, checks: list[Check], problems: list[str]
         },
         "clamping_a": {"max": acc.clamping.max, "rms": acc.clamping.rms},
         "input_resolution_a": acc.input_resolution,
+        "current_step_a": {name: {"amps": step.amps, "from_steps": step.at} for name, step in acc.neighbour.items()},
         "envelope_problems": problems,
         "forward_mps2": {"bound": fw.fwd_bound_mps2, "goal": fw.fwd_budget_mps2},
         "total_bytes": fw.total_bytes,

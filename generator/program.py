@@ -59,8 +59,9 @@ class _Builder:
         self.p.ops.append(op)
         self.rng[op.dst] = op_range(op, self.rng, self._estimate)
 
-    def _estimate(self, op: Lookup) -> fx.Interval:
+    def _estimate(self, op: Lookup | Backdrive) -> fx.Interval:
         """A table's range before it is sized: its largest value, one step of margin."""
+        assert op.table is not None
         spec = self.specs[op.table]
         top = math.ceil(spec.max_abs * 2.0**spec.frac_bits) + 1
         return fx.Interval(-top, top)
@@ -115,9 +116,14 @@ class _Builder:
         self._add(Sum(dst, tuple(terms)))
         return dst
 
-    def backdrive(self, dst: str, src: str, speed: str, k_real: float) -> str:
-        """k_real in fixed point: 14 fraction bits with int16 tables; with int32, 30 in an exact design,
-        else the most that keeps the product in 32 bits (directly or in two exact parts)."""
+    def backdrive(self, dst: str, src: str, speed: str, k_real: float, *, table: str | None = None) -> str:
+        """With a blend table: its value at speed, in the table's format. Else k_real in fixed point: 14
+        fraction bits with int16 tables; with int32, 30 in an exact design, else the most that keeps the
+        product in 32 bits (directly or in two exact parts)."""
+        if table is not None:
+            bits = self.specs[table].frac_bits
+            self._add(Backdrive(dst=dst, src=src, speed=speed, k=0, shift=bits, k_real=k_real, table=table))
+            return dst
         top = 14 if self.bits == 16 else 30
         if k_real > 1:
             top -= math.ceil(math.log2(k_real))
@@ -259,7 +265,11 @@ def _feedforward(v: Vehicle, specs: dict[str, tb.TableSpec], lim: Limits, *, gua
         bd.mul(f"in_other_{side}", "t_m12", f"accel_{other}", specs["m12"].frac_bits)
         bd.sum(f"total_{side}", (1, f"in_self_{side}"), (1, f"in_other_{side}"), (1, passive))
         bd.backdrive(
-            f"motor_{side}", f"total_{side}", f"speed_{side}", v.drive.efficiency * v.drive.backdrive_efficiency
+            f"motor_{side}",
+            f"total_{side}",
+            f"speed_{side}",
+            v.drive.efficiency * v.drive.backdrive_efficiency,
+            table="backdrive" if "backdrive" in specs else None,
         )
         bd.store("current", idx, f"motor_{side}", guard)
     return prog
@@ -281,6 +291,7 @@ def _forward(
             f"cur_acc_{side}",
             f"speed_{side}",
             1 / (v.drive.efficiency * v.drive.backdrive_efficiency),
+            table="backdrive_inv" if "backdrive_inv" in specs else None,
         )
         bd.sum(f"net_{side}", (1, f"effort_{side}"), (-1, passive))
     for side, other, idx in (("r", "l", 0), ("l", "r", 1)):
@@ -325,7 +336,7 @@ def design(v: Vehicle, *, exact: bool = False) -> Design:
     peak = _peak_current_steps(v, lim)
     guard = _guard_bits(peak)
     acc_amps = fw.current_lsb_a * 2.0**-guard
-    specs = specs_for(v, lim, acc_amps)
+    specs = specs_for(v, lim, acc_amps, exact=exact)
     accel_peak = (specs["minv11"].max_abs + specs["minv12"].max_abs) * (peak + lim.current) * 2.0**guard * 2
     aguard = _guard_bits(accel_peak, top=8)
     return Design(

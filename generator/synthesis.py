@@ -13,9 +13,12 @@ import numpy as np
 from . import __version__, analysis, dynamics, interface, program, sizing, stability
 from . import tables as tb
 from .errors import CheckFailed
+from .ops import op_table
 from .vehicle import Vehicle
 
-FORMAT_VERSION = 1
+FORMAT_VERSION = 2
+"""Part of every fingerprint and checked by the generated C: raised when the same model file gives a
+different model (2: the efficiency blends through zero speed), so files made before read as stale."""
 FORWARD_BUDGET_FACTOR = 2.0
 
 
@@ -134,7 +137,7 @@ def _size_both(v: Vehicle, des: program.Design) -> tuple[sizing.Sizing, sizing.S
     room for the fewest forward bytes, they are sized again under the cap less those bytes."""
     fw = v.firmware
     cap = fw.table_bytes_max if fw.sizing == "instructions" else float("inf")
-    ff_names = [n for n in des.specs if not n.startswith("minv")]
+    ff_names = [n for n in des.specs if n not in _forward_only(des)]
     ff_budget = fw.current_budget_a / fw.current_lsb_a
     ff_what = f"{fw.current_budget_a:g} A"
     ff = _size(des.feedforward, des, ff_names, ff_budget, what=ff_what, objective=sizing.Objective(fw.sizing, cap))
@@ -151,6 +154,13 @@ def _size_both(v: Vehicle, des: program.Design) -> tuple[sizing.Sizing, sizing.S
         )
         fwd = _size_forward(v, des, ff, cap - ff.total_bytes)
     return ff, fwd
+
+
+def _forward_only(des: program.Design) -> list[str]:
+    """The tables only the forward helper looks up (M^-1, the back-driving reciprocal), in spec order."""
+    used = {op_table(op) for op in des.feedforward.ops}
+    wanted = {op_table(op) for op in des.forward.ops}
+    return [n for n in des.specs if n in wanted and n not in used]
 
 
 def _size(program_: program.Program, des: program.Design, names: list[str], budget: float, **kw: Any) -> sizing.Sizing:
@@ -170,7 +180,7 @@ def _size_forward(v: Vehicle, des: program.Design, ff: sizing.Sizing, room: floa
     return _size(
         des.forward,
         des,
-        ["minv11", "minv12"],
+        _forward_only(des),
         goal / v.firmware.accel_lsb_mps2,
         fixed=ff.tables,
         fixed_errors=ff.errors,
@@ -211,7 +221,7 @@ def best_bound_a(v: Vehicle, *, exact: bool = True) -> float:
     """The smallest proven feed-forward bound any table sizes reach for this vehicle, A (every piece at
     its most accurate candidate, products exact unless told): what a budget must allow at least."""
     des = program.design(v, exact=exact)
-    names = [n for n in des.specs if not n.startswith("minv")]
+    names = [n for n in des.specs if n not in _forward_only(des)]
     pieces = sizing.pieces_to_size(des.specs, names)
     achievable, _ = sizing.limiting_table(analysis.compile_bound(des.feedforward, des.specs), pieces, {})
     return achievable * v.firmware.current_lsb_a

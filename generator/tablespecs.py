@@ -202,10 +202,15 @@ EXTRA_KEYS = {
 }
 
 
+BLEND_KEYS = ("drive.efficiency", "drive.backdrive_efficiency", "drive.blend_speed")
+
+
 def model_keys(name: str, source: str) -> tuple[str, ...]:
     """The model keys a table's values come from, for its comment."""
     if name == "shape":
         return ("friction.deadband", "friction.deadband_shape")
+    if name in BLEND_TABLES:
+        return BLEND_KEYS
     extra = EXTRA_KEYS.get(name, EXTRA_KEYS["m11"] if name in ("m12", "minv11", "minv12") else ())
     return MODEL_KEYS[source] + extra
 
@@ -235,6 +240,51 @@ def _speed_rows(v: Vehicle, lim: Limits, k: float) -> dict[str, _Row]:
     }
 
 
+BLEND_TABLES = ("backdrive", "backdrive_inv")
+"""The back-driving factor f(u) (feed-forward) and 1/f(u) (forward helper); none with a switch (w = 0)."""
+
+
+def _blend_rows(v: Vehicle, lim: Limits) -> dict[str, _Row]:
+    """dynamics.backdrive_factor over |u| in steps, and its reciprocal: one piece through the blend band
+    (continued past it along its tangent, so a segment may straddle the band's end), one constant piece
+    beyond it; no tables when the blend width is 0 (the firmware then scales by a constant)."""
+    width, lsb, k = dynamics.blend_width(v), v.firmware.speed_lsb_mps, dynamics.backdrive_ratio(v)
+    if width == 0:
+        return {}
+    end = min(fx.steps_within(width, lsb), lim.speed)
+
+    def ratio(x: np.ndarray) -> np.ndarray:  # the band's straight line, continued
+        return 1 + (k - 1) * (np.asarray(x, float) * lsb / width)
+
+    def inverse(x: np.ndarray) -> np.ndarray:  # 1/ratio, continued along its tangent past the band
+        t = np.asarray(x, float) * lsb / width
+        tangent = 1 / k + (1 - k) / k**2 * (t - 1)
+        return np.where(t <= 1, 1 / (1 + (k - 1) * np.minimum(t, 1)), tangent)
+
+    def constant(value: float) -> tb.Func:
+        return lambda x: np.full(np.shape(x), value)
+
+    rows = {}
+    for name, func, outside, meaning in (
+        ("backdrive", ratio, k, "back-driving factor f(u) = 1 + (k - 1) min(1, |u|/w), k = eta eta_back"),
+        ("backdrive_inv", inverse, 1 / k, "its reciprocal 1/f(u), for the forward helper"),
+    ):
+        pieces = [tb.Piece(x0=0, x1=end, func=func, label="in the blend band")]
+        if end < lim.speed:
+            pieces.append(
+                tb.Piece(
+                    x0=end + 1,
+                    x1=lim.speed,
+                    func=constant(outside),
+                    label="beyond the blend band",
+                )
+            )
+        rows[name] = _Row(
+            source="speed", symmetry="even", pieces=tuple(pieces), unit="1", meaning=meaning, si_scale=1.0, si_unit="1"
+        )
+    return rows
+
+
 def _inverse_rows(v: Vehicle, lim: Limits, inv: float) -> dict[str, _Row]:
     """Inverse mass matrix tables of the payload, in accel steps per (1/kg * accumulator step) * inv."""
     lsb = v.firmware.mass_lsb_kg
@@ -256,21 +306,23 @@ def _inverse_rows(v: Vehicle, lim: Limits, inv: float) -> dict[str, _Row]:
     }
 
 
-def specs_for(v: Vehicle, lim: Limits, acc_amps: float) -> dict[str, tb.TableSpec]:
-    """Every table's function, in units that make each product land on the accumulator scale."""
+def specs_for(v: Vehicle, lim: Limits, acc_amps: float, *, exact: bool = False) -> dict[str, tb.TableSpec]:
+    """Every table's function, in units that make each product land on the accumulator scale. The
+    back-driving factor tables are int16 (2^-14 near 1, a product that stays 32-bit) unless the design
+    is exact (program.design), which keeps the word's precision for budgets that need it."""
     fw, bits = v.firmware, fx.WORD_BITS[v.firmware.word]
     k = dynamics.motor_gain(v) / acc_amps  # accumulator steps per newton at the rim
     inv = acc_amps / dynamics.motor_gain(v) / fw.accel_lsb_mps2  # accel steps per (1/kg * accumulator step)
     payload = _payload_rows(v, lim, k)
     rows = {n: payload[n] for n in ("m11", "m12", "cor", "grav_pitch", "grav_roll", "roll_level", "roll_slope")}
-    rows |= _angle_rows(v, lim) | _speed_rows(v, lim, k) | _inverse_rows(v, lim, inv)
+    rows |= _angle_rows(v, lim) | _speed_rows(v, lim, k) | _inverse_rows(v, lim, inv) | _blend_rows(v, lim)
     return {
         name: tb.make_spec(
             name,
             r.source,
             r.symmetry,
             r.pieces,
-            bits=bits,
+            bits=16 if name in BLEND_TABLES and not exact else bits,
             unit=r.unit,
             meaning=r.meaning,
             si_scale=r.si_scale,

@@ -47,6 +47,7 @@ class Drive:
     winding_resistance_ohm: float
     current_limit_a: float
     supply_voltage_v: float
+    blend_speed_mps: float | None = None  # None: the default of dynamics.blend_width
 
 
 @dataclass(frozen=True)
@@ -84,6 +85,7 @@ class FirmwareFormat:
     word: str
     sizing: str  # what sizing minimises: "instructions" (then bytes) or "bytes"
     table_bytes_max: float  # cap on table bytes when minimising instructions
+    current_step_max_a: float | None = None  # None: 4 x current_budget (gate.current_step_limit)
 
 
 @dataclass(frozen=True)
@@ -106,7 +108,9 @@ class Vehicle:
         that are not set are left out, so a model without them keeps its fingerprint."""
         data = asdict(self)
         data.pop("source")
-        data["envelope"] = {k: x for k, x in data["envelope"].items() if x is not None}  # unset optional limits
+        for section, fields in data.items():  # optional keys left unset
+            if isinstance(fields, dict):
+                data[section] = {k: x for k, x in fields.items() if x is not None}
         return data
 
 

@@ -123,6 +123,7 @@ def rows(v: Vehicle, logs: list[BenchLog], *, cutoff_hz: float = CUTOFF_HZ) -> R
             split = measured_columns(v, log.current[:, side], speed[:, side], log.current[:, side])
             filtered = smooth(split, dt, cutoff_hz)
             doubtful = _doubtful(log.current[:, side], speed[:, side], n // 2) | kinked(v, speed[:, side], n // 2)
+            doubtful |= blended(v, log.current[:, side], speed[:, side], n // 2)
             for bucket, item in zip(
                 parts, (filtered[keep], speed[keep, side], np.full(len(idx), k), idx, (~doubtful[keep]).astype(float))
             ):
@@ -152,6 +153,14 @@ def kinked(v: Vehicle, speed: np.ndarray, half: int) -> np.ndarray:
     lo, hi = _roll(speed, 2 * half + 1, "min"), _roll(speed, 2 * half + 1, "max")
     edge = v.friction.deadband_mps
     return (lo < edge) & (hi > -edge)
+
+
+def blended(v: Vehicle, current: np.ndarray, speed: np.ndarray, half: int) -> np.ndarray:
+    """Rows whose filter window holds a back-driven row inside the blend band (|speed| below
+    dynamics.blend_width): there the efficiency is between its two values, which the fit's split of
+    the measured force into a motoring and a back-driving column does not describe."""
+    inside = dynamics.opposed(current, speed) & (np.abs(speed) < dynamics.blend_width(v))
+    return _roll(inside.astype(float), 2 * half + 1, "max") > 0
 
 
 def model_force(v: Vehicle, data: Rows) -> np.ndarray:

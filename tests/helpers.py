@@ -122,6 +122,9 @@ def random_firmware_strategy(name: str = "veh"):
         doc["name"] = name
         doc["firmware"]["current_budget"] = f"{pick(15, 80)} mA"
         doc["firmware"]["word"] = draw(st.sampled_from(["int16", "int32"]))
+        blend = draw(st.sampled_from(["default", "switch", "drawn"]))  # the efficiency through zero speed
+        if blend != "default":
+            doc["drive"]["blend_speed"] = "0 m/s" if blend == "switch" else f"{pick(0.001, 0.2)} m/s"
         try:
             v = vehicle_from(doc)
             stability.check(v)

@@ -98,9 +98,16 @@ def test_forward_dynamics_inverts_inverse_dynamics(data):
 
 def test_tiny_speed_does_not_flip_motoring_and_backdriving():
     """Regression: a speed of 5e-324 m/s against a force of -1e-300 N made the product underflow to
-    -0.0, which counted as motoring; the choice is made by the signs (wheel drives the motor here)."""
-    v = vehicle_from(demo_doc())
+    -0.0, which counted as motoring; the choice is made by the signs (wheel drives the motor here). With
+    a switch (drive.blend_speed = 0) the back-driving factor applies at once; with a blend band the
+    torque there is the motoring one (the band starts at it)."""
+    doc = demo_doc()
+    doc["drive"]["blend_speed"] = "0 m/s"
+    v = vehicle_from(doc)
     force, speed = -1e-300, 5e-324
+    blended = vehicle_from(demo_doc())
+    motoring = force * blended.wheels.diameter_m / 2 / (blended.drive.gear_ratio * blended.drive.efficiency)
+    assert float(dynamics.motor_torque(blended, force, speed)) == pytest.approx(motoring, rel=1e-12)
     r, i = v.wheels.diameter_m / 2, v.drive.gear_ratio
     assert float(dynamics.motor_torque(v, force, speed)) == force * r * v.drive.backdrive_efficiency / i
     current = dynamics.motor_current(v, force, speed)

@@ -93,13 +93,14 @@ def float_log(truth, plan, rig: str, *, noise: float, seed: int) -> benchdata.Be
     )
 
 
-def assert_close(v, result, x_true, rel: float) -> None:
+def assert_close(v, result, x_true, rel: float, *, within_se: float = 0.0) -> None:
     """Every coordinate within `rel` of the truth, or of its typical size where the truth is smaller
-    (a rolling-resistance coefficient of 0.0004 cannot be told to 3 % of itself by any bench)."""
+    (a rolling-resistance coefficient of 0.0004 cannot be told to 3 % of itself by any bench); with
+    `within_se`, also accepted within that many of its own standard errors (what the noise allows)."""
     size = np.maximum(np.abs(x_true), fp.scales(v, np.zeros(len(x_true))))
     for name in fp.NAMES:
-        j = fp.INDEX[name]
-        assert abs(result.estimates[name].estimate - x_true[j]) <= rel * size[j], name
+        j, est = fp.INDEX[name], result.estimates[name]
+        assert abs(est.estimate - x_true[j]) <= max(rel * size[j], within_se * est.se), name
 
 
 def test_force_model_equals_the_dynamics_at_random_coordinates():
@@ -209,7 +210,10 @@ def test_one_level_log_holds_coulomb_with_the_rolling_resistances_and_names_the_
 
 def test_a_float_model_campaign_recovers_every_coordinate():
     """Logs that are the float model of the truth (no loop, no encoder) at three payload/rig settings and
-    a ramp: every fit coordinate within 1 % (the algebra, without the bench's measurement effects)."""
+    a ramp: every fit coordinate within 1 %, or within 3 of its standard errors where the logs' noise
+    (0.2 % of the current limit) cannot tell it that closely (the algebra, without the bench's
+    measurement effects). Rows where a back-driven wheel is inside the blend band are left out of the
+    fit (regressor.blended), which costs a little of the low-speed friction information."""
     v, rng = random_vehicle(6)
     truth, x_true = changed(v, rng)
     logs = []
@@ -221,7 +225,9 @@ def test_a_float_model_campaign_recovers_every_coordinate():
         logs.append(float_log(truth, plan, c.rig, noise=0.002 * v.drive.current_limit_a, seed=k))
     result = identify.fit(v, logs)
     assert not result.held, result.held
-    assert_close(v, result, x_true, 0.01)
+    assert_close(v, result, x_true, 0.01, within_se=3.0)
+    se = {n: result.estimates[n].se / fp.scales(v, x_true)[fp.INDEX[n]] for n in ("body.mass", "drive.efficiency")}
+    assert all(x < 0.005 for x in se.values()), se  # the well-determined ones are told to 0.5 % or better
 
 
 @pytest.mark.slow  # three 15 s logs fitted (3-9 s)
