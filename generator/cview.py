@@ -470,7 +470,7 @@ def context(fw: Firmware) -> dict[str, Any]:
         "limits": _limit_lines(fw),
         "lsbs": _lsb_lines(fw),
         "ff_bound": f"{num(fw.ff_bound_a)} A (budget {num(f.current_budget_a)} A)",
-        "fwd_bound": f"{num(fw.fwd_bound_mps2)} m/s^2 (goal {num(fw.fwd_budget_mps2)} m/s^2)",
+        "fwd_bound": f"{num(fw.fwd_bound_mps2)} m/s^2 (budget {num(fw.fwd_budget_mps2)} m/s^2)",
         "total_bytes": fw.total_bytes,
         "acc_step": f"{num(fw.design.amps_per_acc)} A (current step / 2^{fw.design.guard_bits})",
         "conversions": conversions(fw),

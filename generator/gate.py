@@ -30,9 +30,12 @@ def envelope_check(v: Vehicle, *, allow: bool) -> tuple[Check, list[str]]:
 
 def budget_check(fw: Firmware) -> Check:
     f = fw.vehicle.firmware
-    ok = fw.ff_bound_a <= f.current_budget_a
+    ok = fw.ff_bound_a <= f.current_budget_a and fw.fwd_bound_mps2 <= fw.fwd_budget_mps2
     return Check(
-        "error budget", ok, f"proven bound {fw.ff_bound_a * 1000:.3f} mA, budget {f.current_budget_a * 1000:.3f} mA"
+        "error budget",
+        ok,
+        f"proven bound {fw.ff_bound_a * 1000:.3f} mA, budget {f.current_budget_a * 1000:.3f} mA; forward helper "
+        f"{fw.fwd_bound_mps2:.4g} m/s^2, budget {fw.fwd_budget_mps2:.4g} m/s^2",
     )
 
 

@@ -244,6 +244,14 @@ SCHEMA: dict[str, dict[str, Key]] = {
             default="instructions",
             choices=("instructions", "bytes"),
         ),
+        "accel_budget": K(
+            L.ACCEL,
+            "accel_budget_mps2",
+            U(0, 50, "m/s^2"),
+            "largest allowed |firmware - float model| acceleration of the forward helper (default: what "
+            "2 x current_budget of back-driven current gives at the lightest load)",
+            optional=True,
+        ),
         "current_step_max": K(
             L.CURRENT,
             "current_step_max_a",

@@ -68,8 +68,11 @@ def fingerprint(v: Vehicle) -> int:
 
 
 def forward_budget(v: Vehicle) -> float:
-    """Forward-dynamics accuracy goal, m/s^2: the acceleration of FORWARD_BUDGET_FACTOR x current_budget
-    on both wheels (so the prediction is as good as the feed-forward it is compared against)."""
+    """Forward-dynamics accuracy budget, m/s^2: firmware.accel_budget, else the acceleration of
+    FORWARD_BUDGET_FACTOR x current_budget on both wheels (so the prediction is as good as the
+    feed-forward it is compared against)."""
+    if v.firmware.accel_budget_mps2 is not None:
+        return v.firmware.accel_budget_mps2
     pay = np.linspace(0, v.payload.mass_max_kg, 257)
     d, o = dynamics.inverse_mass_matrix_entries(v, pay)
     force = v.firmware.current_budget_a / dynamics.motor_gain(v) / (v.drive.efficiency * v.drive.backdrive_efficiency)
@@ -102,7 +105,9 @@ def _synthesise(v: Vehicle, des: program.Design, *, explain: bool = True) -> Fir
         ff, fwd = _size_both(v, des)
     except _Missed as miss:
         if miss.forward:
-            raise CheckFailed(f"{where}: {miss.exc} of {fw.accel_lsb_mps2:g} m/s^2 (accel_lsb)") from None
+            raise CheckFailed(
+                f"{v.source}: firmware.accel_budget: {miss.exc} of {fw.accel_lsb_mps2:g} m/s^2 (accel_lsb)"
+            ) from None
         raise CheckFailed(
             f"{where}: {miss.exc} of {fw.current_lsb_a:g} A (current_lsb)" + (f"; {levers(v)}" if explain else "")
         ) from None

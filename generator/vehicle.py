@@ -85,7 +85,8 @@ class FirmwareFormat:
     word: str
     sizing: str  # what sizing minimises: "instructions" (then bytes) or "bytes"
     table_bytes_max: float  # cap on table bytes when minimising instructions
-    current_step_max_a: float | None = None  # None: 4 x current_budget (gate.current_step_limit)
+    current_step_max_a: float | None = None  # None: 4 x current_budget (accuracy.step_limit_a)
+    accel_budget_mps2: float | None = None  # None: synthesis.forward_budget's default
 
 
 @dataclass(frozen=True)

@@ -8,7 +8,7 @@ import xml.etree.ElementTree as ET
 import pytest
 from kinetab.generator import cli, synthesis
 
-from tests.helpers import DEMO_PATH, demo_doc, vehicle_from, write_model
+from tests.helpers import DEMO_PATH, demo_doc, invented, vehicle_from, write_model
 
 
 def run(args, capsys):
@@ -337,3 +337,22 @@ def test_verify_names_the_firmware_command_for_a_stale_firmware_project(tmp_path
     command = f"run: kinetab bench firmware {path} --board mps2-an385 -o {out} --period '20000 us' --fifo-depth 16"
     written = [f for f in out.iterdir() if f.suffix in (".c", ".h") and not f.stem.endswith("_ff")]
     assert code == 1 and len(stale) == len(written) == 9 and all(command in line for line in stale), err
+
+
+def test_accel_budget_is_met_by_sizing_and_an_impossible_one_names_its_key(tmp_path, capsys):
+    """firmware.accel_budget sets the forward helper's budget: a tighter one than the default is met (the
+    proven bound below it, more forward table bytes); one below what any table size reaches is exit 1
+    naming the key (an invented vehicle)."""
+    doc, fw = invented(41, "fwdveh")
+    default = fw.fwd_budget_mps2
+    doc["firmware"]["accel_budget"] = f"{default / 3} m/s^2"
+    tight = synthesis.synthesise(vehicle_from(doc))
+    assert tight.fwd_budget_mps2 == pytest.approx(default / 3) and tight.fwd_bound_mps2 <= default / 3
+    assert sum(tight.tables[n].bytes for n in ("minv11", "minv12")) >= sum(
+        fw.tables[n].bytes for n in ("minv11", "minv12")
+    )
+    doc["firmware"]["accel_budget"] = "0.0001 mm/s^2"
+    code, _, err = run(
+        ["build", str(write_model(tmp_path, doc)), "-o", str(tmp_path / "g"), "--allow-infeasible-envelope"], capsys
+    )
+    assert code == 1 and "firmware.accel_budget" in err and not (tmp_path / "g").exists()

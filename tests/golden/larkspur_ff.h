@@ -35,7 +35,7 @@ extern "C" {
 #define LARKSPUR_CURRENT_MAX 14000 /* 14 A */
 
 /* Proven worst-case error of larkspur_feedforward against the floating-point model: 0.0196701 A (budget 0.02 A).
- * Proven worst-case error of larkspur_forward: 0.025604 m/s^2 (goal 0.0330371 m/s^2).
+ * Proven worst-case error of larkspur_forward: 0.025604 m/s^2 (budget 0.0330371 m/s^2).
  * Table storage: 1306 bytes. */
 
 /* Largest change of the feed-forward current when one input moves to its neighbouring step (the others
