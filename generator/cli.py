@@ -12,7 +12,7 @@ from typing import Any
 import click
 import numpy as np
 
-from . import __version__, dynamics, emulate, envelope, interface, model
+from . import __version__, dynamics, emulate, envelope, interface, model, units
 from .cli_support import LazyGroup, ProgressLine, QuantityType, out_folder, run
 from .errors import CheckFailed, UserError
 from .vehicle import Vehicle
@@ -101,18 +101,45 @@ def predict_point(v: Vehicle, op: dynamics.OperatingPoint) -> dict[str, Any]:
 @cli.command(short_help="Forces, torque, current and voltage at one operating point.")
 @click.argument("model_path", metavar="MODEL", type=click.Path(dir_okay=False))
 @point_options(interface.FF_IN)
+@click.option(
+    "--point",
+    "ahead",
+    type=QuantityType(units.LENGTH, "m"),
+    help="Also the look-ahead point this far ahead of P (negative: behind): its Jacobian and mass matrix "
+    "(default: firmware.point_ahead of the model, if set; bare number: m).",
+)
 @click.option("--json", "as_json", is_flag=True, help="Print JSON (SI units) instead of a table.")
-def predict(model_path: str, as_json: bool, **point: float) -> None:
+def predict(model_path: str, as_json: bool, ahead: float | None, **point: float) -> None:
     """Evaluate the model at one operating point: forces, torque, current and voltage per wheel."""
     v = model.load(model_path)
     si = interface.FF_IN.si_names()
     op = dynamics.OperatingPoint(**{si[column]: value for column, value in point.items()})
     doc = predict_point(v, op)
+    ahead = v.firmware.point_ahead_m if ahead is None else ahead
+    if ahead is not None:
+        doc["point"] = _point_doc(v, op, ahead)
     _fill_fixed(v, op, doc)
     if as_json:
         click.echo(json.dumps(doc, indent=2))
         return
     click.echo(_predict_table(doc))
+
+
+def _point_doc(v: Vehicle, op: dynamics.OperatingPoint, ahead: float) -> dict[str, Any]:
+    """The look-ahead point at the operating point: J, Lambda = J^-T M J^-1, its velocity and the rates
+    of its velocity components in body axes (SI)."""
+    if ahead == 0 or abs(ahead) > 5:
+        raise UserError(f"kinetab predict: --point: expected a distance other than 0, within 5 m, found {ahead:g} m")
+    jac = dynamics.point_jacobian(v, ahead)
+    speeds = np.array([op.speed_right, op.speed_left], dtype=float)
+    accels = np.array([op.accel_right, op.accel_left], dtype=float)
+    return {
+        "ahead_m": ahead,
+        "jacobian": jac.tolist(),
+        "mass_matrix_kg": dynamics.point_mass_matrix(v, op.payload_kg, ahead).tolist(),
+        "velocity_mps": (jac @ speeds).tolist(),
+        "velocity_rates_mps2": (jac @ accels).tolist(),
+    }
 
 
 def _fill_fixed(v: Vehicle, op: dynamics.OperatingPoint, doc: dict[str, Any]) -> None:
@@ -150,6 +177,16 @@ def _predict_table(doc: dict[str, Any]) -> str:
     m, mi = doc["mass_matrix"], doc["inverse_mass_matrix"]
     lines.append(f"{'M [kg]':22}[[{m[0][0]:.4f}, {m[0][1]:.4f}], [{m[1][0]:.4f}, {m[1][1]:.4f}]]")
     lines.append(f"{'M^-1 [1/kg]':22}[[{mi[0][0]:.6f}, {mi[0][1]:.6f}], [{mi[1][0]:.6f}, {mi[1][1]:.6f}]]")
+    if "point" in doc:
+        p = doc["point"]
+        j, lam = p["jacobian"], p["mass_matrix_kg"]
+        lines += [
+            f"look-ahead point {p['ahead_m']:g} m ahead of P; rows: forward, lateral (left > 0) in body axes",
+            f"{'J [1]':22}[[{j[0][0]:.6f}, {j[0][1]:.6f}], [{j[1][0]:.6f}, {j[1][1]:.6f}]]  (per wheel rim speed)",
+            f"{'Lambda [kg]':22}[[{lam[0][0]:.4f}, {lam[0][1]:.4f}], [{lam[1][0]:.4f}, {lam[1][1]:.4f}]]",
+            f"{'velocity [m/s]':22}{p['velocity_mps'][0]:12.4f}{p['velocity_mps'][1]:12.4f}",
+            f"{'rates [m/s^2]':22}{p['velocity_rates_mps2'][0]:12.4f}{p['velocity_rates_mps2'][1]:12.4f}",
+        ]
     return "\n".join(lines)
 
 

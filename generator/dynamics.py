@@ -386,3 +386,29 @@ def rig_forward_accel(
     ar = (np.asarray(force_right, float) - drivetrain_friction(v, op.speed_right)) / m_rot
     al = (np.asarray(force_left, float) - drivetrain_friction(v, op.speed_left)) / m_rot
     return ar, al
+
+
+def point_jacobian(v: Vehicle, ahead_m: float) -> Array:
+    """J (2, 2): the velocity of the look-ahead point, `ahead_m` ahead of P on the body's x axis, in body
+    axes (forward, lateral to the left), from the rim speeds (right, left): [[1/2, 1/2], [d/(2b), -d/(2b)]]
+    (v = (u_R + u_L)/2, and the point moves sideways at d w with w = (u_R - u_L)/(2b)). Dimensionless."""
+    if ahead_m == 0:
+        raise ValueError("the look-ahead point must lie ahead of or behind P: at P, J is singular")
+    k = ahead_m / (2 * half_track(v))
+    return np.array([[0.5, 0.5], [k, -k]])
+
+
+def point_mass_matrix(v: Vehicle, payload_kg: ArrayLike, ahead_m: float) -> Array:
+    """Lambda (..., 2, 2) = J^-T M J^-1, kg: the mass matrix seen at the look-ahead point (the
+    operational-space form), so that point force = Lambda x point acceleration + the rest."""
+    j_inv = np.linalg.inv(point_jacobian(v, ahead_m))
+    return np.asarray(j_inv.T @ mass_matrix(v, payload_kg) @ j_inv)
+
+
+def point_accel(v: Vehicle, op: OperatingPoint, force_right: ArrayLike, force_left: ArrayLike, ahead_m: float) -> Array:
+    """The rates of change of the look-ahead point's velocity in body axes (v', d w'), m/s^2, from the rim
+    forces: J times forward_accel (J is constant in body axes). Not the point's inertial acceleration,
+    which adds the turning of the axes (-d w^2 forward, v w sideways): a path follower in body axes
+    commands these rates."""
+    ar, al = forward_accel(v, op, force_right, force_left)
+    return np.stack([ar, al], -1) @ point_jacobian(v, ahead_m).T

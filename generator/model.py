@@ -244,6 +244,14 @@ SCHEMA: dict[str, dict[str, Key]] = {
             default="instructions",
             choices=("instructions", "bytes"),
         ),
+        "point_ahead": K(
+            L.LENGTH,
+            "point_ahead_m",
+            _nonzero(5),
+            "look-ahead point on the body's x axis, ahead of P (negative = behind): predict prints its "
+            "Jacobian and mass matrix, and the forward helper gets a form for it (default: none)",
+            optional=True,
+        ),
         "accel_budget": K(
             L.ACCEL,
             "accel_budget_mps2",

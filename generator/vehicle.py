@@ -87,6 +87,7 @@ class FirmwareFormat:
     table_bytes_max: float  # cap on table bytes when minimising instructions
     current_step_max_a: float | None = None  # None: 4 x current_budget (accuracy.step_limit_a)
     accel_budget_mps2: float | None = None  # None: synthesis.forward_budget's default
+    point_ahead_m: float | None = None  # the look-ahead point (dynamics.point_jacobian); None: none
 
 
 @dataclass(frozen=True)

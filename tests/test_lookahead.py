@@ -1,0 +1,85 @@
+"""The look-ahead point: its Jacobian and its mass matrix Lambda = J^-T M J^-1, checked against an
+independent derivation from the kinetic energy (sympy) and against the operational-space formula
+Lambda = (J M^-1 J^T)^-1 (Khatib 1987, "A unified approach for motion and force control of robot
+manipulators: the operational space formulation", IEEE J. Robotics and Automation 3(1)); predict's
+output. Invented vehicles throughout."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+import sympy as sp
+from kinetab.generator import cli, dynamics
+
+from tests.helpers import invented, write_model
+
+
+def _kinetic_energy_lambda(v, payload: float, ahead: float) -> np.ndarray:
+    """Lambda as the Hessian of the kinetic energy in the point's velocity components (p_f, p_l), built
+    here from scratch: the combined body (mass m, CoG c ahead of P, yaw inertia about its CoG) moving
+    at v = p_f and turning at w = p_l/d, plus each wheel's and rotor's spin, (J_w + J_m i^2)(u/r)^2/2 with
+    u = v +- b w. (Body and payload combined by the textbook mass-weighted CoG and parallel-axis rule.)"""
+    pf, pl = sp.symbols("p_f p_l", real=True)
+    b, r = v.wheels.track_m / 2, v.wheels.diameter_m / 2
+    mb, mp = v.body.mass_kg, payload
+    m = mb + mp
+    c = (mb * v.body.cog_ahead_m + mp * v.payload.cog_ahead_m) / m
+    i_p = mb * (v.body.gyration_radius_m**2 + v.body.cog_ahead_m**2) + mp * (
+        v.payload.gyration_radius_m**2 + v.payload.cog_ahead_m**2
+    )
+    i_c = i_p - m * c**2
+    fwd, yaw = pf, pl / ahead
+    spin = v.wheels.inertia_kgm2 + v.drive.rotor_inertia_kgm2 * v.drive.gear_ratio**2
+    energy = (
+        sp.Rational(1, 2) * m * (fwd**2 + (c * yaw) ** 2)
+        + sp.Rational(1, 2) * i_c * yaw**2
+        + sp.Rational(1, 2) * spin * (((fwd + b * yaw) / r) ** 2 + ((fwd - b * yaw) / r) ** 2)
+    )
+    return np.array(sp.hessian(energy, (pf, pl)).evalf(30), dtype=float)
+
+
+@pytest.mark.parametrize("seed", [3, 4])
+def test_point_mass_matrix_matches_kinetic_energy_and_the_operational_space_formula(seed):
+    _, fw = invented(seed, "veh")
+    v = fw.vehicle
+    rng = np.random.default_rng(seed)
+    for _ in range(4):
+        ahead = float(rng.choice([-1, 1]) * rng.uniform(0.05, 1.5))
+        payload = float(rng.uniform(0, v.payload.mass_max_kg))
+        lam = dynamics.point_mass_matrix(v, payload, ahead)
+        assert lam == pytest.approx(_kinetic_energy_lambda(v, payload, ahead), rel=1e-9)
+        jac, minv = dynamics.point_jacobian(v, ahead), dynamics.inverse_mass_matrix(v, payload)
+        khatib = np.linalg.inv(jac @ minv @ jac.T)
+        assert lam == pytest.approx(khatib, rel=1e-9)
+
+
+def test_point_velocity_is_the_rigid_body_velocity_of_that_point():
+    """J u = (v, d w): the forward speed of P and the sideways speed of a point d ahead on a body turning
+    at w (rigid-body kinematics, v_point = v_P + w x r)."""
+    _, fw = invented(5, "veh")
+    v, b = fw.vehicle, fw.vehicle.wheels.track_m / 2
+    ur, ul, ahead = 0.7, 0.2, 0.4
+    fwd, yaw = (ur + ul) / 2, (ur - ul) / (2 * b)
+    assert dynamics.point_jacobian(v, ahead) @ [ur, ul] == pytest.approx([fwd, ahead * yaw], rel=1e-12)
+    with pytest.raises(ValueError, match="singular"):
+        dynamics.point_jacobian(v, 0.0)
+
+
+def test_predict_prints_the_point_with_units_and_refuses_a_point_on_the_axle(tmp_path, capsys):
+    doc, fw = invented(6, "veh")
+    doc["firmware"]["point_ahead"] = "250 mm"
+    path = write_model(tmp_path, doc)
+    args = ["predict", str(path), "--speed-right", "0.4 m/s", "--speed-left", "0.1 m/s", "--accel-right", "0.3"]
+    cli.main([*args, "--json"])
+    point = json.loads(capsys.readouterr().out)["point"]
+    assert point["ahead_m"] == pytest.approx(0.25)
+    lam = dynamics.point_mass_matrix(fw.vehicle, 0.0, 0.25)
+    assert np.array(point["mass_matrix_kg"]) == pytest.approx(lam, rel=1e-12)
+    cli.main([*args, "--point", "-40 cm"])
+    text = capsys.readouterr().out
+    assert "look-ahead point -0.4 m ahead of P" in text and "Lambda [kg]" in text and "J [1]" in text
+    with pytest.raises(SystemExit) as exc:
+        cli.main([*args, "--point", "0 mm"])
+    assert exc.value.code == 2 and "--point" in capsys.readouterr().err
