@@ -8,7 +8,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Any, assert_never
 
-from . import __version__, analysis, interface, model
+from . import __version__, analysis, interface, model, pointform
 from . import fixedpoint as fx
 from . import tables as tb
 from .analysis import Proof
@@ -475,4 +475,5 @@ def context(fw: Firmware) -> dict[str, Any]:
         "acc_step": f"{num(fw.design.amps_per_acc)} A (current step / 2^{fw.design.guard_bits})",
         "conversions": conversions(fw),
         "neighbour_steps": neighbour_lines(fw),
+        "point": pointform.c_view(pointform.point_form(fw)),
     }

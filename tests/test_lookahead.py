@@ -11,9 +11,10 @@ import json
 import numpy as np
 import pytest
 import sympy as sp
-from kinetab.generator import cli, dynamics
+from kinetab.generator import cli, dynamics, emulate, hostc, interface, pointform, render, synthesis
 
-from tests.helpers import invented, write_model
+from tests.csteps import needs_gcc, run_harness, write_files
+from tests.helpers import invented, vehicle_from, write_model
 
 
 def _kinetic_energy_lambda(v, payload: float, ahead: float) -> np.ndarray:
@@ -83,3 +84,72 @@ def test_predict_prints_the_point_with_units_and_refuses_a_point_on_the_axle(tmp
     with pytest.raises(SystemExit) as exc:
         cli.main([*args, "--point", "0 mm"])
     assert exc.value.code == 2 and "--point" in capsys.readouterr().err
+
+
+def _driver(prefix: str) -> str:
+    """A C driver: rows of forward-helper inputs on stdin -> <prefix>_forward_point's outputs and bits."""
+    ins = interface.FWD_IN.lvalues()
+    reads = " ".join(["%ld"] * len(ins))
+    refs = ", ".join(f"&v[{k}]" for k in range(len(ins)))
+    sets = "\n".join(f"        in.{lv} = (int32_t)v[{k}];" for k, lv in enumerate(ins))
+    return f"""#include <stdio.h>
+#include "{prefix}_ff.h"
+int main(void)
+{{
+    long v[{len(ins)}];
+    {prefix}_fwd_in_t in;
+    {prefix}_fwd_out_t out;
+    while (scanf("{reads}", {refs}) == {len(ins)}) {{
+{sets}
+        {prefix}_forward_point(&in, &out);
+        printf("%ld %ld %lu\\n", (long)out.accel[0], (long)out.accel[1], (unsigned long)out.clamped);
+    }}
+    return 0;
+}}
+"""
+
+
+@needs_gcc
+@pytest.mark.parametrize("seed, ahead", [(7, "350 mm"), (8, "-0.8 m")])
+def test_point_forward_helper_in_c_equals_its_emulation_and_stays_within_its_bound(seed, ahead, tmp_path):
+    """<name>_forward_point compiled with the strict flags equals the emulation (the forward program, then
+    pointform.emulate) on random inputs, clamped ones included, and inside the envelope it is within its
+    proven bound of the float model's point rates, J times dynamics.forward_accel."""
+    doc, _ = invented(seed, "veh")
+    doc["firmware"]["point_ahead"] = ahead
+    fw = synthesis.synthesise(vehicle_from(doc))
+    form = pointform.point_form(fw)
+    assert form is not None
+    write_files(tmp_path, render.render(fw))
+    (tmp_path / "driver.c").write_text(_driver("veh"))
+    exe = hostc.compile_c([tmp_path / "driver.c", tmp_path / "veh_ff.c"], tmp_path / "drv", include=[tmp_path])
+    rng = np.random.default_rng(seed)
+    lo, hi = interface.column_edges(fw.design.limits, interface.FWD_IN)
+    rows = np.stack([rng.integers(a - a // 8 - 1, b + b // 8 + 2, 3000) for a, b in zip(lo, hi)], -1)
+    got = run_harness(exe, rows)
+    inp = interface.rows_to_fields(interface.FWD_IN, rows)
+    wheels = emulate.run(fw.design.forward, fw.tables, inp)
+    assert np.array_equal(got[:, :2], pointform.emulate(form, wheels["accel"]))
+    assert np.array_equal(got[:, 2], wheels["clamped"])
+    inside = np.all((rows >= lo) & (rows <= hi), axis=1)
+    v, lsb = fw.vehicle, fw.vehicle.firmware
+    si = interface.to_si(v, interface.FWD_IN, interface.rows_to_fields(interface.FWD_IN, rows[inside]))
+    op = dynamics.OperatingPoint(
+        speed_right=si["speed_right"],
+        speed_left=si["speed_left"],
+        accel_right=0.0,
+        accel_left=0.0,
+        pitch_rad=si["pitch_rad"],
+        roll_rad=si["roll_rad"],
+        payload_kg=si["payload_kg"],
+    )
+    currents = interface.rows_to_fields(interface.FWD_IN, rows[inside])["current"] * lsb.current_lsb_a
+    forces = [
+        dynamics.force_from_current(v, currents[:, k], si[f"speed_{side}"]) for k, side in enumerate(("right", "left"))
+    ]
+    ref = dynamics.point_accel(v, op, forces[0], forces[1], form.ahead_m)
+    err = np.abs(got[inside, :2] * lsb.accel_lsb_mps2 - ref)
+    assert err.max() <= form.bound_mps2
+    assert (
+        form.bound_mps2 < 10 * fw.fwd_bound_mps2 * max(1.0, abs(form.ahead_m) / v.wheels.track_m) + lsb.accel_lsb_mps2
+    )
