@@ -228,19 +228,22 @@ def _clamp_view(op: Clamp, bit_name: str, prefix: str) -> dict[str, Any]:
     }
 
 
-def _pair_view(op: PairClamp, bit_name: str) -> dict[str, Any]:
-    """A pair clamp: the turn (difference) first, then the forward part (sum), as region.clamp."""
+def _pair_view(op: PairClamp, clamp_names: list[str], prefix: str) -> dict[str, Any]:
+    """A pair clamp as region.clamp: the right wheel's op prints one block for both wheels (one test when
+    the pair is inside, the common case); the left wheel's op prints nothing more."""
+    if op.side == 1:
+        return {"kind": "pair_clamp_done", "dst": op.dst}
     return {
         "kind": "pair_clamp",
-        "dst": op.dst,
+        "dst_r": op.dst,
+        "dst_l": op.dst[:-1] + "l",
         "right": op.right,
         "left": op.left,
-        "own": op.right if op.side == 0 else op.left,
-        "sign": "+" if op.side == 0 else "-",
-        "edge2": 2 * op.edge,
         "sum_max": op.sum_max,
         "diff_max": op.diff_max,
-        "bit": bit_name,
+        "bit_r": clamp_names[op.bit],
+        "bit_l": clamp_names[op.bit + 1],  # a pair's columns are adjacent (interface.Member.columns)
+        "unlikely": f"{prefix.upper()}_UNLIKELY",
     }
 
 
@@ -250,7 +253,7 @@ def _op_view(op: Op, proof: Proof, clamp_names: list[str], prefix: str) -> dict[
         case Clamp():
             return _clamp_view(op, clamp_names[op.bit], prefix)
         case PairClamp():
-            return _pair_view(op, clamp_names[op.bit])
+            return _pair_view(op, clamp_names, prefix)
         case Lookup():
             return {"kind": "lookup", "dst": op.dst, "func": f"{prefix}_lookup_{op.table}", "src": op.src}
         case Mul():
@@ -376,7 +379,7 @@ def program_view(
             view = _op_view(ops[k], proof, [n for n, _ in prog.call.clamp_names(prefix)], prefix)
             views.append(_renamed(view, reads) if reads else view)
         k = j
-    last = max(i for i, v in enumerate(views) if v["kind"] in ("clamp", "pair_clamp"))
+    last = max(i for i, v in enumerate(views) if v["kind"] in ("clamp", "pair_clamp", "pair_clamp_done"))
     views.insert(last + 1, {"kind": flags})
     return {"name": prog.name, "ops": views}
 

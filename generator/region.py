@@ -86,17 +86,17 @@ def accel_steps(v: Vehicle) -> PairRegion:
 
 
 def clamp(right: ArrayLike, left: ArrayLike, reg: PairRegion, *, integer: bool) -> tuple[NDArray, NDArray]:
-    """The pair moved into the region. Each wheel is first clamped to the box; then the difference (the
-    turn) to +-diff_max, then the sum (the forward part) to what the turn leaves, min(sum_max, 2 edge -
-    |d|): the turn keeps priority, as a path follower needs its curvature more than its pace. In steps
-    (integer), an odd s + d moves s one step toward zero, so each wheel is a whole step. A pair inside is
-    returned unchanged."""
+    """The pair moved into the region. Each wheel is first clamped to the box; then the difference d (the
+    turn) to +-diff_max and the sum s (the forward part) to +-sum_max, each keeping its sign. Inside the
+    box |s| + |d| = 2 max(|r|, |l|) <= 2 edge, and clamping only shrinks |s| and |d|, so the result stays
+    in the box. In steps (integer), an odd s + d moves s one step toward zero, so each wheel is a whole
+    step; the turn keeps priority, as a path follower needs its curvature more than its pace. A pair
+    inside is returned unchanged."""
     dtype = np.int64 if integer else float
     r = np.clip(np.asarray(right, dtype), -reg.edge, reg.edge)
     lf = np.clip(np.asarray(left, dtype), -reg.edge, reg.edge)
     d = np.clip(r - lf, -reg.diff_max, reg.diff_max)
-    room = np.minimum(reg.sum_max, 2 * reg.edge - np.abs(d))
-    s = np.clip(r + lf, -room, room)
+    s = np.clip(r + lf, -reg.sum_max, reg.sum_max)
     if integer:
         s = s - np.sign(s) * ((s + d) & 1)
         return ((s + d) >> 1).astype(np.int64), ((s - d) >> 1).astype(np.int64)
