@@ -26,15 +26,6 @@ class Stat:
 
 
 @dataclass(frozen=True)
-class NeighbourStep:
-    """The largest change of the generated feed-forward current (A) when one input moves from `at` to
-    `at + 1` firmware steps, the others held."""
-
-    amps: float
-    at: int
-
-
-@dataclass(frozen=True)
 class Accuracy:
     """Amps throughout; `where` describes the worst point in SI units."""
 
@@ -46,7 +37,6 @@ class Accuracy:
     where: str
     clamping: Stat
     input_resolution: dict[str, float]
-    neighbour: dict[str, NeighbourStep]
 
 
 def operating_point(fw: Firmware, inp: dict[str, np.ndarray]) -> dynamics.OperatingPoint:
@@ -108,61 +98,6 @@ def _input_resolution(fw: Firmware, inp: dict[str, np.ndarray]) -> dict[str, flo
     return out
 
 
-NEIGHBOUR_POINTS = 2000
-"""Random points (besides corners and deadband cases) over which neighbour_steps looks."""
-
-
-def neighbour_steps(fw: Firmware) -> dict[str, NeighbourStep]:
-    """Per input, the largest current step of the integer program between neighbouring inputs, found over
-    the corners, the deadband cases, NEIGHBOUR_POINTS random points inside the envelope and every
-    combination of each input's edges and zero (a jump at zero speed, where the efficiency switches
-    between motoring and back-driving, shows up here). Sampled, not proven."""
-    lo, hi = interface.column_edges(fw.design.limits, FF_IN)
-    grid = np.meshgrid(*[np.unique([a, 0, b]) for a, b in zip(lo, hi)], indexing="ij")
-    edges = np.stack(grid, -1).reshape(-1, len(lo))
-    rows = np.concatenate(
-        [
-            interface.fields_to_rows(FF_IN, envelope_points(fw, NEIGHBOUR_POINTS, 11)),
-            edges[inside_envelope(fw.design.limits, edges)],
-        ]
-    )
-    inp = interface.rows_to_fields(FF_IN, rows)
-    base = emulate.run(fw.design.feedforward, fw.tables, inp)["current"]
-    out = {}
-    for m in FF_IN.members:
-        best = NeighbourStep(0.0, 0)
-        for k in range(len(m.columns)):
-            moved = {n: a.copy() for n, a in inp.items()}
-            col = moved[m.name][:, k] if m.count == 2 else moved[m.name]
-            col += 1
-            jump = np.abs(emulate.run(fw.design.feedforward, fw.tables, moved)["current"] - base).max(axis=1)
-            jump[~inside_envelope(fw.design.limits, interface.fields_to_rows(FF_IN, moved))] = 0
-            j = int(np.argmax(jump))
-            if jump[j] * fw.vehicle.firmware.current_lsb_a > best.amps:
-                best = NeighbourStep(float(jump[j]) * fw.vehicle.firmware.current_lsb_a, int(col[j]) - 1)
-        out[m.name] = best
-    return out
-
-
-def step_limit_a(fw: Firmware) -> tuple[float, str]:
-    """The largest current step between neighbouring inputs verify accepts, A, and where it comes from:
-    firmware.current_step_max, else STEP_BUDGETS x current_budget (two neighbouring outputs may each be
-    off by the budget, and the model itself may change by as much again over one step at zero speed)."""
-    f = fw.vehicle.firmware
-    if f.current_step_max_a is not None:
-        return f.current_step_max_a, "firmware.current_step_max"
-    return STEP_BUDGETS * f.current_budget_a, f"{STEP_BUDGETS} x firmware.current_budget"
-
-
-STEP_BUDGETS = 4
-
-
-def largest_step(steps: dict[str, NeighbourStep]) -> tuple[str, NeighbourStep]:
-    """The input whose neighbouring step changes the current most, and that step."""
-    name = max(steps, key=lambda n: steps[n].amps)
-    return name, steps[name]
-
-
 def measure(fw: Firmware, count: int = 100_000, seed: int = 7) -> Accuracy:
     """Measured end-to-end error and its split over the envelope, A."""
     inp = envelope_points(fw, count, seed)
@@ -181,5 +116,4 @@ def measure(fw: Firmware, count: int = 100_000, seed: int = 7) -> Accuracy:
         where=_describe_input(fw, inp, int(k), int(side)),
         clamping=_clamping(fw, seed),
         input_resolution=_input_resolution(fw, inp),
-        neighbour=neighbour_steps(fw),
     )

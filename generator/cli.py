@@ -300,7 +300,7 @@ ALLOW_HELP = "Build or pass even when the envelope exceeds the drive's current, 
 def build(model_path: str, out_dir: str, vectors_path: str | None, allow: bool) -> None:
     """Generate <name>_ff.h and <name>_ff.c into OUT, all files or none; exit 1 if the envelope is
     infeasible (unless accepted) or the budget cannot be met."""
-    from . import accuracy, gate, outputs, render, synthesis, vectors
+    from . import gate, outputs, render, steps, synthesis, vectors
 
     folder = out_folder(out_dir)
     v = model.load(model_path)
@@ -322,7 +322,7 @@ def build(model_path: str, out_dir: str, vectors_path: str | None, allow: bool) 
         f"{synthesis.sizing_note(fw)}; {synthesis.products_note(fw)}",
         err=vectors_path == "-",
     )
-    step = gate.step_check(fw, accuracy.neighbour_steps(fw))
+    step = gate.step_check(fw, steps.neighbour_steps(fw))
     click.echo(
         step.detail if step.ok else f"warning: {step.detail} (verify fails on it)",
         err=not step.ok or vectors_path == "-",
@@ -364,7 +364,7 @@ def verify(
 ) -> None:
     """Exit 0 when DIR holds exactly what build writes now, the envelope is feasible and the error
     budget holds; else 1, with one line per failed check."""
-    from . import accuracy, gate, outputs, synthesis
+    from . import accuracy, gate, outputs, steps, synthesis
 
     folder = out_folder(out_dir)
     v = model.load(model_path)
@@ -382,9 +382,9 @@ def verify(
         env,
         gate.budget_check(fw),
     ]
-    acc = accuracy.measure(fw)
-    checks.append(gate.step_check(fw, acc.neighbour))
-    doc = outputs.report(fw, acc, checks, problems)
+    neighbours = steps.neighbour_steps(fw)
+    checks.append(gate.step_check(fw, neighbours))
+    doc = outputs.report(fw, accuracy.measure(fw), checks, problems, neighbours)
     _write_reports(doc, report_path, junit_path)
     click.echo(
         f"accuracy: proven bound {fw.ff_bound_a * 1000:.3f} mA, measured max "

@@ -442,8 +442,8 @@ def conversions(fw: Firmware) -> list[dict[str, str]]:
 
 
 def neighbour_lines(fw: Firmware) -> list[str]:
-    """The header's lines on the largest current step between neighbouring inputs (accuracy.neighbour_steps)."""
-    from .accuracy import neighbour_steps
+    """The header's lines on the largest current step between neighbouring inputs (steps.neighbour_steps)."""
+    from .steps import neighbour_steps
 
     steps = neighbour_steps(fw)
     width = max(len(n) for n in steps)

@@ -6,8 +6,8 @@ import re
 from pathlib import Path
 
 from . import envelope, render, vectors
-from .accuracy import NeighbourStep, largest_step, step_limit_a
 from .outputs import Check, check_file
+from .steps import NeighbourStep, largest, margin_a
 from .synthesis import Firmware
 from .vehicle import Vehicle
 
@@ -40,22 +40,22 @@ def budget_check(fw: Firmware) -> Check:
 
 
 def step_check(fw: Firmware, steps: dict[str, NeighbourStep]) -> Check:
-    """The largest current step between neighbouring firmware inputs against its limit (a command that
-    jumps by more at zero speed on a slope jerks the drive as a cart starts or stops)."""
-    limit, why = step_limit_a(fw)
-    name, worst = largest_step(steps)
+    """How much the command's step between neighbouring firmware inputs exceeds the model's own step there
+    with the motoring efficiency (steps.py), against its margin: a switch of efficiency at zero speed, or
+    too narrow a blend band, jerks the drive as a cart starts or stops on a slope."""
+    margin, why = margin_a(fw)
+    name, worst = largest(steps, by="excess")
+    big_name, big = largest(steps)
     detail = (
-        f"largest current step between neighbouring inputs {worst.amps * 1000:.1f} mA ({name} from {worst.at} to "
-        f"{worst.at + 1} steps), limit {limit * 1000:.1f} mA ({why})"
+        f"largest current step between neighbouring inputs {big.amps * 1000:.1f} mA ({big_name} from {big.at} to "
+        f"{big.at + 1} steps); beyond the model's own step (motoring efficiency) by at most "
+        f"{worst.excess * 1000:.1f} mA ({name} from {worst.excess_at} to {worst.excess_at + 1}), margin "
+        f"{margin * 1000:.1f} mA ({why})"
     )
-    if worst.amps <= limit:
+    if worst.excess <= margin:
         return Check("current step", True, detail)
-    return Check(
-        "current step",
-        False,
-        f"{fw.vehicle.source}: {detail}; widen drive.blend_speed, make firmware.{name}_lsb finer, "
-        "or raise firmware.current_step_max",
-    )
+    fix = "widen drive.blend_speed" if name == "speed" else f"make firmware.{name}_lsb finer"
+    return Check("current step", False, f"{fw.vehicle.source}: {detail}; {fix}, or raise firmware.current_step_margin")
 
 
 def file_checks(fw: Firmware, folder: Path, vectors_path: Path | None, rebuild: str, *, model_path: str) -> list[Check]:

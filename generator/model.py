@@ -247,7 +247,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "point_ahead": K(
             L.LENGTH,
             "point_ahead_m",
-            _nonzero(5),
+            (lambda v: 0.001 <= abs(v) <= 5, "between 1 mm and 5 m either way (not at P)"),
             "look-ahead point on the body's x axis, ahead of P (negative = behind): predict prints its "
             "Jacobian and mass matrix, and the forward helper gets a form for it (default: none)",
             optional=True,
@@ -260,11 +260,13 @@ SCHEMA: dict[str, dict[str, Key]] = {
             "2 x current_budget of back-driven current gives at the lightest load)",
             optional=True,
         ),
-        "current_step_max": K(
+        "current_step_margin": K(
             L.CURRENT,
-            "current_step_max_a",
+            "current_step_margin_a",
             U(0, 10000, "A"),
-            "largest current change between neighbouring firmware inputs verify accepts (default: 4 x current_budget)",
+            "how much more the current may change between neighbouring firmware inputs than the model does there "
+            "with the motoring efficiency; verify gates it (default: 4 x current_budget, at least 1 % of "
+            "drive.current_limit)",
             optional=True,
         ),
         "table_bytes_max": K(
@@ -400,6 +402,7 @@ def _cross_checks(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any]) -
             )
     _firmware_steps(src, s, raw)
     _deadband_rules(src, s, raw)
+    _blend_rule(src, s, raw)
 
 
 def _firmware_steps(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any]) -> None:
@@ -412,7 +415,6 @@ def _firmware_steps(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any])
         ("accel_lsb", env["forward_accel_max"], "envelope.forward_accel_max"),
         ("speed_lsb", _times(env["yaw_rate_max"], half_track), "yaw_rate_max x track/2"),
         ("accel_lsb", _times(env["yaw_accel_max"], half_track), "yaw_accel_max x track/2"),
-        ("speed_lsb", s["drive"]["blend_speed"] or None, "drive.blend_speed"),
     ]
     steps = [
         ("speed_lsb", env["speed_max"], "envelope.speed_max"),
@@ -431,6 +433,19 @@ def _firmware_steps(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any])
                 f"a step that puts {what} between 1 and 2^30 steps",
                 f"{_describe_raw(raw['firmware'][key])} ({count:.3g} steps)",
             )
+
+
+def _blend_rule(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any]) -> None:
+    """drive.blend_speed is 0 (a switch) or spans at least one firmware speed step, and ends inside the
+    envelope (else the back-driving efficiency would never be reached)."""
+    blend, lsb, top = s["drive"]["blend_speed"], s["firmware"]["speed_lsb"], s["envelope"]["speed_max"]
+    if blend is not None and blend != 0 and not lsb <= blend <= top:
+        raise ModelError(
+            src,
+            "drive.blend_speed",
+            f"0 (a switch) or a speed from firmware.speed_lsb ({lsb:g} m/s) to envelope.speed_max ({top:g} m/s)",
+            _describe_raw(raw["drive"]["blend_speed"]),
+        )
 
 
 def _times(x: float | None, k: float) -> float | None:

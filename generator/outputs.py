@@ -18,6 +18,7 @@ from typing import Any
 from . import fixedpoint as fx
 from .accuracy import Accuracy
 from .errors import UserError
+from .steps import NeighbourStep
 from .synthesis import Firmware, products_note, sizing_note
 
 
@@ -189,7 +190,9 @@ def check_file(path: Path, expected: str, rebuild: str) -> Check:
     )
 
 
-def report(fw: Firmware, acc: Accuracy, checks: list[Check], problems: list[str]) -> dict[str, Any]:
+def report(
+    fw: Firmware, acc: Accuracy, checks: list[Check], problems: list[str], neighbours: Mapping[str, NeighbourStep]
+) -> dict[str, Any]:
     """The verify JSON (README lists every field): currents in A, each table's error in its own unit."""
     f = fw.vehicle.firmware
     return {
@@ -208,7 +211,10 @@ def report(fw: Firmware, acc: Accuracy, checks: list[Check], problems: list[str]
         },
         "clamping_a": {"max": acc.clamping.max, "rms": acc.clamping.rms},
         "input_resolution_a": acc.input_resolution,
-        "current_step_a": {name: {"amps": step.amps, "from_steps": step.at} for name, step in acc.neighbour.items()},
+        "current_step_a": {
+            name: {"amps": s.amps, "from_steps": s.at, "excess": s.excess, "excess_from_steps": s.excess_at}
+            for name, s in neighbours.items()
+        },
         "envelope_problems": problems,
         "forward_mps2": {"bound": fw.fwd_bound_mps2, "goal": fw.fwd_budget_mps2},
         "total_bytes": fw.total_bytes,

@@ -10,6 +10,7 @@ import numpy as np
 
 from . import dynamics
 from . import fixedpoint as fx
+from .errors import CheckFailed
 from .synthesis import Firmware
 
 SHIFT_MAX = 30
@@ -34,14 +35,33 @@ def point_form(fw: Firmware) -> PointForm | None:
         return None
     gain = float(dynamics.point_jacobian(fw.vehicle, ahead)[1, 0])
     outs = fw.fwd_proof.outputs
-    diff = outs[("accel", 0)] + (-outs[("accel", 1)])
+    total, diff = outs[("accel", 0)] + outs[("accel", 1)], outs[("accel", 0)] + (-outs[("accel", 1)])
     shift, wide = _shift(diff, gain)
     k = int(np.floor(gain * 2.0**shift + 0.5))
+    _prove(total, diff, k, shift)
     eps = fw.fwd_bound_mps2 / fw.vehicle.firmware.accel_lsb_mps2  # each wheel's proven error, steps
     forward = eps + 0.5
     lateral = abs(gain) * 2 * eps + abs(k * 2.0**-shift - gain) * diff.magnitude() + 0.5
     bound = max(forward, lateral) * fw.vehicle.firmware.accel_lsb_mps2
     return PointForm(ahead_m=ahead, k=k, shift=shift, wide=wide, bound_mps2=bound)
+
+
+def _prove(total: fx.Interval, diff: fx.Interval, k: int, shift: int) -> None:
+    """The sum and difference of the wheels' proven outputs fit int32, diff * k + half fits int64, and the
+    lateral result fits int32; CheckFailed naming the key otherwise."""
+    prod = diff * fx.Interval(k, k)
+    lateral = fx.Interval(prod.lo, prod.hi + (1 << (shift - 1))).shift_round(shift)
+    for what, rng, bits in (
+        ("the wheels' sum", total, 32),
+        ("the wheels' difference", diff, 32),
+        ("the product", fx.Interval(prod.lo, prod.hi + (1 << (shift - 1))), 64),
+        ("the lateral output", lateral, 32),
+    ):
+        if not rng.fits(bits):
+            raise CheckFailed(
+                f"firmware.point_ahead: in <name>_forward_point {what} can reach [{rng.lo}, {rng.hi}], "
+                f"beyond int{bits}: a coarser firmware.accel_lsb or a point nearer P"
+            )
 
 
 def _shift(diff: fx.Interval, gain: float) -> tuple[int, bool]:

@@ -86,21 +86,34 @@ def accel_steps(v: Vehicle) -> PairRegion:
 
 
 def clamp(right: ArrayLike, left: ArrayLike, reg: PairRegion, *, integer: bool) -> tuple[NDArray, NDArray]:
-    """The pair moved into the region. Each wheel is first clamped to the box; then the difference d (the
-    turn) to +-diff_max and the sum s (the forward part) to +-sum_max, each keeping its sign. Inside the
-    box |s| + |d| = 2 max(|r|, |l|) <= 2 edge, and clamping only shrinks |s| and |d|, so the result stays
-    in the box. In steps (integer), an odd s + d moves s one step toward zero, so each wheel is a whole
-    step; the turn keeps priority, as a path follower needs its curvature more than its pace. A pair
-    inside is returned unchanged."""
+    """The pair moved into the region. Each wheel is first clamped to the box; then, when the sum s (the
+    forward part) or the difference d (the turn) is beyond its limit, both are scaled toward zero by the
+    tighter of sum_max/|s| and diff_max/|d|: the wheels slow in proportion, so the path's curvature and
+    each wheel's direction are kept (a path follower needs its curvature more than its pace). Scaling
+    only shrinks |s| and |d|, and inside the box |s| + |d| = 2 max(|r|, |l|) <= 2 edge, so the result stays
+    in the box. In steps (integer) the scaled value is truncated toward zero, and an odd s + d moves s one
+    step toward zero, so each wheel is a whole step. A pair inside is returned unchanged."""
     dtype = np.int64 if integer else float
     r = np.clip(np.asarray(right, dtype), -reg.edge, reg.edge)
     lf = np.clip(np.asarray(left, dtype), -reg.edge, reg.edge)
-    d = np.clip(r - lf, -reg.diff_max, reg.diff_max)
-    s = np.clip(r + lf, -reg.sum_max, reg.sum_max)
+    s, d = r + lf, r - lf
+    sum_max, diff_max = (int(reg.sum_max), int(reg.diff_max)) if integer else (reg.sum_max, reg.diff_max)
+    over_sum = np.abs(s) * diff_max >= np.abs(d) * sum_max  # the sum's limit is the tighter (or as tight)
+    by_sum, by_diff = over_sum & (np.abs(s) > sum_max), ~over_sum & (np.abs(d) > diff_max)
     if integer:
-        s = s - np.sign(s) * ((s + d) & 1)
-        return ((s + d) >> 1).astype(np.int64), ((s - d) >> 1).astype(np.int64)
-    return (s + d) / 2, (s - d) / 2
+        s2 = np.where(by_sum, np.sign(s) * sum_max, np.where(by_diff, _scaled(s, diff_max, d), s))
+        d2 = np.where(by_diff, np.sign(d) * diff_max, np.where(by_sum, _scaled(d, sum_max, s), d))
+        s2 = s2 - np.sign(s2) * ((s2 + d2) & 1)
+        return ((s2 + d2) >> 1).astype(np.int64), ((s2 - d2) >> 1).astype(np.int64)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        factor = np.where(by_sum, sum_max / np.abs(s), np.where(by_diff, diff_max / np.abs(d), 1.0))
+    return (s + d) * factor / 2, (s - d) * factor / 2
+
+
+def _scaled(x: NDArray, limit: float, by: NDArray) -> NDArray:
+    """x * limit / |by| truncated toward zero (int64: |x| limit < 2^62 here); 0 where by is 0."""
+    den = np.maximum(np.abs(by), 1)
+    return np.sign(x) * (np.abs(x) * limit // den)
 
 
 def inside(right: ArrayLike, left: ArrayLike, reg: PairRegion, *, slack: float = 0.0) -> NDArray[np.bool_]:

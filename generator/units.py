@@ -35,6 +35,7 @@ YAW_RATE = Kind("an angular speed", "rad/s", "'90 deg/s'")
 YAW_ACCEL = Kind("an angular acceleration", "rad/s**2", "'180 deg/s^2'")
 
 _ANGLE_UNITS = {"radian", "degree", "arcminute", "arcsecond", "turn", "gradian", "milliradian"}
+_TURNING_UNITS = {"revolutions_per_minute", "revolutions_per_second"}  # angle over time in one unit ('30 rpm')
 
 
 @lru_cache(maxsize=1)
@@ -51,6 +52,8 @@ def _check_turning(text: str, q: Any) -> None:
     """An angular speed or acceleration names its angle ('90 deg/s', '1.5 rad/s'): pint counts radians as
     dimensionless, so '2 Hz' or '2 1/s' would otherwise pass as 2 rad/s, off by 2 pi for hertz."""
     above = {name for name, power in q.unit_items() if power > 0}
+    if above and above <= _TURNING_UNITS:
+        return  # the dimension check that follows tells a speed from an acceleration
     if not above or not above <= _ANGLE_UNITS:
         raise ValueError(f"{text!r} names no angle over time")
 

@@ -85,7 +85,7 @@ class FirmwareFormat:
     word: str
     sizing: str  # what sizing minimises: "instructions" (then bytes) or "bytes"
     table_bytes_max: float  # cap on table bytes when minimising instructions
-    current_step_max_a: float | None = None  # None: 4 x current_budget (accuracy.step_limit_a)
+    current_step_margin_a: float | None = None  # None: 4 x current_budget (steps.margin_a)
     accel_budget_mps2: float | None = None  # None: synthesis.forward_budget's default
     point_ahead_m: float | None = None  # the look-ahead point (dynamics.point_jacobian); None: none
 

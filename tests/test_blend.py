@@ -8,7 +8,7 @@ import json
 
 import numpy as np
 import pytest
-from kinetab.generator import accuracy, cli, dynamics, synthesis
+from kinetab.generator import cli, dynamics, steps, synthesis
 
 from tests.helpers import invented, vehicle_from, write_model
 
@@ -70,14 +70,16 @@ def _sloped(seed: int, **drive) -> dict:
 
 def test_neighbouring_firmware_steps_at_zero_speed_no_longer_jump(tmp_path, capsys):
     """The same invented vehicle with a switch and with the default blend: the switch's step at zero
-    speed on its ramp is amperes; with the blend it is within firmware.current_step_max's default (4 x
-    the budget), and predict one firmware step either side of zero differs by no more than that."""
+    speed on its ramp exceeds the model's own (motoring) step by amperes; with the blend the excess is
+    within firmware.current_step_margin's default, and predict one firmware step either side of zero
+    differs by no more than the model's own step there plus that margin."""
     switch = synthesis.synthesise(vehicle_from(_sloped(21, blend_speed="0 m/s")))
     doc = _sloped(21)
     blended = synthesis.synthesise(vehicle_from(doc))
-    jump, smooth = accuracy.neighbour_steps(switch)["speed"], accuracy.neighbour_steps(blended)["speed"]
-    limit, _ = accuracy.step_limit_a(blended)
-    assert jump.amps > 10 * limit and smooth.amps <= limit
+    jump, smooth = steps.neighbour_steps(switch)["speed"], steps.neighbour_steps(blended)["speed"]
+    margin, _ = steps.margin_a(blended)
+    assert jump.excess > 5 * margin and smooth.excess <= margin
+    limit = smooth.amps
     path = write_model(tmp_path, doc)
     lsb = blended.vehicle.firmware.speed_lsb_mps
     fixed = []
@@ -93,7 +95,7 @@ def test_neighbouring_firmware_steps_at_zero_speed_no_longer_jump(tmp_path, caps
 
 def test_verify_fails_on_a_step_above_the_limit_naming_the_key(tmp_path, capsys):
     """A switch on a ramp: build warns, verify exits 1 with the step, where it is, and the keys to change;
-    with firmware.current_step_max raised above the step it passes; --report holds every input's step."""
+    with firmware.current_step_margin raised above the step it passes; --report holds every input's step."""
     doc = _sloped(22, blend_speed="0 m/s")
     path, out = write_model(tmp_path, doc), tmp_path / "fw"
     free = "--allow-infeasible-envelope"  # an invented drive, not sized for this vehicle: not the point here
@@ -102,12 +104,25 @@ def test_verify_fails_on_a_step_above_the_limit_naming_the_key(tmp_path, capsys)
     code, _, err = _run(["verify", str(path), str(out), free], capsys)
     assert code == 1
     line = next(x for x in err.splitlines() if "largest current step" in x)
-    assert "speed from" in line and "drive.blend_speed" in line and "firmware.current_step_max" in line
-    doc["firmware"]["current_step_max"] = "50 A"
+    assert "speed from" in line and "drive.blend_speed" in line and "firmware.current_step_margin" in line
+    doc["firmware"]["current_step_margin"] = "50 A"
     path = write_model(tmp_path, doc, "raised.toml")
     assert _run(["build", str(path), "-o", str(out), free], capsys)[0] == 0
     rep = tmp_path / "r.json"
     code, _, _ = _run(["verify", str(path), str(out), "--report", str(rep), free], capsys)
-    steps = json.loads(rep.read_text())["current_step_a"]
-    assert code == 0 and set(steps) == {"speed", "accel", "pitch", "roll", "payload"}
-    assert steps["speed"]["amps"] > 4 * vehicle_from(doc).firmware.current_budget_a
+    found = json.loads(rep.read_text())["current_step_a"]
+    assert code == 0 and set(found) == {"speed", "accel", "pitch", "roll", "payload"}
+    assert found["speed"]["excess"] > 4 * vehicle_from(doc).firmware.current_budget_a
+
+
+def test_blend_speed_is_zero_or_between_one_speed_step_and_speed_max():
+    """One line naming drive.blend_speed, saying 0 gives a switch; rpm-style units are not speeds here."""
+    from kinetab.generator.errors import ModelError
+
+    doc, _ = invented(15, "veh")
+    for bad in ("0.0001 mm/s", "9 m/s"):
+        doc["drive"]["blend_speed"] = bad
+        with pytest.raises(ModelError) as err:
+            vehicle_from(doc)
+        text = str(err.value)
+        assert "drive.blend_speed" in text and "0 (a switch)" in text and "\n" not in text

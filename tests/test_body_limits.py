@@ -7,7 +7,6 @@ The two vehicles below (a small indoor courier and a warehouse tug) are invented
 from __future__ import annotations
 
 import itertools
-import math
 
 import numpy as np
 import pytest
@@ -132,11 +131,12 @@ def _regions() -> st.SearchStrategy[region.PairRegion]:
 
 @settings(max_examples=150, deadline=None)
 @given(reg=_regions())
-def test_pair_clamp_lands_inside_keeps_the_inside_and_gives_the_turn_priority(reg):
+def test_pair_clamp_lands_inside_keeps_the_inside_and_the_curvature(reg):
     """Exhaustively over every integer pair up to 3 steps past the box: the clamped pair is inside the
     region and a whole step per wheel; a pair inside is unchanged; clamping twice changes nothing; the
-    difference is the box-clamped difference clipped to diff_max (the turn keeps priority); the sum
-    keeps its sign and never grows (the rule of region.clamp, checked point by point)."""
+    sum and the difference keep their signs and never grow; their ratio (the path's curvature) is kept
+    to within the rounding of a step: |s' d - d' s| <= 2 (|s| + |d|) (truncation and the parity step);
+    no wheel changes direction by more than one step (the rule of region.clamp, checked point by point)."""
     span = np.arange(-int(reg.edge) - 3, int(reg.edge) + 4)
     r, lf = (a.ravel() for a in np.meshgrid(span, span))
     cr, cl = region.clamp(r, lf, reg, integer=True)
@@ -146,9 +146,11 @@ def test_pair_clamp_lands_inside_keeps_the_inside_and_gives_the_turn_priority(re
     again = region.clamp(cr, cl, reg, integer=True)
     assert np.array_equal(again[0], cr) and np.array_equal(again[1], cl)
     br, bl = np.clip(r, -reg.edge, reg.edge), np.clip(lf, -reg.edge, reg.edge)
-    assert np.array_equal(cr - cl, np.clip(br - bl, -reg.diff_max, reg.diff_max))
-    s_box, s_new = br + bl, cr + cl
-    assert np.all(np.abs(s_new) <= np.abs(s_box)) and np.all(s_new * s_box >= 0)
+    s_box, s_new, d_box, d_new = br + bl, cr + cl, br - bl, cr - cl
+    for old, new in ((s_box, s_new), (d_box, d_new)):
+        assert np.all(np.abs(new) <= np.abs(old)) and np.all(new * old >= 0)
+    assert np.all(np.abs(s_new * d_box - d_new * s_box) <= 2 * (np.abs(s_box) + np.abs(d_box)))
+    assert np.all(cr * br >= -1) and np.all(cl * bl >= -1)
 
 
 def test_region_vertices_are_the_polygon_of_the_four_limits():
@@ -312,10 +314,9 @@ def test_plans_stay_inside_the_region_and_a_plan_beyond_a_body_limit_names_it(tm
             assert region.inside(c[cols[0]], c[cols[1]], reg, slack=1e-9).all()
         assert planner.plan_problem(v, plan, "wheels-up") is None
         turn = max(abs(c["speed_right"] - c["speed_left"]) / v.wheels.track_m)
-        assert turn > 0.3 * v.envelope.yaw_rate_max_radps  # the plan does turn
+        assert turn > 0.1 * v.envelope.yaw_rate_max_radps  # the plan does turn
     k = len(c["t"]) // 2
     edge = region.speed_region(v).edge
     c["speed_right"][k], c["speed_left"][k] = edge, -edge
     problem = planner.plan_problem(v, plan, "wheels-up")
     assert problem is not None and "envelope.yaw_rate_max" in problem and f"row {k + 2}" in problem
-    assert math.isfinite(turn)

@@ -42,8 +42,8 @@ extern "C" {
  * held), found over the envelope's corners, edges and zeros, its deadband cases and random points
  * (sampled, not proven): what one step of each input costs the drive. The efficiency moves from motoring
  * to back-driving over a blend band, so there is no jump at zero speed; `kinetab verify` holds the
- * largest step to firmware.current_step_max.
- *   speed:   0.069 A (from 0 to 1 steps)
+ * step beyond the model's own (motoring efficiency) to firmware.current_step_margin.
+ *   speed:   0.081 A (from -2 to -1 steps)
  *   accel:   0.005 A (from -500 to -499 steps)
  *   pitch:   0.021 A (from -175 to -174 steps)
  *   roll:    0.006 A (from -105 to -104 steps)

@@ -1,0 +1,123 @@
+"""The current step between neighbouring firmware inputs: how much the generated feed-forward's command
+changes when one input moves by one step, against what the model itself changes there with the
+efficiency held at its motoring value (so the efficiency's own change, a jump with a switch or a slope
+across the blend band, counts against the margin). Sampled, not proven; verify gates it."""
+
+from __future__ import annotations
+
+import dataclasses
+from dataclasses import dataclass
+
+import numpy as np
+
+from . import dynamics, emulate, interface
+from .accuracy import envelope_points, inside_envelope, operating_point
+from .interface import FF_IN
+from .synthesis import Firmware
+
+NEIGHBOUR_POINTS = 2000
+"""Random points (besides corners and deadband cases) over which neighbour_steps looks."""
+STEP_BUDGETS = 4
+"""Default margin, in current budgets: two neighbouring outputs may each be off the model by the
+budget, which leaves two budgets for the blend band's own slope."""
+STEP_FLOOR = 0.01
+"""...but never below this fraction of drive.current_limit: a step that small is lost in a PWM drive's
+current ripple (a judgement from memory of typical drives, not a standard), and a tight table budget
+should not force an absurdly wide blend band."""
+
+
+@dataclass(frozen=True)
+class NeighbourStep:
+    """The largest change of the generated feed-forward current (A) when one input moves from `at` to
+    `at + 1` firmware steps, the others held; and the largest amount by which such a change exceeds the
+    model's own change there with the motoring efficiency (`excess`, A, at `excess_at`)."""
+
+    amps: float
+    at: int
+    excess: float = 0.0
+    excess_at: int = 0
+
+
+def _motoring(fw: Firmware) -> dynamics.Vehicle:
+    """The vehicle with the efficiency held at its motoring value (back-driving factor 1 everywhere)."""
+    v = fw.vehicle
+    return dataclasses.replace(v, drive=dataclasses.replace(v.drive, backdrive_efficiency=1 / v.drive.efficiency))
+
+
+def _jumps(fw: Firmware, rows: np.ndarray, column: int) -> tuple[np.ndarray, np.ndarray]:
+    """Per row and wheel, the firmware's current change (A) when `column` moves up one step, and that change
+    less the model's own (motoring efficiency); zero where the moved row leaves the envelope."""
+    moved = rows.copy()
+    moved[:, column] += 1
+    lsb = fw.vehicle.firmware.current_lsb_a
+    run = lambda r: emulate.run(fw.design.feedforward, fw.tables, interface.rows_to_fields(FF_IN, r))  # noqa: E731
+    fw_jump = np.abs(run(moved)["current"] - run(rows)["current"]) * lsb
+    motoring = _motoring(fw)
+    ref = lambda r: dynamics.wheel_currents(motoring, operating_point(fw, interface.rows_to_fields(FF_IN, r)))  # noqa: E731
+    model_jump = np.abs(ref(moved) - ref(rows))
+    out = ~inside_envelope(fw.design.limits, moved)
+    fw_jump[out], model_jump[out] = 0.0, 0.0
+    return fw_jump.max(axis=1), (fw_jump - model_jump).max(axis=1)
+
+
+def _edges(fw: Firmware) -> np.ndarray:
+    """Every combination of each input's edges and zero, inside the envelope."""
+    lo, hi = interface.column_edges(fw.design.limits, FF_IN)
+    grid = np.stack(np.meshgrid(*[np.unique([a, 0, b]) for a, b in zip(lo, hi)], indexing="ij"), -1)
+    edges = grid.reshape(-1, len(lo))
+    return edges[inside_envelope(fw.design.limits, edges)]
+
+
+def _speed_places(fw: Firmware) -> list[int]:
+    """Where speed steps matter most: around zero, the deadband edges, the blend band (middle and end)."""
+    lsb = fw.vehicle.firmware.speed_lsb_mps
+    band = int(dynamics.blend_width(fw.vehicle) / lsb)
+    places = {0, 1, 2, fw.design.limits.deadband, fw.design.limits.deadband + 1, band // 2, band, band + 1}
+    return sorted({x for p in places for x in (p, -p - 1)})
+
+
+def neighbour_steps(fw: Firmware) -> dict[str, NeighbourStep]:
+    """Per input, the largest current step of the integer program between neighbouring inputs and its
+    largest excess over the model's own step, found over the corners, the deadband cases,
+    NEIGHBOUR_POINTS random points inside the envelope and every combination of each input's edges and
+    zero; then again over that combination at the place found, and for speed at zero, the deadband
+    edges and across the blend band. Sampled, not proven."""
+    edges = _edges(fw)
+    base = np.concatenate([interface.fields_to_rows(FF_IN, envelope_points(fw, NEIGHBOUR_POINTS, 11)), edges])
+    out = {}
+    for m in FF_IN.members:
+        best = NeighbourStep(0.0, 0)
+        for column in m.columns:
+            j = FF_IN.columns.index(column)
+            jump, excess = _jumps(fw, base, j)
+            places = {int(base[int(np.argmax(jump)), j]), int(base[int(np.argmax(excess)), j])}
+            places |= set(_speed_places(fw)) if m is interface.SPEED else set()
+            rows = np.concatenate([base, *[np.where(np.arange(len(FF_IN.columns)) == j, p, edges) for p in places]])
+            jump, excess = _jumps(fw, rows, j)
+            a, e = int(np.argmax(jump)), int(np.argmax(excess))
+            best = NeighbourStep(
+                amps=max(best.amps, float(jump[a])),
+                at=int(rows[a, j]) if jump[a] > best.amps else best.at,
+                excess=max(best.excess, float(excess[e])),
+                excess_at=int(rows[e, j]) if excess[e] > best.excess else best.excess_at,
+            )
+        out[m.name] = best
+    return out
+
+
+def margin_a(fw: Firmware) -> tuple[float, str]:
+    """How far the firmware's step may exceed the model's own (motoring efficiency), A, and the source:
+    firmware.current_step_margin, else the larger of STEP_BUDGETS x current_budget and STEP_FLOOR x
+    drive.current_limit."""
+    f, limit = fw.vehicle.firmware, fw.vehicle.drive.current_limit_a
+    if f.current_step_margin_a is not None:
+        return f.current_step_margin_a, "firmware.current_step_margin"
+    if STEP_FLOOR * limit > STEP_BUDGETS * f.current_budget_a:
+        return STEP_FLOOR * limit, f"{STEP_FLOOR:.0%} of drive.current_limit, above {STEP_BUDGETS} x current_budget"
+    return STEP_BUDGETS * f.current_budget_a, f"{STEP_BUDGETS} x firmware.current_budget"
+
+
+def largest(steps: dict[str, NeighbourStep], *, by: str = "amps") -> tuple[str, NeighbourStep]:
+    """The input whose neighbouring step is largest (`by`: "amps" or "excess"), and that step."""
+    name = max(steps, key=lambda n: getattr(steps[n], by))
+    return name, steps[name]
