@@ -384,7 +384,7 @@ def verify(
     ]
     neighbours = steps.neighbour_steps(fw)
     checks.append(gate.step_check(fw, neighbours))
-    doc = outputs.report(fw, accuracy.measure(fw), checks, problems, neighbours)
+    doc = outputs.report(fw, accuracy.measure(fw), checks, problems, neighbours=neighbours)
     _write_reports(doc, report_path, junit_path)
     click.echo(
         f"accuracy: proven bound {fw.ff_bound_a * 1000:.3f} mA, measured max "

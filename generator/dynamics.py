@@ -405,7 +405,9 @@ def point_mass_matrix(v: Vehicle, payload_kg: ArrayLike, ahead_m: float) -> Arra
     return np.asarray(j_inv.T @ mass_matrix(v, payload_kg) @ j_inv)
 
 
-def point_accel(v: Vehicle, op: OperatingPoint, force_right: ArrayLike, force_left: ArrayLike, ahead_m: float) -> Array:
+def point_accel(
+    v: Vehicle, op: OperatingPoint, force_right: ArrayLike, force_left: ArrayLike, *, ahead_m: float
+) -> Array:
     """The rates of change of the look-ahead point's velocity in body axes (v', d w'), m/s^2, from the rim
     forces: J times forward_accel (J is constant in body axes). Not the point's inertial acceleration,
     which adds the turning of the axes (-d w^2 forward, v w sideways): a path follower in body axes

@@ -191,7 +191,7 @@ def check_file(path: Path, expected: str, rebuild: str) -> Check:
 
 
 def report(
-    fw: Firmware, acc: Accuracy, checks: list[Check], problems: list[str], neighbours: Mapping[str, NeighbourStep]
+    fw: Firmware, acc: Accuracy, checks: list[Check], problems: list[str], *, neighbours: Mapping[str, NeighbourStep]
 ) -> dict[str, Any]:
     """The verify JSON (README lists every field): currents in A, each table's error in its own unit."""
     f = fw.vehicle.firmware

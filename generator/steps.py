@@ -26,7 +26,7 @@ current ripple (a judgement from memory of typical drives, not a standard), and 
 should not force an absurdly wide blend band."""
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, kw_only=True)
 class NeighbourStep:
     """The largest change of the generated feed-forward current (A) when one input moves from `at` to
     `at + 1` firmware steps, the others held; and the largest amount by which such a change exceeds the
@@ -86,7 +86,7 @@ def neighbour_steps(fw: Firmware) -> dict[str, NeighbourStep]:
     base = np.concatenate([interface.fields_to_rows(FF_IN, envelope_points(fw, NEIGHBOUR_POINTS, 11)), edges])
     out = {}
     for m in FF_IN.members:
-        best = NeighbourStep(0.0, 0)
+        best = NeighbourStep(amps=0.0, at=0)
         for column in m.columns:
             j = FF_IN.columns.index(column)
             jump, excess = _jumps(fw, base, j)

@@ -147,7 +147,7 @@ def test_point_forward_helper_in_c_equals_its_emulation_and_stays_within_its_bou
     forces = [
         dynamics.force_from_current(v, currents[:, k], si[f"speed_{side}"]) for k, side in enumerate(("right", "left"))
     ]
-    ref = dynamics.point_accel(v, op, forces[0], forces[1], form.ahead_m)
+    ref = dynamics.point_accel(v, op, forces[0], forces[1], ahead_m=form.ahead_m)
     err = np.abs(got[inside, :2] * lsb.accel_lsb_mps2 - ref)
     assert err.max() <= form.bound_mps2
     assert (
