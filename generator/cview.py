@@ -244,7 +244,13 @@ def _pair_view(op: PairClamp, clamp_names: list[str], prefix: str) -> dict[str, 
         "bit_r": clamp_names[op.bit],
         "bit_l": clamp_names[op.bit + 1],  # a pair's columns are adjacent (interface.Member.columns)
         "unlikely": f"{prefix.upper()}_UNLIKELY",
+        "scale": f"{prefix}_pair_scale",
     }
+
+
+def _has_pairs(fw: Firmware) -> bool:
+    """Whether either program clamps a wheel pair into a region (then the C needs the scaling helper)."""
+    return any(isinstance(op, PairClamp) for op in (*fw.design.feedforward.ops, *fw.design.forward.ops))
 
 
 def _op_view(op: Op, proof: Proof, clamp_names: list[str], prefix: str) -> dict[str, Any]:
@@ -469,6 +475,9 @@ def context(fw: Firmware) -> dict[str, Any]:
         "feedforward": program_view(fw.design.feedforward, fw.ff_proof, tables, prefix),
         **rates_view(fw, tables, prefix),
         "forward": program_view(fw.design.forward, fw.fwd_proof, tables, prefix),
+        "pair_scale": f"{prefix}_pair_scale"
+        if any(isinstance(op, PairClamp) for op in fw.design.feedforward.ops)
+        else "",
         "calls": [_call_view(call, prefix) for call in interface.CALLS],
         "limits": _limit_lines(fw),
         "lsbs": _lsb_lines(fw),

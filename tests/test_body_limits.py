@@ -320,3 +320,27 @@ def test_plans_stay_inside_the_region_and_a_plan_beyond_a_body_limit_names_it(tm
     c["speed_right"][k], c["speed_left"][k] = edge, -edge
     problem = planner.plan_problem(v, plan, "wheels-up")
     assert problem is not None and "envelope.yaw_rate_max" in problem and f"row {k + 2}" in problem
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("compiler", ["zig", "gcc"])
+def test_pair_clamp_on_cortex_m0plus_equals_the_emulator(limited, compiler, tmp_path):
+    """The body-limited C on the core without a divider (Cortex-M0+, unicorn): the scaling path's 64-bit
+    products and division (library calls there) give the emulator's integers on the golden vectors,
+    which are mostly outside the region."""
+    from tests import cortexm
+
+    if compiler == "zig" and not cortexm.zig_available():
+        pytest.skip("pip install ziglang")
+    if compiler == "gcc" and not cortexm.arm_gcc_available():
+        pytest.skip("apt install gcc-arm-none-eabi libnewlib-arm-none-eabi")
+    _, fw = limited
+    write_files(tmp_path, render.render(fw))
+    build = cortexm.compile_elf if compiler == "zig" else cortexm.compile_elf_gcc
+    elf = build([tmp_path / "veh_ff.c"], "cortex_m0plus", "veh_feedforward", tmp_path / "ff.elf", extra=["-Os"])
+    machine = cortexm.Machine.load(elf, "cortex_m0plus")
+    n = len(interface.FF_IN.columns)
+    rows = vectors.feedforward_table(fw, 1200)
+    for row in rows:
+        out, _ = machine.call(interface.FF_IN.pack(row[:n]), interface.FF_OUT.size)
+        assert interface.FF_OUT.unpack(out) == tuple(int(x) for x in row[n:]), row
