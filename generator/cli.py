@@ -113,6 +113,8 @@ def predict(model_path: str, as_json: bool, ahead: float | None, **point: float)
     """Evaluate the model at one operating point: forces, torque, current and voltage per wheel."""
     v = model.load(model_path)
     si = interface.FF_IN.si_names()
+    if point["payload"] < 0:
+        raise UserError(f"kinetab predict: --payload: expected a mass >= 0 kg, found {point['payload']:g} kg")
     op = dynamics.OperatingPoint(**{si[column]: value for column, value in point.items()})
     doc = predict_point(v, op)
     ahead = v.firmware.point_ahead_m if ahead is None else ahead
@@ -128,8 +130,8 @@ def predict(model_path: str, as_json: bool, ahead: float | None, **point: float)
 def _point_doc(v: Vehicle, op: dynamics.OperatingPoint, ahead: float) -> dict[str, Any]:
     """The look-ahead point at the operating point: J, Lambda = J^-T M J^-1, its velocity and the rates
     of its velocity components in body axes (SI)."""
-    if ahead == 0 or abs(ahead) > 5:
-        raise UserError(f"kinetab predict: --point: expected a distance other than 0, within 5 m, found {ahead:g} m")
+    if not 0.001 <= abs(ahead) <= 5:
+        raise UserError(f"kinetab predict: --point: expected 1 mm to 5 m either way (not at P), found {ahead:g} m")
     jac = dynamics.point_jacobian(v, ahead)
     speeds = np.array([op.speed_right, op.speed_left], dtype=float)
     accels = np.array([op.accel_right, op.accel_left], dtype=float)

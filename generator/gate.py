@@ -5,7 +5,7 @@ from __future__ import annotations
 import re
 from pathlib import Path
 
-from . import envelope, render, vectors
+from . import envelope, pointform, render, vectors
 from .outputs import Check, check_file
 from .steps import NeighbourStep, largest, margin_a
 from .synthesis import Firmware
@@ -31,12 +31,15 @@ def envelope_check(v: Vehicle, *, allow: bool) -> tuple[Check, list[str]]:
 def budget_check(fw: Firmware) -> Check:
     f = fw.vehicle.firmware
     ok = fw.ff_bound_a <= f.current_budget_a and fw.fwd_bound_mps2 <= fw.fwd_budget_mps2
-    return Check(
-        "error budget",
-        ok,
+    detail = (
         f"proven bound {fw.ff_bound_a * 1000:.3f} mA, budget {f.current_budget_a * 1000:.3f} mA; forward helper "
-        f"{fw.fwd_bound_mps2:.4g} m/s^2, budget {fw.fwd_budget_mps2:.4g} m/s^2",
+        f"{fw.fwd_bound_mps2:.4g} m/s^2"
     )
+    form = pointform.point_form(fw)
+    if form is not None:
+        ok = ok and form.bound_mps2 <= fw.fwd_budget_mps2
+        detail += f", at the look-ahead point {form.bound_mps2:.4g} m/s^2"
+    return Check("error budget", ok, f"{detail}, budget {fw.fwd_budget_mps2:.4g} m/s^2 (firmware.accel_budget)")
 
 
 def step_check(fw: Firmware, steps: dict[str, NeighbourStep]) -> Check:

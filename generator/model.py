@@ -159,9 +159,10 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "blend_speed": K(
             L.SPEED,
             "blend_speed_mps",
-            U(0, 10, "m/s", False),
+            (lambda v: 0 <= v <= 10, "'0 m/s', or from firmware.speed_lsb to envelope.speed_max"),
             "rim speed over which the efficiency moves from motoring to back-driving, so the current has no "
-            "step at zero speed; 0: a switch (default: 2 x friction.deadband, at least 4 speed steps)",
+            "step at zero speed (default: 2 x friction.deadband, at least 4 speed steps); '0 m/s': a switch, "
+            "whose step verify's current-step check then fails on a slope unless current_step_margin allows it",
             optional=True,
         ),
     },
@@ -409,17 +410,10 @@ def _firmware_steps(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any])
     """Every span the firmware counts in steps lies between 1 and 2^30 of them (checked before the
     deadband rules, so a step coarser than the envelope names the step, not the deadband)."""
     fr, env, fw = s["friction"], s["envelope"], s["firmware"]
-    half_track = s["wheels"]["track"] / 2
-    body = [
-        ("speed_lsb", env["forward_speed_max"], "envelope.forward_speed_max"),
-        ("accel_lsb", env["forward_accel_max"], "envelope.forward_accel_max"),
-        ("speed_lsb", _times(env["yaw_rate_max"], half_track), "yaw_rate_max x track/2"),
-        ("accel_lsb", _times(env["yaw_accel_max"], half_track), "yaw_accel_max x track/2"),
-    ]
+    _body_steps(src, s, raw)
     steps = [
         ("speed_lsb", env["speed_max"], "envelope.speed_max"),
         ("accel_lsb", env["accel_max"], "envelope.accel_max"),
-        *[(key, span, what) for key, span, what in body if span is not None],
         ("angle_lsb", max(env["pitch_max"], env["roll_max"]), "the larger of pitch_max and roll_max"),
         ("mass_lsb", s["payload"]["mass_max"], "payload.mass_max"),
         ("speed_lsb", fr["deadband"], "friction.deadband"),
@@ -435,6 +429,25 @@ def _firmware_steps(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any])
             )
 
 
+def _body_steps(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any]) -> None:
+    """A body-frame limit that is set spans at least one firmware step of its wheels (the key named)."""
+    env, fw, half_track = s["envelope"], s["firmware"], s["wheels"]["track"] / 2
+    for key, lsb, span in (
+        ("forward_speed_max", "speed_lsb", env["forward_speed_max"]),
+        ("forward_accel_max", "accel_lsb", env["forward_accel_max"]),
+        ("yaw_rate_max", "speed_lsb", _times(env["yaw_rate_max"], half_track)),
+        ("yaw_accel_max", "accel_lsb", _times(env["yaw_accel_max"], half_track)),
+    ):
+        if span is not None and span < fw[lsb]:
+            per_wheel = "" if key.startswith("forward") else " x track/2 at each wheel"
+            raise ModelError(
+                src,
+                f"envelope.{key}",
+                f"a limit{per_wheel} of at least one firmware.{lsb} ({fw[lsb]:g})",
+                _describe_raw(raw["envelope"][key]),
+            )
+
+
 def _blend_rule(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any]) -> None:
     """drive.blend_speed is 0 (a switch) or spans at least one firmware speed step, and ends inside the
     envelope (else the back-driving efficiency would never be reached)."""
@@ -443,7 +456,7 @@ def _blend_rule(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any]) -> 
         raise ModelError(
             src,
             "drive.blend_speed",
-            f"0 (a switch) or a speed from firmware.speed_lsb ({lsb:g} m/s) to envelope.speed_max ({top:g} m/s)",
+            f"'0 m/s' (a switch) or a speed from firmware.speed_lsb ({lsb:g} m/s) to envelope.speed_max ({top:g} m/s)",
             _describe_raw(raw["drive"]["blend_speed"]),
         )
 

@@ -18,6 +18,7 @@ from typing import Any
 from . import fixedpoint as fx
 from .accuracy import Accuracy
 from .errors import UserError
+from .pointform import point_form
 from .steps import NeighbourStep
 from .synthesis import Firmware, products_note, sizing_note
 
@@ -190,6 +191,24 @@ def check_file(path: Path, expected: str, rebuild: str) -> Check:
     )
 
 
+def _forward_doc(fw: Firmware) -> dict[str, Any]:
+    """The forward helper's proven bound, its budget, and the look-ahead point's bound (None without)."""
+    form = point_form(fw)
+    return {
+        "bound": fw.fwd_bound_mps2,
+        "goal": fw.fwd_budget_mps2,
+        "point_bound": None if form is None else form.bound_mps2,
+    }
+
+
+def _steps_doc(neighbours: Mapping[str, NeighbourStep]) -> dict[str, Any]:
+    """Per input, the largest current step between neighbouring inputs and its excess over the model's."""
+    return {
+        name: {"amps": s.amps, "from_steps": s.at, "excess": s.excess, "excess_from_steps": s.excess_at}
+        for name, s in neighbours.items()
+    }
+
+
 def report(
     fw: Firmware, acc: Accuracy, checks: list[Check], problems: list[str], *, neighbours: Mapping[str, NeighbourStep]
 ) -> dict[str, Any]:
@@ -211,12 +230,9 @@ def report(
         },
         "clamping_a": {"max": acc.clamping.max, "rms": acc.clamping.rms},
         "input_resolution_a": acc.input_resolution,
-        "current_step_a": {
-            name: {"amps": s.amps, "from_steps": s.at, "excess": s.excess, "excess_from_steps": s.excess_at}
-            for name, s in neighbours.items()
-        },
+        "current_step_a": _steps_doc(neighbours),
         "envelope_problems": problems,
-        "forward_mps2": {"bound": fw.fwd_bound_mps2, "goal": fw.fwd_budget_mps2},
+        "forward_mps2": _forward_doc(fw),
         "total_bytes": fw.total_bytes,
         "multiplies_64bit": {"products": fw.products64(), "note": products_note(fw)},
         "sizing": {

@@ -65,9 +65,11 @@ def _prove(total: fx.Interval, diff: fx.Interval, k: int, shift: int) -> None:
 
 
 def _shift(diff: fx.Interval, gain: float) -> tuple[int, bool]:
-    """The most fraction bits (up to SHIFT_MAX) that keep diff * k + half in 32 bits; with fewer than
-    SHIFT_MIN, SHIFT_MAX bits and a 64-bit product."""
+    """The most fraction bits (up to SHIFT_MAX) that keep diff * k + half in 32 bits, as long as rounding
+    k costs at most a quarter step over the whole range of diff; else SHIFT_MAX bits, 64-bit product."""
     for shift in range(SHIFT_MAX, SHIFT_MIN - 1, -1):
+        if 2.0 ** -(shift + 1) * diff.magnitude() > 0.25:
+            break
         if _fits_with_half(diff, int(np.floor(gain * 2.0**shift + 0.5)), shift):
             return shift, False
     return SHIFT_MAX, True

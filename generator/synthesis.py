@@ -161,6 +161,18 @@ def _size_both(v: Vehicle, des: program.Design) -> tuple[sizing.Sizing, sizing.S
     return ff, fwd
 
 
+def _wheels_goal(v: Vehicle) -> float:
+    """The forward tables' goal, m/s^2: the accel budget, tightened when the look-ahead point's form is
+    generated so that it meets the budget too (its sideways rate carries d/(2b) times the difference of
+    the wheels' errors, plus about one step of rounding: pointform.point_form states the exact bound)."""
+    goal = forward_budget(v)
+    ahead = v.firmware.point_ahead_m
+    if ahead is None:
+        return goal
+    gain = max(1.0, abs(ahead) / v.wheels.track_m * 2)
+    return min(goal, (goal - 1.5 * v.firmware.accel_lsb_mps2) / gain)
+
+
 def _forward_only(des: program.Design) -> list[str]:
     """The tables only the forward helper looks up (M^-1, the back-driving reciprocal), in spec order."""
     used = {op_table(op) for op in des.feedforward.ops}
@@ -178,7 +190,7 @@ def _size(program_: program.Program, des: program.Design, names: list[str], budg
 def _size_forward(v: Vehicle, des: program.Design, ff: sizing.Sizing, room: float) -> sizing.Sizing:
     """The M^-1 tables with the feed-forward tables fixed, within `room` bytes when minimising
     instructions (fewest bytes when room is too small, flagged over_cap)."""
-    goal = forward_budget(v)
+    goal = _wheels_goal(v)
     objective = (
         sizing.Objective(v.firmware.sizing, max(room, 0.0)) if v.firmware.sizing == "instructions" else sizing.BYTES
     )

@@ -125,4 +125,4 @@ def test_blend_speed_is_zero_or_between_one_speed_step_and_speed_max():
         with pytest.raises(ModelError) as err:
             vehicle_from(doc)
         text = str(err.value)
-        assert "drive.blend_speed" in text and "0 (a switch)" in text and "\n" not in text
+        assert "drive.blend_speed" in text and "'0 m/s' (a switch)" in text and "\n" not in text

@@ -291,6 +291,13 @@ def test_bad_body_limits_are_one_line_naming_the_key():
     text = _model_error(doc)
     assert "friction.deadband" in text and "forward_speed_max + yaw_rate_max" in text
     assert "\n" not in text
+    doc = courier()
+    doc["envelope"]["yaw_rate_max"] = "0.001 deg/s"  # below one speed step at the wheels
+    text = _model_error(doc)
+    assert text.split(": ")[1].startswith("envelope.yaw_rate_max") and "firmware.speed_lsb" in text
+    doc = courier()
+    doc["envelope"]["yaw_rate_max"] = "10 rpm"  # an angular speed in one unit
+    assert vehicle_from(doc).envelope.yaw_rate_max_radps == pytest.approx(10 * 2 * np.pi / 60)
 
 
 def test_plans_stay_inside_the_region_and_a_plan_beyond_a_body_limit_names_it(tmp_path):

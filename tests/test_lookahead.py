@@ -155,17 +155,25 @@ def test_point_forward_helper_in_c_equals_its_emulation_and_stays_within_its_bou
     )
 
 
-def test_a_point_form_whose_integers_could_overflow_is_refused_naming_the_key(tmp_path, capsys):
-    """An extreme choice (a 0.1 m track, the point 5 m behind, a fine accel step, int32 tables): the
-    lateral output's proven range leaves int32, so build refuses it with one line naming
-    firmware.point_ahead (exit 1, nothing written) instead of writing C that could wrap."""
+def test_a_point_form_whose_integers_could_overflow_is_refused_naming_the_key():
+    """The range proof of <name>_forward_point on an extreme choice (a 0.1 m track, the point 5 m behind,
+    a fine accel step, int32 tables): the lateral output's proven range leaves int32, so point_form
+    raises CheckFailed naming firmware.point_ahead instead of giving C that could wrap. (Sizing for such
+    a point usually refuses first, naming firmware.accel_budget: the check is the last line of defence,
+    so the firmware is sized here without the point and the point added after.)"""
+    import dataclasses
+
+    from kinetab.generator.errors import CheckFailed
+
     doc, _ = invented(9, "veh")
     doc["wheels"]["track"] = "100 mm"
-    doc["firmware"].update(point_ahead="-5 m", accel_lsb="0.1 mm/s^2", word="int32", current_budget="1 A")
+    doc["firmware"].update(accel_lsb="0.1 mm/s^2", word="int32", current_budget="1 A", accel_budget="50 m/s^2")
     doc["body"]["gyration_radius"] = "50 mm"
     doc["payload"]["gyration_radius"] = "50 mm"
-    out = tmp_path / "fw"
-    with pytest.raises(SystemExit) as exc:
-        cli.main(["build", str(write_model(tmp_path, doc)), "-o", str(out), "--allow-infeasible-envelope"])
-    err = capsys.readouterr().err
-    assert exc.value.code == 1 and "firmware.point_ahead" in err and "int32" in err and not out.exists()
+    fw = synthesis.synthesise(vehicle_from(doc))
+    v = fw.vehicle
+    far = dataclasses.replace(
+        fw, vehicle=dataclasses.replace(v, firmware=dataclasses.replace(v.firmware, point_ahead_m=-5.0))
+    )
+    with pytest.raises(CheckFailed, match="firmware.point_ahead.*int32"):
+        pointform.point_form(far)
