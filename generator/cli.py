@@ -130,8 +130,9 @@ def predict(model_path: str, as_json: bool, ahead: float | None, **point: float)
 def _point_doc(v: Vehicle, op: dynamics.OperatingPoint, ahead: float) -> dict[str, Any]:
     """The look-ahead point at the operating point: J, Lambda = J^-T M J^-1, its velocity and the rates
     of its velocity components in body axes (SI)."""
-    if not 0.001 <= abs(ahead) <= 5:
-        raise UserError(f"kinetab predict: --point: expected 1 mm to 5 m either way (not at P), found {ahead:g} m")
+    spec = model.SCHEMA["firmware"]["point_ahead"]  # the same range as the model key
+    if spec.check is not None and not spec.check(ahead):
+        raise UserError(f"kinetab predict: --point: expected a distance {spec.expect}, found {ahead:g} m")
     jac = dynamics.point_jacobian(v, ahead)
     speeds = np.array([op.speed_right, op.speed_left], dtype=float)
     accels = np.array([op.accel_right, op.accel_left], dtype=float)

@@ -41,7 +41,24 @@ class PairRegion:
         return PairRegion(edge=edge, sum_max=min(self.sum_max, 2 * edge), diff_max=min(self.diff_max, 2 * edge))
 
 
-def _si(edge: float, forward: float | None, turn: float | None) -> PairRegion:
+def _limits(v: Vehicle, quantity: str) -> tuple[float, float | None, float | None, float]:
+    """(each wheel's edge, the forward limit, the turn limit at each wheel (b times the yaw limit), the
+    firmware step) for "speed" (m/s) or "accel" (m/s^2); None where a body-frame key is not set."""
+    env, b, fw = v.envelope, v.wheels.track_m / 2, v.firmware
+    if quantity == "speed":
+        edge, forward, yaw, lsb = env.speed_max_mps, env.forward_speed_max_mps, env.yaw_rate_max_radps, fw.speed_lsb_mps
+    else:
+        edge, forward, yaw, lsb = (
+            env.accel_max_mps2,
+            env.forward_accel_max_mps2,
+            env.yaw_accel_max_radps2,
+            fw.accel_lsb_mps2,
+        )
+    return edge, forward, None if yaw is None else b * yaw, lsb
+
+
+def _si(v: Vehicle, quantity: str) -> PairRegion:
+    edge, forward, turn, _ = _limits(v, quantity)
     sum_max = 2 * edge if forward is None else 2 * forward
     diff_max = 2 * edge if turn is None else 2 * turn
     return PairRegion(edge=edge, sum_max=sum_max, diff_max=diff_max).normalised()
@@ -49,22 +66,19 @@ def _si(edge: float, forward: float | None, turn: float | None) -> PairRegion:
 
 def speed_region(v: Vehicle) -> PairRegion:
     """Rim speeds, m/s: speed_max per wheel, forward_speed_max, yaw_rate_max times the half track."""
-    env, b = v.envelope, v.wheels.track_m / 2
-    turn = None if env.yaw_rate_max_radps is None else b * env.yaw_rate_max_radps
-    return _si(env.speed_max_mps, env.forward_speed_max_mps, turn)
+    return _si(v, "speed")
 
 
 def accel_region(v: Vehicle) -> PairRegion:
     """Rim accelerations, m/s^2: accel_max per wheel, forward_accel_max, yaw_accel_max times the half track."""
-    env, b = v.envelope, v.wheels.track_m / 2
-    turn = None if env.yaw_accel_max_radps2 is None else b * env.yaw_accel_max_radps2
-    return _si(env.accel_max_mps2, env.forward_accel_max_mps2, turn)
+    return _si(v, "accel")
 
 
-def in_steps(edge_si: float, forward_si: float | None, turn_si: float | None, lsb: float) -> PairRegion:
+def _in_steps(v: Vehicle, quantity: str) -> PairRegion:
     """The region in firmware steps, containing the stated limits: each limit rounds up to whole steps
     (a wheel pair at exactly the forward or turning limit is inside); the diagonals are even, so the
     clamp's midpoint (s + d)/2 is a whole step."""
+    edge_si, forward_si, turn_si, lsb = _limits(v, quantity)
     edge = fx.steps_covering(edge_si, lsb)
     sum_max = 2 * edge if forward_si is None else 2 * fx.steps_covering(forward_si, lsb)
     diff_max = 2 * edge if turn_si is None else 2 * fx.steps_covering(turn_si, lsb)
@@ -74,15 +88,11 @@ def in_steps(edge_si: float, forward_si: float | None, turn_si: float | None, ls
 
 
 def speed_steps(v: Vehicle) -> PairRegion:
-    env, b, lsb = v.envelope, v.wheels.track_m / 2, v.firmware.speed_lsb_mps
-    turn = None if env.yaw_rate_max_radps is None else b * env.yaw_rate_max_radps
-    return in_steps(env.speed_max_mps, env.forward_speed_max_mps, turn, lsb)
+    return _in_steps(v, "speed")
 
 
 def accel_steps(v: Vehicle) -> PairRegion:
-    env, b, lsb = v.envelope, v.wheels.track_m / 2, v.firmware.accel_lsb_mps2
-    turn = None if env.yaw_accel_max_radps2 is None else b * env.yaw_accel_max_radps2
-    return in_steps(env.accel_max_mps2, env.forward_accel_max_mps2, turn, lsb)
+    return _in_steps(v, "accel")
 
 
 def clamp(right: ArrayLike, left: ArrayLike, reg: PairRegion, *, integer: bool) -> tuple[NDArray, NDArray]:

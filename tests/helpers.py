@@ -41,6 +41,19 @@ def _value(v: Any) -> str:
     return json.dumps(v)
 
 
+def run_cli(args: list[str], capsys) -> tuple[int, str, str]:
+    """Run the command line in-process: exit code, standard output, standard error."""
+    from kinetab.generator import cli
+
+    try:
+        cli.main(args)
+        code = 0
+    except SystemExit as exc:
+        code = exc.code
+    out, err = capsys.readouterr()
+    return code, out, err
+
+
 def write_model(tmp_path: Path, doc: dict[str, Any], name: str = "model.toml") -> Path:
     path = tmp_path / name
     path.write_text(to_toml(doc), encoding="utf-8")

@@ -8,19 +8,9 @@ import json
 
 import numpy as np
 import pytest
-from kinetab.generator import cli, dynamics, steps, synthesis
+from kinetab.generator import dynamics, steps, synthesis
 
-from tests.helpers import invented, vehicle_from, write_model
-
-
-def _run(args, capsys):
-    try:
-        cli.main(args)
-        code = 0
-    except SystemExit as exc:
-        code = exc.code
-    out, err = capsys.readouterr()
-    return code, out, err
+from tests.helpers import invented, run_cli, vehicle_from, write_model
 
 
 @pytest.mark.parametrize("seed", [11, 12, 13])
@@ -87,7 +77,7 @@ def test_neighbouring_firmware_steps_at_zero_speed_no_longer_jump(tmp_path, caps
         args = ["predict", str(path), "--speed-right", f"{speed} m/s", "--speed-left", f"{speed} m/s"]
         args += ["--pitch", f"{np.degrees(blended.vehicle.envelope.pitch_max_rad)} deg", "--json"]
         args += ["--payload", f"{blended.vehicle.payload.mass_max_kg} kg"]
-        code, out, _ = _run(args, capsys)
+        code, out, _ = run_cli(args, capsys)
         assert code == 0
         fixed.append(json.loads(out)["right"]["current_fixed"])
     assert abs(fixed[0] - fixed[1]) <= limit
@@ -99,17 +89,17 @@ def test_verify_fails_on_a_step_above_the_limit_naming_the_key(tmp_path, capsys)
     doc = _sloped(22, blend_speed="0 m/s")
     path, out = write_model(tmp_path, doc), tmp_path / "fw"
     free = "--allow-infeasible-envelope"  # an invented drive, not sized for this vehicle: not the point here
-    code, _, err = _run(["build", str(path), "-o", str(out), free], capsys)
+    code, _, err = run_cli(["build", str(path), "-o", str(out), free], capsys)
     assert code == 0 and "largest current step" in err and "(verify fails on it)" in err
-    code, _, err = _run(["verify", str(path), str(out), free], capsys)
+    code, _, err = run_cli(["verify", str(path), str(out), free], capsys)
     assert code == 1
     line = next(x for x in err.splitlines() if "largest current step" in x)
     assert "speed from" in line and "drive.blend_speed" in line and "firmware.current_step_margin" in line
     doc["firmware"]["current_step_margin"] = "50 A"
     path = write_model(tmp_path, doc, "raised.toml")
-    assert _run(["build", str(path), "-o", str(out), free], capsys)[0] == 0
+    assert run_cli(["build", str(path), "-o", str(out), free], capsys)[0] == 0
     rep = tmp_path / "r.json"
-    code, _, _ = _run(["verify", str(path), str(out), "--report", str(rep), free], capsys)
+    code, _, _ = run_cli(["verify", str(path), str(out), "--report", str(rep), free], capsys)
     found = json.loads(rep.read_text())["current_step_a"]
     assert code == 0 and set(found) == {"speed", "accel", "pitch", "roll", "payload"}
     assert found["speed"]["excess"] > 4 * vehicle_from(doc).firmware.current_budget_a
