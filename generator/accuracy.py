@@ -12,11 +12,12 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import dynamics, emulate, interface, region
+from . import bodyframe, dynamics, emulate, interface, region
 from .interface import FF_IN
 from .synthesis import Firmware
 from .tablespecs import Limits
 from .vectors import feedforward_inputs
+from .vehicle import Vehicle
 
 
 @dataclass(frozen=True)
@@ -40,8 +41,17 @@ class Accuracy:
 
 
 def operating_point(fw: Firmware, inp: dict[str, np.ndarray]) -> dynamics.OperatingPoint:
+    """Feed-forward inputs in firmware steps -> the SI operating point the integer program computes for:
+    the inputs themselves, or for body-frame inputs the wheel steps its conversion makes of them (exact
+    when the conversion is; else within bodyframe.Mix.deviation of exact_point)."""
+    if interface.ff_in(fw.vehicle).body:
+        return dynamics.OperatingPoint(**interface.to_si(fw.vehicle, FF_IN, bodyframe.wheel_fields(fw.vehicle, inp)))
+    return exact_point(fw, inp)
+
+
+def exact_point(fw: Firmware, inp: dict[str, np.ndarray]) -> dynamics.OperatingPoint:
     """Feed-forward inputs in firmware steps -> the SI operating point they stand for (exact)."""
-    return dynamics.OperatingPoint(**interface.to_si(fw.vehicle, FF_IN, inp))
+    return dynamics.OperatingPoint(**interface.to_si(fw.vehicle, interface.ff_in(fw.vehicle), inp))
 
 
 def reference_current(fw: Firmware, op: dynamics.OperatingPoint) -> np.ndarray:
@@ -53,12 +63,16 @@ def _stat(err: np.ndarray) -> Stat:
     return Stat(float(np.max(np.abs(err))), float(np.sqrt(np.mean(err**2))))
 
 
-def inside_envelope(lim: Limits, rows: np.ndarray) -> np.ndarray:
+def inside_envelope(v: Vehicle, lim: Limits, rows: np.ndarray) -> np.ndarray:
     """Which rows of feed-forward inputs (steps) lie inside the envelope: every column within its edges,
-    and the speed and acceleration pairs inside their regions (region.py)."""
-    lo, hi = interface.column_edges(lim, FF_IN)
+    and the speed and acceleration pairs inside their regions (region.py); body-frame inputs whose
+    wheel values (the firmware's conversion) lie within each wheel's edge."""
+    st = interface.ff_in(v)
+    lo, hi = interface.column_edges(lim, st)
     ok = np.all((rows >= lo) & (rows <= hi), axis=1)
-    fields = interface.rows_to_fields(FF_IN, rows)
+    fields = interface.rows_to_fields(st, rows)
+    if st.body:
+        return ok & bodyframe.inside(v, fields, {"speed": lim.speed, "accel": lim.accel})
     for name, pair in (("speed", lim.speed_pair), ("accel", lim.accel_pair)):
         ok &= region.inside(fields[name][:, 0], fields[name][:, 1], pair)
     return ok
@@ -66,13 +80,14 @@ def inside_envelope(lim: Limits, rows: np.ndarray) -> np.ndarray:
 
 def envelope_points(fw: Firmware, count: int, seed: int) -> dict[str, np.ndarray]:
     """Corners and deadband cases (inside the envelope only) plus `count` random points."""
-    lim = fw.design.limits
-    rows = interface.fields_to_rows(FF_IN, feedforward_inputs(lim, count + 3000, seed))
-    return interface.rows_to_fields(FF_IN, rows[inside_envelope(lim, rows)])
+    lim, st = fw.design.limits, interface.ff_in(fw.vehicle)
+    rows = interface.fields_to_rows(st, feedforward_inputs(lim, count + 3000, seed, vehicle=fw.vehicle))
+    return interface.rows_to_fields(st, rows[inside_envelope(fw.vehicle, lim, rows)])
 
 
 def _describe_input(fw: Firmware, inp: dict[str, np.ndarray], k: int, side: int) -> str:
-    si = {name: float(x) for name, x in interface.to_si(fw.vehicle, FF_IN, {n: a[k] for n, a in inp.items()}).items()}
+    point = exact_point(fw, {n: a[k] for n, a in inp.items()})
+    si = {name: float(getattr(point, name)) for name in FF_IN.si_names().values()}
     return interface.describe_point(FF_IN, si, interface.SIDES[side], digits=4)
 
 
@@ -80,21 +95,25 @@ def _clamping(fw: Firmware, seed: int) -> Stat:
     """Error from clamping: points up to 10 % beyond the envelope against the unclamped float model."""
     rng = np.random.default_rng(seed + 1)
     n = 2000
-    lo, hi = interface.column_edges(fw.design.limits, FF_IN)
+    st = interface.ff_in(fw.vehicle)
+    lo, hi = interface.column_edges(fw.design.limits, st)
     rows = np.stack([rng.integers(a - (a != 0) * (b // 10), b + b // 10 + 1, n) for a, b in zip(lo, hi)], -1)
-    inp = interface.rows_to_fields(FF_IN, rows)
+    inp = interface.rows_to_fields(st, rows)
     got = emulate.run(fw.design.feedforward, fw.tables, inp)["current"] * fw.vehicle.firmware.current_lsb_a
-    return _stat(got - reference_current(fw, operating_point(fw, inp)))
+    return _stat(got - reference_current(fw, exact_point(fw, inp)))
 
 
 def _input_resolution(fw: Firmware, inp: dict[str, np.ndarray]) -> dict[str, float]:
-    """Largest current change from moving one input by half its firmware step (what the LSB choice costs)."""
-    base = reference_current(fw, operating_point(fw, inp))
+    """Largest current change from moving one input by half its firmware step (what the LSB choice costs);
+    for body-frame inputs also `conversion`, what their rounding to wheel steps costs (0 when exact)."""
+    base = reference_current(fw, exact_point(fw, inp))
     out = {}
-    for name in (m.name for m in FF_IN.members):
+    for name in (m.name for m in interface.ff_in(fw.vehicle).members):
         moved = {k: v.astype(float) for k, v in inp.items()}
         moved[name] = moved[name] + 0.5
-        out[name] = float(np.max(np.abs(reference_current(fw, operating_point(fw, moved)) - base)))
+        out[name] = float(np.max(np.abs(reference_current(fw, exact_point(fw, moved)) - base)))
+    if interface.ff_in(fw.vehicle).body:
+        out["conversion"] = float(np.max(np.abs(reference_current(fw, operating_point(fw, inp)) - base)))
     return out
 
 

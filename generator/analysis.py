@@ -19,6 +19,7 @@ from .ops import (
     Backdrive,
     Clamp,
     Lookup,
+    Mix,
     Mul,
     Op,
     PairClamp,
@@ -151,6 +152,13 @@ def _check_op(
             both = fx.Interval(-2 * op.edge, 2 * op.edge)  # r + l and r - l of two box-clamped wheels
             if not both.fits(32):
                 raise _fail(program, f"the sum of the pair {op.right}, {op.left}", both)
+        case Mix():
+            along = rng[op.along] * fx.Interval(op.k_along, op.k_along)
+            turn = rng[op.turn] * fx.Interval(op.k_turn, op.k_turn)
+            total = _with_half(along + turn.hull(-turn), op.shift)
+            if not total.fits(64) or (not op.wide and not total.fits(32)):
+                raise _fail(program, f"the body-frame sum of {op.dst}", total)
+            wide[op.dst], split[op.dst] = op.wide, ""
         case Mul():
             _check_product(program, op.dst, ra=rng[op.a], rb=rng[op.b], shift=op.shift, wide=wide, split=split)
         case Scale():
@@ -216,7 +224,8 @@ def _error_step(op: Op, specs: Mapping[str, tb.TableSpec], mag: dict[str, float]
     left out (adding an exact 0.0 changes no float), which makes the bound fast enough for sizing."""
     e = lambda err, name: 0.0 if name in zero else err[name]  # noqa: E731
     match op:
-        case Clamp() | PairClamp():  # exact: the model is evaluated at the clamped input (or pair)
+        case Clamp() | PairClamp() | Mix():  # exact: the model is evaluated at the clamped input (or pair)
+            # a Mix's distance from the exact wheel value is an input resolution (bodyframe.Mix.deviation)
             mag[op.dst] = float(op_range(op, {}, lambda _: fx.Interval(0, 0)).magnitude())
             zero.add(op.dst)
             return None

@@ -156,17 +156,24 @@ def _fill_fixed(v: Vehicle, op: dynamics.OperatingPoint, doc: dict[str, Any]) ->
         return
     try:
         inp = synthesis.firmware_inputs(v, op)
-    except ValueError as exc:  # "speed_right: beyond ..." names the column, which is the option
+    except ValueError as exc:  # "speed_right: beyond ..." names the column, the option in the wheel form
         column, why = str(exc).split(": ", 1)
-        raise UserError(f"kinetab predict: --{column.replace('_', '-')}: {why}") from None
+        raise UserError(f"kinetab predict: {_option_text(column)}: {why}") from None
     out = emulate.run(fw.design.feedforward, fw.tables, {k: np.atleast_1d(a) for k, a in inp.items()})
     flags = int(out["clamped"][0])
     if flags:
-        cols = interface.FF_IN.columns
-        names = ", ".join(f"--{c.replace('_', '-')}" for k, c in enumerate(cols) if flags >> k & 1)
+        cols = interface.ff_in(v).columns
+        names = ", ".join(_option_text(c) for k, c in enumerate(cols) if flags >> k & 1)
         click.echo(f"warning: {names} outside the envelope; current_fixed uses the envelope edge", err=True)
     for i, side in enumerate(("right", "left")):
         doc[side]["current_fixed"] = float(out["current"][0][i]) * v.firmware.current_lsb_a
+
+
+def _option_text(column: str) -> str:
+    """The option of a wheel input column; a body-frame input (firmware.inputs = 'body') by its name."""
+    if column in interface.FF_IN.columns:
+        return f"--{column.replace('_', '-')}"
+    return f"{column.replace('_', ' ')} (the body-frame input firmware.inputs = 'body' makes of the wheel options)"
 
 
 def _predict_table(doc: dict[str, Any]) -> str:

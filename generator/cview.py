@@ -17,6 +17,7 @@ from .ops import (
     Backdrive,
     Clamp,
     Lookup,
+    Mix,
     Mul,
     Op,
     PairClamp,
@@ -52,19 +53,23 @@ class Source:
     unit: str
 
 
-STEPPED = (*interface.FF_IN.members, interface.CURRENT_OUT)
-"""Every quantity the firmware holds in steps: the inputs, then the current."""
+def stepped(fw: Firmware) -> tuple[interface.Member, ...]:
+    """Every quantity the firmware holds in steps: the inputs, the wheel pairs (which body-frame inputs
+    turn into, and the tables are indexed by), then the current."""
+    inputs = interface.ff_in(fw.vehicle).members
+    wheels = (interface.SPEED, interface.ACCEL) if interface.ff_in(fw.vehicle).body else ()
+    return (*inputs, *wheels, interface.CURRENT_OUT)
 
 
 def _sources(fw: Firmware) -> dict[str, Source]:
     """Per quantity: one step in SI units, for comments."""
-    return {m.name: Source(interface.lsb(fw.vehicle, m), m.unit) for m in STEPPED}
+    return {m.name: Source(interface.lsb(fw.vehicle, m), m.unit) for m in stepped(fw)}
 
 
 def _limit_lines(fw: Firmware) -> list[tuple[str, int, str]]:
     """(`<QUANTITY>_MAX`, its envelope edge in steps, that edge as a person reads it) per quantity."""
     out = []
-    for m in STEPPED:
+    for m in stepped(fw):
         steps = getattr(fw.design.limits, m.limit)
         unit, convert = interface.shown(m)
         out.append((f"{m.name.upper()}_MAX", steps, f"{num(convert(steps * interface.lsb(fw.vehicle, m)))} {unit}"))
@@ -82,7 +87,7 @@ def _limit_lines(fw: Firmware) -> list[tuple[str, int, str]]:
 def _lsb_lines(fw: Firmware) -> list[tuple[str, str]]:
     """One step of each quantity in SI units; quantities sharing a step key share a line ("pitch, roll")."""
     keys: dict[str, list[interface.Member]] = {}
-    for m in STEPPED:
+    for m in stepped(fw):
         keys.setdefault(m.lsb_key, []).append(m)
     return [
         (", ".join(m.name for m in ms), f"{num(interface.lsb(fw.vehicle, ms[0]))} {ms[0].unit}") for ms in keys.values()
@@ -248,6 +253,28 @@ def _pair_view(op: PairClamp, clamp_names: list[str], prefix: str) -> dict[str, 
     }
 
 
+def _mix_view(op: Mix, clamp_names: list[str], prefix: str) -> dict[str, Any]:
+    """A body-frame pair to one wheel (bodyframe.py): the rounded sum as one C expression, in 64 bits when
+    the proof says so, then the wheel's clamp as one unsigned range test."""
+    cast = "(int64_t)" if op.wide else ""
+    terms = [
+        f"{cast}{name}" + ("" if k == 1 else f" * {k}") for name, k in ((op.along, op.k_along), (op.turn, op.k_turn))
+    ]
+    total = f"{terms[0]} {'+' if op.side == 0 else '-'} {terms[1]}"
+    if op.shift > 0:
+        total = f"({total} + {rounding_half(op.shift)}) >> {op.shift}"
+    bits = [name for k, name in enumerate(clamp_names) if op.mask >> k & 1]
+    return {
+        "kind": "mix",
+        "dst": op.dst,
+        "expr": f"(int32_t)({total})" if op.wide else total,
+        "edge": op.edge,
+        "span": 2 * op.edge,
+        "bits": " | ".join(bits),
+        "unlikely": f"{prefix.upper()}_UNLIKELY",
+    }
+
+
 def _has_pairs(fw: Firmware) -> bool:
     """Whether either program clamps a wheel pair into a region (then the C needs the scaling helper)."""
     return any(isinstance(op, PairClamp) for op in (*fw.design.feedforward.ops, *fw.design.forward.ops))
@@ -260,6 +287,8 @@ def _op_view(op: Op, proof: Proof, clamp_names: list[str], prefix: str) -> dict[
             return _clamp_view(op, clamp_names[op.bit], prefix)
         case PairClamp():
             return _pair_view(op, clamp_names, prefix)
+        case Mix():
+            return _mix_view(op, clamp_names, prefix)
         case Lookup():
             return {"kind": "lookup", "dst": op.dst, "func": f"{prefix}_lookup_{op.table}", "src": op.src}
         case Mul():
@@ -385,7 +414,7 @@ def program_view(
             view = _op_view(ops[k], proof, [n for n, _ in prog.call.clamp_names(prefix)], prefix)
             views.append(_renamed(view, reads) if reads else view)
         k = j
-    last = max(i for i, v in enumerate(views) if v["kind"] in ("clamp", "pair_clamp", "pair_clamp_done"))
+    last = max(i for i, v in enumerate(views) if v["kind"] in ("clamp", "pair_clamp", "pair_clamp_done", "mix"))
     views.insert(last + 1, {"kind": flags})
     return {"name": prog.name, "ops": views}
 
@@ -430,15 +459,24 @@ def _call_view(call: interface.Call, prefix: str) -> dict[str, Any]:
     }
 
 
-PARAMETER = {"m/s": "m_per_s", "m/s^2": "m_per_s2", "rad": "rad", "kg": "kg", "A": "amps"}
+PARAMETER = {
+    "m/s": "m_per_s",
+    "m/s^2": "m_per_s2",
+    "rad": "rad",
+    "rad/s": "rad_per_s",
+    "rad/s^2": "rad_per_s2",
+    "kg": "kg",
+    "A": "amps",
+}
 """The C parameter name of an SI value, by its unit (a name says its unit)."""
 
 
 def conversions(fw: Firmware) -> list[dict[str, str]]:
-    """One SI <-> step pair of helpers per quantity of the feed-forward call (inputs, then the current),
-    from the interface description; the step as a literal that reads back as the same double."""
+    """One SI <-> step pair of helpers per quantity of the two calls (feed-forward inputs, the forward
+    helper's, the current), from the interface description; the step as a literal that reads back as the
+    same double."""
     seen: dict[str, dict[str, str]] = {}
-    for m in (*interface.FF_IN.members, *interface.FF_OUT.members):
+    for m in (*interface.ff_in(fw.vehicle).members, *interface.FWD_IN.members, *interface.FF_OUT.members):
         step = interface.lsb(fw.vehicle, m)
         seen.setdefault(
             m.name,
@@ -478,7 +516,7 @@ def context(fw: Firmware) -> dict[str, Any]:
         "pair_scale": f"{prefix}_pair_scale"
         if any(isinstance(op, PairClamp) for op in fw.design.feedforward.ops)
         else "",
-        "calls": [_call_view(call, prefix) for call in interface.CALLS],
+        "calls": [_call_view(call, prefix) for call in interface.calls(v)],
         "limits": _limit_lines(fw),
         "lsbs": _lsb_lines(fw),
         "ff_bound": f"{num(fw.ff_bound_a)} A (budget {num(f.current_budget_a)} A)",

@@ -64,6 +64,19 @@ def half_track(v: Vehicle) -> float:
     return v.wheels.track_m / 2
 
 
+def wheels_from_body(v: Vehicle, forward: ArrayLike, yaw: ArrayLike) -> tuple[Array, Array]:
+    """Rim values (right, left) of a forward value of P and a yaw value (speeds m/s and rad/s, or their
+    rates): u_R = u + b w, u_L = u - b w (docs/physics.md)."""
+    u, w = np.asarray(forward, dtype=float), np.asarray(yaw, dtype=float)
+    return u + half_track(v) * w, u - half_track(v) * w
+
+
+def body_from_wheels(v: Vehicle, right: ArrayLike, left: ArrayLike) -> tuple[Array, Array]:
+    """The inverse of wheels_from_body: (forward, yaw) = ((u_R + u_L)/2, (u_R - u_L)/(2b))."""
+    r, lf = np.asarray(right, dtype=float), np.asarray(left, dtype=float)
+    return (r + lf) / 2, (r - lf) / (2 * half_track(v))
+
+
 def wheel_radius(v: Vehicle) -> float:
     return v.wheels.diameter_m / 2
 

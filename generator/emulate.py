@@ -16,7 +16,7 @@ import numpy as np
 from . import fixedpoint as fx
 from . import region
 from . import tables as tb
-from .ops import Backdrive, Clamp, Lookup, Mul, Op, PairClamp, Program, Scale, Store, Sum, by_rate
+from .ops import Backdrive, Clamp, Lookup, Mix, Mul, Op, PairClamp, Program, Scale, Store, Sum, by_rate, rounding_half
 
 INT32 = (fx.word_min(32), fx.word_max(32))
 
@@ -46,6 +46,8 @@ def _step(
             return val if integer else val.astype(float)
         case PairClamp():
             return _pair(op, env).astype(np.int64 if integer else float)
+        case Mix():
+            return np.clip(_mixed(op, env), -op.edge, op.edge).astype(np.int64 if integer else float)
         case Lookup():
             src = np.asarray(env[op.src], dtype=np.int64)
             table = tables[op.table]
@@ -90,6 +92,16 @@ def _pair(op: PairClamp, env: Mapping[str, np.ndarray]) -> np.ndarray:
     return region.clamp(right, left, reg, integer=True)[op.side]
 
 
+def _mixed(op: Mix, env: Mapping[str, np.ndarray]) -> np.ndarray:
+    """One wheel of a body-frame pair before its clamp (int64: the C's 64-bit form when `wide`)."""
+    along = np.asarray(env[op.along]).astype(np.int64) * op.k_along
+    turn = np.asarray(env[op.turn]).astype(np.int64) * op.k_turn
+    total = along + turn if op.side == 0 else along - turn
+    if not op.wide:
+        _check32(f"{op.dst} before its shift", total + rounding_half(op.shift))
+    return np.asarray(fx.shift_round(total, op.shift))
+
+
 def _flag(op: Op, inputs: Mapping[str, np.ndarray], env: Mapping[str, np.ndarray]) -> np.ndarray | None:
     """The clamp bit an op sets where its input was outside (a Clamp reads an input; a PairClamp sets
     its wheel's bit where the region moved that wheel)."""
@@ -101,6 +113,8 @@ def _flag(op: Op, inputs: Mapping[str, np.ndarray], env: Mapping[str, np.ndarray
         case PairClamp():
             own = np.asarray(env[op.right if op.side == 0 else op.left]).astype(np.int64)
             return (_pair(op, env) != own).astype(np.int64) << op.bit
+        case Mix():
+            return (np.abs(_mixed(op, env)) > op.edge).astype(np.int64) * op.mask
         case Lookup() | Mul() | Scale() | Sum() | Backdrive() | Store():
             return None
         case _:

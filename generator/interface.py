@@ -17,7 +17,7 @@ from typing import Any
 
 import numpy as np
 
-from . import model, units
+from . import bodyframe, dynamics, model, units
 from .vehicle import Vehicle
 
 SIDES = ("right", "left")  # index 0 and 1 of every two-wheel member
@@ -40,6 +40,7 @@ class Member:
     quantity: units.Kind | None = None  # what a person types for it on the command line
     typed_unit: str = ""  # the unit of a bare number typed for it ("deg" for angles)
     labels: tuple[str, ...] = ()  # per column, for option help ("Right wheel rim speed")
+    body: bool = False  # a body-frame input: its step is bodyframe.lsb (the model key or its default)
 
     @property
     def columns(self) -> tuple[str, ...]:
@@ -57,13 +58,15 @@ class Member:
         return f"{self.what}, {self.steps}"
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, kw_only=True)
 class Struct:
-    """A C struct `<prefix>_<tag>_t`; output structs end with `uint32_t clamped` (one bit per input)."""
+    """A C struct `<prefix>_<tag>_t`; output structs end with `uint32_t clamped` (one bit per input).
+    `body`: its motion members are body-frame (forward, yaw), which to_si turns into wheel values."""
 
     tag: str
     members: tuple[Member, ...]
     clamped: bool = False
+    body: bool = False
 
     @property
     def columns(self) -> tuple[str, ...]:
@@ -169,6 +172,66 @@ PAYLOAD = Member(
     typed_unit="kg",
     labels=("Payload mass",),
 )
+FORWARD_SPEED = Member(
+    name="forward_speed",
+    count=1,
+    what="speed of P, forward > 0",
+    unit="m/s",
+    lsb_key="firmware.forward_speed_lsb",
+    limit="forward_speed",
+    edge_key="envelope.forward_speed_max",
+    si=("forward_speed",),
+    steps="forward speed steps",
+    quantity=units.SPEED,
+    typed_unit="m/s",
+    labels=("Forward speed of P",),
+    body=True,
+)
+YAW_RATE = Member(
+    name="yaw_rate",
+    count=1,
+    what="yaw rate, turning left > 0",
+    unit="rad/s",
+    lsb_key="firmware.yaw_rate_lsb",
+    limit="yaw_rate",
+    edge_key="envelope.yaw_rate_max",
+    si=("yaw_rate",),
+    steps="yaw rate steps",
+    quantity=units.YAW_RATE,
+    typed_unit="rad/s",
+    labels=("Yaw rate, turning left > 0",),
+    body=True,
+)
+FORWARD_ACCEL = dataclasses.replace(
+    FORWARD_SPEED,
+    name="forward_accel",
+    what="acceleration of P, forward > 0",
+    unit="m/s^2",
+    lsb_key="firmware.forward_accel_lsb",
+    limit="forward_accel",
+    edge_key="envelope.forward_accel_max",
+    si=("forward_accel",),
+    steps="forward accel steps",
+    quantity=units.ACCEL,
+    typed_unit="m/s**2",
+    labels=("Forward acceleration of P",),
+)
+YAW_ACCEL = dataclasses.replace(
+    YAW_RATE,
+    name="yaw_accel",
+    what="yaw acceleration, turning left > 0",
+    unit="rad/s^2",
+    lsb_key="firmware.yaw_accel_lsb",
+    limit="yaw_accel",
+    edge_key="envelope.yaw_accel_max",
+    si=("yaw_accel",),
+    steps="yaw accel steps",
+    quantity=units.YAW_ACCEL,
+    typed_unit="rad/s**2",
+    labels=("Yaw acceleration, turning left > 0",),
+)
+BODY_PAIRS = {"speed": (FORWARD_SPEED, YAW_RATE), "accel": (FORWARD_ACCEL, YAW_ACCEL)}
+"""The body-frame (forward, yaw) members that stand for each wheel pair."""
 CURRENT_IN = Member(
     name="current",
     count=2,
@@ -191,11 +254,15 @@ ACCEL_OUT = Member(
     steps="accel steps",
 )
 
-FF_IN = Struct("ff_in", (SPEED, ACCEL, PITCH, ROLL, PAYLOAD))
-FF_OUT = Struct("ff_out", (CURRENT_OUT,), clamped=True)
-FWD_IN = Struct("fwd_in", (CURRENT_IN, SPEED, PITCH, ROLL, PAYLOAD))
-FWD_OUT = Struct("fwd_out", (ACCEL_OUT,), clamped=True)
-MEASURED = Struct("link_measured", (CURRENT_IN, SPEED))
+FF_IN = Struct(tag="ff_in", members=(SPEED, ACCEL, PITCH, ROLL, PAYLOAD))
+FF_IN_BODY = Struct(
+    tag="ff_in", members=(FORWARD_SPEED, YAW_RATE, FORWARD_ACCEL, YAW_ACCEL, PITCH, ROLL, PAYLOAD), body=True
+)
+"""The feed-forward inputs with firmware.inputs = 'body' (same size, same clamp-bit count)."""
+FF_OUT = Struct(tag="ff_out", members=(CURRENT_OUT,), clamped=True)
+FWD_IN = Struct(tag="fwd_in", members=(CURRENT_IN, SPEED, PITCH, ROLL, PAYLOAD))
+FWD_OUT = Struct(tag="fwd_out", members=(ACCEL_OUT,), clamped=True)
+MEASURED = Struct(tag="link_measured", members=(CURRENT_IN, SPEED))
 """What the drive firmware measures for the bench link each tick (motor currents, rim speeds)."""
 
 
@@ -218,8 +285,23 @@ class Call:
 
 
 FEEDFORWARD = Call(name="feedforward", inputs=FF_IN, outputs=FF_OUT, clamp_tag="CLAMPED")
+FEEDFORWARD_BODY = Call(name="feedforward", inputs=FF_IN_BODY, outputs=FF_OUT, clamp_tag="CLAMPED")
 FORWARD = Call(name="forward", inputs=FWD_IN, outputs=FWD_OUT, clamp_tag="FWD_CLAMPED")
 CALLS = (FEEDFORWARD, FORWARD)
+
+
+def feedforward(v: Vehicle) -> Call:
+    """The vehicle's feed-forward call: wheel inputs, or body-frame inputs (firmware.inputs)."""
+    return FEEDFORWARD_BODY if bodyframe.is_body(v) else FEEDFORWARD
+
+
+def ff_in(v: Vehicle) -> Struct:
+    """The vehicle's feed-forward input struct: what the C takes, the vectors, plans and the wire carry."""
+    return feedforward(v).inputs
+
+
+def calls(v: Vehicle) -> tuple[Call, Call]:
+    return feedforward(v), FORWARD
 
 
 def file_names(prefix: str) -> dict[str, str]:
@@ -247,6 +329,8 @@ def column_edges(limits: Any, st: Struct) -> tuple[np.ndarray, np.ndarray]:
 
 def lsb(v: Vehicle, member: Member) -> float:
     """SI value of one step of the member."""
+    if member.body:
+        return bodyframe.lsb(v, member.name)
     result = model.value(v, member.lsb_key)
     assert isinstance(result, float)
     return result
@@ -273,7 +357,9 @@ def fields_to_rows(st: Struct, fields: dict[str, np.ndarray]) -> np.ndarray:
 def to_steps(v: Vehicle, st: Struct, si: dict[str, Any]) -> dict[str, np.ndarray]:
     """SI values keyed by OperatingPoint attribute -> firmware steps (round to nearest, ties up).
 
-    A value that does not fit the firmware's int32 raises ValueError naming the column."""
+    A value that does not fit the firmware's int32 raises ValueError naming the column. A body-frame
+    struct takes its values from the wheel ones (with_body)."""
+    si = with_body(v, si) if st.body else si
     out = {}
     for m in st.members:
         cols = []
@@ -297,8 +383,41 @@ def si_of_fields(st: Struct, fields: dict[str, Any]) -> dict[str, np.ndarray]:
 
 
 def to_si(v: Vehicle, st: Struct, steps: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
-    """Firmware steps -> SI values keyed by OperatingPoint attribute (exact products)."""
+    """Firmware steps -> SI values keyed by OperatingPoint attribute (exact products; body-frame values
+    turned into the wheel values they stand for, dynamics.wheels_from_body)."""
+    si = struct_si(v, st, steps)
+    return to_wheels(v, si) if st.body else si
+
+
+def struct_si(v: Vehicle, st: Struct, steps: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+    """Firmware steps -> SI values keyed by the struct's own SI names (body-frame values kept as such)."""
     return si_of_fields(st, {m.name: np.asarray(steps[m.name], dtype=float) * lsb(v, m) for m in st.members})
+
+
+def with_body(v: Vehicle, si: dict[str, Any]) -> dict[str, Any]:
+    """SI values keyed by OperatingPoint attribute, plus the body-frame values of each wheel pair
+    (forward_speed, yaw_rate, forward_accel, yaw_accel) unless already there."""
+    out = dict(si)
+    for pair, (along, turn) in BODY_PAIRS.items():
+        if along.si[0] not in out:
+            out[along.si[0]], out[turn.si[0]] = dynamics.body_from_wheels(v, si[f"{pair}_right"], si[f"{pair}_left"])
+    return out
+
+
+def to_wheels(v: Vehicle, si: dict[str, Any]) -> dict[str, Any]:
+    """The inverse of with_body: body-frame values replaced by the wheel values they stand for."""
+    out = dict(si)
+    for pair, (along, turn) in BODY_PAIRS.items():
+        if along.si[0] in out:
+            right, left = dynamics.wheels_from_body(v, out.pop(along.si[0]), out.pop(turn.si[0]))
+            out[f"{pair}_right"], out[f"{pair}_left"] = right, left
+    return out
+
+
+def columns_si(v: Vehicle, st: Struct, si: dict[str, Any]) -> dict[str, Any]:
+    """SI values keyed by OperatingPoint attribute -> keyed by the struct's columns (a plan file's row)."""
+    full = with_body(v, si) if st.body else si
+    return {c: full[a] for c, a in st.si_names().items()}
 
 
 def shown(m: Member) -> tuple[str, Any]:

@@ -253,6 +253,43 @@ SCHEMA: dict[str, dict[str, Key]] = {
             "Jacobian and mass matrix, and the forward helper gets a form for it (default: none)",
             optional=True,
         ),
+        "inputs": K(
+            CHOICE,
+            "inputs",
+            None,
+            "what the feed-forward takes: 'wheels' (rim speed and acceleration per wheel) or 'body' (forward "
+            "speed and acceleration of P, yaw rate and yaw acceleration, in the four steps below; default: wheels)",
+            choices=("wheels", "body"),
+            optional=True,
+        ),
+        "forward_speed_lsb": K(
+            L.SPEED,
+            "forward_speed_lsb_mps",
+            U(0, 30, "m/s"),
+            "speed of P of one body-frame step (inputs = 'body'; default: speed_lsb)",
+            optional=True,
+        ),
+        "yaw_rate_lsb": K(
+            L.YAW_RATE,
+            "yaw_rate_lsb_radps",
+            U(0, 100, "rad/s"),
+            "yaw rate of one body-frame step (inputs = 'body'; default: speed_lsb / (track/2), one wheel step)",
+            optional=True,
+        ),
+        "forward_accel_lsb": K(
+            L.ACCEL,
+            "forward_accel_lsb_mps2",
+            U(0, 50, "m/s^2"),
+            "acceleration of P of one body-frame step (inputs = 'body'; default: accel_lsb)",
+            optional=True,
+        ),
+        "yaw_accel_lsb": K(
+            L.YAW_ACCEL,
+            "yaw_accel_lsb_radps2",
+            U(0, 1000, "rad/s^2"),
+            "yaw acceleration of one body-frame step (inputs = 'body'; default: accel_lsb / (track/2))",
+            optional=True,
+        ),
         "accel_budget": K(
             L.ACCEL,
             "accel_budget_mps2",
@@ -411,6 +448,7 @@ def _firmware_steps(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any])
     deadband rules, so a step coarser than the envelope names the step, not the deadband)."""
     fr, env, fw = s["friction"], s["envelope"], s["firmware"]
     _body_steps(src, s, raw)
+    _body_inputs(src, s, raw)
     steps = [
         ("speed_lsb", env["speed_max"], "envelope.speed_max"),
         ("accel_lsb", env["accel_max"], "envelope.accel_max"),
@@ -445,6 +483,46 @@ def _body_steps(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any]) -> 
                 f"envelope.{key}",
                 f"a limit{per_wheel} of at least one firmware.{lsb} ({fw[lsb]:g})",
                 _describe_raw(raw["envelope"][key]),
+            )
+
+
+BODY_STEPS = (
+    ("forward_speed_lsb", "forward_speed_max", "speed"),
+    ("yaw_rate_lsb", "yaw_rate_max", "speed"),
+    ("forward_accel_lsb", "forward_accel_max", "accel"),
+    ("yaw_accel_lsb", "yaw_accel_max", "accel"),
+)
+"""Each body-frame input step key, its envelope limit and the wheel quantity it moves."""
+
+
+def _body_inputs(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any]) -> None:
+    """Body-frame steps are set only with inputs = 'body', and then each puts its limit (the key, or
+    what the wheel limits allow) between 1 and 2^30 steps; 'wheels' is stored as unset (same fingerprint)."""
+    env, fw, half_track = s["envelope"], s["firmware"], s["wheels"]["track"] / 2
+    body = fw["inputs"] == "body"
+    fw["inputs"] = "body" if body else None
+    for key, limit, quantity in BODY_STEPS:
+        if fw[key] is not None and not body:
+            raise ModelError(
+                src,
+                f"firmware.{key}",
+                "a body-frame step only with firmware.inputs = 'body'",
+                _describe_raw(raw["firmware"][key]),
+            )
+        if not body:
+            continue
+        wheel_max = env[f"{quantity}_max"]
+        per_wheel = 1.0 if limit.startswith("forward") else half_track
+        span = min(wheel_max / per_wheel, env[limit]) if env[limit] is not None else wheel_max / per_wheel
+        lsb = fw[key] if fw[key] is not None else fw[f"{quantity}_lsb"] / per_wheel
+        count = span / lsb
+        if count > MAX_STEPS or count < 1:
+            found = _describe_raw(raw["firmware"][key]) if fw[key] is not None else f"the default {lsb:g}"
+            raise ModelError(
+                src,
+                f"firmware.{key}",
+                f"a step that puts {limit} ({span:g}) between 1 and 2^30 steps",
+                f"{found} ({count:.3g} steps)",
             )
 
 

@@ -43,6 +43,24 @@ class PairClamp:
     bit: int
 
 
+@dataclass(frozen=True, kw_only=True)
+class Mix:
+    """dst = wheel `side` (0 right, 1 left) of a body-frame pair (bodyframe.py): round((along k_along
+    +- turn k_turn) / 2^shift), + for the right wheel, then clamped to +-edge; flags |= mask (both of the
+    pair's bits) when the clamp moved it. `wide`: the products and their sum need 64 bits."""
+
+    dst: str
+    along: str
+    turn: str
+    side: int
+    k_along: int
+    k_turn: int
+    shift: int
+    wide: bool
+    edge: int
+    mask: int
+
+
 @dataclass(frozen=True)
 class Lookup:
     dst: str
@@ -102,7 +120,7 @@ class Store:
     shift: int
 
 
-Op = Clamp | PairClamp | Lookup | Mul | Scale | Sum | Backdrive | Store
+Op = Clamp | PairClamp | Mix | Lookup | Mul | Scale | Sum | Backdrive | Store
 """Every op kind. A new kind is added here, then wherever `assert_never` fails the type check:
 op_range (below), emulate.run, analysis.prove, analysis._error_step, cview._op_view, ff/ops.j2."""
 
@@ -114,6 +132,8 @@ def op_inputs(op: Op) -> tuple[str, ...]:
             return ()
         case PairClamp():
             return (op.right, op.left)
+        case Mix():
+            return (op.along, op.turn)
         case Lookup():
             return (op.src,)
         case Mul():
@@ -167,7 +187,7 @@ def _is_slow(op: Op, slow_names: set[str]) -> bool:
             return op.field in SLOW_FIELDS
         case Store():
             return False
-        case PairClamp() | Lookup() | Mul() | Scale() | Sum() | Backdrive():
+        case PairClamp() | Mix() | Lookup() | Mul() | Scale() | Sum() | Backdrive():
             return all(name in slow_names for name in op_inputs(op))
         case _:
             assert_never(op)
@@ -180,7 +200,7 @@ def op_table(op: Op) -> str | None:
             return op.table
         case Backdrive():
             return op.table
-        case Clamp() | PairClamp() | Mul() | Scale() | Sum() | Store():
+        case Clamp() | PairClamp() | Mix() | Mul() | Scale() | Sum() | Store():
             return None
         case _:
             assert_never(op)
@@ -197,7 +217,7 @@ def op_range(op: Op, rng: dict[str, fx.Interval], lookup: Callable[[Lookup | Bac
     match op:
         case Clamp():
             return fx.Interval(op.lo, op.hi)
-        case PairClamp():
+        case PairClamp() | Mix():
             return fx.Interval(-op.edge, op.edge)
         case Lookup():
             return lookup(op)

@@ -8,13 +8,14 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
+from . import bodyframe, interface
 from . import fixedpoint as fx
-from . import interface
 from . import tables as tb
 from .ops import (
     Backdrive,
     Clamp,
     Lookup,
+    Mix,
     Mul,
     Op,
     PairClamp,
@@ -49,8 +50,10 @@ class Design:
 class _Builder:
     """Appends ops and keeps a conservative integer range per signal (for pre-shift decisions)."""
 
-    def __init__(self, program: Program, specs: dict[str, tb.TableSpec], bits: int, *, exact: bool) -> None:
-        self.p, self.specs, self.bits, self.exact = program, specs, bits, exact
+    def __init__(
+        self, program: Program, specs: dict[str, tb.TableSpec], bits: int, *, exact: bool, vehicle: Vehicle
+    ) -> None:
+        self.p, self.specs, self.bits, self.exact, self.vehicle = program, specs, bits, exact, vehicle
         self.rng: dict[str, fx.Interval] = {}
         self.cor_shift = 0  # the Coriolis product's shift once its shared prefactor is made
 
@@ -70,7 +73,7 @@ class _Builder:
         self._add(Clamp(dst=dst, field=fieldname, index=index, lo=lo, hi=hi, bit=bit))
         return dst
 
-    def pair_clamp(self, op: PairClamp) -> str:
+    def pair_clamp(self, op: PairClamp | Mix) -> str:
         self._add(op)
         return op.dst
 
@@ -171,6 +174,10 @@ SIGNAL = {
     "pitch": "pitch",
     "roll": "roll",
     "payload": "payload",
+    "forward_speed": "forward_speed",
+    "yaw_rate": "yaw_rate",
+    "forward_accel": "forward_accel",
+    "yaw_accel": "yaw_accel",
 }  # member -> the program's signal name of its clamped value
 
 
@@ -204,10 +211,37 @@ def _clamps(bd: _Builder, lim: Limits, call: interface.Call, order: tuple[str, .
                 )
 
 
+def _body_inputs(bd: _Builder, lim: Limits, call: interface.Call) -> None:
+    """Body-frame inputs: each clamped to its own edge, then each pair turned into wheel steps and each
+    wheel clamped to its edge (bodyframe.py); a wheel clamp sets both of its pair's bits."""
+    _clamps(bd, lim, call, ("pitch", "roll", "payload", "forward_speed", "yaw_rate", "forward_accel", "yaw_accel"))
+    for pair, (along, turn) in interface.BODY_PAIRS.items():
+        mix = bodyframe.mix(bd.vehicle, pair)
+        mask = (1 << call.clamp_bit(along.name)) | (1 << call.clamp_bit(turn.name))
+        for side in (0, 1):
+            bd.pair_clamp(
+                Mix(
+                    dst=f"{SIGNAL[pair]}_{'rl'[side]}",
+                    along=SIGNAL[along.name],
+                    turn=SIGNAL[turn.name],
+                    side=side,
+                    k_along=mix.k_along,
+                    k_turn=mix.k_turn,
+                    shift=mix.shift,
+                    wide=mix.wide,
+                    edge=getattr(lim, pair),
+                    mask=mask,
+                )
+            )
+
+
 def _common(bd: _Builder, lim: Limits, call: interface.Call, pair: str) -> None:
     """All clamps first (the flags are then final and leave the registers), then the pitch/roll/payload
     lookups, gravity and the rolling-resistance level. `pair` is the other two-wheel input."""
-    _clamps(bd, lim, call, ("pitch", "roll", "payload", "speed", pair))
+    if call.inputs.body:
+        _body_inputs(bd, lim, call)
+    else:
+        _clamps(bd, lim, call, ("pitch", "roll", "payload", "speed", pair))
     s = bd.specs
     for name, src in (
         ("sin_pitch", "pitch"),
@@ -254,8 +288,8 @@ def _passive(bd: _Builder, side: str, sign: int, other: str) -> str:
 
 
 def _feedforward(v: Vehicle, specs: dict[str, tb.TableSpec], lim: Limits, *, guard: int, exact: bool) -> Program:
-    prog = Program(interface.FEEDFORWARD)
-    bd = _Builder(prog, specs, specs["m11"].bits, exact=exact)
+    prog = Program(interface.feedforward(v))
+    bd = _Builder(prog, specs, specs["m11"].bits, exact=exact, vehicle=v)
     _common(bd, lim, prog.call, "accel")
     bd.lookup("t_m11", "m11", "payload")
     bd.lookup("t_m12", "m12", "payload")
@@ -279,7 +313,7 @@ def _forward(
     v: Vehicle, specs: dict[str, tb.TableSpec], lim: Limits, *, guard: int, aguard: int, exact: bool
 ) -> Program:
     prog = Program(interface.FORWARD)
-    bd = _Builder(prog, specs, specs["m11"].bits, exact=exact)
+    bd = _Builder(prog, specs, specs["m11"].bits, exact=exact, vehicle=v)
     _common(bd, lim, prog.call, "current")
     bd.lookup("t_minv11", "minv11", "payload")
     bd.lookup("t_minv12", "minv12", "payload")

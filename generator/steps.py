@@ -10,9 +10,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import dynamics, emulate, interface
+from . import bodyframe, dynamics, emulate, interface
 from .accuracy import envelope_points, inside_envelope, operating_point
-from .interface import FF_IN
 from .synthesis import Firmware
 
 NEIGHBOUR_POINTS = 2000
@@ -49,31 +48,38 @@ def _jumps(fw: Firmware, rows: np.ndarray, column: int) -> tuple[np.ndarray, np.
     less the model's own (motoring efficiency); zero where the moved row leaves the envelope."""
     moved = rows.copy()
     moved[:, column] += 1
-    lsb = fw.vehicle.firmware.current_lsb_a
-    run = lambda r: emulate.run(fw.design.feedforward, fw.tables, interface.rows_to_fields(FF_IN, r))  # noqa: E731
+    lsb, st = fw.vehicle.firmware.current_lsb_a, interface.ff_in(fw.vehicle)
+    run = lambda r: emulate.run(fw.design.feedforward, fw.tables, interface.rows_to_fields(st, r))  # noqa: E731
     fw_jump = np.abs(run(moved)["current"] - run(rows)["current"]) * lsb
     motoring = _motoring(fw)
-    ref = lambda r: dynamics.wheel_currents(motoring, operating_point(fw, interface.rows_to_fields(FF_IN, r)))  # noqa: E731
+    ref = lambda r: dynamics.wheel_currents(motoring, operating_point(fw, interface.rows_to_fields(st, r)))  # noqa: E731
     model_jump = np.abs(ref(moved) - ref(rows))
-    out = ~inside_envelope(fw.design.limits, moved)
+    out = ~inside_envelope(fw.vehicle, fw.design.limits, moved)
     fw_jump[out], model_jump[out] = 0.0, 0.0
     return fw_jump.max(axis=1), (fw_jump - model_jump).max(axis=1)
 
 
 def _edges(fw: Firmware) -> np.ndarray:
     """Every combination of each input's edges and zero, inside the envelope."""
-    lo, hi = interface.column_edges(fw.design.limits, FF_IN)
+    lo, hi = interface.column_edges(fw.design.limits, interface.ff_in(fw.vehicle))
     grid = np.stack(np.meshgrid(*[np.unique([a, 0, b]) for a, b in zip(lo, hi)], indexing="ij"), -1)
     edges = grid.reshape(-1, len(lo))
-    return edges[inside_envelope(fw.design.limits, edges)]
+    return edges[inside_envelope(fw.vehicle, fw.design.limits, edges)]
 
 
-def _speed_places(fw: Firmware) -> list[int]:
-    """Where speed steps matter most: around zero, the deadband edges, the blend band (middle and end)."""
+SPEED_INPUTS = {"speed": "", "forward_speed": "r_along", "yaw_rate": "r_turn"}
+"""The inputs that move a wheel's speed, and for body-frame ones the ratio of the conversion (wheel
+steps per input step, bodyframe.Mix) that their places are divided by."""
+
+
+def _speed_places(fw: Firmware, name: str) -> list[int]:
+    """Where speed steps matter most: around zero, the deadband edges, the blend band (middle and end);
+    for a body-frame input the nearest of its own steps."""
     lsb = fw.vehicle.firmware.speed_lsb_mps
     band = int(dynamics.blend_width(fw.vehicle) / lsb)
     places = {0, 1, 2, fw.design.limits.deadband, fw.design.limits.deadband + 1, band // 2, band, band + 1}
-    return sorted({x for p in places for x in (p, -p - 1)})
+    ratio = getattr(bodyframe.mix(fw.vehicle, "speed"), SPEED_INPUTS[name]) if SPEED_INPUTS[name] else 1.0
+    return sorted({x for p in places for x in (round(p / ratio), -round(p / ratio) - 1)})
 
 
 def neighbour_steps(fw: Firmware) -> dict[str, NeighbourStep]:
@@ -82,17 +88,17 @@ def neighbour_steps(fw: Firmware) -> dict[str, NeighbourStep]:
     NEIGHBOUR_POINTS random points inside the envelope and every combination of each input's edges and
     zero; then again over that combination at the place found, and for speed at zero, the deadband
     edges and across the blend band. Sampled, not proven."""
-    edges = _edges(fw)
-    base = np.concatenate([interface.fields_to_rows(FF_IN, envelope_points(fw, NEIGHBOUR_POINTS, 11)), edges])
+    edges, st = _edges(fw), interface.ff_in(fw.vehicle)
+    base = np.concatenate([interface.fields_to_rows(st, envelope_points(fw, NEIGHBOUR_POINTS, 11)), edges])
     out = {}
-    for m in FF_IN.members:
+    for m in st.members:
         best = NeighbourStep(amps=0.0, at=0)
         for column in m.columns:
-            j = FF_IN.columns.index(column)
+            j = st.columns.index(column)
             jump, excess = _jumps(fw, base, j)
             places = {int(base[int(np.argmax(jump)), j]), int(base[int(np.argmax(excess)), j])}
-            places |= set(_speed_places(fw)) if m is interface.SPEED else set()
-            rows = np.concatenate([base, *[np.where(np.arange(len(FF_IN.columns)) == j, p, edges) for p in places]])
+            places |= set(_speed_places(fw, m.name)) if m.name in SPEED_INPUTS else set()
+            rows = np.concatenate([base, *[np.where(np.arange(len(st.columns)) == j, p, edges) for p in places]])
             jump, excess = _jumps(fw, rows, j)
             a, e = int(np.argmax(jump)), int(np.argmax(excess))
             best = NeighbourStep(

@@ -262,4 +262,4 @@ def firmware_inputs(v: Vehicle, op: dynamics.OperatingPoint) -> dict[str, np.nda
     """SI operating point(s) -> feed-forward inputs in firmware steps (round to nearest, ties up);
     ValueError names an input beyond the firmware's int32 steps."""
     si = {f.name: getattr(op, f.name) for f in dataclasses.fields(op)}
-    return interface.to_steps(v, interface.FF_IN, si)
+    return interface.to_steps(v, interface.ff_in(v), si)

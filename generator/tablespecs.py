@@ -10,7 +10,7 @@ from typing import Any
 
 import numpy as np
 
-from . import dynamics, region
+from . import bodyframe, dynamics, region
 from . import fixedpoint as fx
 from . import tables as tb
 from .vehicle import Vehicle
@@ -30,6 +30,10 @@ class Limits:
     current: int
     speed_pair: region.PairRegion
     accel_pair: region.PairRegion
+    forward_speed: int  # the body-frame inputs' edges in their steps (bodyframe.limit_steps)
+    yaw_rate: int
+    forward_accel: int
+    yaw_accel: int
 
 
 def limits_of(v: Vehicle) -> Limits:
@@ -47,6 +51,7 @@ def limits_of(v: Vehicle) -> Limits:
         current=fx.steps_covering(v.drive.current_limit_a, fw.current_lsb_a),
         speed_pair=speeds,
         accel_pair=accels,
+        **{q: bodyframe.limit_steps(v, q) for q in ("forward_speed", "yaw_rate", "forward_accel", "yaw_accel")},
     )
     assert lim.deadband < lim.speed, "the loader keeps the deadband below each wheel's largest speed"
     return lim

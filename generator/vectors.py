@@ -12,8 +12,9 @@ from typing import Any
 
 import numpy as np
 
-from . import emulate, interface, region
+from . import bodyframe, emulate, interface, region
 from .interface import FF_IN, FF_OUT
+from .vehicle import Vehicle
 
 
 def _corners(lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
@@ -66,8 +67,39 @@ def _special_rows(lim: Any, lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
     return np.concatenate([dead, outside])
 
 
-def feedforward_inputs(lim: Any, count: int = 10_000, seed: int = 20261202) -> dict[str, np.ndarray]:
-    """Inputs in firmware steps: every corner, the deadband edges, clamping cases, then random points."""
+def feedforward_inputs(
+    lim: Any, count: int = 10_000, seed: int = 20261202, *, vehicle: Vehicle | None = None
+) -> dict[str, np.ndarray]:
+    """Inputs in firmware steps: every corner, the deadband edges, clamping cases, then random points; in
+    the vehicle's input frame (body-frame inputs: the same cases turned into it, plus its own corners)."""
+    wheels = _wheel_inputs(lim, count, seed)
+    if vehicle is None or not bodyframe.is_body(vehicle):
+        return wheels
+    return _body_inputs(vehicle, lim, wheels)
+
+
+def _body_inputs(v: Vehicle, lim: Any, wheels: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+    """The wheel cases as body-frame inputs (nearest steps), then every combination of each body input's
+    edges and zero with both edges of the others, and one step beyond each body edge."""
+    st = interface.ff_in(v)
+    out = {k: x for k, x in wheels.items() if k not in ("speed", "accel")}
+    for pair, (along, turn) in interface.BODY_PAIRS.items():
+        mix = bodyframe.mix(v, pair)
+        w = wheels[pair].astype(float)
+        big = np.iinfo(np.int32)
+        out[along.name] = np.clip(np.floor((w[:, 0] + w[:, 1]) / 2 / mix.r_along + 0.5), big.min, big.max)
+        out[turn.name] = np.clip(np.floor((w[:, 0] - w[:, 1]) / 2 / mix.r_turn + 0.5), big.min, big.max)
+    converted = interface.fields_to_rows(st, out).astype(np.int64)
+    lo, hi = interface.column_edges(lim, st)
+    assert all(m.count == 1 for m in st.members), "a body-frame struct has one column per member"
+    grid = [np.unique([lo[k], 0, hi[k]]) if m.body else np.array([lo[k], hi[k]]) for k, m in enumerate(st.members)]
+    corners = np.stack(np.meshgrid(*grid, indexing="ij"), -1).reshape(-1, len(lo))
+    beyond = np.where(np.arange(len(lo)) % 2 == 0, hi + 1, lo - 1)[None, :]
+    return interface.rows_to_fields(st, np.concatenate([corners, beyond, converted]).astype(np.int64))
+
+
+def _wheel_inputs(lim: Any, count: int, seed: int) -> dict[str, np.ndarray]:
+    """feedforward_inputs in wheel steps."""
     rng = np.random.default_rng(seed)
     lo, hi = interface.column_edges(lim, FF_IN)
     fixed = np.concatenate([_corners(lo, hi), _special_rows(lim, lo, hi), _region_rows(lim, lo, hi)])
@@ -82,16 +114,20 @@ def feedforward_inputs(lim: Any, count: int = 10_000, seed: int = 20261202) -> d
 
 def feedforward_table(fw: Any, count: int = 10_000) -> np.ndarray:
     """Rows of inputs and expected outputs (the FF_OUT columns, then the clamp bits), int64."""
-    inp = feedforward_inputs(fw.design.limits, count)
+    inp = feedforward_inputs(fw.design.limits, count, vehicle=fw.vehicle)
     out = emulate.run(fw.design.feedforward, fw.tables, inp)
     return np.column_stack(
-        [interface.fields_to_rows(FF_IN, inp), interface.fields_to_rows(FF_OUT, out), out["clamped"]]
+        [
+            interface.fields_to_rows(interface.ff_in(fw.vehicle), inp),
+            interface.fields_to_rows(FF_OUT, out),
+            out["clamped"],
+        ]
     )
 
 
-def header() -> tuple[str, ...]:
+def header(v: Vehicle) -> tuple[str, ...]:
     """The CSV column names: inputs, outputs, clamp bits."""
-    return FF_IN.columns + FF_OUT.columns + ("clamped",)
+    return interface.ff_in(v).columns + FF_OUT.columns + ("clamped",)
 
 
 def to_csv(fw: Any, rows: np.ndarray) -> str:
@@ -100,7 +136,7 @@ def to_csv(fw: Any, rows: np.ndarray) -> str:
         f"# {fw.vehicle.name}_feedforward golden vectors, fingerprint 0x{fw.fingerprint:08X}; "
         "firmware steps (see the header for units)\n"
     )
-    buf.write(",".join(header()) + "\n")
+    buf.write(",".join(header(fw.vehicle)) + "\n")
     for row in rows:
         buf.write(",".join(str(int(x)) for x in row) + "\n")
     return buf.getvalue()

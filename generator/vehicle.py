@@ -88,6 +88,11 @@ class FirmwareFormat:
     current_step_margin_a: float | None = None  # None: 4 x current_budget (steps.margin_a)
     accel_budget_mps2: float | None = None  # None: synthesis.forward_budget's default
     point_ahead_m: float | None = None  # the look-ahead point (dynamics.point_jacobian); None: none
+    inputs: str | None = None  # "body": the feed-forward takes body-frame inputs (bodyframe.py); None: wheels
+    forward_speed_lsb_mps: float | None = None  # body-frame input steps; None: bodyframe.lsb's default
+    yaw_rate_lsb_radps: float | None = None
+    forward_accel_lsb_mps2: float | None = None
+    yaw_accel_lsb_radps2: float | None = None
 
 
 @dataclass(frozen=True)

@@ -11,13 +11,12 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-from kinetab.generator import dynamics
+from kinetab.generator import dynamics, interface
 from kinetab.generator.errors import UserError
 from kinetab.generator.vehicle import Vehicle
 
 from . import messages
-from .benchlog import LOG_COLUMNS
-from .planfile import SI_NAME
+from .benchlog import log_columns
 
 SG_WINDOW_S = 0.1  # Savitzky-Golay window for accelerations from measured speeds
 TIGHT_TRACKING = 0.005  # RMS speed error below this fraction of speed_max counts as tight tracking
@@ -42,9 +41,25 @@ class BenchLog:
         return len(self.t)
 
 
-def read_log(path: Path, rig: str | None = None) -> BenchLog:
+def _log_struct(path: Path, header: tuple[str, ...], v: Vehicle | None) -> interface.Struct:
+    """The feed-forward struct whose setpoint columns the log has: the vehicle's (wheel inputs without
+    one); one UserError line naming firmware.inputs when the log is of the other form."""
+    want = interface.FF_IN if v is None else interface.ff_in(v)
+    if header == log_columns(want):
+        return want
+    other = interface.FF_IN_BODY if not want.body else interface.FF_IN
+    if header == log_columns(other):
+        form, mine = ("body-frame", "wheel") if other.body else ("wheel", "body-frame")
+        raise UserError(
+            f"{path}:1: a log of {form} setpoints, but the model's firmware takes {mine} inputs (firmware.inputs)"
+        )
+    raise UserError(f"{path}:1: expected a bench log with the header {','.join(log_columns(want))}")
+
+
+def read_log(path: Path, rig: str | None = None, vehicle: Vehicle | None = None) -> BenchLog:
     """Read LOG.csv (and the rig from LOG.json, unless given); one UserError line when it cannot be.
-    numpy's C parser reads the columns (a Python loop over the cells took ~0.5 s per minute of log)."""
+    Setpoints in the vehicle's input form (body-frame ones turned into wheel values). numpy's C parser
+    reads the columns (a Python loop over the cells took ~0.5 s per minute of log)."""
     try:
         with path.open(encoding="utf-8") as fh:
             header = next(csv.reader([fh.readline()]), [])
@@ -52,10 +67,10 @@ def read_log(path: Path, rig: str | None = None) -> BenchLog:
         raise UserError(
             f"{path}: cannot read the log ({getattr(exc, 'strerror', None) or type(exc).__name__})"
         ) from None
-    if tuple(header) != LOG_COLUMNS:
-        raise UserError(f"{path}:1: expected a bench log with the header {','.join(LOG_COLUMNS)}")
-    col = {name: k for k, name in enumerate(LOG_COLUMNS)}
-    numeric = [k for k, name in enumerate(LOG_COLUMNS) if name != "phase"]
+    st = _log_struct(path, tuple(header), vehicle)
+    columns = log_columns(st)
+    col = {name: k for k, name in enumerate(columns)}
+    numeric = [k for k, name in enumerate(columns) if name != "phase"]
     try:
         num = np.loadtxt(path, delimiter=",", skiprows=1, usecols=numeric, ndmin=2, encoding="utf-8")
         phase = np.loadtxt(
@@ -65,18 +80,21 @@ def read_log(path: Path, rig: str | None = None) -> BenchLog:
         raise UserError(f"{path}: every column but phase must be a number") from None
     if len(num) < 50:
         raise UserError(f"{path}: expected at least 50 rows, found {len(num)}")
-    names = [c for c in LOG_COLUMNS if c != "phase"]
+    names = [c for c in columns if c != "phase"]
     get = {c: num[:, names.index(c)] for c in names}
     meta = _side_file(path)
     recorded = str(meta.get("rig", "on-floor"))
-    attrs = SI_NAME  # plan columns -> OperatingPoint attributes
+    setpoint = {a: get[c] for c, a in st.si_names().items()}
+    if st.body:
+        assert vehicle is not None
+        setpoint = interface.to_wheels(vehicle, setpoint)
     pair = lambda a, b: np.column_stack([get[a], get[b]])  # noqa: E731
     return BenchLog(
         path=path,
         rig=rig or recorded,
         t=get["t"],
         phase=phase,
-        setpoint={attrs[k]: get[k] for k in attrs},
+        setpoint=setpoint,
         ff=pair("ff_current_right", "ff_current_left"),
         current=pair("current_right", "current_left"),
         speed=pair("measured_speed_right", "measured_speed_left"),

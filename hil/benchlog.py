@@ -13,24 +13,32 @@ from kinetab.generator.errors import UserError
 from kinetab.generator.vehicle import Vehicle
 
 from . import messages
-from .planfile import PLAN_COLUMNS, SI_NAME, Plan
+from .planfile import Plan, plan_columns
 
-LOG_COLUMNS = (
-    "t",
-    "seq",
-    "phase",
-    *PLAN_COLUMNS[1:],
-    "ff_current_right",
-    "ff_current_left",
-    "current_right",
-    "current_left",
-    "measured_speed_right",
-    "measured_speed_left",
-    "status",
-    "clamped",
-)
-"""SI units: s, m/s, m/s^2, rad, kg, A; the setpoint columns hold what the controller received
-(firmware steps times their step), status and clamped are the sample's bits."""
+
+def log_columns(st: interface.Struct = interface.FF_IN) -> tuple[str, ...]:
+    """A log's columns: time, sequence, phase, the setpoint in the struct's columns, the feed-forward,
+    the measurements and the bits."""
+    return (
+        "t",
+        "seq",
+        "phase",
+        *plan_columns(st)[1:],
+        "ff_current_right",
+        "ff_current_left",
+        "current_right",
+        "current_left",
+        "measured_speed_right",
+        "measured_speed_left",
+        "status",
+        "clamped",
+    )
+
+
+LOG_COLUMNS = log_columns()
+"""SI units: s, m/s, m/s^2, rad, kg, A (rad/s, rad/s^2 for body-frame setpoints, log_columns(FF_IN_BODY));
+the setpoint columns hold what the controller received (firmware steps times their step), status and
+clamped are the sample's bits."""
 
 
 class LogWriter:
@@ -43,19 +51,17 @@ class LogWriter:
         except OSError as exc:
             raise UserError(f"{path}: cannot write the log ({exc.strerror})") from None
         self._csv = csv.writer(self._file, lineterminator="\n")
-        self._csv.writerow(LOG_COLUMNS)
+        self._csv.writerow(log_columns(interface.ff_in(vehicle)))
         self._file.flush()
         self.rows = 0
 
     def add(self, index: int, sample: messages.Sample) -> None:
         """The row of plan row `index` with its sample (SI units)."""
         f = self.vehicle.firmware
-        fields = interface.rows_to_fields(interface.FF_IN, self.steps[index : index + 1])
-        si = {
-            k: float(np.asarray(x).ravel()[0])
-            for k, x in interface.to_si(self.vehicle, interface.FF_IN, fields).items()
-        }
-        setpoint = [si[SI_NAME[c]] for c in PLAN_COLUMNS[1:]]
+        st = interface.ff_in(self.vehicle)
+        fields = interface.rows_to_fields(st, self.steps[index : index + 1])
+        si = interface.struct_si(self.vehicle, st, fields)
+        setpoint = [float(np.asarray(si[a]).ravel()[0]) for a in st.si_names().values()]
         amps = [x * f.current_lsb_a for x in sample.ff]
         current = [x * f.current_lsb_a for x in sample.measured[:2]]
         speed = [x * f.speed_lsb_mps for x in sample.measured[2:4]]

@@ -53,7 +53,7 @@ def campaign_files(
     for k, c in enumerate(design.logs, start=1):
         plan = campaign.plan_for(v, c, duration_s=duration_s, period_s=period_s)
         name = f"{k}-{c.slug()}"
-        files[out / f"{name}.csv"] = planfile.to_csv(plan)
+        files[out / f"{name}.csv"] = planfile.to_csv(plan, v)
         log = out / f"{name}-log.csv"
         logs.append(str(log))
         lines += [

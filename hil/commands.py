@@ -259,7 +259,7 @@ def plan(
     else:
         p = planner.make_plan(v, duration_s=duration, period_s=period, rig=rig, payload=payload, pitch=pitch, roll=roll)
         cond = excite.condition(v, p, rig)[0]
-    outputs.write_file(Path(out_path), planfile.to_csv(p))
+    outputs.write_file(Path(out_path), planfile.to_csv(p, v))
     use = planner.plan_current_use(v, p.si(), rig=rig)
     click.echo(
         f"wrote {out_path}: {len(p)} rows of {period * 1000:g} ms, peak current {use:.0%} of the limit "

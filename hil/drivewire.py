@@ -50,21 +50,29 @@ class Reading:
     measured: tuple[int, ...]  # interface.MEASURED columns: current steps, speed steps
 
 
-LAYOUT = {
-    DriveType.COMMAND: Layout(
-        Command,
-        (
-            Field("tick", "u16"),
-            Field("halted", "u8"),
-            Field("inputs", "i32", interface.FF_IN.columns),
-            Field("ff", "i32", interface.FF_OUT.columns),
-            Field("late_ticks", "u32"),
-            Field("stack_bytes", "u32"),
+def layouts(inputs: interface.Struct = interface.FF_IN) -> dict[DriveType, Layout]:
+    """Both messages, described once: the codecs below and the firmware's drive C (hil/firmwareview.py)
+    read it; the command carries the vehicle's feed-forward inputs (7 int32 in either form)."""
+    return {
+        DriveType.COMMAND: Layout(
+            Command,
+            (
+                Field("tick", "u16"),
+                Field("halted", "u8"),
+                Field("inputs", "i32", inputs.columns),
+                Field("ff", "i32", interface.FF_OUT.columns),
+                Field("late_ticks", "u32"),
+                Field("stack_bytes", "u32"),
+            ),
         ),
-    ),
-    DriveType.READING: Layout(Reading, (Field("tick", "u16"), Field("measured", "i32", interface.MEASURED.columns))),
-}
-"""Both messages, described once: the codecs below and the firmware's drive C (hil/firmwareview.py) read it."""
+        DriveType.READING: Layout(
+            Reading, (Field("tick", "u16"), Field("measured", "i32", interface.MEASURED.columns))
+        ),
+    }
+
+
+LAYOUT = layouts()
+"""The byte layout (the same in either input form: the codecs read only sizes and order)."""
 
 
 def frame(msg: Command | Reading) -> bytes:
@@ -85,17 +93,19 @@ def decode(encoded: bytes) -> Command | Reading | None:
     return msg
 
 
-def c_context() -> dict[str, Any]:
-    """Type codes, lengths and the byte offset of every field and struct column, for the drive C."""
+def c_context(inputs: interface.Struct = interface.FF_IN) -> dict[str, Any]:
+    """Type codes, lengths and the byte offset of every field and struct column, for the drive C; the
+    command's inputs are the vehicle's feed-forward struct (same size in either form, in its lvalues)."""
+    table = layouts(inputs)
 
     return {
         "command_code": f"0x{int(DriveType.COMMAND):02X}",
         "reading_code": f"0x{int(DriveType.READING):02X}",
-        "command_bytes": 1 + LAYOUT[DriveType.COMMAND].size,
-        "reading_bytes": 1 + LAYOUT[DriveType.READING].size,
-        "command_at": LAYOUT[DriveType.COMMAND].offsets(),
-        "reading_at": LAYOUT[DriveType.READING].offsets(),
-        "command_inputs": LAYOUT[DriveType.COMMAND].column_offsets("inputs", interface.FF_IN),
-        "command_ff": LAYOUT[DriveType.COMMAND].column_offsets("ff", interface.FF_OUT),
-        "reading_measured": LAYOUT[DriveType.READING].column_offsets("measured", interface.MEASURED),
+        "command_bytes": 1 + table[DriveType.COMMAND].size,
+        "reading_bytes": 1 + table[DriveType.READING].size,
+        "command_at": table[DriveType.COMMAND].offsets(),
+        "reading_at": table[DriveType.READING].offsets(),
+        "command_inputs": table[DriveType.COMMAND].column_offsets("inputs", inputs),
+        "command_ff": table[DriveType.COMMAND].column_offsets("ff", interface.FF_OUT),
+        "reading_measured": table[DriveType.READING].column_offsets("measured", interface.MEASURED),
     }

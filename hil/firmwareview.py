@@ -91,7 +91,7 @@ def context(
         generated=generated,
         model_path=_cmake_quoted(model_path),
         measured_type=interface.MEASURED.c_type(prefix),
-        drive=drivewire.c_context(),
+        drive=drivewire.c_context(interface.ff_in(fw.vehicle)),
         stack_bytes=STACK_BYTES,
         slow_ticks=slow_ticks(period_us),
         slow_hz=f"{1e6 / (slow_ticks(period_us) * period_us):g}",

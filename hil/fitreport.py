@@ -34,7 +34,7 @@ def checked_logs(v: Any, paths: list[Path], *, rig: str | None, accept_other_mod
 
     mine, logs = synthesis.fingerprint(v), []
     for p in paths:
-        log = benchdata.read_log(p, rig)
+        log = benchdata.read_log(p, rig, v)
         other, short = benchdata.origin_problems(v, log, mine)
         if other and not accept_other_model:
             raise UserError(f"{other}; pass --accept-other-model to use it anyway")

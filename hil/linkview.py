@@ -70,10 +70,10 @@ def context(
         "status_clamped": messages.STATUS_CLAMPED,
         "status_last": messages.STATUS_LAST,
         "measured": {"ctype": interface.MEASURED.c_type(prefix), "members": measured},
-        "setpoint_fields": interface.FF_IN.lvalues(),
+        "setpoint_fields": interface.ff_in(fw.vehicle).lvalues(),
         "ff_fields": interface.FF_OUT.lvalues(),
         "measured_fields": interface.MEASURED.lvalues(),
-        **wire(),
+        **wire(messages.layouts(inputs=interface.ff_in(fw.vehicle)), inputs=interface.ff_in(fw.vehicle)),
     }
 
 

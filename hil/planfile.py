@@ -11,11 +11,18 @@ from pathlib import Path
 import numpy as np
 from kinetab.generator import interface
 from kinetab.generator.errors import UserError
+from kinetab.generator.vehicle import Vehicle
 
 
 def plan_columns(st: interface.Struct = interface.FF_IN) -> tuple[str, ...]:
     """Time, then the feed-forward inputs in SI units, in the firmware struct's order."""
     return ("t", *st.columns)
+
+
+def file_columns(v: Vehicle) -> tuple[str, ...]:
+    """The columns of this vehicle's plan files: its feed-forward struct's (body-frame inputs with
+    firmware.inputs = 'body'); a Plan in memory always holds the wheel columns (PLAN_COLUMNS)."""
+    return plan_columns(interface.ff_in(v))
 
 
 PLAN_COLUMNS = plan_columns()
@@ -60,17 +67,39 @@ def phase_of(speed: np.ndarray, accel: np.ndarray, deadband_mps: float) -> list[
     return out
 
 
-def to_csv(plan: Plan) -> str:
+def to_csv(plan: Plan, v: Vehicle | None = None) -> str:
+    """The plan as CSV in the vehicle's plan columns (file_columns; wheel columns without a vehicle)."""
+    st, columns = interface.FF_IN, plan.columns
+    if v is not None and interface.ff_in(v).body:
+        st = interface.ff_in(v)
+        columns = {"t": plan.columns["t"], **interface.columns_si(v, st, plan.si())}
     buf = io.StringIO()
     writer = csv.writer(buf, lineterminator="\n")
-    writer.writerow([*PLAN_COLUMNS, PHASE_COLUMN])
+    writer.writerow([*plan_columns(st), PHASE_COLUMN])
     for k in range(len(plan)):
-        writer.writerow([f"{plan.columns[c][k]:.9g}" for c in PLAN_COLUMNS] + [plan.phase[k]])
+        writer.writerow([f"{columns[c][k]:.9g}" for c in plan_columns(st)] + [plan.phase[k]])
     return buf.getvalue()
 
 
-def read_plan(path: Path) -> Plan:
-    """Read a plan CSV; a problem is one UserError naming the file, line and column."""
+def _header_struct(path: Path, header: list[str], v: Vehicle | None) -> interface.Struct:
+    """The struct whose columns the plan's header has: the vehicle's (one UserError line naming
+    firmware.inputs when the plan was written for the other form)."""
+    want = interface.FF_IN if v is None else interface.ff_in(v)
+    if header[: len(plan_columns(want))] == list(plan_columns(want)):
+        return want
+    for other in (interface.FF_IN, interface.FF_IN_BODY):
+        if other is not want and header[: len(plan_columns(other))] == list(plan_columns(other)):
+            form, mine = ("body-frame", "wheel") if other.body else ("wheel", "body-frame")
+            raise UserError(
+                f"{path}:1: a plan of {form} inputs, but the model's firmware takes {mine} inputs "
+                "(firmware.inputs): write the plan again with bench plan for this model"
+            )
+    raise UserError(f"{path}:1: expected the header {','.join(plan_columns(want))}[,phase]")
+
+
+def read_plan(path: Path, v: Vehicle | None = None) -> Plan:
+    """Read a plan CSV in the vehicle's plan columns (file_columns); a problem is one UserError naming the
+    file, line and column."""
     try:
         text = path.read_text(encoding="utf-8")
     except (OSError, UnicodeDecodeError) as exc:
@@ -78,26 +107,35 @@ def read_plan(path: Path) -> Plan:
             f"{path}: cannot read the plan ({getattr(exc, 'strerror', None) or type(exc).__name__})"
         ) from None
     rows = list(csv.reader(io.StringIO(text)))
-    if not rows or [c.strip() for c in rows[0][: len(PLAN_COLUMNS)]] != list(PLAN_COLUMNS):
-        raise UserError(f"{path}:1: expected the header {','.join(PLAN_COLUMNS)}[,phase]")
-    header = [c.strip() for c in rows[0]]
+    header = [c.strip() for c in rows[0]] if rows else []
+    st = _header_struct(path, header, v)
+    cols = plan_columns(st)
     has_phase = PHASE_COLUMN in header
     values, phases = [], []
     for line, row in enumerate(rows[1:], start=2):
         if not row:
             continue
         try:
-            values.append([float(row[k]) for k in range(len(PLAN_COLUMNS))])
+            values.append([float(row[k]) for k in range(len(cols))])
         except (ValueError, IndexError):
-            raise UserError(f"{path}:{line}: expected {len(PLAN_COLUMNS)} numbers") from None
-        phases.append(row[header.index(PHASE_COLUMN)] if has_phase and len(row) > len(PLAN_COLUMNS) else "")
+            raise UserError(f"{path}:{line}: expected {len(cols)} numbers") from None
+        phases.append(row[header.index(PHASE_COLUMN)] if has_phase and len(row) > len(cols) else "")
     if not values:
         raise UserError(f"{path}: the plan has no rows")
     data = np.array(values)
     if not np.all(np.isfinite(data)):
         raise UserError(f"{path}: every value must be a finite number")
     _check_time(path, data[:, 0])
-    return Plan({c: data[:, k] for k, c in enumerate(PLAN_COLUMNS)}, phases)
+    return _wheel_plan(v, st, {c: data[:, k] for k, c in enumerate(cols)}, phases)
+
+
+def _wheel_plan(v: Vehicle | None, st: interface.Struct, columns: dict[str, np.ndarray], phases: list[str]) -> Plan:
+    """A plan in memory (wheel columns) from the columns of its file."""
+    if not st.body:
+        return Plan(columns, phases)
+    assert v is not None, "a body-frame plan is read only for its vehicle"
+    si = interface.to_wheels(v, {a: columns[c] for c, a in st.si_names().items()})
+    return Plan({"t": columns["t"], **{c: si[a] for c, a in SI_NAME.items()}}, phases)
 
 
 def _check_time(path: Path, t: np.ndarray) -> None:

@@ -24,10 +24,10 @@ from .benchlog import LogWriter
 def plan_steps(v: Any, plan: planfile.Plan, source: Path) -> np.ndarray:
     """The plan in firmware steps, one FF_IN row per setpoint; one line naming the column if it cannot be."""
     try:
-        fields = interface.to_steps(v, interface.FF_IN, plan.si())
+        fields = interface.to_steps(v, interface.ff_in(v), plan.si())
     except ValueError as exc:
         raise UserError(f"{source}: {exc}") from None
-    return interface.fields_to_rows(interface.FF_IN, fields).astype(np.int64)
+    return interface.fields_to_rows(interface.ff_in(v), fields).astype(np.int64)
 
 
 def _open(url: str, baud: int) -> Any:
@@ -74,7 +74,7 @@ def bench_run(
     """The whole run; BenchFailed (exit 1) on a fault, timeout or mismatch, UserError (2) on bad input.
     `feedforward` "none" asks the controller to apply no feed-forward current (the speed loop alone)."""
     v = model.load(model_path)
-    plan = planfile.read_plan(plan_path)
+    plan = planfile.read_plan(plan_path, v)
     _check_plan(v, plan, plan_path, rig=rig, outside_envelope=outside_envelope)
     steps = plan_steps(v, plan, plan_path)
     fingerprint = synthesis.fingerprint(v)

@@ -44,7 +44,8 @@ class StepDrive:
         if halted:  # motors off: the vehicle coasts
             self.plant.coast(self.last)
             return
-        fields = interface.rows_to_fields(interface.FF_IN, np.array([inputs], dtype=np.int64))
-        si = interface.to_si(self.fw.vehicle, interface.FF_IN, fields)
+        st = interface.ff_in(self.fw.vehicle)
+        fields = interface.rows_to_fields(st, np.array([inputs], dtype=np.int64))
+        si = interface.to_si(self.fw.vehicle, st, fields)
         self.last = {k: float(np.asarray(val).ravel()[0]) for k, val in si.items()}
         self.plant.step(self.last, np.array(ff, dtype=float) * self.fw.vehicle.firmware.current_lsb_a)

@@ -34,8 +34,8 @@ def _call_view(call: interface.Call, prefix: str) -> dict[str, object]:
     }
 
 
-def harness_source(prefix: str) -> str:
-    """The harness C for a vehicle prefix."""
+def harness_source(prefix: str, calls: tuple[interface.Call, ...] = interface.CALLS) -> str:
+    """The harness C for a vehicle prefix (calls: interface.calls(vehicle) for body-frame inputs)."""
     tpl = jinja2.Template(
         HARNESS.read_text(),
         undefined=jinja2.StrictUndefined,
@@ -47,7 +47,7 @@ def harness_source(prefix: str) -> str:
         header=interface.file_names(prefix)["ff_header"],
         prefix=prefix,
         state_type=f"{prefix}_ff_state_t",
-        calls=[_call_view(c, prefix) for c in interface.CALLS],
+        calls=[_call_view(c, prefix) for c in calls],
     )
 
 
@@ -58,10 +58,10 @@ def write_files(folder: Path, files: dict[str, str]) -> Path:
     return folder
 
 
-def build_harness(folder: Path, prefix: str) -> Path:
+def build_harness(folder: Path, prefix: str, calls: tuple[interface.Call, ...] = interface.CALLS) -> Path:
     """Compile the harness with the generated feed-forward C of `prefix` in `folder` (strict flags)."""
     src = folder / "harness.c"
-    src.write_text(harness_source(prefix))
+    src.write_text(harness_source(prefix, calls))
     return hostc.compile_c(
         [src, folder / interface.file_names(prefix)["ff_source"]], folder / "harness", include=[folder]
     )
