@@ -84,6 +84,14 @@ def _limit_lines(fw: Firmware) -> list[tuple[str, int, str]]:
     return out
 
 
+def _key_text(fw: Firmware, m: interface.Member) -> str:
+    """The model key of a member's step, and when a body-frame step is not set, what stands for it."""
+    section, key = m.lsb_key.split(".")
+    if getattr(getattr(fw.vehicle, section), model.SCHEMA[section][key].field) is None:
+        return f"{m.lsb_key} not set: its default, one wheel step"
+    return m.lsb_key
+
+
 def _lsb_lines(fw: Firmware) -> list[tuple[str, str]]:
     """One step of each quantity in SI units; quantities sharing a step key share a line ("pitch, roll")."""
     keys: dict[str, list[interface.Member]] = {}
@@ -476,11 +484,12 @@ def conversions(fw: Firmware) -> list[dict[str, str]]:
     helper's, the current), from the interface description; the step as a literal that reads back as the
     same double."""
     seen: dict[str, dict[str, str]] = {}
-    for m in (*interface.ff_in(fw.vehicle).members, *interface.FWD_IN.members, *interface.FF_OUT.members):
+    calls = (interface.ff_in(fw.vehicle), interface.FWD_IN, interface.FF_OUT, interface.FWD_OUT)
+    for m in (mem for st in calls for mem in st.members):
         step = interface.lsb(fw.vehicle, m)
         seen.setdefault(
             m.name,
-            {"name": m.name, "unit": m.unit, "param": PARAMETER[m.unit], "step": repr(step), "key": m.lsb_key},
+            {"name": m.name, "unit": m.unit, "param": PARAMETER[m.unit], "step": repr(step), "key": _key_text(fw, m)},
         )
     return list(seen.values())
 

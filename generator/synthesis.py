@@ -13,7 +13,7 @@ import numpy as np
 from . import __version__, analysis, dynamics, interface, program, sizing, stability
 from . import tables as tb
 from .errors import CheckFailed
-from .ops import op_table
+from .ops import Mix, op_table
 from .vehicle import Vehicle
 
 FORMAT_VERSION = 2
@@ -231,6 +231,12 @@ def products_note(fw: Firmware) -> str:
         )
     else:
         why = "no exact 32-bit form exists for them"
+    mixed = [op.dst for op in fw.design.feedforward.ops if isinstance(op, Mix) and op.wide]
+    if mixed and set(names) <= set(mixed):
+        why = (
+            "body-frame steps that are not a power-of-two multiple of the wheel steps (docs/physics.md, "
+            "'Body-frame inputs'): their conversion to wheel steps takes two 64-bit products per wheel"
+        )
     return f"{len(names)} 64-bit multiplies ({', '.join(names)}): {why}"
 
 
