@@ -162,8 +162,7 @@ def _fill_fixed(v: Vehicle, op: dynamics.OperatingPoint, doc: dict[str, Any]) ->
     out = emulate.run(fw.design.feedforward, fw.tables, {k: np.atleast_1d(a) for k, a in inp.items()})
     flags = int(out["clamped"][0])
     if flags:
-        cols = interface.ff_in(v).columns
-        names = ", ".join(_option_text(c) for k, c in enumerate(cols) if flags >> k & 1)
+        names = _flagged_text([c for k, c in enumerate(interface.ff_in(v).columns) if flags >> k & 1])
         click.echo(f"warning: {names} outside the envelope; current_fixed uses the envelope edge", err=True)
     for i, side in enumerate(("right", "left")):
         doc[side]["current_fixed"] = float(out["current"][0][i]) * v.firmware.current_lsb_a
@@ -173,7 +172,16 @@ def _option_text(column: str) -> str:
     """The option of a wheel input column; a body-frame input (firmware.inputs = 'body') by its name."""
     if column in interface.FF_IN.columns:
         return f"--{column.replace('_', '-')}"
-    return f"{column.replace('_', ' ')} (the body-frame input firmware.inputs = 'body' makes of the wheel options)"
+    return f"the body-frame {column.replace('_', ' ')} made of the wheel options (firmware.inputs = 'body')"
+
+
+def _flagged_text(columns: list[str]) -> str:
+    """The options, or the body-frame inputs made of them, whose clamp bits are set."""
+    options = [_option_text(c) for c in columns if c in interface.FF_IN.columns]
+    body = [c.replace("_", " ") for c in columns if c not in interface.FF_IN.columns]
+    if body:
+        options.append(f"the body-frame {' and '.join(body)} made of the wheel options (firmware.inputs = 'body')")
+    return ", ".join(options)
 
 
 def _predict_table(doc: dict[str, Any]) -> str:

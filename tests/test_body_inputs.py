@@ -399,3 +399,38 @@ def test_plan_simulate_run_with_body_frame_inputs(tmp_path):
         [*KINETAB, "bench", "compare", str(path), str(log)], cwd=ROOT, capture_output=True, text=True
     )  # the simulated vehicle is the model itself: the comparison passes, reading body-frame setpoints
     assert compared.returncode == 0, compared.stdout + compared.stderr
+
+
+def test_predict_gives_the_body_form_firmware_at_the_point_and_names_body_clamps(tmp_path, capsys):
+    """predict's current_fixed for a body-form vehicle is its firmware at the body-frame steps of the
+    point (rounded from the SI values, dynamics.body_from_wheels); beyond the yaw limit the warning names
+    the body-frame input, not an option the command does not have."""
+    from kinetab.generator import model, synthesis
+
+    doc = invented(5, "veh", body_odd_steps)[0]
+    path = tmp_path / "veh.toml"
+    path.write_text(to_toml(doc))
+    v = model.load(path)
+    code, out, err = run_cli(
+        ["predict", str(path), "--speed-right", "0.21 m/s", "--speed-left", "0.05 m/s", "--payload", "1 kg", "--json"],
+        capsys,
+    )
+    assert code == 0, err
+    fw = synthesis.synthesise(v)
+    fwd, yaw = dynamics.body_from_wheels(v, 0.21, 0.05)
+    steps = {
+        "forward_speed": np.floor(fwd / bodyframe.lsb(v, "forward_speed") + 0.5),
+        "yaw_rate": np.floor(yaw / bodyframe.lsb(v, "yaw_rate") + 0.5),
+        "forward_accel": 0,
+        "yaw_accel": 0,
+        "pitch": 0,
+        "roll": 0,
+        "payload": np.floor(1 / v.firmware.mass_lsb_kg + 0.5),
+    }
+    want = emulate.run(fw.design.feedforward, fw.tables, {k: np.atleast_1d(np.int64(x)) for k, x in steps.items()})
+    doc_out = json.loads(out)
+    got = [doc_out[side]["current_fixed"] for side in ("right", "left")]
+    assert got == pytest.approx(want["current"][0] * v.firmware.current_lsb_a, abs=1e-12)
+    top = v.envelope.speed_max_mps
+    code, _, err = run_cli(["predict", str(path), "--speed-right", f"{top} m/s", "--speed-left", f"{-top} m/s"], capsys)
+    assert code == 0 and "the body-frame" in err and "yaw rate made of the wheel options" in err and "--" not in err
