@@ -21,7 +21,8 @@ from . import fixedpoint as fx
 from .vehicle import Vehicle
 
 EXACT_SHIFT_MAX = 16  # a ratio that is k / 2^s with s up to this is taken as exact
-WIDE_SHIFT = 30  # constants of an inexact ratio: 30 fraction bits, the products in 64 bits
+WIDE_SHIFT = 30  # constants of an inexact ratio: at most 30 fraction bits
+NARROW_DRIFT = 1 / 64  # wheel steps the constants' rounding may add before the 64-bit form is taken
 
 
 def is_body(v: Vehicle) -> bool:
@@ -96,22 +97,43 @@ def _dyadic(ratio: float) -> int | None:
 
 
 def mix(v: Vehicle, pair: str) -> Mix:
-    """The conversion constants of "speed" (forward speed, yaw rate) or "accel" (their rates)."""
+    """The conversion constants of "speed" (forward speed, yaw rate) or "accel" (their rates): exact when
+    both ratios are dyadic; else in 32 bits when the constants' rounding adds at most NARROW_DRIFT of a
+    wheel step to the half step of the final rounding, else with WIDE_SHIFT fraction bits in 64 bits."""
     along_q, turn_q = ("forward_speed", "yaw_rate") if pair == "speed" else ("forward_accel", "yaw_accel")
     wheel = v.firmware.speed_lsb_mps if pair == "speed" else v.firmware.accel_lsb_mps2
     r_along = lsb(v, along_q) / wheel
     r_turn = dynamics.half_track(v) * lsb(v, turn_q) / wheel
     sa, st = _dyadic(r_along), _dyadic(r_turn)
-    shift = max(sa, st) if sa is not None and st is not None else WIDE_SHIFT
-    if sa is not None and st is not None:  # take the exact dyadic values, not the float noise
-        r_along, r_turn = round(r_along * 2**shift) / 2**shift, round(r_turn * 2**shift) / 2**shift
     along_max, turn_max = limit_steps(v, along_q), limit_steps(v, turn_q)
-    while True:  # an inexact ratio: the most fraction bits whose sum keeps clear of int64
-        k_along, k_turn = (int(math.floor(r * 2**shift + 0.5)) for r in (r_along, r_turn))
-        top = along_max * k_along + turn_max * k_turn + ((1 << (shift - 1)) if shift else 0)
-        if top < 2**62 or shift == 0:
+    if sa is not None and st is not None:  # take the exact dyadic values, not the float noise
+        shift = max(sa, st)
+        r_along, r_turn = round(r_along * 2**shift) / 2**shift, round(r_turn * 2**shift) / 2**shift
+        return _built(r_along, r_turn, along_max, turn_max, shift)
+    for shift in range(WIDE_SHIFT, 0, -1):  # the most fraction bits that keep the sum in 32 bits
+        narrow = _built(r_along, r_turn, along_max, turn_max, shift)
+        if not narrow.wide:
+            if narrow.deviation() <= 0.5 + NARROW_DRIFT:
+                return narrow
             break
+    shift = WIDE_SHIFT
+    while shift > 0 and _top(r_along, r_turn, along_max, turn_max, shift) >= 2**62:  # clear of int64
         shift -= 1
+    return _built(r_along, r_turn, along_max, turn_max, shift)
+
+
+def _constants(r_along: float, r_turn: float, shift: int) -> tuple[int, int]:
+    return int(math.floor(r_along * 2**shift + 0.5)), int(math.floor(r_turn * 2**shift + 0.5))
+
+
+def _top(r_along: float, r_turn: float, along_max: int, turn_max: int, shift: int) -> int:
+    """The largest sum before the shift, rounding half included."""
+    k_along, k_turn = _constants(r_along, r_turn, shift)
+    return along_max * k_along + turn_max * k_turn + ((1 << (shift - 1)) if shift else 0)
+
+
+def _built(r_along: float, r_turn: float, along_max: int, turn_max: int, shift: int) -> Mix:
+    k_along, k_turn = _constants(r_along, r_turn, shift)
     return Mix(
         k_along=k_along,
         k_turn=k_turn,
@@ -120,7 +142,7 @@ def mix(v: Vehicle, pair: str) -> Mix:
         r_turn=r_turn,
         along_max=along_max,
         turn_max=turn_max,
-        wide=top > fx.word_max(32),
+        wide=_top(r_along, r_turn, along_max, turn_max, shift) > fx.word_max(32),
     )
 
 

@@ -39,6 +39,16 @@ def body_odd_steps(doc: dict, rng: np.random.Generator) -> None:
     )
 
 
+def body_fine_yaw(doc: dict, rng: np.random.Generator) -> None:
+    """Body-frame inputs with a yaw-rate step so fine (0.001 mrad/s) that a 32-bit conversion would round
+    its constant too coarsely: the 64-bit form."""
+    body(doc, rng)
+    doc["firmware"]["yaw_rate_lsb"] = "0.001 mrad/s"
+
+
+FORMS = {"default": body, "odd": body_odd_steps, "fine": body_fine_yaw}
+
+
 @pytest.fixture(scope="module", params=[40, 5])
 def pair(request):
     """One invented vehicle in both forms (same document but firmware.inputs): wheel firmware, body firmware."""
@@ -221,13 +231,14 @@ def _expected_bits(fw, rows: np.ndarray) -> np.ndarray:
 
 
 @needs_gcc
-@pytest.mark.parametrize("form", ["default", "odd"])
+@pytest.mark.parametrize("form", FORMS)
 def test_compiled_body_form_equals_the_emulator_with_its_clamp_bits(form, tmp_path):
-    """The body-form C (gcc, strict flags; 64-bit conversion for odd steps) against the emulator on the
-    golden vectors (body corners, beyond every edge, int32 extremes, the wheel cases turned into body
-    inputs): currents and clamp bits bit for bit, one-call and two-rate; and the bits follow the rule."""
-    fw = invented(41, "veh", body if form == "default" else body_odd_steps)[1]
-    assert bodyframe.mix(fw.vehicle, "speed").wide == (form == "odd")
+    """The body-form C (gcc, strict flags; exact, rounded in 32 bits, rounded in 64 bits) against the
+    emulator on the golden vectors (body corners, beyond every edge, int32 extremes, the wheel cases turned
+    into body inputs): currents and clamp bits bit for bit, one-call and two-rate; the bits follow the rule."""
+    fw = invented(41, "veh", FORMS[form])[1]
+    mix = bodyframe.mix(fw.vehicle, "speed")
+    assert (mix.wide, mix.shift > 0) == (form == "fine", form != "default")
     rows = vectors.feedforward_table(fw, 6000)
     n = len(interface.FF_IN_BODY.columns)
     exe = build_harness(write_files(tmp_path, render.render(fw)), "veh", interface.calls(fw.vehicle))
@@ -238,17 +249,18 @@ def test_compiled_body_form_equals_the_emulator_with_its_clamp_bits(form, tmp_pa
 
 
 @pytest.mark.slow
+@pytest.mark.parametrize("form", ["odd", "fine"])
 @pytest.mark.parametrize("compiler", ["zig", "gcc"])
-def test_body_form_on_cortex_m0plus_equals_the_emulator(compiler, tmp_path):
-    """The odd-step body form's 64-bit conversion on the core without a 64-bit multiply (Cortex-M0+,
-    unicorn; a library call there): the emulator's integers on the golden vectors."""
+def test_body_form_on_cortex_m0plus_equals_the_emulator(compiler, form, tmp_path):
+    """The rounding conversions (32-bit, and 64-bit: a library call on a core without a 64-bit multiply)
+    on Cortex-M0+ in unicorn: the emulator's integers on the golden vectors."""
     from tests import cortexm
 
     if compiler == "zig" and not cortexm.zig_available():
         pytest.skip("pip install ziglang")
     if compiler == "gcc" and not cortexm.arm_gcc_available():
         pytest.skip("apt install gcc-arm-none-eabi libnewlib-arm-none-eabi")
-    fw = invented(7, "veh", body_odd_steps)[1]
+    fw = invented(7, "veh", FORMS[form])[1]
     write_files(tmp_path, render.render(fw))
     build = cortexm.compile_elf if compiler == "zig" else cortexm.compile_elf_gcc
     elf = build([tmp_path / "veh_ff.c"], "cortex_m0plus", "veh_feedforward", tmp_path / "ff.elf", extra=["-Os"])
