@@ -109,30 +109,32 @@ def mix(v: Vehicle, pair: str) -> Mix:
     if sa is not None and st is not None:  # take the exact dyadic values, not the float noise
         shift = max(sa, st)
         r_along, r_turn = round(r_along * 2**shift) / 2**shift, round(r_turn * 2**shift) / 2**shift
-        return _built(r_along, r_turn, along_max, turn_max, shift)
+        return _built(r_along, r_turn, along_max=along_max, turn_max=turn_max, shift=shift)
     for shift in range(WIDE_SHIFT, 0, -1):  # the most fraction bits that keep the sum in 32 bits
-        narrow = _built(r_along, r_turn, along_max, turn_max, shift)
+        narrow = _built(r_along, r_turn, along_max=along_max, turn_max=turn_max, shift=shift)
         if not narrow.wide:
             if narrow.deviation() <= 0.5 + NARROW_DRIFT:
                 return narrow
             break
     shift = WIDE_SHIFT
-    while shift > 0 and _top(r_along, r_turn, along_max, turn_max, shift) >= 2**62:  # clear of int64
+    while (
+        shift > 0 and _top(r_along, r_turn, along_max=along_max, turn_max=turn_max, shift=shift) >= 2**62
+    ):  # clear of int64
         shift -= 1
-    return _built(r_along, r_turn, along_max, turn_max, shift)
+    return _built(r_along, r_turn, along_max=along_max, turn_max=turn_max, shift=shift)
 
 
 def _constants(r_along: float, r_turn: float, shift: int) -> tuple[int, int]:
     return int(math.floor(r_along * 2**shift + 0.5)), int(math.floor(r_turn * 2**shift + 0.5))
 
 
-def _top(r_along: float, r_turn: float, along_max: int, turn_max: int, shift: int) -> int:
+def _top(r_along: float, r_turn: float, *, along_max: int, turn_max: int, shift: int) -> int:
     """The largest sum before the shift, rounding half included."""
     k_along, k_turn = _constants(r_along, r_turn, shift)
     return along_max * k_along + turn_max * k_turn + ((1 << (shift - 1)) if shift else 0)
 
 
-def _built(r_along: float, r_turn: float, along_max: int, turn_max: int, shift: int) -> Mix:
+def _built(r_along: float, r_turn: float, *, along_max: int, turn_max: int, shift: int) -> Mix:
     k_along, k_turn = _constants(r_along, r_turn, shift)
     return Mix(
         k_along=k_along,
@@ -142,7 +144,7 @@ def _built(r_along: float, r_turn: float, along_max: int, turn_max: int, shift: 
         r_turn=r_turn,
         along_max=along_max,
         turn_max=turn_max,
-        wide=_top(r_along, r_turn, along_max, turn_max, shift) > fx.word_max(32),
+        wide=_top(r_along, r_turn, along_max=along_max, turn_max=turn_max, shift=shift) > fx.word_max(32),
     )
 
 

@@ -36,7 +36,7 @@ class Command:
 
     tick: int  # the firmware's control tick, modulo 2^16
     halted: int  # 1: motors off (no setpoint applied this tick)
-    inputs: tuple[int, ...]  # interface.FF_IN columns, firmware steps
+    inputs: tuple[int, ...]  # the vehicle's feed-forward input columns (interface.ff_in), firmware steps
     ff: tuple[int, ...]  # interface.FF_OUT columns, current steps
     late_ticks: int  # control ticks the firmware so far ran late waiting for the drive's answer
     stack_bytes: int  # the most stack the firmware used so far (its painted stack)

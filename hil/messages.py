@@ -83,7 +83,7 @@ class Armed:
 class Setpoint:
     seq: int
     flags: int
-    inputs: tuple[int, ...]  # interface.FF_IN columns, firmware steps
+    inputs: tuple[int, ...]  # the vehicle's feed-forward input columns (interface.ff_in), firmware steps
 
 
 @dataclass(frozen=True)

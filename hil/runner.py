@@ -22,7 +22,8 @@ from .benchlog import LogWriter
 
 
 def plan_steps(v: Any, plan: planfile.Plan, source: Path) -> np.ndarray:
-    """The plan in firmware steps, one FF_IN row per setpoint; one line naming the column if it cannot be."""
+    """The plan in firmware steps, one row of the vehicle's input struct (interface.ff_in) per setpoint;
+    one line naming the column if it cannot be."""
     try:
         fields = interface.to_steps(v, interface.ff_in(v), plan.si())
     except ValueError as exc:

@@ -132,7 +132,7 @@ def check_period(ident: messages.Identify, plan_period_s: float | None, port_nam
     )
 
 
-Rows = list[tuple[int, ...]]  # setpoints: interface.FF_IN columns in firmware steps
+Rows = list[tuple[int, ...]]  # setpoints: the feed-forward input columns (interface.ff_in), firmware steps
 
 
 @dataclass

@@ -40,7 +40,8 @@ class StepDrive:
         return tuple(int(np.clip(x, *INT32)) for x in steps)
 
     def apply(self, inputs: Sequence[int], ff: Sequence[int], *, halted: bool) -> None:
-        """One period under a setpoint (FF_IN steps) and its feed-forward (FF_OUT current steps), or coasting."""
+        """One period under a setpoint (the input struct's steps) and its feed-forward (FF_OUT current
+        steps), or coasting."""
         if halted:  # motors off: the vehicle coasts
             self.plant.coast(self.last)
             return
