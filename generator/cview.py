@@ -522,9 +522,7 @@ def context(fw: Firmware) -> dict[str, Any]:
         "feedforward": program_view(fw.design.feedforward, fw.ff_proof, tables, prefix),
         **rates_view(fw, tables, prefix),
         "forward": program_view(fw.design.forward, fw.fwd_proof, tables, prefix),
-        "pair_scale": f"{prefix}_pair_scale"
-        if any(isinstance(op, PairClamp) for op in fw.design.feedforward.ops)
-        else "",
+        "pair_scale": f"{prefix}_pair_scale" if _has_pairs(fw) else "",
         "calls": [_call_view(call, prefix) for call in interface.calls(v)],
         "limits": _limit_lines(fw),
         "lsbs": _lsb_lines(fw),

@@ -46,7 +46,16 @@ def body_fine_yaw(doc: dict, rng: np.random.Generator) -> None:
     doc["firmware"]["yaw_rate_lsb"] = "0.001 mrad/s"
 
 
-FORMS = {"default": body, "odd": body_odd_steps, "fine": body_fine_yaw}
+def body_limited_odd(doc: dict, rng: np.random.Generator) -> None:
+    """Odd body-frame steps on a vehicle with body-frame limits (the forward helper, which takes the
+    measured wheel speeds, then clamps its pair into the region)."""
+    from tests.test_body_limits import body_limited
+
+    body_limited(doc, rng)
+    body_odd_steps(doc, rng)
+
+
+FORMS = {"default": body, "odd": body_odd_steps, "fine": body_fine_yaw, "limited": body_limited_odd}
 
 
 @pytest.fixture(scope="module", params=[40, 5])
@@ -239,6 +248,7 @@ def test_compiled_body_form_equals_the_emulator_with_its_clamp_bits(form, tmp_pa
     fw = invented(41, "veh", FORMS[form])[1]
     mix = bodyframe.mix(fw.vehicle, "speed")
     assert (mix.wide, mix.shift > 0) == (form == "fine", form != "default")
+    assert (form == "limited") == (not fw.design.limits.speed_pair.is_box)
     rows = vectors.feedforward_table(fw, 6000)
     n = len(interface.FF_IN_BODY.columns)
     exe = build_harness(write_files(tmp_path, render.render(fw)), "veh", interface.calls(fw.vehicle))
