@@ -326,7 +326,8 @@ def build(model_path: str, out_dir: str, vectors_path: str | None, allow: bool) 
     fw = synthesis.synthesise(v)
     if fw.over_cap:
         click.echo(f"warning: {v.source}: {synthesis.sizing_note(fw)}", err=True)
-    files = {folder / name: text for name, text in render.render(fw).items()}
+    neighbours = steps.neighbour_steps(fw)  # once: the header states them, the build line checks them
+    files = {folder / name: text for name, text in render.render(fw, neighbours=neighbours).items()}
     vectors_path = _vectors_target(folder, vectors_path)
     csv = vectors.to_csv(fw, vectors.feedforward_table(fw)) if vectors_path else None
     if csv is not None and vectors_path != "-":
@@ -340,7 +341,7 @@ def build(model_path: str, out_dir: str, vectors_path: str | None, allow: bool) 
         f"{synthesis.sizing_note(fw)}; {synthesis.products_note(fw)}",
         err=vectors_path == "-",
     )
-    step = gate.step_check(fw, steps.neighbour_steps(fw))
+    step = gate.step_check(fw, neighbours)
     click.echo(
         step.detail if step.ok else f"warning: {step.detail} (verify fails on it)",
         err=not step.ok or vectors_path == "-",
@@ -395,13 +396,14 @@ def verify(
         _finish(checks, v.source)
         return
     rebuild = f"kinetab build {model_path} -o {out_dir}"
+    neighbours = steps.neighbour_steps(fw)
+    vectors = Path(vectors_path) if vectors_path else None
     checks = [
-        *gate.file_checks(fw, folder, Path(vectors_path) if vectors_path else None, rebuild, model_path=model_path),
+        *gate.file_checks(fw, folder, vectors, rebuild, model_path=model_path, neighbours=neighbours),
         env,
         gate.budget_check(fw),
+        gate.step_check(fw, neighbours),
     ]
-    neighbours = steps.neighbour_steps(fw)
-    checks.append(gate.step_check(fw, neighbours))
     doc = outputs.report(fw, accuracy.measure(fw), checks, problems, neighbours=neighbours)
     _write_reports(doc, report_path, junit_path)
     click.echo(

@@ -494,17 +494,18 @@ def conversions(fw: Firmware) -> list[dict[str, str]]:
     return list(seen.values())
 
 
-def neighbour_lines(fw: Firmware) -> list[str]:
-    """The header's lines on the largest current step between neighbouring inputs (steps.neighbour_steps)."""
+def neighbour_lines(fw: Firmware, steps: dict[str, Any] | None = None) -> list[str]:
+    """The header's lines on the largest current step between neighbouring inputs (steps.neighbour_steps,
+    found here unless given)."""
     from .steps import neighbour_steps
 
-    steps = neighbour_steps(fw)
+    steps = neighbour_steps(fw) if steps is None else steps
     width = max(len(n) for n in steps)
     return [f"{n + ':':<{width + 1}} {num(s.amps)} A (from {s.at} to {s.at + 1} steps)" for n, s in steps.items()]
 
 
-def context(fw: Firmware) -> dict[str, Any]:
-    """The whole template context for one vehicle."""
+def context(fw: Firmware, *, neighbours: dict[str, Any] | None = None) -> dict[str, Any]:
+    """The whole template context for one vehicle (`neighbours`: steps.neighbour_steps, if known)."""
     v = fw.vehicle
     prefix = v.name
     f = v.firmware
@@ -531,6 +532,6 @@ def context(fw: Firmware) -> dict[str, Any]:
         "total_bytes": fw.total_bytes,
         "acc_step": f"{num(fw.design.amps_per_acc)} A (current step / 2^{fw.design.guard_bits})",
         "conversions": conversions(fw),
-        "neighbour_steps": neighbour_lines(fw),
+        "neighbour_steps": neighbour_lines(fw, neighbours),
         "point": pointform.c_view(pointform.point_form(fw)),
     }

@@ -65,6 +65,12 @@ def environment() -> jinja2.Environment:
     )
 
 
+def file_names(tset: TemplateSet, prefix: str) -> list[str]:
+    """The names of a template set's files for a vehicle prefix (what render_set writes)."""
+    names = interface.file_names(prefix)
+    return [names[role] for role, _ in tset.files]
+
+
 def render_set(tset: TemplateSet, prefix: str, context: dict[str, Any]) -> dict[str, str]:
     """Every file of a template set, named for the vehicle prefix, byte-identical for identical input."""
     env = environment()
@@ -72,8 +78,9 @@ def render_set(tset: TemplateSet, prefix: str, context: dict[str, Any]) -> dict[
     return {names[role]: cformat.tidy(env.get_template(path).render(**context)) for role, path in tset.files}
 
 
-def render(fw: Any) -> dict[str, str]:
-    """The feed-forward files of one synthesised vehicle (`synthesis.Firmware`)."""
+def render(fw: Any, *, neighbours: dict[str, Any] | None = None) -> dict[str, str]:
+    """The feed-forward files of one synthesised vehicle (`synthesis.Firmware`); `neighbours`:
+    steps.neighbour_steps of it, when the caller has them (the search is the slowest part)."""
     from . import cview
 
-    return render_set(FEEDFORWARD, fw.vehicle.name, cview.context(fw))
+    return render_set(FEEDFORWARD, fw.vehicle.name, cview.context(fw, neighbours=neighbours))
