@@ -456,3 +456,25 @@ def test_predict_gives_the_body_form_firmware_at_the_point_and_names_body_clamps
     top = v.envelope.speed_max_mps
     code, _, err = run_cli(["predict", str(path), "--speed-right", f"{top} m/s", "--speed-left", f"{-top} m/s"], capsys)
     assert code == 0 and "the body-frame" in err and "yaw rate made of the wheel options" in err and "--" not in err
+
+
+@pytest.mark.parametrize(
+    ("form", "name", "key"),
+    [
+        ("wheels", "pitch", "firmware.angle_lsb"),
+        ("wheels", "payload", "firmware.mass_lsb"),
+        ("wheels", "accel", "firmware.accel_lsb"),
+        ("body", "yaw_rate", "firmware.yaw_rate_lsb"),
+        ("body", "forward_accel", "firmware.forward_accel_lsb"),
+    ],
+)
+def test_a_failed_current_step_check_names_the_inputs_own_step_key(form, name, key):
+    """verify's advice names the model key that sets the input's step (pitch and roll share angle_lsb,
+    payload's is mass_lsb), for either input form."""
+    from kinetab.generator import gate, steps
+
+    fw = invented(40, "veh", body if form == "body" else None)[1]
+    too_big = steps.NeighbourStep(amps=50.0, at=3, excess=40.0, excess_at=3)
+    found = {m.name: steps.NeighbourStep(amps=0.0, at=0) for m in interface.ff_in(fw.vehicle).members}
+    check = gate.step_check(fw, {**found, name: too_big})
+    assert not check.ok and f"make {key} finer" in check.detail
