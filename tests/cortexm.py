@@ -10,7 +10,7 @@ from __future__ import annotations
 import shutil
 import subprocess
 import sys
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 from kinetab.generator.hostc import STRICT
@@ -110,6 +110,7 @@ class Machine:
     uc: object
     entry: int
     count: int = 0
+    symbols: dict[str, int] = field(default_factory=dict)  # function name -> address (Thumb bit cleared)
 
     @classmethod
     def load(cls, elf: Path, target: str, count: bool = False) -> Machine:
@@ -123,13 +124,19 @@ class Machine:
             e = ELFFile(fh)
             segs = [(s["p_vaddr"], s.data(), s["p_memsz"]) for s in e.iter_segments() if s["p_type"] == "PT_LOAD"]
             entry = e.header.e_entry & ~1
+            table = e.get_section_by_name(".symtab")
+            symbols = {
+                sym.name: sym["st_value"] & ~1
+                for sym in (table.iter_symbols() if table is not None else [])
+                if sym["st_info"]["type"] == "STT_FUNC"
+            }
         lo = min(a for a, _, _ in segs) & ~0xFFF
         hi = (max(a + n for a, _, n in segs) + 0xFFF) & ~0xFFF
         uc.mem_map(0, max(hi, SENTINEL + 0x1000))
         for addr, data, _ in segs:
             uc.mem_write(addr, data)
         uc.mem_map(RAM, RAM_SIZE)
-        m = cls(uc, entry)
+        m = cls(uc, entry, symbols=symbols)
         if count:
 
             def hook(_uc, _addr, _size, machine):
@@ -146,6 +153,28 @@ class Machine:
         painted = bytes(self.uc.mem_read(top - depth, depth))  # type: ignore[attr-defined]
         first = next((k for k, b in enumerate(painted) if b != 0xA5), depth)
         return depth - first
+
+    def write(self, offset: int, data: bytes) -> int:
+        """Write bytes at RAM + offset; returns that address."""
+        self.uc.mem_write(RAM + offset, data)  # type: ignore[attr-defined]
+        return RAM + offset
+
+    def read(self, offset: int, size: int) -> bytes:
+        return bytes(self.uc.mem_read(RAM + offset, size))  # type: ignore[attr-defined]
+
+    def run_at(self, symbol: str, args: list[int]) -> int:
+        """Call the function `symbol` with r0, r1, ... = args (addresses or integers); returns the
+        instructions it ran (library helpers it calls included)."""
+        from unicorn import arm_const
+
+        uc = self.uc
+        for k, value in enumerate(args):
+            uc.reg_write(getattr(arm_const, f"UC_ARM_REG_R{k}"), value)  # type: ignore[attr-defined]
+        uc.reg_write(arm_const.UC_ARM_REG_SP, RAM + RAM_SIZE - 16)  # type: ignore[attr-defined]
+        uc.reg_write(arm_const.UC_ARM_REG_LR, SENTINEL | 1)  # type: ignore[attr-defined]
+        self.count = 0
+        uc.emu_start(self.symbols[symbol] | 1, SENTINEL, count=100_000)  # type: ignore[attr-defined]
+        return self.count
 
     def call(self, args: bytes, out_size: int) -> tuple[bytes, int]:
         """Call entry(in, out) with the packed input struct; returns (output bytes, instructions)."""
