@@ -43,7 +43,7 @@ class Accuracy:
 def operating_point(fw: Firmware, inp: dict[str, np.ndarray]) -> dynamics.OperatingPoint:
     """Feed-forward inputs in firmware steps -> the SI operating point the integer program computes for:
     the inputs themselves, or for body-frame inputs the wheel steps its conversion makes of them (exact
-    when the conversion is; else within bodyframe.Mix.deviation of exact_point)."""
+    with whole-number ratios; else within bodyframe.Mix.deviation of exact_point)."""
     if interface.ff_in(fw.vehicle).body:
         return dynamics.OperatingPoint(**interface.to_si(fw.vehicle, FF_IN, bodyframe.wheel_fields(fw.vehicle, inp)))
     return exact_point(fw, inp)
@@ -95,10 +95,11 @@ def _clamping(fw: Firmware, seed: int) -> Stat:
     """Error from clamping: points up to 10 % beyond the envelope against the unclamped float model."""
     rng = np.random.default_rng(seed + 1)
     n = 2000
-    st = interface.ff_in(fw.vehicle)
-    lo, hi = interface.column_edges(fw.design.limits, st)
+    lo, hi = interface.column_edges(fw.design.limits, FF_IN)
     rows = np.stack([rng.integers(a - (a != 0) * (b // 10), b + b // 10 + 1, n) for a, b in zip(lo, hi)], -1)
-    inp = interface.rows_to_fields(st, rows)
+    inp = interface.rows_to_fields(FF_IN, rows)  # 10 % beyond in wheel values, in either input form
+    if interface.ff_in(fw.vehicle).body:
+        inp = bodyframe.from_wheel_fields(fw.vehicle, inp)
     got = emulate.run(fw.design.feedforward, fw.tables, inp)["current"] * fw.vehicle.firmware.current_lsb_a
     return _stat(got - reference_current(fw, exact_point(fw, inp)))
 
@@ -113,7 +114,9 @@ def _input_resolution(fw: Firmware, inp: dict[str, np.ndarray]) -> dict[str, flo
         moved[name] = moved[name] + 0.5
         out[name] = float(np.max(np.abs(reference_current(fw, exact_point(fw, moved)) - base)))
     if interface.ff_in(fw.vehicle).body:
-        out["conversion"] = float(np.max(np.abs(reference_current(fw, operating_point(fw, inp)) - base)))
+        exact = all(bodyframe.mix(fw.vehicle, pair).exact for pair in ("speed", "accel"))
+        moved = np.abs(reference_current(fw, operating_point(fw, inp)) - base)
+        out["conversion"] = 0.0 if exact else float(np.max(moved))  # exact: only float dust would show
     return out
 
 

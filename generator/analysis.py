@@ -155,7 +155,7 @@ def _check_op(
         case Mix():
             along = rng[op.along] * fx.Interval(op.k_along, op.k_along)
             turn = rng[op.turn] * fx.Interval(op.k_turn, op.k_turn)
-            total = _with_half(along + turn.hull(-turn), op.shift)
+            total = _with_half(along + turn.hull(-turn), op.shift)  # the C clamps a wide one in 64 bits
             if not total.fits(64) or (not op.wide and not total.fits(32)):
                 raise _fail(program, f"the body-frame sum of {op.dst}", total)
             wide[op.dst], split[op.dst] = op.wide, ""

@@ -69,10 +69,12 @@ class Mix:
 
     @property
     def exact(self) -> bool:
-        return self.k_along == self.r_along * 2**self.shift and self.k_turn == self.r_turn * 2**self.shift
+        """Whole-number ratios: the wheel steps are the exact values (no constant rounds, nothing shifts)."""
+        return self.shift == 0 and self.k_along == self.r_along and self.k_turn == self.r_turn
 
     def deviation(self) -> float:
-        """Proven worst |firmware wheel - exact wheel| in wheel steps over the clamped body inputs."""
+        """Proven worst |firmware wheel - exact wheel| in wheel steps over the clamped body inputs: the
+        constants' rounding times the inputs' largest values, plus half a step when the sum is shifted."""
         if self.exact:
             return 0.0
         scale = 2.0**-self.shift
@@ -165,3 +167,16 @@ def inside(v: Vehicle, fields: dict[str, np.ndarray], edges: dict[str, int]) -> 
     return np.all(np.abs(wheels["speed"]) <= edges["speed"], axis=-1) & np.all(
         np.abs(wheels["accel"]) <= edges["accel"], axis=-1
     )
+
+
+def from_wheel_fields(v: Vehicle, fields: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+    """Wheel inputs (steps, by member) -> the nearest body-frame inputs (steps, within int32): the same
+    operating points for vectors and samples, up to the body steps' resolution."""
+    names = {"speed": ("forward_speed", "yaw_rate"), "accel": ("forward_accel", "yaw_accel")}
+    out = {k: x for k, x in fields.items() if k not in names}
+    low, high = -(2**31), 2**31 - 1
+    for pair, (along, turn) in names.items():
+        m, w = mix(v, pair), np.asarray(fields[pair], dtype=float)
+        out[along] = np.clip(np.floor((w[..., 0] + w[..., 1]) / 2 / m.r_along + 0.5), low, high).astype(np.int64)
+        out[turn] = np.clip(np.floor((w[..., 0] - w[..., 1]) / 2 / m.r_turn + 0.5), low, high).astype(np.int64)
+    return out

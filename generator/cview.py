@@ -275,7 +275,8 @@ def _mix_view(op: Mix, clamp_names: list[str], prefix: str) -> dict[str, Any]:
     return {
         "kind": "mix",
         "dst": op.dst,
-        "expr": f"(int32_t)({total})" if op.wide else total,
+        "wide": op.wide,  # then the wheel is clamped in 64 bits, before it becomes an int32
+        "expr": total,
         "edge": op.edge,
         "span": 2 * op.edge,
         "bits": " | ".join(bits),

@@ -518,10 +518,15 @@ def _body_inputs(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any]) ->
         count = span / lsb
         if count > MAX_STEPS or count < 1:
             found = _describe_raw(raw["firmware"][key]) if fw[key] is not None else f"the default {lsb:g}"
+            named = (
+                f"envelope.{limit}"
+                if env[limit] is not None
+                else f"the {limit.replace('_max', '')} limit the wheels allow"
+            )
             raise ModelError(
                 src,
                 f"firmware.{key}",
-                f"a step that puts {limit} ({span:g}) between 1 and 2^30 steps",
+                f"a step that puts {named} ({span:g}) between 1 and 2^30 steps",
                 f"{found} ({count:.3g} steps)",
             )
 

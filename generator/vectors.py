@@ -82,14 +82,7 @@ def _body_inputs(v: Vehicle, lim: Any, wheels: dict[str, np.ndarray]) -> dict[st
     """The wheel cases as body-frame inputs (nearest steps), then every combination of each body input's
     edges and zero with both edges of the others, and one step beyond each body edge."""
     st = interface.ff_in(v)
-    out = {k: x for k, x in wheels.items() if k not in ("speed", "accel")}
-    for pair, (along, turn) in interface.BODY_PAIRS.items():
-        mix = bodyframe.mix(v, pair)
-        w = wheels[pair].astype(float)
-        big = np.iinfo(np.int32)
-        out[along.name] = np.clip(np.floor((w[:, 0] + w[:, 1]) / 2 / mix.r_along + 0.5), big.min, big.max)
-        out[turn.name] = np.clip(np.floor((w[:, 0] - w[:, 1]) / 2 / mix.r_turn + 0.5), big.min, big.max)
-    converted = interface.fields_to_rows(st, out).astype(np.int64)
+    converted = interface.fields_to_rows(st, bodyframe.from_wheel_fields(v, wheels)).astype(np.int64)
     lo, hi = interface.column_edges(lim, st)
     assert all(m.count == 1 for m in st.members), "a body-frame struct has one column per member"
     grid = [np.unique([lo[k], 0, hi[k]]) if m.body else np.array([lo[k], hi[k]]) for k, m in enumerate(st.members)]

@@ -8,7 +8,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from kinetab.generator import dynamics, interface, model, region
+from kinetab.generator import bodyframe, dynamics, interface, model, region
 from kinetab.generator.errors import UserError
 from kinetab.generator.vehicle import Vehicle
 from ruckig import ControlInterface, InputParameter, OutputParameter, Result, Ruckig, Synchronization
@@ -155,12 +155,15 @@ def plan_problem(v: Vehicle, plan: Plan, rig: str) -> str | None:
     c = plan.columns
     bad = [found for m in interface.FF_IN.members for col in m.columns if (found := _outside(v, m, col, c[col]))]
     bad += [found for m in (interface.SPEED, interface.ACCEL) if (found := _outside_region(v, m, plan))]
+    body = interface.ff_in(v).body
+    if body:  # the plan file has body-frame columns: name those first, then the wheels they make
+        bad = _body_outside(v, plan) + [(k, _in_body_words(text)) for k, text in bad]
     drive = _drive_problem(v, plan, rig)
     if drive:
         bad.append(drive)
     if not bad:
         return None
-    k, text = min(bad)
+    k, text = min(bad, key=lambda found: found[0]) if body else min(bad)
     return f"row {k + 2} (t = {c['t'][k]:.6g} s): {text}"
 
 
@@ -178,6 +181,38 @@ def _outside(v: Vehicle, m: interface.Member, col: str, values: np.ndarray) -> t
         return None
     k = int(over[0])
     return k, f"{col} {values[k]:.6g} {m.unit} {text}"
+
+
+def _body_outside(v: Vehicle, plan: Plan) -> list[tuple[int, str]]:
+    """Body-frame plan columns beyond their limits (the key, or what the wheel limits allow)."""
+    st = interface.ff_in(v)
+    columns = interface.columns_si(v, st, plan.si())
+    found = []
+    for m in (m for m in st.members if m.body):
+        limit = bodyframe.limit_si(v, m.name)
+        over = np.flatnonzero(np.abs(columns[m.name]) > limit * (1 + 1e-6) + 1e-12)
+        if over.size:
+            section, key = m.edge_key.split(".")
+            named = (
+                m.edge_key
+                if getattr(getattr(v, section), model.SCHEMA[section][key].field) is not None
+                else ("what the wheel limits allow")
+            )
+            k = int(over[0])
+            found.append((k, f"{m.name} {columns[m.name][k]:.6g} {m.unit} beyond {named} ({limit:.6g} {m.unit})"))
+    return found
+
+
+def _in_body_words(text: str) -> str:
+    """A wheel-column phrase for a plan whose file has body-frame columns: the wheel value they make."""
+    for pair, words in (("speed", "speed"), ("accel", "acceleration")):
+        for side in interface.SIDES:
+            column = f"{pair}_{side}"
+            if text.startswith(column + " "):
+                return f"the {side} wheel's {words}{text[len(column) :]} (from the plan's forward and yaw columns)"
+        if text.startswith(f"{pair}_right/left "):
+            return f"the wheels' {words} (right/left){text[len(pair) + 11 :]} (from the plan's forward and yaw columns)"
+    return text
 
 
 def _outside_region(v: Vehicle, m: interface.Member, plan: Plan) -> tuple[int, str] | None:

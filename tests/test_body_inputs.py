@@ -136,6 +136,21 @@ def test_a_rounding_conversion_stays_within_its_proven_deviation(odd):
         assert mix.deviation() <= max(float(worst), float_worst) + 0.01 + 2**-mix.shift * (a + t)
 
 
+def test_a_power_of_two_step_has_exact_constants_but_rounds_half_a_step():
+    """A forward step of half a wheel step: k = 1, shift 1, so an odd input lands half a wheel step from
+    the exact value, and the proven deviation says so (it is not exact)."""
+
+    def half_step(doc: dict, rng: np.random.Generator) -> None:
+        body(doc, rng)
+        lsb = float(doc["firmware"]["speed_lsb"].split()[0]) / 2
+        doc["firmware"]["forward_speed_lsb"] = f"{lsb} {doc['firmware']['speed_lsb'].split()[1]}"
+
+    mix = bodyframe.mix(invented(40, "veh", half_step)[1].vehicle, "speed")
+    assert (mix.k_along, mix.k_turn, mix.shift, mix.exact) == (1, 2, 1, False)
+    right, _ = mix.wheels(np.array([3, 4]), np.array([0, 0]))
+    assert np.abs(right - np.array([1.5, 2.0])).max() == 0.5 == mix.deviation()
+
+
 def _same_points(wheel_fw, body_fw, n: int = 20_000) -> tuple[dict, dict]:
     """Random body-frame inputs inside the envelope and the same operating points as wheel inputs."""
     rng = np.random.default_rng(9)
@@ -258,6 +273,27 @@ def test_compiled_body_form_equals_the_emulator_with_its_clamp_bits(form, tmp_pa
     assert rows[:, -1].any() and not rows[:, -1].all()
 
 
+@needs_gcc
+def test_a_64_bit_conversion_near_the_int32_edge_clamps_before_it_narrows(tmp_path):
+    """Wheel edges near 2^30 steps and a forward step of 4.9 wheel steps: a body corner's wheel value is
+    beyond int32 before its clamp. The C clamps it in 64 bits, as the emulator does (found in review:
+    the C once narrowed first and wrapped)."""
+
+    def huge(doc: dict, rng: np.random.Generator) -> None:
+        body(doc, rng)
+        top = float(doc["envelope"]["speed_max"].split()[0])
+        doc["firmware"]["speed_lsb"] = f"{top / (2**30 - 1.5)!r} m/s"
+        doc["firmware"]["forward_speed_lsb"] = f"{4.9 * top / (2**30 - 1.5)!r} m/s"
+
+    fw = invented(41, "veh", huge)[1]
+    mix = bodyframe.mix(fw.vehicle, "speed")
+    assert mix.wide and mix.along_max * mix.r_along + mix.turn_max * mix.r_turn > 2**31
+    rows = vectors.feedforward_table(fw, 3000)
+    n = len(interface.FF_IN_BODY.columns)
+    exe = build_harness(write_files(tmp_path, render.render(fw)), "veh", interface.calls(fw.vehicle))
+    assert np.array_equal(run_harness(exe, rows[:, :n]), rows[:, n:])
+
+
 @pytest.mark.slow
 @pytest.mark.parametrize("form", ["odd", "fine"])
 @pytest.mark.parametrize("compiler", ["zig", "gcc"])
@@ -370,9 +406,12 @@ def test_plans_and_logs_follow_the_interface(tmp_path):
         )
     writer.close()
     log = benchdata.read_log(log_path, "wheels-up", v)
-    want = interface.to_si(v, interface.ff_in(v), interface.rows_to_fields(interface.ff_in(v), steps))
-    for attr, x in want.items():
-        assert np.allclose(log.setpoint[attr], x, rtol=1e-8, atol=1e-9)
+    b, f = v.wheels.track_m / 2, v.firmware  # the plan's own wheel values, to within the body steps
+    for pair, lsbs in (("speed", ("forward_speed", "yaw_rate")), ("accel", ("forward_accel", "yaw_accel"))):
+        tol = bodyframe.lsb(v, lsbs[0]) / 2 + b * bodyframe.lsb(v, lsbs[1]) / 2 + 1e-9
+        for side in interface.SIDES:
+            assert np.abs(log.setpoint[f"{pair}_{side}"] - plan.columns[f"{pair}_{side}"]).max() <= tol
+    assert np.allclose(log.setpoint["payload_kg"], plan.columns["payload"], atol=f.mass_lsb_kg / 2)
     with pytest.raises(UserError, match=r"log\.csv:1: a log of body-frame setpoints.*firmware\.inputs"):
         benchdata.read_log(log_path, "wheels-up", wheel_v)
 
@@ -478,3 +517,27 @@ def test_a_failed_current_step_check_names_the_inputs_own_step_key(form, name, k
     found = {m.name: steps.NeighbourStep(amps=0.0, at=0) for m in interface.ff_in(fw.vehicle).members}
     check = gate.step_check(fw, {**found, name: too_big})
     assert not check.ok and f"make {key} finer" in check.detail
+
+
+def test_a_body_frame_plan_beyond_its_limits_names_its_own_columns(tmp_path):
+    """bench run's plan check on a body-form vehicle names the body-frame column (and the key or the
+    wheel limits behind it), and a wheel it makes beyond the box as that wheel, not a column the file
+    does not have (found in review)."""
+    from kinetab.hil import planfile, planner
+
+    doc, fw = invented(40, "veh", body)
+    v = fw.vehicle
+    plan = planner.make_plan(v, duration_s=5, period_s=0.01, rig="wheels-up")
+    yaw = bodyframe.limit_si(v, "yaw_rate")
+    b = v.wheels.track_m / 2
+    spun = planfile.Plan(
+        {
+            **plan.columns,
+            "speed_right": plan.columns["speed_right"] + 1.5 * yaw * b,
+            "speed_left": plan.columns["speed_left"] - 1.5 * yaw * b,
+        },
+        plan.phase,
+    )
+    text = planner.plan_problem(v, spun, "wheels-up")
+    assert text is not None and "speed_left" not in text and "speed_right" not in text
+    assert "yaw_rate" in text and "beyond what the wheel limits allow" in text
