@@ -541,3 +541,64 @@ def test_a_body_frame_plan_beyond_its_limits_names_its_own_columns(tmp_path):
     text = planner.plan_problem(v, spun, "wheels-up")
     assert text is not None and "speed_left" not in text and "speed_right" not in text
     assert "yaw_rate" in text and "beyond what the wheel limits allow" in text
+
+
+@needs_gcc
+@pytest.mark.slow
+def test_a_fit_from_body_frame_logs_recovers_the_truth(tmp_path):
+    """Plans, simulated runs against a truth (body mass +15 %, 20 mA current noise) and the fit, for a
+    body-form vehicle: the logs' body-frame setpoints read back as the wheel values the fit needs, and
+    the fitted mass lands within 3 % of the truth (its own error bars say about 10 %)."""
+    import re
+    import subprocess
+
+    from kinetab.generator import model
+
+    from tests.test_bench_e2e import KINETAB, ROOT, Sim
+
+    doc = invented_feasible(40, "veh")[0]
+    doc["firmware"]["inputs"] = "body"
+    path = tmp_path / "veh.toml"
+    path.write_text(to_toml(doc))
+    mass, unit = doc["body"]["mass"].split()
+    doc["body"]["mass"] = f"{float(mass) * 1.15} {unit}"
+    truth = tmp_path / "truth.toml"
+    truth.write_text(to_toml(doc))
+    logs = []
+    for rig in ("wheels-up", "on-floor"):
+        plan, log = tmp_path / f"plan_{rig}.csv", tmp_path / f"log_{rig}.csv"
+        cmd = [*KINETAB, "bench", "plan", str(path), "-o", str(plan), "--duration", "20", "--rig", rig]
+        assert subprocess.run(cmd, cwd=ROOT, capture_output=True).returncode == 0
+        sim = Sim(
+            path, "--truth", str(truth), "--noise", "20 mA", "--rig", rig, "--fifo-depth", "1024", "--watchdog", "1 s"
+        )
+        run = subprocess.run(
+            [
+                *KINETAB,
+                "bench",
+                "run",
+                str(path),
+                "--port",
+                sim.port,
+                "--plan",
+                str(plan),
+                "--log",
+                str(log),
+                "--rig",
+                rig,
+                "--yes",
+            ],
+            cwd=ROOT,
+            capture_output=True,
+            text=True,
+        )
+        assert run.returncode == 0, run.stderr
+        sim.finish()
+        logs.append(str(log))
+    fitted = tmp_path / "fitted.toml"
+    done = subprocess.run(
+        [*KINETAB, "bench", "fit", str(path), *logs, "--write", str(fitted)], cwd=ROOT, capture_output=True, text=True
+    )
+    assert done.returncode == 0, done.stderr
+    assert re.search(r"^body\.mass .* written$", done.stdout, re.M)
+    assert model.load(fitted).body.mass_kg == pytest.approx(model.load(truth).body.mass_kg, rel=0.03)
