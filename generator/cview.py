@@ -261,9 +261,10 @@ def _pair_view(op: PairClamp, clamp_names: list[str], prefix: str) -> dict[str, 
     }
 
 
-def _mix_view(op: Mix, clamp_names: list[str], prefix: str) -> dict[str, Any]:
+def _mix_view(op: Mix, clamp_names: list[str], prefix: str, proof: Proof) -> dict[str, Any]:
     """A body-frame pair to one wheel (bodyframe.py): the rounded sum as one C expression, in 64 bits when
-    the proof says so, then the wheel's clamp as one unsigned range test."""
+    the proof says so, then the wheel's clamp as one unsigned range test; no test when the proven range
+    of the clamped body inputs keeps the wheel inside its edge anyway (body-frame limits within the box)."""
     cast = "(int64_t)" if op.wide else ""
     terms = [
         f"{cast}{name}" + ("" if k == 1 else f" * {k}") for name, k in ((op.along, op.k_along), (op.turn, op.k_turn))
@@ -272,8 +273,12 @@ def _mix_view(op: Mix, clamp_names: list[str], prefix: str) -> dict[str, Any]:
     if op.shift > 0:
         total = f"({total} + {rounding_half(op.shift)}) >> {op.shift}"
     bits = [name for k, name in enumerate(clamp_names) if op.mask >> k & 1]
+    along = proof.ranges[op.along] * fx.Interval(op.k_along, op.k_along)
+    turn = proof.ranges[op.turn] * fx.Interval(op.k_turn, op.k_turn)
+    reach = (along + turn.hull(-turn)).shift_round(op.shift)
     return {
         "kind": "mix",
+        "inside": -op.edge <= reach.lo and reach.hi <= op.edge,
         "dst": op.dst,
         "wide": op.wide,  # then the wheel is clamped in 64 bits, before it becomes an int32
         "expr": total,
@@ -297,7 +302,7 @@ def _op_view(op: Op, proof: Proof, clamp_names: list[str], prefix: str) -> dict[
         case PairClamp():
             return _pair_view(op, clamp_names, prefix)
         case Mix():
-            return _mix_view(op, clamp_names, prefix)
+            return _mix_view(op, clamp_names, prefix, proof)
         case Lookup():
             return {"kind": "lookup", "dst": op.dst, "func": f"{prefix}_lookup_{op.table}", "src": op.src}
         case Mul():

@@ -55,7 +55,27 @@ def body_limited_odd(doc: dict, rng: np.random.Generator) -> None:
     body_odd_steps(doc, rng)
 
 
-FORMS = {"default": body, "odd": body_odd_steps, "fine": body_fine_yaw, "limited": body_limited_odd}
+def body_within_box(doc: dict, rng: np.random.Generator) -> None:
+    """Body-frame inputs and body-frame limits that keep every wheel inside its box (V + bW < speed_max,
+    the same for accelerations): the C then needs no wheel clamp after the conversion."""
+    body(doc, rng)
+    speed, accel = (float(doc["envelope"][k].split()[0]) for k in ("speed_max", "accel_max"))
+    half_track = float(doc["wheels"]["track"].split()[0]) / 2
+    doc["envelope"].update(
+        forward_speed_max=f"{0.5 * speed} m/s",
+        yaw_rate_max=f"{0.4 * speed / half_track} rad/s",
+        forward_accel_max=f"{0.5 * accel} m/s^2",
+        yaw_accel_max=f"{0.4 * accel / half_track} rad/s^2",
+    )
+
+
+FORMS = {
+    "default": body,
+    "odd": body_odd_steps,
+    "fine": body_fine_yaw,
+    "limited": body_limited_odd,
+    "within": body_within_box,
+}
 
 
 @pytest.fixture(scope="module", params=[40, 5])
@@ -262,8 +282,10 @@ def test_compiled_body_form_equals_the_emulator_with_its_clamp_bits(form, tmp_pa
     into body inputs): currents and clamp bits bit for bit, one-call and two-rate; the bits follow the rule."""
     fw = invented(41, "veh", FORMS[form])[1]
     mix = bodyframe.mix(fw.vehicle, "speed")
-    assert (mix.wide, mix.shift > 0) == (form == "fine", form != "default")
-    assert (form == "limited") == (not fw.design.limits.speed_pair.is_box)
+    assert (mix.wide, mix.shift > 0) == (form == "fine", form in ("odd", "fine", "limited"))
+    assert (form in ("limited", "within")) == (not fw.design.limits.speed_pair.is_box)
+    source = render.render(fw)["veh_ff.c"]
+    assert ("the body limits keep it within" in source) == (form == "within")
     rows = vectors.feedforward_table(fw, 6000)
     n = len(interface.FF_IN_BODY.columns)
     exe = build_harness(write_files(tmp_path, render.render(fw)), "veh", interface.calls(fw.vehicle))
