@@ -576,7 +576,7 @@ def test_a_fit_from_body_frame_logs_recovers_the_truth(tmp_path):
 
     from kinetab.generator import model
 
-    from tests.test_bench_e2e import KINETAB, ROOT, Sim
+    from tests.test_bench_e2e import KINETAB, ROOT, _bench_log
 
     doc = invented_feasible(40, "veh")[0]
     doc["firmware"]["inputs"] = "body"
@@ -586,37 +586,7 @@ def test_a_fit_from_body_frame_logs_recovers_the_truth(tmp_path):
     doc["body"]["mass"] = f"{float(mass) * 1.15} {unit}"
     truth = tmp_path / "truth.toml"
     truth.write_text(to_toml(doc))
-    logs = []
-    for rig in ("wheels-up", "on-floor"):
-        plan, log = tmp_path / f"plan_{rig}.csv", tmp_path / f"log_{rig}.csv"
-        cmd = [*KINETAB, "bench", "plan", str(path), "-o", str(plan), "--duration", "20", "--rig", rig]
-        assert subprocess.run(cmd, cwd=ROOT, capture_output=True).returncode == 0
-        sim = Sim(
-            path, "--truth", str(truth), "--noise", "20 mA", "--rig", rig, "--fifo-depth", "1024", "--watchdog", "1 s"
-        )
-        run = subprocess.run(
-            [
-                *KINETAB,
-                "bench",
-                "run",
-                str(path),
-                "--port",
-                sim.port,
-                "--plan",
-                str(plan),
-                "--log",
-                str(log),
-                "--rig",
-                rig,
-                "--yes",
-            ],
-            cwd=ROOT,
-            capture_output=True,
-            text=True,
-        )
-        assert run.returncode == 0, run.stderr
-        sim.finish()
-        logs.append(str(log))
+    logs = [str(_bench_log(tmp_path, path, truth, rig, rig, seconds=20)) for rig in ("wheels-up", "on-floor")]
     fitted = tmp_path / "fitted.toml"
     done = subprocess.run(
         [*KINETAB, "bench", "fit", str(path), *logs, "--write", str(fitted)], cwd=ROOT, capture_output=True, text=True
