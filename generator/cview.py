@@ -289,6 +289,15 @@ def _mix_view(op: Mix, clamp_names: list[str], prefix: str, proof: Proof) -> dic
     }
 
 
+LONG_SHIFT = 10
+"""Rounding shifts from here up use the ROUND_SHIFT macro: 2^(s-1) no longer fits a Thumb-1 immediate."""
+
+
+def _round_macro(shift: int, prefix: str) -> str | None:
+    """The rounding-shift macro's name where the shift is long enough to gain from it (else None)."""
+    return f"{prefix.upper()}_ROUND_SHIFT" if LONG_SHIFT <= shift <= 30 else None
+
+
 def _has_pairs(fw: Firmware) -> bool:
     """Whether either program clamps a wheel pair into a region (then the C needs the scaling helper)."""
     return any(isinstance(op, PairClamp) for op in (*fw.design.feedforward.ops, *fw.design.forward.ops))
@@ -306,9 +315,11 @@ def _op_view(op: Op, proof: Proof, clamp_names: list[str], prefix: str) -> dict[
         case Lookup():
             return {"kind": "lookup", "dst": op.dst, "func": f"{prefix}_lookup_{op.table}", "src": op.src}
         case Mul():
-            return _product_view(op.dst, op.a, op.b, shift=op.shift, proof=proof, b_one=False)
+            view = _product_view(op.dst, op.a, op.b, shift=op.shift, proof=proof, b_one=False)
+            return view | {"round": _round_macro(op.shift, prefix)}
         case Scale():
-            return _product_view(op.dst, op.a, str(op.k), shift=op.shift, proof=proof, b_one=op.k == 1)
+            view = _product_view(op.dst, op.a, str(op.k), shift=op.shift, proof=proof, b_one=op.k == 1)
+            return view | {"round": _round_macro(op.shift, prefix)}
         case Sum():
             terms = [("-" if s < 0 else ("" if i == 0 else "+"), n) for i, (s, n) in enumerate(op.terms)]
             return {"kind": "sum", "dst": op.dst, "terms": terms}
@@ -326,6 +337,7 @@ def _op_view(op: Op, proof: Proof, clamp_names: list[str], prefix: str) -> dict[
                 "mask": f"0x{(1 << op.shift) - 1:X}",
                 "k_real": num(op.k_real),
                 "factor": None if op.table is None else f"{prefix}_lookup_{op.table}",
+                "round": _round_macro(op.shift, prefix),
             }
         case Store():
             return {
@@ -334,6 +346,7 @@ def _op_view(op: Op, proof: Proof, clamp_names: list[str], prefix: str) -> dict[
                 "src": op.src,
                 "shift": op.shift,
                 "half": rounding_half(op.shift),
+                "round": _round_macro(op.shift, prefix),
             }
         case _:
             assert_never(op)
@@ -378,6 +391,74 @@ def _renamed(view: dict[str, Any], reads: dict[str, str]) -> dict[str, Any]:
 GroupKey = tuple[str, bool, int | None]
 
 
+def _fused_product(
+    ops: tuple[Op, ...], start: int, member: str, *, table: dict[str, Any], proof: Proof
+) -> tuple[int, Mul] | None:
+    """The one product that reads a group member, when it can be made inside the group: its other
+    operand exists before the group, it is a plain 32-bit rounded product, and one of the table's
+    pieces is a constant that makes it exact (a multiple of 2^shift: then it is one multiply by a
+    literal, with no rounding). Returns the product's index in `ops` and the product."""
+    readers = [i for i, op in enumerate(ops) if member in op_inputs(op)]
+    if len(readers) != 1 or not isinstance(op := ops[readers[0]], Mul) or op.a == op.b:
+        return None
+    other = op.b if op.a == member else op.a
+    later = {o.dst for o in ops[start:]}
+    plain = op.shift > 0 and not proof.wide[op.dst] and not proof.split[op.dst]
+    exact = any(p["kind"] == "constant" and p["value"] % (1 << op.shift) == 0 for p in table["pieces"])
+    return (readers[0], op) if other not in later and plain and exact else None
+
+
+def _fused_view(op: Mul, member: str, table: dict[str, Any], reads: dict[str, str]) -> dict[str, Any]:
+    """A product made inside a lookup group: per piece, the looked-up value times the other operand;
+    `exact[k]` is the literal multiplier where piece k is a constant multiple of 2^shift (else None)."""
+    other = op.b if op.a == member else op.a
+    exact = [
+        p["value"] >> op.shift if p["kind"] == "constant" and p["value"] % (1 << op.shift) == 0 else None
+        for p in table["pieces"]
+    ]
+    return {
+        "dst": op.dst,
+        "other": reads.get(other, other),
+        "shift": op.shift,
+        "half": rounding_half(op.shift),
+        "exact": exact,
+    }
+
+
+def _group_view(
+    ops: tuple[Op, ...],
+    k: int,
+    j: int,
+    key: GroupKey,
+    *,
+    tables: dict[str, dict[str, Any]],
+    proof: Proof,
+    reads: dict[str, str],
+) -> tuple[dict[str, Any], set[int]]:
+    """One inline block for the lookups ops[k:j]; returns it and the indices of the products it makes."""
+    members: list[dict[str, Any]] = []
+    taken: set[int] = set()
+    for op in ops[k:j]:
+        table = op_table(op)
+        assert table is not None
+        fused = _fused_product(ops, k, op.dst, table=tables[table], proof=proof)
+        if fused is not None:
+            taken.add(fused[0])
+        t = tables[table]
+        view = None if fused is None else _fused_view(fused[1], op.dst, t, reads)
+        members.append({"dst": op.dst, "t": t, "fused": view, "odd": t["symmetry"] == "odd"})
+    view = {
+        "kind": "group",
+        "src": key[0],
+        "abs": key[1],
+        "piece_edge": key[2],
+        "members": members,
+        "needs_x": key[2] is not None or any(m["t"]["needs_x"] for m in members),
+        "negate_after": [m["dst"] for m in members if m["odd"] and m["fused"] is None],
+    }
+    return view, taken
+
+
 def _group_key(op: Op, tables: dict[str, dict[str, Any]]) -> GroupKey | None:
     """Lookups that may share one inline block: same input, same symmetry class, same piece edge."""
     table = op_table(op) if isinstance(op, Lookup) else None  # a Backdrive's table is looked up in its branch
@@ -403,27 +484,19 @@ def program_view(
     the C expression that reads them where they are used (the fast part's state members)."""
     views: list[dict[str, Any]] = []
     ops = tuple(prog.ops) if ops is None else ops
+    made_in_groups: set[int] = set()
     k = 0
     while k < len(ops):
         key = _group_key(ops[k], tables)
         j = k + 1
         while key is not None and j < len(ops) and _group_key(ops[j], tables) == key:
             j += 1
-        if key is not None and j - k > 1:
-            members: list[dict[str, Any]] = [
-                {"dst": op.dst, "t": tables[table]} for op in ops[k:j] if (table := op_table(op)) is not None
-            ]
-            needs_x = key[2] is not None or any(m["t"]["needs_x"] for m in members)
-            views.append(
-                {
-                    "kind": "group",
-                    "src": key[0],
-                    "abs": key[1],
-                    "piece_edge": key[2],
-                    "members": members,
-                    "needs_x": needs_x,
-                }
-            )
+        if k in made_in_groups:
+            pass
+        elif key is not None and j - k > 1:
+            view, taken = _group_view(ops, k, j, key, tables=tables, proof=proof, reads=reads or {})
+            views.append(view)
+            made_in_groups |= taken
         else:
             view = _op_view(ops[k], proof, [n for n, _ in prog.call.clamp_names(prefix)], prefix)
             views.append(_renamed(view, reads) if reads else view)

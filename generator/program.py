@@ -56,6 +56,7 @@ class _Builder:
         self.p, self.specs, self.bits, self.exact, self.vehicle = program, specs, bits, exact, vehicle
         self.rng: dict[str, fx.Interval] = {}
         self.cor_shift = 0  # the Coriolis product's shift once its shared prefactor is made
+        self.roll_level = ("r_level", 0)  # the rolling level as the wheels' products read it, and their shift
 
     def _add(self, op: Op) -> None:
         """Append an op and record its result's range by the one range rule (op_range)."""
@@ -262,6 +263,7 @@ def _common(bd: _Builder, lim: Limits, call: interface.Call, pair: str) -> None:
     bd.mul("r_up", "t_roll_level", "cos_cos", s["roll_level"].frac_bits + s["cos_roll"].frac_bits)
     bd.mul("r_down", "t_roll_slope", "t_sin_pitch", s["roll_slope"].frac_bits + s["sin_pitch"].frac_bits)
     bd.sum("r_level", (1, "r_up"), (-1, "r_down"))
+    _rolling_level(bd)
     bd.sum("grav_r", (1, "g_pitch"), (1, "g_roll"))  # each wheel's gravity once, in the slow part
     bd.sum("grav_l", (1, "g_pitch"), (-1, "g_roll"))
     bd.sum("d_speed", (1, "speed_r"), (-1, "speed_l"))
@@ -269,22 +271,33 @@ def _common(bd: _Builder, lim: Limits, call: interface.Call, pair: str) -> None:
     bd.cor_shift = s["cor"].frac_bits - dropped
 
 
-def _passive(bd: _Builder, side: str, sign: int, other: str) -> str:
-    """Coriolis + friction + rolling + gravity at one wheel, accumulator steps."""
+def _rolling_level(bd: _Builder) -> None:
+    """The rolling level rounded down for its product with the shape, made once before the wheels: each
+    wheel's product then reads it directly after its shape lookup (the C folds it into the constant piece)."""
+    shift = bd.specs["shape"].frac_bits
+    pa = 0
+    if not bd.exact:
+        pa, _ = _preshift(bd.rng["r_level"], bd._estimate(Lookup("t_shape", "shape", "speed_r")), shift)
+    bd.roll_level = (bd._shifted("r_level", pa) if pa else "r_level", shift - pa)
+
+
+def _speed_terms(bd: _Builder, side: str) -> tuple[str, str]:
+    """Friction and rolling resistance at one wheel (the terms looked up by its speed), accumulator steps."""
     s = bd.specs
     u = f"speed_{side}"
-    bd.mul(f"cor_{side}", "cor_pre", f"speed_{other}", bd.cor_shift)
     bd.lookup(f"t_fric_{side}", "friction", u)  # adjacent lookups of one input share abs and split in C
     bd.lookup(f"t_shape_{side}", "shape", u)
     bd.scale(f"fric_{side}", f"t_fric_{side}", 1, s["friction"].frac_bits)
-    bd.mul(f"roll_{side}", "r_level", f"t_shape_{side}", s["shape"].frac_bits)
-    return bd.sum(
-        f"passive_{side}",
-        (sign, f"cor_{side}"),
-        (1, f"fric_{side}"),
-        (1, f"roll_{side}"),
-        (1, f"grav_{side}"),
-    )
+    level, shift = bd.roll_level
+    bd.mul(f"roll_{side}", level, f"t_shape_{side}", shift)
+    return f"fric_{side}", f"roll_{side}"
+
+
+def _passive(bd: _Builder, side: str, sign: int, other: str) -> str:
+    """Coriolis + friction + rolling + gravity at one wheel, accumulator steps."""
+    bd.mul(f"cor_{side}", "cor_pre", f"speed_{other}", bd.cor_shift)
+    fric, roll = _speed_terms(bd, side)
+    return bd.sum(f"passive_{side}", (sign, f"cor_{side}"), (1, fric), (1, roll), (1, f"grav_{side}"))
 
 
 def _feedforward(v: Vehicle, specs: dict[str, tb.TableSpec], lim: Limits, *, guard: int, exact: bool) -> Program:
@@ -293,11 +306,21 @@ def _feedforward(v: Vehicle, specs: dict[str, tb.TableSpec], lim: Limits, *, gua
     _common(bd, lim, prog.call, "accel")
     bd.lookup("t_m11", "m11", "payload")
     bd.lookup("t_m12", "m12", "payload")
-    for side, sign, other, idx in (("r", 1, "l", 0), ("l", -1, "r", 1)):
-        passive = _passive(bd, side, sign, other)
+    sides = (("r", 1, "l", 0), ("l", -1, "r", 1))
+    for side, sign, other, _ in sides:  # both wheels' speed-free terms first: fewer values stay live across the lookups
+        bd.mul(f"cor_{side}", "cor_pre", f"speed_{other}", bd.cor_shift)
         bd.mul(f"in_self_{side}", "t_m11", f"accel_{side}", specs["m11"].frac_bits)
         bd.mul(f"in_other_{side}", "t_m12", f"accel_{other}", specs["m12"].frac_bits)
-        bd.sum(f"total_{side}", (1, f"in_self_{side}"), (1, f"in_other_{side}"), (1, passive))
+        bd.sum(
+            f"base_{side}",
+            (1, f"in_self_{side}"),
+            (1, f"in_other_{side}"),
+            (sign, f"cor_{side}"),
+            (1, f"grav_{side}"),
+        )
+    for side, _, _, idx in sides:
+        fric, roll = _speed_terms(bd, side)
+        bd.sum(f"total_{side}", (1, f"base_{side}"), (1, fric), (1, roll))
         bd.backdrive(
             f"motor_{side}",
             f"total_{side}",

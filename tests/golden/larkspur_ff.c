@@ -19,6 +19,15 @@
 #define LARKSPUR_UNLIKELY(x) (x)
 #endif
 
+/* Rounding right shift by s of 10 or more: Thumb-1 (Cortex-M0/M0+/M23) has no wide immediates, so
+ * ((x >> (s - 1)) + 1) >> 1 saves building 2^(s-1) in a register; elsewhere adding it is one instruction.
+ * Both are floor(x / 2^s + 1/2) for every int32 x (docs/physics.md, "Fixed-point rounding"). */
+#if defined(__ARM_ARCH_6M__) || defined(__ARM_ARCH_8M_BASE__)
+#define LARKSPUR_ROUND_SHIFT(x, s) ((((x) >> ((s) - 1)) + 1) >> 1)
+#else
+#define LARKSPUR_ROUND_SHIFT(x, s) (((x) + ((int32_t)1 << ((s) - 1))) >> (s))
+#endif
+
 /* Compile-time checks (C99: a negative array size fails the build). */
 typedef char larkspur_check_int_width[(sizeof(int) >= 4) ? 1 : -1];
 typedef char larkspur_check_arithmetic_shift[((-1 >> 1) == -1) ? 1 : -1];
@@ -504,8 +513,9 @@ static int32_t larkspur_lookup_friction(int32_t v)
         const int32_t d = x - 31;
         const int32_t i = d >> 5;
         const int32_t f = d & 0x1F;
-        const int32_t lo = larkspur_tab_friction_1[i];
-        y = lo + (((larkspur_tab_friction_1[i + 1] - lo) * f + 16) >> 5);
+        const uint16_t *e = &larkspur_tab_friction_1[i]; /* both entries from one address */
+        const int32_t lo = e[0];
+        y = lo + (((e[1] - lo) * f + 16) >> 5);
     }
     return (v < 0) ? -y : y;
 }
@@ -597,8 +607,9 @@ static int32_t larkspur_lookup_minv11(int32_t v)
         const int32_t d = x;
         const int32_t i = d >> 4;
         const int32_t f = d & 0xF;
-        const int32_t lo = larkspur_tab_minv11_0[i];
-        y = lo + (((larkspur_tab_minv11_0[i + 1] - lo) * f + 8) >> 4);
+        const uint16_t *e = &larkspur_tab_minv11_0[i]; /* both entries from one address */
+        const int32_t lo = e[0];
+        y = lo + (((e[1] - lo) * f + 8) >> 4);
     }
     return y;
 }
@@ -642,8 +653,9 @@ static int32_t larkspur_lookup_minv12(int32_t v)
         const int32_t d = x;
         const int32_t i = d >> 5;
         const int32_t f = d & 0x1F;
-        const int32_t lo = larkspur_tab_minv12_0[i];
-        y = lo + (((larkspur_tab_minv12_0[i + 1] - lo) * f + 16) >> 5);
+        const uint16_t *e = &larkspur_tab_minv12_0[i]; /* both entries from one address */
+        const int32_t lo = e[0];
+        y = lo + (((e[1] - lo) * f + 16) >> 5);
     }
     return y;
 }
@@ -865,12 +877,13 @@ void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out)
         }
     }
     const int32_t g_pitch = (t_grav_pitch * t_sin_pitch + 4) >> 3;
-    const int32_t cos_sin = (t_cos_pitch * t_sin_roll + 8192) >> 14;
+    const int32_t cos_sin = LARKSPUR_ROUND_SHIFT(t_cos_pitch * t_sin_roll, 14);
     const int32_t g_roll = (t_grav_roll * cos_sin + 32) >> 6;
-    const int32_t cos_cos = (t_cos_pitch * t_cos_roll + 8192) >> 14;
+    const int32_t cos_cos = LARKSPUR_ROUND_SHIFT(t_cos_pitch * t_cos_roll, 14);
     const int32_t r_up = (t_roll_level * cos_cos + 64) >> 7;
-    const int32_t r_down = (t_roll_slope * t_sin_pitch + 1024) >> 11;
+    const int32_t r_down = LARKSPUR_ROUND_SHIFT(t_roll_slope * t_sin_pitch, 11);
     const int32_t r_level = r_up - r_down;
+    const int32_t r_level_s5 = (r_level + 16) >> 5;
     const int32_t grav_r = g_pitch + g_roll;
     const int32_t grav_l = g_pitch - g_roll;
     const int32_t d_speed = speed_r - speed_l;
@@ -892,8 +905,15 @@ void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out)
     }
     const int32_t cor_pre_s6 = (cor_pre + 32) >> 6;
     const int32_t cor_r = (cor_pre_s6 * speed_l + 32) >> 6;
+    const int32_t in_self_r = t_m11 * accel_r;
+    const int32_t in_other_r = (t_m12 * accel_l + 16) >> 5;
+    const int32_t base_r = in_self_r + in_other_r + cor_r + grav_r;
+    const int32_t cor_l = (cor_pre_s6 * speed_r + 32) >> 6;
+    const int32_t in_self_l = t_m11 * accel_l;
+    const int32_t in_other_l = (t_m12 * accel_r + 16) >> 5;
+    const int32_t base_l = in_self_l + in_other_l - cor_l + grav_l;
     int32_t t_fric_r;
-    int32_t t_shape_r;
+    int32_t roll_r;
     {
         /* friction and shape of speed_r, sharing |x| and the piece choice */
         const int32_t x = (speed_r < 0) ? -speed_r : speed_r;
@@ -901,44 +921,46 @@ void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out)
             {
                 t_fric_r = larkspur_tab_friction_0[x]; /* one entry per input step */
             }
-            {
-                t_shape_r = larkspur_tab_shape_0[x]; /* one entry per input step */
+            { /* shape times r_level_s5, made here where the piece is known */
+                int32_t y;
+                y = larkspur_tab_shape_0[x]; /* one entry per input step */
+                if (speed_r < 0) {
+                    y = -y;
+                }
+                roll_r = (r_level_s5 * y + 128) >> 8;
             }
         } else {
             {
                 const int32_t d = x - 31;
                 const int32_t i = d >> 5;
                 const int32_t f = d & 0x1F;
-                const int32_t lo = larkspur_tab_friction_1[i];
-                t_fric_r = lo + (((larkspur_tab_friction_1[i + 1] - lo) * f + 16) >> 5);
+                const uint16_t *e = &larkspur_tab_friction_1[i]; /* both entries from one address */
+                const int32_t lo = e[0];
+                t_fric_r = lo + (((e[1] - lo) * f + 16) >> 5);
             }
-            {
-                t_shape_r = larkspur_tab_shape_1[0];
+            { /* shape times r_level_s5: this piece's value 8192 is a multiple of 2^8, so the product is exact */
+                roll_r = r_level_s5 * 32;
+                if (speed_r < 0) {
+                    roll_r = -roll_r;
+                }
             }
         }
         if (speed_r < 0) {
             t_fric_r = -t_fric_r;
-            t_shape_r = -t_shape_r;
         }
     }
     const int32_t fric_r = t_fric_r * 128;
-    const int32_t r_level_s5 = (r_level + 16) >> 5;
-    const int32_t roll_r = (r_level_s5 * t_shape_r + 128) >> 8;
-    const int32_t passive_r = cor_r + fric_r + roll_r + grav_r;
-    const int32_t in_self_r = t_m11 * accel_r;
-    const int32_t in_other_r = (t_m12 * accel_l + 16) >> 5;
-    const int32_t total_r = in_self_r + in_other_r + passive_r;
+    const int32_t total_r = base_r + fric_r + roll_r;
     int32_t motor_r = total_r;
-    if (speed_r != 0 && (total_r ^ speed_r) < 0) { /* moving, and force against the motion */
+    if ((total_r ^ speed_r) < 0 && speed_r != 0) { /* force against the motion (the sign test first: it fails most often), and moving */
         /* back-driven: scale by the blended factor at this speed (0.68 beyond the blend band), Q14 */
         const int32_t k = larkspur_lookup_backdrive(speed_r);
         /* exact in two 32-bit parts: high bits times k, plus the rounded low bits times k */
-        motor_r = (total_r >> 14) * k + (((total_r & 0x3FFF) * k + 8192) >> 14);
+        motor_r = (total_r >> 14) * k + LARKSPUR_ROUND_SHIFT((total_r & 0x3FFF) * k, 14);
     }
-    out->current[0] = (motor_r + 2048) >> 12;
-    const int32_t cor_l = (cor_pre_s6 * speed_r + 32) >> 6;
+    out->current[0] = LARKSPUR_ROUND_SHIFT(motor_r, 12);
     int32_t t_fric_l;
-    int32_t t_shape_l;
+    int32_t roll_l;
     {
         /* friction and shape of speed_l, sharing |x| and the piece choice */
         const int32_t x = (speed_l < 0) ? -speed_l : speed_l;
@@ -946,40 +968,44 @@ void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out)
             {
                 t_fric_l = larkspur_tab_friction_0[x]; /* one entry per input step */
             }
-            {
-                t_shape_l = larkspur_tab_shape_0[x]; /* one entry per input step */
+            { /* shape times r_level_s5, made here where the piece is known */
+                int32_t y;
+                y = larkspur_tab_shape_0[x]; /* one entry per input step */
+                if (speed_l < 0) {
+                    y = -y;
+                }
+                roll_l = (r_level_s5 * y + 128) >> 8;
             }
         } else {
             {
                 const int32_t d = x - 31;
                 const int32_t i = d >> 5;
                 const int32_t f = d & 0x1F;
-                const int32_t lo = larkspur_tab_friction_1[i];
-                t_fric_l = lo + (((larkspur_tab_friction_1[i + 1] - lo) * f + 16) >> 5);
+                const uint16_t *e = &larkspur_tab_friction_1[i]; /* both entries from one address */
+                const int32_t lo = e[0];
+                t_fric_l = lo + (((e[1] - lo) * f + 16) >> 5);
             }
-            {
-                t_shape_l = larkspur_tab_shape_1[0];
+            { /* shape times r_level_s5: this piece's value 8192 is a multiple of 2^8, so the product is exact */
+                roll_l = r_level_s5 * 32;
+                if (speed_l < 0) {
+                    roll_l = -roll_l;
+                }
             }
         }
         if (speed_l < 0) {
             t_fric_l = -t_fric_l;
-            t_shape_l = -t_shape_l;
         }
     }
     const int32_t fric_l = t_fric_l * 128;
-    const int32_t roll_l = (r_level_s5 * t_shape_l + 128) >> 8;
-    const int32_t passive_l = -cor_l + fric_l + roll_l + grav_l;
-    const int32_t in_self_l = t_m11 * accel_l;
-    const int32_t in_other_l = (t_m12 * accel_r + 16) >> 5;
-    const int32_t total_l = in_self_l + in_other_l + passive_l;
+    const int32_t total_l = base_l + fric_l + roll_l;
     int32_t motor_l = total_l;
-    if (speed_l != 0 && (total_l ^ speed_l) < 0) { /* moving, and force against the motion */
+    if ((total_l ^ speed_l) < 0 && speed_l != 0) { /* force against the motion (the sign test first: it fails most often), and moving */
         /* back-driven: scale by the blended factor at this speed (0.68 beyond the blend band), Q14 */
         const int32_t k = larkspur_lookup_backdrive(speed_l);
         /* exact in two 32-bit parts: high bits times k, plus the rounded low bits times k */
-        motor_l = (total_l >> 14) * k + (((total_l & 0x3FFF) * k + 8192) >> 14);
+        motor_l = (total_l >> 14) * k + LARKSPUR_ROUND_SHIFT((total_l & 0x3FFF) * k, 14);
     }
-    out->current[1] = (motor_l + 2048) >> 12;
+    out->current[1] = LARKSPUR_ROUND_SHIFT(motor_l, 12);
 }
 
 void larkspur_ff_slow(const larkspur_ff_in_t *in, larkspur_ff_state_t *state)
@@ -1071,12 +1097,13 @@ void larkspur_ff_slow(const larkspur_ff_in_t *in, larkspur_ff_state_t *state)
         }
     }
     const int32_t g_pitch = (t_grav_pitch * t_sin_pitch + 4) >> 3;
-    const int32_t cos_sin = (t_cos_pitch * t_sin_roll + 8192) >> 14;
+    const int32_t cos_sin = LARKSPUR_ROUND_SHIFT(t_cos_pitch * t_sin_roll, 14);
     const int32_t g_roll = (t_grav_roll * cos_sin + 32) >> 6;
-    const int32_t cos_cos = (t_cos_pitch * t_cos_roll + 8192) >> 14;
+    const int32_t cos_cos = LARKSPUR_ROUND_SHIFT(t_cos_pitch * t_cos_roll, 14);
     const int32_t r_up = (t_roll_level * cos_cos + 64) >> 7;
-    const int32_t r_down = (t_roll_slope * t_sin_pitch + 1024) >> 11;
+    const int32_t r_down = LARKSPUR_ROUND_SHIFT(t_roll_slope * t_sin_pitch, 11);
     const int32_t r_level = r_up - r_down;
+    const int32_t r_level_s5 = (r_level + 16) >> 5;
     const int32_t grav_r = g_pitch + g_roll;
     const int32_t grav_l = g_pitch - g_roll;
     int32_t t_m11;
@@ -1094,13 +1121,12 @@ void larkspur_ff_slow(const larkspur_ff_in_t *in, larkspur_ff_state_t *state)
             t_m12 = larkspur_tab_m12_0[0];
         }
     }
-    const int32_t r_level_s5 = (r_level + 16) >> 5;
     state->t_cor = t_cor;
+    state->r_level_s5 = r_level_s5;
     state->grav_r = grav_r;
     state->grav_l = grav_l;
     state->t_m11 = t_m11;
     state->t_m12 = t_m12;
-    state->r_level_s5 = r_level_s5;
 }
 
 void larkspur_ff_fast(const larkspur_ff_in_t *in, const larkspur_ff_state_t *state, larkspur_ff_out_t *out)
@@ -1131,8 +1157,15 @@ void larkspur_ff_fast(const larkspur_ff_in_t *in, const larkspur_ff_state_t *sta
     const int32_t cor_pre = state->t_cor * d_speed;
     const int32_t cor_pre_s6 = (cor_pre + 32) >> 6;
     const int32_t cor_r = (cor_pre_s6 * speed_l + 32) >> 6;
+    const int32_t in_self_r = state->t_m11 * accel_r;
+    const int32_t in_other_r = (state->t_m12 * accel_l + 16) >> 5;
+    const int32_t base_r = in_self_r + in_other_r + cor_r + state->grav_r;
+    const int32_t cor_l = (cor_pre_s6 * speed_r + 32) >> 6;
+    const int32_t in_self_l = state->t_m11 * accel_l;
+    const int32_t in_other_l = (state->t_m12 * accel_r + 16) >> 5;
+    const int32_t base_l = in_self_l + in_other_l - cor_l + state->grav_l;
     int32_t t_fric_r;
-    int32_t t_shape_r;
+    int32_t roll_r;
     {
         /* friction and shape of speed_r, sharing |x| and the piece choice */
         const int32_t x = (speed_r < 0) ? -speed_r : speed_r;
@@ -1140,43 +1173,46 @@ void larkspur_ff_fast(const larkspur_ff_in_t *in, const larkspur_ff_state_t *sta
             {
                 t_fric_r = larkspur_tab_friction_0[x]; /* one entry per input step */
             }
-            {
-                t_shape_r = larkspur_tab_shape_0[x]; /* one entry per input step */
+            { /* shape times state->r_level_s5, made here where the piece is known */
+                int32_t y;
+                y = larkspur_tab_shape_0[x]; /* one entry per input step */
+                if (speed_r < 0) {
+                    y = -y;
+                }
+                roll_r = (state->r_level_s5 * y + 128) >> 8;
             }
         } else {
             {
                 const int32_t d = x - 31;
                 const int32_t i = d >> 5;
                 const int32_t f = d & 0x1F;
-                const int32_t lo = larkspur_tab_friction_1[i];
-                t_fric_r = lo + (((larkspur_tab_friction_1[i + 1] - lo) * f + 16) >> 5);
+                const uint16_t *e = &larkspur_tab_friction_1[i]; /* both entries from one address */
+                const int32_t lo = e[0];
+                t_fric_r = lo + (((e[1] - lo) * f + 16) >> 5);
             }
-            {
-                t_shape_r = larkspur_tab_shape_1[0];
+            { /* shape times state->r_level_s5: this piece's value 8192 is a multiple of 2^8, so the product is exact */
+                roll_r = state->r_level_s5 * 32;
+                if (speed_r < 0) {
+                    roll_r = -roll_r;
+                }
             }
         }
         if (speed_r < 0) {
             t_fric_r = -t_fric_r;
-            t_shape_r = -t_shape_r;
         }
     }
     const int32_t fric_r = t_fric_r * 128;
-    const int32_t roll_r = (state->r_level_s5 * t_shape_r + 128) >> 8;
-    const int32_t passive_r = cor_r + fric_r + roll_r + state->grav_r;
-    const int32_t in_self_r = state->t_m11 * accel_r;
-    const int32_t in_other_r = (state->t_m12 * accel_l + 16) >> 5;
-    const int32_t total_r = in_self_r + in_other_r + passive_r;
+    const int32_t total_r = base_r + fric_r + roll_r;
     int32_t motor_r = total_r;
-    if (speed_r != 0 && (total_r ^ speed_r) < 0) { /* moving, and force against the motion */
+    if ((total_r ^ speed_r) < 0 && speed_r != 0) { /* force against the motion (the sign test first: it fails most often), and moving */
         /* back-driven: scale by the blended factor at this speed (0.68 beyond the blend band), Q14 */
         const int32_t k = larkspur_lookup_backdrive(speed_r);
         /* exact in two 32-bit parts: high bits times k, plus the rounded low bits times k */
-        motor_r = (total_r >> 14) * k + (((total_r & 0x3FFF) * k + 8192) >> 14);
+        motor_r = (total_r >> 14) * k + LARKSPUR_ROUND_SHIFT((total_r & 0x3FFF) * k, 14);
     }
-    out->current[0] = (motor_r + 2048) >> 12;
-    const int32_t cor_l = (cor_pre_s6 * speed_r + 32) >> 6;
+    out->current[0] = LARKSPUR_ROUND_SHIFT(motor_r, 12);
     int32_t t_fric_l;
-    int32_t t_shape_l;
+    int32_t roll_l;
     {
         /* friction and shape of speed_l, sharing |x| and the piece choice */
         const int32_t x = (speed_l < 0) ? -speed_l : speed_l;
@@ -1184,40 +1220,44 @@ void larkspur_ff_fast(const larkspur_ff_in_t *in, const larkspur_ff_state_t *sta
             {
                 t_fric_l = larkspur_tab_friction_0[x]; /* one entry per input step */
             }
-            {
-                t_shape_l = larkspur_tab_shape_0[x]; /* one entry per input step */
+            { /* shape times state->r_level_s5, made here where the piece is known */
+                int32_t y;
+                y = larkspur_tab_shape_0[x]; /* one entry per input step */
+                if (speed_l < 0) {
+                    y = -y;
+                }
+                roll_l = (state->r_level_s5 * y + 128) >> 8;
             }
         } else {
             {
                 const int32_t d = x - 31;
                 const int32_t i = d >> 5;
                 const int32_t f = d & 0x1F;
-                const int32_t lo = larkspur_tab_friction_1[i];
-                t_fric_l = lo + (((larkspur_tab_friction_1[i + 1] - lo) * f + 16) >> 5);
+                const uint16_t *e = &larkspur_tab_friction_1[i]; /* both entries from one address */
+                const int32_t lo = e[0];
+                t_fric_l = lo + (((e[1] - lo) * f + 16) >> 5);
             }
-            {
-                t_shape_l = larkspur_tab_shape_1[0];
+            { /* shape times state->r_level_s5: this piece's value 8192 is a multiple of 2^8, so the product is exact */
+                roll_l = state->r_level_s5 * 32;
+                if (speed_l < 0) {
+                    roll_l = -roll_l;
+                }
             }
         }
         if (speed_l < 0) {
             t_fric_l = -t_fric_l;
-            t_shape_l = -t_shape_l;
         }
     }
     const int32_t fric_l = t_fric_l * 128;
-    const int32_t roll_l = (state->r_level_s5 * t_shape_l + 128) >> 8;
-    const int32_t passive_l = -cor_l + fric_l + roll_l + state->grav_l;
-    const int32_t in_self_l = state->t_m11 * accel_l;
-    const int32_t in_other_l = (state->t_m12 * accel_r + 16) >> 5;
-    const int32_t total_l = in_self_l + in_other_l + passive_l;
+    const int32_t total_l = base_l + fric_l + roll_l;
     int32_t motor_l = total_l;
-    if (speed_l != 0 && (total_l ^ speed_l) < 0) { /* moving, and force against the motion */
+    if ((total_l ^ speed_l) < 0 && speed_l != 0) { /* force against the motion (the sign test first: it fails most often), and moving */
         /* back-driven: scale by the blended factor at this speed (0.68 beyond the blend band), Q14 */
         const int32_t k = larkspur_lookup_backdrive(speed_l);
         /* exact in two 32-bit parts: high bits times k, plus the rounded low bits times k */
-        motor_l = (total_l >> 14) * k + (((total_l & 0x3FFF) * k + 8192) >> 14);
+        motor_l = (total_l >> 14) * k + LARKSPUR_ROUND_SHIFT((total_l & 0x3FFF) * k, 14);
     }
-    out->current[1] = (motor_l + 2048) >> 12;
+    out->current[1] = LARKSPUR_ROUND_SHIFT(motor_l, 12);
 }
 
 void larkspur_forward(const larkspur_fwd_in_t *in, larkspur_fwd_out_t *out)
@@ -1329,12 +1369,13 @@ void larkspur_forward(const larkspur_fwd_in_t *in, larkspur_fwd_out_t *out)
         }
     }
     const int32_t g_pitch = (t_grav_pitch * t_sin_pitch + 4) >> 3;
-    const int32_t cos_sin = (t_cos_pitch * t_sin_roll + 8192) >> 14;
+    const int32_t cos_sin = LARKSPUR_ROUND_SHIFT(t_cos_pitch * t_sin_roll, 14);
     const int32_t g_roll = (t_grav_roll * cos_sin + 32) >> 6;
-    const int32_t cos_cos = (t_cos_pitch * t_cos_roll + 8192) >> 14;
+    const int32_t cos_cos = LARKSPUR_ROUND_SHIFT(t_cos_pitch * t_cos_roll, 14);
     const int32_t r_up = (t_roll_level * cos_cos + 64) >> 7;
-    const int32_t r_down = (t_roll_slope * t_sin_pitch + 1024) >> 11;
+    const int32_t r_down = LARKSPUR_ROUND_SHIFT(t_roll_slope * t_sin_pitch, 11);
     const int32_t r_level = r_up - r_down;
+    const int32_t r_level_s5 = (r_level + 16) >> 5;
     const int32_t grav_r = g_pitch + g_roll;
     const int32_t grav_l = g_pitch - g_roll;
     const int32_t d_speed = speed_r - speed_l;
@@ -1348,21 +1389,23 @@ void larkspur_forward(const larkspur_fwd_in_t *in, larkspur_fwd_out_t *out)
             const int32_t d = x;
             const int32_t i = d >> 4;
             const int32_t f = d & 0xF;
-            const int32_t lo = larkspur_tab_minv11_0[i];
-            t_minv11 = lo + (((larkspur_tab_minv11_0[i + 1] - lo) * f + 8) >> 4);
+            const uint16_t *e = &larkspur_tab_minv11_0[i]; /* both entries from one address */
+            const int32_t lo = e[0];
+            t_minv11 = lo + (((e[1] - lo) * f + 8) >> 4);
         }
         {
             const int32_t d = x;
             const int32_t i = d >> 5;
             const int32_t f = d & 0x1F;
-            const int32_t lo = larkspur_tab_minv12_0[i];
-            t_minv12 = lo + (((larkspur_tab_minv12_0[i + 1] - lo) * f + 16) >> 5);
+            const uint16_t *e = &larkspur_tab_minv12_0[i]; /* both entries from one address */
+            const int32_t lo = e[0];
+            t_minv12 = lo + (((e[1] - lo) * f + 16) >> 5);
         }
     }
     const int32_t cor_pre_s6 = (cor_pre + 32) >> 6;
     const int32_t cor_r = (cor_pre_s6 * speed_l + 32) >> 6;
     int32_t t_fric_r;
-    int32_t t_shape_r;
+    int32_t roll_r;
     {
         /* friction and shape of speed_r, sharing |x| and the piece choice */
         const int32_t x = (speed_r < 0) ? -speed_r : speed_r;
@@ -1370,42 +1413,48 @@ void larkspur_forward(const larkspur_fwd_in_t *in, larkspur_fwd_out_t *out)
             {
                 t_fric_r = larkspur_tab_friction_0[x]; /* one entry per input step */
             }
-            {
-                t_shape_r = larkspur_tab_shape_0[x]; /* one entry per input step */
+            { /* shape times r_level_s5, made here where the piece is known */
+                int32_t y;
+                y = larkspur_tab_shape_0[x]; /* one entry per input step */
+                if (speed_r < 0) {
+                    y = -y;
+                }
+                roll_r = (r_level_s5 * y + 128) >> 8;
             }
         } else {
             {
                 const int32_t d = x - 31;
                 const int32_t i = d >> 5;
                 const int32_t f = d & 0x1F;
-                const int32_t lo = larkspur_tab_friction_1[i];
-                t_fric_r = lo + (((larkspur_tab_friction_1[i + 1] - lo) * f + 16) >> 5);
+                const uint16_t *e = &larkspur_tab_friction_1[i]; /* both entries from one address */
+                const int32_t lo = e[0];
+                t_fric_r = lo + (((e[1] - lo) * f + 16) >> 5);
             }
-            {
-                t_shape_r = larkspur_tab_shape_1[0];
+            { /* shape times r_level_s5: this piece's value 8192 is a multiple of 2^8, so the product is exact */
+                roll_r = r_level_s5 * 32;
+                if (speed_r < 0) {
+                    roll_r = -roll_r;
+                }
             }
         }
         if (speed_r < 0) {
             t_fric_r = -t_fric_r;
-            t_shape_r = -t_shape_r;
         }
     }
     const int32_t fric_r = t_fric_r * 128;
-    const int32_t r_level_s5 = (r_level + 16) >> 5;
-    const int32_t roll_r = (r_level_s5 * t_shape_r + 128) >> 8;
     const int32_t passive_r = cor_r + fric_r + roll_r + grav_r;
     const int32_t cur_acc_r = cur_r * 4096;
     int32_t effort_r = cur_acc_r;
-    if (speed_r != 0 && (cur_acc_r ^ speed_r) < 0) { /* moving, and force against the motion */
+    if ((cur_acc_r ^ speed_r) < 0 && speed_r != 0) { /* force against the motion (the sign test first: it fails most often), and moving */
         /* back-driven: scale by the blended factor at this speed (1.47059 beyond the blend band), Q13 */
         const int32_t k = larkspur_lookup_backdrive_inv(speed_r);
         /* exact in two 32-bit parts: high bits times k, plus the rounded low bits times k */
-        effort_r = (cur_acc_r >> 13) * k + (((cur_acc_r & 0x1FFF) * k + 4096) >> 13);
+        effort_r = (cur_acc_r >> 13) * k + LARKSPUR_ROUND_SHIFT((cur_acc_r & 0x1FFF) * k, 13);
     }
     const int32_t net_r = effort_r - passive_r;
     const int32_t cor_l = (cor_pre_s6 * speed_r + 32) >> 6;
     int32_t t_fric_l;
-    int32_t t_shape_l;
+    int32_t roll_l;
     {
         /* friction and shape of speed_l, sharing |x| and the piece choice */
         const int32_t x = (speed_l < 0) ? -speed_l : speed_l;
@@ -1413,48 +1462,55 @@ void larkspur_forward(const larkspur_fwd_in_t *in, larkspur_fwd_out_t *out)
             {
                 t_fric_l = larkspur_tab_friction_0[x]; /* one entry per input step */
             }
-            {
-                t_shape_l = larkspur_tab_shape_0[x]; /* one entry per input step */
+            { /* shape times r_level_s5, made here where the piece is known */
+                int32_t y;
+                y = larkspur_tab_shape_0[x]; /* one entry per input step */
+                if (speed_l < 0) {
+                    y = -y;
+                }
+                roll_l = (r_level_s5 * y + 128) >> 8;
             }
         } else {
             {
                 const int32_t d = x - 31;
                 const int32_t i = d >> 5;
                 const int32_t f = d & 0x1F;
-                const int32_t lo = larkspur_tab_friction_1[i];
-                t_fric_l = lo + (((larkspur_tab_friction_1[i + 1] - lo) * f + 16) >> 5);
+                const uint16_t *e = &larkspur_tab_friction_1[i]; /* both entries from one address */
+                const int32_t lo = e[0];
+                t_fric_l = lo + (((e[1] - lo) * f + 16) >> 5);
             }
-            {
-                t_shape_l = larkspur_tab_shape_1[0];
+            { /* shape times r_level_s5: this piece's value 8192 is a multiple of 2^8, so the product is exact */
+                roll_l = r_level_s5 * 32;
+                if (speed_l < 0) {
+                    roll_l = -roll_l;
+                }
             }
         }
         if (speed_l < 0) {
             t_fric_l = -t_fric_l;
-            t_shape_l = -t_shape_l;
         }
     }
     const int32_t fric_l = t_fric_l * 128;
-    const int32_t roll_l = (r_level_s5 * t_shape_l + 128) >> 8;
     const int32_t passive_l = -cor_l + fric_l + roll_l + grav_l;
     const int32_t cur_acc_l = cur_l * 4096;
     int32_t effort_l = cur_acc_l;
-    if (speed_l != 0 && (cur_acc_l ^ speed_l) < 0) { /* moving, and force against the motion */
+    if ((cur_acc_l ^ speed_l) < 0 && speed_l != 0) { /* force against the motion (the sign test first: it fails most often), and moving */
         /* back-driven: scale by the blended factor at this speed (1.47059 beyond the blend band), Q13 */
         const int32_t k = larkspur_lookup_backdrive_inv(speed_l);
         /* exact in two 32-bit parts: high bits times k, plus the rounded low bits times k */
-        effort_l = (cur_acc_l >> 13) * k + (((cur_acc_l & 0x1FFF) * k + 4096) >> 13);
+        effort_l = (cur_acc_l >> 13) * k + LARKSPUR_ROUND_SHIFT((cur_acc_l & 0x1FFF) * k, 13);
     }
     const int32_t net_l = effort_l - passive_l;
-    const int32_t net_r_s11 = (net_r + 1024) >> 11;
+    const int32_t net_r_s11 = LARKSPUR_ROUND_SHIFT(net_r, 11);
     const int32_t acc_self_r = (t_minv11 * net_r_s11 + 128) >> 8;
-    const int32_t net_l_s12 = (net_l + 2048) >> 12;
-    const int32_t acc_other_r = (t_minv12 * net_l_s12 + 1024) >> 11;
+    const int32_t net_l_s12 = LARKSPUR_ROUND_SHIFT(net_l, 12);
+    const int32_t acc_other_r = LARKSPUR_ROUND_SHIFT(t_minv12 * net_l_s12, 11);
     const int32_t accel_r = acc_self_r + acc_other_r;
     out->accel[0] = (accel_r + 128) >> 8;
-    const int32_t net_l_s11 = (net_l + 1024) >> 11;
+    const int32_t net_l_s11 = LARKSPUR_ROUND_SHIFT(net_l, 11);
     const int32_t acc_self_l = (t_minv11 * net_l_s11 + 128) >> 8;
-    const int32_t net_r_s12 = (net_r + 2048) >> 12;
-    const int32_t acc_other_l = (t_minv12 * net_r_s12 + 1024) >> 11;
+    const int32_t net_r_s12 = LARKSPUR_ROUND_SHIFT(net_r, 12);
+    const int32_t acc_other_l = LARKSPUR_ROUND_SHIFT(t_minv12 * net_r_s12, 11);
     const int32_t accel_l = acc_self_l + acc_other_l;
     out->accel[1] = (accel_l + 128) >> 8;
 }

@@ -178,11 +178,11 @@ void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out);
  * tick (reads only in->speed, in->accel). Each member's comment is its proven range. */
 typedef struct {
     int32_t t_cor; /* -16165 .. -3818 */
+    int32_t r_level_s5; /* 21615 .. 101672 */
     int32_t grav_r; /* -24382383 .. 24382383 */
     int32_t grav_l; /* -24382383 .. 24382383 */
     int32_t t_m11; /* 8136 .. 25760 */
     int32_t t_m12; /* -26024 .. -26024 */
-    int32_t r_level_s5; /* 21615 .. 101672 */
     uint32_t clamped; /* LARKSPUR_CLAMPED_PITCH, _ROLL, _PAYLOAD bits of the slow inputs */
 } larkspur_ff_state_t;
 
