@@ -13,11 +13,13 @@ from pathlib import Path
 from typing import Any
 
 import jinja2
+import platformdirs
 
 from . import cformat, interface
 
 CACHE_ENV = "KINETAB_TEMPLATE_CACHE"
-"""Folder for compiled templates (opt-in; saves about 0.1 s per build). Unset: no cache is written."""
+"""Folder for compiled templates (saves about 0.1 s per build); unset: `templates` in the user's cache
+folder (as pint caches its unit definitions); "off": none."""
 
 
 @dataclass(frozen=True)
@@ -41,9 +43,11 @@ def template_dir() -> Path:
 
 
 def _bytecode_cache() -> jinja2.BytecodeCache | None:
-    """Compiled templates in the folder named by KINETAB_TEMPLATE_CACHE, when set and writable."""
-    folder = os.environ.get(CACHE_ENV)
-    if not folder:
+    """Compiled templates in the folder CACHE_ENV names, else the user's cache folder; none when that is
+    "off" or cannot be made. Safe to share: jinja2 keys each entry by the template's source checksum and
+    its own and Python's bytecode versions, and writes it through a temporary file."""
+    folder = os.environ.get(CACHE_ENV) or str(Path(platformdirs.user_cache_dir("kinetab")) / "templates")
+    if folder == "off":
         return None
     try:
         Path(folder).mkdir(parents=True, exist_ok=True)

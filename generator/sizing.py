@@ -156,7 +156,12 @@ def _search(
     rest_cost = _suffix([u.cost(o[0], goal) for u, o in zip(pieces, orders)])
     rest_bytes = _suffix([min(u.bytes(c) for c in o) for u, o in zip(pieces, orders)])
     best: dict[str, Any] = {"cost": float("inf"), "choice": None}
-    start = _greedy(bound, pieces, budget, fixed, objective=objective)
+    fewest = None
+    if goal == "instructions":  # the fewest bytes first (a short search): a start within the cap
+        fewest, more = _search(pieces, bound, budget, fixed, objective=BYTES)
+        if fewest is None or sum(u.bytes(c) for u, c in zip(pieces, fewest)) > cap:
+            return None, more
+    start = _greedy(bound, pieces, budget, fixed, objective=objective, start=fewest)
     if start is not None:
         best["cost"], best["choice"] = sum(u.cost(c, goal) for u, c in zip(pieces, start)) + 1, start
     visited = 0
@@ -203,12 +208,20 @@ def _lowest_feasible(
 
 
 def _greedy(
-    bound: Bound, pieces: list[PieceSizes], budget: float, fixed: Mapping[str, float], *, objective: Objective
+    bound: Bound,
+    pieces: list[PieceSizes],
+    budget: float,
+    fixed: Mapping[str, float],
+    *,
+    objective: Objective,
+    start: list[int] | None = None,
 ) -> list[int] | None:
-    """A good first answer for the search to beat: from most accurate, keep taking the change to a
-    cheaper candidate that saves the most while the bound still holds; None when over the byte cap."""
+    """A good first answer for the search to beat: from `start` (default: most accurate), keep taking the
+    change to a cheaper candidate that saves the most while the bound still holds and the bytes stay
+    within the cap (or, above it, do not grow); None when still over the cap. The search is exact
+    either way: a good first answer only prunes sooner."""
     goal = objective.goal
-    choice = [len(u.cands.segments) - 1 for u in pieces]
+    choice = list(start) if start is not None else [len(u.cands.segments) - 1 for u in pieces]
 
     def at(ch: list[int]) -> float:
         return float(bound(_merge(pieces, [u.error(c) for u, c in zip(pieces, ch)], fixed)))
@@ -217,12 +230,14 @@ def _greedy(
         return None
     while True:
         moves = []
+        total = sum(u.bytes(c) for u, c in zip(pieces, choice))
         for j, u in enumerate(pieces):
             now = u.cost(choice[j], goal)
             for c in sorted(_all(u), key=partial(u.cost, goal=goal)):
                 if u.cost(c, goal) >= now:
                     break
-                if at(choice[:j] + [c] + choice[j + 1 :]) <= budget:
+                fits = total - u.bytes(choice[j]) + u.bytes(c) <= max(objective.bytes_max, total)
+                if fits and at(choice[:j] + [c] + choice[j + 1 :]) <= budget:
                     moves.append((now - u.cost(c, goal), j, c))
                     break  # the cheapest feasible change of this unit
         if not moves:

@@ -43,18 +43,47 @@ def _motoring(fw: Firmware) -> dynamics.Vehicle:
     return dataclasses.replace(v, drive=dataclasses.replace(v.drive, backdrive_efficiency=1 / v.drive.efficiency))
 
 
-def _jumps(fw: Firmware, rows: np.ndarray, column: int) -> tuple[np.ndarray, np.ndarray]:
-    """Per row and wheel, the firmware's current change (A) when `column` moves up one step, and that change
-    less the model's own (motoring efficiency); zero where the moved row leaves the envelope."""
-    moved = rows.copy()
-    moved[:, column] += 1
-    lsb, st = fw.vehicle.firmware.current_lsb_a, interface.ff_in(fw.vehicle)
-    run = lambda r: emulate.run(fw.design.feedforward, fw.tables, interface.rows_to_fields(st, r))  # noqa: E731
-    fw_jump = np.abs(run(moved)["current"] - run(rows)["current"]) * lsb
-    motoring = _motoring(fw)
-    ref = lambda r: dynamics.wheel_currents(motoring, operating_point(fw, interface.rows_to_fields(st, r)))  # noqa: E731
-    model_jump = np.abs(ref(moved) - ref(rows))
-    out = ~inside_envelope(fw.vehicle, fw.design.limits, moved)
+@dataclass(frozen=True)
+class _Evaluated:
+    """Rows of firmware inputs (steps) with the firmware's currents (steps) and the motoring model's (A)."""
+
+    rows: np.ndarray
+    firmware: np.ndarray
+    model: np.ndarray
+
+
+def _batch(fw: Firmware, blocks: list[np.ndarray]) -> list[_Evaluated]:
+    """Each block of rows evaluated, all in one call of the emulator and of the model (their cost is
+    mostly per call, so one call for every input's rows saves most of it)."""
+    rows = np.concatenate(blocks)
+    st = interface.ff_in(fw.vehicle)
+    fields = interface.rows_to_fields(st, rows)
+    current = emulate.run(fw.design.feedforward, fw.tables, fields)["current"]
+    model = dynamics.wheel_currents(_motoring(fw), operating_point(fw, fields))
+    cuts = np.cumsum([0, *map(len, blocks)])
+    return [_Evaluated(*(x[lo:hi] for x in (rows, current, model))) for lo, hi in zip(cuts[:-1], cuts[1:])]
+
+
+def _moved(rows: np.ndarray, column: int) -> np.ndarray:
+    """The rows with one column moved up one step."""
+    out = rows.copy()
+    out[:, column] += 1
+    return out
+
+
+def _joined(a: _Evaluated, b: _Evaluated) -> _Evaluated:
+    return _Evaluated(
+        *(np.concatenate([x, y]) for x, y in zip((a.rows, a.firmware, a.model), (b.rows, b.firmware, b.model)))
+    )
+
+
+def _jumps(fw: Firmware, here: _Evaluated, up: _Evaluated) -> tuple[np.ndarray, np.ndarray]:
+    """Per row and wheel, the firmware's current change (A) from `here` to `up` (the rows with one input
+    moved up one step), and that change less the model's own (motoring efficiency); zero where the
+    moved row leaves the envelope."""
+    fw_jump = np.abs(up.firmware - here.firmware) * fw.vehicle.firmware.current_lsb_a
+    model_jump = np.abs(up.model - here.model)
+    out = ~inside_envelope(fw.vehicle, fw.design.limits, up.rows)
     fw_jump[out], model_jump[out] = 0.0, 0.0
     return fw_jump.max(axis=1), (fw_jump - model_jump).max(axis=1)
 
@@ -90,24 +119,28 @@ def neighbour_steps(fw: Firmware) -> dict[str, NeighbourStep]:
     edges and across the blend band. Sampled, not proven."""
     edges, st = _edges(fw), interface.ff_in(fw.vehicle)
     base = np.concatenate([interface.fields_to_rows(st, envelope_points(fw, NEIGHBOUR_POINTS, 11)), edges])
-    out = {}
-    for m in st.members:
-        best = NeighbourStep(amps=0.0, at=0)
-        for column in m.columns:
-            j = st.columns.index(column)
-            jump, excess = _jumps(fw, base, j)
-            places = {int(base[int(np.argmax(jump)), j]), int(base[int(np.argmax(excess)), j])}
-            places |= set(_speed_places(fw, m.name)) if m.name in SPEED_INPUTS else set()
-            rows = np.concatenate([base, *[np.where(np.arange(len(st.columns)) == j, p, edges) for p in places]])
-            jump, excess = _jumps(fw, rows, j)
-            a, e = int(np.argmax(jump)), int(np.argmax(excess))
-            best = NeighbourStep(
-                amps=max(best.amps, float(jump[a])),
-                at=int(rows[a, j]) if jump[a] > best.amps else best.at,
-                excess=max(best.excess, float(excess[e])),
-                excess_at=int(rows[e, j]) if excess[e] > best.excess else best.excess_at,
-            )
-        out[m.name] = best
+    columns = [(m, st.columns.index(c)) for m in st.members for c in m.columns]
+    here, *firsts = _batch(fw, [base, *[_moved(base, j) for _, j in columns]])
+    extras = []
+    for (m, j), up in zip(columns, firsts):
+        jump, excess = _jumps(fw, here, up)
+        places = {int(base[int(np.argmax(jump)), j]), int(base[int(np.argmax(excess)), j])}
+        places |= set(_speed_places(fw, m.name)) if m.name in SPEED_INPUTS else set()
+        extras.append(np.concatenate([np.where(np.arange(len(st.columns)) == j, p, edges) for p in places]))
+    done = _batch(fw, [*extras, *[_moved(x, j) for x, (_, j) in zip(extras, columns)]])
+    at_extras, seconds = done[: len(extras)], done[len(extras) :]
+    out: dict[str, NeighbourStep] = {}
+    for (m, j), first, ex, second in zip(columns, firsts, at_extras, seconds):
+        rows = np.concatenate([base, ex.rows])
+        jump, excess = _jumps(fw, _joined(here, ex), _joined(first, second))
+        a, e = int(np.argmax(jump)), int(np.argmax(excess))
+        best = out.get(m.name, NeighbourStep(amps=0.0, at=0))
+        out[m.name] = NeighbourStep(
+            amps=max(best.amps, float(jump[a])),
+            at=int(rows[a, j]) if jump[a] > best.amps else best.at,
+            excess=max(best.excess, float(excess[e])),
+            excess_at=int(rows[e, j]) if excess[e] > best.excess else best.excess_at,
+        )
     return out
 
 

@@ -48,3 +48,17 @@ def test_golden_files_have_lf_endings_and_no_time_stamp(name):
     data = (GOLDEN / name).read_bytes()
     assert b"\r" not in data and data.endswith(b"\n")
     assert b"2026" not in data and b"generated on" not in data.lower()
+
+
+def test_compiled_template_cache_changes_no_byte(tmp_path, monkeypatch):
+    """Templates compiled once and read back from the cache folder (jinja2's bytecode cache) render
+    the same text as templates compiled afresh, and the cache is where KINETAB_TEMPLATE_CACHE says."""
+    from kinetab.generator import render
+
+    fw = demo_firmware()
+    monkeypatch.setenv(render.CACHE_ENV, "off")
+    fresh = render.render(fw)
+    monkeypatch.setenv(render.CACHE_ENV, str(tmp_path / "cache"))
+    first, second = render.render(fw), render.render(fw)  # the second reads what the first wrote
+    assert fresh == first == second
+    assert len(list((tmp_path / "cache").iterdir())) >= 2
