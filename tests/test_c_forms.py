@@ -9,6 +9,7 @@ import subprocess
 import numpy as np
 import pytest
 from kinetab.generator import cview, emulate, hostc, interface, render, vectors
+from kinetab.generator.ops import Sum
 
 from tests.csteps import harness_source, needs_gcc, run_harness, write_files
 from tests.firmware_fixtures import demo_firmware
@@ -71,7 +72,8 @@ def test_the_thumb1_rounding_form_gives_the_emulators_integers(tmp_path):
 def test_products_made_inside_the_lookup_block_on_invented_vehicles(seed, tmp_path):
     """Invented vehicles: the rolling product is made inside the speed lookup block (exactly, as one
     multiply by a literal, in the shape's constant piece), and the C, both Thumb-1 and plain rounding,
-    gives the emulator's integers on corners, clamping and random inputs."""
+    gives the emulator's integers on corners, clamping and random inputs: feed-forward (one call and two
+    rates) and the forward helper."""
     fw = invented(seed, "veh")[1]
     files = render.render(fw)
     text = files["veh_ff.c"]
@@ -81,23 +83,30 @@ def test_products_made_inside_the_lookup_block_on_invented_vehicles(seed, tmp_pa
     rows = interface.fields_to_rows(st, vectors.feedforward_inputs(fw.design.limits, 3000, vehicle=fw.vehicle))
     want = emulate.run(fw.design.feedforward, fw.tables, interface.rows_to_fields(st, rows))
     expect = np.column_stack([want["current"], want["clamped"]])
+    lo, hi = interface.column_edges(fw.design.limits, interface.FWD_IN)  # the forward helper's inputs
+    fin = np.stack([np.random.default_rng(seed).integers(a - 50, b + 50, 3000) for a, b in zip(lo, hi)], axis=-1)
+    back = emulate.run(fw.design.forward, fw.tables, interface.rows_to_fields(interface.FWD_IN, fin))
     for defines in ((), (THUMB1,)):
         exe = _harness(tmp_path, "veh", defines)
         for mode in ("ff", "split"):
             assert np.array_equal(run_harness(exe, rows, mode), expect), (defines, mode)
+        assert np.array_equal(run_harness(exe, fin, "fwd"), np.column_stack([back["accel"], back["clamped"]]))
 
 
 def test_a_product_stays_outside_the_block_when_no_piece_makes_it_exact():
     """A constant piece that is not a multiple of 2^shift would need its rounding: the product is then
-    left where it was (one product after the block), and a member read twice is never moved."""
+    left where it was (one product after the block); nor is it moved when the looked-up value has a
+    second reader."""
     fw = demo_firmware()
     tables = {name: cview.table_view(fw, name, "larkspur") for name in fw.tables}
     prog, proof = fw.design.feedforward, fw.ff_proof
     ops = tuple(prog.ops)
     start = next(k for k, op in enumerate(ops) if op.dst == "t_fric_r")
-    assert cview._fused_product(ops, start, "t_shape_r", table=tables["shape"], proof=proof) is not None
+    assert cview._fused_product(ops, start, "t_shape_r", table=tables["shape"], proof=proof, whole=ops) is not None
     shape = dict(tables["shape"])
     shape["pieces"] = [dict(p, value=p["value"] - 1) if p["kind"] == "constant" else p for p in shape["pieces"]]
-    assert cview._fused_product(ops, start, "t_shape_r", table=shape, proof=proof) is None
-    pitch_group = next(k for k, op in enumerate(ops) if op.dst == "t_sin_pitch")
-    assert cview._fused_product(ops, pitch_group, "t_cos_pitch", table=tables["cos_pitch"], proof=proof) is None
+    assert cview._fused_product(ops, start, "t_shape_r", table=shape, proof=proof, whole=ops) is None
+    twice = (*ops, Sum("t_shape_r_again", ((1, "t_shape_r"),)))  # a second reader of the same value
+    assert cview._fused_product(twice, start, "t_shape_r", table=tables["shape"], proof=proof, whole=twice) is None
+    # ...also when that reader is in the other rate's part (the value would then be a state member)
+    assert cview._fused_product(ops, start, "t_shape_r", table=tables["shape"], proof=proof, whole=twice) is None

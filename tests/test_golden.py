@@ -51,8 +51,10 @@ def test_golden_files_have_lf_endings_and_no_time_stamp(name):
 
 
 def test_compiled_template_cache_changes_no_byte(tmp_path, monkeypatch):
-    """Templates compiled once and read back from the cache folder (jinja2's bytecode cache) render
-    the same text as templates compiled afresh, and the cache is where KINETAB_TEMPLATE_CACHE says."""
+    """Templates compiled once and read back from the cache folder (jinja2's bytecode cache) render the
+    same text as templates compiled afresh; so do corrupt entries and a cache that cannot be written
+    (a miss, never an error); other environment options get a folder of their own."""
+    import jinja2
     from kinetab.generator import render
 
     fw = demo_firmware()
@@ -60,5 +62,18 @@ def test_compiled_template_cache_changes_no_byte(tmp_path, monkeypatch):
     fresh = render.render(fw)
     monkeypatch.setenv(render.CACHE_ENV, str(tmp_path / "cache"))
     first, second = render.render(fw), render.render(fw)  # the second reads what the first wrote
-    assert fresh == first == second
-    assert len(list((tmp_path / "cache").iterdir())) >= 2
+    entries = [p for p in (tmp_path / "cache").rglob("*") if p.is_file()]
+    assert fresh == first == second and len(entries) >= 2
+    for entry in entries:
+        entry.write_bytes(b"not a compiled template")
+    assert render.render(fw) == fresh
+
+    def refuse(self, bucket):
+        raise PermissionError("read-only cache")
+
+    monkeypatch.setattr(jinja2.FileSystemBytecodeCache, "dump_bytecode", refuse)
+    monkeypatch.setenv(render.CACHE_ENV, str(tmp_path / "other"))
+    assert render.render(fw) == fresh
+    folder = render._cache_folder(tmp_path)
+    monkeypatch.setitem(render.OPTIONS, "trim_blocks", False)
+    assert render._cache_folder(tmp_path) != folder

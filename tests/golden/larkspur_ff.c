@@ -21,7 +21,8 @@
 
 /* Rounding right shift by s of 10 or more: Thumb-1 (Cortex-M0/M0+/M23) has no wide immediates, so
  * ((x >> (s - 1)) + 1) >> 1 saves building 2^(s-1) in a register; elsewhere adding it is one instruction.
- * Both are floor(x / 2^s + 1/2) for every int32 x (docs/physics.md, "Fixed-point rounding"). */
+ * Both are floor(x / 2^s + 1/2): the first for every int32 x, the second wherever x + 2^(s-1) fits,
+ * which the generator's range proof guarantees for every use below. */
 #if defined(__ARM_ARCH_6M__) || defined(__ARM_ARCH_8M_BASE__)
 #define LARKSPUR_ROUND_SHIFT(x, s) ((((x) >> ((s) - 1)) + 1) >> 1)
 #else
