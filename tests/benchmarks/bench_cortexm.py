@@ -64,7 +64,8 @@ def float_params(fw: synthesis.Firmware) -> str:
         "STRIBECK_BUMP": v.friction.breakaway_n - v.friction.coulomb_n,
         "VISCOUS": v.friction.viscous_ns_per_m,
         "K_MOT": k / f.current_lsb_a,
-        "K_BACK": k * v.drive.efficiency * v.drive.backdrive_efficiency / f.current_lsb_a,
+        "BACK_RATIO": dy.backdrive_ratio(v),
+        "INV_BLEND": 1 / dy.blend_width(v) if dy.blend_width(v) > 0 else 1e30,  # 0: a switch
     }
     lines = [f"#define KT_{n} {val}" if isinstance(val, int) else f"#define KT_{n} {val!r}f" for n, val in vals.items()]
     return "\n".join(lines) + "\n"

@@ -134,11 +134,14 @@ def weighted_median(per_class: dict[str, list[int]]) -> float:
 
 
 def models() -> dict[str, synthesis.Firmware]:
-    """The demo, its int32 twin, three invented vehicles of the test strategy's ranges, and the first of
+    """The demo, its int32 twin, the demo with 8 kB of tables allowed (sizing then picks a direct friction
+    table outside the deadband), three invented vehicles of the test strategy's ranges, and the first of
     them with body-frame inputs (firmware.inputs = 'body', default steps)."""
     demo = model.load(DEMO_PATH)
     twin = dataclasses.replace(demo, firmware=dataclasses.replace(demo.firmware, word="int32"))
+    roomy = dataclasses.replace(demo, firmware=dataclasses.replace(demo.firmware, table_bytes_max=8192))
     out = {"demo (int16)": synthesis.synthesise(demo), "demo int32 twin": synthesis.synthesise(twin)}
+    out["demo, table_bytes_max 8192"] = synthesis.synthesise(roomy)
     for seed in (40, 5, 7):
         out[f"invented seed {seed}"] = invented(seed, "veh")[1]
     body = invented(40, "veh", lambda doc, _rng: doc["firmware"].update(inputs="body"))[1]

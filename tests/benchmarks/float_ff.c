@@ -56,6 +56,12 @@ static float friction(float u)
     return (KT_COULOMB + KT_STRIBECK_BUMP * exp_neg(r * r)) * shape(u) + KT_VISCOUS * u;
 }
 
+static float backdrive_scale(float u)  /* 1 at standstill, the back-driving ratio beyond the blend band */
+{
+    const float a = (u < 0.0f ? -u : u) * KT_INV_BLEND;
+    return 1.0f + (KT_BACK_RATIO - 1.0f) * (a < 1.0f ? a : 1.0f);
+}
+
 static int32_t to_steps(float x)
 {
     return x >= 0.0f ? (int32_t)(x + 0.5f) : -(int32_t)(0.5f - x);
@@ -86,8 +92,8 @@ void bl_feedforward(const bl_in_t *in, bl_out_t *out)
     const float cor = mc * KT_INV_4B2 * (ur - ul);
     const float qr = m11 * ar + m12 * al + cor * ul + friction(ur) + level * shape(ur) + gp + gr;
     const float ql = m12 * ar + m11 * al - cor * ur + friction(ul) + level * shape(ul) + gp - gr;
-    const float kr = (qr > 0.0f && ur < 0.0f) || (qr < 0.0f && ur > 0.0f) ? KT_K_BACK : KT_K_MOT;
-    const float kl = (ql > 0.0f && ul < 0.0f) || (ql < 0.0f && ul > 0.0f) ? KT_K_BACK : KT_K_MOT;
+    const float kr = (qr > 0.0f && ur < 0.0f) || (qr < 0.0f && ur > 0.0f) ? KT_K_MOT * backdrive_scale(ur) : KT_K_MOT;
+    const float kl = (ql > 0.0f && ul < 0.0f) || (ql < 0.0f && ul > 0.0f) ? KT_K_MOT * backdrive_scale(ul) : KT_K_MOT;
     out->current[0] = to_steps(qr * kr);
     out->current[1] = to_steps(ql * kl);
     out->clamped = flags;
