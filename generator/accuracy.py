@@ -43,7 +43,7 @@ class Accuracy:
 def operating_point(fw: Firmware, inp: dict[str, np.ndarray]) -> dynamics.OperatingPoint:
     """Feed-forward inputs in firmware steps -> the SI operating point the integer program computes for:
     the inputs themselves, or for body-frame inputs the wheel steps its conversion makes of them (exact
-    with whole-number ratios; else within bodyframe.Mix.deviation of exact_point)."""
+    with whole-number ratios; else within bodyframe.Conversion.deviation of exact_point)."""
     if interface.ff_in(fw.vehicle).body:
         return dynamics.OperatingPoint(**interface.to_si(fw.vehicle, FF_IN, bodyframe.wheel_fields(fw.vehicle, inp)))
     return exact_point(fw, inp)
@@ -114,9 +114,9 @@ def _input_resolution(fw: Firmware, inp: dict[str, np.ndarray]) -> dict[str, flo
         moved[name] = moved[name] + 0.5
         out[name] = float(np.max(np.abs(reference_current(fw, exact_point(fw, moved)) - base)))
     if interface.ff_in(fw.vehicle).body:
-        exact = all(bodyframe.mix(fw.vehicle, pair).exact for pair in ("speed", "accel"))
+        lossless = all(bodyframe.mix(fw.vehicle, pair).lossless for pair in interface.BODY_PAIRS)
         moved = np.abs(reference_current(fw, operating_point(fw, inp)) - base)
-        out["conversion"] = 0.0 if exact else float(np.max(moved))  # exact: only float dust would show
+        out["conversion"] = 0.0 if lossless else float(np.max(moved))  # lossless: only float dust would show
     return out
 
 

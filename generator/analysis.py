@@ -225,7 +225,7 @@ def _error_step(op: Op, specs: Mapping[str, tb.TableSpec], mag: dict[str, float]
     e = lambda err, name: 0.0 if name in zero else err[name]  # noqa: E731
     match op:
         case Clamp() | PairClamp() | Mix():  # exact: the model is evaluated at the clamped input (or pair)
-            # a Mix's distance from the exact wheel value is an input resolution (bodyframe.Mix.deviation)
+            # a Mix's distance from the exact wheel value is an input resolution (bodyframe.Conversion.deviation)
             mag[op.dst] = float(op_range(op, {}, lambda _: fx.Interval(0, 0)).magnitude())
             zero.add(op.dst)
             return None

@@ -4,8 +4,8 @@ the wheel steps the tables are indexed by.
 
 u_R = u + b w and u_L = u - b w (dynamics.wheels_from_body). One body step is worth r_u = lsb_u / lsb_wheel
 and r_w = b lsb_w / lsb_wheel wheel steps; the firmware multiplies by k_u / 2^s and k_w / 2^s and rounds
-(ties up). With dyadic ratios (whole numbers with the default steps) that is exact; otherwise each wheel
-lands within `Mix.deviation` steps of the exact value, an input resolution the build reports.
+(ties up). With dyadic ratios (whole numbers with the default steps) that is lossless; otherwise each wheel
+lands within `Conversion.deviation` steps of the exact value, an input resolution the build reports.
 """
 
 from __future__ import annotations
@@ -20,7 +20,7 @@ from . import dynamics, region
 from . import fixedpoint as fx
 from .vehicle import Vehicle
 
-EXACT_SHIFT_MAX = 16  # a ratio that is k / 2^s with s up to this is taken as exact
+DYADIC_SHIFT_MAX = 16  # a ratio that is k / 2^s with s up to this is taken as dyadic (lossless)
 WIDE_SHIFT = 30  # constants of an inexact ratio: at most 30 fraction bits
 NARROW_DRIFT = 1 / 64  # wheel steps the constants' rounding may add before the 64-bit form is taken
 
@@ -54,7 +54,7 @@ def limit_steps(v: Vehicle, quantity: str) -> int:
 
 
 @dataclass(frozen=True, kw_only=True)
-class Mix:
+class Conversion:
     """One pair's conversion to wheel steps: wheel = round((along k_along +- turn k_turn) / 2^shift), + for
     the right wheel; `wide`: the products and their sum need 64 bits."""
 
@@ -68,14 +68,14 @@ class Mix:
     wide: bool
 
     @property
-    def exact(self) -> bool:
+    def lossless(self) -> bool:
         """Whole-number ratios: the wheel steps are the exact values (no constant rounds, nothing shifts)."""
         return self.shift == 0 and self.k_along == self.r_along and self.k_turn == self.r_turn
 
     def deviation(self) -> float:
         """Proven worst |firmware wheel - exact wheel| in wheel steps over the clamped body inputs: the
         constants' rounding times the inputs' largest values, plus half a step when the sum is shifted."""
-        if self.exact:
+        if self.lossless:
             return 0.0
         scale = 2.0**-self.shift
         drift = self.along_max * abs(self.k_along * scale - self.r_along)
@@ -90,15 +90,15 @@ class Mix:
 
 
 def _dyadic(ratio: float) -> int | None:
-    """The smallest s with ratio * 2^s a whole number (to 1e-12), if s <= EXACT_SHIFT_MAX."""
-    for s in range(EXACT_SHIFT_MAX + 1):
+    """The smallest s with ratio * 2^s a whole number (to 1e-12), if s <= DYADIC_SHIFT_MAX."""
+    for s in range(DYADIC_SHIFT_MAX + 1):
         k = ratio * 2**s
         if abs(k - round(k)) <= 1e-12 * max(1.0, k):
             return s
     return None
 
 
-def mix(v: Vehicle, pair: str) -> Mix:
+def mix(v: Vehicle, pair: str) -> Conversion:
     """The conversion constants of "speed" (forward speed, yaw rate) or "accel" (their rates): exact when
     both ratios are dyadic; else in 32 bits when the constants' rounding adds at most NARROW_DRIFT of a
     wheel step to the half step of the final rounding, else with WIDE_SHIFT fraction bits in 64 bits."""
@@ -136,9 +136,9 @@ def _top(r_along: float, r_turn: float, *, along_max: int, turn_max: int, shift:
     return along_max * k_along + turn_max * k_turn + ((1 << (shift - 1)) if shift else 0)
 
 
-def _built(r_along: float, r_turn: float, *, along_max: int, turn_max: int, shift: int) -> Mix:
+def _built(r_along: float, r_turn: float, *, along_max: int, turn_max: int, shift: int) -> Conversion:
     k_along, k_turn = _constants(r_along, r_turn, shift)
-    return Mix(
+    return Conversion(
         k_along=k_along,
         k_turn=k_turn,
         shift=shift,

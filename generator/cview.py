@@ -26,9 +26,12 @@ from .ops import (
     Store,
     Sum,
     by_rate,
+    looked_up,
+    moves_pairs,
     op_inputs,
     op_table,
     rounding_half,
+    signal_product,
 )
 from .synthesis import FORMAT_VERSION, Firmware
 
@@ -254,6 +257,8 @@ def _pair_view(op: PairClamp, clamp_names: list[str], prefix: str) -> dict[str, 
         "left": op.left,
         "sum_max": op.sum_max,
         "diff_max": op.diff_max,
+        "sum_span": 2 * op.sum_max,  # (uint32_t)(s + sum_max) > sum_span: outside [-sum_max, sum_max]
+        "diff_span": 2 * op.diff_max,
         "bit_r": clamp_names[op.bit],
         "bit_l": clamp_names[op.bit + 1],  # a pair's columns are adjacent (interface.Member.columns)
         "unlikely": f"{prefix.upper()}_UNLIKELY",
@@ -300,7 +305,7 @@ def _round_macro(shift: int, prefix: str) -> str | None:
 
 def _has_pairs(fw: Firmware) -> bool:
     """Whether either program clamps a wheel pair into a region (then the C needs the scaling helper)."""
-    return any(isinstance(op, PairClamp) for op in (*fw.design.feedforward.ops, *fw.design.forward.ops))
+    return any(moves_pairs(op) for op in (*fw.design.feedforward.ops, *fw.design.forward.ops))
 
 
 def _op_view(op: Op, proof: Proof, clamp_names: list[str], prefix: str) -> dict[str, Any]:
@@ -403,7 +408,7 @@ def _fused_product(
     if sum(member in op_inputs(op) for op in whole) != 1:
         return None
     readers = [i for i, op in enumerate(ops) if member in op_inputs(op)]
-    if len(readers) != 1 or not isinstance(op := ops[readers[0]], Mul) or op.a == op.b:
+    if len(readers) != 1 or (op := signal_product(ops[readers[0]])) is None or op.a == op.b:
         return None
     other = op.b if op.a == member else op.a
     later = {o.dst for o in ops[start:]}
@@ -467,7 +472,7 @@ def _group_view(
 
 def _group_key(op: Op, tables: dict[str, dict[str, Any]]) -> GroupKey | None:
     """Lookups that may share one inline block: same input, same symmetry class, same piece edge."""
-    table = op_table(op) if isinstance(op, Lookup) else None  # a Backdrive's table is looked up in its branch
+    table = looked_up(op)  # a Backdrive's table is looked up in its branch
     if table is None:
         return None
     t = tables[table]

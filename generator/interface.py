@@ -3,8 +3,9 @@ calls (members, order, C types, physical units, the model key of each member's s
 the C identifiers and the generated file names.
 
 The templates render the structs from this, the golden vectors take their columns from it, the
-SI <-> firmware-step conversions and the Cortex-M input packing read it, and the bench messages pack
-their setpoints from it. Nothing else restates the order of the inputs.
+SI <-> firmware-step conversions and the Cortex-M input packing read it, the programs take their clamp
+order, signal names and rates from it, and the bench's plans, logs and messages derive their columns
+from it. Nothing else restates the order of the inputs.
 """
 
 from __future__ import annotations
@@ -41,6 +42,13 @@ class Member:
     typed_unit: str = ""  # the unit of a bare number typed for it ("deg" for angles)
     labels: tuple[str, ...] = ()  # per column, for option help ("Right wheel rim speed")
     body: bool = False  # a body-frame input: its step is bodyframe.lsb (the model key or its default)
+    slow: bool = False  # changes slowly (an inclination filter at tens of hertz, a payload once per load)
+    signal: str = ""  # the programs' name of its clamped value, when not the member's name
+
+    @property
+    def value(self) -> str:
+        """The programs' signal name of the clamped member (`speed`, `cur`)."""
+        return self.signal or self.name
 
     @property
     def columns(self) -> tuple[str, ...]:
@@ -142,6 +150,7 @@ PITCH = Member(
     quantity=units.ANGLE,
     typed_unit="deg",
     labels=("Pitch, front up > 0",),
+    slow=True,
 )
 ROLL = Member(
     name="roll",
@@ -156,6 +165,7 @@ ROLL = Member(
     quantity=units.ANGLE,
     typed_unit="deg",
     labels=("Roll, left side up > 0",),
+    slow=True,
 )
 PAYLOAD = Member(
     name="payload",
@@ -171,6 +181,7 @@ PAYLOAD = Member(
     quantity=units.MASS,
     typed_unit="kg",
     labels=("Payload mass",),
+    slow=True,
 )
 FORWARD_SPEED = Member(
     name="forward_speed",
@@ -241,6 +252,7 @@ CURRENT_IN = Member(
     limit="current",
     edge_key="drive.current_limit",
     steps="current steps",
+    signal="cur",
 )
 CURRENT_OUT = dataclasses.replace(CURRENT_IN, what="feed-forward motor current per wheel")
 ACCEL_OUT = Member(
@@ -259,6 +271,8 @@ FF_IN_BODY = Struct(
     tag="ff_in", members=(FORWARD_SPEED, YAW_RATE, FORWARD_ACCEL, YAW_ACCEL, PITCH, ROLL, PAYLOAD), body=True
 )
 """The feed-forward inputs with firmware.inputs = 'body' (same size, same clamp-bit count)."""
+SLOW_MEMBERS = tuple(m.name for m in FF_IN.members if m.slow)
+"""The inputs the slow part of a two-rate program reads (the same in both feed-forward forms)."""
 FF_OUT = Struct(tag="ff_out", members=(CURRENT_OUT,), clamped=True)
 FWD_IN = Struct(tag="fwd_in", members=(CURRENT_IN, SPEED, PITCH, ROLL, PAYLOAD))
 FWD_OUT = Struct(tag="fwd_out", members=(ACCEL_OUT,), clamped=True)

@@ -150,8 +150,8 @@ def op_inputs(op: Op) -> tuple[str, ...]:
             assert_never(op)
 
 
-SLOW_FIELDS = ("pitch", "roll", "payload")
-"""Inputs that change slowly (an inclination filter at tens of hertz, a payload once per load)."""
+SLOW_FIELDS = interface.SLOW_MEMBERS
+"""Inputs that change slowly (the interface's `slow` members)."""
 
 
 @dataclass(frozen=True)
@@ -202,6 +202,50 @@ def op_table(op: Op) -> str | None:
             return op.table
         case Clamp() | PairClamp() | Mix() | Mul() | Scale() | Sum() | Store():
             return None
+        case _:
+            assert_never(op)
+
+
+def signal_product(op: Op) -> Mul | None:
+    """The op when it is a product of two signals (a Mul), else None."""
+    match op:
+        case Mul():
+            return op
+        case Clamp() | PairClamp() | Mix() | Lookup() | Scale() | Sum() | Backdrive() | Store():
+            return None
+        case _:
+            assert_never(op)
+
+
+def looked_up(op: Op) -> str | None:
+    """The table a Lookup reads (a Backdrive's table is read only on its branch: None here)."""
+    match op:
+        case Lookup():
+            return op.table
+        case Clamp() | PairClamp() | Mix() | Mul() | Scale() | Sum() | Backdrive() | Store():
+            return None
+        case _:
+            assert_never(op)
+
+
+def moves_pairs(op: Op) -> bool:
+    """Whether the op moves a wheel pair into a region (a PairClamp: the C then needs its scaling helper)."""
+    match op:
+        case PairClamp():
+            return True
+        case Clamp() | Mix() | Lookup() | Mul() | Scale() | Sum() | Backdrive() | Store():
+            return False
+        case _:
+            assert_never(op)
+
+
+def wide_conversion(op: Op) -> bool:
+    """Whether the op is a body-frame conversion whose products need 64 bits."""
+    match op:
+        case Mix():
+            return op.wide
+        case Clamp() | PairClamp() | Lookup() | Mul() | Scale() | Sum() | Backdrive() | Store():
+            return False
         case _:
             assert_never(op)
 

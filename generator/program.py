@@ -168,20 +168,6 @@ def _preshift(ra: fx.Interval, rb: fx.Interval, shift: int) -> tuple[int, int]:
     return (best[1], best[2]) if best is not None else (0, 0)
 
 
-SIGNAL = {
-    "speed": "speed",
-    "accel": "accel",
-    "current": "cur",
-    "pitch": "pitch",
-    "roll": "roll",
-    "payload": "payload",
-    "forward_speed": "forward_speed",
-    "yaw_rate": "yaw_rate",
-    "forward_accel": "forward_accel",
-    "yaw_accel": "yaw_accel",
-}  # member -> the program's signal name of its clamped value
-
-
 def _clamps(bd: _Builder, lim: Limits, call: interface.Call, order: tuple[str, ...]) -> None:
     """Clamp every input member in `order`; bounds and flag bits come from the interface. A wheel pair
     whose region is not a box (body-frame limits) is clamped to the box, then into the region."""
@@ -193,11 +179,11 @@ def _clamps(bd: _Builder, lim: Limits, call: interface.Call, order: tuple[str, .
         pair = pairs.get(name) if m.count == 2 else None
         boxed = pair is not None and not pair.is_box
         for side, column in enumerate(m.columns):
-            dst = f"{SIGNAL[name]}_{'box_' if boxed else ''}{'rl'[side]}" if m.count == 2 else SIGNAL[name]
+            dst = f"{m.value}_{'box_' if boxed else ''}{'rl'[side]}" if m.count == 2 else m.value
             bd.clamp(dst, name, side if m.count == 2 else None, lo=lo, hi=hi, bit=call.clamp_bit(column))
         if pair is not None and boxed:
             for side, column in enumerate(m.columns):
-                sig = SIGNAL[name]
+                sig = m.value
                 bd.pair_clamp(
                     PairClamp(
                         dst=f"{sig}_{'rl'[side]}",
@@ -215,16 +201,16 @@ def _clamps(bd: _Builder, lim: Limits, call: interface.Call, order: tuple[str, .
 def _body_inputs(bd: _Builder, lim: Limits, call: interface.Call) -> None:
     """Body-frame inputs: each clamped to its own edge, then each pair turned into wheel steps and each
     wheel clamped to its edge (bodyframe.py); a wheel clamp sets both of its pair's bits."""
-    _clamps(bd, lim, call, ("pitch", "roll", "payload", "forward_speed", "yaw_rate", "forward_accel", "yaw_accel"))
+    _clamps(bd, lim, call, (*interface.SLOW_MEMBERS, *(m.name for m in call.inputs.members if not m.slow)))
     for pair, (along, turn) in interface.BODY_PAIRS.items():
         mix = bodyframe.mix(bd.vehicle, pair)
         mask = (1 << call.clamp_bit(along.name)) | (1 << call.clamp_bit(turn.name))
         for side in (0, 1):
             bd.pair_clamp(
                 Mix(
-                    dst=f"{SIGNAL[pair]}_{'rl'[side]}",
-                    along=SIGNAL[along.name],
-                    turn=SIGNAL[turn.name],
+                    dst=f"{interface.FF_IN.member(pair).value}_{'rl'[side]}",
+                    along=along.value,
+                    turn=turn.value,
                     side=side,
                     k_along=mix.k_along,
                     k_turn=mix.k_turn,
@@ -242,7 +228,7 @@ def _common(bd: _Builder, lim: Limits, call: interface.Call, pair: str) -> None:
     if call.inputs.body:
         _body_inputs(bd, lim, call)
     else:
-        _clamps(bd, lim, call, ("pitch", "roll", "payload", "speed", pair))
+        _clamps(bd, lim, call, (*interface.SLOW_MEMBERS, "speed", pair))  # speed next: the Coriolis product reads it
     s = bd.specs
     for name, src in (
         ("sin_pitch", "pitch"),

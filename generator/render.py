@@ -1,7 +1,8 @@
 """Render generated files from the jinja2 template sets shipped with the package: {filename: text}.
 
-One loader over the template folder; a template set per output (the feed-forward files, the
-controller link files), each file named by `interface.file_names`. Templates only lay out text.
+One loader over the template folder; a template set per output (`ff` the feed-forward files, `link` the
+controller link files, `sim` the simulated controller's glue, `fw` the reference firmware project; `common`
+their shared macros), each file named by `interface.file_names`. Templates only lay out text.
 """
 
 from __future__ import annotations

@@ -1,10 +1,10 @@
 """Automatic table sizing: the cheapest tables whose proven end-to-end error bound meets the budget, by
 the model's objective (`firmware.sizing`: lookup instructions, then bytes; or bytes alone).
 
-Each table piece has a short list of candidate segment counts (constant, 1, 2, 4, ... up to exact,
+Each table piece has a short list of candidate segment counts (constant, 1, 2, 4, ... up to one per input step,
 each kept only if it lowers the measured error). A depth-first branch and bound over the pieces,
-cheapest candidates first, finds the exact optimum of that discrete problem: a branch is cut when
-its bytes cannot beat the best found, or when even the most accurate choices for the remaining
+cheapest candidates first, finds the true optimum of that discrete problem: a branch is cut when
+its cost by the objective cannot beat the best found, or when even the most accurate choices for the remaining
 pieces would miss the budget (the bound grows with every table error, so this cut is safe).
 """
 

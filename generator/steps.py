@@ -98,7 +98,7 @@ def _edges(fw: Firmware) -> np.ndarray:
 
 SPEED_INPUTS = {"speed": "", "forward_speed": "r_along", "yaw_rate": "r_turn"}
 """The inputs that move a wheel's speed, and for body-frame ones the ratio of the conversion (wheel
-steps per input step, bodyframe.Mix) that their places are divided by."""
+steps per input step, bodyframe.Conversion) that their places are divided by."""
 
 
 def _speed_places(fw: Firmware, name: str) -> list[int]:

@@ -13,7 +13,7 @@ import numpy as np
 from . import __version__, analysis, dynamics, interface, program, sizing, stability
 from . import tables as tb
 from .errors import CheckFailed
-from .ops import Mix, op_table
+from .ops import op_table, wide_conversion
 from .vehicle import Vehicle
 
 FORMAT_VERSION = 2
@@ -231,7 +231,7 @@ def products_note(fw: Firmware) -> str:
         )
     else:
         why = "no exact 32-bit form exists for them"
-    mixed = [op.dst for op in fw.design.feedforward.ops if isinstance(op, Mix) and op.wide]
+    mixed = [op.dst for op in fw.design.feedforward.ops if wide_conversion(op)]
     if mixed and set(names) <= set(mixed):
         why = (
             "body-frame steps that are not a power-of-two multiple of the wheel steps (docs/physics.md, "

@@ -12,7 +12,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from enum import IntEnum
-from typing import Any
+from typing import Any, cast
 
 from kinetab.generator import interface
 
@@ -89,8 +89,7 @@ def decode(encoded: bytes) -> Command | Reading | None:
     layout = LAYOUT[DriveType(payload[0])]
     if len(payload) - 1 != layout.size:
         return None
-    msg: Command | Reading = messages.unpack(layout, payload[1:])  # type: ignore[assignment]
-    return msg
+    return cast(Command | Reading, messages.unpack(layout, payload[1:]))  # layout.cls is one of the two
 
 
 def c_context(inputs: interface.Struct = interface.FF_IN) -> dict[str, Any]:

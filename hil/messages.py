@@ -10,6 +10,7 @@ from __future__ import annotations
 import struct
 from dataclasses import dataclass
 from enum import IntEnum
+from typing import cast
 
 from kinetab.generator import interface
 
@@ -249,5 +250,4 @@ def decode(payload: bytes, kinds: frozenset[MessageType] = TO_HOST) -> Message |
     layout = LAYOUT[kind]
     if len(payload) - 1 != layout.size:
         return "length"
-    msg: Message = unpack(layout, payload[1:])  # type: ignore[assignment]
-    return msg
+    return cast(Message, unpack(layout, payload[1:]))  # layout.cls is one of the Message classes

@@ -166,7 +166,7 @@ def test_a_power_of_two_step_has_exact_constants_but_rounds_half_a_step():
         doc["firmware"]["forward_speed_lsb"] = f"{lsb} {doc['firmware']['speed_lsb'].split()[1]}"
 
     mix = bodyframe.mix(invented(40, "veh", half_step)[1].vehicle, "speed")
-    assert (mix.k_along, mix.k_turn, mix.shift, mix.exact) == (1, 2, 1, False)
+    assert (mix.k_along, mix.k_turn, mix.shift, mix.lossless) == (1, 2, 1, False)
     right, _ = mix.wheels(np.array([3, 4]), np.array([0, 0]))
     assert np.abs(right - np.array([1.5, 2.0])).max() == 0.5 == mix.deviation()
 
