@@ -122,7 +122,7 @@ class Store:
 
 Op = Clamp | PairClamp | Mix | Lookup | Mul | Scale | Sum | Backdrive | Store
 """Every op kind. A new kind is added here, then wherever `assert_never` fails the type check:
-op_range (below), emulate.run, analysis.prove, analysis._error_step, cview._op_view, ff/ops.j2."""
+op_range (below), emulate.run, analysis.prove, analysis._error_step, opview._op_view, ff/ops.j2."""
 
 
 def op_inputs(op: Op) -> tuple[str, ...]:

@@ -260,7 +260,7 @@ def _common(bd: _Builder, lim: Limits, call: interface.Call, pair: str) -> None:
 def _rolling_level(bd: _Builder) -> None:
     """The rolling level rounded down for its product with the shape, made once before the wheels: each
     wheel's product then follows its shape lookup directly, and where the shape needs no rounding of its
-    own (int16 models) the C makes that product inside the lookup block (cview._fused_product)."""
+    own (int16 models) the C makes that product inside the lookup block (opview._fused_product)."""
     shift = bd.specs["shape"].frac_bits
     pa = 0
     if not bd.exact:

@@ -8,7 +8,7 @@ import subprocess
 
 import numpy as np
 import pytest
-from kinetab.generator import cview, emulate, hostc, interface, render, vectors
+from kinetab.generator import cview, emulate, hostc, interface, opview, render, vectors
 from kinetab.generator.ops import Sum
 
 from tests.csteps import harness_source, needs_gcc, run_harness, write_files
@@ -33,7 +33,7 @@ def test_rounding_shift_without_the_half_is_round_half_up_for_every_int32():
     exact integers (Python's unbounded ints and floor division), for every shift the macro takes."""
     xs = _int32_samples(np.random.default_rng(11))
     exact = [int(x) for x in xs]
-    for s in range(cview.LONG_SHIFT, 31):
+    for s in range(opview.LONG_SHIFT, 31):
         got = ((xs >> (s - 1)) + 1) >> 1  # int64 holds every int32 intermediate: no wrap to model
         want = np.array([(x + (1 << (s - 1))) // (1 << s) for x in exact], dtype=np.int64)
         assert np.array_equal(got, want), s
@@ -102,11 +102,11 @@ def test_a_product_stays_outside_the_block_when_no_piece_makes_it_exact():
     prog, proof = fw.design.feedforward, fw.ff_proof
     ops = tuple(prog.ops)
     start = next(k for k, op in enumerate(ops) if op.dst == "t_fric_r")
-    assert cview._fused_product(ops, start, "t_shape_r", table=tables["shape"], proof=proof, whole=ops) is not None
+    assert opview._fused_product(ops, start, "t_shape_r", table=tables["shape"], proof=proof, whole=ops) is not None
     shape = dict(tables["shape"])
     shape["pieces"] = [dict(p, value=p["value"] - 1) if p["kind"] == "constant" else p for p in shape["pieces"]]
-    assert cview._fused_product(ops, start, "t_shape_r", table=shape, proof=proof, whole=ops) is None
+    assert opview._fused_product(ops, start, "t_shape_r", table=shape, proof=proof, whole=ops) is None
     twice = (*ops, Sum("t_shape_r_again", ((1, "t_shape_r"),)))  # a second reader of the same value
-    assert cview._fused_product(twice, start, "t_shape_r", table=tables["shape"], proof=proof, whole=twice) is None
+    assert opview._fused_product(twice, start, "t_shape_r", table=tables["shape"], proof=proof, whole=twice) is None
     # ...also when that reader is in the other rate's part (the value would then be a state member)
-    assert cview._fused_product(ops, start, "t_shape_r", table=tables["shape"], proof=proof, whole=twice) is None
+    assert opview._fused_product(ops, start, "t_shape_r", table=tables["shape"], proof=proof, whole=twice) is None
