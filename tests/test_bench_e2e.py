@@ -195,6 +195,34 @@ def test_fingerprint_mismatch_is_refused_before_arming(tmp_path):
     assert json.loads(log.with_suffix(".json").read_text())["samples"] == 0
 
 
+def test_the_port_file_appears_once_the_port_is_open_and_names_it(tmp_path):
+    """`bench simulate --port-file F` writes the port's path to F, whole, once the port is open, so a
+    script can wait for F (README's bench loop does); a port file that cannot be written (a folder) is one
+    line and exit 2 before anything is compiled."""
+    port_file = tmp_path / "sim.port"
+    sim = Sim(DEMO_PATH, "--port-file", str(port_file))
+    try:
+        deadline = time.monotonic() + 120  # the simulator prints the port first, then writes the file
+        while not port_file.exists() and sim.proc.poll() is None and time.monotonic() < deadline:
+            time.sleep(0.05)
+        assert port_file.read_text() == sim.port + "\n"
+        fd = os.open(sim.port, os.O_RDWR | os.O_NOCTTY | os.O_NONBLOCK)
+        assert os.isatty(fd)  # the path names the open pseudo-terminal
+        os.close(fd)
+    finally:
+        sim.proc.kill()
+        sim.proc.communicate()
+    bad = subprocess.run(
+        [*KINETAB, "bench", "simulate", str(DEMO_PATH), "--port-file", str(tmp_path)],  # a folder
+        cwd=ROOT,
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
+    assert bad.returncode == 2 and bad.stdout == "" and len(bad.stderr.strip().splitlines()) == 1, bad.stderr
+    assert "--port-file" in bad.stderr and str(tmp_path) in bad.stderr and "directory" in bad.stderr
+
+
 def test_a_plan_at_another_period_is_refused_before_arming(tmp_path):
     """A plan with a row every 2 ms on a controller that ticks every 1 ms would run at half speed: refused
     after the handshake, naming both periods and the command that makes a fitting plan."""

@@ -5,7 +5,8 @@ whatever the machine's load."""
 from __future__ import annotations
 
 import pytest
-from kinetab.hil import messages, session
+from kinetab.generator import interface
+from kinetab.hil import framing, messages, session
 
 N_IN = messages.N_IN
 
@@ -133,3 +134,48 @@ def test_sequence_numbers_wrap_and_the_last_setpoint_is_flagged():
     assert flags == [messages.NO_FEEDFORWARD] * 3 + [messages.NO_FEEDFORWARD | messages.LAST]
     s.report(free=8, last_rx=0, now=0.01)  # received up to the wrapped seq 0: row index 2
     assert s.acked == 2
+
+
+class _ScriptedLink:
+    """A link whose controller answers from a script: one list of messages per receive call."""
+
+    def __init__(self, script: list[list[messages.Message]]) -> None:
+        self.script, self.sent = script, []
+        self.drops = framing.Drops()
+
+    def send_many(self, msgs: list[messages.Message]) -> None:
+        self.sent += msgs
+
+    def receive(self, wait_s: float) -> list[messages.Message]:
+        return self.script.pop(0) if self.script else []
+
+
+def _sample(seq: int, free: int) -> messages.Sample:
+    n_out, n_meas = len(interface.FF_OUT.columns), len(interface.MEASURED.columns)
+    return messages.Sample(seq, seq, free, 0, 0, (0,) * n_out, (0,) * n_meas)
+
+
+def test_a_fifo_that_runs_dry_halts_the_run_with_the_fault_named_and_the_samples_kept():
+    """The controller found no setpoint at a tick (FIFO_DRY, PROTOCOL.md): the host stops with one line
+    naming the fault, its sequence and how many samples arrived; the samples before it were all passed
+    on, in order, and nothing after the fault is sent."""
+    rows, seen = _rows(10), []
+    link = _ScriptedLink([[_sample(1, 3), _sample(2, 4)], [messages.Fault(messages.FaultCode.FIFO_DRY, 3)]])
+    stream = session.Stream(rows=rows, first_seq=1, free=2)
+    counters = session.Counters()
+    with pytest.raises(
+        session.BenchFailed,
+        match=r"^loop: the controller halted the motors: fifo dry \(code 2\) "
+        r"at sequence 3, after 2 of 10 samples$",
+    ):
+        session._stream(
+            link,  # type: ignore[arg-type]
+            stream,
+            on_sample=lambda k, s: seen.append((k, s.seq)),
+            counters=counters,
+            port_name="loop",
+            safe=session.SafePoints(),
+        )
+    assert seen == [(0, 1), (1, 2)] and counters.samples == 2
+    assert counters.faults == ["fifo dry (code 2) at sequence 3"]
+    assert max(_seqs(link.sent)) <= 1 + 2 + 4  # never beyond the credit the samples gave
