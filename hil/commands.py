@@ -9,7 +9,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 import click
-from kinetab.generator import dynamics, model, units
+from kinetab.generator import dynamics, interface, model, units
 from kinetab.generator.cli_support import ProgressLine, QuantityType, out_folder
 from kinetab.generator.errors import UserError
 
@@ -59,11 +59,15 @@ def _duration_option(text: str) -> Any:
     )
 
 
-def _zero_option(flag: str, kind: units.Kind, bare: str, text: str) -> Any:
-    """A quantity option of `bench plan` that defaults to zero."""
-    return click.option(
-        flag, type=QuantityType(kind, bare), default="0", show_default=True, help=f"{text} (bare number: {bare})."
-    )
+def _situation_options(f: Any) -> Any:
+    """`bench plan`'s options for the inputs that stay fixed during a plan (the interface's slow members:
+    payload, pitch, roll), each defaulting to zero, in the interface's order."""
+    for m in reversed([m for m in interface.FF_IN.members if m.slow]):
+        assert m.quantity is not None
+        help_text = f"{m.labels[0]}, fixed for the whole plan (bare number: {m.typed_unit})."
+        kind = QuantityType(m.quantity, m.typed_unit)
+        f = click.option(f"--{m.name}", type=kind, default="0", show_default=True, help=help_text)(f)
+    return f
 
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})
@@ -218,9 +222,7 @@ def fit(
 @_duration_option("Length of the plan")
 @_period_option("Control period, one row each")
 @RIG_OPTION
-@_zero_option("--payload", units.MASS, "kg", "Payload during the run")
-@_zero_option("--pitch", units.ANGLE, "deg", "Ramp pitch, front up > 0")
-@_zero_option("--roll", units.ANGLE, "deg", "Side slope, left side up > 0")
+@_situation_options
 @click.option("--for-fit", is_flag=True, help="Choose the plan that makes the fitted parameters best identifiable.")
 def plan(
     model_path: str,
@@ -228,10 +230,8 @@ def plan(
     duration: float,
     period: float,
     rig: str,
-    payload: float,
-    pitch: float,
-    roll: float,
     for_fit: bool,
+    **situation: float,
 ) -> None:
     """Write PLAN.csv: both directions, several speeds and accelerations, turns, spin in place and slow
     zero crossings, checked with the float model against the envelope and 90 % of the current limit."""
@@ -249,15 +249,13 @@ def plan(
                 duration_s=duration,
                 period_s=period,
                 rig=rig,
-                payload=payload,
-                pitch=pitch,
-                roll=roll,
                 progress=progress,
+                **situation,
             )
         finally:
             progress.clear()
     else:
-        p = planner.make_plan(v, duration_s=duration, period_s=period, rig=rig, payload=payload, pitch=pitch, roll=roll)
+        p = planner.make_plan(v, duration_s=duration, period_s=period, rig=rig, seed=None, **situation)
         cond = excite.condition(v, p, rig)[0]
     outputs.write_file(Path(out_path), planfile.to_csv(p, v))
     use = planner.plan_current_use(v, p.si(), rig=rig)
