@@ -239,6 +239,18 @@ def moves_pairs(op: Op) -> bool:
             assert_never(op)
 
 
+def pre_shift(op: Op) -> int:
+    """The bits an op rounds its one operand down by when it is a plain rounding shift (a Scale by 1 with
+    shift > 0), else 0."""
+    match op:
+        case Scale():
+            return op.shift if op.k == 1 and op.shift > 0 else 0
+        case Clamp() | PairClamp() | Mix() | Lookup() | Mul() | Sum() | Backdrive() | Store():
+            return 0
+        case _:
+            assert_never(op)
+
+
 def wide_conversion(op: Op) -> bool:
     """Whether the op is a body-frame conversion whose products need 64 bits."""
     match op:

@@ -6,7 +6,7 @@ Q format, shift and constant here; the C follows the ops one statement each.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 from . import bodyframe, interface
 from . import fixedpoint as fx
@@ -24,7 +24,11 @@ from .ops import (
     Store,
     Sum,
     fits32,
+    looked_up,
+    op_inputs,
     op_range,
+    op_table,
+    pre_shift,
     rounding_half,
     split_fits,
 )
@@ -45,6 +49,7 @@ class Design:
     accel_guard_bits: int
     amps_per_acc: float
     exact: bool = False  # products keep every operand bit (see design)
+    coarse: bool = False  # some table stores fewer fraction bits than its word allows (see _coarser)
 
 
 class _Builder:
@@ -346,6 +351,30 @@ def _forward(
     return prog
 
 
+COARSER_ROUNDS = 3
+"""Rebuilds at most: a coarser table changes its products' ranges, which can move another pre-shift."""
+
+
+def _coarser(specs: dict[str, tb.TableSpec], programs: tuple[Program, Program]) -> dict[str, tb.TableSpec]:
+    """The specs with each table's fraction bits lowered by the pre-shift every one of its lookups is
+    read through (a Scale by 1 with shift > 0, in both programs): storing those bits only to round them
+    away costs a shift per use (and, in int32 words, wide interpolation). Rounding the entries once at
+    the coarser step is never worse than rounding them finely and then again (the proof counts both)."""
+    ops = [op for prog in programs for op in prog.ops]
+    drop: dict[str, int] = {}
+    for op in ops:
+        table = op_table(op)
+        if table is None:
+            continue
+        readers = [r for r in ops if op.dst in op_inputs(r)]
+        shifts = [pre_shift(r) for r in readers]
+        usable = looked_up(op) is not None and readers and all(k > 0 for k in shifts)
+        drop[table] = min(drop.get(table, 64), min(shifts) if usable else 0)
+    return {
+        n: replace(sp, frac_bits=sp.frac_bits - drop.get(n, 0)) if drop.get(n, 0) else sp for n, sp in specs.items()
+    }
+
+
 def _guard_bits(peak_steps: float, top: int = 16) -> int:
     """Fraction bits below the output LSB that keep the accumulator within 2^29 (room for the sum)."""
     if peak_steps <= 0:
@@ -370,11 +399,13 @@ def _peak_current_steps(v: Vehicle, lim: Limits) -> float:
     )
 
 
-def design(v: Vehicle, *, exact: bool = False) -> Design:
+def design(v: Vehicle, *, exact: bool = False, coarse: bool = True) -> Design:
     """Scales, table specs and both programs for a validated vehicle (sizes are chosen later).
 
     exact: products too wide for 32 bits keep every operand bit (an exact two-part product, else
-    64 bits) instead of rounding their operands first; for budgets the rounded design cannot meet."""
+    64 bits) instead of rounding their operands first; for budgets the rounded design cannot meet.
+    coarse (rounded designs): a table stores no fraction bits that every use of it rounds away first
+    (_coarser); the programs are then built again on those tables."""
     lim = limits_of(v)
     fw = v.firmware
     peak = _peak_current_steps(v, lim)
@@ -383,14 +414,25 @@ def design(v: Vehicle, *, exact: bool = False) -> Design:
     specs = specs_for(v, lim, acc_amps, exact=exact)
     accel_peak = (specs["minv11"].max_abs + specs["minv12"].max_abs) * (peak + lim.current) * 2.0**guard * 2
     aguard = _guard_bits(accel_peak, top=8)
+    ff = _feedforward(v, specs, lim, guard=guard, exact=exact)
+    fwd = _forward(v, specs, lim, guard=guard, aguard=aguard, exact=exact)
+    coarsened = False
+    for _ in range(COARSER_ROUNDS if coarse and not exact and specs["m11"].bits == 32 else 0):
+        coarser = _coarser(specs, (ff, fwd))
+        if coarser == specs:
+            break
+        specs, coarsened = coarser, True
+        ff = _feedforward(v, specs, lim, guard=guard, exact=exact)
+        fwd = _forward(v, specs, lim, guard=guard, aguard=aguard, exact=exact)
     return Design(
         vehicle=v,
         specs=specs,
-        feedforward=_feedforward(v, specs, lim, guard=guard, exact=exact),
-        forward=_forward(v, specs, lim, guard=guard, aguard=aguard, exact=exact),
+        feedforward=ff,
+        forward=fwd,
         limits=lim,
         guard_bits=guard,
         accel_guard_bits=aguard,
         amps_per_acc=acc_amps,
         exact=exact,
+        coarse=coarsened,
     )

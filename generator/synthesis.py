@@ -83,18 +83,40 @@ def synthesise(v: Vehicle) -> Firmware:
     """Design the programs, size every table to the budget, prove ranges; CheckFailed when impossible.
     A vehicle that tips over its envelope is refused here too (ModelError), however it was built.
 
-    Products too wide for 32 bits first round their operands (no 64-bit multiply); only when that
-    design cannot meet the budget do they keep every bit (exact two-part products, else 64 bits)."""
+    Products too wide for 32 bits first round their operands (no 64-bit multiply), on tables that store
+    no bits their uses round away (program._coarser); when that misses the budget, on tables at full
+    precision; only when that design cannot meet the budget either do the products keep every bit
+    (exact two-part products, else 64 bits)."""
     stability.check(v)
-    rounded = program.design(v)
-    exact = program.design(v, exact=True)
-    if exact.feedforward.ops == rounded.feedforward.ops and exact.forward.ops == rounded.forward.ops:
-        return _synthesise(v, rounded)
-    try:
-        return _synthesise(v, rounded, explain=False)
-    except CheckFailed:
-        fw = _synthesise(v, exact)
+    tries = _designs(v)
+    for des in tries[:-1]:
+        try:
+            fw = _synthesise(v, des, explain=False)
+        except CheckFailed:
+            continue
+        if not (des.coarse and fw.over_cap):  # coarse tables only where they fit firmware.table_bytes_max
+            return fw
+    fw = _synthesise(v, tries[-1])
+    if not tries[-1].exact or len(tries) == 1:
+        return fw
     return dataclasses.replace(fw, rounded_best_a=best_bound_a(v, exact=False))
+
+
+def _same(a: program.Design, b: program.Design) -> bool:
+    """The same programs over tables of the same formats."""
+    formats = lambda d: {n: (t.frac_bits, t.bits) for n, t in d.specs.items()}  # noqa: E731
+    return a.feedforward.ops == b.feedforward.ops and a.forward.ops == b.forward.ops and formats(a) == formats(b)
+
+
+def _designs(v: Vehicle) -> list[program.Design]:
+    """The distinct designs to try, fastest first: rounded on coarse tables (when sizing minimises
+    instructions; they may take more table bytes for the same bound), rounded, exact."""
+    out: list[program.Design] = []
+    coarse = [program.design(v)] if v.firmware.sizing == "instructions" else []
+    for des in (*coarse, program.design(v, coarse=False), program.design(v, exact=True)):
+        if not any(_same(d, des) for d in out):
+            out.append(des)
+    return out
 
 
 def _synthesise(v: Vehicle, des: program.Design, *, explain: bool = True) -> Firmware:
@@ -243,7 +265,7 @@ def products_note(fw: Firmware) -> str:
 def best_bound_a(v: Vehicle, *, exact: bool = True) -> float:
     """The smallest proven feed-forward bound any table sizes reach for this vehicle, A (every piece at
     its most accurate candidate, products exact unless told): what a budget must allow at least."""
-    des = program.design(v, exact=exact)
+    des = program.design(v, exact=exact, coarse=False)
     names = [n for n in des.specs if n not in _forward_only(des)]
     pieces = sizing.pieces_to_size(des.specs, names)
     achievable, _ = sizing.limiting_table(analysis.compile_bound(des.feedforward, des.specs), pieces, {})
