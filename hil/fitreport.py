@@ -13,8 +13,10 @@ import numpy as np
 from kinetab.generator import model, model_edit, outputs, units
 from kinetab.generator.errors import InternalError, ModelError, UserError
 
-from . import benchdata, campaign, compare, identify
+from . import benchdata, campaign, compare, identifiability, identify
 from . import fitparams as fp
+
+REL_PERCENT = f"{100 * identifiability.REL_TOL:g}"  # what a written estimate's standard error may be, % of its size
 
 UNIT_KEY = {
     "body.mass": "body.mass",
@@ -145,7 +147,8 @@ def _document(
                 "standard_error": e.se / per,
                 "si": {"model": e.model, "estimate": e.estimate, "standard_error": e.se},
                 "on_bound": e.at_bound,
-                "written": name in identify.WRITTEN and name in result.free,
+                "written": name in identify.WRITTEN and name in result.free and name not in result.imprecise,
+                "imprecise": result.imprecise.get(name),
             }
         )
     return {
@@ -217,6 +220,8 @@ def _tables(doc: dict[str, Any]) -> str:
             if e["parameter"] in ("friction.breakaway", "drive.backdrive_efficiency")
             else "reported"
         )
+        if e["imprecise"] is not None:
+            note = f"not written: known only to +-{100 * e['imprecise']:.2g} % (1 sigma), over {REL_PERCENT} %"
         if e["on_bound"]:
             note = f"ON ITS BOUND ({e['on_bound']}): not excited, or the model lacks a term"
         lines.append(

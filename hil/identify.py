@@ -65,6 +65,7 @@ class Fit:
     noise_n: float  # standard deviation of the residual rim force, N
     noise_a: float  # the measured current's noise (compare's noise floor, mean over the logs), A
     free: tuple[str, ...]  # the fitted coordinates
+    imprecise: dict[str, float]  # fitted but not written: relative standard error above REL_TOL (_imprecise)
     gram: np.ndarray  # X^T X of the scaled regressor of every coordinate, where the fit landed
     omega: np.ndarray  # the HAC long-run covariance of its scores
     groups: list[Group]
@@ -173,7 +174,8 @@ def fit(v: Vehicle, logs: list[BenchLog]) -> Fit:
     cov = covariance.hac(jp, r, group=data.log, time=data.sample, block=block, lags=lags) if jp.size else jp
     if jp.size:
         cov = cov + _held_spread(jp, fm.jacobian(x), scale, verdict) + _filter_spread(v, logs, m, p, lo=lo, hi=hi)
-    held_x = written_coordinates(x0, x, verdict.free)
+    imprecise = _imprecise(cov, verdict.free, scale)
+    held_x = written_coordinates(x0, x, [j for j in verdict.free if fp.NAMES[j] not in imprecise])
     written = fp.vehicle_with(v, held_x)
     estimates = _estimates(x0, x, cov, free=verdict.free, lo=lo, hi=hi)
     held = [_held(g, x0, x, scale=scale, m=m, cov=cov) for g in verdict.groups]
@@ -192,10 +194,20 @@ def fit(v: Vehicle, logs: list[BenchLog]) -> Fit:
         noise_n=float(np.std(r)),
         noise_a=float(np.mean([benchdata.noise_floor(log) for log in logs])),
         free=tuple(fp.NAMES[j] for j in verdict.free),
+        imprecise=imprecise,
         gram=js_full.T @ js_full,
         omega=_omega(js_full, r, data, logs),
         groups=verdict.groups,
     )
+
+
+def _imprecise(cov: np.ndarray, free: list[int], scale: np.ndarray) -> dict[str, float]:
+    """Fitted coordinates whose whole standard error (the sandwich plus the filter's and the held values'
+    spread, which the regressor alone does not show) exceeds REL_TOL of their size, with that relative
+    error: they stay in the fit (holding them at a wrong value would bias the rest) but are not
+    written, as a held group's determined combination is not."""
+    rel = {fp.NAMES[j]: float(np.sqrt(max(cov[k, k], 0.0))) / scale[j] for k, j in enumerate(free)}
+    return {name: r for name, r in rel.items() if not r <= identifiability.REL_TOL}
 
 
 def _rms(residual: np.ndarray, weight: np.ndarray) -> float:
@@ -349,7 +361,8 @@ def model_changes(f: Fit) -> dict[str, float]:
         "drive.backdrive_efficiency": v.drive.backdrive_efficiency,
         "friction.stribeck_speed": v.friction.stribeck_speed_mps,
     }
-    keys = [k for name in f.free for k in WRITTEN[name]]
-    if "friction.coulomb" not in f.free:
+    written = [name for name in f.free if name not in f.imprecise]
+    keys = [k for name in written for k in WRITTEN[name]]
+    if "friction.coulomb" not in written:
         keys = [k for k in keys if k != "friction.breakaway"]
     return {k: float(value[k]) for k in dict.fromkeys(keys)}

@@ -228,6 +228,17 @@ def test_a_float_model_campaign_recovers_every_coordinate():
     assert_close(v, result, x_true, 0.01, within_se=3.0)
     se = {n: result.estimates[n].se / fp.scales(v, x_true)[fp.INDEX[n]] for n in ("body.mass", "drive.efficiency")}
     assert all(x < 0.005 for x in se.values()), se  # the well-determined ones are told to 0.5 % or better
+    # Written only where the whole standard error (with the filter's spread) is within 5 % of the size: here
+    # the back-driving factor is not (its rows near the blend band move with the filter's cutoff), so it
+    # stays fitted, reported, and out of the model file.
+    scale = fp.scales(v, fp.values(v))
+    for name in result.free:
+        rel = result.estimates[name].se / scale[fp.INDEX[name]]
+        assert (name in result.imprecise) == (rel > 0.05), (name, rel)
+    assert "drive.backdrive_factor" in result.imprecise
+    changes = identify.model_changes(result)
+    assert "drive.backdrive_efficiency" not in changes and "body.mass" in changes
+    assert result.vehicle.drive.backdrive_efficiency == v.drive.backdrive_efficiency
 
 
 @pytest.mark.slow  # three 15 s logs fitted (3-9 s)
