@@ -172,9 +172,11 @@ def fit(v: Vehicle, logs: list[BenchLog]) -> Fit:
     jp = fm.jacobian(x) @ m.t
     block, lags = _settings(logs)
     cov = covariance.hac(jp, r, group=data.log, time=data.sample, block=block, lags=lags) if jp.size else jp
+    measured = cov  # what the logs themselves say: the sandwich and the filter's spread (not the held prior)
     if jp.size:
-        cov = cov + _held_spread(jp, fm.jacobian(x), scale, verdict) + _filter_spread(v, logs, m, p, lo=lo, hi=hi)
-    imprecise = _imprecise(cov, verdict.free, scale)
+        measured = cov + _filter_spread(v, logs, m, p, lo=lo, hi=hi)
+        cov = measured + _held_spread(jp, fm.jacobian(x), scale, verdict)
+    imprecise = _imprecise(measured, verdict.free, scale)
     held_x = written_coordinates(x0, x, [j for j in verdict.free if fp.NAMES[j] not in imprecise])
     written = fp.vehicle_with(v, held_x)
     estimates = _estimates(x0, x, cov, free=verdict.free, lo=lo, hi=hi)
@@ -202,10 +204,11 @@ def fit(v: Vehicle, logs: list[BenchLog]) -> Fit:
 
 
 def _imprecise(cov: np.ndarray, free: list[int], scale: np.ndarray) -> dict[str, float]:
-    """Fitted coordinates whose whole standard error (the sandwich plus the filter's and the held values'
-    spread, which the regressor alone does not show) exceeds REL_TOL of their size, with that relative
-    error: they stay in the fit (holding them at a wrong value would bias the rest) but are not
-    written, as a held group's determined combination is not."""
+    """Fitted coordinates whose measured standard error (the sandwich plus the filter's spread, which the
+    regressor alone does not show; `cov` without the held values' assumed spread, which is the same
+    whatever the logs) exceeds REL_TOL of their size, with that relative error: they stay in the fit
+    (holding them at a wrong value would bias the rest) but are not written, as a held group's
+    determined combination is not."""
     rel = {fp.NAMES[j]: float(np.sqrt(max(cov[k, k], 0.0))) / scale[j] for k, j in enumerate(free)}
     return {name: r for name, r in rel.items() if not r <= identifiability.REL_TOL}
 

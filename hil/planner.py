@@ -5,6 +5,8 @@ model, and slowed where a segment would exceed it."""
 
 from __future__ import annotations
 
+import dataclasses
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -149,75 +151,122 @@ def plan_current_use(v: Vehicle, si: dict[str, np.ndarray], *, rig: str) -> floa
     return float(np.max(cur)) / v.drive.current_limit_a
 
 
-def plan_problem(v: Vehicle, plan: Plan, rig: str) -> str | None:
-    """The first row of a plan outside the model's envelope or beyond the drive (current limit, supply
-    voltage, by the float model of the rig), as one phrase; None when every row is inside."""
+@dataclass(frozen=True)
+class Excess:
+    """Rows of a plan beyond one limit: the first, the worst (largest value over its limit) and how many;
+    `phrase(k)` names row k's value and the limit ("speed_left 1.1 m/s beyond envelope.speed_max ...")."""
+
+    first: int
+    worst: int
+    count: int
+    phrase: Callable[[int], str]
+
+
+def _excess(over: np.ndarray, ratio: np.ndarray, phrase: Callable[[int], str]) -> Excess | None:
+    """The Excess of the rows flagged in `over`, the worst by `ratio` (value over its limit)."""
+    rows = np.flatnonzero(over)
+    if not rows.size:
+        return None
+    worst = int(rows[np.argmax(np.asarray(ratio, float)[rows])])
+    return Excess(first=int(rows[0]), worst=worst, count=int(rows.size), phrase=phrase)
+
+
+def plan_excesses(v: Vehicle, plan: Plan, rig: str) -> list[Excess]:
+    """Every limit the plan goes beyond: the model's envelope, body-frame limits, and the drive (current
+    limit, supply voltage, by the float model of the rig); a body-frame plan's own columns first."""
     c = plan.columns
     bad = [found for m in interface.FF_IN.members for col in m.columns if (found := _outside(v, m, col, c[col]))]
-    bad += [found for m in (interface.SPEED, interface.ACCEL) if (found := _outside_region(v, m, plan))]
-    body = interface.ff_in(v).body
-    if body:  # the plan file has body-frame columns: name those first, then the wheels they make
-        bad = _body_outside(v, plan) + [(k, _in_body_words(text)) for k, text in bad]
-    drive = _drive_problem(v, plan, rig)
-    if drive:
-        bad.append(drive)
+    bad += [found for m in (interface.SPEED, interface.ACCEL) for found in _outside_region(v, m, plan)]
+    if interface.ff_in(v).body:  # the plan file has body-frame columns: name those first, then the wheels they make
+        wheels = [dataclasses.replace(e, phrase=_in_body_words(e.phrase)) for e in bad]
+        bad = _body_outside(v, plan) + wheels
+    return bad + _drive_problem(v, plan, rig)
+
+
+def plan_problem(v: Vehicle, plan: Plan, rig: str) -> str | None:
+    """The first row of a plan outside the model's envelope or beyond the drive, as one phrase; None when
+    every row is inside."""
+    bad = plan_excesses(v, plan, rig)
     if not bad:
         return None
-    k, text = min(bad, key=lambda found: found[0]) if body else min(bad)
-    return f"row {k + 2} (t = {c['t'][k]:.6g} s): {text}"
+    if interface.ff_in(v).body:
+        e = min(bad, key=lambda e: e.first)  # the first listed of the earliest: the plan's own columns
+    else:
+        e = min(bad, key=lambda e: (e.first, e.phrase(e.first)))
+    return f"row {e.first + 2} (t = {plan.columns['t'][e.first]:.6g} s): {e.phrase(e.first)}"
 
 
-def _outside(v: Vehicle, m: interface.Member, col: str, values: np.ndarray) -> tuple[int, str] | None:
-    """The first row of one plan column outside the member's envelope edge, and the phrase naming it."""
+def excess_summary(plan: Plan, bad: list[Excess]) -> str:
+    """Each limit's worst row and how many rows go beyond it, for a warning."""
+    n = len(plan.columns["t"])
+    return "; ".join(f"worst row {e.worst + 2}: {e.phrase(e.worst)} ({e.count} of {n} rows beyond)" for e in bad)
+
+
+def _outside(v: Vehicle, m: interface.Member, col: str, values: np.ndarray) -> Excess | None:
+    """The rows of one plan column outside the member's envelope edge, and the phrase naming them."""
     limit = float(model.value(v, m.edge_key))
     slack = 1 + 1e-6  # float dust of a plan written with 9 significant digits
+    values = np.asarray(values, float)
     if m.signed:
-        over = np.flatnonzero(np.abs(values) > limit * slack + 1e-12)
+        over = np.abs(values) > limit * slack + 1e-12
         text = f"beyond {m.edge_key} ({limit:.6g} {m.unit})"
     else:
-        over = np.flatnonzero((values < 0) | (values > limit * slack))
+        over = (values < 0) | (values > limit * slack)
         text = f"outside 0 .. {m.edge_key} ({limit:g} {m.unit})"
-    if not over.size:
-        return None
-    k = int(over[0])
-    return k, f"{col} {values[k]:.6g} {m.unit} {text}"
+    ratio = np.where(values < 0, 1 + np.abs(values), np.abs(values)) / max(limit, 1e-300)
+    return _excess(over, ratio, lambda k: f"{col} {values[k]:.6g} {m.unit} {text}")
 
 
-def _body_outside(v: Vehicle, plan: Plan) -> list[tuple[int, str]]:
+def _body_outside(v: Vehicle, plan: Plan) -> list[Excess]:
     """Body-frame plan columns beyond their limits (the key, or what the wheel limits allow)."""
     st = interface.ff_in(v)
     columns = interface.columns_si(v, st, plan.si())
     found = []
     for m in (m for m in st.members if m.body):
         limit = bodyframe.limit_si(v, m.name)
-        over = np.flatnonzero(np.abs(columns[m.name]) > limit * (1 + 1e-6) + 1e-12)
-        if over.size:
-            section, key = m.edge_key.split(".")
-            named = (
-                m.edge_key
-                if getattr(getattr(v, section), model.SCHEMA[section][key].field) is not None
-                else ("what the wheel limits allow")
-            )
-            k = int(over[0])
-            found.append((k, f"{m.name} {columns[m.name][k]:.6g} {m.unit} beyond {named} ({limit:.6g} {m.unit})"))
+        values = np.asarray(columns[m.name], float)
+        section, key = m.edge_key.split(".")
+        named = (
+            m.edge_key
+            if getattr(getattr(v, section), model.SCHEMA[section][key].field) is not None
+            else ("what the wheel limits allow")
+        )
+        phrase = _phrase(f"{m.name} ", values, m.unit, f"beyond {named} ({limit:.6g} {m.unit})")
+        excess = _excess(np.abs(values) > limit * (1 + 1e-6) + 1e-12, np.abs(values) / limit, phrase)
+        if excess:
+            found.append(excess)
     return found
 
 
-def _in_body_words(text: str) -> str:
+def _phrase(what: str, values: np.ndarray, unit: str, tail: str) -> Callable[[int], str]:
+    """Row k's value in words: `what`, the value (4 significant digits where no unit is given, the
+    unit then being at the start of `tail`), `tail`."""
+    if not unit:
+        return lambda k: f"{what}{values[k]:.4g} {tail}"
+    return lambda k: f"{what}{values[k]:.6g} {unit} {tail}"
+
+
+def _in_body_words(phrase: Callable[[int], str]) -> Callable[[int], str]:
     """A wheel-column phrase for a plan whose file has body-frame columns: the wheel value they make."""
-    for pair, words in (("speed", "speed"), ("accel", "acceleration")):
-        for side in interface.SIDES:
-            column = f"{pair}_{side}"
-            if text.startswith(column + " "):
-                return f"the {side} wheel's {words}{text[len(column) :]} (from the plan's forward and yaw columns)"
-        if text.startswith(f"{pair}_right/left "):
-            return f"the wheels' {words} (right/left){text[len(pair) + 11 :]} (from the plan's forward and yaw columns)"
-    return text
+
+    def words(k: int) -> str:
+        text = phrase(k)
+        for pair, said in (("speed", "speed"), ("accel", "acceleration")):
+            for side in interface.SIDES:
+                column = f"{pair}_{side}"
+                if text.startswith(column + " "):
+                    return f"the {side} wheel's {said}{text[len(column) :]} (from the plan's forward and yaw columns)"
+            if text.startswith(f"{pair}_right/left "):
+                rest = text[len(pair) + 11 :]
+                return f"the wheels' {said} (right/left){rest} (from the plan's forward and yaw columns)"
+        return text
+
+    return words
 
 
-def _outside_region(v: Vehicle, m: interface.Member, plan: Plan) -> tuple[int, str] | None:
-    """The first row whose wheel pair breaks a body-frame limit that is set (forward, or yaw: the
-    difference over the track), and the phrase naming the key."""
+def _outside_region(v: Vehicle, m: interface.Member, plan: Plan) -> list[Excess]:
+    """The rows whose wheel pair breaks a body-frame limit that is set (forward, or yaw: the difference
+    over the track), each with the phrase naming the key."""
     right, left = (np.asarray(plan.columns[col], float) for col in m.columns)
     env, track = v.envelope, v.wheels.track_m
     if m is interface.SPEED:
@@ -234,34 +283,37 @@ def _outside_region(v: Vehicle, m: interface.Member, plan: Plan) -> tuple[int, s
     for key, limit, value, unit in limits:
         if limit is None:
             continue
-        over = np.flatnonzero(np.abs(value) > limit * (1 + 1e-6) + 1e-12)
-        if over.size:
-            k = int(over[0])
+
+        def phrase(k: int, key: str = key, limit: float = limit, value: np.ndarray = value, unit: str = unit) -> str:
             pair = f"{m.name}_right/left {right[k]:.6g}/{left[k]:.6g} {m.unit}"
-            found.append((k, f"{pair}: {value[k]:.6g} {unit} beyond {key} ({limit:.6g} {unit})"))
-    return min(found) if found else None
+            return f"{pair}: {value[k]:.6g} {unit} beyond {key} ({limit:.6g} {unit})"
+
+        excess = _excess(np.abs(value) > limit * (1 + 1e-6) + 1e-12, np.abs(value) / limit, phrase)
+        if excess:
+            found.append(excess)
+    return found
 
 
-def _drive_problem(v: Vehicle, plan: Plan, rig: str) -> tuple[int, str] | None:
-    """The first row whose float-model current exceeds drive.current_limit or whose voltage exceeds
-    drive.supply_voltage."""
+def _drive_problem(v: Vehicle, plan: Plan, rig: str) -> list[Excess]:
+    """The rows whose float-model current exceeds drive.current_limit or whose voltage exceeds
+    drive.supply_voltage, per wheel."""
     op = dynamics.OperatingPoint(**plan.si())
     currents = dynamics.rig_currents(v, op, rig)
-    worst: list[tuple[int, str]] = []
+    found: list[Excess] = []
+    i_max, u_max = v.drive.current_limit_a, v.drive.supply_voltage_v
     for k_side, speed in enumerate((np.asarray(op.speed_right, float), np.asarray(op.speed_left, float))):
         current = np.broadcast_to(currents[..., k_side], np.shape(speed))
         volts = np.abs(dynamics.motor_voltage(v, current, speed))
-        over = np.flatnonzero(np.abs(current) > v.drive.current_limit_a * (1 + 1e-6))
-        if over.size:
-            k = int(over[0])
-            worst.append(
-                (k, f"current {abs(current[k]):.4g} A beyond drive.current_limit ({v.drive.current_limit_a:g} A)")
-            )
-        high = np.flatnonzero(volts > v.drive.supply_voltage_v * (1 + 1e-6))
-        if high.size:
-            k = int(high[0])
-            worst.append((k, f"voltage {volts[k]:.4g} V beyond drive.supply_voltage ({v.drive.supply_voltage_v:g} V)"))
-    return min(worst) if worst else None
+        side = interface.SIDES[k_side]
+        for what, values, limit, tail in (
+            ("current", np.abs(current), i_max, f"A beyond drive.current_limit ({i_max:g} A)"),
+            ("voltage", volts, u_max, f"V beyond drive.supply_voltage ({u_max:g} V)"),
+        ):
+            phrase = _phrase(f"{side} motor {what} ", values, "", tail)
+            excess = _excess(values > limit * (1 + 1e-6), values / limit, phrase)
+            if excess:
+                found.append(excess)
+    return found
 
 
 def make_plan(

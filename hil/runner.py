@@ -124,7 +124,8 @@ def _check_plan(v: Any, plan: planfile.Plan, path: Path, *, rig: str, outside_en
             "--outside-envelope to run it anyway)"
         )
     if problem:
-        print(f"warning: {path}: {problem}; running it anyway (--outside-envelope)", file=sys.stderr)
+        worst = planner.excess_summary(plan, planner.plan_excesses(v, plan, rig))
+        print(f"warning: {path}: {problem}; {worst}; running it anyway (--outside-envelope)", file=sys.stderr)
 
 
 def _ended(exc: BaseException, counters: session.Counters) -> str:

@@ -8,7 +8,7 @@ import json
 
 import numpy as np
 import pytest
-from kinetab.generator import model, outputs
+from kinetab.generator import dynamics, model, outputs
 from kinetab.hil import campaign, planfile, planner
 
 import kinetab
@@ -131,6 +131,21 @@ def test_a_plan_outside_the_envelope_is_refused_before_the_port_opens(bench, tmp
     assert not (tmp_path / "log.csv").exists()
     code, _, err = run([*args, "--outside-envelope"], capsys)
     assert code == 2 and "warning:" in err and "/nonexistent/tty" in err
+    # the warning gives each limit's worst row and how many rows pass it, not only the first row: here the
+    # supply voltage (the float model's motor voltage, recomputed here from dynamics)
+    op = dynamics.OperatingPoint(**fast.si())
+    currents = dynamics.rig_currents(v, op, "on-floor")
+    limit, sides_beyond = v.drive.supply_voltage_v, 0
+    for k_side, side in enumerate(("right", "left")):
+        speed = np.asarray(fast.columns[f"speed_{side}"])
+        volts = np.abs(dynamics.motor_voltage(v, currents[..., k_side], speed))
+        beyond = int(np.sum(volts > limit * (1 + 1e-6)))
+        if beyond:
+            k = int(np.argmax(volts))
+            said = f"worst row {k + 2}: {side} motor voltage {volts[k]:.4g} V beyond drive.supply_voltage ({limit:g} V)"
+            assert f"{said} ({beyond} of {len(speed)} rows beyond)" in err, err
+            sides_beyond += 1
+    assert sides_beyond and err.count("worst row") >= sides_beyond
 
 
 def test_bench_plan_takes_pitch_and_roll_and_names_ranges(bench, tmp_path, capsys):

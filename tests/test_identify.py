@@ -232,7 +232,7 @@ def test_a_float_model_campaign_recovers_every_coordinate():
     # the back-driving factor is not (its rows near the blend band move with the filter's cutoff), so it
     # stays fitted, reported, and out of the model file.
     scale = fp.scales(v, fp.values(v))
-    for name in result.free:
+    for name in result.free:  # the whole error includes the held values' assumed spread (none held here)
         rel = result.estimates[name].se / scale[fp.INDEX[name]]
         assert (name in result.imprecise) == (rel > 0.05), (name, rel)
     assert "drive.backdrive_factor" in result.imprecise
