@@ -244,7 +244,7 @@ def plan(
     if for_fit:
         progress = ProgressLine("bench plan")
         try:
-            p, cond = excite.plan_for_fit(
+            p, _ = excite.plan_for_fit(
                 v,
                 duration_s=duration,
                 period_s=period,
@@ -256,12 +256,12 @@ def plan(
             progress.clear()
     else:
         p = planner.make_plan(v, duration_s=duration, period_s=period, rig=rig, seed=None, **situation)
-        cond = excite.condition(v, p, rig)[0]
+    cond, told = excite.condition(v, p, rig)
     outputs.write_file(Path(out_path), planfile.to_csv(p, v))
     use = planner.plan_current_use(v, p.si(), rig=rig)
     click.echo(
         f"wrote {out_path}: {len(p)} rows of {period * 1000:g} ms, peak current {use:.0%} of the limit "
-        f"({rig}); regressor condition number {cond:.3g}"
+        f"({rig}); {excite.told_apart(told, cond)}"
     )
 
 

@@ -36,6 +36,18 @@ def condition(v: Vehicle, plan: Plan, rig: str) -> tuple[float, list[str]]:
     return float(s[0] / s[-1]) if s[-1] > 0 else float("inf"), [fp.NAMES[j] for j in free]
 
 
+def told_apart(names: list[str], cond: float) -> str:
+    """What a plan's regressor determines, in words: how many of the fit's parameters (and, for a few,
+    which), then the condition number of their scaled columns (not for one alone: it is 1 by definition)."""
+    from . import fitparams as fp
+
+    if not names:
+        return f"the fit could determine none of its {len(fp.NAMES)} parameters from it"
+    which = f" ({', '.join(names)})" if len(names) <= 3 else ""
+    told = f"the fit could determine {len(names)} of its {len(fp.NAMES)} parameters{which}"
+    return told if len(names) == 1 else f"{told}, condition number {cond:.3g}"
+
+
 def plan_for_fit(
     v: Vehicle,
     *,

@@ -191,3 +191,19 @@ def test_a_plan_whose_time_does_not_rise_by_one_period_per_row_is_refused(bench,
     assert code == 2 and f"{tmp_path / 'gap.csv'}:41:" in err and "one control period per row" in err
     assert "/nonexistent" not in err and not (tmp_path / "log.csv").exists()
     assert planfile.period_s(plan) == pytest.approx(0.002)
+
+
+def test_a_plan_says_how_many_parameters_it_determines_not_a_bare_condition_number():
+    """One column's condition number is 1 whatever the data (Golub and Van Loan's definition, from
+    memory): a plan that determines one parameter, or none, must not read as perfectly conditioned."""
+    from kinetab.hil import excite, fitparams
+
+    n = len(fitparams.NAMES)
+    assert (
+        excite.told_apart([], float("inf"))
+        == f"the fit could determine none of its {n} parameters from it (too little motion)"
+    )
+    one = excite.told_apart(["body.mass"], 1.0)
+    assert one == f"the fit could determine 1 of its {n} parameters (body.mass)" and "condition" not in one
+    many = excite.told_apart(list(fitparams.NAMES[:5]), 12.345)
+    assert many == f"the fit could determine 5 of its {n} parameters, condition number 12.3"
