@@ -199,10 +199,7 @@ def test_a_plan_says_how_many_parameters_it_determines_not_a_bare_condition_numb
     from kinetab.hil import excite, fitparams
 
     n = len(fitparams.NAMES)
-    assert (
-        excite.told_apart([], float("inf"))
-        == f"the fit could determine none of its {n} parameters from it (too little motion)"
-    )
+    assert excite.told_apart([], float("inf")) == f"the fit could determine none of its {n} parameters from it"
     one = excite.told_apart(["body.mass"], 1.0)
     assert one == f"the fit could determine 1 of its {n} parameters (body.mass)" and "condition" not in one
     many = excite.told_apart(list(fitparams.NAMES[:5]), 12.345)
