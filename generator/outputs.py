@@ -102,22 +102,24 @@ def write_set(files: Mapping[Path, str | bytes]) -> None:
         check_target(path)
     targets = {path: destination(path) for path in files}
     temps: dict[Path, Path] = {}
+    current: Path | None = None  # the file being written: named in an error, never its temporary
     try:
         for path, text in files.items():
-            real, through = targets[path]
+            real, through = targets[current := path]
             if not through:
                 real.parent.mkdir(parents=True, exist_ok=True)
                 temps[real] = _temporary(real, text)
         with _signals_deferred():  # Ctrl-C among the renames would leave half the set new
             for real, tmp in temps.items():
+                current = real
                 os.replace(tmp, real)
         for path, text in files.items():  # pipes and devices last: they cannot take part in the swap
-            real, through = targets[path]
+            real, through = targets[current := path]
             if through:
                 with real.open("wb") as out:
                     out.write(text if isinstance(text, bytes) else text.encode("utf-8"))
     except OSError as exc:
-        raise UserError(f"{exc.filename or 'output'}: cannot write ({exc.strerror})") from None
+        raise UserError(f"{current or exc.filename or 'output'}: cannot write ({exc.strerror})") from None
     finally:
         for tmp in temps.values():
             tmp.unlink(missing_ok=True)

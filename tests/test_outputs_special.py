@@ -8,6 +8,7 @@ import os
 import socket
 import stat
 import threading
+from pathlib import Path
 
 import pytest
 from kinetab.generator import outputs
@@ -68,3 +69,12 @@ def test_build_vectors_into_a_pipe_through_the_command_line(tmp_path, capsys):
     capsys.readouterr()
     assert got == [(tmp_path / "plain.csv").read_bytes()] and len(got[0]) > 1000
     assert stat.S_ISFIFO(fifo.stat().st_mode)
+
+
+def test_a_failed_write_names_the_file_asked_for_not_its_temporary():
+    """/proc takes no new files (Linux procfs, common knowledge): the error names the target, never the
+    hidden temporary file the atomic write makes beside it."""
+    target = Path("/proc/kinetab-never.toml")
+    with pytest.raises(UserError) as err:
+        outputs.write_file(target, "x = 1\n")
+    assert str(err.value).startswith(f"{target}: cannot write (") and ".tmp" not in str(err.value)
