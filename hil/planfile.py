@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import csv
 import io
+import math
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -110,23 +111,44 @@ def read_plan(path: Path, v: Vehicle | None = None) -> Plan:
     header = [c.strip() for c in rows[0]] if rows else []
     st = _header_struct(path, header, v)
     cols = plan_columns(st)
-    has_phase = PHASE_COLUMN in header
+    if header not in (list(cols), [*cols, PHASE_COLUMN]):
+        raise UserError(f"{path}:1: expected the header {','.join(cols)}[,{PHASE_COLUMN}], found {','.join(header)}")
     values, phases = [], []
     for line, row in enumerate(rows[1:], start=2):
-        if not row:
-            continue
-        try:
-            values.append([float(row[k]) for k in range(len(cols))])
-        except (ValueError, IndexError):
-            raise UserError(f"{path}:{line}: expected {len(cols)} numbers") from None
-        phases.append(row[header.index(PHASE_COLUMN)] if has_phase and len(row) > len(cols) else "")
+        if row:
+            values.append(_numbers(path, line, row, cols, len(header)))
+            phases.append(_phase(path, line, row[len(cols)]) if len(header) > len(cols) else "")
     if not values:
         raise UserError(f"{path}: the plan has no rows")
     data = np.array(values)
-    if not np.all(np.isfinite(data)):
-        raise UserError(f"{path}: every value must be a finite number")
     _check_time(path, data[:, 0])
     return _wheel_plan(v, st, {c: data[:, k] for k, c in enumerate(cols)}, phases)
+
+
+def _numbers(path: Path, line: int, row: list[str], cols: tuple[str, ...], width: int) -> list[float]:
+    """One plan row's values: as many fields as the header, each a finite number (else file:line, column)."""
+    if len(row) != width:
+        raise UserError(f"{path}:{line}: expected {width} values as the header says, found {len(row)}")
+    out = []
+    for col, text in zip(cols, row):
+        try:
+            x = float(text)
+        except ValueError:
+            x = math.nan
+        if not math.isfinite(x):
+            raise UserError(f"{path}:{line}: {col}: expected a finite number, found {text.strip()!r}")
+        out.append(x)
+    return out
+
+
+def _phase(path: Path, line: int, text: str) -> str:
+    """A row's phase label: one of PHASES, or empty."""
+    phase = text.strip()
+    if phase and phase not in PHASES:
+        raise UserError(
+            f"{path}:{line}: {PHASE_COLUMN}: unknown phase {phase!r} (one of {', '.join(PHASES)}, or empty)"
+        )
+    return phase
 
 
 def _wheel_plan(v: Vehicle | None, st: interface.Struct, columns: dict[str, np.ndarray], phases: list[str]) -> Plan:

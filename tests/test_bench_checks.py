@@ -204,3 +204,26 @@ def test_a_plan_says_how_many_parameters_it_determines_not_a_bare_condition_numb
     assert one == f"the fit could determine 1 of its {n} parameters (body.mass)" and "condition" not in one
     many = excite.told_apart(list(fitparams.NAMES[:5]), 12.345)
     assert many == f"the fit could determine 5 of its {n} parameters, condition number 12.3"
+
+
+@pytest.mark.parametrize(
+    ("edit", "said"),
+    [
+        (lambda lines: [lines[0].rstrip("\n") + ",extra\n", *(x.rstrip("\n") + ",0\n" for x in lines[1:])], ":1: "),
+        (lambda lines: [*lines[:9], lines[9].rsplit(",", 1)[0] + ",flying\n", *lines[10:]], ":10: phase: unknown"),
+        (lambda lines: [*lines[:9], "nan," + lines[9].split(",", 1)[1], *lines[10:]], ":10: t: expected a finite"),
+        (lambda lines: [*lines[:9], lines[9].split(",", 1)[1], *lines[10:]], ":10: expected"),
+    ],
+    ids=["extra column", "unknown phase", "nan", "short row"],
+)
+def test_a_malformed_plan_is_refused_naming_the_line_before_the_port_opens(bench, tmp_path, capsys, edit, said):
+    """A plan file is what the controller will be told to do: an extra column, an unknown phase, a value
+    that is not a finite number or a row of the wrong width is one line naming file:line (and column)."""
+    folder, path, _ = bench
+    v = model.load(path)
+    plan = planner.make_plan(v, duration_s=5, period_s=0.002, rig="on-floor")
+    (tmp_path / "bad.csv").write_text("".join(edit(planfile.to_csv(plan).splitlines(keepends=True))))
+    args = ["bench", "run", str(path), "--port", "/nonexistent/tty", "--plan", str(tmp_path / "bad.csv")]
+    code, out, err = run([*args, "--log", str(tmp_path / "log.csv"), "--yes"], capsys)
+    assert code == 2 and f"{tmp_path / 'bad.csv'}{said}" in err and len(err.strip().splitlines()) == 1, err
+    assert "/nonexistent" not in err and not (tmp_path / "log.csv").exists()
