@@ -116,7 +116,7 @@ def read_plan(path: Path, v: Vehicle | None = None) -> Plan:
     values, phases = [], []
     for line, row in enumerate(rows[1:], start=2):
         if row:
-            values.append(_numbers(path, line, row, cols, len(header)))
+            values.append(_numbers(path, line, row, cols, width=len(header)))
             phases.append(_phase(path, line, row[len(cols)]) if len(header) > len(cols) else "")
     if not values:
         raise UserError(f"{path}: the plan has no rows")
@@ -125,7 +125,7 @@ def read_plan(path: Path, v: Vehicle | None = None) -> Plan:
     return _wheel_plan(v, st, {c: data[:, k] for k, c in enumerate(cols)}, phases)
 
 
-def _numbers(path: Path, line: int, row: list[str], cols: tuple[str, ...], width: int) -> list[float]:
+def _numbers(path: Path, line: int, row: list[str], cols: tuple[str, ...], *, width: int) -> list[float]:
     """One plan row's values: as many fields as the header, each a finite number (else file:line, column)."""
     if len(row) != width:
         raise UserError(f"{path}:{line}: expected {width} values as the header says, found {len(row)}")

@@ -284,7 +284,7 @@ def _outside_region(v: Vehicle, m: interface.Member, plan: Plan) -> list[Excess]
         if limit is None:
             continue
 
-        def phrase(k: int, key: str = key, limit: float = limit, value: np.ndarray = value, unit: str = unit) -> str:
+        def phrase(k: int, *, key: str = key, limit: float = limit, value: np.ndarray = value, unit: str = unit) -> str:
             pair = f"{m.name}_right/left {right[k]:.6g}/{left[k]:.6g} {m.unit}"
             return f"{pair}: {value[k]:.6g} {unit} beyond {key} ({limit:.6g} {unit})"
 
