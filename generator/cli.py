@@ -48,6 +48,8 @@ def init(path: str, force: bool) -> None:
     if model.NAME_PATTERN.fullmatch(name) and name not in model.C_KEYWORDS:
         text = text.replace('name = "larkspur"', f'name = "{name}"', 1)
         note = f"C prefix '{name}' from the file name"
+    elif name in model.C_KEYWORDS:
+        note = f"'{name}' is a C or C++ keyword, so the C prefix stays 'larkspur'"
     else:
         note = f"'{name}' is not a C name ([a-z][a-z0-9_]{{0,31}}), so the C prefix stays 'larkspur'"
     outputs.write_file(target, text)

@@ -86,6 +86,10 @@ def _angle() -> tuple[Callable[[float], bool], str]:
     return (lambda v: 0 <= v < math.radians(45)), "in [0, 45 deg)"
 
 
+def _whole(hi: float, unit: str) -> tuple[Callable[[float], bool], str]:
+    return (lambda v: 0 < v <= hi and v == int(v)), f"> 0 and <= {hi:g} {unit}, a whole number"
+
+
 def _nonzero(hi: float) -> tuple[Callable[[float], bool], str]:
     return (lambda v: v != 0 and abs(v) <= hi), f"!= 0 and between -{hi:g} and {hi:g} m"
 
@@ -310,7 +314,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "table_bytes_max": K(
             RATIO,
             "table_bytes_max",
-            U(0, 1e6, "bytes"),
+            _whole(1e6, "bytes"),
             "most table bytes (both functions) sizing = 'instructions' may spend",
             default=2048.0,
         ),

@@ -53,6 +53,8 @@ def test_init_names_the_model_after_its_file(tmp_path, capsys):
     assert model.load(tmp_path / "cart.toml").name == "cart" and "from the file name" in out
     out = run_ok(["init", str(tmp_path / "My Cart.toml")], capsys)
     assert model.load(tmp_path / "My Cart.toml").name == "larkspur" and "stays 'larkspur'" in out
+    out = run_ok(["init", str(tmp_path / "int.toml")], capsys)  # a C keyword, though it matches the pattern
+    assert "'int' is a C or C++ keyword" in out and "not a C name" not in out
 
 
 def test_predict_beyond_int32_names_the_option(capsys):
