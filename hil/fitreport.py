@@ -35,8 +35,13 @@ def checked_logs(v: Any, paths: list[Path], *, rig: str | None, accept_other_mod
     from kinetab.generator import synthesis
 
     mine, logs = synthesis.fingerprint(v), []
+    seen: dict[str, Path] = {}
     for p in paths:
         log = benchdata.read_log(p, rig, v)
+        digest = _digest(p)
+        if digest in seen:  # the same run twice would count its rows twice and shrink the error bars
+            raise UserError(f"{p}: the same log as {seen[digest]} (identical contents): give each run once")
+        seen[digest] = p
         other, short = benchdata.origin_problems(v, log, mine)
         if other and not accept_other_model:
             raise UserError(f"{other}; pass --accept-other-model to use it anyway")
@@ -45,6 +50,13 @@ def checked_logs(v: Any, paths: list[Path], *, rig: str | None, accept_other_mod
                 click.echo(f"warning: {text}", err=True)
         logs.append(log)
     return logs
+
+
+def _digest(path: Path) -> str:
+    """SHA-256 of a log's bytes (read_log has read it already: it is readable)."""
+    import hashlib
+
+    return hashlib.sha256(path.read_bytes()).hexdigest()
 
 
 def _phase_rms(v: Any, logs: list[benchdata.BenchLog]) -> dict[str, dict[str, float]]:

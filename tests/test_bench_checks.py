@@ -227,3 +227,19 @@ def test_a_malformed_plan_is_refused_naming_the_line_before_the_port_opens(bench
     code, out, err = run([*args, "--log", str(tmp_path / "log.csv"), "--yes"], capsys)
     assert code == 2 and f"{tmp_path / 'bad.csv'}{said}" in err and len(err.strip().splitlines()) == 1, err
     assert "/nonexistent" not in err and not (tmp_path / "log.csv").exists()
+
+
+def test_the_same_log_twice_is_refused_naming_both(bench, tmp_path, capsys):
+    """One run given twice (or a copy of it under another name) would count its rows twice and make the
+    error bars smaller than the data allows: one line naming both files, nothing fitted."""
+    import shutil
+
+    folder, path, log = bench
+    copy = tmp_path / "again.csv"
+    shutil.copy(log, copy)
+    if log.with_suffix(".json").exists():
+        shutil.copy(log.with_suffix(".json"), copy.with_suffix(".json"))
+    for logs in ([log, log], [log, copy]):
+        code, out, err = run(["bench", "fit", str(path), *map(str, logs)], capsys)
+        assert code == 2 and out == "" and len(err.strip().splitlines()) == 1, err
+        assert f"{logs[1]}: the same log as {logs[0]}" in err
