@@ -101,17 +101,17 @@ def write_set(files: Mapping[Path, str | bytes]) -> None:
     for path in files:
         check_target(path)
     targets = {path: destination(path) for path in files}
-    temps: dict[Path, Path] = {}
-    current: Path | None = None  # the file being written: named in an error, never its temporary
+    temps: dict[Path, tuple[Path, Path]] = {}  # target -> (temporary, the path asked for)
+    current: Path | None = None  # the path asked for being written: named in an error, never a temporary
     try:
         for path, text in files.items():
             real, through = targets[current := path]
             if not through:
                 real.parent.mkdir(parents=True, exist_ok=True)
-                temps[real] = _temporary(real, text)
+                temps[real] = (_temporary(real, text), path)
         with _signals_deferred():  # Ctrl-C among the renames would leave half the set new
-            for real, tmp in temps.items():
-                current = real
+            for real, (tmp, asked) in temps.items():
+                current = asked  # noqa: F841 - read by the error message below
                 os.replace(tmp, real)
         for path, text in files.items():  # pipes and devices last: they cannot take part in the swap
             real, through = targets[current := path]
@@ -121,7 +121,7 @@ def write_set(files: Mapping[Path, str | bytes]) -> None:
     except OSError as exc:
         raise UserError(f"{current or exc.filename or 'output'}: cannot write ({exc.strerror})") from None
     finally:
-        for tmp in temps.values():
+        for tmp, _ in temps.values():
             tmp.unlink(missing_ok=True)
 
 

@@ -16,9 +16,10 @@ from .errors import CheckFailed
 from .ops import op_table, wide_conversion
 from .vehicle import Vehicle
 
-FORMAT_VERSION = 2
+FORMAT_VERSION = 3
 """Part of every fingerprint and checked by the generated C: raised when the same model file gives a
-different model (2: the efficiency blends through zero speed), so files made before read as stale."""
+different model or different integers (2: the efficiency blends through zero speed; 3: int32 tables
+store no bits their uses round away), so files made before read as stale."""
 FORWARD_BUDGET_FACTOR = 2.0
 
 
@@ -99,7 +100,8 @@ def synthesise(v: Vehicle) -> Firmware:
     fw = _synthesise(v, tries[-1])
     if not tries[-1].exact or len(tries) == 1:
         return fw
-    return dataclasses.replace(fw, rounded_best_a=best_bound_a(v, exact=False))
+    rounded = min(best_bound_a(v, exact=False), best_bound_a(v, exact=False, coarse=True))
+    return dataclasses.replace(fw, rounded_best_a=rounded)
 
 
 def _same(a: program.Design, b: program.Design) -> bool:
@@ -262,10 +264,11 @@ def products_note(fw: Firmware) -> str:
     return f"{len(names)} 64-bit multiplies ({', '.join(names)}): {why}"
 
 
-def best_bound_a(v: Vehicle, *, exact: bool = True) -> float:
+def best_bound_a(v: Vehicle, *, exact: bool = True, coarse: bool = False) -> float:
     """The smallest proven feed-forward bound any table sizes reach for this vehicle, A (every piece at
-    its most accurate candidate, products exact unless told): what a budget must allow at least."""
-    des = program.design(v, exact=exact, coarse=False)
+    its most accurate candidate, products exact unless told, tables at full precision unless told):
+    what a budget must allow at least."""
+    des = program.design(v, exact=exact, coarse=coarse)
     names = [n for n in des.specs if n not in _forward_only(des)]
     pieces = sizing.pieces_to_size(des.specs, names)
     achievable, _ = sizing.limiting_table(analysis.compile_bound(des.feedforward, des.specs), pieces, {})

@@ -159,7 +159,7 @@ def _document(
                 "standard_error": e.se / per,
                 "si": {"model": e.model, "estimate": e.estimate, "standard_error": e.se},
                 "on_bound": e.at_bound,
-                "written": name in identify.WRITTEN and name in result.free and name not in result.imprecise,
+                "written": name in identify.written_names(result),
                 "imprecise": result.imprecise.get(name),
             }
         )
@@ -235,7 +235,8 @@ def _tables(doc: dict[str, Any]) -> str:
         if e["imprecise"] is not None:
             note = f"not written: known only to +-{100 * e['imprecise']:.2g} % (1 sigma), over {REL_PERCENT} %"
         if e["on_bound"]:
-            note = f"ON ITS BOUND ({e['on_bound']}): not excited, or the model lacks a term"
+            bound = f"ON ITS BOUND ({e['on_bound']}): not excited, or the model lacks a term"
+            note = bound if e["written"] else f"{bound}; {note}"
         lines.append(
             f"{e['parameter']:30}{e['unit']:>8}{_fmt(e['model']):>12}{_fmt(e['estimate']):>12}"
             f"{_fmt(2 * e['standard_error']):>12}  {note}"

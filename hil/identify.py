@@ -169,17 +169,12 @@ def fit(v: Vehicle, logs: list[BenchLog]) -> Fit:
         p = _solve(fm, m, lo=lo, hi=hi, scale=scale)
     x = m.x(p)
     r = fm.residual(x)
-    jp = fm.jacobian(x) @ m.t
-    block, lags = _settings(logs)
-    cov = covariance.hac(jp, r, group=data.log, time=data.sample, block=block, lags=lags) if jp.size else jp
-    measured = cov  # what the logs themselves say: the sandwich and the filter's spread (not the held prior)
-    if jp.size:
-        measured = cov + _filter_spread(v, logs, m, p, lo=lo, hi=hi)
-        cov = measured + _held_spread(jp, fm.jacobian(x), scale, verdict)
-    imprecise = _imprecise(measured, verdict.free, scale)
+    cov, measured = _covariances(fm, m, p, v=v, logs=logs, verdict=verdict, lo=lo, hi=hi)
+    imprecise = _imprecise(measured, verdict.free, fp.scales(v, x))
     held_x = written_coordinates(x0, x, [j for j in verdict.free if fp.NAMES[j] not in imprecise])
     written = fp.vehicle_with(v, held_x)
     estimates = _estimates(x0, x, cov, free=verdict.free, lo=lo, hi=hi)
+    imprecise |= _derived_imprecise(imprecise, estimates)
     held = [_held(g, x0, x, scale=scale, m=m, cov=cov) for g in verdict.groups]
     free_cols = fm.jacobian(x)[:, verdict.free] * scale[verdict.free]
     sv = np.linalg.svd(free_cols, compute_uv=False) if verdict.free else np.array([1.0])
@@ -211,6 +206,55 @@ def _imprecise(cov: np.ndarray, free: list[int], scale: np.ndarray) -> dict[str,
     determined combination is not."""
     rel = {fp.NAMES[j]: float(np.sqrt(max(cov[k, k], 0.0))) / scale[j] for k, j in enumerate(free)}
     return {name: r for name, r in rel.items() if not r <= identifiability.REL_TOL}
+
+
+def _covariances(
+    fm: regressor.ForceModel,
+    m: _Map,
+    p: np.ndarray,
+    *,
+    v: Vehicle,
+    logs: list[BenchLog],
+    verdict: Verdict,
+    lo: np.ndarray,
+    hi: np.ndarray,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Covariance of p: whole (the HAC sandwich, the filter's spread and the held values' assumed
+    spread), and what the logs themselves measure (without the held values' part)."""
+    x = m.x(p)
+    jp = fm.jacobian(x) @ m.t
+    if not jp.size:
+        return jp, jp
+    block, lags = _settings(logs)
+    hac = covariance.hac(jp, fm.residual(x), group=fm.data.log, time=fm.data.sample, block=block, lags=lags)
+    measured = hac + _filter_spread(v, logs, m, p, lo=lo, hi=hi)
+    return measured + _held_spread(jp, fm.jacobian(x), fp.scales(v, m.x0), verdict), measured
+
+
+DERIVED_FROM = {
+    "friction.breakaway": ("friction.coulomb", "friction.breakaway_excess"),
+    "drive.backdrive_efficiency": ("drive.backdrive_factor",),
+}
+"""The derived estimates (_estimates) and the fit coordinates they are made of."""
+
+
+def _derived_imprecise(imprecise: dict[str, float], estimates: dict[str, Estimate]) -> dict[str, float]:
+    """A derived estimate is as imprecise as the least precise coordinate it is made of."""
+    out = {}
+    for name, parts in DERIVED_FROM.items():
+        worst = [imprecise[p] for p in parts if p in imprecise]
+        if name in estimates and worst:
+            out[name] = max(worst)
+    return out
+
+
+def written_names(f: Fit) -> set[str]:
+    """The fit coordinates whose estimates the model file gets: fitted, precise enough, and (the excess of
+    breakaway over Coulomb) with the coordinate they are written through (written_coordinates)."""
+    out = {name for name in f.free if name not in f.imprecise}
+    if "friction.coulomb" not in out:
+        out.discard("friction.breakaway_excess")
+    return out
 
 
 def _rms(residual: np.ndarray, weight: np.ndarray) -> float:
@@ -364,8 +408,8 @@ def model_changes(f: Fit) -> dict[str, float]:
         "drive.backdrive_efficiency": v.drive.backdrive_efficiency,
         "friction.stribeck_speed": v.friction.stribeck_speed_mps,
     }
-    written = [name for name in f.free if name not in f.imprecise]
-    keys = [k for name in written for k in WRITTEN[name]]
+    written = written_names(f)
+    keys = [k for name in f.free if name in written for k in WRITTEN[name]]
     if "friction.coulomb" not in written:
         keys = [k for k in keys if k != "friction.breakaway"]
     return {k: float(value[k]) for k in dict.fromkeys(keys)}

@@ -126,17 +126,12 @@ def _inside_regions(v: Vehicle, prof: np.ndarray) -> np.ndarray:
     return prof
 
 
-def _fields(profile: np.ndarray, *, payload: float, pitch: float, roll: float) -> dict[str, np.ndarray]:
-    """A profile (rows of speed right, left, accel right, left) on a fixed slope and payload, as SI
-    values per interface member, one row each."""
-    n = len(profile)
-    return {
-        "speed": profile[:, :2],
-        "accel": profile[:, 2:],
-        "pitch": np.full(n, pitch),
-        "roll": np.full(n, roll),
-        "payload": np.full(n, payload),
-    }
+def _fields(profile: np.ndarray, **situation: float) -> dict[str, np.ndarray]:
+    """A profile (rows of the wheel pairs in the interface's order: speed right, left, accel right, left)
+    in a fixed situation (the slow members' SI values), as SI values per interface member, one row each."""
+    pairs = [m for m in interface.FF_IN.members if m.count == 2]
+    out = {m.name: profile[:, 2 * k : 2 * k + 2] for k, m in enumerate(pairs)}
+    return out | {name: np.full(len(profile), value) for name, value in situation.items()}
 
 
 def peak_current_use(v: Vehicle, profile: np.ndarray, *, rig: str, payload: float, pitch: float, roll: float) -> float:
@@ -213,7 +208,8 @@ def _outside(v: Vehicle, m: interface.Member, col: str, values: np.ndarray) -> E
     else:
         over = (values < 0) | (values > limit * slack)
         text = f"outside 0 .. {m.edge_key} ({limit:g} {m.unit})"
-    ratio = np.where(values < 0, 1 + np.abs(values), np.abs(values)) / max(limit, 1e-300)
+    below = (values < 0) & (not m.signed)  # an unsigned input below zero: beyond by 1 + |value| / limit
+    ratio = np.where(below, limit + np.abs(values), np.abs(values)) / max(limit, 1e-300)
     return _excess(over, ratio, lambda k: f"{col} {values[k]:.6g} {m.unit} {text}")
 
 

@@ -8,7 +8,7 @@ import json
 
 import numpy as np
 import pytest
-from kinetab.generator import dynamics, model, outputs
+from kinetab.generator import dynamics, interface, model, outputs
 from kinetab.hil import campaign, planfile, planner
 
 import kinetab
@@ -243,3 +243,16 @@ def test_the_same_log_twice_is_refused_naming_both(bench, tmp_path, capsys):
         code, out, err = run(["bench", "fit", str(path), *map(str, logs)], capsys)
         assert code == 2 and out == "" and len(err.strip().splitlines()) == 1, err
         assert f"{logs[1]}: the same log as {logs[0]}" in err
+
+
+def test_the_worst_row_of_a_signed_input_is_the_largest_excess_either_way(bench):
+    """A pitch 10 % beyond its limit nose down and 100 % beyond nose up: the worst is the second. An
+    unsigned input below zero (a negative payload) is beyond its range by the range plus how far below."""
+    folder, path, _ = bench
+    v = model.load(path)
+    top = v.envelope.pitch_max_rad
+    e = planner._outside(v, interface.PITCH, "pitch", np.array([0.0, -1.1 * top, 2.0 * top]))
+    assert e is not None and (e.first, e.worst, e.count) == (1, 2, 2)
+    cap = v.payload.mass_max_kg
+    e = planner._outside(v, interface.PAYLOAD, "payload", np.array([0.0, 1.01 * cap, -0.5 * cap]))
+    assert e is not None and (e.first, e.worst, e.count) == (1, 2, 2)

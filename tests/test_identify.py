@@ -231,11 +231,15 @@ def test_a_float_model_campaign_recovers_every_coordinate():
     # Written only where the whole standard error (with the filter's spread) is within 5 % of the size: here
     # the back-driving factor is not (its rows near the blend band move with the filter's cutoff), so it
     # stays fitted, reported, and out of the model file.
-    scale = fp.scales(v, fp.values(v))
+    x = fp.values(v)
+    for name in result.free:
+        x[fp.INDEX[name]] = result.estimates[name].estimate
+    scale = fp.scales(v, x)  # each estimate's own size
     for name in result.free:  # the whole error includes the held values' assumed spread (none held here)
         rel = result.estimates[name].se / scale[fp.INDEX[name]]
         assert (name in result.imprecise) == (rel > 0.05), (name, rel)
-    assert "drive.backdrive_factor" in result.imprecise
+    assert "drive.backdrive_factor" in result.imprecise and "drive.backdrive_efficiency" in result.imprecise
+    assert identify.written_names(result) == {n for n in result.free if n not in result.imprecise}
     changes = identify.model_changes(result)
     assert "drive.backdrive_efficiency" not in changes and "body.mass" in changes
     assert result.vehicle.drive.backdrive_efficiency == v.drive.backdrive_efficiency
