@@ -22,6 +22,9 @@ MARGIN = 3.0  # a designed campaign must determine each direction this many time
 # (real residuals are correlated in time: their long-run variance was 1.3 x white noise on simulated logs)
 ASSESS_PERIOD_S = 0.01  # planned motion is sampled this coarsely for the assessment (information scales up)
 
+NOISE_OF_LIMIT = 0.01
+"""The current noise a campaign plans for unless told (--noise): 1 % of drive.current_limit."""
+
 
 @dataclass(frozen=True)
 class Candidate:

@@ -37,7 +37,7 @@ def campaign_files(
     v: Vehicle, model_path: Path, out: Path, *, duration_s: float, period_s: float, noise_a: float | None
 ) -> tuple[dict[Path, str], str]:
     """{path: text} of the plans and CAMPAIGN.txt, and the text to print."""
-    noise = noise_a if noise_a is not None else 0.01 * v.drive.current_limit_a
+    noise = noise_a if noise_a is not None else campaign.NOISE_OF_LIMIT * v.drive.current_limit_a
     design = campaign.choose_runs(v, noise_a=noise, duration_s=duration_s, period_s=period_s)
     files: dict[Path, str] = {}
     lines = [

@@ -100,6 +100,10 @@ def run_fit(
         ) from None
     before, after = _phase_rms(v, logs), _phase_rms(fitted, logs)
     doc = _document(result, changes, logs, before=before, after=after, target=target, units_of=_units(text))
+    doc["current_noise_a"] = {
+        "logs": result.noise_a,
+        "campaign_default": campaign.NOISE_OF_LIMIT * v.drive.current_limit_a,
+    }
     if target is not None:
         outputs.write_file(target, new_text)
     click.echo(json.dumps(doc, indent=2) if as_json else _tables(doc))
@@ -218,6 +222,19 @@ def _held_doc(h: identify.Held, helps: list[campaign.Candidate]) -> dict[str, An
     }
 
 
+def _noise_hint(doc: dict[str, Any]) -> list[str]:
+    """Where something is held and the logs are noisier than `bench campaign` plans for by default: how
+    to plan runs that separate more."""
+    noise = doc["current_noise_a"]
+    if not doc["held"] or noise["logs"] <= noise["campaign_default"]:
+        return []
+    found, planned = noise["logs"] * 1000, noise["campaign_default"] * 1000
+    return [
+        f"the logs' current noise ({found:.3g} mA) is above what `bench campaign` plans for by default "
+        f"({planned:.3g} mA): plan again with `bench campaign --noise '{found:.3g} mA'` for runs that separate more"
+    ]
+
+
 def _fmt(x: float) -> str:
     return f"{x:.6g}"
 
@@ -252,6 +269,7 @@ def _tables(doc: dict[str, Any]) -> str:
             lines.append(f"    to separate it, add a log {' and a log '.join(h['separated_by'])}")
         else:
             lines.append("    no one or two further logs of the kinds `bench campaign` plans would separate it")
+    lines += _noise_hint(doc)
     lines.append(
         f"+-2 sigma: HAC standard errors (residuals correlated in time); condition number "
         f"{doc['condition_number']:.3g}; rim-force RMS residual {doc['rms_force_n']['before']:.4g} N -> "

@@ -256,3 +256,16 @@ def test_the_worst_row_of_a_signed_input_is_the_largest_excess_either_way(bench)
     cap = v.payload.mass_max_kg
     e = planner._outside(v, interface.PAYLOAD, "payload", np.array([0.0, 1.01 * cap, -0.5 * cap]))
     assert e is not None and (e.first, e.worst, e.count) == (1, 2, 2)
+
+
+def test_a_fit_that_holds_parameters_on_noisy_logs_says_how_to_plan_for_that_noise():
+    """bench campaign plans for 1 % of the current limit unless told; logs noisier than that separate
+    less than it planned, so the fit (when it holds something) names the --noise that plans for them."""
+    from kinetab.hil import fitreport
+
+    noisy = {"held": [{"parameters": ["x"]}], "current_noise_a": {"logs": 0.2, "campaign_default": 0.06}}
+    (line,) = fitreport._noise_hint(noisy)
+    assert "(200 mA)" in line and "(60 mA)" in line and "`bench campaign --noise '200 mA'`" in line
+    assert fitreport._noise_hint({**noisy, "held": []}) == []
+    quiet = {**noisy, "current_noise_a": {"logs": 0.02, "campaign_default": 0.06}}
+    assert fitreport._noise_hint(quiet) == []
