@@ -222,6 +222,21 @@ def _held_doc(h: identify.Held, helps: list[campaign.Candidate]) -> dict[str, An
     }
 
 
+NOT_KEYS = {
+    "body.yaw_inertia": "the body's yaw inertia, written as body.gyration_radius",
+    "reflected_inertia": "the rotating parts as one mass at the rim, written as drive.rotor_inertia",
+    "friction.breakaway_excess": "friction.breakaway less friction.coulomb",
+    "drive.backdrive_factor": "1 / drive.backdrive_efficiency",
+}
+"""Fit coordinates that are not model keys, and what they stand for (identify.WRITTEN maps the writes)."""
+
+
+def _legend(doc: dict[str, Any]) -> list[str]:
+    """What each fit coordinate in the report that is not a model key stands for."""
+    shown = {e["parameter"] for e in doc["estimates"]} | {p for h in doc["held"] for p in h["parameters"]}
+    return [f"{name}: {meaning}" for name, meaning in NOT_KEYS.items() if name in shown]
+
+
 def _noise_hint(doc: dict[str, Any]) -> list[str]:
     """Where something is held and the logs are noisier than `bench campaign` plans for by default: how
     to plan runs that separate more."""
@@ -239,24 +254,29 @@ def _fmt(x: float) -> str:
     return f"{x:.6g}"
 
 
+def _note(e: dict[str, Any], doc: dict[str, Any]) -> str:
+    """The note column of one estimate: written (or to write), derived, reported, or why not written."""
+    note = (
+        ("written" if doc["written"] else "to write (--write or --in-place)")
+        if e["written"]
+        else "derived"
+        if e["parameter"] in identify.DERIVED_FROM
+        else "reported"
+    )
+    if e["imprecise"] is not None:
+        note = f"not written: known only to +-{100 * e['imprecise']:.2g} % (1 sigma), over {REL_PERCENT} %"
+    if e["on_bound"]:
+        bound = f"ON ITS BOUND ({e['on_bound']}): not excited, or the model lacks a term"
+        note = bound if e["written"] else f"{bound}; {note}"
+    return note
+
+
 def _tables(doc: dict[str, Any]) -> str:
     lines = [f"{'parameter':30}{'unit':>8}{'model':>12}{'estimate':>12}{'+-2 sigma':>12}  note"]
     for e in doc["estimates"]:
-        note = (
-            "written"
-            if e["written"]
-            else "derived"
-            if e["parameter"] in ("friction.breakaway", "drive.backdrive_efficiency")
-            else "reported"
-        )
-        if e["imprecise"] is not None:
-            note = f"not written: known only to +-{100 * e['imprecise']:.2g} % (1 sigma), over {REL_PERCENT} %"
-        if e["on_bound"]:
-            bound = f"ON ITS BOUND ({e['on_bound']}): not excited, or the model lacks a term"
-            note = bound if e["written"] else f"{bound}; {note}"
         lines.append(
             f"{e['parameter']:30}{e['unit']:>8}{_fmt(e['model']):>12}{_fmt(e['estimate']):>12}"
-            f"{_fmt(2 * e['standard_error']):>12}  {note}"
+            f"{_fmt(2 * e['standard_error']):>12}  {_note(e, doc)}"
         )
     for h in doc["held"]:
         lines.append(f"held at the model's values: {', '.join(h['parameters'])}: {h['why']}")
@@ -282,6 +302,7 @@ def _tables(doc: dict[str, Any]) -> str:
         lines.append(
             f"  {log}: " + ", ".join(f"{p} {b * 1000:.1f} -> {after[p] * 1000:.1f}" for p, b in phases.items())
         )
+    lines += _legend(doc)
     if "drive.rotor_inertia" in doc["model_changes"]:
         lines.append("reflected_inertia is written as drive.rotor_inertia (wheels.inertia kept: the split is not seen)")
     if doc["written"]:
