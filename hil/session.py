@@ -7,6 +7,7 @@ up from the free-slot count each sample reports, so host and USB jitter never re
 
 from __future__ import annotations
 
+import math
 import signal
 import threading
 import time
@@ -29,6 +30,7 @@ SETPOINT_FRAME_BYTES = len(framing.frame(messages.encode(messages.Setpoint(0xFFF
 """Bytes of one setpoint frame on the wire, near enough (COBS may add a byte or two) for rate estimates."""
 START_RESEND_S = 0.05  # before the first sample: no report yet, so resend the prefill after this long (doubling)
 PREFILL_MAX = 64  # the run starts after half the FIFO or this many setpoints; a deep FIFO fills as it runs
+WINDOW = 2 * PREFILL_MAX  # setpoints sent and not yet known received, at most (Stream.credit)
 
 
 class BenchFailed(CheckFailed):
@@ -153,10 +155,14 @@ class Stream:
     first_sent_at: float | None = None  # when the first setpoint was first sent (a resend does not move it)
     sent_at: list[float] = field(default_factory=list)
     flags: int = 0  # flags every setpoint carries (messages.NO_FEEDFORWARD)
+    watchdog_s: float = math.inf  # the controller's watchdog (IDENTIFY): a silence this long halts it
 
     def credit(self) -> int:
-        """Free slots less the setpoints sent since the report."""
-        return max(0, self.free - (self.next_index - 1 - self.acked))
+        """Free slots less the setpoints sent since the report, and never more than WINDOW not yet known
+        received: a lost frame makes the controller drop every later one (it takes them in order), so
+        on a deep FIFO an unbounded window resends thousands of frames per loss and falls behind."""
+        in_flight = self.next_index - 1 - self.acked
+        return max(0, min(self.free, WINDOW) - in_flight)
 
     def report(self, free: int, last_rx: int, now: float) -> None:
         """A sample's free slots and last received sequence number (unwrapped near what was sent)."""
@@ -179,20 +185,23 @@ class Stream:
         still in flight keep arriving and are not sent again. Before its first report (a deep FIFO's
         prefill can take longer than RESEND_S to send) only when nothing has been sent for
         START_RESEND_S, well within the controller's watchdog, then twice as long each time (a slow link
-        may still be carrying the prefill). After a resend, not again until what it
+        may still be carrying the prefill), but never longer than half the watchdog: a prefill frame
+        lost twice must not leave the controller silent until it halts. After a resend, not again until what it
         superseded could have arrived at the fastest rate the link was seen to deliver (plus RESEND_S):
         frames still on their way are dropped as out of order and show no progress meanwhile."""
         first_missing = self.acked + 1
         if first_missing >= self.next_index:
             return
         if self.heard_at is None:
-            due = now - self.sent_at[self.next_index - 1] > START_RESEND_S * 2**self.start_resends
+            wait = min(START_RESEND_S * 2**self.start_resends, self.watchdog_s / 2)  # never past its watchdog
+            due = now - self.sent_at[self.next_index - 1] > wait
             self.start_resends += due
         else:
             due = not self.progressed and self.heard_at - self.sent_at[first_missing] > RESEND_S
         if due and now >= self.hold_until:
             superseded = (self.next_index - first_missing) * SETPOINT_FRAME_BYTES
-            self.hold_until = now + RESEND_S + (superseded / self.peak_bps if self.peak_bps > 0 else 0.0)
+            drain = superseded / self.peak_bps if self.peak_bps > 0 else 0.0
+            self.hold_until = now + min(RESEND_S + drain, self.watchdog_s / 2)  # silent no longer than that
             self.next_index = first_missing
 
     def take(self, most: int, now: float) -> list[messages.Message]:
@@ -225,7 +234,7 @@ def run(
     sample in order (a sample lost on the way is counted and skipped). Returns "completed" or raises
     BenchFailed; the caller sends HALT on every way out."""
     first = 1
-    stream = Stream(rows=rows, first_seq=first, flags=flags)
+    stream = Stream(rows=rows, first_seq=first, flags=flags, watchdog_s=ident.watchdog_ms / 1000)
     armed = _arm(link, min(max(1, ident.fifo_depth // 2), PREFILL_MAX, len(rows)), port_name)
     stream.free, counters.fifo_depth, counters.fifo_free = armed.free, ident.fifo_depth, armed.free
     with SafePoints() as safe:

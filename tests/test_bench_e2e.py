@@ -50,10 +50,10 @@ class Sim:
         return self.proc.returncode, err
 
 
-def _plan(tmp_path: Path, seconds: float) -> Path:
+def _plan(tmp_path: Path, seconds: float, period: str = "1 ms") -> Path:
     path = tmp_path / "plan.csv"
     subprocess.run(
-        [*KINETAB, "bench", "plan", str(DEMO_PATH), "-o", str(path), "--duration", str(seconds)],
+        [*KINETAB, "bench", "plan", str(DEMO_PATH), "-o", str(path), "--duration", str(seconds), "--period", period],
         cwd=ROOT,
         check=True,
         capture_output=True,
@@ -134,17 +134,21 @@ def test_controller_killed_mid_run(tmp_path):
     assert 1000 < meta["samples"] == len(_log_rows(log)) < 20_000
 
 
-@pytest.mark.parametrize("depth", [512, 4096])
-def test_a_deep_fifo_fills_and_runs_even_with_corruption(depth, tmp_path):
-    """Regression: with a FIFO deeper than about 128 the host went back to the first setpoint every 5 ms
-    while the prefill (half the FIFO) was still on its way, so the controller never started."""
-    plan, log = _plan(tmp_path, 5), tmp_path / "log.csv"
-    sim = Sim(DEMO_PATH, "--fifo-depth", str(depth), "--corrupt-rate", "0.0003")
+@pytest.mark.parametrize(("depth", "period_ms"), [(512, 1), (4096, 1), (4096, 2)])
+def test_a_deep_fifo_fills_and_runs_even_with_corruption(depth, period_ms, tmp_path):
+    """Regressions: with a FIFO deeper than about 128 the host went back to the first setpoint every 5 ms
+    while the prefill (half the FIFO) was still on its way, so the controller never started. At 2 ms the
+    host sent the whole plan ahead, and each lost frame (the controller drops every later one) cost
+    thousands of resent frames: the FIFO ran dry, or the host held back past the controller's watchdog
+    (session.WINDOW, and waits capped at half the watchdog)."""
+    rows = 6000 // period_ms
+    plan, log = _plan(tmp_path, 6, f"{period_ms} ms"), tmp_path / "log.csv"
+    sim = Sim(DEMO_PATH, "--fifo-depth", str(depth), "--corrupt-rate", "0.0003", "--period", f"{period_ms} ms")
     run = _run(sim.port, plan, log)
     _, err = run.communicate(timeout=60)
     assert run.returncode == 0, err + sim.finish()[1]
     meta = json.loads(log.with_suffix(".json").read_text())
-    assert meta["ended"] == "completed" and meta["samples"] + meta["missing_samples"] == 5000
+    assert meta["ended"] == "completed" and meta["samples"] + meta["missing_samples"] == rows
     assert meta["controller"]["fifo_depth"] == depth
 
 

@@ -179,3 +179,33 @@ def test_a_fifo_that_runs_dry_halts_the_run_with_the_fault_named_and_the_samples
     assert seen == [(0, 1), (1, 2)] and counters.samples == 2
     assert counters.faults == ["fifo dry (code 2) at sequence 3"]
     assert max(_seqs(link.sent)) <= 1 + 2 + 4  # never beyond the credit the samples gave
+
+
+def test_a_deep_fifo_gets_at_most_a_window_of_setpoints_not_yet_known_received():
+    """The controller takes setpoints in order and drops every one after a lost frame: with a 4096-deep
+    FIFO and the whole plan sent ahead, each loss cost thousands of resent frames (17,599 frames for a
+    3,000-row plan at 2 ms, then a dry FIFO). At most WINDOW are in flight; received ones free it."""
+    s = session.Stream(rows=_rows(3000), first_seq=1, free=4096)
+    assert len(s.take(4000, now=0.0)) == session.WINDOW
+    assert s.take(4000, now=0.001) == []
+    s.report(free=4096 - 100, last_rx=100, now=0.002)  # 100 received (still in the FIFO)
+    assert _seqs(s.take(4000, now=0.002)) == list(range(session.WINDOW + 1, session.WINDOW + 101))
+
+
+def test_the_host_is_never_silent_for_half_the_watchdog_while_it_waits_to_resend():
+    """Before the first sample the wait before resending doubles (a slow link may still carry the
+    prefill), and after a resend the host holds back while superseded frames drain; neither may reach
+    the controller's watchdog, which halts it (seen at a 2 ms period: 'watchdog' after 57 samples)."""
+    s = session.Stream(rows=_rows(300), first_seq=1, free=64, watchdog_s=0.1)
+    s.take(64, now=0.0)
+    for k in range(6):  # no report ever: resends come at most 50 ms (half the watchdog) apart
+        last = s.sent_at[s.next_index - 1]
+        s.repair(now=last + 0.051)
+        assert s.next_index == 0, k
+        s.take(64, now=last + 0.051)
+    s = session.Stream(rows=_rows(300), first_seq=1, free=64, watchdog_s=0.1)
+    s.take(64, now=0.0)
+    s.report(free=64, last_rx=1, now=0.002)  # a very slow link so far: superseded frames would take long
+    s.report(free=64, last_rx=1, now=0.02)  # no progress: seq 2 lost
+    s.repair(now=0.02)
+    assert s.next_index == 1 and s.hold_until <= 0.02 + 0.05
