@@ -101,18 +101,17 @@ def write_set(files: Mapping[Path, str | bytes]) -> None:
     for path in files:
         check_target(path)
     targets = {path: destination(path) for path in files}
-    temps: dict[Path, tuple[Path, Path]] = {}  # target -> (temporary, the path asked for)
+    temps: dict[Path, Path] = {}  # the path asked for -> its temporary
     current: Path | None = None  # the path asked for being written: named in an error, never a temporary
     try:
         for path, text in files.items():
             real, through = targets[current := path]
             if not through:
                 real.parent.mkdir(parents=True, exist_ok=True)
-                temps[real] = (_temporary(real, text), path)
+                temps[path] = _temporary(real, text)
         with _signals_deferred():  # Ctrl-C among the renames would leave half the set new
-            for real, (tmp, asked) in temps.items():
-                current = asked  # noqa: F841 - read by the error message below
-                os.replace(tmp, real)
+            for current, tmp in temps.items():
+                os.replace(tmp, targets[current][0])
         for path, text in files.items():  # pipes and devices last: they cannot take part in the swap
             real, through = targets[current := path]
             if through:
@@ -121,7 +120,7 @@ def write_set(files: Mapping[Path, str | bytes]) -> None:
     except OSError as exc:
         raise UserError(f"{current or exc.filename or 'output'}: cannot write ({exc.strerror})") from None
     finally:
-        for tmp, _ in temps.values():
+        for tmp in temps.values():
             tmp.unlink(missing_ok=True)
 
 

@@ -111,14 +111,16 @@ def _same(a: program.Design, b: program.Design) -> bool:
 
 
 def _designs(v: Vehicle) -> list[program.Design]:
-    """The distinct designs to try, fastest first: rounded on coarse tables (when sizing minimises
-    instructions; they may take more table bytes for the same bound), rounded, exact."""
-    out: list[program.Design] = []
-    coarse = [program.design(v)] if v.firmware.sizing == "instructions" else []
-    for des in (*coarse, program.design(v, coarse=False), program.design(v, exact=True)):
-        if not any(_same(d, des) for d in out):
-            out.append(des)
-    return out
+    """The distinct designs to try, fastest first: rounded on coarse tables (int32 words, when sizing
+    minimises instructions; they may take more table bytes for the same bound), rounded, exact."""
+    fine = program.design(v, coarse=False)
+    out = [fine]
+    if v.firmware.sizing == "instructions" and v.firmware.word == "int32":
+        coarse = program.design(v)
+        if coarse.coarse:  # some table did lose bits
+            out.insert(0, coarse)
+    exact = program.design(v, exact=True)
+    return out if _same(fine, exact) else [*out, exact]
 
 
 def _synthesise(v: Vehicle, des: program.Design, *, explain: bool = True) -> Firmware:
