@@ -13,6 +13,7 @@ import click
 import numpy as np
 
 from . import __version__, dynamics, emulate, envelope, interface, model, units
+from . import lift as lift_axis
 from .cli_support import LazyGroup, ProgressLine, QuantityType, out_folder, run
 from .errors import CheckFailed, UserError
 from .vehicle import Vehicle
@@ -110,10 +111,31 @@ def predict_point(v: Vehicle, op: dynamics.OperatingPoint) -> dict[str, Any]:
     help="Also the look-ahead point this far ahead of P (negative: behind): its Jacobian and mass matrix "
     "(default: firmware.point_ahead of the model, if set; bare number: m).",
 )
+@click.option(
+    "--lift-speed", type=QuantityType(units.SPEED, "m/s"), help="Lift carriage speed, up > 0 (bare number: m/s)."
+)
+@click.option(
+    "--lift-accel",
+    type=QuantityType(units.ACCEL, "m/s**2"),
+    help="Lift carriage acceleration, up > 0 (bare number: m/s^2).",
+)
+@click.option(
+    "--lift-payload", type=QuantityType(units.MASS, "kg"), help="Load on the lift carriage (bare number: kg)."
+)
 @click.option("--json", "as_json", is_flag=True, help="Print JSON (SI units) instead of a table.")
-def predict(model_path: str, as_json: bool, ahead: float | None, **point: float) -> None:
-    """Evaluate the model at one operating point: forces, torque, current and voltage per wheel."""
+def predict(
+    model_path: str,
+    as_json: bool,
+    ahead: float | None,
+    lift_speed: float | None,
+    lift_accel: float | None,
+    lift_payload: float | None,
+    **point: float,
+) -> None:
+    """Evaluate the model at one operating point: forces, torque, current and voltage per wheel (and at
+    the lift, when the model has one: --lift-* default 0)."""
     v = model.load(model_path)
+    lift_point = _lift_point(v, lift_speed, lift_accel, lift_payload)
     si = interface.FF_IN.si_names()
     if point["payload"] < 0:
         raise UserError(f"kinetab predict: --payload: expected a mass >= 0 kg, found {point['payload']:g} kg")
@@ -123,10 +145,63 @@ def predict(model_path: str, as_json: bool, ahead: float | None, **point: float)
     if ahead is not None:
         doc["point"] = _point_doc(v, op, ahead)
     _fill_fixed(v, op, doc)
+    if lift_point is not None:
+        doc["lift"] = _lift_predict(v, *lift_point)
     if as_json:
         click.echo(json.dumps(doc, indent=2))
         return
     click.echo(_predict_table(doc))
+    if "lift" in doc:
+        click.echo(_lift_table(doc["lift"]))
+
+
+def _lift_point(
+    v: Vehicle, speed: float | None, accel: float | None, payload: float | None
+) -> tuple[float, float, float] | None:
+    """The lift's operating point (payload, speed, accel), or None without a lift; --lift-* need one."""
+    given = [name for name, x in (("speed", speed), ("accel", accel), ("payload", payload)) if x is not None]
+    if v.lift is None:
+        if given:
+            raise UserError(f"kinetab predict: --lift-{given[0]}: {v.source} has no [lift] section")
+        return None
+    p = 0.0 if payload is None else payload
+    if not 0 <= p <= v.lift.payload_max_kg:
+        raise UserError(
+            f"kinetab predict: --lift-payload: expected a mass from 0 to lift.payload_max "
+            f"({v.lift.payload_max_kg:g} kg), found {p:g} kg"
+        )
+    return p, 0.0 if speed is None else speed, 0.0 if accel is None else accel
+
+
+def _lift_predict(v: Vehicle, payload: float, speed: float, accel: float) -> dict[str, Any]:
+    """The lift at one operating point (SI): load force, its friction share, torque, current, voltage."""
+    lift = v.lift
+    assert lift is not None
+    current = float(lift_axis.motor_current(lift, payload, speed, accel))
+    return {
+        "payload": payload,
+        "speed": speed,
+        "accel": accel,
+        "force": float(lift_axis.load_force(lift, payload, speed, accel)),
+        "friction": float(lift_axis.friction(lift, speed)),
+        "reflected_mass": lift_axis.reflected_mass(lift),
+        "motor_torque": float(lift_axis.motor_torque(lift, payload, speed, accel)),
+        "current": current,
+        "voltage": float(lift_axis.motor_voltage(lift, current, speed)),
+    }
+
+
+def _lift_table(doc: dict[str, Any]) -> str:
+    head = f"lift at payload {doc['payload']:g} kg, speed {doc['speed']:+g} m/s, accel {doc['accel']:+g} m/s^2 (up > 0)"
+    rows = [
+        ("force on the carriage [N]", "force"),
+        ("  of it friction [N]", "friction"),
+        ("rotor as mass [kg]", "reflected_mass"),
+        ("motor_torque [N*m]", "motor_torque"),
+        ("current [A]", "current"),
+        ("voltage [V]", "voltage"),
+    ]
+    return "\n".join([head, *(f"{label:26}{doc[key]:12.4f}" for label, key in rows)])
 
 
 def _point_doc(v: Vehicle, op: dynamics.OperatingPoint, ahead: float) -> dict[str, Any]:
@@ -238,7 +313,39 @@ def _envelope_doc(rep: envelope.EnvelopeReport) -> dict[str, Any]:
         "peak_voltage": {"value": rep.peak_voltage.value, "where": rep.peak_voltage.where},
         "peak_traction": {"value": rep.peak_traction.value, "where": rep.peak_traction.where},
         "problems": rep.problems,
+        **({"lift": _lift_doc(rep.lift)} if rep.lift is not None else {}),
     }
+
+
+def _lift_doc(rep: lift_axis.LiftReport) -> dict[str, Any]:
+    def peak(p: lift_axis.LiftPeak) -> dict[str, float]:
+        return {"value": p.value, "payload": p.payload_kg, "speed": p.speed_mps, "accel": p.accel_mps2}
+
+    return {
+        "hold_current_empty": rep.hold_empty_a,
+        "hold_current_full": rep.hold_full_a,
+        "peak_current": peak(rep.peak_current),
+        "peak_voltage": peak(rep.peak_voltage),
+        "stroke_time": rep.stroke_s,
+        "stroke_top_speed": rep.stroke_top_speed_mps,
+    }
+
+
+def _lift_lines(v: Vehicle, rep: lift_axis.LiftReport | None) -> list[str]:
+    """The lift's envelope lines (none without a lift)."""
+    if rep is None or v.lift is None:
+        return []
+    lift, supply = v.lift, lift_axis.supply_voltage(v, v.lift)
+    return [
+        f"lift: payload up to {lift.payload_max_kg:g} kg, speed_max {lift.speed_max_mps:g} m/s, "
+        f"accel_max {lift.accel_max_mps2:g} m/s^2, travel {lift.travel_m:g} m",
+        f"  holding current {rep.hold_empty_a:8.2f} A empty, {rep.hold_full_a:.2f} A full (motoring efficiency)",
+        f"  peak current    {rep.peak_current.value:8.2f} A  of {lift.current_limit_a:g} A"
+        f"   ({rep.peak_current.where()})",
+        f"  peak voltage    {rep.peak_voltage.value:8.2f} V  of {supply:g} V   ({rep.peak_voltage.where()})",
+        f"  full stroke     {rep.stroke_s:8.2f} s  (top speed {rep.stroke_top_speed_mps:g} m/s)",
+        "",
+    ]
 
 
 def _deg(rad: float) -> str:
@@ -287,6 +394,7 @@ def _envelope_table(v: Vehicle, rep: envelope.EnvelopeReport) -> str:
         f"  ({rep.peak_voltage.where})",
         f"peak traction {rep.peak_traction.value:8.2f} of the grip limit ({rep.peak_traction.where})",
         "",
+        *_lift_lines(v, rep.lift),
     ]
     lines.append("feasible" if rep.feasible else "INFEASIBLE: " + "; ".join(rep.problems))
     return "\n".join(lines)
@@ -303,7 +411,7 @@ def _envelope_gate(v: Vehicle, allow: bool) -> None:
         click.echo(f"warning: {check.detail}", err=True)
 
 
-ALLOW_HELP = "Build or pass even when the envelope exceeds the drive's current, voltage or grip limits."
+ALLOW_HELP = "Build or pass even when the envelope exceeds the drive's current, voltage or grip limits (or the lift's)."
 
 
 @cli.command(short_help="Generate the feed-forward C files for a model.")
@@ -343,6 +451,12 @@ def build(model_path: str, out_dir: str, vectors_path: str | None, allow: bool) 
         f"{synthesis.sizing_note(fw)}; {synthesis.products_note(fw)}",
         err=vectors_path == "-",
     )
+    if v.lift is not None:
+        click.echo(
+            f"note: {v.source}: [lift] is checked by envelope, verify and predict; the generated C has no lift "
+            "feed-forward yet",
+            err=True,
+        )
     step = gate.step_check(fw, neighbours)
     click.echo(
         step.detail if step.ok else f"warning: {step.detail} (verify fails on it)",

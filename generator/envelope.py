@@ -15,6 +15,7 @@ import numpy as np
 from numpy.typing import ArrayLike
 
 from . import dynamics, interface, model, region
+from . import lift as lift_axis
 from .dynamics import OperatingPoint
 from .interface import FF_IN
 from .vehicle import Vehicle
@@ -57,6 +58,7 @@ class EnvelopeReport:
     peak_voltage: Peak
     peak_traction: Peak  # fraction of the grip limit used
     problems: list[str] = field(default_factory=list)
+    lift: lift_axis.LiftReport | None = None  # the lift's lines, when the vehicle has one
 
     @property
     def feasible(self) -> bool:
@@ -225,10 +227,22 @@ def corner_peaks(v: Vehicle) -> tuple[Peak, Peak, Peak, list[str]]:
     )
 
 
+def problems(v: Vehicle) -> list[str]:
+    """Every limit the envelope breaks: the drive's at the corners, then the lift's (if any)."""
+    lift = lift_axis.analyse(v)
+    return corner_peaks(v)[3] + (lift.problems if lift is not None else [])
+
+
 def analyse(v: Vehicle) -> EnvelopeReport:
-    """Rows per payload plus peak current/voltage/traction over the envelope corners."""
+    """Rows per payload plus peak current/voltage/traction over the envelope corners, and the lift's lines."""
     rows = [payload_row(v, float(p)) for p in np.linspace(0, v.payload.mass_max_kg, PAYLOAD_STEPS)]
-    current, voltage, traction, problems = corner_peaks(v)
+    current, voltage, traction, broken = corner_peaks(v)
+    lift = lift_axis.analyse(v)
     return EnvelopeReport(
-        rows=rows, peak_current=current, peak_voltage=voltage, peak_traction=traction, problems=problems
+        rows=rows,
+        peak_current=current,
+        peak_voltage=voltage,
+        peak_traction=traction,
+        problems=broken + (lift.problems if lift is not None else []),
+        lift=lift,
     )

@@ -16,9 +16,9 @@ VECTORS_DEFAULT = "vectors.csv"
 
 
 def envelope_check(v: Vehicle, *, allow: bool) -> tuple[Check, list[str]]:
-    """The envelope against the drive's current, voltage and grip limits; `allow` accepts a failure
-    (the check then passes and says that it was accepted)."""
-    problems = envelope.corner_peaks(v)[3]
+    """The envelope against the drive's current, voltage and grip limits and the lift's current and
+    voltage; `allow` accepts a failure (the check then passes and says that it was accepted)."""
+    problems = envelope.problems(v)
     name = "envelope within the drive's limits"
     if not problems:
         return Check(name, True, f"{v.source}: envelope feasible"), problems

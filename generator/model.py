@@ -16,7 +16,7 @@ from typing import Any
 
 from . import stability, units
 from .errors import ModelError
-from .vehicle import SECTION_TYPES, Vehicle
+from .vehicle import OPTIONAL_SECTION_TYPES, SECTION_TYPES, Vehicle
 
 RATIO = units.Kind("a bare number", "", "0.85")
 CHOICE = units.Kind("one of the listed words", "", "'ramp'")
@@ -320,6 +320,65 @@ SCHEMA: dict[str, dict[str, Key]] = {
         ),
     },
 }
+LIFT: dict[str, Key] = {
+    "carriage_mass": K(L.MASS, "carriage_mass_kg", U(0, 5000, "kg"), "mass of the carriage the lift moves, empty"),
+    "payload_max": K(L.MASS, "payload_max_kg", U(0, 10000, "kg", False), "largest load on the carriage"),
+    "counterweight": K(
+        L.MASS,
+        "counterweight_kg",
+        U(0, 10000, "kg", False),
+        "mass hung on a rope over a pulley, moving against the carriage",
+        default=0.0,
+    ),
+    "assist_force": K(
+        L.FORCE,
+        "assist_force_n",
+        U(None, 100000, "N"),
+        "constant upward force on the carriage from a gas spring or the like (downward < 0)",
+        default=0.0,
+    ),
+    "lead": K(
+        L.LENGTH,
+        "lead_m",
+        U(0, 2, "m"),
+        "carriage travel per turn of the gearbox output: the screw lead, or 2 pi x the drum or pulley radius",
+    ),
+    "gear_ratio": K(RATIO, "gear_ratio", U(0, 1000, ""), "motor turns per turn of the screw or drum"),
+    "efficiency": K(RATIO, "efficiency", _eff(), "screw and gearbox efficiency when the motor drives the load"),
+    "backdrive_efficiency": K(
+        RATIO,
+        "backdrive_efficiency",
+        _eff(),
+        "efficiency when the load drives the motor, as when lowering a load (default: efficiency)",
+        default="efficiency",
+    ),
+    "rotor_inertia": K(L.INERTIA, "rotor_inertia_kgm2", U(0, 1, "kg*m^2", False), "motor rotor inertia"),
+    "torque_constant": K(L.TORQUE_CONSTANT, "torque_constant_nm_per_a", U(0, 100, "N*m/A"), "motor torque constant"),
+    "winding_resistance": K(
+        L.RESISTANCE,
+        "winding_resistance_ohm",
+        U(0, 1000, "ohm", False),
+        "motor winding resistance, terminal to terminal",
+    ),
+    "current_limit": K(L.CURRENT, "current_limit_a", U(0, 10000, "A"), "largest motor current the lift's drive allows"),
+    "supply_voltage": K(
+        L.VOLTAGE,
+        "supply_voltage_v",
+        U(0, 2000, "V"),
+        "the lift drive's supply voltage (default: drive.supply_voltage, one bus)",
+        optional=True,
+    ),
+    "coulomb": K(
+        L.FORCE, "coulomb_n", U(0, 100000, "N", False), "Coulomb friction of guides and screw, at the carriage"
+    ),
+    "viscous": K(L.DAMPING, "viscous_ns_per_m", U(0, 1e6, "N*s/m", False), "viscous friction at the carriage"),
+    "deadband": K(L.SPEED, "deadband_mps", U(0, 10, "m/s"), "carriage speed over which Coulomb friction ramps up"),
+    "travel": K(L.LENGTH, "travel_m", U(0, 50, "m"), "stroke of the carriage, bottom to top"),
+    "speed_max": K(L.SPEED, "speed_max_mps", U(0, 10, "m/s"), "largest carriage speed either way"),
+    "accel_max": K(L.ACCEL, "accel_max_mps2", U(0, 50, "m/s^2"), "largest carriage acceleration either way"),
+}
+OPTIONAL_SCHEMA: dict[str, dict[str, Key]] = {"lift": LIFT}
+"""Sections a model may leave out (the Vehicle attribute is then None); their keys when present."""
 del L, U, K
 
 FIELDS: dict[str, tuple[str, str]] = {
@@ -384,7 +443,7 @@ def _check_range(src: str, where: str, spec: Key, value: float | str, *, raw: An
 
 def _read_section(src: str, name: str, table: Any) -> dict[str, Any]:
     """Validate one section's keys and return SI values keyed by schema key (defaults resolved)."""
-    schema = SCHEMA[name]
+    schema = SCHEMA[name] if name in SCHEMA else OPTIONAL_SCHEMA[name]
     if not isinstance(table, dict):
         raise ModelError(src, name, "a [section] table", _describe_raw(table))
     for key in table:
@@ -573,11 +632,10 @@ def _deadband_rules(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any])
 def parse_document(doc: dict[str, Any], source: str) -> Vehicle:
     """Validate a parsed TOML document (every key, every cross rule, static stability) and build the
     Vehicle; raises ModelError, one line naming the key."""
+    known = ["name", *SCHEMA, *OPTIONAL_SCHEMA]
     for key in doc:
-        if key != "name" and key not in SCHEMA:
-            raise ModelError(
-                source, key, "a known section or 'name'", "an unknown key" + _suggest(key, ["name", *SCHEMA])
-            )
+        if key not in known:
+            raise ModelError(source, key, "a known section or 'name'", "an unknown key" + _suggest(key, known))
     name = _read_name(source, doc)
     sections: dict[str, dict[str, Any]] = {}
     for section in SCHEMA:
@@ -588,9 +646,30 @@ def parse_document(doc: dict[str, Any], source: str) -> Vehicle:
     built = {
         sec: SECTION_TYPES[sec](**{SCHEMA[sec][key].field: val for key, val in sections[sec].items()}) for sec in SCHEMA
     }
-    vehicle = Vehicle(name=name, source=source, **built)
+    vehicle = Vehicle(name=name, source=source, lift=_optional_section(source, doc, "lift"), **built)
     stability.check(vehicle)
     return vehicle
+
+
+def _optional_section(source: str, doc: dict[str, Any], name: str) -> Any:
+    """The dataclass of an optional section present in the document (its cross rules checked), else None."""
+    if name not in doc:
+        return None
+    values = _read_section(source, name, doc[name])
+    _lift_rules(source, values, doc[name])
+    fields = OPTIONAL_SCHEMA[name]
+    return OPTIONAL_SECTION_TYPES[name](**{fields[key].field: val for key, val in values.items()})
+
+
+def _lift_rules(src: str, s: dict[str, Any], raw: dict[str, Any]) -> None:
+    """The lift's deadband ends below its speed_max (else friction never reaches its Coulomb level)."""
+    if s["deadband"] >= s["speed_max"]:
+        raise ModelError(
+            src,
+            "lift.deadband",
+            f"a speed below lift.speed_max ({s['speed_max']:g} m/s)",
+            _describe_raw(raw["deadband"]),
+        )
 
 
 def load(path: str | Path) -> Vehicle:
@@ -619,7 +698,7 @@ def reference_rows() -> list[str]:
         "| `name` | C identifier `[a-z][a-z0-9_]{0,31}`, no C/C++ keyword | required "
         "| prefix of every generated C symbol | |"
     )
-    for section, keys in SCHEMA.items():
+    for section, keys in (*SCHEMA.items(), *OPTIONAL_SCHEMA.items()):
         for key, spec in keys.items():
             if spec.kind is CHOICE:
                 kind = " or ".join(f"`{c}`" for c in spec.choices)
@@ -629,6 +708,8 @@ def reference_rows() -> list[str]:
                 kind = f"{spec.kind.name.split(' ', 1)[1]} (e.g. {spec.kind.example})"
             shown = f"{spec.default:g}" if isinstance(spec.default, float) else spec.default
             default = "optional" if spec.optional else "required" if spec.default is None else f"= `{shown}`"
+            if section in OPTIONAL_SCHEMA and default == "required":
+                default = f"required in `[{section}]` (an optional section)"
             meaning = spec.meaning.replace("|", "\\|")
             rows.append(f"| `{section}.{key}` | {kind} | {default} | {meaning} | {spec.expect} |")
     return rows

@@ -95,6 +95,31 @@ class FirmwareFormat:
     yaw_accel_lsb_radps2: float | None = None
 
 
+@dataclass(frozen=True, kw_only=True)
+class Lift:
+    """The optional [lift] section: a vertical axis lifting a carriage and its payload (lift.py)."""
+
+    carriage_mass_kg: float
+    payload_max_kg: float
+    counterweight_kg: float
+    assist_force_n: float
+    lead_m: float
+    gear_ratio: float
+    efficiency: float
+    backdrive_efficiency: float
+    rotor_inertia_kgm2: float
+    torque_constant_nm_per_a: float
+    winding_resistance_ohm: float
+    current_limit_a: float
+    supply_voltage_v: float | None  # None: drive.supply_voltage (one bus)
+    coulomb_n: float
+    viscous_ns_per_m: float
+    deadband_mps: float
+    travel_m: float
+    speed_max_mps: float
+    accel_max_mps2: float
+
+
 @dataclass(frozen=True)
 class Vehicle:
     """A validated vehicle model, SI units throughout."""
@@ -109,12 +134,15 @@ class Vehicle:
     envelope: Envelope
     firmware: FirmwareFormat
     source: str = "<model>"
+    lift: Lift | None = None  # the optional vertical lift axis; None: the vehicle has none
 
     def normalised(self) -> dict[str, Any]:
         """The model as plain SI numbers (no source path): what the fingerprint hashes. Optional limits
         that are not set are left out, so a model without them keeps its fingerprint."""
         data = asdict(self)
         data.pop("source")
+        if data["lift"] is None:  # a vehicle without a lift keeps the fingerprint it had before lifts existed
+            data.pop("lift")
         for section, fields in data.items():  # optional keys left unset
             if isinstance(fields, dict):
                 data[section] = {k: x for k, x in fields.items() if x is not None}
@@ -131,3 +159,6 @@ SECTION_TYPES: dict[str, type] = {
     "envelope": Envelope,
     "firmware": FirmwareFormat,
 }
+
+OPTIONAL_SECTION_TYPES: dict[str, type] = {"lift": Lift}
+"""Sections a model may leave out; the Vehicle attribute is then None."""
