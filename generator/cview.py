@@ -5,6 +5,7 @@ Templates only lay out text; no arithmetic happens in them.
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any, assert_never
 
@@ -15,6 +16,7 @@ from .cformat import num, rows, wrap
 from .ops import rounding_half
 from .opview import has_pairs, program_view, rates_view
 from .synthesis import FORMAT_VERSION, Firmware
+from .vehicle import Vehicle
 
 CAUTION = (
     "CAUTION: feed-forward computed from wrong parameters can make a vehicle move unexpectedly.",
@@ -24,6 +26,7 @@ CAUTION = (
 )
 
 CALL_TITLES = {
+    "lift": "Lift feed-forward: the lift motor's current for the planned carriage motion.",
     "feedforward": "Feed-forward: motor currents for the planned motion.",
     "forward": "Forward dynamics: predicted rim accelerations from measured motor currents (uses M^-1).",
 }
@@ -86,22 +89,39 @@ def _lsb_lines(fw: Firmware) -> list[tuple[str, str]]:
     ]
 
 
-def _model_value(fw: Firmware, dotted: str) -> str:
+def _model_value(v: Vehicle, dotted: str) -> str:
     """`section.key = value unit` from the validated model (SI), for table comments."""
     section, key = dotted.split(".")
-    spec = model.SCHEMA[section][key]
-    if getattr(getattr(fw.vehicle, section), spec.field) is None:
+    spec = model.SCHEMA[section][key] if section in model.SCHEMA else model.OPTIONAL_SCHEMA[section][key]
+    if getattr(getattr(v, section), spec.field) is None:
         return f"{dotted} not set (its default applies)"
-    value = model.value(fw.vehicle, dotted)
+    value = model.value(v, dotted)
     unit = spec.kind.si.replace("**", "^")
     text = num(value) if isinstance(value, float) else value
     return f"{dotted} = {text}{' ' + unit if unit else ''}"
 
 
-def _piece_view(fw: Firmware, name: str, prefix: str, k: int) -> dict[str, Any]:
+@dataclass(frozen=True, kw_only=True)
+class TableHome:
+    """What a table's C view reads: the sized tables and errors of one function, the proof of how they
+    are looked up, one step of each table input, and the model (for the comments)."""
+
+    tables: Mapping[str, tb.Table]
+    errors: Mapping[str, tuple[tb.PieceError, ...]]
+    proof: analysis.Proof
+    sources: Mapping[str, Source]
+    vehicle: Vehicle
+
+
+def drive_home(fw: Firmware) -> TableHome:
+    """The drive's tables (both of its functions)."""
+    return TableHome(tables=fw.tables, errors=fw.errors, proof=fw.ff_proof, sources=_sources(fw), vehicle=fw.vehicle)
+
+
+def _piece_view(home: TableHome, name: str, prefix: str, k: int) -> dict[str, Any]:
     """One piece of a table: its array, indexing constants and the comment lines about it."""
-    spec, data, err = fw.tables[name].spec, fw.tables[name].pieces[k], fw.errors[name][k]
-    piece, src = spec.pieces[k], _sources(fw)[spec.source]
+    spec, data, err = home.tables[name].spec, home.tables[name].pieces[k], home.errors[name][k]
+    piece, src = spec.pieces[k], home.sources[spec.source]
     return {
         "array": f"{prefix}_tab_{name}_{k}",
         "count": len(data.entries),
@@ -111,8 +131,8 @@ def _piece_view(fw: Firmware, name: str, prefix: str, k: int) -> dict[str, Any]:
         "shift": data.shift,
         "mask": f"0x{data.mask:X}",
         "half": rounding_half(data.shift),
-        "wide": fw.ff_proof.lookup_wide[name][k] and not fw.ff_proof.lookup_split[name][k],
-        "split": fw.ff_proof.lookup_split[name][k],
+        "wide": home.proof.lookup_wide[name][k] and not home.proof.lookup_split[name][k],
+        "split": home.proof.lookup_split[name][k],
         "fold": _fold_view(data),
         "kind": data.kind.value,
         "value": int(data.entries[0]),
@@ -150,11 +170,11 @@ def _fold_view(data: tb.PieceData) -> dict[str, int] | None:
     return None if folded is None else {"scale": 1 << data.shift}
 
 
-def table_view(fw: Firmware, name: str, prefix: str) -> dict[str, Any]:
+def table_view(home: TableHome, name: str, prefix: str) -> dict[str, Any]:
     """Everything the templates print about one table: arrays, lookup constants, comments."""
-    table = fw.tables[name]
+    table = home.tables[name]
     spec = table.spec
-    src = _sources(fw)[spec.source]
+    src = home.sources[spec.source]
     return {
         "name": name,
         "ctype": f"{'u' if _unsigned(table) else ''}int{spec.bits}_t",
@@ -168,8 +188,8 @@ def table_view(fw: Firmware, name: str, prefix: str) -> dict[str, Any]:
         "helper": f"{prefix}_lookup_{name}",
         "input": spec.source,
         "input_lsb": f"{num(src.lsb)} {src.unit}",
-        "pieces": [_piece_view(fw, name, prefix, k) for k in range(len(table.pieces))],
-        "models": wrap([_model_value(fw, key) for key in spec.model_keys]),
+        "pieces": [_piece_view(home, name, prefix, k) for k in range(len(table.pieces))],
+        "models": wrap([_model_value(home.vehicle, key) for key in spec.model_keys]),
         "bytes": table.bytes,
         "lo": spec.pieces[0].x0,
         "hi": spec.pieces[-1].x1,
@@ -249,6 +269,10 @@ def conversions(fw: Firmware) -> list[dict[str, str]]:
             m.name,
             {"name": m.name, "unit": m.unit, "param": PARAMETER[m.unit], "step": repr(step), "key": _key_text(fw, m)},
         )
+    if fw.lift is not None:  # the lift's quantities by their own names (lift_speed), their own steps
+        for m in (*interface.LIFT_IN.members, *interface.LIFT_OUT.members):
+            name, one = f"lift_{m.name}", repr(interface.lsb(fw.vehicle, m))
+            seen[name] = {"name": name, "unit": m.unit, "param": PARAMETER[m.unit], "step": one, "key": m.lsb_key}
     return list(seen.values())
 
 
@@ -262,12 +286,50 @@ def neighbour_lines(fw: Firmware, steps: dict[str, Any] | None = None) -> list[s
     return [f"{n + ':':<{width + 1}} {num(s.amps)} A (from {s.at} to {s.at + 1} steps)" for n, s in steps.items()]
 
 
+def lift_home(fw: Firmware) -> TableHome | None:
+    """The lift function's tables, indexed by lift steps (none without a lift)."""
+    lf, lt = fw.lift, fw.vehicle.lift
+    if lf is None or lt is None:
+        return None
+    sources = {"payload": Source(lt.mass_lsb_kg, "kg"), "speed": Source(lt.speed_lsb_mps, "m/s")}
+    return TableHome(tables=lf.tables, errors=lf.errors, proof=lf.proof, sources=sources, vehicle=fw.vehicle)
+
+
+def lift_view(fw: Firmware, tables: dict[str, dict[str, Any]], prefix: str) -> dict[str, Any] | None:
+    """The lift function: its body, bound, envelope edges and steps (none without a lift)."""
+    lf, lt = fw.lift, fw.vehicle.lift
+    if lf is None or lt is None:
+        return None
+    st = interface.LIFT
+    limits = []
+    for m in (*st.inputs.members, *st.outputs.members):
+        steps = getattr(lf.limits, m.limit)
+        unit, convert = interface.shown(m)
+        limits.append(
+            (f"LIFT_{m.name.upper()}_MAX", steps, f"{num(convert(steps * interface.lsb(fw.vehicle, m)))} {unit}")
+        )
+    return {
+        "function": program_view(lf.program, lf.proof, tables, prefix),
+        "bound": f"{num(lf.bound_a)} A (budget {num(lt.current_budget_a)} A)",
+        "acc_step": f"{num(lf.amps_per_acc)} A (lift current step / 2^{lf.guard_bits})",
+        "limits": limits,
+        "lsbs": [
+            (f"lift {m.name}", f"{num(interface.lsb(fw.vehicle, m))} {m.unit}")
+            for m in (*st.inputs.members, *st.outputs.members)
+        ],
+        "bytes": lf.total_bytes,
+    }
+
+
 def context(fw: Firmware, *, neighbours: dict[str, Any] | None = None) -> dict[str, Any]:
     """The whole template context for one vehicle (`neighbours`: steps.neighbour_steps, if known)."""
     v = fw.vehicle
     prefix = v.name
     f = v.firmware
-    tables = {n: table_view(fw, n, prefix) for n in fw.tables}
+    home = drive_home(fw)
+    tables = {n: table_view(home, n, prefix) for n in fw.tables}
+    lifted = lift_home(fw)
+    lift_tables = {n: table_view(lifted, n, prefix) for n in lifted.tables} if lifted is not None else {}
     return {
         "prefix": prefix,
         "PREFIX": prefix.upper(),
@@ -277,12 +339,14 @@ def context(fw: Firmware, *, neighbours: dict[str, Any] | None = None) -> dict[s
         "caution": CAUTION,
         "header": f"{prefix}_ff.h",
         "guard": f"{prefix.upper()}_FF_H",
-        "tables": list(tables.values()),
+        "tables": [*tables.values(), *lift_tables.values()],
+        "lift": lift_view(fw, lift_tables, prefix),
         "feedforward": program_view(fw.design.feedforward, fw.ff_proof, tables, prefix),
         **rates_view(fw, tables, prefix),
         "forward": program_view(fw.design.forward, fw.fwd_proof, tables, prefix),
         "pair_scale": f"{prefix}_pair_scale" if has_pairs(fw) else "",
-        "calls": [_call_view(call, prefix) for call in interface.calls(v)],
+        "calls": [_call_view(call, prefix) for call in interface.calls(v)]
+        + ([_call_view(interface.LIFT, prefix)] if fw.lift is not None else []),
         "limits": _limit_lines(fw),
         "lsbs": _lsb_lines(fw),
         "ff_bound": f"{num(fw.ff_bound_a)} A (budget {num(f.current_budget_a)} A)",

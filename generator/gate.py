@@ -39,7 +39,12 @@ def budget_check(fw: Firmware) -> Check:
     if form is not None:
         ok = ok and form.bound_mps2 <= fw.fwd_budget_mps2
         detail += f", at the look-ahead point {form.bound_mps2:.4g} m/s^2"
-    return Check("error budget", ok, f"{detail}, budget {fw.fwd_budget_mps2:.4g} m/s^2 (firmware.accel_budget)")
+    detail += f", budget {fw.fwd_budget_mps2:.4g} m/s^2 (firmware.accel_budget)"
+    lt = fw.vehicle.lift
+    if fw.lift is not None and lt is not None:
+        ok = ok and fw.lift.bound_a <= lt.current_budget_a
+        detail += f"; lift {fw.lift.bound_a * 1000:.3f} mA, budget {lt.current_budget_a * 1000:.3f} mA"
+    return Check("error budget", ok, detail)
 
 
 def step_check(fw: Firmware, steps: dict[str, NeighbourStep]) -> Check:

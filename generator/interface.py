@@ -461,3 +461,63 @@ def describe_point(st: Struct, si: dict[str, float], wheel: str, *, digits: int)
             text = "/".join(f"{x:+.{digits}g}" if m.signed else f"{x:.{digits}g}" for x in values)
         parts.append(f"{m.name} {text} {unit}")
     return f"{wheel} wheel at " + ", ".join(parts)
+
+
+LIFT_SPEED = Member(
+    name="speed",
+    count=1,
+    what="lift carriage speed, up > 0",
+    unit="m/s",
+    lsb_key="lift.speed_lsb",
+    limit="speed",
+    edge_key="lift.speed_max",
+    si=("speed_mps",),
+    steps="lift speed steps",
+    quantity=units.SPEED,
+    typed_unit="m/s",
+    labels=("Lift carriage speed, up > 0",),
+)
+LIFT_ACCEL = Member(
+    name="accel",
+    count=1,
+    what="lift carriage acceleration, up > 0",
+    unit="m/s^2",
+    lsb_key="lift.accel_lsb",
+    limit="accel",
+    edge_key="lift.accel_max",
+    si=("accel_mps2",),
+    steps="lift accel steps",
+    quantity=units.ACCEL,
+    typed_unit="m/s**2",
+    labels=("Lift carriage acceleration, up > 0",),
+)
+LIFT_PAYLOAD = Member(
+    name="payload",
+    count=1,
+    what="load on the lift carriage",
+    unit="kg",
+    lsb_key="lift.mass_lsb",
+    limit="payload",
+    edge_key="lift.payload_max",
+    signed=False,
+    si=("payload_kg",),
+    steps="lift mass steps",
+    quantity=units.MASS,
+    typed_unit="kg",
+    labels=("Load on the lift carriage",),
+)
+LIFT_CURRENT = Member(
+    name="current",
+    count=1,
+    what="feed-forward lift motor current",
+    unit="A",
+    lsb_key="lift.current_lsb",
+    limit="current",
+    edge_key="lift.current_limit",
+    si=("current_a",),
+    steps="lift current steps",
+)
+LIFT_IN = Struct(tag="lift_in", members=(LIFT_SPEED, LIFT_ACCEL, LIFT_PAYLOAD))
+LIFT_OUT = Struct(tag="lift_out", members=(LIFT_CURRENT,), clamped=True)
+LIFT = Call(name="lift", inputs=LIFT_IN, outputs=LIFT_OUT, clamp_tag="LIFT_CLAMPED")
+"""The lift's feed-forward, `<prefix>_lift()`, when the model has a [lift] section (liftfirmware.py)."""

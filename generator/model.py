@@ -322,7 +322,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
 }
 LIFT: dict[str, Key] = {
     "carriage_mass": K(L.MASS, "carriage_mass_kg", U(0, 5000, "kg"), "mass of the carriage the lift moves, empty"),
-    "payload_max": K(L.MASS, "payload_max_kg", U(0, 10000, "kg", False), "largest load on the carriage"),
+    "payload_max": K(L.MASS, "payload_max_kg", U(0, 10000, "kg"), "largest load on the carriage"),
     "counterweight": K(
         L.MASS,
         "counterweight_kg",
@@ -376,6 +376,16 @@ LIFT: dict[str, Key] = {
     "travel": K(L.LENGTH, "travel_m", U(0, 50, "m"), "stroke of the carriage, bottom to top"),
     "speed_max": K(L.SPEED, "speed_max_mps", U(0, 10, "m/s"), "largest carriage speed either way"),
     "accel_max": K(L.ACCEL, "accel_max_mps2", U(0, 50, "m/s^2"), "largest carriage acceleration either way"),
+    "speed_lsb": K(L.SPEED, "speed_lsb_mps", U(0, 10, "m/s"), "carriage speed of one firmware step of the lift"),
+    "accel_lsb": K(L.ACCEL, "accel_lsb_mps2", U(0, 50, "m/s^2"), "carriage acceleration of one firmware step"),
+    "mass_lsb": K(L.MASS, "mass_lsb_kg", U(0, 10000, "kg"), "lift payload of one firmware step"),
+    "current_lsb": K(L.CURRENT, "current_lsb_a", U(0, 10000, "A"), "lift motor current of one output step"),
+    "current_budget": K(
+        L.CURRENT,
+        "current_budget_a",
+        U(0, 10000, "A"),
+        "largest allowed |firmware - float model| lift current (the lift function's own budget)",
+    ),
 }
 OPTIONAL_SCHEMA: dict[str, dict[str, Key]] = {"lift": LIFT}
 """Sections a model may leave out (the Vehicle attribute is then None); their keys when present."""
@@ -387,9 +397,16 @@ FIELDS: dict[str, tuple[str, str]] = {
 """Model key ("body.mass") -> (Vehicle attribute, field): the one map from file keys to dataclass fields."""
 
 
+OPTIONAL_FIELDS: dict[str, tuple[str, str]] = {
+    f"{sec}.{key}": (sec, spec.field) for sec, keys in OPTIONAL_SCHEMA.items() for key, spec in keys.items()
+}
+"""The same map for the keys of optional sections ("lift.lead")."""
+
+
 def value(v: Vehicle, dotted: str) -> float | str:
-    """The SI value (or choice word) of a model key in a validated vehicle (an optional key must be set)."""
-    section, field = FIELDS[dotted]
+    """The SI value (or choice word) of a model key in a validated vehicle (an optional key, or a key of
+    an optional section, must be set)."""
+    section, field = FIELDS[dotted] if dotted in FIELDS else OPTIONAL_FIELDS[dotted]
     result = getattr(getattr(v, section), field)
     assert isinstance(result, (float, str)), f"{dotted} is not set"
     return result
@@ -662,7 +679,22 @@ def _optional_section(source: str, doc: dict[str, Any], name: str) -> Any:
 
 
 def _lift_rules(src: str, s: dict[str, Any], raw: dict[str, Any]) -> None:
-    """The lift's deadband ends below its speed_max (else friction never reaches its Coulomb level)."""
+    """Each span the lift function counts in steps lies between 1 and 2^30 of them (the deadband at least
+    one step), and the deadband ends below speed_max (else friction never reaches its Coulomb level)."""
+    for key, span, what in (
+        ("speed_lsb", s["speed_max"], "lift.speed_max"),
+        ("accel_lsb", s["accel_max"], "lift.accel_max"),
+        ("mass_lsb", s["payload_max"], "lift.payload_max"),
+        ("speed_lsb", s["deadband"], "lift.deadband"),
+    ):
+        count = span / s[key]
+        if count > MAX_STEPS or count < 1:
+            raise ModelError(
+                src,
+                f"lift.{key}",
+                f"a step that puts {what} between 1 and 2^30 steps",
+                f"{_describe_raw(raw[key])} ({count:.3g} steps)",
+            )
     if s["deadband"] >= s["speed_max"]:
         raise ModelError(
             src,

@@ -111,11 +111,12 @@ class Backdrive:
 
 @dataclass(frozen=True)
 class Store:
-    """out.field[index] = round(src / 2^shift); `dst` is that output's column name (`current_right`)."""
+    """out.field[index] = round(src / 2^shift) (out.field for a scalar, index None); `dst` is that output's
+    column name (`current_right`, `current`)."""
 
     dst: str
     field: str
-    index: int
+    index: int | None
     src: str
     shift: int
 

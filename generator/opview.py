@@ -153,7 +153,7 @@ def _op_view(op: Op, proof: Proof, clamp_names: list[str], prefix: str) -> dict[
         case Store():
             return {
                 "kind": "store",
-                "dst": f"{op.field}[{op.index}]",
+                "dst": op.field if op.index is None else f"{op.field}[{op.index}]",
                 "src": op.src,
                 "shift": op.shift,
                 "half": rounding_half(op.shift),
@@ -219,7 +219,7 @@ def _fused_product(
     other = op.b if op.a == member else op.a
     later = {o.dst for o in ops[start:]}
     plain = op.shift > 0 and not proof.wide[op.dst] and not proof.split[op.dst]
-    exact = any(p["kind"] == "constant" and p["value"] % (1 << op.shift) == 0 for p in table["pieces"])
+    exact = plain and any(p["kind"] == "constant" and p["value"] % (1 << op.shift) == 0 for p in table["pieces"])
     return (readers[0], op) if other not in later and plain and exact else None
 
 

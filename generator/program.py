@@ -143,10 +143,9 @@ class _Builder:
         self._add(Backdrive(dst=dst, src=src, speed=speed, k=k, shift=kbits, k_real=k_real))
         return dst
 
-    def store(self, fieldname: str, index: int, src: str, shift: int) -> None:
-        self._add(
-            Store(dst=f"{fieldname}_{interface.SIDES[index]}", field=fieldname, index=index, src=src, shift=shift)
-        )
+    def store(self, fieldname: str, index: int | None, src: str, shift: int) -> None:
+        dst = fieldname if index is None else f"{fieldname}_{interface.SIDES[index]}"
+        self._add(Store(dst=dst, field=fieldname, index=index, src=src, shift=shift))
 
 
 def _k_fits(src: fx.Interval, k_real: float, kbits: int) -> bool:

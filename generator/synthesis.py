@@ -10,7 +10,7 @@ from typing import Any
 
 import numpy as np
 
-from . import __version__, analysis, dynamics, interface, program, sizing, stability
+from . import __version__, analysis, dynamics, interface, liftfirmware, program, sizing, stability
 from . import tables as tb
 from .errors import CheckFailed
 from .ops import op_table, wide_conversion
@@ -39,6 +39,7 @@ class Firmware:
     fingerprint: int
     rounded_best_a: float | None = None  # exact designs: the best bound with rounded operands, A
     over_cap: bool = False  # firmware.table_bytes_max cannot hold what the budget needs: fewest bytes instead
+    lift: liftfirmware.LiftFirmware | None = None  # the lift's own function, when the model has a lift
 
     def products64(self) -> list[str]:
         """Products of either function that need a 64-bit multiply (a library call on Cortex-M0+); a
@@ -87,7 +88,13 @@ def synthesise(v: Vehicle) -> Firmware:
     Products too wide for 32 bits first round their operands (no 64-bit multiply), on tables that store
     no bits their uses round away (program._coarser); when that misses the budget, on tables at full
     precision; only when that design cannot meet the budget either do the products keep every bit
-    (exact two-part products, else 64 bits)."""
+    (exact two-part products, else 64 bits). A vehicle with a lift gets the lift's function too, sized
+    to its own budget (liftfirmware.py)."""
+    return dataclasses.replace(_drive(v), lift=liftfirmware.synthesise(v))
+
+
+def _drive(v: Vehicle) -> Firmware:
+    """The drive's two functions (synthesise)."""
     stability.check(v)
     tries = _designs(v)
     for des in tries[:-1]:

@@ -118,6 +118,11 @@ class Lift:
     travel_m: float
     speed_max_mps: float
     accel_max_mps2: float
+    speed_lsb_mps: float  # the lift function's firmware steps and its error budget
+    accel_lsb_mps2: float
+    mass_lsb_kg: float
+    current_lsb_a: float
+    current_budget_a: float
 
 
 @dataclass(frozen=True)

@@ -14,7 +14,7 @@ import pytest
 from kinetab.generator import hostc, interface
 
 HARNESS = Path(__file__).parent / "c" / "harness.c.j2"
-MODES = {"feedforward": "ff", "forward": "fwd"}
+MODES = {"feedforward": "ff", "forward": "fwd", "lift": "lift"}
 needs_gcc = pytest.mark.skipif(hostc.compiler() is None, reason="a C compiler is required (apt install gcc)")
 
 

@@ -98,7 +98,7 @@ def test_a_product_stays_outside_the_block_when_no_piece_makes_it_exact():
     left where it was (one product after the block); nor is it moved when the looked-up value has a
     second reader."""
     fw = demo_firmware()
-    tables = {name: cview.table_view(fw, name, "larkspur") for name in fw.tables}
+    tables = {name: cview.table_view(cview.drive_home(fw), name, "larkspur") for name in fw.tables}
     prog, proof = fw.design.feedforward, fw.ff_proof
     ops = tuple(prog.ops)
     start = next(k for k, op in enumerate(ops) if op.dst == "t_fric_r")

@@ -38,6 +38,11 @@ WORKED = {
     "travel": "1.5 m",
     "speed_max": "0.5 m/s",
     "accel_max": "1 m/s^2",
+    "speed_lsb": "0.5 mm/s",
+    "accel_lsb": "2 mm/s^2",
+    "mass_lsb": "0.1 kg",
+    "current_lsb": "10 mA",
+    "current_budget": "40 mA",
 }
 
 
@@ -50,10 +55,10 @@ def with_lift(section: dict) -> model.Vehicle:
 def random_lift(rng: np.random.Generator) -> dict:
     """An invented lift, uniform within plausible ranges for screw and belt lifts on mobile robots."""
     u = lambda lo, hi: float(rng.uniform(lo, hi))  # noqa: E731
-    speed = u(0.05, 0.8)
+    speed, accel, payload = u(0.05, 0.8), u(0.1, 3), u(5, 300)
     return {
         "carriage_mass": f"{u(5, 150)} kg",
-        "payload_max": f"{u(5, 300)} kg",
+        "payload_max": f"{payload} kg",
         "counterweight": f"{u(0, 80)} kg",
         "assist_force": f"{u(-50, 400)} N",
         "lead": f"{u(0.004, 0.5)} m",
@@ -66,10 +71,15 @@ def random_lift(rng: np.random.Generator) -> dict:
         "current_limit": f"{u(5, 60)} A",
         "coulomb": f"{u(0, 80)} N",
         "viscous": f"{u(0, 300)} N*s/m",
-        "deadband": f"{u(0.001, 0.2) * speed} m/s",
+        "deadband": f"{u(0.01, 0.2) * speed} m/s",
         "travel": f"{u(0.1, 3)} m",
         "speed_max": f"{speed} m/s",
-        "accel_max": f"{u(0.1, 3)} m/s^2",
+        "accel_max": f"{accel} m/s^2",
+        "speed_lsb": f"{speed / 2 ** u(8, 13)} m/s",
+        "accel_lsb": f"{accel / 2 ** u(6, 11)} m/s^2",
+        "mass_lsb": f"{payload / 2 ** u(5, 10)} kg",
+        "current_lsb": f"{u(0.002, 0.02)} A",
+        "current_budget": f"{u(0.03, 0.1)} A",
     }
 
 
@@ -245,7 +255,9 @@ def test_cli_envelope_predict_and_build_with_a_lift(tmp_path, capsys):
     code, _, err = run_cli(["predict", str(path), "--lift-payload", "61"], capsys)
     assert code != 0 and "--lift-payload" in err and "Traceback" not in err
     code, _, err = run_cli(["build", str(path), "-o", str(tmp_path / "fw")], capsys)
-    assert code == 0 and "no lift feed-forward yet" in err
+    assert code == 0, err
+    header = (tmp_path / "fw" / "larkspur_ff.h").read_text()
+    assert "void larkspur_lift(const larkspur_lift_in_t *in, larkspur_lift_out_t *out);" in header
 
 
 def test_cli_refuses_lift_options_without_a_lift_and_an_infeasible_lift(tmp_path, capsys):
