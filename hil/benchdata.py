@@ -151,14 +151,20 @@ def accelerations(v: Vehicle, log: BenchLog) -> tuple[np.ndarray, str]:
     if err < TIGHT_TRACKING * v.envelope.speed_max_mps:
         acc = np.column_stack([asked.accel_right, asked.accel_left])
         return acc, f"setpoint accelerations (tracking was tight: RMS speed error {err * 1000:.2f} mm/s)"
-    from scipy.signal import savgol_filter  # here: scipy.signal takes ~0.5 s to load
-
-    window, dt = _window(log)
-    acc = savgol_filter(log.speed, window, 2, deriv=1, delta=dt, axis=0)
+    acc = derivative(log)
+    window, _ = _window(log)
     return acc, (
         f"Savitzky-Golay derivative of the measured speeds ({window} samples, quadratic; "
         f"RMS speed error {err * 1000:.2f} mm/s)"
     )
+
+
+def derivative(log: BenchLog) -> np.ndarray:
+    """Rim accelerations (n, 2) as the Savitzky-Golay derivative of the measured speeds (quadratic, 0.1 s)."""
+    from scipy.signal import savgol_filter  # here: scipy.signal takes ~0.5 s to load
+
+    window, dt = _window(log)
+    return np.asarray(savgol_filter(log.speed, window, 2, deriv=1, delta=dt, axis=0))
 
 
 def _window(log: BenchLog) -> tuple[int, float]:

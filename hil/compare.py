@@ -62,17 +62,65 @@ def likely_terms(residual: np.ndarray, regs: dict[str, np.ndarray]) -> list[tupl
     return sorted(out, key=lambda t: -abs(t[1]))
 
 
+SPEED_SAMPLES = 9
+"""Speeds across each row's speed uncertainty at which the model is evaluated (plus the deadband and
+blend edges inside it, where the model steps or bends)."""
+
+
+@dataclass(frozen=True)
+class Band:
+    """The model's current over the measured motion's uncertainty (n, 2), A, and that uncertainty."""
+
+    low: np.ndarray
+    high: np.ndarray
+    speed_margin_mps: np.ndarray  # per wheel: the speed uncertainty (twice the RMS of raw less smoothed)
+
+
+def band(v: Vehicle, log: BenchLog, rig: str) -> Band:
+    """The lowest and highest model current per row and wheel over the motion the log allows: speeds within
+    twice the RMS scatter of the measured speeds about their smoothed curve (encoder quantisation), and
+    accelerations anywhere between the setpoint's and the derivative of the measured speeds. The current
+    is monotone in the accelerations (the mass matrix is positive, the efficiency factor positive), so
+    their ends suffice; in speed the model bends and steps (Stribeck, deadband, blend), so it is sampled."""
+    smooth = benchdata.smoothed_speed(log)
+    margin = 2 * np.sqrt(np.mean((log.speed - smooth)[log.valid] ** 2, axis=0)) if log.valid.any() else np.zeros(2)
+    sp_acc = np.column_stack([log.setpoint["accel_right"], log.setpoint["accel_left"]])
+    measured_acc = benchdata.derivative(log)
+    acc_lo, acc_hi = np.minimum(sp_acc, measured_acc), np.maximum(sp_acc, measured_acc)
+    low = np.full(smooth.shape, np.inf)
+    high = np.full(smooth.shape, -np.inf)
+    for offset in _speed_offsets(v, smooth, margin):
+        speed = smooth + offset
+        for ar, al in ((acc_lo, acc_lo), (acc_lo, acc_hi), (acc_hi, acc_lo), (acc_hi, acc_hi)):
+            acc = np.column_stack([ar[:, 0], al[:, 1]])
+            cur = benchdata.predicted_current(v, benchdata.operating_point(log, speed=speed, accel=acc), rig)
+            low, high = np.minimum(low, cur), np.maximum(high, cur)
+    return Band(low=low, high=high, speed_margin_mps=margin)
+
+
+def _speed_offsets(v: Vehicle, smooth: np.ndarray, margin: np.ndarray) -> list[np.ndarray]:
+    """Offsets (n, 2) from the smoothed speeds: evenly across +-margin, and onto each side of every speed
+    where the model steps or bends (+-deadband, +-blend width) that lies within the margin."""
+    out = [np.broadcast_to(f * margin, smooth.shape) for f in np.linspace(-1, 1, SPEED_SAMPLES)]
+    tiny = 1e-9
+    for edge in (v.friction.deadband_mps, dynamics.blend_width(v)):
+        for target in (edge - tiny, edge + tiny, -edge - tiny, -edge + tiny):
+            offset = target - smooth
+            out.append(np.where(np.abs(offset) <= margin, offset, 0.0))
+    return out
+
+
 def compare(v: Vehicle, log: BenchLog, *, tolerance_a: float | None = None) -> dict[str, Any]:
     """The comparison document (SI units, A): see README for every field."""
     rig = log.rig
     accel, how = benchdata.accelerations(v, log)
-    tight = how.startswith("setpoint")
     sp = np.column_stack([log.setpoint["speed_right"], log.setpoint["speed_left"]])
     sp_acc = np.column_stack([log.setpoint["accel_right"], log.setpoint["accel_left"]])
     at_setpoint = benchdata.predicted_current(v, benchdata.operating_point(log, speed=sp, accel=sp_acc), rig)
     op = benchdata.operating_point(log, speed=benchdata.smoothed_speed(log), accel=accel)
     at_measured = benchdata.predicted_current(v, op, rig)
-    primary = at_setpoint if tight else at_measured  # loose tracking: the setpoints are not what happened
+    rng = band(v, log, rig)
+    primary = np.clip(log.current, rng.low, rng.high)  # the model current nearest the measured one
     ok = log.valid
     residual = (log.current - primary)[ok]
     noise = benchdata.noise_floor(log)
@@ -85,7 +133,8 @@ def compare(v: Vehicle, log: BenchLog, *, tolerance_a: float | None = None) -> d
         "rig": rig,
         "rows": int(ok.sum()),
         "accelerations": how,
-        "predicted_at": "the logged setpoints" if tight else "the measured motion",
+        "predicted_at": "the measured motion within its uncertainty",
+        "speed_margin": {s: float(rng.speed_margin_mps[k]) for k, s in enumerate(interface.SIDES)},
         "noise_floor_a": noise,
         "tolerance_a": tol,
         "tolerance_rule": "given by --tolerance"
@@ -124,7 +173,12 @@ def text(doc: dict[str, Any]) -> str:
         lines.append(row(phase, d))
     lines.append(row("at setpoints", doc["at_setpoint"]))
     lines.append(row("at measured", doc["at_measured"]))
-    lines.append(f"measured motion: smoothed measured speeds with {doc['accelerations']}")
+    margin = max(doc["speed_margin"].values()) * 1000
+    lines.append(
+        f"model range: speeds within +-{margin:.2f} mm/s of the smoothed measured speeds, accelerations between "
+        "the setpoint's and the measured; the residual is the distance from it"
+    )
+    lines.append(f"at measured: smoothed measured speeds with {doc['accelerations']}")
     lines.append(
         f"noise floor {doc['noise_floor_a'] * 1000:.1f} mA; tolerance {doc['tolerance_a'] * 1000:.1f} mA "
         f"({doc['tolerance_rule']})"
