@@ -7,7 +7,6 @@ from __future__ import annotations
 
 import dataclasses
 
-import numpy as np
 import pytest
 from kinetab.hil import campaign, compare
 
