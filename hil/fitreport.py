@@ -175,6 +175,7 @@ def _document(
         "rms_force_n": {"before": result.rms_before_n, "after": result.rms_after_n},
         "data": result.how,
         "model_changes": changes,
+        "kept_breakaway_n": identify.kept_breakaway(result),
         "compare_rms_a": {"before": before, "after": after},
     }
 
@@ -265,6 +266,8 @@ def _note(e: dict[str, Any], doc: dict[str, Any]) -> str:
     )
     if e["imprecise"] is not None:
         note = f"not written: known only to +-{100 * e['imprecise']:.2g} % (1 sigma), over {REL_PERCENT} %"
+    elif e["parameter"] == "friction.stribeck_speed" and not e["written"]:
+        note = "not written: the decay of the breakaway excess, which these logs do not give"
     if e["on_bound"]:
         bound = f"ON ITS BOUND ({e['on_bound']}): not excited, or the model lacks a term"
         note = bound if e["written"] else f"{bound}; {note}"
@@ -303,6 +306,10 @@ def _tables(doc: dict[str, Any]) -> str:
             f"  {log}: " + ", ".join(f"{p} {b * 1000:.1f} -> {after[p] * 1000:.1f}" for p, b in phases.items())
         )
     lines += _legend(doc)
+    kept = doc["kept_breakaway_n"]
+    if kept is not None:
+        how = "raised to the new Coulomb force" if "friction.breakaway" in doc["model_changes"] else "kept"
+        lines.append(f"friction.breakaway {how}: {_fmt(kept)} N (its excess over Coulomb is not known from these logs)")
     if "drive.rotor_inertia" in doc["model_changes"]:
         lines.append("reflected_inertia is written as drive.rotor_inertia (wheels.inertia kept: the split is not seen)")
     if doc["written"]:

@@ -56,6 +56,7 @@ class Fit:
     the fitted coordinates (and derived model keys), what was held and why."""
 
     vehicle: Vehicle
+    original: Vehicle  # the model as given
     estimates: dict[str, Estimate]
     held: list[Held]
     condition: float
@@ -182,6 +183,7 @@ def fit(v: Vehicle, logs: list[BenchLog]) -> Fit:
     js_full = fm.jacobian(x) * scale
     return Fit(
         vehicle=written,
+        original=v,
         estimates=estimates,
         held=held,
         condition=float(sv[0] / sv[-1]) if sv[-1] > 0 else float("inf"),
@@ -250,11 +252,25 @@ def _derived_imprecise(imprecise: dict[str, float], estimates: dict[str, Estimat
 
 def written_names(f: Fit) -> set[str]:
     """The fit coordinates whose estimates the model file gets: fitted, precise enough, and (the excess of
-    breakaway over Coulomb) with the coordinate they are written through (written_coordinates)."""
+    breakaway over Coulomb) with the coordinate they are written through (written_coordinates); the
+    Stribeck speed only with the excess whose decay it is (fitted against a held excess, it absorbs
+    that guess's error: a trial found it 3 standard errors off its truth)."""
     out = {name for name in f.free if name not in f.imprecise}
     if "friction.coulomb" not in out:
         out.discard("friction.breakaway_excess")
+    if "friction.breakaway_excess" not in out:
+        out.discard("friction.stribeck_speed")
     return out
+
+
+def kept_breakaway(f: Fit) -> float | None:
+    """Where Coulomb is written but not the breakaway excess: the model's breakaway force stays (the logs
+    did not tell it), raised to the new Coulomb force if that is higher (breakaway >= coulomb), N; None
+    where breakaway is written from its estimate or not at all."""
+    written = written_names(f)
+    if "friction.coulomb" not in written or "friction.breakaway_excess" in written:
+        return None
+    return max(f.original.friction.breakaway_n, f.vehicle.friction.coulomb_n)
 
 
 def _rms(residual: np.ndarray, weight: np.ndarray) -> float:
@@ -412,4 +428,9 @@ def model_changes(f: Fit) -> dict[str, float]:
     keys = [k for name in f.free if name in written for k in WRITTEN[name]]
     if "friction.coulomb" not in written:
         keys = [k for k in keys if k != "friction.breakaway"]
+    kept = kept_breakaway(f)
+    if kept is not None:
+        value["friction.breakaway"] = kept
+        if kept == f.original.friction.breakaway_n:  # unchanged: not a change to write
+            keys = [k for k in keys if k != "friction.breakaway"]
     return {k: float(value[k]) for k in dict.fromkeys(keys)}

@@ -343,3 +343,33 @@ def test_two_sigma_intervals_cover_the_truth_in_ninety_percent_of_twenty_campaig
             e = result.estimates[name]
             covered[name] += abs(e.estimate - x_true[fp.INDEX[name]]) <= 2 * e.se
     assert all(n >= 17 for n in covered.values()), str(covered)
+
+
+def test_a_wheel_sticking_at_the_deadband_edge_is_left_out_though_its_filtered_speed_is_outside():
+    """Measured speeds that cross the deadband's edge between samples (a wheel sticking and slipping) while
+    the filtered speed stays outside: those rows are doubtful for the fit (regressor.kinked)."""
+    v, _ = random_vehicle(5)
+    edge = v.friction.deadband_mps
+    filtered = np.full(400, 1.5 * edge)
+    raw = filtered + np.where(np.arange(400) % 7 == 0, -1.2 * edge, 0.2 * edge)  # dips inside every 7th sample
+    assert not regressor.kinked(v, filtered, 10).any()
+    assert regressor.kinked(v, filtered, 10, raw=raw)[20:380].all()
+
+
+def test_breakaway_is_kept_and_stribeck_not_written_when_the_excess_is_not_known():
+    """Coulomb written, the excess held: the file keeps the model's breakaway (raised to the new Coulomb
+    if that is higher) and does not get the Stribeck speed, the decay of the unknown excess."""
+    from types import SimpleNamespace
+
+    v, _ = random_vehicle(6)
+    free = ("body.mass", "friction.coulomb", "friction.stribeck_speed")
+    for coulomb in (0.8 * v.friction.coulomb_n, 1.01 * v.friction.breakaway_n + 1.0):
+        fitted = dataclasses.replace(v, friction=dataclasses.replace(v.friction, coulomb_n=coulomb, breakaway_n=99.0))
+        f = SimpleNamespace(free=free, imprecise={}, vehicle=fitted, original=v)
+        assert identify.written_names(f) == {"body.mass", "friction.coulomb"}
+        changes = identify.model_changes(f)
+        assert "friction.stribeck_speed" not in changes
+        if coulomb > v.friction.breakaway_n:
+            assert changes["friction.breakaway"] == coulomb
+        else:
+            assert "friction.breakaway" not in changes
