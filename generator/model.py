@@ -521,6 +521,22 @@ def _cross_checks(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any]) -
     _firmware_steps(src, s, raw)
     _deadband_rules(src, s, raw)
     _blend_rule(src, s, raw)
+    fw, drive = s["firmware"], s["drive"]
+    _budget_below_limit(
+        src,
+        "firmware.current_budget",
+        budget=fw["current_budget"],
+        limit_key="drive.current_limit",
+        limit=drive["current_limit"],
+        raw=raw["firmware"]["current_budget"],
+    )
+
+
+def _budget_below_limit(src: str, key: str, *, budget: float, limit_key: str, limit: float, raw: Any) -> None:
+    """An error budget at or above the current the drive allows bounds nothing (a trial built a 73 A
+    budget on a 49 A drive)."""
+    if budget >= limit:
+        raise ModelError(src, key, f"a current below {limit_key} ({limit:g} A)", _describe_raw(raw))
 
 
 def _firmware_steps(src: str, s: dict[str, dict[str, Any]], raw: dict[str, Any]) -> None:
@@ -695,6 +711,14 @@ def _lift_rules(src: str, s: dict[str, Any], raw: dict[str, Any]) -> None:
                 f"a step that puts {what} between 1 and 2^30 steps",
                 f"{_describe_raw(raw[key])} ({count:.3g} steps)",
             )
+    _budget_below_limit(
+        src,
+        "lift.current_budget",
+        budget=s["current_budget"],
+        limit_key="lift.current_limit",
+        limit=s["current_limit"],
+        raw=raw["current_budget"],
+    )
     if s["deadband"] >= s["speed_max"]:
         raise ModelError(
             src,

@@ -77,12 +77,13 @@ def read_log(path: Path, rig: str | None = None, vehicle: Vehicle | None = None)
             path, delimiter=",", skiprows=1, usecols=[col["phase"]], dtype=str, ndmin=1, encoding="utf-8"
         )
     except (ValueError, IndexError, UnicodeDecodeError):
-        raise UserError(f"{path}: every column but phase must be a number") from None
+        raise UserError(_first_bad_row(path, columns)) from None
     if len(num) < 50:
         raise UserError(f"{path}: expected at least 50 rows, found {len(num)}")
     names = [c for c in columns if c != "phase"]
     get = {c: num[:, names.index(c)] for c in names}
     meta = _side_file(path)
+    _rows_as_written(path, meta, len(num))
     recorded = str(meta.get("rig", "on-floor"))
     setpoint = {a: get[c] for c, a in st.si_names().items()}
     if st.body:
@@ -101,6 +102,37 @@ def read_log(path: Path, rig: str | None = None, vehicle: Vehicle | None = None)
         valid=(get["status"].astype(int) & messages.STATUS_MEASURED) != 0,
         meta=meta,
     )
+
+
+def _rows_as_written(path: Path, meta: dict[str, Any], rows: int) -> None:
+    """The log holds as many rows as its side file says the run wrote (a trial's log cut to 8000 of
+    20000 rows was used without a word)."""
+    written = meta.get("log_rows")
+    if isinstance(written, int) and not isinstance(written, bool) and written != rows:
+        raise UserError(
+            f"{path}: holds {rows} rows, but {path.with_suffix('.json').name} says the run wrote {written}: "
+            "the log was cut or edited, or the side file is another run's"
+        )
+
+
+def _first_bad_row(path: Path, columns: tuple[str, ...]) -> str:
+    """The first line of the log that is not a row of numbers (phase aside), as one error line; read only
+    once numpy's parser has refused the file."""
+    with path.open(encoding="utf-8", errors="replace") as fh:
+        for number, line in enumerate(fh, 1):
+            if number == 1:
+                continue
+            cells = line.rstrip("\r\n").split(",")
+            if len(cells) != len(columns):
+                return f"{path}:{number}: expected {len(columns)} columns, found {len(cells)} (a cut or edited line?)"
+            for name, cell in zip(columns, cells):
+                if name == "phase":
+                    continue
+                try:
+                    float(cell)
+                except ValueError:
+                    return f"{path}:{number}: column {name}: expected a number, found {cell.strip()[:20]!r}"
+    return f"{path}: every column but phase must be a number"
 
 
 def _side_file(path: Path) -> dict[str, Any]:

@@ -86,6 +86,23 @@ def test_a_log_from_another_model_is_refused_naming_both(bench, tmp_path, capsys
     assert code in (0, 1) and "warning:" in err and "'tug'" in err and out
 
 
+def test_a_log_cut_short_of_what_its_side_file_says_is_refused(bench, tmp_path, capsys):
+    """Rows cut from a log whose side file says how many the run wrote: exit 2 naming both numbers; a line
+    cut in the middle is named by its number."""
+    folder, path, log = bench
+    rows = log.read_text().splitlines()
+    cut = tmp_path / "cut.csv"
+    cut.write_text("\n".join(rows[:2001]) + "\n")
+    meta = json.loads(log.with_suffix(".json").read_text()) | {"log_rows": len(rows) - 1}
+    cut.with_suffix(".json").write_text(json.dumps(meta))
+    code, out, err = run(["bench", "compare", str(path), str(cut)], capsys)
+    assert code == 2 and f"holds 2000 rows, but cut.json says the run wrote {len(rows) - 1}" in err and not out
+    half = tmp_path / "half.csv"
+    half.write_text("\n".join(rows[:40]) + "\n" + rows[40][:15] + "\n")
+    code, _, err = run(["bench", "compare", str(path), str(half)], capsys)
+    assert code == 2 and "half.csv:41: expected 18 columns" in err
+
+
 def test_an_aborted_run_is_named_with_how_far_it_went(bench, tmp_path, capsys):
     folder, path, log = bench
     short = tmp_path / "short.csv"

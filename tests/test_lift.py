@@ -216,6 +216,7 @@ def test_a_model_without_a_lift_keeps_its_fingerprint_and_one_with_a_lift_change
         ({"deadband": "0.6 m/s"}, "lift.deadband"),
         ({"counterweight": "-3 kg"}, "lift.counterweight"),
         ({"gear_ration": 3}, "lift.gear_ration"),
+        ({"current_budget": "40 A"}, "lift.current_budget"),  # at the lift's current limit: bounds nothing
     ],
 )
 def test_lift_section_errors_name_the_key(change, where):

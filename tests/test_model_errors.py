@@ -51,6 +51,7 @@ BAD = [
     ("firmware.speed_lsb", "0.1 nm/s", "2^30"),  # too fine for int32
     ("firmware.word", "int8", "'int16' or 'int32'"),
     ("firmware.table_bytes_max", 10.5, "a whole number"),  # bytes come whole
+    ("firmware.current_budget", "500 A", "below drive.current_limit"),  # a budget that bounds nothing
     ("wheels.trak", "1 m", "did you mean 'track'"),  # unknown key with suggestion
     ("casters.behind_axle", None, "required"),  # missing key
     ("name", "int", "keyword"),  # C keyword
