@@ -165,6 +165,7 @@ def _document(
                 "on_bound": e.at_bound,
                 "written": name in identify.written_names(result),
                 "imprecise": result.imprecise.get(name),
+                "measured_relative_error": result.measured_rel.get(name),
             }
         )
     return {
@@ -264,6 +265,12 @@ def _note(e: dict[str, Any], doc: dict[str, Any]) -> str:
         if e["parameter"] in identify.DERIVED_FROM
         else "reported"
     )
+    rel, total = e["measured_relative_error"], e["standard_error"] / max(abs(e["estimate"]), 1e-300)
+    if e["written"] and rel is not None and total > identifiability.REL_TOL:
+        note += (
+            f"; rests on the held values: the logs give it to +-{100 * rel:.2g} %, +-{100 * total:.2g} % with what "
+            "they may be off by"
+        )
     if e["imprecise"] is not None:
         note = f"not written: known only to +-{100 * e['imprecise']:.2g} % (1 sigma), over {REL_PERCENT} %"
     elif e["parameter"] == "friction.stribeck_speed" and not e["written"]:

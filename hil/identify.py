@@ -66,7 +66,8 @@ class Fit:
     noise_n: float  # standard deviation of the residual rim force, N
     noise_a: float  # the measured current's noise (compare's noise floor, mean over the logs), A
     free: tuple[str, ...]  # the fitted coordinates
-    imprecise: dict[str, float]  # fitted but not written: relative standard error above REL_TOL (_imprecise)
+    imprecise: dict[str, float]  # fitted but not written: relative standard error above REL_TOL (_relative)
+    measured_rel: dict[str, float]  # every fitted coordinate's relative standard error from the logs alone
     gram: np.ndarray  # X^T X of the scaled regressor of every coordinate, where the fit landed
     omega: np.ndarray  # the HAC long-run covariance of its scores
     groups: list[Group]
@@ -171,7 +172,8 @@ def fit(v: Vehicle, logs: list[BenchLog]) -> Fit:
     x = m.x(p)
     r = fm.residual(x)
     cov, measured = _covariances(fm, m, p, v=v, logs=logs, verdict=verdict, lo=lo, hi=hi)
-    imprecise = _imprecise(measured, verdict.free, fp.scales(v, x))
+    measured_rel = _relative(measured, verdict.free, fp.scales(v, x))
+    imprecise = {name: r for name, r in measured_rel.items() if not r <= identifiability.REL_TOL}
     held_x = written_coordinates(x0, x, [j for j in verdict.free if fp.NAMES[j] not in imprecise])
     written = fp.vehicle_with(v, held_x)
     estimates = _estimates(x0, x, cov, free=verdict.free, lo=lo, hi=hi)
@@ -194,20 +196,22 @@ def fit(v: Vehicle, logs: list[BenchLog]) -> Fit:
         noise_a=float(np.mean([benchdata.noise_floor(log) for log in logs])),
         free=tuple(fp.NAMES[j] for j in verdict.free),
         imprecise=imprecise,
+        measured_rel=measured_rel,
         gram=js_full.T @ js_full,
         omega=_omega(js_full, r, data, logs),
         groups=verdict.groups,
     )
 
 
-def _imprecise(cov: np.ndarray, free: list[int], scale: np.ndarray) -> dict[str, float]:
-    """Fitted coordinates whose measured standard error (the sandwich plus the filter's spread, which the
-    regressor alone does not show; `cov` without the held values' assumed spread, which is the same
-    whatever the logs) exceeds REL_TOL of their size, with that relative error: they stay in the fit
+def _relative(cov: np.ndarray, free: list[int], scale: np.ndarray) -> dict[str, float]:
+    """Each fitted coordinate's measured standard error over its size (the sandwich plus the filter's
+    spread, which the regressor alone does not show; `cov` without the held values' assumed spread,
+    which is the same whatever the logs). Those above REL_TOL are imprecise: they stay in the fit
     (holding them at a wrong value would bias the rest) but are not written, as a held group's
-    determined combination is not."""
-    rel = {fp.NAMES[j]: float(np.sqrt(max(cov[k, k], 0.0))) / scale[j] for k, j in enumerate(free)}
-    return {name: r for name, r in rel.items() if not r <= identifiability.REL_TOL}
+    determined combination is not. What the held values may be off by is not counted here (with the
+    efficiency held, every force would be +-10 %: no fit without a payload log could write anything);
+    the report says which written values rest on held ones (fitreport._note)."""
+    return {fp.NAMES[j]: float(np.sqrt(max(cov[k, k], 0.0))) / scale[j] for k, j in enumerate(free)}
 
 
 def _covariances(
