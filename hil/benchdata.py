@@ -50,9 +50,10 @@ def _log_struct(path: Path, header: tuple[str, ...], v: Vehicle | None) -> inter
     other = interface.FF_IN_BODY if not want.body else interface.FF_IN
     if header == log_columns(other):
         form, mine = ("body-frame", "wheel") if other.body else ("wheel", "body-frame")
-        raise UserError(
-            f"{path}:1: a log of {form} setpoints, but the model's firmware takes {mine} inputs (firmware.inputs)"
-        )
+        meta = _side_file(path)
+        who = f" (recorded with model '{meta['model_name']}')" if isinstance(meta.get("model_name"), str) else ""
+        model = f"'{v.name}'" if v is not None else "the model"
+        raise UserError(f"{path}:1: a log of {form} setpoints{who}, but {model} takes {mine} inputs (firmware.inputs)")
     raise UserError(f"{path}:1: expected a bench log with the header {','.join(log_columns(want))}")
 
 
