@@ -8,6 +8,7 @@ no value is a product's or a handbook's.
 from __future__ import annotations
 
 import math
+import tomllib
 
 import numpy as np
 import pytest
@@ -273,3 +274,20 @@ def test_cli_refuses_lift_options_without_a_lift_and_an_infeasible_lift(tmp_path
     code, _, err = run_cli(["build", str(weak), "-o", str(tmp_path / "fw")], capsys)
     assert code == 1 and "lift.current_limit" in err
     assert not (tmp_path / "fw").exists() or not any((tmp_path / "fw").iterdir())
+
+
+def test_the_demos_commented_lift_loads_and_is_feasible():
+    """The demo file's commented [lift] example, uncommented as its comment says, is a valid and feasible
+    lift whose function meets its budget (the example stays true)."""
+    from kinetab.generator import envelope
+
+    from .helpers import DEMO_PATH
+
+    lines, on = [], False
+    for line in DEMO_PATH.read_text(encoding="utf-8").splitlines():
+        on = on or line.startswith("# [lift]")
+        lines.append(line.removeprefix("# ") if on else line)
+    v = model.parse_document(tomllib.loads("\n".join(lines)), "demo with lift")
+    assert v.lift is not None and not envelope.analyse(v).problems
+    fw = synthesis.synthesise(v)
+    assert fw.lift is not None and fw.lift.bound_a <= v.lift.current_budget_a
