@@ -288,13 +288,39 @@ def _filter_spread(
     """Covariance (in p) of the systematic error the filter leaves (nonlinear terms filtered, quantised
     speeds differentiated, rows left out near a change of power flow): the same fit with each cutoff of
     regressor.OTHER_CUTOFFS_HZ moves the estimates by d; the mean of d d^T is added (the choice of cutoff
-    within 10-20 Hz is arbitrary; what it changes is not known any better)."""
+    within 10-20 Hz is arbitrary; what it changes is not known any better). A coordinate the other
+    cutoff's rows barely see (_unseen) is pinned in that fit and moves by 0: its shift there would be
+    the solver wandering, not the filter's error (a trial's back-driving factor went to its bound at
+    20 Hz, whose rows left almost no back-driven force, and was reported +-900 %)."""
     out = np.zeros((len(p), len(p)))
+    x = m.x(p)
+    main = regressor.force_model(v, regressor.rows(v, logs))
     for cutoff in regressor.OTHER_CUTOFFS_HZ:
         other = regressor.force_model(v, regressor.rows(v, logs, cutoff_hz=cutoff))
-        d = _solve(other, m, lo=lo, hi=hi, scale=fp.scales(v, m.x0)) - p
+        low, high = lo.copy(), hi.copy()
+        for j in _unseen(main, other, x, m.free):
+            low[j], high[j] = x[j] - PIN * abs(x[j] or 1.0), x[j] + PIN * abs(x[j] or 1.0)
+        d = _solve(other, m, lo=low, hi=high, scale=fp.scales(v, m.x0)) - p
         out += np.outer(d, d) / len(regressor.OTHER_CUTOFFS_HZ)
     return out
+
+
+PIN = 1e-12
+"""Half-width of the bounds that pin a coordinate in a filter-variant fit, relative to its value."""
+UNSEEN = 0.25
+"""A filter variant whose rows carry less than this share of the main fit's information on a coordinate
+(mean squared Jacobian column per used row) does not measure it."""
+
+
+def _unseen(main: regressor.ForceModel, other: regressor.ForceModel, x: np.ndarray, free: list[int]) -> list[int]:
+    """The free coordinates the other filter's rows carry (almost) no information on."""
+
+    def info(fm: regressor.ForceModel) -> np.ndarray:
+        j = fm.jacobian(x)
+        return np.asarray((j**2).sum(axis=0) / max(float(fm.data.weight.sum()), 1.0))
+
+    mine, theirs = info(main), info(other)
+    return [j for j in free if mine[j] > 0 and theirs[j] < UNSEEN * mine[j]]
 
 
 HELD_PRIOR = 0.1

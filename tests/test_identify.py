@@ -228,9 +228,7 @@ def test_a_float_model_campaign_recovers_every_coordinate():
     assert_close(v, result, x_true, 0.01, within_se=3.0)
     se = {n: result.estimates[n].se / fp.scales(v, x_true)[fp.INDEX[n]] for n in ("body.mass", "drive.efficiency")}
     assert all(x < 0.005 for x in se.values()), se  # the well-determined ones are told to 0.5 % or better
-    # Written only where the whole standard error (with the filter's spread) is within 5 % of the size: here
-    # the back-driving factor is not (its rows near the blend band move with the filter's cutoff), so it
-    # stays fitted, reported, and out of the model file.
+    # Written only where the whole standard error (with the filter's spread) is within 5 % of the size.
     x = fp.values(v)
     for name in result.free:
         x[fp.INDEX[name]] = result.estimates[name].estimate
@@ -238,11 +236,13 @@ def test_a_float_model_campaign_recovers_every_coordinate():
     for name in result.free:  # the whole error includes the held values' assumed spread (none held here)
         rel = result.estimates[name].se / scale[fp.INDEX[name]]
         assert (name in result.imprecise) == (rel > 0.05), (name, rel)
-    assert "drive.backdrive_factor" in result.imprecise and "drive.backdrive_efficiency" in result.imprecise
     assert identify.written_names(result) == {n for n in result.free if n not in result.imprecise}
     changes = identify.model_changes(result)
-    assert "drive.backdrive_efficiency" not in changes and "body.mass" in changes
-    assert result.vehicle.drive.backdrive_efficiency == v.drive.backdrive_efficiency
+    assert "body.mass" in changes
+    assert ("drive.backdrive_efficiency" in changes) == ("drive.backdrive_factor" not in result.imprecise)
+    # the back-driving factor is told here: the 20 Hz variant's rows carry none of its force, and it is
+    # pinned there (identify._unseen) instead of wandering to its bound and counting as +-900 %
+    assert "drive.backdrive_factor" not in result.imprecise
 
 
 @pytest.mark.slow  # three 15 s logs fitted (3-9 s)
