@@ -144,9 +144,10 @@ def predict(
     ahead = v.firmware.point_ahead_m if ahead is None else ahead
     if ahead is not None:
         doc["point"] = _point_doc(v, op, ahead)
-    _fill_fixed(v, op, doc)
+    fw = _fill_fixed(v, op, doc)
     if lift_point is not None:
         doc["lift"] = _lift_predict(v, *lift_point)
+        _lift_fixed(v, fw, doc["lift"])
     if as_json:
         click.echo(json.dumps(doc, indent=2))
         return
@@ -200,8 +201,10 @@ def _lift_table(doc: dict[str, Any]) -> str:
         ("motor_torque [N*m]", "motor_torque"),
         ("current [A]", "current"),
         ("voltage [V]", "voltage"),
+        ("current_fixed [A]", "current_fixed"),
     ]
-    return "\n".join([head, *(f"{label:26}{doc[key]:12.4f}" for label, key in rows)])
+    cell = lambda x: f"{x:12.4f}" if x is not None else f"{'-':>12}"  # noqa: E731
+    return "\n".join([head, *(f"{label:26}{cell(doc[key])}" for label, key in rows)])
 
 
 def _point_doc(v: Vehicle, op: dynamics.OperatingPoint, ahead: float) -> dict[str, Any]:
@@ -222,15 +225,16 @@ def _point_doc(v: Vehicle, op: dynamics.OperatingPoint, ahead: float) -> dict[st
     }
 
 
-def _fill_fixed(v: Vehicle, op: dynamics.OperatingPoint, doc: dict[str, Any]) -> None:
-    """current_fixed: the bit-exact firmware result at the inputs rounded to firmware steps."""
+def _fill_fixed(v: Vehicle, op: dynamics.OperatingPoint, doc: dict[str, Any]) -> Any:
+    """current_fixed: the bit-exact firmware result at the inputs rounded to firmware steps; returns the
+    firmware (None when it cannot be made)."""
     from . import synthesis
 
     try:
         fw = synthesis.synthesise(v)
     except (CheckFailed, UserError) as exc:
         click.echo(f"warning: current_fixed unavailable: {exc}", err=True)
-        return
+        return None
     try:
         inp = synthesis.firmware_inputs(v, op)
     except ValueError as exc:  # "speed_right: beyond ..." names the column, the option in the wheel form
@@ -243,6 +247,27 @@ def _fill_fixed(v: Vehicle, op: dynamics.OperatingPoint, doc: dict[str, Any]) ->
         click.echo(f"warning: {names} outside the envelope; current_fixed uses the envelope edge", err=True)
     for i, side in enumerate(("right", "left")):
         doc[side]["current_fixed"] = float(out["current"][0][i]) * v.firmware.current_lsb_a
+    return fw
+
+
+def _lift_fixed(v: Vehicle, fw: Any, doc: dict[str, Any]) -> None:
+    """The lift's current_fixed: <name>_lift() bit-exact at the inputs rounded to its steps (clamped to its
+    envelope, with a warning naming the options beyond it)."""
+    from . import liftfirmware
+
+    doc["current_fixed"] = None
+    lt = v.lift
+    if fw is None or fw.lift is None or lt is None:
+        return
+    steps = liftfirmware.inputs_from_si(
+        lt, np.atleast_1d(doc["payload"]), np.atleast_1d(doc["speed"]), np.atleast_1d(doc["accel"])
+    )
+    out = emulate.run(fw.lift.program, fw.lift.tables, steps)
+    flags = int(out["clamped"][0])
+    if flags:
+        names = [f"--lift-{c}" for k, c in enumerate(interface.LIFT_IN.columns) if flags >> k & 1]
+        click.echo(f"warning: {', '.join(names)} outside the lift's envelope; current_fixed uses its edge", err=True)
+    doc["current_fixed"] = float(out["current"][0][0]) * lt.current_lsb_a
 
 
 def _option_text(column: str) -> str:

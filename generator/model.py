@@ -238,7 +238,10 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "mass_lsb": K(L.MASS, "mass_lsb_kg", U(0, 10000, "kg"), "payload mass of one firmware step"),
         "current_lsb": K(L.CURRENT, "current_lsb_a", U(0, 10000, "A"), "motor current of one firmware output step"),
         "current_budget": K(
-            L.CURRENT, "current_budget_a", U(0, 10000, "A"), "largest allowed |firmware - float model| current"
+            L.CURRENT,
+            "current_budget_a",
+            (lambda v: 0 < v <= 10000, "> 0 A and below drive.current_limit"),
+            "largest allowed |firmware - float model| current",
         ),
         "word": K(CHOICE, "word", None, "storage word of table entries", default="int16", choices=("int16", "int32")),
         "sizing": K(
@@ -383,7 +386,7 @@ LIFT: dict[str, Key] = {
     "current_budget": K(
         L.CURRENT,
         "current_budget_a",
-        U(0, 10000, "A"),
+        (lambda v: 0 < v <= 10000, "> 0 A and below lift.current_limit"),
         "largest allowed |firmware - float model| lift current (the lift function's own budget)",
     ),
 }
@@ -705,10 +708,11 @@ def _lift_rules(src: str, s: dict[str, Any], raw: dict[str, Any]) -> None:
     ):
         count = span / s[key]
         if count > MAX_STEPS or count < 1:
+            unit = LIFT[what.split(".")[1]].kind.si.replace("**", "^")
             raise ModelError(
                 src,
                 f"lift.{key}",
-                f"a step that puts {what} between 1 and 2^30 steps",
+                f"a step that puts {what} ({span:g} {unit}) between 1 and 2^30 steps",
                 f"{_describe_raw(raw[key])} ({count:.3g} steps)",
             )
     _budget_below_limit(

@@ -253,7 +253,31 @@ def report(
             }
             for n, t in fw.tables.items()
         ],
+        "lift": _lift_doc(fw),
         "checks": [{"name": c.name, "ok": c.ok, "detail": c.detail} for c in checks],
+    }
+
+
+def _lift_doc(fw: Firmware) -> dict[str, Any] | None:
+    """The lift function's budget, proven bound and tables (null without a lift)."""
+    lf, lt = fw.lift, fw.vehicle.lift
+    if lf is None or lt is None:
+        return None
+    return {
+        "budget_a": lt.current_budget_a,
+        "bound_a": lf.bound_a,
+        "total_bytes": lf.total_bytes,
+        "tables": [
+            {
+                "name": n,
+                "segments": [p.segments for p in t.pieces],
+                "q_format": fx.q_name(t.spec.frac_bits, t.spec.bits),
+                "bytes": t.bytes,
+                "max_error": max(e.total for e in lf.errors[n]) * t.spec.si_scale,
+                "unit": t.spec.si_unit,
+            }
+            for n, t in lf.tables.items()
+        ],
     }
 
 

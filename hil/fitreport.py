@@ -59,16 +59,19 @@ def _digest(path: Path) -> str:
     return hashlib.sha256(path.read_bytes()).hexdigest()
 
 
-def _phase_rms(v: Any, logs: list[benchdata.BenchLog]) -> dict[str, dict[str, float]]:
-    """compare's RMS per phase (both wheels), per log, A."""
-    out = {}
+def _phase_rms(v: Any, logs: list[benchdata.BenchLog]) -> tuple[dict[str, dict[str, float]], list[str]]:
+    """compare's RMS per phase (both wheels), per log, A; and a line per log compare fails."""
+    out, failing = {}, []
     for log in logs:
         doc = compare.compare(v, log)
         rows = {"all": doc["wheels"], **doc["phases"]}
         out[log.path.name] = {
             p: (d["right"]["rms"] ** 2 / 2 + d["left"]["rms"] ** 2 / 2) ** 0.5 for p, d in rows.items()
         }
-    return out
+        if not doc["passed"]:
+            worst = max(w["rms"] for w in doc["wheels"].values())
+            failing.append(f"{log.path.name}: {worst * 1000:.1f} mA RMS, tolerance {doc['tolerance_a'] * 1000:.1f} mA")
+    return out, failing
 
 
 def run_fit(
@@ -98,8 +101,9 @@ def run_fit(
             f"kinetab: internal error: the fit produced a model the loader refuses ({exc.key}: expected "
             f"{exc.expected}, found {exc.found}); nothing was written; please report this with the logs"
         ) from None
-    before, after = _phase_rms(v, logs), _phase_rms(fitted, logs)
+    (before, _), (after, failing) = _phase_rms(v, logs), _phase_rms(fitted, logs)
     doc = _document(result, changes, logs, before=before, after=after, target=target, units_of=_units(text))
+    doc["compare_fails_after"] = failing
     doc["current_noise_a"] = {
         "logs": result.noise_a,
         "campaign_default": campaign.NOISE_OF_LIMIT * v.drive.current_limit_a,
@@ -311,6 +315,12 @@ def _tables(doc: dict[str, Any]) -> str:
         after = doc["compare_rms_a"]["after"][log]
         lines.append(
             f"  {log}: " + ", ".join(f"{p} {b * 1000:.1f} -> {after[p] * 1000:.1f}" for p, b in phases.items())
+        )
+    if doc["compare_fails_after"]:
+        lines.append(
+            "the written model still fails compare on: "
+            + "; ".join(doc["compare_fails_after"])
+            + " (what is held or not written above may be why; more or longer logs may tell it)"
         )
     lines += _legend(doc)
     kept = doc["kept_breakaway_n"]

@@ -61,6 +61,9 @@ def test_one_log_fit_holds_the_inseparable_group_writes_only_what_loads(bench, c
     assert after.friction.coulomb_n == before.friction.coulomb_n
     assert after.wheels.rolling_resistance == before.wheels.rolling_resistance
     assert after.casters.rolling_resistance == before.casters.rolling_resistance
+    # the report says whether the written model still fails compare on the log, as compare itself does
+    code, _, _ = run(["bench", "compare", str(out_path), str(log), "--accept-other-model"], capsys)
+    assert ("the written model still fails compare on: floor.csv" in out) == (code == 1)
 
 
 def test_fit_without_write_is_a_dry_run(bench, capsys):

@@ -253,13 +253,23 @@ def test_cli_envelope_predict_and_build_with_a_lift(tmp_path, capsys):
     assert code == 0, err
     import json
 
-    assert json.loads(out)["lift"]["current"] == pytest.approx(25.24811, abs=1e-4)  # the worked example
+    lifted = json.loads(out)["lift"]
+    assert lifted["current"] == pytest.approx(25.24811, abs=1e-4)  # the worked example
+    bound = synthesis.synthesise(vehicle_from(doc)).lift.bound_a  # inputs on whole steps: no rounding
+    assert abs(lifted["current_fixed"] - lifted["current"]) <= bound
+    code, _, err = run_cli(["predict", str(path), "--lift-speed", "2", "--lift-payload", "60"], capsys)
+    assert code == 0 and "--lift-speed outside the lift's envelope" in err
     code, _, err = run_cli(["predict", str(path), "--lift-payload", "61"], capsys)
     assert code != 0 and "--lift-payload" in err and "Traceback" not in err
     code, _, err = run_cli(["build", str(path), "-o", str(tmp_path / "fw")], capsys)
     assert code == 0, err
     header = (tmp_path / "fw" / "larkspur_ff.h").read_text()
     assert "void larkspur_lift(const larkspur_lift_in_t *in, larkspur_lift_out_t *out);" in header
+    code, _, err = run_cli(["verify", str(path), str(tmp_path / "fw"), "--report", str(tmp_path / "r.json")], capsys)
+    assert code == 0, err
+    report = json.loads((tmp_path / "r.json").read_text())["lift"]
+    assert report["bound_a"] <= report["budget_a"] == pytest.approx(0.04)
+    assert {t["name"] for t in report["tables"]} == set(synthesis.synthesise(vehicle_from(doc)).lift.tables)
 
 
 def test_cli_refuses_lift_options_without_a_lift_and_an_infeasible_lift(tmp_path, capsys):
