@@ -240,8 +240,8 @@ def test_a_float_model_campaign_recovers_every_coordinate():
     changes = identify.model_changes(result)
     assert "body.mass" in changes
     assert ("drive.backdrive_efficiency" in changes) == ("drive.backdrive_factor" not in result.imprecise)
-    # the back-driving factor is told here: the 20 Hz variant's rows carry none of its force, and it is
-    # pinned there (identify._unseen) instead of wandering to its bound and counting as +-900 %
+    # the back-driving factor is told here: a filter variant whose rows carry (almost) none of its force
+    # pins it (identify._unseen) instead of letting it wander to its bound and count as +-900 %
     assert "drive.backdrive_factor" not in result.imprecise
 
 
