@@ -257,7 +257,8 @@ def plan(
     else:
         p = planner.make_plan(v, duration_s=duration, period_s=period, rig=rig, seed=None, **situation)
     cond, told = excite.condition(v, p, rig)
-    outputs.write_file(Path(out_path), planfile.to_csv(p, v))
+    out = Path(out_path)
+    outputs.write_set({out: planfile.to_csv(p, v), planfile.side_file(out): planfile.side_text(v)})
     use = planner.plan_current_use(v, p.si(), rig=rig)
     click.echo(
         f"wrote {out_path}: {len(p)} rows of {period * 1000:g} ms, peak current {use:.0%} of the limit "
@@ -481,6 +482,11 @@ def _simulate_board(
 @click.option(
     "--outside-envelope", is_flag=True, help="Run a plan that leaves the model's envelope or drive limits (warned)."
 )
+@click.option(
+    "--accept-other-model",
+    is_flag=True,
+    help="Run a plan whose PLAN.json names another model (warned); otherwise that is exit 2.",
+)
 def run(
     model_path: str,
     url: str,
@@ -491,6 +497,7 @@ def run(
     rig: str,
     feedforward: str | None,
     outside_envelope: bool,
+    accept_other_model: bool,
 ) -> None:
     """Check PLAN against the model's envelope and drive limits, handshake, arm, stream PLAN one
     setpoint per control tick and log one row per sample; the motors are halted on every way out.
@@ -506,6 +513,7 @@ def run(
         rig=rig,
         feedforward=feedforward or ("none" if rig == "wheels-up" else "model"),
         outside_envelope=outside_envelope,
+        accept_other_model=accept_other_model,
         confirm=None if yes else _confirm,
     )
 
@@ -534,7 +542,7 @@ def campaign(model_path: str, out_dir: str, duration: float, period: float, nois
     run and CAMPAIGN.txt with the order, what each run needs and the commands, and print it."""
     from kinetab.generator import outputs
 
-    from . import campaigntext
+    from . import campaigntext, planfile
 
     out_folder(out_dir)  # refuses an empty name
     _check_period("bench campaign", period)
@@ -544,5 +552,7 @@ def campaign(model_path: str, out_dir: str, duration: float, period: float, nois
     files, text = campaigntext.campaign_files(
         v, Path(model_path), Path(out_dir), duration_s=duration, period_s=period, noise_a=noise
     )
+    side = planfile.side_text(v)
+    files |= {planfile.side_file(path): side for path in list(files) if path.suffix == ".csv"}
     outputs.write_set(files)
     click.echo(text)

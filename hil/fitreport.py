@@ -10,7 +10,7 @@ from typing import Any
 
 import click
 import numpy as np
-from kinetab.generator import model, model_edit, outputs, units
+from kinetab.generator import envelope, gate, model, model_edit, outputs, units
 from kinetab.generator.errors import InternalError, ModelError, UserError
 
 from . import benchdata, campaign, compare, identifiability, identify
@@ -104,6 +104,9 @@ def run_fit(
     (before, _), (after, failing) = _phase_rms(v, logs), _phase_rms(fitted, logs)
     doc = _document(result, changes, logs, before=before, after=after, target=target, units_of=_units(text))
     doc["compare_fails_after"] = failing
+    doc["written_envelope_problems"] = envelope.problems(fitted)
+    for e in doc["estimates"]:
+        e["note"] = _note(e, doc)
     doc["current_noise_a"] = {
         "logs": result.noise_a,
         "campaign_default": campaign.NOISE_OF_LIMIT * v.drive.current_limit_a,
@@ -167,7 +170,8 @@ def _document(
                 "standard_error": e.se / per,
                 "si": {"model": e.model, "estimate": e.estimate, "standard_error": e.se},
                 "on_bound": e.at_bound,
-                "written": name in identify.written_names(result),
+                "written": name in identify.written_names(result)
+                or (name in identify.DERIVED_FROM and name in changes),  # a derived key the file gets
                 "imprecise": result.imprecise.get(name),
                 "measured_relative_error": result.measured_rel.get(name),
             }
@@ -181,6 +185,7 @@ def _document(
         "data": result.how,
         "model_changes": changes,
         "kept_breakaway_n": identify.kept_breakaway(result),
+        "written_envelope_problems": [],
         "compare_rms_a": {"before": before, "after": after},
     }
 
@@ -269,6 +274,8 @@ def _note(e: dict[str, Any], doc: dict[str, Any]) -> str:
         if e["parameter"] in identify.DERIVED_FROM
         else "reported"
     )
+    if e["written"] and e["parameter"] in identify.DERIVED_FROM:
+        note += " (derived)"
     rel, total = e["measured_relative_error"], e["standard_error"] / max(abs(e["estimate"]), 1e-300)
     if e["written"] and rel is not None and total > identifiability.REL_TOL:
         note += (
@@ -283,6 +290,23 @@ def _note(e: dict[str, Any], doc: dict[str, Any]) -> str:
         bound = f"ON ITS BOUND ({e['on_bound']}): not excited, or the model lacks a term"
         note = bound if e["written"] else f"{bound}; {note}"
     return note
+
+
+def _after_lines(doc: dict[str, Any]) -> list[str]:
+    """What the written model still gets wrong: an infeasible envelope, logs it still fails compare on."""
+    lines = []
+    if doc["written_envelope_problems"]:
+        lines.append(
+            f"warning: the fitted model's envelope is infeasible ({doc['written_envelope_problems'][0]}): build "
+            f"refuses it unless {gate.ALLOW_OPTION}; the drive's limits or the envelope need a look"
+        )
+    if doc["compare_fails_after"]:
+        lines.append(
+            "the written model still fails compare on: "
+            + "; ".join(doc["compare_fails_after"])
+            + " (what is held or not written above may be why; more or longer logs may tell it)"
+        )
+    return lines
 
 
 def _tables(doc: dict[str, Any]) -> str:
@@ -316,12 +340,7 @@ def _tables(doc: dict[str, Any]) -> str:
         lines.append(
             f"  {log}: " + ", ".join(f"{p} {b * 1000:.1f} -> {after[p] * 1000:.1f}" for p, b in phases.items())
         )
-    if doc["compare_fails_after"]:
-        lines.append(
-            "the written model still fails compare on: "
-            + "; ".join(doc["compare_fails_after"])
-            + " (what is held or not written above may be why; more or longer logs may tell it)"
-        )
+    lines += _after_lines(doc)
     lines += _legend(doc)
     kept = doc["kept_breakaway_n"]
     if kept is not None:

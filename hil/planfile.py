@@ -68,6 +68,42 @@ def phase_of(speed: np.ndarray, accel: np.ndarray, deadband_mps: float) -> list[
     return out
 
 
+def side_file(path: Path) -> Path:
+    """PLAN.json beside PLAN.csv: which model the plan was made for."""
+    return path.with_suffix(".json")
+
+
+def side_text(v: Vehicle) -> str:
+    """The plan's side file: the model's name and fingerprint (bench run compares them)."""
+    import json
+
+    from kinetab.generator import synthesis
+
+    doc = {"model_name": v.name, "fingerprint": f"0x{synthesis.fingerprint(v):08X}"}
+    return json.dumps(doc, indent=2) + "\n"
+
+
+def origin_problem(v: Vehicle, path: Path) -> tuple[str | None, str | None]:
+    """(why the plan is another vehicle's, how it is older than the model) from PLAN.json; None where it
+    is this vehicle's or no side file says."""
+    import json
+
+    from kinetab.generator import synthesis
+
+    side = side_file(path)
+    try:
+        doc = json.loads(side.read_text(encoding="utf-8")) if side.is_file() else {}
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError):
+        return None, f"{side}: not readable as the plan's side file; which model the plan is for is unknown"
+    name, made = doc.get("model_name"), str(doc.get("fingerprint", ""))
+    mine = f"0x{synthesis.fingerprint(v):08X}"
+    if isinstance(name, str) and name != v.name:
+        return f"{path}: a plan made for model '{name}' ({made or '?'}), not '{v.name}' ({mine})", None
+    if made and made.upper() != mine.upper():
+        return None, f"{path}: made from an earlier state of '{v.name}' ({made}; the model now gives {mine})"
+    return None, None
+
+
 def to_csv(plan: Plan, v: Vehicle | None = None) -> str:
     """The plan as CSV in the vehicle's plan columns (file_columns; wheel columns without a vehicle)."""
     st, columns = interface.FF_IN, plan.columns

@@ -70,24 +70,23 @@ def bench_run(
     rig: str = "on-floor",
     feedforward: str = "model",
     outside_envelope: bool = False,
+    accept_other_model: bool = False,
     confirm: Callable[[], None] | None,
 ) -> None:
     """The whole run; BenchFailed (exit 1) on a fault, timeout or mismatch, UserError (2) on bad input.
     `feedforward` "none" asks the controller to apply no feed-forward current (the speed loop alone)."""
     v = model.load(model_path)
     plan = planfile.read_plan(plan_path, v)
-    _check_plan(v, plan, plan_path, rig=rig, outside_envelope=outside_envelope)
+    _check_plan(v, plan, plan_path, rig=rig, outside=outside_envelope, log=log_path, accept=accept_other_model)
     steps = plan_steps(v, plan, plan_path)
     fingerprint = synthesis.fingerprint(v)
-    for path in (log_path, log_path.with_suffix(".json")):
-        outputs.check_target(path)
     if confirm is not None:
         confirm()
     port = _open(url, baud)
     log = LogWriter(log_path, v, plan, steps)
     link, counters = session.Link(port), session.Counters()
-    meta: dict[str, Any] = dict(model=str(model_path), model_name=v.name, fingerprint=f"0x{fingerprint:08X}")
-    meta.update(port=url, plan=str(plan_path), rows=len(plan), rig=rig, feedforward=feedforward, started=_now())
+    meta = _meta(v, fingerprint, model=model_path, port=url, plan=plan_path, rig=rig, feedforward=feedforward)
+    meta["rows"] = len(plan)
     progress = Progress(len(plan))
     reason = "error"
     try:
@@ -112,13 +111,42 @@ def bench_run(
         _finish(link, log, progress, counters, meta=meta, reason=reason)
 
 
-def _check_plan(v: Any, plan: planfile.Plan, path: Path, *, rig: str, outside_envelope: bool) -> None:
-    """Refuse (exit 2, before the port is opened) a plan outside the envelope or the drive's limits,
-    unless accepted on purpose, then with a warning."""
+def _meta(v: Any, fingerprint: int, *, model: str, port: str, plan: Path, rig: str, feedforward: str) -> dict[str, Any]:
+    """LOG.json's first fields: which model recorded the log, how and when it started."""
+    return {
+        "model": str(model),
+        "model_name": v.name,
+        "fingerprint": f"0x{fingerprint:08X}",
+        "port": port,
+        "plan": str(plan),
+        "rig": rig,
+        "feedforward": feedforward,
+        "started": _now(),
+    }
+
+
+def _check_origin(v: Any, plan_path: Path, *, accept_other_model: bool) -> None:
+    """Refuse (exit 2) a plan whose PLAN.json names another model unless accepted; warn when it names an
+    earlier state of this one (a trial ran one vehicle's plan on another without a word)."""
+    other, older = planfile.origin_problem(v, plan_path)
+    if other is not None and not accept_other_model:
+        raise UserError(f"{other}; nothing was sent (--accept-other-model runs it anyway)")
+    for warning in (other, older):
+        if warning is not None:
+            print(f"warning: {warning}", file=sys.stderr)
+
+
+def _check_plan(v: Any, plan: planfile.Plan, path: Path, *, rig: str, outside: bool, log: Path, accept: bool) -> None:
+    """Refuse (exit 2, before the port is opened) a plan made for another model (unless `accept`), a plan
+    outside the envelope or the drive's limits (unless accepted on purpose, then with a warning), and a
+    log (LOG.csv, LOG.json) that cannot be written."""
+    _check_origin(v, path, accept_other_model=accept)
+    for target in (log, log.with_suffix(".json")):
+        outputs.check_target(target)
     from . import planner
 
     problem = planner.plan_problem(v, plan, rig)
-    if problem and not outside_envelope:
+    if problem and not outside:
         raise UserError(
             f"{path}: {problem}; nothing was sent (make the plan with `kinetab bench plan`, or pass "
             "--outside-envelope to run it anyway)"

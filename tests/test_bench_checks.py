@@ -135,6 +135,24 @@ def test_compare_plot_makes_its_folder_and_titles_the_verdict(bench, tmp_path, c
     assert code in (0, 1) and target.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" and out
 
 
+def test_a_plan_made_for_another_vehicle_is_refused_before_the_port_opens(bench, tmp_path, capsys):
+    """bench plan writes PLAN.json naming its model; bench run of another model refuses it (exit 2 naming
+    both, the port never opened) unless --accept-other-model, which warns (then the port fails)."""
+    folder, path, _ = bench
+    other = tmp_path / "other.toml"
+    other.write_text(path.read_text().replace('name = "courier"', 'name = "porter"'), encoding="utf-8")
+    plan = tmp_path / "p.csv"
+    code, _, err = run(["bench", "plan", str(other), "-o", str(plan), "--duration", "6"], capsys)
+    assert code == 0, err
+    assert json.loads(plan.with_suffix(".json").read_text())["model_name"] == "porter"
+    args = ["bench", "run", str(path), "--port", "/nonexistent/tty", "--plan", str(plan), "--yes"]
+    args += ["--log", str(tmp_path / "log.csv")]
+    code, out, err = run(args, capsys)
+    assert code == 2 and "made for model 'porter'" in err and "not 'courier'" in err and "/nonexistent" not in err
+    code, out, err = run([*args, "--accept-other-model"], capsys)
+    assert "warning: " in err and "made for model 'porter'" in err and "/nonexistent" in err
+
+
 def test_a_plan_outside_the_envelope_is_refused_before_the_port_opens(bench, tmp_path, capsys):
     """A plan at 5 x speed_max: exit 2 naming the row and the limit; the port (which does not exist) is
     never opened and no log is written; --outside-envelope would run it (then the port fails)."""
@@ -289,3 +307,22 @@ def test_a_fit_that_holds_parameters_on_noisy_logs_says_how_to_plan_for_that_noi
     assert fitreport._noise_hint({**noisy, "held": []}) == []
     quiet = {**noisy, "current_noise_a": {"logs": 0.02, "campaign_default": 0.06}}
     assert fitreport._noise_hint(quiet) == []
+
+
+def test_fit_json_marks_derived_keys_it_writes_and_checks_the_written_envelope(bench, tmp_path, capsys):
+    """--json: every estimate carries its note; a derived key the file gets (breakaway, back-driving
+    efficiency) is marked written; the written model's envelope problems are those `envelope` finds in
+    the file written."""
+    from kinetab.generator import envelope
+
+    folder, path, log = bench
+    target = tmp_path / "fitted.toml"
+    code, out, err = run(["bench", "fit", str(path), str(log), "--json", "--write", str(target)], capsys)
+    assert code == 0, err
+    doc = json.loads(out)
+    assert all(e["note"] for e in doc["estimates"])
+    for e in doc["estimates"]:
+        key = {"friction.breakaway": "friction.breakaway", "drive.backdrive_efficiency": "drive.backdrive_efficiency"}
+        if e["parameter"] in key:
+            assert e["written"] == (key[e["parameter"]] in doc["model_changes"])
+    assert doc["written_envelope_problems"] == envelope.problems(model.load(target))
