@@ -130,7 +130,9 @@ def check_period(ident: messages.Identify, plan_period_s: float | None, port_nam
         return
     raise BenchFailed(
         f"{port_name}: the controller ticks every {ident.period_us / 1000:g} ms, {plan_name} has a row every "
-        f"{plan_period_s * 1000:g} ms; make the plan with `kinetab bench plan --period {ident.period_us / 1000:g}`"
+        f"{plan_period_s * 1000:g} ms; make the plan with `kinetab bench plan --period {ident.period_us / 1000:g}`, "
+        f"or give the controller that period (`kinetab bench simulate --period {plan_period_s * 1000:g}` for the "
+        "simulated one)"
     )
 
 

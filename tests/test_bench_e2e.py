@@ -241,6 +241,7 @@ def test_a_plan_at_another_period_is_refused_before_arming(tmp_path):
     run = _run(sim.port, path, log)
     _, err = run.communicate(timeout=30)
     assert run.returncode == 1 and "ticks every 1 ms" in err and "row every 2 ms" in err and "--period 1" in err
+    assert "kinetab bench simulate --period 2" in err
     assert sim.proc.poll() is None  # never armed, never halted: still waiting
     sim.proc.kill()
     assert json.loads(log.with_suffix(".json").read_text())["samples"] == 0
