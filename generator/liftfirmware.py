@@ -12,7 +12,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import analysis, interface, lift, program, sizing
+from . import analysis, interface, lift, program, sizing, tablespecs
 from . import fixedpoint as fx
 from . import tables as tb
 from .dynamics import G_N
@@ -156,25 +156,15 @@ def _blend_rows(lt: Lift, lim: LiftLimits) -> dict[str, Row]:
     it), a constant beyond it."""
     width, k = lift.blend_width(lt), lt.efficiency * lt.backdrive_efficiency
     end = min(fx.steps_within(width, lt.speed_lsb_mps), lim.speed)
-    pieces = [
-        tb.Piece(
-            x0=0,
-            x1=end,
-            func=lambda x: 1 + (k - 1) * np.asarray(x, float) * lt.speed_lsb_mps / width,
-            label="in the blend band",
-        )
-    ]
-    if end < lim.speed:
-        pieces.append(
-            tb.Piece(x0=end + 1, x1=lim.speed, func=lambda x: np.full(np.shape(x), k), label="beyond the blend band")
-        )
+    ratio = lambda x: 1 + (k - 1) * np.asarray(x, float) * lt.speed_lsb_mps / width  # noqa: E731
+    pieces = tablespecs.band_pieces(ratio, k, end=end, top=lim.speed)
     text = Text(
         unit="1",
         meaning="back-driving factor f(v) = 1 + (k - 1) min(1, |v|/w), k = eta eta_back",
         si_unit="1",
         si_scale=1.0,
     )
-    return {"lift_backdrive": ("speed", "even", tuple(pieces), text)}
+    return {"lift_backdrive": ("speed", "even", pieces, text)}
 
 
 MOTOR_KEYS = ("lift.lead", "lift.gear_ratio", "lift.efficiency", "lift.torque_constant")

@@ -16,6 +16,7 @@ from pathlib import Path
 from typing import Any
 
 from . import fixedpoint as fx
+from . import tables as tb
 from .accuracy import Accuracy
 from .errors import UserError
 from .pointform import point_form
@@ -242,17 +243,7 @@ def report(
             "over_cap": fw.over_cap,
             "note": sizing_note(fw),
         },
-        "tables": [
-            {
-                "name": n,
-                "segments": [p.segments for p in t.pieces],
-                "q_format": fx.q_name(t.spec.frac_bits, t.spec.bits),
-                "bytes": t.bytes,
-                "max_error": max(e.total for e in fw.errors[n]) * t.spec.si_scale,
-                "unit": t.spec.si_unit,
-            }
-            for n, t in fw.tables.items()
-        ],
+        "tables": _tables_doc(fw.tables, fw.errors),
         "lift": _lift_doc(fw),
         "checks": [{"name": c.name, "ok": c.ok, "detail": c.detail} for c in checks],
     }
@@ -267,18 +258,25 @@ def _lift_doc(fw: Firmware) -> dict[str, Any] | None:
         "budget_a": lt.current_budget_a,
         "bound_a": lf.bound_a,
         "total_bytes": lf.total_bytes,
-        "tables": [
-            {
-                "name": n,
-                "segments": [p.segments for p in t.pieces],
-                "q_format": fx.q_name(t.spec.frac_bits, t.spec.bits),
-                "bytes": t.bytes,
-                "max_error": max(e.total for e in lf.errors[n]) * t.spec.si_scale,
-                "unit": t.spec.si_unit,
-            }
-            for n, t in lf.tables.items()
-        ],
+        "tables": _tables_doc(lf.tables, lf.errors),
     }
+
+
+def _tables_doc(
+    tables: Mapping[str, tb.Table], errors: Mapping[str, tuple[tb.PieceError, ...]]
+) -> list[dict[str, Any]]:
+    """Per table: its pieces' segments, Q format, bytes and worst error in its own SI unit."""
+    return [
+        {
+            "name": n,
+            "segments": [p.segments for p in t.pieces],
+            "q_format": fx.q_name(t.spec.frac_bits, t.spec.bits),
+            "bytes": t.bytes,
+            "max_error": max(e.total for e in errors[n]) * t.spec.si_scale,
+            "unit": t.spec.si_unit,
+        }
+        for n, t in tables.items()
+    ]
 
 
 def failed_report(source: str, budget: float, checks: list[Check]) -> dict[str, Any]:

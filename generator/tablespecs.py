@@ -266,28 +266,27 @@ def _blend_rows(v: Vehicle, lim: Limits) -> dict[str, _Row]:
         tangent = 1 / k + (1 - k) / k**2 * (t - 1)
         return np.where(t <= 1, 1 / (1 + (k - 1) * np.minimum(t, 1)), tangent)
 
-    def constant(value: float) -> tb.Func:
-        return lambda x: np.full(np.shape(x), value)
-
     rows = {}
     for name, func, outside, meaning in (
         ("backdrive", ratio, k, "back-driving factor f(u) = 1 + (k - 1) min(1, |u|/w), k = eta eta_back"),
         ("backdrive_inv", inverse, 1 / k, "its reciprocal 1/f(u), for the forward helper"),
     ):
-        pieces = [tb.Piece(x0=0, x1=end, func=func, label="in the blend band")]
-        if end < lim.speed:
-            pieces.append(
-                tb.Piece(
-                    x0=end + 1,
-                    x1=lim.speed,
-                    func=constant(outside),
-                    label="beyond the blend band",
-                )
-            )
+        pieces = band_pieces(func, outside, end=end, top=lim.speed)
         rows[name] = _Row(
-            source="speed", symmetry="even", pieces=tuple(pieces), unit="1", meaning=meaning, si_scale=1.0, si_unit="1"
+            source="speed", symmetry="even", pieces=pieces, unit="1", meaning=meaning, si_scale=1.0, si_unit="1"
         )
     return rows
+
+
+def band_pieces(func: tb.Func, outside: float, *, end: int, top: int) -> tuple[tb.Piece, ...]:
+    """A back-driving factor over |speed| in steps: `func` through the blend band 0..end, the constant
+    `outside` beyond it up to `top` (no second piece when the band reaches the edge). The drive's and
+    the lift's tables are both made here."""
+    pieces = [tb.Piece(x0=0, x1=end, func=func, label="in the blend band")]
+    if end < top:
+        const = lambda x: np.full(np.shape(x), outside)  # noqa: E731
+        pieces.append(tb.Piece(x0=end + 1, x1=top, func=const, label="beyond the blend band"))
+    return tuple(pieces)
 
 
 def _inverse_rows(v: Vehicle, lim: Limits, inv: float) -> dict[str, _Row]:

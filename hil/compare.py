@@ -76,13 +76,13 @@ class Band:
     speed_margin_mps: np.ndarray  # per wheel: the speed uncertainty (twice the RMS of raw less smoothed)
 
 
-def band(v: Vehicle, log: BenchLog, rig: str) -> Band:
+def band(v: Vehicle, log: BenchLog, rig: str, *, smooth: np.ndarray) -> Band:
     """The lowest and highest model current per row and wheel over the motion the log allows: speeds within
     twice the RMS scatter of the measured speeds about their smoothed curve (encoder quantisation), and
     accelerations anywhere between the setpoint's and the derivative of the measured speeds. The current
     is monotone in the accelerations (the mass matrix is positive, the efficiency factor positive), so
-    their ends suffice; in speed the model bends and steps (Stribeck, deadband, blend), so it is sampled."""
-    smooth = benchdata.smoothed_speed(log)
+    their ends suffice; in speed the model bends and steps (Stribeck, deadband, blend), so it is sampled.
+    `smooth`: benchdata.smoothed_speed(log), made once by the caller."""
     margin = 2 * np.sqrt(np.mean((log.speed - smooth)[log.valid] ** 2, axis=0)) if log.valid.any() else np.zeros(2)
     sp_acc = np.column_stack([log.setpoint["accel_right"], log.setpoint["accel_left"]])
     measured_acc = benchdata.derivative(log)
@@ -117,9 +117,10 @@ def compare(v: Vehicle, log: BenchLog, *, tolerance_a: float | None = None) -> d
     sp = np.column_stack([log.setpoint["speed_right"], log.setpoint["speed_left"]])
     sp_acc = np.column_stack([log.setpoint["accel_right"], log.setpoint["accel_left"]])
     at_setpoint = benchdata.predicted_current(v, benchdata.operating_point(log, speed=sp, accel=sp_acc), rig)
-    op = benchdata.operating_point(log, speed=benchdata.smoothed_speed(log), accel=accel)
+    smooth = benchdata.smoothed_speed(log)
+    op = benchdata.operating_point(log, speed=smooth, accel=accel)
     at_measured = benchdata.predicted_current(v, op, rig)
-    rng = band(v, log, rig)
+    rng = band(v, log, rig, smooth=smooth)
     primary = np.clip(log.current, rng.low, rng.high)  # the model current nearest the measured one
     ok = log.valid
     residual = (log.current - primary)[ok]
