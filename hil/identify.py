@@ -233,7 +233,7 @@ def _covariances(
         return jp, jp
     block, lags = _settings(logs)
     hac = covariance.hac(jp, fm.residual(x), group=fm.data.log, time=fm.data.sample, block=block, lags=lags)
-    measured = hac + _filter_spread(v, logs, m, p, lo=lo, hi=hi)
+    measured = hac + _filter_spread(v, logs, m, p, lo=lo, hi=hi, main=fm)
     return measured + _held_spread(jp, fm.jacobian(x), fp.scales(v, m.x0), verdict), measured
 
 
@@ -283,7 +283,14 @@ def _rms(residual: np.ndarray, weight: np.ndarray) -> float:
 
 
 def _filter_spread(
-    v: Vehicle, logs: list[BenchLog], m: _Map, p: np.ndarray, *, lo: np.ndarray, hi: np.ndarray
+    v: Vehicle,
+    logs: list[BenchLog],
+    m: _Map,
+    p: np.ndarray,
+    *,
+    lo: np.ndarray,
+    hi: np.ndarray,
+    main: regressor.ForceModel,
 ) -> np.ndarray:
     """Covariance (in p) of the systematic error the filter leaves (nonlinear terms filtered, quantised
     speeds differentiated, rows left out near a change of power flow): the same fit with each cutoff of
@@ -294,7 +301,6 @@ def _filter_spread(
     20 Hz, whose rows left almost no back-driven force, and was reported +-900 %)."""
     out = np.zeros((len(p), len(p)))
     x = m.x(p)
-    main = regressor.force_model(v, regressor.rows(v, logs))
     for cutoff in regressor.OTHER_CUTOFFS_HZ:
         other = regressor.force_model(v, regressor.rows(v, logs, cutoff_hz=cutoff))
         low, high = lo.copy(), hi.copy()
