@@ -521,3 +521,7 @@ LIFT_IN = Struct(tag="lift_in", members=(LIFT_SPEED, LIFT_ACCEL, LIFT_PAYLOAD))
 LIFT_OUT = Struct(tag="lift_out", members=(LIFT_CURRENT,), clamped=True)
 LIFT = Call(name="lift", inputs=LIFT_IN, outputs=LIFT_OUT, clamp_tag="LIFT_CLAMPED")
 """The lift's feed-forward, `<prefix>_lift()`, when the model has a [lift] section (liftfirmware.py)."""
+LIFT_CURRENT_IN = dataclasses.replace(LIFT_CURRENT, what="measured lift motor current")
+LIFT_MEASURED = Struct(tag="link_lift_measured", members=(LIFT_CURRENT_IN, LIFT_SPEED))
+"""What the firmware measures for the bench link each tick of a lift run (lift motor current, carriage
+speed); the link carries it only for a model with a [lift] section."""

@@ -352,6 +352,10 @@ def simulate(
 
     v = model.load(model_path)
     truth = model.load(truth_path) if truth_path else v
+    if v.lift is not None and truth.lift is None:
+        raise UserError(
+            f"bench simulate: --truth {truth_path}: it has no [lift] and {model_path} has one; give the true lift"
+        )
     _check_period("bench simulate", period)
     watchdog = _watchdog_s(watchdog, period)
     fifo_depth = fifo_depth or (BOARD_FIFO_DEPTH if board_name else FIFO_DEPTH)

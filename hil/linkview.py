@@ -35,6 +35,9 @@ def wire(
             "setpoint_inputs": table[kinds.SETPOINT].column_offsets("inputs", inputs),
             "sample_ff": table[kinds.SAMPLE].column_offsets("ff", ff),
             "sample_measured": table[kinds.SAMPLE].column_offsets("measured", measured),
+            "lift_setpoint_inputs": table[kinds.LIFT_SETPOINT].column_offsets("inputs", interface.LIFT_IN),
+            "lift_sample_ff": table[kinds.LIFT_SAMPLE].column_offsets("ff", interface.LIFT_OUT),
+            "lift_sample_measured": table[kinds.LIFT_SAMPLE].column_offsets("measured", interface.LIFT_MEASURED),
         },
     }
 
@@ -57,6 +60,7 @@ def context(
         "ff_header": names["ff_header"],
         "guard": f"{prefix.upper()}_LINK_H",
         "protocol": messages.PROTOCOL_VERSION,
+        "protocol_min": min(messages.SPOKEN),
         "fifo_depth": fifo_depth,
         "period_us": period_us,
         "watchdog_ticks": watchdog_ticks,
@@ -73,7 +77,22 @@ def context(
         "setpoint_fields": interface.ff_in(fw.vehicle).lvalues(),
         "ff_fields": interface.FF_OUT.lvalues(),
         "measured_fields": interface.MEASURED.lvalues(),
+        "lift": _lift(fw),
         **wire(messages.layouts(inputs=interface.ff_in(fw.vehicle)), inputs=interface.ff_in(fw.vehicle)),
+    }
+
+
+def _lift(fw: Firmware) -> dict[str, Any] | None:
+    """What the link templates print for the lift's messages (None: the model has no [lift])."""
+    if fw.vehicle.lift is None:
+        return None
+    prefix = fw.vehicle.name
+    members = [(m.c_decl().ljust(19), m.c_comment()) for m in interface.LIFT_MEASURED.members]
+    return {
+        "measured": {"ctype": interface.LIFT_MEASURED.c_type(prefix), "members": members},
+        "setpoint_fields": interface.LIFT_IN.lvalues(),
+        "ff_fields": interface.LIFT_OUT.lvalues(),
+        "measured_fields": interface.LIFT_MEASURED.lvalues(),
     }
 
 

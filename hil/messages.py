@@ -14,7 +14,10 @@ from typing import cast
 
 from kinetab.generator import interface
 
-PROTOCOL_VERSION = 2  # 2: setpoint flag bit 1 (no feed-forward)
+PROTOCOL_VERSION = 3  # 2: setpoint flag bit 1 (no feed-forward); 3: the lift's setpoint and sample
+SPOKEN = (2, 3)
+"""Versions this host speaks: 3 only adds the lift's messages, so a version-2 controller still runs drive plans."""
+LIFT_VERSION = 3  # the first version with the lift's messages
 
 
 class MessageType(IntEnum):
@@ -24,10 +27,12 @@ class MessageType(IntEnum):
     ARM = 0x02
     SETPOINT = 0x03
     HALT = 0x04
+    LIFT_SETPOINT = 0x05
     IDENTIFY = 0x81
     ARMED = 0x82
     SAMPLE = 0x83
     FAULT = 0x84
+    LIFT_SAMPLE = 0x85
 
 
 class FaultCode(IntEnum):
@@ -104,12 +109,30 @@ class Sample:
 
 
 @dataclass(frozen=True)
+class LiftSetpoint:
+    seq: int
+    flags: int
+    inputs: tuple[int, ...]  # interface.LIFT_IN columns, the lift's firmware steps
+
+
+@dataclass(frozen=True)
+class LiftSample:
+    seq: int
+    last_rx: int
+    free: int
+    status: int
+    clamped: int
+    ff: tuple[int, ...]  # interface.LIFT_OUT columns (lift current steps)
+    measured: tuple[int, ...]  # interface.LIFT_MEASURED columns (lift current steps, lift speed steps)
+
+
+@dataclass(frozen=True)
 class Fault:
     code: int
     seq: int
 
 
-Message = Hello | Identify | Arm | Armed | Setpoint | Halt | Sample | Fault
+Message = Hello | Identify | Arm | Armed | Setpoint | Halt | Sample | Fault | LiftSetpoint | LiftSample
 
 WIDTH = {"u8": "B", "u16": "H", "u32": "I", "i32": "i"}
 """Wire type -> struct code (little-endian, no padding)."""
@@ -165,12 +188,32 @@ class Layout:
         return out
 
 
+def _setpoint(cls: type, inputs: interface.Struct) -> Layout:
+    return Layout(cls, (Field("seq", "u16"), Field("flags", "u8"), Field("inputs", "i32", inputs.columns)))
+
+
+def _sample(cls: type, ff: interface.Struct, measured: interface.Struct) -> Layout:
+    return Layout(
+        cls,
+        (
+            Field("seq", "u16"),
+            Field("last_rx", "u16"),
+            Field("free", "u16"),
+            Field("status", "u8"),
+            Field("clamped", "u8"),
+            Field("ff", "i32", ff.columns),
+            Field("measured", "i32", measured.columns),
+        ),
+    )
+
+
 def layouts(
     inputs: interface.Struct = interface.FF_IN,
     ff: interface.Struct = interface.FF_OUT,
     measured: interface.Struct = interface.MEASURED,
 ) -> dict[MessageType, Layout]:
-    """Every message's layout; the setpoint and sample carry the columns of the interface structs."""
+    """Every message's layout; the setpoints and samples carry the columns of the interface structs
+    (the lift's: interface.LIFT_IN, LIFT_OUT and LIFT_MEASURED)."""
     return {
         MessageType.HELLO: Layout(Hello, (Field("version", "u8"),)),
         MessageType.IDENTIFY: Layout(
@@ -185,23 +228,12 @@ def layouts(
         ),
         MessageType.ARM: Layout(Arm, (Field("first_seq", "u16"), Field("prefill", "u16"))),
         MessageType.ARMED: Layout(Armed, (Field("first_seq", "u16"), Field("free", "u16"))),
-        MessageType.SETPOINT: Layout(
-            Setpoint, (Field("seq", "u16"), Field("flags", "u8"), Field("inputs", "i32", inputs.columns))
-        ),
+        MessageType.SETPOINT: _setpoint(Setpoint, inputs),
         MessageType.HALT: Layout(Halt, ()),
-        MessageType.SAMPLE: Layout(
-            Sample,
-            (
-                Field("seq", "u16"),
-                Field("last_rx", "u16"),
-                Field("free", "u16"),
-                Field("status", "u8"),
-                Field("clamped", "u8"),
-                Field("ff", "i32", ff.columns),
-                Field("measured", "i32", measured.columns),
-            ),
-        ),
+        MessageType.LIFT_SETPOINT: _setpoint(LiftSetpoint, interface.LIFT_IN),
+        MessageType.SAMPLE: _sample(Sample, ff, measured),
         MessageType.FAULT: Layout(Fault, (Field("code", "u8"), Field("seq", "u16"))),
+        MessageType.LIFT_SAMPLE: _sample(LiftSample, interface.LIFT_OUT, interface.LIFT_MEASURED),
     }
 
 
@@ -237,8 +269,8 @@ def encode(msg: Message) -> bytes:
     return bytes([kind]) + pack(LAYOUT[kind], msg)
 
 
-TO_CONTROLLER = frozenset({MessageType.HELLO, MessageType.ARM, MessageType.SETPOINT, MessageType.HALT})
-TO_HOST = frozenset({MessageType.IDENTIFY, MessageType.ARMED, MessageType.SAMPLE, MessageType.FAULT})
+TO_CONTROLLER = frozenset(k for k in MessageType if k < 0x80)
+TO_HOST = frozenset(k for k in MessageType if k >= 0x80)
 
 
 def decode(payload: bytes, kinds: frozenset[MessageType] = TO_HOST) -> Message | str:

@@ -109,12 +109,19 @@ def handshake(link: Link, port_name: str) -> messages.Identify:
     )
 
 
-def check_identity(ident: messages.Identify, fingerprint: int, port_name: str) -> None:
-    """Stop before arming when the controller speaks another protocol or runs another model."""
-    if ident.version != messages.PROTOCOL_VERSION:
+def check_identity(ident: messages.Identify, fingerprint: int, port_name: str, *, lift: bool = False) -> None:
+    """Stop before arming when the controller speaks another protocol or runs another model; a lift
+    plan needs the version that added the lift's messages."""
+    spoken = " and ".join(str(v) for v in messages.SPOKEN)
+    if ident.version not in messages.SPOKEN:
         raise BenchFailed(
             f"{port_name}: the controller speaks bench protocol {ident.version}, this kinetab "
-            f"speaks {messages.PROTOCOL_VERSION}; regenerate the link files or update kinetab"
+            f"speaks {spoken}; regenerate the link files or update kinetab"
+        )
+    if lift and ident.version < messages.LIFT_VERSION:
+        raise BenchFailed(
+            f"{port_name}: the controller speaks bench protocol {ident.version}, which has no lift messages "
+            f"(version {messages.LIFT_VERSION} added them); regenerate the link files from the model with [lift]"
         )
     if ident.fingerprint != fingerprint:
         raise BenchFailed(

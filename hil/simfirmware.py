@@ -15,6 +15,8 @@ from . import linkview
 N_IN = len(interface.FF_IN.columns)
 N_OUT = len(interface.FF_OUT.columns)
 N_MEAS = len(interface.MEASURED.columns)
+N_LIFT_IN = len(interface.LIFT_IN.columns)
+N_LIFT_MEAS = len(interface.LIFT_MEASURED.columns)
 STATE_NAMES = ("idle", "armed", "running", "halted")
 TX_SIZE = 8192
 """Bytes the glue buffers between two transmit drains (`SIM_TX_SIZE` in the C; more are counted as lost)."""
@@ -88,6 +90,8 @@ class SimFirmware:
         self._ff = (ctypes.c_int32 * N_OUT)()
         self._halted = ctypes.c_int()
         self._status = (ctypes.c_uint32 * len(STATUS_C))()
+        self._lift_in = (ctypes.c_int32 * N_LIFT_IN)()
+        self._lift_ff = (ctypes.c_int32 * len(interface.LIFT_OUT.columns))()
         self.lib.sim_init()
 
     def receive(self, data: bytes) -> None:
@@ -105,6 +109,19 @@ class SimFirmware:
         """(count of applies so far, setpoint FF_IN columns, feed-forward FF_OUT columns, halted)."""
         count = self.lib.sim_applied(self._inputs, self._ff, ctypes.byref(self._halted))
         return int(count), tuple(self._inputs), tuple(self._ff), bool(self._halted.value)
+
+    def applied_axis(self) -> str:
+        """The axis of the newest applied setpoint: "lift" or "drive"."""
+        return "lift" if self.lib.sim_applied_axis() else "drive"
+
+    def applied_lift(self) -> tuple[tuple[int, ...], tuple[int, ...]]:
+        """The last applied lift setpoint (LIFT_IN columns) and its feed-forward (LIFT_OUT columns)."""
+        self.lib.sim_applied_lift(self._lift_in, self._lift_ff)
+        return tuple(self._lift_in), tuple(self._lift_ff)
+
+    def set_lift_measured(self, values: tuple[int, ...]) -> None:
+        """What the next lift measure hook returns (LIFT_MEASURED columns in the lift's steps)."""
+        self.lib.sim_set_lift_measured((ctypes.c_int32 * N_LIFT_MEAS)(*values))
 
     def set_measured(self, values: tuple[int, ...], *, ok: bool = True) -> None:
         """What the next measure hook returns (MEASURED columns in firmware steps)."""

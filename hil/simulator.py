@@ -21,9 +21,10 @@ from kinetab.generator.synthesis import Firmware
 from kinetab.generator.vehicle import Vehicle
 
 from . import framing, messages
+from .liftplant import LiftPlant
 from .plant import Plant, PlantOptions
 from .simfirmware import SimFirmware
-from .stepdrive import StepDrive
+from .stepdrive import LiftStepDrive, StepDrive
 
 CATCH_UP_S = 0.005
 """After this process stalls (a loaded machine), resume ticking rather than run the missed ticks in a
@@ -98,6 +99,7 @@ class Simulator:
         ticks = max(1, round(watchdog_s / options.period_s))
         self.firmware = SimFirmware(fw, folder, period_us=self.period_us, fifo_depth=fifo_depth, watchdog_ticks=ticks)
         self.drive = StepDrive(fw, Plant(truth=truth, options=options))
+        self.lift = LiftStepDrive(fw, LiftPlant.of(truth, options)) if fw.vehicle.lift and truth.lift else None
         rng = np.random.default_rng(faults.seed)
         self.to_controller, self.to_host = _Stream(faults, rng), _Stream(faults, rng)
         self.reader = framing.FrameReader()  # our own transmissions, to report why we halted
@@ -158,9 +160,15 @@ class Simulator:
     def _tick(self) -> None:
         """One control period: measure the one that ended, let the link C tick, run the vehicle."""
         self.firmware.set_measured(self.drive.measure())
+        if self.lift is not None:
+            self.firmware.set_lift_measured(self.lift.measure())
         self.firmware.tick()
         count, inputs, ff, halted = self.firmware.applied()
-        self.drive.apply(inputs, ff, halted=halted or count == 0)
+        lifting = self.lift is not None and self.firmware.applied_axis() == "lift"
+        self.drive.apply(inputs, ff, halted=halted or count == 0 or lifting)
+        if self.lift is not None:
+            lift_inputs, lift_ff = self.firmware.applied_lift()
+            self.lift.apply(lift_inputs, lift_ff, held=halted or not lifting)
 
     def _wait(self, deadline: float) -> None:
         timeout = max(0.0, min(deadline - time.perf_counter(), 0.005))

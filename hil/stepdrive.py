@@ -4,6 +4,7 @@ the emulated board use it, so the two cannot differ in how a command becomes phy
 
 from __future__ import annotations
 
+import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 
@@ -12,6 +13,7 @@ from kinetab.generator import interface
 from kinetab.generator.errors import InternalError
 from kinetab.generator.synthesis import Firmware
 
+from .liftplant import LiftPlant
 from .plant import Plant
 
 INT32 = (-(2**31), 2**31 - 1)
@@ -50,3 +52,33 @@ class StepDrive:
         si = interface.to_si(self.fw.vehicle, st, fields)
         self.last = {k: float(np.asarray(val).ravel()[0]) for k, val in si.items()}
         self.plant.step(self.last, np.array(ff, dtype=float) * self.fw.vehicle.firmware.current_lsb_a)
+
+
+@dataclass
+class LiftStepDrive:
+    """The simulated lift behind one controller, in the lift's firmware steps (interface.LIFT_IN,
+    LIFT_OUT, LIFT_MEASURED); the brake holds the carriage whenever no lift setpoint is applied."""
+
+    fw: Firmware
+    plant: LiftPlant
+
+    def measure(self) -> tuple[int, ...]:
+        """The period that ended as the LIFT_MEASURED columns (an int32 sensor saturates)."""
+        current, speed = self.plant.measure()
+        if not (math.isfinite(current) and math.isfinite(speed)):
+            raise InternalError("the simulated lift diverged (a current or speed is not finite)")
+        lift = self.fw.vehicle.lift
+        assert lift is not None
+        steps = (round(current / lift.current_lsb_a), round(speed / lift.speed_lsb_mps))
+        return tuple(int(np.clip(x, *INT32)) for x in steps)
+
+    def apply(self, inputs: Sequence[int], ff: Sequence[int], *, held: bool) -> None:
+        """One period under a lift setpoint (LIFT_IN steps) and its feed-forward (LIFT_OUT steps), or held."""
+        lift = self.fw.vehicle.lift
+        if held or lift is None:
+            self.plant.hold()
+            return
+        fields = interface.rows_to_fields(interface.LIFT_IN, np.array([inputs], dtype=np.int64))
+        si = interface.to_si(self.fw.vehicle, interface.LIFT_IN, fields)
+        speed, accel, payload = (float(np.ravel(si[k])[0]) for k in interface.LIFT_IN.si_names().values())
+        self.plant.step(speed, accel, payload, ff[0] * lift.current_lsb_a)

@@ -114,7 +114,7 @@ def _protocol_examples() -> list[tuple[str, bytes, int, bytes]]:
     from pathlib import Path
 
     text = (Path(__file__).resolve().parents[1] / "hil" / "PROTOCOL.md").read_text()
-    rows = re.findall(r"^\| ([A-Z]+)[^|]*\| `([0-9a-f ]+)` \| `([0-9A-F]{4})` \| `([0-9a-f ]+)` \|$", text, re.M)
+    rows = re.findall(r"^\| ([A-Z_]+)[^|]*\| `([0-9a-f ]+)` \| `([0-9A-F]{4})` \| `([0-9a-f ]+)` \|$", text, re.M)
     return [(name, bytes.fromhex(p), int(c, 16), bytes.fromhex(w)) for name, p, c, w in rows]
 
 
@@ -122,7 +122,18 @@ def test_protocol_document_examples_are_right():
     """Every worked example of hil/PROTOCOL.md, checked with the `crc` and `cobs` packages (independent
     of our framing) and decoded by our messages."""
     examples = _protocol_examples()
-    assert [e[0] for e in examples] == ["HELLO", "IDENTIFY", "ARM", "ARMED", "SETPOINT", "SAMPLE", "HALT", "FAULT"]
+    assert [e[0] for e in examples] == [
+        "HELLO",
+        "IDENTIFY",
+        "ARM",
+        "ARMED",
+        "SETPOINT",
+        "SAMPLE",
+        "LIFT_SETPOINT",
+        "LIFT_SAMPLE",
+        "HALT",
+        "FAULT",
+    ]
     for name, payload, crc, wire in examples:
         assert IBM_3740.checksum(payload) == crc, name
         assert wire == cobs.encode(payload + crc.to_bytes(2, "big")) + b"\x00", name
