@@ -50,7 +50,7 @@ def _log_struct(path: Path, header: tuple[str, ...], v: Vehicle | None) -> inter
     other = interface.FF_IN_BODY if not want.body else interface.FF_IN
     if header == log_columns(other):
         form, mine = ("body-frame", "wheel") if other.body else ("wheel", "body-frame")
-        meta = _side_file(path)
+        meta = side_file(path)
         who = f" (recorded with model '{meta['model_name']}')" if isinstance(meta.get("model_name"), str) else ""
         model = f"'{v.name}'" if v is not None else "the model"
         raise UserError(f"{path}:1: a log of {form} setpoints{who}, but {model} takes {mine} inputs (firmware.inputs)")
@@ -61,14 +61,7 @@ def read_log(path: Path, rig: str | None = None, vehicle: Vehicle | None = None)
     """Read LOG.csv (and the rig from LOG.json, unless given); one UserError line when it cannot be.
     Setpoints in the vehicle's input form (body-frame ones turned into wheel values). numpy's C parser
     reads the columns (a Python loop over the cells took ~0.5 s per minute of log)."""
-    try:
-        with path.open(encoding="utf-8") as fh:
-            header = next(csv.reader([fh.readline()]), [])
-    except (OSError, UnicodeDecodeError) as exc:
-        raise UserError(
-            f"{path}: cannot read the log ({getattr(exc, 'strerror', None) or type(exc).__name__})"
-        ) from None
-    st = _log_struct(path, tuple(header), vehicle)
+    st = _log_struct(path, tuple(csv_header(path)), vehicle)
     columns = log_columns(st)
     col = {name: k for k, name in enumerate(columns)}
     numeric = [k for k, name in enumerate(columns) if name != "phase"]
@@ -78,13 +71,13 @@ def read_log(path: Path, rig: str | None = None, vehicle: Vehicle | None = None)
             path, delimiter=",", skiprows=1, usecols=[col["phase"]], dtype=str, ndmin=1, encoding="utf-8"
         )
     except (ValueError, IndexError, UnicodeDecodeError):
-        raise UserError(_first_bad_row(path, columns)) from None
+        raise UserError(first_bad_row(path, columns)) from None
     if len(num) < 50:
         raise UserError(f"{path}: expected at least 50 rows, found {len(num)}")
     names = [c for c in columns if c != "phase"]
     get = {c: num[:, names.index(c)] for c in names}
-    meta = _side_file(path)
-    _rows_as_written(path, meta, len(num))
+    meta = side_file(path)
+    rows_as_written(path, meta, len(num))
     recorded = str(meta.get("rig", "on-floor"))
     setpoint = {a: get[c] for c, a in st.si_names().items()}
     if st.body:
@@ -105,7 +98,18 @@ def read_log(path: Path, rig: str | None = None, vehicle: Vehicle | None = None)
     )
 
 
-def _rows_as_written(path: Path, meta: dict[str, Any], rows: int) -> None:
+def csv_header(path: Path) -> list[str]:
+    """The first line of a log, as cells; one UserError line when the file cannot be read."""
+    try:
+        with path.open(encoding="utf-8") as fh:
+            return [c.strip() for c in next(csv.reader([fh.readline()]), [])]
+    except (OSError, UnicodeDecodeError) as exc:
+        raise UserError(
+            f"{path}: cannot read the log ({getattr(exc, 'strerror', None) or type(exc).__name__})"
+        ) from None
+
+
+def rows_as_written(path: Path, meta: dict[str, Any], rows: int) -> None:
     """The log holds as many rows as its side file says the run wrote (a trial's log cut to 8000 of
     20000 rows was used without a word)."""
     written = meta.get("log_rows")
@@ -116,7 +120,7 @@ def _rows_as_written(path: Path, meta: dict[str, Any], rows: int) -> None:
         )
 
 
-def _first_bad_row(path: Path, columns: tuple[str, ...]) -> str:
+def first_bad_row(path: Path, columns: tuple[str, ...]) -> str:
     """The first line of the log that is not a row of numbers (phase aside), as one error line; read only
     once numpy's parser has refused the file."""
     with path.open(encoding="utf-8", errors="replace") as fh:
@@ -136,7 +140,7 @@ def _first_bad_row(path: Path, columns: tuple[str, ...]) -> str:
     return f"{path}: every column but phase must be a number"
 
 
-def _side_file(path: Path) -> dict[str, Any]:
+def side_file(path: Path) -> dict[str, Any]:
     """LOG.json beside LOG.csv ({} when there is none); one UserError line when it is not JSON."""
     side = path.with_suffix(".json")
     if not side.exists():

@@ -224,6 +224,20 @@ def fit(
 @RIG_OPTION
 @_situation_options
 @click.option("--for-fit", is_flag=True, help="Choose the plan that makes the fitted parameters best identifiable.")
+@click.option(
+    "--axis",
+    type=click.Choice(["drive", "lift"]),
+    default="drive",
+    show_default=True,
+    help="Plan for the wheels, or for the lift (strokes up and down; the model needs [lift]).",
+)
+@click.option(
+    "--lift-payload",
+    type=QuantityType(units.MASS, "kg"),
+    default="0",
+    show_default=True,
+    help="With --axis lift: the load on the carriage for the whole plan (bare number: kg).",
+)
 def plan(
     model_path: str,
     out_path: str,
@@ -231,16 +245,23 @@ def plan(
     period: float,
     rig: str,
     for_fit: bool,
+    axis: str,
+    lift_payload: float,
     **situation: float,
 ) -> None:
     """Write PLAN.csv: both directions, several speeds and accelerations, turns, spin in place and slow
-    zero crossings, checked with the float model against the envelope and 90 % of the current limit."""
+    zero crossings, checked with the float model against the envelope and 90 % of the current limit.
+    With --axis lift: strokes up and down the lift's travel at several speeds and accelerations with
+    one load, from and back to the bottom, checked against the lift's limits."""
     from kinetab.generator import outputs
 
     from . import excite, planfile, planner
 
     v = model.load(model_path)
     _check_period("bench plan", period)
+    if axis == "lift":
+        _lift_plan(v, Path(out_path), period_s=period, payload_kg=lift_payload, for_fit=for_fit)
+        return
     if for_fit:
         progress = ProgressLine("bench plan")
         try:
@@ -263,6 +284,31 @@ def plan(
     click.echo(
         f"wrote {out_path}: {len(p)} rows of {period * 1000:g} ms, peak current {use:.0%} of the limit "
         f"({rig}); {excite.told_apart(told, cond)}"
+    )
+
+
+def _lift_plan(v: Vehicle, out: Path, *, period_s: float, payload_kg: float, for_fit: bool) -> None:
+    """bench plan --axis lift: write the lift plan and its side file, or one line why not."""
+    import numpy as np
+    from kinetab.generator import lift, outputs
+    from kinetab.generator.errors import CheckFailed
+
+    from . import liftplan, planfile
+
+    if for_fit:
+        raise UserError("bench plan: --for-fit chooses among drive plans; a lift plan is fixed (leave it out)")
+    p = liftplan.make_plan(v, period_s=period_s, payload_kg=payload_kg)
+    problem = liftplan.plan_problem(v, p)
+    if problem:
+        raise CheckFailed(f"bench plan: the lift plan cannot stay inside the lift's limits: {problem}")
+    outputs.write_set({out: liftplan.to_csv(p), planfile.side_file(out): planfile.side_text(v)})
+    assert v.lift is not None
+    si = p.si()
+    peak = float(np.max(np.abs(lift.motor_current(v.lift, si["payload_kg"], si["speed_mps"], si["accel_mps2"]))))
+    click.echo(
+        f"wrote {out}: {len(p)} rows of {period_s * 1000:g} ms, {len(liftplan.STROKES)} strokes up and down "
+        f"with {payload_kg:g} kg on the carriage, peak current {peak / v.lift.current_limit_a:.0%} of "
+        "lift.current_limit; start it with the carriage at the bottom of its travel"
     )
 
 

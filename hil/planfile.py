@@ -137,13 +137,7 @@ def _header_struct(path: Path, header: list[str], v: Vehicle | None) -> interfac
 def read_plan(path: Path, v: Vehicle | None = None) -> Plan:
     """Read a plan CSV in the vehicle's plan columns (file_columns); a problem is one UserError naming the
     file, line and column."""
-    try:
-        text = path.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as exc:
-        raise UserError(
-            f"{path}: cannot read the plan ({getattr(exc, 'strerror', None) or type(exc).__name__})"
-        ) from None
-    rows = list(csv.reader(io.StringIO(text)))
+    rows = csv_rows(path, "plan")
     header = [c.strip() for c in rows[0]] if rows else []
     st = _header_struct(path, header, v)
     cols = plan_columns(st)
@@ -152,16 +146,27 @@ def read_plan(path: Path, v: Vehicle | None = None) -> Plan:
     values, phases = [], []
     for line, row in enumerate(rows[1:], start=2):
         if row:
-            values.append(_numbers(path, line, row, cols, width=len(header)))
-            phases.append(_phase(path, line, row[len(cols)]) if len(header) > len(cols) else "")
+            values.append(numbers(path, line, row, cols, width=len(header)))
+            phases.append(phase_label(path, line, row[len(cols)], PHASES) if len(header) > len(cols) else "")
     if not values:
         raise UserError(f"{path}: the plan has no rows")
     data = np.array(values)
-    _check_time(path, data[:, 0])
+    check_time(path, data[:, 0])
     return _wheel_plan(v, st, {c: data[:, k] for k, c in enumerate(cols)}, phases)
 
 
-def _numbers(path: Path, line: int, row: list[str], cols: tuple[str, ...], *, width: int) -> list[float]:
+def csv_rows(path: Path, what: str) -> list[list[str]]:
+    """The rows of a CSV file; one UserError line when it cannot be read."""
+    try:
+        text = path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise UserError(
+            f"{path}: cannot read the {what} ({getattr(exc, 'strerror', None) or type(exc).__name__})"
+        ) from None
+    return list(csv.reader(io.StringIO(text)))
+
+
+def numbers(path: Path, line: int, row: list[str], cols: tuple[str, ...], *, width: int) -> list[float]:
     """One plan row's values: as many fields as the header, each a finite number (else file:line, column)."""
     if len(row) != width:
         raise UserError(f"{path}:{line}: expected {width} values as the header says, found {len(row)}")
@@ -177,13 +182,11 @@ def _numbers(path: Path, line: int, row: list[str], cols: tuple[str, ...], *, wi
     return out
 
 
-def _phase(path: Path, line: int, text: str) -> str:
-    """A row's phase label: one of PHASES, or empty."""
+def phase_label(path: Path, line: int, text: str, known: tuple[str, ...]) -> str:
+    """A row's phase label: one of `known`, or empty."""
     phase = text.strip()
-    if phase and phase not in PHASES:
-        raise UserError(
-            f"{path}:{line}: {PHASE_COLUMN}: unknown phase {phase!r} (one of {', '.join(PHASES)}, or empty)"
-        )
+    if phase and phase not in known:
+        raise UserError(f"{path}:{line}: {PHASE_COLUMN}: unknown phase {phase!r} (one of {', '.join(known)}, or empty)")
     return phase
 
 
@@ -196,7 +199,7 @@ def _wheel_plan(v: Vehicle | None, st: interface.Struct, columns: dict[str, np.n
     return Plan({"t": columns["t"], **{c: si[a] for c, a in SI_NAME.items()}}, phases)
 
 
-def _check_time(path: Path, t: np.ndarray) -> None:
+def check_time(path: Path, t: np.ndarray) -> None:
     """One row per control period: t rises by the same step on every row (to its 9 printed digits)."""
     if len(t) < 2:
         return

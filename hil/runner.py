@@ -17,8 +17,9 @@ from kinetab.generator import interface, model, outputs, synthesis
 from kinetab.generator.cli_support import Interrupted
 from kinetab.generator.errors import UserError
 
-from . import messages, planfile, session
+from . import liftplan, messages, planfile, session
 from .benchlog import LogWriter
+from .liftlog import LiftLogWriter
 
 
 def plan_steps(v: Any, plan: planfile.Plan, source: Path) -> np.ndarray:
@@ -76,39 +77,77 @@ def bench_run(
     """The whole run; BenchFailed (exit 1) on a fault, timeout or mismatch, UserError (2) on bad input.
     `feedforward` "none" asks the controller to apply no feed-forward current (the speed loop alone)."""
     v = model.load(model_path)
-    plan = planfile.read_plan(plan_path, v)
-    _check_plan(v, plan, plan_path, rig=rig, outside=outside_envelope, log=log_path, accept=accept_other_model)
-    steps = plan_steps(v, plan, plan_path)
+    lift = liftplan.is_lift_header(plan_path)
+    job = _lift_job if lift else _drive_job
+    steps, period, make_log = job(
+        v, plan_path, rig=rig, outside=outside_envelope, log=log_path, accept=accept_other_model
+    )
     fingerprint = synthesis.fingerprint(v)
     if confirm is not None:
         confirm()
     port = _open(url, baud)
-    log = LogWriter(log_path, v, plan, steps)
+    log = make_log()
     link, counters = session.Link(port), session.Counters()
     meta = _meta(v, fingerprint, model=model_path, port=url, plan=plan_path, rig=rig, feedforward=feedforward)
-    meta["rows"] = len(plan)
-    progress = Progress(len(plan))
+    meta.update(rows=len(steps), axis="lift" if lift else "drive")
+    progress = Progress(len(steps))
     reason = "error"
     try:
         ident = session.handshake(link, url)
         meta["controller"] = _controller(ident)
-        session.check_identity(ident, fingerprint, url)
-        session.check_period(ident, planfile.period_s(plan), url, str(plan_path))
+        session.check_identity(ident, fingerprint, url, lift=lift)
+        session.check_period(ident, period, url, str(plan_path))
 
-        def on_sample(index: int, sample: messages.Sample) -> None:
+        def on_sample(index: int, sample: Any) -> None:
             log.add(index, sample)
             progress.show(counters, link.drops.total())
 
         rows = [tuple(int(x) for x in r) for r in steps]
         flags = messages.NO_FEEDFORWARD if feedforward == "none" else 0
         reason = session.run(
-            link, rows, ident=ident, on_sample=on_sample, counters=counters, port_name=url, flags=flags
+            link, rows, ident=ident, on_sample=on_sample, counters=counters, port_name=url, flags=flags, lift=lift
         )
     except BaseException as exc:  # a fault, Ctrl-C, SIGTERM, a lost port: halt first, then let it through
         reason = _ended(exc, counters)
         raise
     finally:
         _finish(link, log, progress, counters, meta=meta, reason=reason)
+
+
+LogMaker = Callable[[], "LogWriter | LiftLogWriter"]
+
+
+def _drive_job(
+    v: Any, plan_path: Path, *, rig: str, outside: bool, log: Path, accept: bool
+) -> tuple[np.ndarray, float | None, LogMaker]:
+    """A drive plan checked and in steps, its period, and how to open its log."""
+    plan = planfile.read_plan(plan_path, v)
+    _check_plan(v, plan, plan_path, rig=rig, outside=outside, log=log, accept=accept)
+    steps = plan_steps(v, plan, plan_path)
+    return steps, planfile.period_s(plan), lambda: LogWriter(log, v, plan, steps)
+
+
+def _lift_job(
+    v: Any, plan_path: Path, *, rig: str, outside: bool, log: Path, accept: bool
+) -> tuple[np.ndarray, float | None, LogMaker]:
+    """A lift plan checked (as _check_plan does a drive plan) and in steps, its period, its log."""
+    del rig  # a lift plan is the same on any rig
+    if v.lift is None:
+        raise UserError(f"{plan_path}: a lift plan, but the model has no [lift] section")
+    plan = liftplan.read_plan(plan_path)
+    _check_origin(v, plan_path, accept_other_model=accept)
+    for target in (log, log.with_suffix(".json")):
+        outputs.check_target(target)
+    problem = liftplan.plan_problem(v, plan)
+    if problem and not outside:
+        raise UserError(
+            f"{plan_path}: {problem}; nothing was sent (make the plan with `kinetab bench plan --axis lift`, "
+            "or pass --outside-envelope to run it anyway)"
+        )
+    if problem:
+        print(f"warning: {plan_path}: {problem}; running it anyway (--outside-envelope)", file=sys.stderr)
+    steps = liftplan.steps(v, plan, plan_path)
+    return steps, liftplan.period_s(plan), lambda: LiftLogWriter(log, v, plan, steps)
 
 
 def _meta(v: Any, fingerprint: int, *, model: str, port: str, plan: Path, rig: str, feedforward: str) -> dict[str, Any]:
@@ -180,7 +219,7 @@ def _controller(ident: messages.Identify) -> dict[str, Any]:
 
 def _finish(
     link: session.Link,
-    log: LogWriter,
+    log: LogWriter | LiftLogWriter,
     progress: Progress,
     counters: session.Counters,
     *,

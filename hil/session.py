@@ -164,6 +164,7 @@ class Stream:
     first_sent_at: float | None = None  # when the first setpoint was first sent (a resend does not move it)
     sent_at: list[float] = field(default_factory=list)
     flags: int = 0  # flags every setpoint carries (messages.NO_FEEDFORWARD)
+    lift: bool = False  # the rows are the lift's (LIFT_SETPOINT), not the drive's
     watchdog_s: float = math.inf  # the controller's watchdog (IDENTIFY): a silence this long halts it
 
     def credit(self) -> int:
@@ -220,7 +221,8 @@ class Stream:
         out: list[messages.Message] = []
         for k in range(self.next_index, self.next_index + n):
             flags = self.flags | (messages.LAST if k == len(self.rows) - 1 else 0)
-            out.append(messages.Setpoint((self.first_seq + k) & 0xFFFF, flags, self.rows[k]))
+            kind = messages.LiftSetpoint if self.lift else messages.Setpoint
+            out.append(kind((self.first_seq + k) & 0xFFFF, flags, self.rows[k]))
             if k < len(self.sent_at):
                 self.sent_at[k] = now
             else:
@@ -234,16 +236,17 @@ def run(
     rows: Rows,
     *,
     ident: messages.Identify,
-    on_sample: Callable[[int, messages.Sample], None],
+    on_sample: Callable[[int, Any], None],
     counters: Counters,
     port_name: str,
     flags: int = 0,
+    lift: bool = False,
 ) -> str:
     """Arm and stream every row (each setpoint with `flags`); calls on_sample(row index, sample) for each
     sample in order (a sample lost on the way is counted and skipped). Returns "completed" or raises
     BenchFailed; the caller sends HALT on every way out."""
     first = 1
-    stream = Stream(rows=rows, first_seq=first, flags=flags, watchdog_s=ident.watchdog_ms / 1000)
+    stream = Stream(rows=rows, first_seq=first, flags=flags, watchdog_s=ident.watchdog_ms / 1000, lift=lift)
     armed = _arm(link, min(max(1, ident.fifo_depth // 2), PREFILL_MAX, len(rows)), port_name)
     stream.free, counters.fifo_depth, counters.fifo_free = armed.free, ident.fifo_depth, armed.free
     with SafePoints() as safe:
@@ -254,7 +257,7 @@ def _stream(
     link: Link,
     stream: Stream,
     *,
-    on_sample: Callable[[int, messages.Sample], None],
+    on_sample: Callable[[int, Any], None],
     counters: Counters,
     port_name: str,
     safe: SafePoints,
@@ -277,7 +280,7 @@ def _stream(
                 f"after {expected} of {len(rows)} samples"
             )
         for msg in msgs:
-            if isinstance(msg, messages.Sample):
+            if isinstance(msg, messages.Sample | messages.LiftSample):
                 ahead = (msg.seq - first - expected) & 0xFFFF
                 if ahead >= 0x8000 or expected + ahead >= len(rows):
                     link.drops.out_of_order += 1  # a repeat, or nothing we sent
