@@ -60,10 +60,10 @@ def edited_text(text: str, changes: Mapping[str, float | str], source: str) -> t
     the vehicle it now describes; ModelError (nothing changed) when the result would not be valid."""
     doc = tomlkit.parse(text.removeprefix("\ufeff"))
     for dotted, value in changes.items():
-        if dotted not in model.FIELDS:
+        if dotted not in model.FIELDS and dotted not in model.OPTIONAL_FIELDS:
             raise ModelError(source, dotted, "a model key such as 'body.mass'", "an unknown key")
         section, key = dotted.split(".")
-        spec = model.SCHEMA[section][key]
+        spec = {**model.SCHEMA, **model.OPTIONAL_SCHEMA}[section][key]
         table: Any = doc.get(section)
         if table is None:
             raise ModelError(source, section, f"a [{section}] section", "nothing (the section is required)")

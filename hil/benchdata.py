@@ -154,8 +154,9 @@ def side_file(path: Path) -> dict[str, Any]:
     return doc
 
 
-def origin_problems(v: Vehicle, log: BenchLog, fingerprint: int) -> tuple[str | None, str | None]:
-    """(why the log is not from this model, how the run fell short) from LOG.json; None where all is well.
+def origin_problems(v: Vehicle, log: Any, fingerprint: int) -> tuple[str | None, str | None]:
+    """(why the log (a BenchLog or a lift log: its path and meta) is not from this model, how the run fell
+    short) from LOG.json; None where all is well.
     The first is an error unless accepted on purpose; the second a warning (the rows recorded are used)."""
     meta, other = log.meta, None
     if not meta:

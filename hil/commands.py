@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import sys
 import tempfile
@@ -160,9 +161,14 @@ def compare(
     from kinetab.generator.errors import CheckFailed
 
     from . import compare as cmp
-    from . import compareplot, fitreport
+    from . import compareplot, fitreport, liftlog
 
     v = model.load(model_path)
+    if liftlog.is_lift_log(Path(log_path)):
+        _lift_compare(
+            v, Path(log_path), as_json=as_json, plot=plot_path, tolerance=tolerance, accept=accept_other_model
+        )
+        return
     if plot_path:
         outputs.check_target(Path(plot_path))
     (log,) = fitreport.checked_logs(v, [Path(log_path)], rig=rig, accept_other_model=accept_other_model)
@@ -175,6 +181,27 @@ def compare(
     if not doc["passed"]:
         raise CheckFailed(
             f"{log_path}: the model does not match the bench: RMS residual above {doc['tolerance_a'] * 1000:.1f} mA"
+        )
+
+
+def _lift_compare(
+    v: Vehicle, path: Path, *, as_json: bool, plot: str | None, tolerance: float | None, accept: bool
+) -> None:
+    """bench compare of a lift log (exit 1 when the RMS residual exceeds the tolerance)."""
+    from kinetab.generator.errors import CheckFailed
+
+    from . import fitreport, liftcompare, liftlog
+
+    if v.lift is None:
+        raise UserError(f"{path}: a lift log, but the model has no [lift] section")
+    if plot:
+        raise UserError("bench compare: --plot draws drive logs; leave it out for a lift log")
+    (log,) = fitreport.checked_logs(v, [path], rig=None, accept_other_model=accept, read=liftlog.read_log)
+    doc = liftcompare.compare(v, log, tolerance_a=tolerance)
+    click.echo(json.dumps(doc, indent=2) if as_json else liftcompare.text(doc))
+    if not doc["passed"]:
+        raise CheckFailed(
+            f"{path}: the lift model does not match the bench: RMS residual above {doc['tolerance_a'] * 1000:.1f} mA"
         )
 
 
@@ -201,11 +228,19 @@ def fit(
     with the further log that would separate them. Prints each estimate with its unit and HAC standard
     error, and the compare RMS per phase before and after. Without --write or --in-place nothing is
     written."""
-    from . import fitreport
+    from . import fitreport, liftlog
 
     if write_path and in_place:
         raise UserError("bench fit: give at most one of --write NEW.toml and --in-place")
     target = Path(model_path) if in_place else Path(write_path) if write_path else None
+    lifts = [liftlog.is_lift_log(Path(p)) for p in log_paths]
+    if any(lifts):
+        if not all(lifts):
+            raise UserError("bench fit: give lift logs and drive logs in separate fits (they share no parameter)")
+        _lift_fit(
+            Path(model_path), [Path(p) for p in log_paths], target=target, as_json=as_json, accept=accept_other_model
+        )
+        return
     fitreport.run_fit(
         Path(model_path),
         [Path(p) for p in log_paths],
@@ -213,6 +248,54 @@ def fit(
         as_json=as_json,
         rig=rig,
         accept_other_model=accept_other_model,
+    )
+
+
+def _lift_fit(model_path: Path, paths: list[Path], *, target: Path | None, as_json: bool, accept: bool) -> None:
+    """bench fit of lift logs: report, and write the fitted lift keys to `target` when given."""
+    from kinetab.generator import model_edit, outputs
+    from kinetab.generator.errors import InternalError, ModelError
+
+    from . import fitreport, liftcompare, liftfit, liftlog
+
+    v = model.load(str(model_path))
+    if v.lift is None:
+        raise UserError(f"{paths[0]}: a lift log, but {model_path} has no [lift] section")
+    if target is not None:
+        outputs.check_target(target)
+    logs = fitreport.checked_logs(v, paths, rig=None, accept_other_model=accept, read=liftlog.read_log)
+    result = liftfit.fit(v, logs)
+    try:
+        text = model_path.read_text(encoding="utf-8")
+        new_text, fitted = model_edit.edited_text(text, result.changes(), str(target or model_path))
+    except ModelError as exc:
+        raise InternalError(
+            f"kinetab: internal error: the lift fit produced a model the loader refuses ({exc.key}: expected "
+            f"{exc.expected}, found {exc.found}); nothing was written; please report this with the logs"
+        ) from None
+    failing = [str(log.path) for log in logs if not liftcompare.compare(fitted, log)["passed"]]
+    if target is not None:
+        outputs.write_file(target, new_text)
+    if as_json:
+        doc = {
+            "axis": "lift",
+            "rows": result.rows,
+            "rms_before_a": result.rms_before_a,
+            "rms_after_a": result.rms_after_a,
+            "estimates": [
+                {**dataclasses.asdict(e), "key": e.key, "written": bool(target and not e.held)}
+                for e in result.estimates
+            ],
+            "compare_fails_after": failing,
+            "written": str(target) if target else None,
+        }
+        click.echo(json.dumps(doc, indent=2))
+        return
+    click.echo(liftfit.text(result))
+    for path in failing:
+        click.echo(f"warning: {path}: the fitted lift model still fails bench compare on this log", err=True)
+    click.echo(
+        f"wrote {target}" if target else "nothing written (--write NEW.toml or --in-place writes the fitted keys)"
     )
 
 

@@ -5,6 +5,7 @@ write the model through the model writer (comments, layout and units kept)."""
 from __future__ import annotations
 
 import json
+from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
@@ -29,15 +30,18 @@ UNIT_KEY = {
 """Fit quantities shown in the unit the user wrote for this model key."""
 
 
-def checked_logs(v: Any, paths: list[Path], *, rig: str | None, accept_other_model: bool) -> list[benchdata.BenchLog]:
-    """Read the logs; a log from another model or fingerprint is exit 2 (a warning when accepted on
-    purpose); an incomplete run is a warning naming how far it went."""
+def checked_logs(
+    v: Any, paths: list[Path], *, rig: str | None, accept_other_model: bool, read: Callable[[Path], Any] | None = None
+) -> list[Any]:
+    """Read the logs (drive logs, or with `read` another kind: liftlog.read_log); a log from another model
+    or fingerprint is exit 2 (a warning when accepted on purpose); an incomplete run is a warning naming
+    how far it went."""
     from kinetab.generator import synthesis
 
     mine, logs = synthesis.fingerprint(v), []
     seen: dict[str, Path] = {}
     for p in paths:
-        log = benchdata.read_log(p, rig, v)
+        log = read(p) if read is not None else benchdata.read_log(p, rig, v)
         digest = _digest(p)
         if digest in seen:  # the same run twice would count its rows twice and shrink the error bars
             raise UserError(f"{p}: the same log as {seen[digest]} (identical contents): give each run once")

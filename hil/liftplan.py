@@ -6,8 +6,8 @@ checks a plan must pass before it is streamed."""
 from __future__ import annotations
 
 import csv
-import math
 import io
+import math
 from dataclasses import dataclass
 from pathlib import Path
 
