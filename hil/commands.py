@@ -253,7 +253,7 @@ def fit(
 
 def _lift_fit(model_path: Path, paths: list[Path], *, target: Path | None, as_json: bool, accept: bool) -> None:
     """bench fit of lift logs: report, and write the fitted lift keys to `target` when given."""
-    from kinetab.generator import model_edit, outputs
+    from kinetab.generator import lift, model_edit, outputs
     from kinetab.generator.errors import InternalError, ModelError
 
     from . import fitreport, liftcompare, liftfit, liftlog
@@ -274,6 +274,8 @@ def _lift_fit(model_path: Path, paths: list[Path], *, target: Path | None, as_js
             f"{exc.expected}, found {exc.found}); nothing was written; please report this with the logs"
         ) from None
     failing = [str(log.path) for log in logs if not liftcompare.compare(fitted, log)["passed"]]
+    report = lift.analyse(fitted)
+    problems = report.problems if report is not None else []
     if target is not None:
         outputs.write_file(target, new_text)
     if as_json:
@@ -287,6 +289,7 @@ def _lift_fit(model_path: Path, paths: list[Path], *, target: Path | None, as_js
                 for e in result.estimates
             ],
             "compare_fails_after": failing,
+            "written_envelope_problems": problems,
             "written": str(target) if target else None,
         }
         click.echo(json.dumps(doc, indent=2))
@@ -294,6 +297,8 @@ def _lift_fit(model_path: Path, paths: list[Path], *, target: Path | None, as_js
     click.echo(liftfit.text(result))
     for path in failing:
         click.echo(f"warning: {path}: the fitted lift model still fails bench compare on this log", err=True)
+    for problem in problems:
+        click.echo(f"warning: the fitted model's lift is beyond its limits: {problem} (build refuses it)", err=True)
     click.echo(
         f"wrote {target}" if target else "nothing written (--write NEW.toml or --in-place writes the fitted keys)"
     )

@@ -15,49 +15,56 @@ from .compare import stats
 
 
 def band(lt: Lift, log: liftlog.LiftLog, m: liftlog.Motion) -> tuple[np.ndarray, np.ndarray, float]:
-    """(lowest, highest) model current per row over speeds within twice the encoder scatter of the smoothed
-    speed (the deadband and blend edges inside that range sampled too) and accelerations between the
-    setpoint's and the measured; and that speed margin, m/s."""
+    """(lowest, highest) model current per row over the motion the log allows, and the speed margin, m/s:
+    speeds from the filtered and the raw encoder speed (the filter smooths the stops, where a screw
+    that back-drives poorly changes its current steeply with speed) widened by twice the encoder's scatter,
+    the deadband and blend edges inside that range sampled too; accelerations between the setpoint's and
+    the filtered."""
     margin = 2 * m.scatter_mps
     load, asked = log.setpoint["payload_kg"], log.setpoint["accel_mps2"]
-    speeds = [m.speed - margin, m.speed, m.speed + margin]
+    low, high = np.minimum(m.speed, log.speed) - margin, np.maximum(m.speed, log.speed) + margin
+    speeds = [low, m.speed, log.speed, high]
     for edge in (lt.deadband_mps, lift.blend_width(lt)):
         for s in (-edge, 0.0, edge):
-            inside = np.abs(m.speed - s) <= margin
-            speeds.append(np.where(inside, s, m.speed))
+            speeds.append(np.where((low <= s) & (s <= high), s, m.speed))
     currents = [lift.motor_current(lt, load, s, a) for s in speeds for a in (asked, m.accel)]
     return np.min(currents, axis=0), np.max(currents, axis=0), margin
 
 
 def compare(v: Vehicle, log: liftlog.LiftLog, *, tolerance_a: float | None = None) -> dict[str, Any]:
-    """The comparison document (SI units, A), with the drive comparison's main fields."""
+    """The comparison document (SI units, A). The verdict rests on the settled rows (liftlog.settled:
+    filtered current against the model at the filtered motion, exact there); the rows where the kind of
+    motion switches within the filter window (starts, stops, the load taking over the motor) are shown
+    apart against the model's range over the motion the log allows (`band`), since a stop on a screw that
+    back-drives poorly takes accelerations no filter follows."""
     lt = v.lift
     assert lt is not None
     m = liftlog.motion(log)
+    settled = liftlog.settled(lt, log, m)
+    load, sp = log.setpoint["payload_kg"], log.setpoint
+    residual = (m.current - lift.motor_current(lt, load, m.speed, m.accel))[settled]
     low, high, margin = band(lt, log, m)
-    ok = log.valid & ~m.edge
-    residual = (log.current - np.clip(log.current, low, high))[ok]
-    at_setpoint = lift.motor_current(
-        lt, log.setpoint["payload_kg"], log.setpoint["speed_mps"], log.setpoint["accel_mps2"]
-    )
+    switching = log.valid & ~m.edge & ~settled
+    at_setpoint = lift.motor_current(lt, load, sp["speed_mps"], sp["accel_mps2"])
     noise = liftlog.noise_floor(log)
     tol = tolerance_a if tolerance_a is not None else math.hypot(lt.current_budget_a, noise)
     whole = stats(residual)
-    phases = log.phase[ok]
+    phases = log.phase[settled]
     return {
         "log": str(log.path),
         "axis": "lift",
-        "rows": int(ok.sum()),
-        "predicted_at": "the measured motion within its uncertainty",
+        "rows": int(settled.sum()),
+        "predicted_at": "the filtered motion (settled rows)",
         "speed_margin_mps": margin,
         "noise_floor_a": noise,
         "tolerance_a": tol,
         "tolerance_rule": "given by --tolerance"
         if tolerance_a is not None
-        else "sqrt(lift.current_budget^2 + noise_floor^2), on the RMS residual",
+        else "sqrt(lift.current_budget^2 + noise_floor^2), on the RMS residual of the settled rows",
         "passed": whole.rms <= tol,
         "lift": vars(whole),
-        "at_setpoint": vars(stats((log.current - at_setpoint)[ok])),
+        "switching": vars(stats((log.current - np.clip(log.current, low, high))[switching])),
+        "at_setpoint": vars(stats((log.current - at_setpoint)[log.valid & ~m.edge])),
         "phases": {p: vars(stats(residual[phases == p])) for p in liftplan.PHASES if np.any(phases == p)},
     }
 
@@ -71,10 +78,13 @@ def text(doc: dict[str, Any]) -> str:
     row = lambda name, d: f"{name:14}{d['rms'] * 1000:9.1f}{d['max'] * 1000:9.1f}{d['bias'] * 1000:9.1f}"  # noqa: E731
     lines.append(row("all", doc["lift"]))
     lines += [row(phase, d) for phase, d in doc["phases"].items()]
+    lines.append(row("switching", doc["switching"]) + "  (not in the verdict)")
     lines.append(row("at setpoints", doc["at_setpoint"]))
     lines.append(
-        f"model range: speeds within +-{doc['speed_margin_mps'] * 1000:.2f} mm/s of the smoothed measured speed, "
-        "accelerations between the setpoint's and the measured; the residual is the distance from it"
+        "settled rows: filtered current against the model at the filtered motion (Savitzky-Golay weights); "
+        f"switching rows ({doc['switching']['rows']}): the distance from the model's range over speeds "
+        f"+-{doc['speed_margin_mps'] * 1000:.2f} mm/s around the filtered and raw speed and accelerations "
+        "between the setpoint's and the filtered"
     )
     lines.append(
         f"noise floor {doc['noise_floor_a'] * 1000:.1f} mA; tolerance {doc['tolerance_a'] * 1000:.1f} mA "

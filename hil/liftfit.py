@@ -91,24 +91,12 @@ def used_rows(lt: Lift, logs: list[liftlog.LiftLog]) -> Rows:
     parts: list[tuple[np.ndarray, ...]] = []
     for k, log in enumerate(logs):
         m = liftlog.motion(log)
-        kind = _kinds(lt, log, m)
-        keep = (kind > 0) & liftlog.steady(kind, m.half) & liftlog.steady(log.valid.astype(int), m.half) & ~m.edge
-        idx = np.flatnonzero(keep & log.valid)
+        idx = np.flatnonzero(liftlog.settled(lt, log, m))
         load = log.setpoint["payload_kg"][idx]
         parts.append((load, m.speed[idx], m.accel[idx], m.current[idx], np.full(idx.size, k), idx))
     load, speed, accel, current, group, index = (np.concatenate([p[j] for p in parts]) for j in range(6))
     period = float(np.median(np.diff(logs[0].t)))
     return Rows(load, speed, accel, current, group.astype(int), index.astype(int), period)
-
-
-def _kinds(lt: Lift, log: liftlog.LiftLog, m: liftlog.Motion) -> np.ndarray:
-    """Per row: 1..4 moving up or down, motoring or back-driven; 5 standing; 0 anything between."""
-    margin = 2 * m.scatter_mps
-    force = lift.load_force(lt, log.setpoint["payload_kg"], m.speed, m.accel)
-    driven = np.asarray(opposed(force, m.speed), dtype=int)
-    moving = np.abs(m.speed) > lift.blend_width(lt) + margin
-    standing = (log.setpoint["speed_mps"] == 0) & (log.setpoint["accel_mps2"] == 0) & (np.abs(m.speed) <= margin)
-    return np.where(moving, 1 + 2 * (m.speed < 0) + driven, np.where(standing, 5, 0))
 
 
 def _with(lt: Lift, names: list[str], x: np.ndarray) -> Lift:

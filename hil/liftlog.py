@@ -9,9 +9,10 @@ from pathlib import Path
 from typing import IO, Any
 
 import numpy as np
-from kinetab.generator import interface
+from kinetab.generator import interface, lift
+from kinetab.generator.dynamics import opposed
 from kinetab.generator.errors import UserError
-from kinetab.generator.vehicle import Vehicle
+from kinetab.generator.vehicle import Lift, Vehicle
 
 from . import benchdata, liftplan, messages
 
@@ -184,3 +185,21 @@ def noise_floor(log: LiftLog) -> float:
     if pairs.sum() < 20:
         pairs = log.valid[1:] & log.valid[:-1]
     return float(np.sqrt(np.mean(np.diff(log.current)[pairs] ** 2) / 2))
+
+
+def kinds(lt: Lift, log: LiftLog, m: Motion) -> np.ndarray:
+    """Per row: 1..4 moving up or down beyond the blend band, the load driving the motor or not; 5 standing
+    with a standing setpoint; 0 anything between (friction and efficiency switch between kinds)."""
+    margin = 2 * m.scatter_mps
+    force = lift.load_force(lt, log.setpoint["payload_kg"], m.speed, m.accel)
+    driven = np.asarray(opposed(force, m.speed), dtype=int)
+    moving = np.abs(m.speed) > lift.blend_width(lt) + margin
+    standing = (log.setpoint["speed_mps"] == 0) & (log.setpoint["accel_mps2"] == 0) & (np.abs(m.speed) <= margin)
+    return np.where(moving, 1 + 2 * (m.speed < 0) + driven, np.where(standing, 5, 0))
+
+
+def settled(lt: Lift, log: LiftLog, m: Motion) -> np.ndarray:
+    """Valid rows whose whole filter window is of one kind (a filter across a switch of kind mixes two
+    laws), away from the log's ends: there the filtered current and motion obey the lift model exactly."""
+    kind = kinds(lt, log, m)
+    return (kind > 0) & steady(kind, m.half) & steady(log.valid.astype(int), m.half) & ~m.edge & log.valid

@@ -26,7 +26,8 @@ STROKES = ((0.25, 0.5), (0.5, 1.0), (0.9, 0.75), (0.7, 0.3))
 and hard, so speed (viscous friction) and acceleration (inertia) vary independently."""
 SMOOTH_S = 0.15  # accelerations ramp over this long (jerk-limited), so a speed loop can follow them
 HOLD_S = 0.5  # at rest before, between and after strokes
-STROKE_OF_TRAVEL = 0.8  # each stroke covers this much of lift.travel
+STROKE_OF_TRAVEL = 0.8  # each stroke covers this much of lift.travel, or less:
+CRUISE_S = 2.0  # no stroke cruises longer than this (a slow lift's plan stays minutes, not hours)
 CURRENT_USE = 0.9  # a plan may ask for at most this much of lift.current_limit (as bench plan)
 
 
@@ -60,9 +61,9 @@ def _profile(lt: Lift, period_s: float) -> np.ndarray:
     rest = np.zeros(int(round(HOLD_S / period_s)))
     parts = [rest]
     for speed, accel in STROKES:
-        up = _stroke_accel(
-            STROKE_OF_TRAVEL * lt.travel_m, speed * lt.speed_max_mps, accel * lt.accel_max_mps2, period_s
-        )
+        top, rate = speed * lt.speed_max_mps, accel * lt.accel_max_mps2
+        distance = min(STROKE_OF_TRAVEL * lt.travel_m, top * CRUISE_S + top * top / rate)
+        up = _stroke_accel(distance, top, rate, period_s)
         parts += [up, rest, -up, rest]
     width = max(1, int(round(SMOOTH_S / period_s)))
     return np.convolve(np.concatenate(parts), np.ones(width) / width)
@@ -84,6 +85,8 @@ def make_plan(v: Vehicle, *, period_s: float, payload_kg: float) -> LiftPlan:
         )
     accel = _profile(lt, period_s)
     speed = np.cumsum(accel) * period_s  # the speed where each period ends (the setpoint convention)
+    accel[np.abs(accel) < 1e-9 * lt.accel_max_mps2] = 0.0  # rests are exactly at rest (sums leave 1e-17)
+    speed[np.abs(speed) < 1e-9 * lt.speed_max_mps] = 0.0
     n = len(accel)
     cols = dict(zip(COLUMNS, (np.arange(n) * period_s, speed, accel, np.full(n, payload_kg))))
     return LiftPlan(cols, phase_of(speed, lt))

@@ -387,3 +387,68 @@ def test_plan_run_fit_recovers_the_truth_and_compare_agrees(tmp_path):
     doc = json.loads(done.stdout)
     assert done.returncode == 0 and doc["passed"]
     assert max(doc["wheels"]["right"]["rms"], doc["wheels"]["left"]["rms"]) <= 1.2 * doc["noise_floor_a"]
+
+
+def test_the_lift_over_the_link_recovers_a_changed_truth(tmp_path):
+    """An invented vehicle with an invented lift (tests/liftsim.py): bench plan --axis lift at two loads,
+    bench simulate with a changed truth, bench run over the real link C (protocol 3): every lift sample's
+    feed-forward equals the emulation of the lift's program; compare fails the model and passes the truth;
+    bench fit --write recovers every fitted parameter within 4 standard errors of the truth, and the
+    written model passes compare and builds."""
+    from kinetab.generator import model as model_file
+    from kinetab.generator import synthesis
+
+    from tests.helpers import to_toml
+    from tests.liftsim import changed_truth, feasible_lift_doc
+
+    doc = feasible_lift_doc(31)
+    truth_doc = changed_truth(doc, np.random.default_rng(31))
+    model, truth = tmp_path / "hoist.toml", tmp_path / "truth.toml"
+    model.write_text(to_toml(doc))
+    truth.write_text(to_toml(truth_doc))
+    v = model_file.load(str(model))
+    assert v.lift is not None
+    logs = []
+    for k, fraction in enumerate((0.1, 0.9)):
+        plan, log = tmp_path / f"lift{k}.csv", tmp_path / f"log{k}.csv"
+        load = f"{fraction * v.lift.payload_max_kg} kg"
+        command = [*KINETAB, "bench", "plan", str(model), "--axis", "lift", "--lift-payload", load, "-o", str(plan)]
+        made = subprocess.run(command, cwd=ROOT, capture_output=True, text=True)
+        assert made.returncode == 0, made.stderr
+        sim = Sim(model, "--truth", str(truth), "--noise", "0.03", "--watchdog", "1 s")
+        run = _run(sim.port, plan, log, model=model)
+        _, err = run.communicate(timeout=900)
+        assert run.returncode == 0, err
+        assert sim.finish()[0] == 0
+        logs.append(log)
+    rows = _log_rows(logs[1])
+    fw = synthesis.synthesise(v).lift
+    assert fw is not None
+    si = {"speed_mps": [], "accel_mps2": [], "payload_kg": []}
+    for r in rows:
+        for name, column in zip(si, ("lift_speed", "lift_accel", "lift_payload")):
+            si[name].append(float(r[column]))
+    steps = interface.to_steps(v, interface.LIFT_IN, {k: np.array(x) for k, x in si.items()})
+    want = emulate.run(fw.program, fw.tables, steps)["current"][:, 0]
+    got = np.round(np.array([float(r["ff_lift_current"]) for r in rows]) / v.lift.current_lsb_a).astype(np.int64)
+    assert np.array_equal(got, want) and np.abs(want).max() > 100
+    compare = lambda m, log, *x: subprocess.run([*KINETAB, "bench", "compare", str(m), str(log), *x],  # noqa: E731
+                                                cwd=ROOT, capture_output=True, text=True).returncode  # fmt: skip
+    assert compare(model, logs[0]) == 1 and compare(truth, logs[0], "--accept-other-model") == 0
+    fitted = tmp_path / "fitted.toml"
+    fit = subprocess.run([*KINETAB, "bench", "fit", str(model), *map(str, logs), "--write", str(fitted), "--json"],
+                         cwd=ROOT, capture_output=True, text=True)  # fmt: skip
+    assert fit.returncode == 0, fit.stderr
+    true_lift, report = model_file.load(str(truth)).lift, json.loads(fit.stdout)
+    for e in report["estimates"]:
+        true = getattr(true_lift, e["name"] if e["name"] in ("efficiency", "backdrive_efficiency") else {
+            "carriage_mass": "carriage_mass_kg", "assist_force": "assist_force_n", "coulomb": "coulomb_n",
+            "viscous": "viscous_ns_per_m"}[e["name"]])  # fmt: skip
+        assert e["written"] and abs(e["value"] - true) <= 4 * e["sigma"], e
+    assert compare(fitted, logs[1], "--accept-other-model") == 0
+    build = [*KINETAB, "build", str(fitted), "-o", str(tmp_path / "fw")]
+    built = subprocess.run(build, cwd=ROOT, capture_output=True, text=True)
+    if report["written_envelope_problems"]:  # the truth asks more of the lift than its limits: said, and refused
+        assert built.returncode == 1 and "lift" in built.stderr, built.stderr
+    else:
+        assert built.returncode == 0, built.stderr
