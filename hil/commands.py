@@ -279,20 +279,7 @@ def _lift_fit(model_path: Path, paths: list[Path], *, target: Path | None, as_js
     if target is not None:
         outputs.write_file(target, new_text)
     if as_json:
-        doc = {
-            "axis": "lift",
-            "rows": result.rows,
-            "rms_before_a": result.rms_before_a,
-            "rms_after_a": result.rms_after_a,
-            "estimates": [
-                {**dataclasses.asdict(e), "key": e.key, "written": bool(target and not e.held)}
-                for e in result.estimates
-            ],
-            "compare_fails_after": failing,
-            "written_envelope_problems": problems,
-            "written": str(target) if target else None,
-        }
-        click.echo(json.dumps(doc, indent=2))
+        click.echo(json.dumps(_lift_fit_doc(result, target, failing=failing, problems=problems), indent=2))
         return
     click.echo(liftfit.text(result))
     for path in failing:
@@ -302,6 +289,22 @@ def _lift_fit(model_path: Path, paths: list[Path], *, target: Path | None, as_js
     click.echo(
         f"wrote {target}" if target else "nothing written (--write NEW.toml or --in-place writes the fitted keys)"
     )
+
+
+def _lift_fit_doc(result: Any, target: Path | None, *, failing: list[str], problems: list[str]) -> dict[str, Any]:
+    """bench fit --json for lift logs (SI units)."""
+    return {
+        "axis": "lift",
+        "rows": result.rows,
+        "rms_before_a": result.rms_before_a,
+        "rms_after_a": result.rms_after_a,
+        "estimates": [
+            {**dataclasses.asdict(e), "key": e.key, "written": bool(target and not e.held)} for e in result.estimates
+        ],
+        "compare_fails_after": failing,
+        "written_envelope_problems": problems,
+        "written": str(target) if target else None,
+    }
 
 
 @bench.command(short_help="Write a jerk-limited test trajectory (CSV) inside the envelope.")

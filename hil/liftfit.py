@@ -96,7 +96,15 @@ def used_rows(lt: Lift, logs: list[liftlog.LiftLog]) -> Rows:
         parts.append((load, m.speed[idx], m.accel[idx], m.current[idx], np.full(idx.size, k), idx))
     load, speed, accel, current, group, index = (np.concatenate([p[j] for p in parts]) for j in range(6))
     period = float(np.median(np.diff(logs[0].t)))
-    return Rows(load, speed, accel, current, group.astype(int), index.astype(int), period)
+    return Rows(
+        payload=load,
+        speed=speed,
+        accel=accel,
+        current=current,
+        group=group.astype(int),
+        index=index.astype(int),
+        period_s=period,
+    )
 
 
 def _with(lt: Lift, names: list[str], x: np.ndarray) -> Lift:

@@ -164,7 +164,7 @@ def motion(log: LiftLog) -> Motion:
     edge = np.zeros(len(log), dtype=bool)
     edge[:half], edge[-half:] = True, True
     scatter = float(np.sqrt(np.mean((log.speed - speed)[~edge] ** 2)))
-    return Motion(speed, accel, _mean(log.current, w), scatter, half, edge)
+    return Motion(speed=speed, accel=accel, current=_mean(log.current, w), scatter_mps=scatter, half=half, edge=edge)
 
 
 def steady(flags: np.ndarray, half: int) -> np.ndarray:

@@ -76,11 +76,8 @@ def bench_run(
 ) -> None:
     """The whole run; BenchFailed (exit 1) on a fault, timeout or mismatch, UserError (2) on bad input.
     `feedforward` "none" asks the controller to apply no feed-forward current (the speed loop alone)."""
-    v = model.load(model_path)
-    lift = liftplan.is_lift_header(plan_path)
-    job = _lift_job if lift else _drive_job
-    steps, period, make_log = job(
-        v, plan_path, rig=rig, outside=outside_envelope, log=log_path, accept=accept_other_model
+    v, lift, (steps, period, make_log) = _prepare(
+        model_path, plan_path, rig=rig, outside=outside_envelope, log=log_path, accept=accept_other_model
     )
     fingerprint = synthesis.fingerprint(v)
     if confirm is not None:
@@ -117,7 +114,18 @@ def bench_run(
 LogMaker = Callable[[], "LogWriter | LiftLogWriter"]
 
 
-def _drive_job(
+def _prepare(
+    model_path: str, plan_path: Path, *, rig: str, outside: bool, log: Path, accept: bool
+) -> tuple[Any, bool, tuple[np.ndarray, float | None, LogMaker]]:
+    """The model, whether the plan is the lift's (its header says), and the plan checked and in steps,
+    its period and how to open its log."""
+    v = model.load(model_path)
+    if liftplan.is_lift_header(plan_path):
+        return v, True, _lift_steps(v, plan_path, outside=outside, log=log, accept=accept)
+    return v, False, _drive_steps(v, plan_path, rig=rig, outside=outside, log=log, accept=accept)
+
+
+def _drive_steps(
     v: Any, plan_path: Path, *, rig: str, outside: bool, log: Path, accept: bool
 ) -> tuple[np.ndarray, float | None, LogMaker]:
     """A drive plan checked and in steps, its period, and how to open its log."""
@@ -127,11 +135,10 @@ def _drive_job(
     return steps, planfile.period_s(plan), lambda: LogWriter(log, v, plan, steps)
 
 
-def _lift_job(
-    v: Any, plan_path: Path, *, rig: str, outside: bool, log: Path, accept: bool
+def _lift_steps(
+    v: Any, plan_path: Path, *, outside: bool, log: Path, accept: bool
 ) -> tuple[np.ndarray, float | None, LogMaker]:
     """A lift plan checked (as _check_plan does a drive plan) and in steps, its period, its log."""
-    del rig  # a lift plan is the same on any rig
     if v.lift is None:
         raise UserError(f"{plan_path}: a lift plan, but the model has no [lift] section")
     plan = liftplan.read_plan(plan_path)

@@ -81,15 +81,15 @@ def write_lift_log(log: liftlog.LiftLog, path: Path, model: Vehicle) -> Path:
     return path
 
 
-def feasible_lift_doc(seed: int, name: str = "hoist") -> dict:
-    """An invented vehicle that builds (tests/helpers.invented_feasible) with an invented lift
+def feasible_lift_doc(seed: int, name: str = "hoist", *, buildable: bool = False) -> dict:
+    """An invented vehicle (tests/helpers.invented, or invented_feasible when it must build) with an invented lift
     (tests/test_lift.random_lift) whose current limit and own supply are 30 % above its envelope's peaks."""
     from kinetab.generator import lift as liftphysics
 
-    from tests.helpers import invented_feasible, vehicle_from
+    from tests.helpers import invented, invented_feasible, vehicle_from
     from tests.test_lift import random_lift
 
-    doc, _ = invented_feasible(seed, name)
+    doc, _ = (invented_feasible if buildable else invented)(seed, name)  # feasible: slower, for `build`
     for attempt in range(100):  # the ranges allow a motor spun past any real supply: draw again
         doc["lift"] = random_lift(np.random.default_rng(1000 * seed + attempt))
         report = liftphysics.analyse(vehicle_from(doc))

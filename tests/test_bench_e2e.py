@@ -401,7 +401,7 @@ def test_the_lift_over_the_link_recovers_a_changed_truth(tmp_path):
     from tests.helpers import to_toml
     from tests.liftsim import changed_truth, feasible_lift_doc
 
-    doc = feasible_lift_doc(31)
+    doc = feasible_lift_doc(31, buildable=True)
     truth_doc = changed_truth(doc, np.random.default_rng(31))
     model, truth = tmp_path / "hoist.toml", tmp_path / "truth.toml"
     model.write_text(to_toml(doc))
