@@ -189,6 +189,7 @@ def _document(
         "data": result.how,
         "model_changes": changes,
         "kept_breakaway_n": identify.kept_breakaway(result),
+        "refit_held": list(result.refit_held),
         "written_envelope_problems": [],
         "compare_rms_a": {"before": before, "after": after},
     }
@@ -286,6 +287,8 @@ def _note(e: dict[str, Any], doc: dict[str, Any]) -> str:
             f"; rests on the held values: the logs give it to +-{100 * rel:.2g} %, +-{100 * total:.2g} % with what "
             "they may be off by"
         )
+    if e["written"] and doc.get("refit_held"):
+        note += "; value of a refit with the unwritten ones at the model's values"
     if e["imprecise"] is not None:
         note = f"not written: known only to +-{100 * e['imprecise']:.2g} % (1 sigma), over {REL_PERCENT} %"
     elif e["parameter"] == "friction.stribeck_speed" and not e["written"]:
@@ -303,6 +306,13 @@ def _after_lines(doc: dict[str, Any]) -> list[str]:
         lines.append(
             f"warning: the fitted model's envelope is infeasible ({doc['written_envelope_problems'][0]}): build "
             f"refuses it unless {gate.ALLOW_OPTION}; the drive's limits or the envelope need a look"
+        )
+    before, after = doc["compare_rms_a"]["before"], doc["compare_rms_a"]["after"]
+    worse = [name for name in after if after[name]["all"] > 1.02 * before[name]["all"]]
+    for name in worse:
+        lines.append(
+            f"warning: the written model fits {name} worse than the model did (compare RMS "
+            f"{before[name]['all'] * 1000:.1f} -> {after[name]['all'] * 1000:.1f} mA); check before writing it in place"
         )
     if doc["compare_fails_after"]:
         lines.append(
