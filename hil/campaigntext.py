@@ -54,6 +54,7 @@ def campaign_files(
         plan = campaign.plan_for(v, c, duration_s=duration_s, period_s=period_s)
         name = f"{k}-{c.slug()}"
         files[out / f"{name}.csv"] = planfile.to_csv(plan, v)
+        files[out / f"{name}.json"] = planfile.side_text(v, rig=c.rig)
         log = out / f"{name}-log.csv"
         logs.append(str(log))
         lines += [

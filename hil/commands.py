@@ -370,7 +370,7 @@ def plan(
         p = planner.make_plan(v, duration_s=duration, period_s=period, rig=rig, seed=None, **situation)
     cond, told = excite.condition(v, p, rig)
     out = Path(out_path)
-    outputs.write_set({out: planfile.to_csv(p, v), planfile.side_file(out): planfile.side_text(v)})
+    outputs.write_set({out: planfile.to_csv(p, v), planfile.side_file(out): planfile.side_text(v, rig=rig)})
     use = planner.plan_current_use(v, p.si(), rig=rig)
     click.echo(
         f"wrote {out_path}: {len(p)} rows of {period * 1000:g} ms, peak current {use:.0%} of the limit "
@@ -610,9 +610,8 @@ def _simulate_board(
 @click.option(
     "--rig",
     type=RIG,
-    default="on-floor",
-    show_default=True,
-    help="Wheels on the floor or lifted (recorded in LOG.json for compare and fit).",
+    help="Wheels on the floor or lifted (recorded in LOG.json for compare and fit). Default: the rig the plan "
+    "was made for (its PLAN.json), else on-floor.",
 )
 @click.option(
     "--feedforward",
@@ -635,7 +634,7 @@ def run(
     log_path: str,
     baud: int,
     yes: bool,
-    rig: str,
+    rig: str | None,
     feedforward: str | None,
     outside_envelope: bool,
     accept_other_model: bool,
@@ -652,7 +651,7 @@ def run(
         log_path=Path(log_path),
         baud=baud,
         rig=rig,
-        feedforward=feedforward or ("none" if rig == "wheels-up" else "model"),
+        feedforward=feedforward,
         outside_envelope=outside_envelope,
         accept_other_model=accept_other_model,
         confirm=None if yes else _confirm,
@@ -683,7 +682,7 @@ def campaign(model_path: str, out_dir: str, duration: float, period: float, nois
     run and CAMPAIGN.txt with the order, what each run needs and the commands, and print it."""
     from kinetab.generator import outputs
 
-    from . import campaigntext, planfile
+    from . import campaigntext
 
     out_folder(out_dir)  # refuses an empty name
     _check_period("bench campaign", period)
@@ -693,7 +692,5 @@ def campaign(model_path: str, out_dir: str, duration: float, period: float, nois
     files, text = campaigntext.campaign_files(
         v, Path(model_path), Path(out_dir), duration_s=duration, period_s=period, noise_a=noise
     )
-    side = planfile.side_text(v)
-    files |= {planfile.side_file(path): side for path in list(files) if path.suffix == ".csv"}
     outputs.write_set(files)
     click.echo(text)

@@ -175,10 +175,7 @@ def fit(v: Vehicle, logs: list[BenchLog]) -> Fit:
     cov, measured = _covariances(fm, m, p, v=v, logs=logs, verdict=verdict, lo=lo, hi=hi)
     measured_rel = _relative(measured, verdict.free, fp.scales(v, x))
     imprecise = {name: r for name, r in measured_rel.items() if not r <= identifiability.REL_TOL}
-    kept = [j for j in verdict.free if fp.NAMES[j] in writable({fp.NAMES[j] for j in verdict.free}, imprecise)]
-    refit = tuple(fp.NAMES[j] for j in verdict.free if j not in kept)
-    x_kept = x if not refit else _refit(fm, x0, scale, Verdict(free=kept, groups=[]), lo=lo, hi=hi)
-    held_x = written_coordinates(x0, x_kept, kept)
+    held_x, refit = _written(fm, x0, x, scale, free=verdict.free, imprecise=imprecise, bounds=(lo, hi))
     written = fp.vehicle_with(v, held_x)
     estimates = _estimates(x0, x, cov, free=verdict.free, lo=lo, hi=hi)
     imprecise |= _derived_imprecise(imprecise, estimates)
@@ -208,15 +205,27 @@ def fit(v: Vehicle, logs: list[BenchLog]) -> Fit:
     )
 
 
-def _refit(
-    fm: regressor.ForceModel, x0: np.ndarray, scale: np.ndarray, verdict: Verdict, *, lo: np.ndarray, hi: np.ndarray
-) -> np.ndarray:
-    """The fit again with only the coordinates to write free, the others (held groups too) at the model's
+def _written(
+    fm: regressor.ForceModel,
+    x0: np.ndarray,
+    x: np.ndarray,
+    scale: np.ndarray,
+    *,
+    free: list[int],
+    imprecise: dict[str, float],
+    bounds: tuple[np.ndarray, np.ndarray],
+) -> tuple[np.ndarray, tuple[str, ...]]:
+    """(the coordinates the file will hold, the fitted ones it does not get). Where some are not written,
+    the others come from the fit again with only them free and the rest (held groups too) at the model's
     values: the values the file gets must fit the logs beside the values it keeps. (A trial wrote mass
     and Coulomb from the joint fit, where the efficiency had moved, beside the file's efficiency: compare
     RMS rose from 154 to 196 mA.)"""
-    m = _map(x0, scale, verdict)
-    return m.x(_solve(fm, m, lo=lo, hi=hi, scale=scale))
+    kept = [j for j in free if fp.NAMES[j] in writable({fp.NAMES[j] for j in free}, imprecise)]
+    refit = tuple(fp.NAMES[j] for j in free if j not in kept)
+    if refit:
+        m = _map(x0, scale, Verdict(free=kept, groups=[]))
+        x = m.x(_solve(fm, m, lo=bounds[0], hi=bounds[1], scale=scale))
+    return written_coordinates(x0, x, kept), refit
 
 
 def writable(free: set[str], imprecise: dict[str, float]) -> set[str]:

@@ -73,14 +73,29 @@ def side_file(path: Path) -> Path:
     return path.with_suffix(".json")
 
 
-def side_text(v: Vehicle) -> str:
-    """The plan's side file: the model's name and fingerprint (bench run compares them)."""
+def side_text(v: Vehicle, *, rig: str | None = None) -> str:
+    """The plan's side file: the model's name and fingerprint (bench run compares them) and the rig the
+    plan was made for (bench run takes it as its default and refuses another)."""
     import json
 
     from kinetab.generator import synthesis
 
     doc = {"model_name": v.name, "fingerprint": f"0x{synthesis.fingerprint(v):08X}"}
+    if rig is not None:
+        doc["rig"] = rig
     return json.dumps(doc, indent=2) + "\n"
+
+
+def plan_rig(path: Path) -> str | None:
+    """The rig PLAN.json says the plan was made for (None: no side file, or none recorded)."""
+    import json
+
+    try:
+        doc = json.loads(side_file(path).read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError):
+        return None
+    rig = doc.get("rig") if isinstance(doc, dict) else None
+    return rig if isinstance(rig, str) else None
 
 
 def origin_problem(v: Vehicle, path: Path) -> tuple[str | None, str | None]:

@@ -8,6 +8,7 @@ import signal
 import sys
 import time
 from collections.abc import Callable
+from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
@@ -68,41 +69,38 @@ def bench_run(
     plan_path: Path,
     log_path: Path,
     baud: int,
-    rig: str = "on-floor",
-    feedforward: str = "model",
+    rig: str | None = None,
+    feedforward: str | None = None,
     outside_envelope: bool = False,
     accept_other_model: bool = False,
     confirm: Callable[[], None] | None,
 ) -> None:
     """The whole run; BenchFailed (exit 1) on a fault, timeout or mismatch, UserError (2) on bad input.
-    `feedforward` "none" asks the controller to apply no feed-forward current (the speed loop alone)."""
-    v, lift, (steps, period, make_log) = _prepare(
-        model_path, plan_path, rig=rig, outside=outside_envelope, log=log_path, accept=accept_other_model
-    )
-    fingerprint = synthesis.fingerprint(v)
+    `rig` None: the one PLAN.json names, else on-floor; `feedforward` "none" asks the controller to apply
+    no feed-forward current (the speed loop alone), the default wheels up."""
+    job = _prepare(model_path, plan_path, rig=rig, outside=outside_envelope, log=log_path, accept=accept_other_model)
+    feedforward = feedforward or ("none" if job.rig == "wheels-up" else "model")
     if confirm is not None:
         confirm()
-    port = _open(url, baud)
-    log = make_log()
-    link, counters = session.Link(port), session.Counters()
-    meta = _meta(v, fingerprint, model=model_path, port=url, plan=plan_path, rig=rig, feedforward=feedforward)
-    meta.update(rows=len(steps), axis="lift" if lift else "drive")
-    progress = Progress(len(steps))
+    link, counters = session.Link(_open(url, baud)), session.Counters()
+    meta = _meta(
+        job.v, job.fingerprint, model=model_path, port=url, plan=plan_path, rig=job.rig, feedforward=feedforward
+    )
+    meta.update(rows=len(job.steps), axis="lift" if job.lift else "drive")
+    progress, log = Progress(len(job.steps)), None
     reason = "error"
     try:
         ident = session.handshake(link, url)
         meta["controller"] = _controller(ident)
-        session.check_identity(ident, fingerprint, url, lift=lift)
-        session.check_period(ident, period, url, str(plan_path))
-
-        def on_sample(index: int, sample: Any) -> None:
-            log.add(index, sample)
-            progress.show(counters, link.drops.total())
-
-        rows = [tuple(int(x) for x in r) for r in steps]
+        session.check_identity(ident, job.fingerprint, url, lift=job.lift)
+        session.check_period(ident, job.period, url, str(plan_path))
+        log = job.make_log()  # only now: a refused controller leaves no log behind
+        outputs.write_file(log_path.with_suffix(".json"), json.dumps({**meta, "ended": "running"}, indent=2) + "\n")
+        on_sample = _sampler(log, progress, counters, link)
+        rows = [tuple(int(x) for x in r) for r in job.steps]
         flags = messages.NO_FEEDFORWARD if feedforward == "none" else 0
         reason = session.run(
-            link, rows, ident=ident, on_sample=on_sample, counters=counters, port_name=url, flags=flags, lift=lift
+            link, rows, ident=ident, on_sample=on_sample, counters=counters, port_name=url, flags=flags, lift=job.lift
         )
     except BaseException as exc:  # a fault, Ctrl-C, SIGTERM, a lost port: halt first, then let it through
         reason = _ended(exc, counters)
@@ -111,18 +109,75 @@ def bench_run(
         _finish(link, log, progress, counters, meta=meta, reason=reason)
 
 
+def _sampler(
+    log: Any, progress: Progress, counters: session.Counters, link: session.Link
+) -> Callable[[int, Any], None]:
+    def on_sample(index: int, sample: Any) -> None:
+        log.add(index, sample)
+        progress.show(counters, link.drops.total())
+
+    return on_sample
+
+
 LogMaker = Callable[[], "LogWriter | LiftLogWriter"]
 
 
-def _prepare(
-    model_path: str, plan_path: Path, *, rig: str, outside: bool, log: Path, accept: bool
-) -> tuple[Any, bool, tuple[np.ndarray, float | None, LogMaker]]:
-    """The model, whether the plan is the lift's (its header says), and the plan checked and in steps,
-    its period and how to open its log."""
+@dataclass(frozen=True, kw_only=True)
+class Job:
+    """What a run streams: the model, the plan in steps and its period, the rig, how to open the log."""
+
+    v: Any
+    lift: bool
+    rig: str
+    steps: np.ndarray
+    period: float | None
+    make_log: LogMaker
+
+    @property
+    def fingerprint(self) -> int:
+        return synthesis.fingerprint(self.v)
+
+
+def _prepare(model_path: str, plan_path: Path, *, rig: str | None, outside: bool, log: Path, accept: bool) -> Job:
+    """The model and the plan, checked (the lift's plan by its header), in steps; the rig resolved
+    against PLAN.json; a log that would overwrite the model, the plan or its side file refused."""
+    _check_log_path(log, model=Path(model_path), plan=plan_path)
     v = model.load(model_path)
-    if liftplan.is_lift_header(plan_path):
-        return v, True, _lift_steps(v, plan_path, outside=outside, log=log, accept=accept)
-    return v, False, _drive_steps(v, plan_path, rig=rig, outside=outside, log=log, accept=accept)
+    lift = liftplan.is_lift_header(plan_path)
+    rig = "on-floor" if lift else _rig(plan_path, rig)
+    if lift:
+        steps, period, make = _lift_steps(v, plan_path, outside=outside, log=log, accept=accept)
+    else:
+        steps, period, make = _drive_steps(v, plan_path, rig=rig, outside=outside, log=log, accept=accept)
+    return Job(v=v, lift=lift, rig=rig, steps=steps, period=period, make_log=make)
+
+
+def _rig(plan_path: Path, asked: str | None) -> str:
+    """The rig of the run: as asked, else as PLAN.json says, else on-floor; a plan made for the other rig
+    is refused (a wheels-up plan run on-floor applied the on-floor feed-forward to lifted wheels)."""
+    planned = planfile.plan_rig(plan_path)
+    if asked is None:
+        return planned or "on-floor"
+    if planned is not None and planned != asked:
+        raise UserError(
+            f"{plan_path}: made for the {planned} rig (its {planfile.side_file(plan_path).name}), but --rig {asked}; "
+            f"run it with --rig {planned}, or make a plan for {asked}"
+        )
+    return asked
+
+
+def _check_log_path(log: Path, *, model: Path, plan: Path) -> None:
+    """One line when LOG.csv or LOG.json would replace the model, the plan or the plan's side file."""
+    taken = {
+        model.resolve(): "the model",
+        plan.resolve(): "the plan",
+        planfile.side_file(plan).resolve(): "the plan's side file",
+    }
+    for target in (log, log.with_suffix(".json")):
+        if target.resolve() in taken:
+            raise UserError(
+                f"--log {log}: would overwrite {taken[target.resolve()]} ({target}); give the log its own name"
+            )
 
 
 def _drive_steps(
@@ -226,19 +281,21 @@ def _controller(ident: messages.Identify) -> dict[str, Any]:
 
 def _finish(
     link: session.Link,
-    log: LogWriter | LiftLogWriter,
+    log: LogWriter | LiftLogWriter | None,
     progress: Progress,
     counters: session.Counters,
     *,
     meta: dict[str, Any],
     reason: str,
 ) -> None:
-    """Every way out: halt the motors, close the log, write LOG.json, close the port."""
+    """Every way out: halt the motors, close the log and write LOG.json (when the run got as far as opening
+    them: the controller answered and matched), close the port."""
     _halt(link)
-    log.close()
-    progress.show(counters, link.drops.total(), final=True)
-    meta.update(_summary(counters, link, reason, log.rows))
-    outputs.write_file(log.path.with_suffix(".json"), json.dumps(meta, indent=2) + "\n")
+    if log is not None:
+        log.close()
+        progress.show(counters, link.drops.total(), final=True)
+        meta.update(_summary(counters, link, reason, log.rows))
+        outputs.write_file(log.path.with_suffix(".json"), json.dumps(meta, indent=2) + "\n")
     link.port.close()
 
 

@@ -326,3 +326,47 @@ def test_fit_json_marks_derived_keys_it_writes_and_checks_the_written_envelope(b
         if e["parameter"] in key:
             assert e["written"] == (key[e["parameter"]] in doc["model_changes"])
     assert doc["written_envelope_problems"] == envelope.problems(model.load(target))
+
+
+def test_a_log_that_would_overwrite_the_plan_or_the_model_is_refused(bench, tmp_path, capsys):
+    """Regression (a trial): --log given the plan's own path replaced the plan and its PLAN.json with the
+    log. Now exit 2 naming what it would overwrite, before the port is opened; the plan is intact."""
+    folder, path, _ = bench
+    v = model.load(path)
+    plan = tmp_path / "short.csv"
+    outputs.write_set({plan: planfile.to_csv(planner.make_plan(v, duration_s=5, period_s=0.001, rig="on-floor")),
+                       planfile.side_file(plan): planfile.side_text(v)})  # fmt: skip
+    before = plan.read_bytes(), planfile.side_file(plan).read_bytes()
+    for log, what in ((plan, "the plan"), (tmp_path / "short.txt", "the plan's side file"), (path, "the model")):
+        args = [
+            "bench",
+            "run",
+            str(path),
+            "--port",
+            "/nonexistent/tty",
+            "--plan",
+            str(plan),
+            "--log",
+            str(log),
+            "--yes",
+        ]
+        code, out, err = run(args, capsys)
+        assert code == 2 and f"would overwrite {what}" in err and "/nonexistent" not in err, err
+    assert (plan.read_bytes(), planfile.side_file(plan).read_bytes()) == before
+
+
+def test_a_plan_runs_on_the_rig_it_was_made_for(bench, tmp_path, capsys):
+    """Regression (a trial): a wheels-up plan run without --rig got the on-floor feed-forward and was
+    logged as on-floor. PLAN.json now records the rig: bench run takes it by default and refuses the
+    other one (exit 2, naming both) before the port is opened."""
+    from kinetab.hil import runner
+
+    folder, path, _ = bench
+    plan = tmp_path / "up.csv"
+    code, _, err = run(["bench", "plan", str(path), "--rig", "wheels-up", "--duration", "5", "-o", str(plan)], capsys)
+    assert code == 0, err
+    assert planfile.plan_rig(plan) == "wheels-up" and runner._rig(plan, None) == "wheels-up"
+    args = ["bench", "run", str(path), "--port", "/nonexistent/tty", "--plan", str(plan), "--yes"]
+    code, _, err = run([*args, "--log", str(tmp_path / "log.csv"), "--rig", "on-floor"], capsys)
+    assert code == 2 and "made for the wheels-up rig" in err and "--rig on-floor" in err
+    assert runner._rig(tmp_path / "none.csv", None) == "on-floor"  # no side file: as before
