@@ -22,8 +22,9 @@ class QuantityType(click.ParamType):
 
     name = "quantity"
 
-    def __init__(self, kind: units.Kind, bare_unit: str) -> None:
-        self.kind, self.bare_unit = kind, bare_unit
+    def __init__(self, kind: units.Kind, bare_unit: str, *, least: float | None = None, above: bool = False) -> None:
+        """`least`: the smallest value allowed (exclusive with `above`), in SI; None: any."""
+        self.kind, self.bare_unit, self.least, self.above = kind, bare_unit, least, above
 
     def convert(self, value: Any, param: click.Parameter | None, ctx: click.Context | None) -> float:
         if isinstance(value, float):
@@ -35,9 +36,13 @@ class QuantityType(click.ParamType):
         except ValueError:
             pass
         try:
-            return units.parse(text, self.kind)
+            result = units.parse(text, self.kind)
         except ValueError:
             self.fail(f"expected {self.kind.name} such as {self.kind.example}, found {value!r}", param, ctx)
+        if self.least is not None and (result < self.least or (self.above and result == self.least)):
+            word = "above" if self.above else "at least"
+            self.fail(f"expected {self.kind.name} {word} {self.least:g} {self.kind.si}, found {value!r}", param, ctx)
+        return result
 
 
 class LazyGroup(click.Group):

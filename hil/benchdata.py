@@ -166,10 +166,15 @@ def origin_problems(v: Vehicle, log: Any, fingerprint: int) -> tuple[str | None,
         )
     name, recorded = meta.get("model_name"), str(meta.get("fingerprint", ""))
     mine = f"0x{fingerprint:08X}"
-    if (name is not None and name != v.name) or (recorded and recorded.upper() != mine.upper()):
+    if (name is not None and name != v.name) or (name is None and recorded and recorded.upper() != mine.upper()):
         other = (
             f"{log.path}: recorded with model '{name or meta.get('model', '?')}' (fingerprint {recorded or '?'}), "
             f"not '{v.name}' ({mine})"
+        )
+    elif recorded and recorded.upper() != mine.upper():
+        other = (
+            f"{log.path}: recorded with another state of model '{v.name}' (fingerprint {recorded}; the model "
+            f"now gives {mine}): a value in the model changed since the run"
         )
     rows, samples = meta.get("rows"), meta.get("samples")
     ended = str(meta.get("ended", meta.get("exit_reason", "")))

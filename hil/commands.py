@@ -142,7 +142,11 @@ def firmware(model_path: str, board_name: str, out_dir: str, period: float, fifo
 @click.argument("log_path", metavar="LOG", type=click.Path(dir_okay=False))
 @click.option("--json", "as_json", is_flag=True, help="Print JSON (SI units) instead of a table.")
 @click.option("--plot", "plot_path", type=click.Path(dir_okay=False), help="Also write the comparison as a PNG.")
-@click.option("--tolerance", type=QuantityType(units.CURRENT, "A"), help="RMS residual allowed (bare number: A).")
+@click.option(
+    "--tolerance",
+    type=QuantityType(units.CURRENT, "A", least=0, above=True),
+    help="RMS residual allowed (bare number: A).",
+)
 @click.option("--rig", type=RIG, help="Override the rig recorded in LOG.json.")
 @ACCEPT_OTHER
 def compare(
@@ -408,7 +412,7 @@ def _lift_plan(v: Vehicle, out: Path, *, period_s: float, payload_kg: float, for
 @click.option("--truth", "truth_path", type=click.Path(dir_okay=False), help="The true vehicle (default: MODEL).")
 @click.option(
     "--noise",
-    type=QuantityType(units.CURRENT, "A"),
+    type=QuantityType(units.CURRENT, "A", least=0),
     default="0",
     show_default=True,
     help="Standard deviation of the measured current (bare number: A).",
@@ -673,7 +677,7 @@ def _confirm() -> None:
 @_period_option("Control period, one row each")
 @click.option(
     "--noise",
-    type=QuantityType(units.CURRENT, "A"),
+    type=QuantityType(units.CURRENT, "A", least=0, above=True),
     help="Expected noise of the measured current (bare number: A; default 1 % of drive.current_limit).",
 )
 def campaign(model_path: str, out_dir: str, duration: float, period: float, noise: float | None) -> None:

@@ -370,3 +370,35 @@ def test_a_plan_runs_on_the_rig_it_was_made_for(bench, tmp_path, capsys):
     code, _, err = run([*args, "--log", str(tmp_path / "log.csv"), "--rig", "on-floor"], capsys)
     assert code == 2 and "made for the wheels-up rig" in err and "--rig on-floor" in err
     assert runner._rig(tmp_path / "none.csv", None) == "on-floor"  # no side file: as before
+
+
+def test_a_log_of_an_earlier_state_of_the_model_is_named_so(bench, tmp_path, capsys):
+    """Same model name, another fingerprint (a value changed since the run): exit 2 saying the model
+    changed, not "recorded with model 'courier' ... not 'courier'" as a trial read."""
+    folder, path, log = bench
+    from kinetab.generator import model_edit
+
+    changed_model = tmp_path / "courier.toml"
+
+    new_text, _ = model_edit.edited_text(path.read_text(), {"friction.viscous": 1.234}, str(changed_model))
+    changed_model.write_text(new_text, encoding="utf-8")
+    code, _, err = run(["bench", "compare", str(changed_model), str(log)], capsys)
+    assert code == 2 and "another state of model 'courier'" in err and "not 'courier'" not in err, err
+
+
+@pytest.mark.parametrize(
+    ("args", "option"),
+    [
+        (["compare", "{model}", "{log}", "--tolerance", "-5 mA"], "--tolerance"),
+        (["compare", "{model}", "{log}", "--tolerance", "0"], "--tolerance"),
+        (["campaign", "{model}", "-o", "{out}", "--noise", "-1 A"], "--noise"),
+        (["simulate", "{model}", "--noise", "-0.1"], "--noise"),
+    ],
+)
+def test_negative_tolerances_and_noises_are_refused(bench, tmp_path, capsys, args, option):
+    """A trial's campaign printed "with -1000 mA of current noise" and compare took a tolerance of -5 mA
+    (always failing): now exit 2 naming the option."""
+    folder, path, log = bench
+    filled = [a.format(model=path, log=log, out=tmp_path / "c") for a in args]
+    code, _, err = run(["bench", *filled], capsys)
+    assert code == 2 and option in err and not (tmp_path / "c").exists(), err
