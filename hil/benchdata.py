@@ -63,21 +63,11 @@ def read_log(path: Path, rig: str | None = None, vehicle: Vehicle | None = None)
     reads the columns (a Python loop over the cells took ~0.5 s per minute of log)."""
     st = _log_struct(path, tuple(csv_header(path)), vehicle)
     columns = log_columns(st)
-    col = {name: k for k, name in enumerate(columns)}
-    numeric = [k for k, name in enumerate(columns) if name != "phase"]
-    try:
-        num = np.loadtxt(path, delimiter=",", skiprows=1, usecols=numeric, ndmin=2, encoding="utf-8")
-        phase = np.loadtxt(
-            path, delimiter=",", skiprows=1, usecols=[col["phase"]], dtype=str, ndmin=1, encoding="utf-8"
-        )
-    except (ValueError, IndexError, UnicodeDecodeError):
-        raise UserError(first_bad_row(path, columns)) from None
-    if len(num) < 50:
-        raise UserError(f"{path}: expected at least 50 rows, found {len(num)}")
+    num, phase, cut = read_table(path, columns)
     names = [c for c in columns if c != "phase"]
     get = {c: num[:, names.index(c)] for c in names}
-    meta = side_file(path)
-    rows_as_written(path, meta, len(num))
+    meta = side_file(path) | ({CUT: True} if cut else {})
+    rows_as_written(path, meta, len(num) + cut)
     recorded = str(meta.get("rig", "on-floor"))
     setpoint = {a: get[c] for c, a in st.si_names().items()}
     if st.body:
@@ -96,6 +86,39 @@ def read_log(path: Path, rig: str | None = None, vehicle: Vehicle | None = None)
         valid=(get["status"].astype(int) & messages.STATUS_MEASURED) != 0,
         meta=meta,
     )
+
+
+CUT = "last_line_cut"
+"""A key read_table adds to a log's side-file dict when it left out a last line cut mid-write."""
+
+
+def read_table(path: Path, columns: tuple[str, ...]) -> tuple[np.ndarray, np.ndarray, bool]:
+    """A log's rows: the numbers of every column but phase (n, columns - 1), the phases, and whether a
+    last line without its line end (the run stopped mid-write: power lost, the process killed) was left
+    out; any other bad line is one UserError naming it. numpy's C parser reads the columns (a Python
+    loop over the cells took ~0.5 s per minute of log)."""
+    with path.open("rb") as fh:
+        size = fh.seek(0, 2)
+        if size:
+            fh.seek(-1, 2)
+        cut = size > 0 and fh.read(1) != b"\n"
+    source: Any = path
+    if cut:
+        lines = path.read_text(encoding="utf-8", errors="replace").splitlines()
+        cut = len(lines) > 2  # a header and one partial row: nothing to keep
+        source = lines[1:-1] if cut else lines[1:]
+    numeric = [k for k, name in enumerate(columns) if name != "phase"]
+    skip = 0 if cut else 1
+    try:
+        num = np.loadtxt(source, delimiter=",", skiprows=skip, usecols=numeric, ndmin=2, encoding="utf-8")
+        phase = np.loadtxt(
+            source, delimiter=",", skiprows=skip, usecols=[columns.index("phase")], dtype=str, ndmin=1, encoding="utf-8"
+        )
+    except (ValueError, IndexError, UnicodeDecodeError):
+        raise UserError(first_bad_row(path, columns)) from None
+    if len(num) < 50:
+        raise UserError(f"{path}: expected at least 50 rows, found {len(num)}")
+    return num, phase, bool(cut)
 
 
 def csv_header(path: Path) -> list[str]:
@@ -159,10 +182,12 @@ def origin_problems(v: Vehicle, log: Any, fingerprint: int) -> tuple[str | None,
     short) from LOG.json; None where all is well.
     The first is an error unless accepted on purpose; the second a warning (the rows recorded are used)."""
     meta, other = log.meta, None
+    cut = "; its last line was cut mid-write and is left out" if meta.get(CUT) else ""
+    meta = {k: x for k, x in meta.items() if k != CUT}
     if not meta:
         return (
             None,
-            f"{log.path}: no {log.path.with_suffix('.json').name} beside it: which model recorded it is unknown",
+            f"{log.path}: no {log.path.with_suffix('.json').name} beside it: which model recorded it is unknown{cut}",
         )
     name, recorded = meta.get("model_name"), str(meta.get("fingerprint", ""))
     mine = f"0x{fingerprint:08X}"
@@ -179,9 +204,14 @@ def origin_problems(v: Vehicle, log: Any, fingerprint: int) -> tuple[str | None,
     rows, samples = meta.get("rows"), meta.get("samples")
     ended = str(meta.get("ended", meta.get("exit_reason", "")))
     short = None
-    if isinstance(rows, int) and isinstance(samples, int) and (samples < rows or (ended and ended != "completed")):
+    if ended == "running":
+        short = f"{log.path}: the run never finished (LOG.json still says running: killed, or the power lost)"
+        short += f"; using the {len(log)} rows recorded"
+    elif isinstance(rows, int) and isinstance(samples, int) and (samples < rows or (ended and ended != "completed")):
         why = ended or "no end recorded"
         short = f"{log.path}: incomplete run: {samples} of {rows} samples ({why}); using those recorded"
+    if cut:
+        short = (short or f"{log.path}: ") + cut.removeprefix("; " if short is None else "")
     return other, short
 
 

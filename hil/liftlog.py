@@ -97,18 +97,11 @@ def read_log(path: Path) -> LiftLog:
     rows = benchdata.csv_header(path)
     if tuple(rows) != COLUMNS:
         raise UserError(f"{path}:1: expected a lift log with the header {','.join(COLUMNS)}")
-    numeric = [k for k, name in enumerate(COLUMNS) if name != "phase"]
-    try:
-        num = np.loadtxt(path, delimiter=",", skiprows=1, usecols=numeric, ndmin=2, encoding="utf-8")
-        phase = np.loadtxt(path, delimiter=",", skiprows=1, usecols=[2], dtype=str, ndmin=1, encoding="utf-8")
-    except (ValueError, IndexError, UnicodeDecodeError):
-        raise UserError(benchdata.first_bad_row(path, COLUMNS)) from None
-    if len(num) < 50:
-        raise UserError(f"{path}: expected at least 50 rows, found {len(num)}")
+    num, phase, cut = benchdata.read_table(path, COLUMNS)
     names = [c for c in COLUMNS if c != "phase"]
     get = {c: num[:, names.index(c)] for c in names}
-    meta = benchdata.side_file(path)
-    benchdata.rows_as_written(path, meta, len(num))
+    meta = benchdata.side_file(path) | ({benchdata.CUT: True} if cut else {})
+    benchdata.rows_as_written(path, meta, len(num) + cut)
     setpoint = {si: get[f"lift_{c}"] for c, si in interface.LIFT_IN.si_names().items()}
     return LiftLog(
         path=path,

@@ -402,3 +402,19 @@ def test_negative_tolerances_and_noises_are_refused(bench, tmp_path, capsys, arg
     filled = [a.format(model=path, log=log, out=tmp_path / "c") for a in args]
     code, _, err = run(["bench", *filled], capsys)
     assert code == 2 and option in err and not (tmp_path / "c").exists(), err
+
+
+def test_a_log_whose_last_line_was_cut_mid_write_is_used_without_that_line(bench, tmp_path, capsys):
+    """Regression (a trial): a run killed mid-write (power lost) left a last line without its line end, and
+    the whole log was refused although README says the rows recorded are used. Now that line is left out
+    with a warning; LOG.json still saying `running` (the run never finished) is named too."""
+    folder, path, log = bench
+    rows = log.read_text().splitlines()
+    cut = tmp_path / "cut.csv"
+    cut.write_text("\n".join(rows[:3001]) + "\n" + rows[3001][:20])
+    meta = json.loads(log.with_suffix(".json").read_text())
+    meta = {k: x for k, x in meta.items() if k not in ("samples", "log_rows")} | {"ended": "running"}
+    cut.with_suffix(".json").write_text(json.dumps(meta))
+    code, out, err = run(["bench", "compare", str(path), str(cut), "--json"], capsys)
+    assert json.loads(out)["rows"] <= 3000 and code in (0, 1), err
+    assert "never finished" in err and "last line was cut mid-write" in err and "using the 3000 rows" in err
