@@ -109,6 +109,7 @@ def run_fit(
     doc = _document(result, changes, logs, before=before, after=after, target=target, units_of=_units(text))
     doc["compare_fails_after"] = failing
     doc["written_envelope_problems"] = envelope.problems(fitted)
+    doc["written_gate_problems"] = gate_problems(fitted) if changes else []
     for e in doc["estimates"]:
         e["note"] = _note(e, doc)
     doc["current_noise_a"] = {
@@ -191,6 +192,7 @@ def _document(
         "kept_breakaway_n": identify.kept_breakaway(result),
         "refit_held": list(result.refit_held),
         "written_envelope_problems": [],
+        "written_gate_problems": [],
         "compare_rms_a": {"before": before, "after": after},
     }
 
@@ -299,9 +301,26 @@ def _note(e: dict[str, Any], doc: dict[str, Any]) -> str:
     return note
 
 
+def gate_problems(fitted: Any) -> list[str]:
+    """The checks of `kinetab verify` the written model would fail on its own (error budget, current step
+    between neighbouring inputs), as lines: a trial's fitted file built and then failed the CI gate."""
+    from kinetab.generator import steps, synthesis
+    from kinetab.generator.errors import CheckFailed
+
+    try:
+        fw = synthesis.synthesise(fitted)
+    except CheckFailed as exc:
+        return [str(exc)]
+    checks = [gate.budget_check(fw), gate.step_check(fw, steps.neighbour_steps(fw))]
+    return [f"{c.name}: {c.detail}" for c in checks if not c.ok]
+
+
 def _after_lines(doc: dict[str, Any]) -> list[str]:
-    """What the written model still gets wrong: an infeasible envelope, logs it still fails compare on."""
-    lines = []
+    """What the written model still gets wrong: an infeasible envelope, a failing CI gate, logs it still
+    fails compare on."""
+    lines = [
+        f"warning: the written model would fail `kinetab verify`: {problem}" for problem in doc["written_gate_problems"]
+    ]
     if doc["written_envelope_problems"]:
         lines.append(
             f"warning: the fitted model's envelope is infeasible ({doc['written_envelope_problems'][0]}): build "

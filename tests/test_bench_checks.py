@@ -418,3 +418,19 @@ def test_a_log_whose_last_line_was_cut_mid_write_is_used_without_that_line(bench
     code, out, err = run(["bench", "compare", str(path), str(cut), "--json"], capsys)
     assert json.loads(out)["rows"] <= 3000 and code in (0, 1), err
     assert "never finished" in err and "last line was cut mid-write" in err and "using the 3000 rows" in err
+
+
+def test_the_fit_names_the_verify_check_a_written_model_would_fail(bench):
+    """Regression (a trial): a fitted file built (with a warning) and then failed `kinetab verify`'s
+    current-step check, and the fit had said nothing. fitreport.gate_problems runs verify's own checks on
+    the written model: a margin far below any real step fails, the model's own margin passes."""
+    import dataclasses
+
+    from kinetab.hil import fitreport
+
+    folder, path, _ = bench
+    v = model.load(path)
+    tight = dataclasses.replace(v, firmware=dataclasses.replace(v.firmware, current_step_margin_a=1e-9))
+    problems = fitreport.gate_problems(tight)
+    assert len(problems) == 1 and problems[0].startswith("current step:") and "current_step_margin" in problems[0]
+    assert fitreport.gate_problems(v) == []
