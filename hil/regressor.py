@@ -96,10 +96,9 @@ def rows(v: Vehicle, logs: list[BenchLog], *, cutoff_hz: float = CUTOFF_HZ) -> R
     """Filter every log alike and stack both wheels; rows whose window holds an invalid sample are dropped.
 
     The measured current is split by the direction of power flow before filtering (the split is not
-    linear; each part is). The direction comes from `v`'s predicted force, not from the measured
-    current: choosing rows or columns by the measured output would bias the fit. Rows are weighted 0
-    where the window crosses a friction kink or a change of direction, or the predicted force is too
-    small for its direction to be sure (below AMBIGUOUS of its RMS over the log)."""
+    linear; each part is). The direction is the measured current's own (a choice by the measured output;
+    the model's predicted force instead, tried on a trial's vehicle, left the fit where it was). Rows are
+    weighted 0 where the window crosses a friction kink or a change of direction."""
     parts: list[list[np.ndarray]] = [[] for _ in range(6)]
     ops, how = [], []
     for k, log in enumerate(logs):
@@ -137,11 +136,8 @@ def rows(v: Vehicle, logs: list[BenchLog], *, cutoff_hz: float = CUTOFF_HZ) -> R
     return Rows(ops=ops, measured=measured, speed=speeds, log=which, sample=sample, how=how, weight=weight)
 
 
-AMBIGUOUS = 0.1  # a predicted force below this fraction of its RMS leaves the direction of power flow in doubt
-
-
 def _doubtful(force: np.ndarray, speed: np.ndarray, half: int) -> np.ndarray:
-    """Rows whose filter window holds both directions of power flow, or a force too small to be sure."""
+    """Rows whose filter window holds both directions of power flow."""
     back = dynamics.opposed(force, speed).astype(float)
     frac = np.convolve(back, np.ones(2 * half + 1) / (2 * half + 1), mode="same")
     return (frac > 0) & (frac < 1)
