@@ -36,6 +36,7 @@ BAD = [
     ("body.mass", "-3 kg", "> 0"),  # range
     ("body.mass", "abc kg", "a mass"),  # unreadable quantity
     ("body.mass", "inf kg", "a mass"),  # not finite
+    ("body.mass", "38 g", "1/50 of payload.mass_max"),  # grams for kilograms (a trial's slip)
     ("wheels.grip", float("nan"), "finite"),  # not finite ratio
     ("wheels.grip", "0.6", "bare number"),  # ratio given as string
     ("wheels.grip", True, "bare number"),  # boolean
