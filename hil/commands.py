@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import dataclasses
 import json
 import sys
 import tempfile
@@ -241,7 +240,7 @@ def fit(
     if any(lifts):
         if not all(lifts):
             raise UserError("bench fit: give lift logs and drive logs in separate fits (they share no parameter)")
-        _lift_fit(
+        fitreport.run_lift_fit(
             Path(model_path), [Path(p) for p in log_paths], target=target, as_json=as_json, accept=accept_other_model
         )
         return
@@ -253,62 +252,6 @@ def fit(
         rig=rig,
         accept_other_model=accept_other_model,
     )
-
-
-def _lift_fit(model_path: Path, paths: list[Path], *, target: Path | None, as_json: bool, accept: bool) -> None:
-    """bench fit of lift logs: report, and write the fitted lift keys to `target` when given."""
-    from kinetab.generator import lift, model_edit, outputs
-    from kinetab.generator.errors import InternalError, ModelError
-
-    from . import fitreport, liftcompare, liftfit, liftlog
-
-    v = model.load(str(model_path))
-    if v.lift is None:
-        raise UserError(f"{paths[0]}: a lift log, but {model_path} has no [lift] section")
-    if target is not None:
-        outputs.check_target(target)
-    logs = fitreport.checked_logs(v, paths, rig=None, accept_other_model=accept, read=liftlog.read_log)
-    result = liftfit.fit(v, logs)
-    try:
-        text = model_path.read_text(encoding="utf-8")
-        new_text, fitted = model_edit.edited_text(text, result.changes(), str(target or model_path))
-    except ModelError as exc:
-        raise InternalError(
-            f"kinetab: internal error: the lift fit produced a model the loader refuses ({exc.key}: expected "
-            f"{exc.expected}, found {exc.found}); nothing was written; please report this with the logs"
-        ) from None
-    failing = [str(log.path) for log in logs if not liftcompare.compare(fitted, log)["passed"]]
-    report = lift.analyse(fitted)
-    problems = report.problems if report is not None else []
-    if target is not None:
-        outputs.write_file(target, new_text)
-    if as_json:
-        click.echo(json.dumps(_lift_fit_doc(result, target, failing=failing, problems=problems), indent=2))
-        return
-    click.echo(liftfit.text(result))
-    for path in failing:
-        click.echo(f"warning: {path}: the fitted lift model still fails bench compare on this log", err=True)
-    for problem in problems:
-        click.echo(f"warning: the fitted model's lift is beyond its limits: {problem} (build refuses it)", err=True)
-    click.echo(
-        f"wrote {target}" if target else "nothing written (--write NEW.toml or --in-place writes the fitted keys)"
-    )
-
-
-def _lift_fit_doc(result: Any, target: Path | None, *, failing: list[str], problems: list[str]) -> dict[str, Any]:
-    """bench fit --json for lift logs (SI units)."""
-    return {
-        "axis": "lift",
-        "rows": result.rows,
-        "rms_before_a": result.rms_before_a,
-        "rms_after_a": result.rms_after_a,
-        "estimates": [
-            {**dataclasses.asdict(e), "key": e.key, "written": bool(target and not e.held)} for e in result.estimates
-        ],
-        "compare_fails_after": failing,
-        "written_envelope_problems": problems,
-        "written": str(target) if target else None,
-    }
 
 
 @bench.command(short_help="Write a jerk-limited test trajectory (CSV) inside the envelope.")

@@ -91,20 +91,11 @@ def run_fit(
     v = model.load(model_path)
     if target is not None:
         outputs.check_target(target)
-    try:
-        text = model_path.read_text(encoding="utf-8")
-    except OSError as exc:
-        raise UserError(f"{model_path}: cannot read ({exc.strerror})") from None
+    text = _model_text(model_path)
     logs = checked_logs(v, log_paths, rig=rig, accept_other_model=accept_other_model)
     result = identify.fit(v, logs)
     changes = identify.model_changes(result)
-    try:
-        new_text, fitted = model_edit.edited_text(text, changes, str(target or model_path))
-    except ModelError as exc:
-        raise InternalError(
-            f"kinetab: internal error: the fit produced a model the loader refuses ({exc.key}: expected "
-            f"{exc.expected}, found {exc.found}); nothing was written; please report this with the logs"
-        ) from None
+    new_text, fitted = _edited(text, changes, target or model_path)
     (before, _), (after, failing) = _phase_rms(v, logs), _phase_rms(fitted, logs)
     doc = _document(result, changes, logs, before=before, after=after, target=target, units_of=_units(text))
     doc["compare_fails_after"] = failing
@@ -119,6 +110,76 @@ def run_fit(
     if target is not None:
         outputs.write_file(target, new_text)
     click.echo(json.dumps(doc, indent=2) if as_json else _tables(doc))
+
+
+def _model_text(model_path: Path) -> str:
+    try:
+        return model_path.read_text(encoding="utf-8")
+    except OSError as exc:
+        raise UserError(f"{model_path}: cannot read ({exc.strerror})") from None
+
+
+def _edited(text: str, changes: dict[str, float], source: Path) -> tuple[str, Any]:
+    """The model text with the fitted values and the vehicle it describes; a model the loader refuses is
+    kinetab's own mistake (exit 3, nothing written)."""
+    try:
+        return model_edit.edited_text(text, changes, str(source))
+    except ModelError as exc:
+        raise InternalError(
+            f"kinetab: internal error: the fit produced a model the loader refuses ({exc.key}: expected "
+            f"{exc.expected}, found {exc.found}); nothing was written; please report this with the logs"
+        ) from None
+
+
+def run_lift_fit(model_path: Path, paths: list[Path], *, target: Path | None, as_json: bool, accept: bool) -> None:
+    """bench fit of lift logs: report, and write the fitted lift keys to `target` when given."""
+    from kinetab.generator import lift
+
+    from . import liftcompare, liftfit, liftlog
+
+    v = model.load(model_path)
+    if v.lift is None:
+        raise UserError(f"{paths[0]}: a lift log, but {model_path} has no [lift] section")
+    if target is not None:
+        outputs.check_target(target)
+    text = _model_text(model_path)
+    logs = checked_logs(v, paths, rig=None, accept_other_model=accept, read=liftlog.read_log)
+    result = liftfit.fit(v, logs)
+    new_text, fitted = _edited(text, result.changes(), target or model_path)
+    failing = [str(log.path) for log in logs if not liftcompare.compare(fitted, log)["passed"]]
+    report = lift.analyse(fitted)
+    problems = report.problems if report is not None else []
+    if target is not None:
+        outputs.write_file(target, new_text)
+    if as_json:
+        click.echo(json.dumps(_lift_document(result, target, failing=failing, problems=problems), indent=2))
+        return
+    click.echo(liftfit.text(result))
+    for path in failing:
+        click.echo(f"warning: {path}: the fitted lift model still fails bench compare on this log", err=True)
+    for problem in problems:
+        click.echo(f"warning: the fitted model's lift is beyond its limits: {problem} (build refuses it)", err=True)
+    click.echo(
+        f"wrote {target}" if target else "nothing written (--write NEW.toml or --in-place writes the fitted keys)"
+    )
+
+
+def _lift_document(result: Any, target: Path | None, *, failing: list[str], problems: list[str]) -> dict[str, Any]:
+    """bench fit --json for lift logs (SI units)."""
+    import dataclasses
+
+    return {
+        "axis": "lift",
+        "rows": result.rows,
+        "rms_before_a": result.rms_before_a,
+        "rms_after_a": result.rms_after_a,
+        "estimates": [
+            {**dataclasses.asdict(e), "key": e.key, "written": bool(target and not e.held)} for e in result.estimates
+        ],
+        "compare_fails_after": failing,
+        "written_envelope_problems": problems,
+        "written": str(target) if target else None,
+    }
 
 
 def _units(text: str) -> dict[str, tuple[str, float]]:

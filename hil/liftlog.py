@@ -14,7 +14,7 @@ from kinetab.generator.dynamics import opposed
 from kinetab.generator.errors import UserError
 from kinetab.generator.vehicle import Lift, Vehicle
 
-from . import benchdata, liftplan, messages
+from . import benchdata, liftplan, messages, planfile
 
 COLUMNS = (
     "t",
@@ -84,12 +84,7 @@ class LiftLog:
 
 def is_lift_log(path: Path) -> bool:
     """True when the file's first line is a lift log's header."""
-    try:
-        with path.open(encoding="utf-8") as f:
-            first = f.readline()
-    except (OSError, UnicodeDecodeError):
-        return False
-    return [c.strip() for c in first.split(",")][:4] == list(COLUMNS[:4])
+    return planfile.header_starts(path, COLUMNS[:4])
 
 
 def read_log(path: Path) -> LiftLog:

@@ -100,9 +100,7 @@ def _lift(v: Vehicle, where: str) -> Lift:
 
 def positions(plan: LiftPlan) -> np.ndarray:
     """Carriage height over the start, m, at the end of each period."""
-    t = plan.columns["t"]
-    dt = float(t[1] - t[0]) if len(t) > 1 else 0.0
-    return np.cumsum(plan.columns["lift_speed"]) * dt
+    return np.cumsum(plan.columns["lift_speed"]) * (period_s(plan) or 0.0)
 
 
 def plan_problem(v: Vehicle, plan: LiftPlan) -> str | None:
@@ -140,12 +138,7 @@ def to_csv(plan: LiftPlan) -> str:
 
 def is_lift_header(path: Path) -> bool:
     """True when the file's first line is a lift plan's header (bench run streams it to the lift)."""
-    try:
-        with path.open(encoding="utf-8") as f:
-            first = f.readline()
-    except (OSError, UnicodeDecodeError):
-        return False
-    return [c.strip() for c in first.split(",")][:2] == list(COLUMNS[:2])
+    return planfile.header_starts(path, COLUMNS[:2])
 
 
 def read_plan(path: Path) -> LiftPlan:

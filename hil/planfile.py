@@ -68,6 +68,17 @@ def phase_of(speed: np.ndarray, accel: np.ndarray, deadband_mps: float) -> list[
     return out
 
 
+def header_starts(path: Path, columns: tuple[str, ...]) -> bool:
+    """True when the CSV file's first line begins with `columns` (how bench run, compare and fit know a
+    lift plan or log from a drive one); False when it cannot be read."""
+    try:
+        with path.open(encoding="utf-8") as f:
+            first = f.readline()
+    except (OSError, UnicodeDecodeError):
+        return False
+    return [c.strip() for c in first.split(",")][: len(columns)] == list(columns)
+
+
 def side_file(path: Path) -> Path:
     """PLAN.json beside PLAN.csv: which model the plan was made for."""
     return path.with_suffix(".json")

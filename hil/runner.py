@@ -184,8 +184,19 @@ def _drive_steps(
     v: Any, plan_path: Path, *, rig: str, outside: bool, log: Path, accept: bool
 ) -> tuple[np.ndarray, float | None, LogMaker]:
     """A drive plan checked and in steps, its period, and how to open its log."""
+    from . import planner
+
     plan = planfile.read_plan(plan_path, v)
-    _check_plan(v, plan, plan_path, rig=rig, outside=outside, log=log, accept=accept)
+    _check_plan(
+        v,
+        plan_path,
+        planner.plan_problem(v, plan, rig),
+        remake="kinetab bench plan",
+        outside=outside,
+        log=log,
+        accept=accept,
+        worst=lambda: planner.excess_summary(plan, planner.plan_excesses(v, plan, rig)),
+    )
     steps = plan_steps(v, plan, plan_path)
     return steps, planfile.period_s(plan), lambda: LogWriter(log, v, plan, steps)
 
@@ -193,21 +204,13 @@ def _drive_steps(
 def _lift_steps(
     v: Any, plan_path: Path, *, outside: bool, log: Path, accept: bool
 ) -> tuple[np.ndarray, float | None, LogMaker]:
-    """A lift plan checked (as _check_plan does a drive plan) and in steps, its period, its log."""
+    """A lift plan checked and in steps, its period, and how to open its log."""
     if v.lift is None:
         raise UserError(f"{plan_path}: a lift plan, but the model has no [lift] section")
     plan = liftplan.read_plan(plan_path)
-    _check_origin(v, plan_path, accept_other_model=accept)
-    for target in (log, log.with_suffix(".json")):
-        outputs.check_target(target)
     problem = liftplan.plan_problem(v, plan)
-    if problem and not outside:
-        raise UserError(
-            f"{plan_path}: {problem}; nothing was sent (make the plan with `kinetab bench plan --axis lift`, "
-            "or pass --outside-envelope to run it anyway)"
-        )
-    if problem:
-        print(f"warning: {plan_path}: {problem}; running it anyway (--outside-envelope)", file=sys.stderr)
+    remake = "kinetab bench plan --axis lift"
+    _check_plan(v, plan_path, problem, remake=remake, outside=outside, log=log, accept=accept)
     steps = liftplan.steps(v, plan, plan_path)
     return steps, liftplan.period_s(plan), lambda: LiftLogWriter(log, v, plan, steps)
 
@@ -237,24 +240,31 @@ def _check_origin(v: Any, plan_path: Path, *, accept_other_model: bool) -> None:
             print(f"warning: {warning}", file=sys.stderr)
 
 
-def _check_plan(v: Any, plan: planfile.Plan, path: Path, *, rig: str, outside: bool, log: Path, accept: bool) -> None:
+def _check_plan(
+    v: Any,
+    path: Path,
+    problem: str | None,
+    *,
+    remake: str,
+    outside: bool,
+    log: Path,
+    accept: bool,
+    worst: Callable[[], str] | None = None,
+) -> None:
     """Refuse (exit 2, before the port is opened) a plan made for another model (unless `accept`), a plan
-    outside the envelope or the drive's limits (unless accepted on purpose, then with a warning), and a
-    log (LOG.csv, LOG.json) that cannot be written."""
+    with a `problem` (outside the envelope or the limits; unless accepted on purpose, then with a
+    warning and the `worst` rows), and a log (LOG.csv, LOG.json) that cannot be written."""
     _check_origin(v, path, accept_other_model=accept)
     for target in (log, log.with_suffix(".json")):
         outputs.check_target(target)
-    from . import planner
-
-    problem = planner.plan_problem(v, plan, rig)
     if problem and not outside:
         raise UserError(
-            f"{path}: {problem}; nothing was sent (make the plan with `kinetab bench plan`, or pass "
+            f"{path}: {problem}; nothing was sent (make the plan with `{remake}`, or pass "
             "--outside-envelope to run it anyway)"
         )
     if problem:
-        worst = planner.excess_summary(plan, planner.plan_excesses(v, plan, rig))
-        print(f"warning: {path}: {problem}; {worst}; running it anyway (--outside-envelope)", file=sys.stderr)
+        detail = f"; {worst()}" if worst is not None else ""
+        print(f"warning: {path}: {problem}{detail}; running it anyway (--outside-envelope)", file=sys.stderr)
 
 
 def _ended(exc: BaseException, counters: session.Counters) -> str:

@@ -66,6 +66,17 @@ def changed(v, rng, names=fp.NAMES[:8]):
     return fp.vehicle_with(v, x), x
 
 
+def campaign_logs(v, truth, design, *, duration_s: float, noise_of_limit: float) -> list[benchdata.BenchLog]:
+    """In-process logs (tests/benchsim.py) of every run of a designed campaign, the truth behind the plant,
+    current noise a fraction of drive.current_limit; feed-forward on the floor, none wheels up."""
+    logs = []
+    for c in design.logs:
+        plan = campaign.plan_for(v, c, duration_s=duration_s, period_s=0.001)
+        noise = noise_of_limit * v.drive.current_limit_a
+        logs += run_plan(v, truth, plan, rig=c.rig, feedforward=c.rig == "on-floor", noise_a=noise)
+    return logs
+
+
 def float_log(truth, plan, rig: str, *, noise: float, seed: int) -> benchdata.BenchLog:
     """The plan's motion with the float model's currents of `truth` plus white noise: a log with no
     speed loop and no encoder, for the checks that are about the algebra."""
@@ -309,12 +320,7 @@ def test_in_process_bench_logs_fit_within_three_percent_on_a_short_campaign():
     wheels-up, level empty and loaded, and a ramp, 40 s each at 1 ms: every coordinate within 3 %."""
     v, rng, design = identifiable_vehicle(9, duration_s=40)
     truth, x_true = changed(v, rng, fp.NAMES[:10])
-    logs = []
-    for c in design.logs:
-        plan = campaign.plan_for(v, c, duration_s=40, period_s=0.001)
-        logs += run_plan(
-            v, truth, plan, rig=c.rig, feedforward=c.rig == "on-floor", noise_a=0.01 * v.drive.current_limit_a
-        )
+    logs = campaign_logs(v, truth, design, duration_s=40, noise_of_limit=0.01)
     result = identify.fit(v, logs)
     assert not result.held, [h.names for h in result.held]
     assert_close(v, result, x_true, 0.03)
@@ -398,12 +404,7 @@ def test_values_written_beside_unwritten_ones_are_refitted_with_those_at_the_mod
     written beside the kept values, nor above the model's own."""
     v, rng, design = identifiable_vehicle(14, duration_s=8)
     truth, _ = changed(v, rng, fp.NAMES[:10])
-    logs = []
-    for c in design.logs:
-        plan = campaign.plan_for(v, c, duration_s=8, period_s=0.001)
-        logs += run_plan(
-            v, truth, plan, rig=c.rig, feedforward=c.rig == "on-floor", noise_a=0.08 * v.drive.current_limit_a
-        )
+    logs = campaign_logs(v, truth, design, duration_s=8, noise_of_limit=0.08)
     result = identify.fit(v, logs)
     assert result.refit_held, "the draw should leave a coordinate too imprecise to write"
     fm = regressor.force_model(v, regressor.rows(v, logs))
