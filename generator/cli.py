@@ -78,6 +78,14 @@ def point_options(st: interface.Struct) -> Callable[[Callable[..., Any]], Callab
     return add
 
 
+FORCE_TERMS = ("inertia", "coriolis", "friction", "rolling", "gravity", "total")
+
+
+def force_terms(v: Vehicle) -> tuple[str, ...]:
+    """The force terms predict shows: a skid-steer's also its turning resistance (before the total)."""
+    return FORCE_TERMS if v.skid is None else (*FORCE_TERMS[:-1], "turning", "total")
+
+
 def predict_point(v: Vehicle, op: dynamics.OperatingPoint) -> dict[str, Any]:
     """The predict JSON document (SI units) for one operating point; current_fixed filled later."""
     right, left = dynamics.wheel_forces(v, op)
@@ -89,10 +97,7 @@ def predict_point(v: Vehicle, op: dynamics.OperatingPoint) -> dict[str, Any]:
         torque = dynamics.motor_torque(v, side.total, speed)
         current = dynamics.motor_current(v, side.total, speed)
         doc[name] = {
-            "force": {
-                key: float(getattr(side, key))
-                for key in ("inertia", "coriolis", "friction", "rolling", "gravity", "total")
-            },
+            "force": {key: float(getattr(side, key)) for key in force_terms(v)},
             "motor_torque": float(torque),
             "current": float(current),
             "voltage": float(dynamics.motor_voltage(v, current, speed)),
@@ -288,7 +293,7 @@ def _flagged_text(columns: list[str]) -> str:
 
 def _predict_table(doc: dict[str, Any]) -> str:
     lines = [f"{'':22}{'right':>12}{'left':>12}"]
-    for key in ("inertia", "coriolis", "friction", "rolling", "gravity", "total"):
+    for key in doc["right"]["force"]:
         lines.append(f"{'force ' + key + ' [N]':22}{doc['right']['force'][key]:12.4f}{doc['left']['force'][key]:12.4f}")
     for key, unit in (("motor_torque", "N*m"), ("current", "A"), ("voltage", "V"), ("current_fixed", "A")):
         cells = [doc[side][key] for side in ("right", "left")]

@@ -47,17 +47,19 @@ class OperatingPoint:
 
 @dataclass(frozen=True)
 class WheelForces:
-    """Longitudinal force terms at one wheel's rim, N (Q = M q'' + V + F + R + G)."""
+    """Longitudinal force terms at one side's rim, N (Q = M q'' + V + F + R + G + T); a skid-steer's
+    side is all its wheels together, and T its share of the turning resistance (0 on two wheels)."""
 
     inertia: Array
     coriolis: Array
     friction: Array
     rolling: Array
     gravity: Array
+    turning: Array | float = 0.0
 
     @property
     def total(self) -> Array:
-        return self.inertia + self.coriolis + self.friction + self.rolling + self.gravity
+        return self.inertia + self.coriolis + self.friction + self.rolling + self.gravity + self.turning
 
 
 def half_track(v: Vehicle) -> float:
@@ -92,10 +94,22 @@ def combined(v: Vehicle, payload_kg: ArrayLike) -> Combined:
     return Combined(mass_kg=m, cog_ahead_m=c, cog_height_m=h, yaw_inertia_kgm2=inertia)
 
 
+def wheels_per_side(v: Vehicle) -> int:
+    """Driven wheels on each side: skid.wheels_per_side, 1 for two drive wheels and casters."""
+    return 1 if v.skid is None else int(v.skid.wheels_per_side)
+
+
+def motors_per_side(v: Vehicle) -> int:
+    """Motors on each side, all given the same current: skid.motors_per_side, else 1."""
+    return 1 if v.skid is None else int(v.skid.motors_per_side)
+
+
 def reflected_mass(v: Vehicle) -> float:
-    """Equivalent rim mass of one wheel's rotation: J_wheel/r^2 + J_rotor*i^2/r^2, kg."""
+    """Equivalent rim mass of one side's rotating parts, kg: n J_wheel/r^2 + n_m J_rotor i^2/r^2 with n
+    wheels and n_m motors per side (1 and 1 on two drive wheels)."""
     r = wheel_radius(v)
-    return (v.wheels.inertia_kgm2 + v.drive.rotor_inertia_kgm2 * v.drive.gear_ratio**2) / r**2
+    wheels = wheels_per_side(v) * v.wheels.inertia_kgm2
+    return (wheels + motors_per_side(v) * v.drive.rotor_inertia_kgm2 * v.drive.gear_ratio**2) / r**2
 
 
 def mass_matrix_entries(v: Vehicle, payload_kg: ArrayLike) -> tuple[Array, Array]:
@@ -154,10 +168,13 @@ def rolling_coefficients(v: Vehicle, payload_kg: ArrayLike) -> tuple[Array, Arra
     """(level, transfer), N: per-wheel rolling resistance is level cos(pitch) cos(roll) - transfer
     sin(pitch), times the deadband shape. From the static loads (wheel_loads) with half of each
     caster's resistance referred to each drive wheel:
-    level = g/2 ((C_w - C_c)(m c + m L_c)/L_c + C_c m), transfer = g/2 (C_w - C_c) m h / L_c."""
+    level = g/2 ((C_w - C_c)(m c + m L_c)/L_c + C_c m), transfer = g/2 (C_w - C_c) m h / L_c.
+    A skid-steer's wheels carry the whole weight: level = C_w m g / 2 per side, transfer = 0."""
     body = combined(v, payload_kg)
-    lc, cw, cc = v.casters.behind_axle_m, v.wheels.rolling_resistance, v.casters.rolling_resistance
     m = body.mass_kg
+    if v.casters is None:
+        return 0.5 * G_N * v.wheels.rolling_resistance * m, np.zeros(np.shape(m))
+    lc, cw, cc = v.casters.behind_axle_m, v.wheels.rolling_resistance, v.casters.rolling_resistance
     level = 0.5 * G_N * ((cw - cc) * (m * body.cog_ahead_m + m * lc) / lc + cc * m)
     transfer = 0.5 * G_N * (cw - cc) * (m * body.cog_height_m) / lc
     return level, transfer
@@ -186,9 +203,11 @@ def stribeck_level(v: Vehicle, speed: ArrayLike) -> Array:
 
 
 def friction_force(v: Vehicle, speed: ArrayLike, shape: ArrayLike) -> Array:
-    """Stribeck level times a given deadband shape value plus viscous friction, N."""
+    """Stribeck level times a given deadband shape value plus viscous friction, N, of all the motors'
+    drivetrains on a side ([friction] describes one)."""
     u = np.asarray(speed, dtype=float)
-    return stribeck_level(v, u) * np.asarray(shape, dtype=float) + v.friction.viscous_ns_per_m * u
+    one = stribeck_level(v, u) * np.asarray(shape, dtype=float) + v.friction.viscous_ns_per_m * u
+    return motors_per_side(v) * one
 
 
 def drivetrain_friction(v: Vehicle, speed: ArrayLike) -> Array:
@@ -197,12 +216,16 @@ def drivetrain_friction(v: Vehicle, speed: ArrayLike) -> Array:
 
 
 def wheel_loads(v: Vehicle, payload_kg: ArrayLike, pitch_rad: ArrayLike, roll_rad: ArrayLike) -> tuple[Array, Array]:
-    """Static normal loads (both drive wheels together, all casters together), N.
+    """Static normal loads (both drive wheels together, all casters together), N; a skid-steer's driven
+    wheels carry the whole normal load, and its casters none.
 
     Moments about the caster contact line; dynamic load transfer from acceleration is neglected.
     """
     body = combined(v, payload_kg)
     th, ph = np.asarray(pitch_rad, float), np.asarray(roll_rad, float)
+    if v.casters is None:
+        normal = body.mass_kg * G_N * np.cos(th) * np.cos(ph)
+        return normal, np.zeros(np.shape(normal))
     lc = v.casters.behind_axle_m
     weight = body.mass_kg * G_N
     upright = np.cos(th) * np.cos(ph)
@@ -217,11 +240,76 @@ def lateral_margin(v: Vehicle, payload_kg: ArrayLike, roll_rad: ArrayLike) -> Ar
     return half_track(v) * np.cos(ph) - h * np.abs(np.sin(ph))
 
 
+def skid_positions(v: Vehicle) -> Array:
+    """A skid-steer side's wheel contacts ahead of P, m: wheels_per_side evenly over the wheelbase."""
+    assert v.skid is not None
+    half = v.skid.wheelbase_m / 2
+    return np.linspace(-half, half, wheels_per_side(v))
+
+
+def end_wheel_loads(
+    v: Vehicle, payload_kg: ArrayLike, pitch_rad: ArrayLike, roll_rad: ArrayLike
+) -> tuple[Array, Array]:
+    """A skid-steer's loads on its first and last wheel pair, N, with the load spread linearly along the
+    side (a rigid frame on equal springs, common practice; exact for two axles): N_j = W/n + x_j M/S
+    for the pair at x_j, W = m g cos(theta) cos(phi), M = m g (c cos(theta) cos(phi) - h sin(theta)),
+    S = sum of x_j^2 over a side's wheels."""
+    body = combined(v, payload_kg)
+    th, ph = np.asarray(pitch_rad, float), np.asarray(roll_rad, float)
+    x = skid_positions(v)
+    weight = body.mass_kg * G_N
+    normal = weight * np.cos(th) * np.cos(ph)
+    moment = weight * (body.cog_ahead_m * np.cos(th) * np.cos(ph) - body.cog_height_m * np.sin(th))
+    spread = moment / float(np.sum(x * x))
+    return normal / len(x) + x[-1] * spread, normal / len(x) + x[0] * spread
+
+
+def support_loads(v: Vehicle, payload_kg: ArrayLike, pitch_rad: ArrayLike, roll_rad: ArrayLike) -> tuple[Array, Array]:
+    """The two loads that must stay positive for the vehicle to stand: drive wheels and casters, or a
+    skid-steer's first and last wheel pair, N."""
+    if v.skid is None:
+        return wheel_loads(v, payload_kg, pitch_rad, roll_rad)
+    return end_wheel_loads(v, payload_kg, pitch_rad, roll_rad)
+
+
+def turning_coefficient(v: Vehicle, payload_kg: ArrayLike) -> Array:
+    """T0 = mu_l m g a / (2 b), N: each side's share of the full turning-resistance moment on level
+    ground, with a = the mean |x_j| of a side's wheel contacts (Kozlowski and Pazderski 2004: each wheel
+    slides sideways against mu_l N_j; with the load spread linearly along the side, sum N_j |x_j| =
+    W a whatever the CoG). 0 on two drive wheels and casters."""
+    m = combined(v, payload_kg).mass_kg
+    if v.skid is None:
+        return np.zeros(np.shape(m))
+    arm = float(np.mean(np.abs(skid_positions(v))))
+    return v.skid.lateral_friction * m * G_N * arm / (2 * half_track(v))
+
+
+def turn_shape(v: Vehicle, speed_difference: ArrayLike) -> Array:
+    """s(w) = sign(w) min(1, |w|/w_t) of the yaw rate w = (u_R - u_L)/(2b): the turning resistance's sign
+    with a ramp through zero yaw rate (w_t: skid.turn_transition), from the rim-speed difference m/s."""
+    d = np.asarray(speed_difference, dtype=float)
+    if v.skid is None:
+        return np.zeros(np.shape(d))
+    w = d / (2 * half_track(v))
+    return np.clip(w / v.skid.turn_transition_radps, -1.0, 1.0)
+
+
+def turning(
+    v: Vehicle, payload_kg: ArrayLike, pitch_rad: ArrayLike, roll_rad: ArrayLike, *, speed_difference: ArrayLike
+) -> tuple[Array, Array]:
+    """The turning-resistance rim forces (right, left), N: +-T0 cos(theta) cos(phi) s(w), the moment
+    mu_l W a s(w) resisting the yaw rate, shared by the two sides' rims 2b apart."""
+    th, ph = np.asarray(pitch_rad, float), np.asarray(roll_rad, float)
+    side = turning_coefficient(v, payload_kg) * np.cos(th) * np.cos(ph) * turn_shape(v, speed_difference)
+    return side, -side
+
+
 def tipping(v: Vehicle, payload_kg: ArrayLike, pitch_rad: ArrayLike, roll_rad: ArrayLike) -> Array:
-    """0 while both the drive wheels and the casters carry load; else 1 plus the missing load in N
-    (> 1: tipping, growing with how far), as a limit use comparable with the others."""
-    drive, caster = wheel_loads(v, payload_kg, pitch_rad, roll_rad)
-    least = np.minimum(drive, caster)
+    """0 while both the drive wheels and the casters (a skid-steer: its end wheels) carry load; else 1
+    plus the missing load in N (> 1: tipping, growing with how far), as a limit use comparable with the
+    others."""
+    front, back = support_loads(v, payload_kg, pitch_rad, roll_rad)
+    least = np.minimum(front, back)
     return np.maximum(-least, 0.0) + (least <= 0)
 
 
@@ -247,10 +335,12 @@ def wheel_forces(v: Vehicle, op: OperatingPoint) -> tuple[WheelForces, WheelForc
     ar, al = np.asarray(op.accel_right, float), np.asarray(op.accel_left, float)
     vr, vl = coriolis(v, op.payload_kg, op.speed_right, op.speed_left)
     gr, gl = gravity(v, op.payload_kg, op.pitch_rad, op.roll_rad)
+    diff = np.asarray(op.speed_right, float) - np.asarray(op.speed_left, float)
+    tr, tl = turning(v, op.payload_kg, op.pitch_rad, op.roll_rad, speed_difference=diff)
     sides = []
-    for inertia, cor, grav, speed in (
-        (d * ar + o * al, vr, gr, op.speed_right),
-        (o * ar + d * al, vl, gl, op.speed_left),
+    for inertia, cor, grav, speed, turn in (
+        (d * ar + o * al, vr, gr, op.speed_right, tr),
+        (o * ar + d * al, vl, gl, op.speed_left, tl),
     ):
         sides.append(
             WheelForces(
@@ -259,14 +349,17 @@ def wheel_forces(v: Vehicle, op: OperatingPoint) -> tuple[WheelForces, WheelForc
                 friction=drivetrain_friction(v, speed),
                 rolling=rolling_resistance(v, op.payload_kg, op.pitch_rad, op.roll_rad, speed=speed),
                 gravity=np.asarray(grav, float),
+                turning=turn,
             )
         )
     return sides[0], sides[1]
 
 
 def motor_gain(v: Vehicle) -> float:
-    """Motor current per rim force when motoring, A/N: r / (i eta k_t)."""
-    return wheel_radius(v) / (v.drive.gear_ratio * v.drive.efficiency * v.drive.torque_constant_nm_per_a)
+    """Motor current per rim force when motoring, A/N: r / (i eta k_t n_m), the side's force shared by
+    its n_m motors (1 on two drive wheels)."""
+    drive = v.drive
+    return wheel_radius(v) / (drive.gear_ratio * drive.efficiency * drive.torque_constant_nm_per_a * motors_per_side(v))
 
 
 def wheel_currents(v: Vehicle, op: OperatingPoint) -> Array:
@@ -319,8 +412,9 @@ def backdrive_factor(v: Vehicle, speed: ArrayLike) -> Array:
 
 def motor_torque(v: Vehicle, force: ArrayLike, speed: ArrayLike) -> Array:
     """Motor torque, N*m: Q r/(i eta) when Q*u >= 0 (motoring, standstill); when the wheel drives the
-    motor, that times backdrive_factor (Q r eta_back/i beyond the blend width)."""
-    q, u = np.asarray(force, float), np.asarray(speed, float)
+    motor, that times backdrive_factor (Q r eta_back/i beyond the blend width). A skid-steer side's
+    force Q is shared by its motors, each giving 1/n_m of it."""
+    q, u = np.asarray(force, float) / motors_per_side(v), np.asarray(speed, float)
     r, i = wheel_radius(v), v.drive.gear_ratio
     motoring = ~opposed(q, u)
     scale = np.where(motoring, 1.0, backdrive_factor(v, u))
@@ -345,7 +439,7 @@ def force_from_current(v: Vehicle, current: ArrayLike, speed: ArrayLike) -> Arra
     torque = i_m * v.drive.torque_constant_nm_per_a
     motoring = ~opposed(i_m, u)
     scale = np.where(motoring, 1.0, 1.0 / backdrive_factor(v, u))
-    return torque * i * v.drive.efficiency / r * scale
+    return torque * i * v.drive.efficiency / r * scale * motors_per_side(v)
 
 
 def forward_accel(v: Vehicle, op: OperatingPoint, force_right: ArrayLike, force_left: ArrayLike) -> tuple[Array, Array]:

@@ -390,7 +390,41 @@ LIFT: dict[str, Key] = {
         "largest allowed |firmware - float model| lift current (the lift function's own budget)",
     ),
 }
-OPTIONAL_SCHEMA: dict[str, dict[str, Key]] = {"lift": LIFT}
+SKID: dict[str, Key] = {
+    "wheels_per_side": K(
+        RATIO,
+        "wheels_per_side",
+        ((lambda v: 2 <= v <= 8 and v == int(v)), ">= 2 and <= 8, a whole number"),
+        "driven wheels on each side, evenly spaced over the wheelbase, turning together",
+    ),
+    "wheelbase": K(
+        L.LENGTH,
+        "wheelbase_m",
+        U(0, 5, "m"),
+        "distance from the first to the last wheel contact of a side; P lies midway (the vehicle turns about it)",
+    ),
+    "lateral_friction": K(
+        RATIO,
+        "lateral_friction",
+        U(0, 2, "", False),
+        "sideways sliding friction coefficient of a wheel on the floor (0: no turning resistance)",
+    ),
+    "turn_transition": K(
+        L.YAW_RATE,
+        "turn_transition_radps",
+        U(0, 20, "rad/s"),
+        "yaw rate over which the turning resistance grows from zero to full, like friction.deadband",
+    ),
+    "motors_per_side": K(
+        RATIO,
+        "motors_per_side",
+        ((lambda v: 1 <= v <= 8 and v == int(v)), ">= 1 and <= skid.wheels_per_side, a whole number"),
+        "motors on a side, all given the same current; [drive] and [friction] describe one motor and its "
+        "gearbox (default: one motor per wheel)",
+        default="wheels_per_side",
+    ),
+}
+OPTIONAL_SCHEMA: dict[str, dict[str, Key]] = {"lift": LIFT, "skid": SKID}
 """Sections a model may leave out (the Vehicle attribute is then None); their keys when present."""
 del L, U, K
 
@@ -691,18 +725,32 @@ def parse_document(doc: dict[str, Any], source: str) -> Vehicle:
         if key not in known:
             raise ModelError(source, key, "a known section or 'name'", "an unknown key" + _suggest(key, known))
     name = _read_name(source, doc)
+    _layout_sections(source, doc)
     sections: dict[str, dict[str, Any]] = {}
     for section in SCHEMA:
+        if section == "casters" and "skid" in doc:
+            continue
         if section not in doc:
             raise ModelError(source, section, f"a [{section}] section", "nothing (the section is required)")
         sections[section] = _read_section(source, section, doc[section])
     _cross_checks(source, sections, doc)
-    built = {
-        sec: SECTION_TYPES[sec](**{SCHEMA[sec][key].field: val for key, val in sections[sec].items()}) for sec in SCHEMA
+    built: dict[str, Any] = {
+        sec: SECTION_TYPES[sec](**{SCHEMA[sec][key].field: val for key, val in sections[sec].items()})
+        for sec in sections
     }
-    vehicle = Vehicle(name=name, source=source, lift=_optional_section(source, doc, "lift"), **built)
+    built.setdefault("casters", None)
+    optional = {sec: _optional_section(source, doc, sec) for sec in OPTIONAL_SCHEMA}
+    vehicle = Vehicle(name=name, source=source, **optional, **built)
     stability.check(vehicle)
     return vehicle
+
+
+def _layout_sections(source: str, doc: dict[str, Any]) -> None:
+    """A skid-steer ([skid]) has no casters: the two sections exclude each other."""
+    if "skid" in doc and "casters" in doc:
+        raise ModelError(
+            source, "casters", "no [casters] section in a skid-steer model ([skid])", "a [casters] section"
+        )
 
 
 def _optional_section(source: str, doc: dict[str, Any], name: str) -> Any:
@@ -710,7 +758,7 @@ def _optional_section(source: str, doc: dict[str, Any], name: str) -> Any:
     if name not in doc:
         return None
     values = _read_section(source, name, doc[name])
-    _lift_rules(source, values, doc[name])
+    {"lift": _lift_rules, "skid": _skid_rules}[name](source, values, doc[name])
     fields = OPTIONAL_SCHEMA[name]
     return OPTIONAL_SECTION_TYPES[name](**{fields[key].field: val for key, val in values.items()})
 
@@ -750,6 +798,17 @@ def _lift_rules(src: str, s: dict[str, Any], raw: dict[str, Any]) -> None:
         )
 
 
+def _skid_rules(src: str, s: dict[str, Any], raw: dict[str, Any]) -> None:
+    """Each motor of a side drives at least one of its wheels."""
+    if s["motors_per_side"] > s["wheels_per_side"]:
+        raise ModelError(
+            src,
+            "skid.motors_per_side",
+            f"at most skid.wheels_per_side ({s['wheels_per_side']:g}) motors",
+            _describe_raw(raw["motors_per_side"]),
+        )
+
+
 def load(path: str | Path) -> Vehicle:
     """The one way to get a vehicle from a file: read, validate every key and cross rule, check static
     stability; every problem is one ModelError line naming the file and the key."""
@@ -786,6 +845,8 @@ def reference_rows() -> list[str]:
                 kind = f"{spec.kind.name.split(' ', 1)[1]} (e.g. {spec.kind.example})"
             shown = f"{spec.default:g}" if isinstance(spec.default, float) else spec.default
             default = "optional" if spec.optional else "required" if spec.default is None else f"= `{shown}`"
+            if section == "casters" and default == "required":
+                default = "required, unless `[skid]` (a skid-steer has none)"
             if section in OPTIONAL_SCHEMA and default == "required":
                 default = f"required in `[{section}]` (an optional section)"
             meaning = spec.meaning.replace("|", "\\|")

@@ -259,6 +259,23 @@ def _common(bd: _Builder, lim: Limits, call: interface.Call, pair: str) -> None:
     bd.sum("d_speed", (1, "speed_r"), (-1, "speed_l"))
     _, dropped = bd.product("cor_pre", "t_cor", "d_speed")  # shared by both wheels' Coriolis terms
     bd.cor_shift = s["cor"].frac_bits - dropped
+    if "turn_level" in s:
+        _turning(bd)
+
+
+def _turning(bd: _Builder) -> None:
+    """A skid-steer's turning resistance at the right wheel, T0 cos(pitch) cos(roll) s(u_R - u_L) in
+    accumulator steps; the left wheel's is its negative."""
+    s = bd.specs
+    bd.lookup("t_turn_level", "turn_level", "payload")
+    bd.mul("turn_up", "t_turn_level", "cos_cos", s["turn_level"].frac_bits + s["cos_roll"].frac_bits)
+    bd.lookup("t_turn_shape", "turn_shape", "d_speed")
+    bd.mul("turn", "turn_up", "t_turn_shape", s["turn_shape"].frac_bits)
+
+
+def _turn_term(bd: _Builder, sign: int) -> tuple[tuple[int, str], ...]:
+    """The turning term of a wheel's sum (none without one)."""
+    return ((sign, "turn"),) if "turn" in bd.rng else ()
 
 
 def _rolling_level(bd: _Builder) -> None:
@@ -288,7 +305,8 @@ def _passive(bd: _Builder, side: str, sign: int, other: str) -> str:
     """Coriolis + friction + rolling + gravity at one wheel, accumulator steps."""
     bd.mul(f"cor_{side}", "cor_pre", f"speed_{other}", bd.cor_shift)
     fric, roll = _speed_terms(bd, side)
-    return bd.sum(f"passive_{side}", (sign, f"cor_{side}"), (1, fric), (1, roll), (1, f"grav_{side}"))
+    terms = ((sign, f"cor_{side}"), (1, fric), (1, roll), (1, f"grav_{side}"), *_turn_term(bd, sign))
+    return bd.sum(f"passive_{side}", *terms)
 
 
 def _feedforward(v: Vehicle, specs: dict[str, tb.TableSpec], lim: Limits, *, guard: int, exact: bool) -> Program:
@@ -308,6 +326,7 @@ def _feedforward(v: Vehicle, specs: dict[str, tb.TableSpec], lim: Limits, *, gua
             (1, f"in_other_{side}"),
             (sign, f"cor_{side}"),
             (1, f"grav_{side}"),
+            *_turn_term(bd, sign),
         )
     for side, _, _, idx in sides:
         fric, roll = _speed_terms(bd, side)
@@ -395,6 +414,7 @@ def _peak_current_steps(v: Vehicle, lim: Limits) -> float:
         + mx["roll_slope"]
         + mx["grav_pitch"]
         + mx["grav_roll"]
+        + mx.get("turn_level", 0.0)
     )
 
 

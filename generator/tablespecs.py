@@ -208,6 +208,7 @@ EXTRA_KEYS = {
 
 
 BLEND_KEYS = ("drive.efficiency", "drive.backdrive_efficiency", "drive.blend_speed")
+SKID_KEYS = ("skid.wheels_per_side", "skid.wheelbase", "skid.lateral_friction")
 
 
 def model_keys(name: str, source: str) -> tuple[str, ...]:
@@ -216,8 +217,26 @@ def model_keys(name: str, source: str) -> tuple[str, ...]:
         return ("friction.deadband", "friction.deadband_shape")
     if name in BLEND_TABLES:
         return BLEND_KEYS
+    if name == "turn_shape":
+        return ("wheels.track", "skid.turn_transition")
+    if name == "turn_level":
+        return MODEL_KEYS["payload"] + SKID_KEYS
     extra = EXTRA_KEYS.get(name, EXTRA_KEYS["m11"] if name in ("m12", "minv11", "minv12") else ())
     return MODEL_KEYS[source] + extra
+
+
+SKID_EXTRA = {
+    **{name: ("skid.wheels_per_side", "skid.motors_per_side") for name in ("m11", "m12", "minv11", "minv12")},
+    "friction": ("skid.motors_per_side",),
+}
+"""The [skid] keys a table's values also come from in a skid-steer."""
+
+
+def layout_keys(v: Vehicle, name: str, keys: tuple[str, ...]) -> tuple[str, ...]:
+    """A table's model keys for this vehicle's layout: a skid-steer has no casters and adds its own."""
+    if v.skid is None:
+        return keys
+    return tuple(k for k in keys if not k.startswith("casters.")) + SKID_EXTRA.get(name, ())
 
 
 def _speed_rows(v: Vehicle, lim: Limits, k: float) -> dict[str, _Row]:
@@ -289,6 +308,46 @@ def band_pieces(func: tb.Func, outside: float, *, end: int, top: int) -> tuple[t
     return tuple(pieces)
 
 
+TURN_TABLES = ("turn_level", "turn_shape")
+"""A skid-steer's turning resistance: T0 of the payload, and its shape s(w) of the rim-speed difference."""
+
+
+def _turn_rows(v: Vehicle, lim: Limits, k: float) -> dict[str, _Row]:
+    """The turning-resistance tables of a skid-steer (none without [skid]): T0 cos*cos in accumulator
+    steps (k per newton), and s(w) over |u_R - u_L| in speed steps, split where its ramp ends."""
+    if v.skid is None:
+        return {}
+    fw = v.firmware
+    level = tb.Piece(x0=0, x1=lim.payload, func=lambda x: dynamics.turning_coefficient(v, x * fw.mass_lsb_kg) * k)
+    top = 2 * lim.speed  # |u_R - u_L| of two clamped speeds
+    full = 2 * dynamics.half_track(v) * v.skid.turn_transition_radps  # the difference of full resistance, m/s
+    ramp_end = min(fx.steps_within(full, fw.speed_lsb_mps), top)
+    ramp = lambda x: np.asarray(x, float) * fw.speed_lsb_mps / full  # noqa: E731
+    pieces = [tb.Piece(x0=0, x1=ramp_end, func=ramp, label="turning slower than skid.turn_transition")]
+    if ramp_end < top:
+        one = lambda x: np.ones(np.shape(x))  # noqa: E731
+        pieces.append(tb.Piece(x0=ramp_end + 1, x1=top, func=one, label="turning faster"))
+    return {
+        "turn_level": _Row(
+            source="payload",
+            symmetry="none",
+            pieces=(level,),
+            unit="accumulator step at cos*cos = 1",
+            meaning="turning resistance mu_l m g a / (2 b) per side (a: mean |x| of a side's wheels)",
+            **_si(k, "N"),
+        ),
+        "turn_shape": _Row(
+            source="speed",
+            symmetry="odd",
+            pieces=tuple(pieces),
+            unit="1",
+            meaning="turning-resistance shape s(w) of the rim-speed difference u_R - u_L",
+            si_scale=1.0,
+            si_unit="1",
+        ),
+    }
+
+
 def _inverse_rows(v: Vehicle, lim: Limits, inv: float) -> dict[str, _Row]:
     """Inverse mass matrix tables of the payload, in accel steps per (1/kg * accumulator step) * inv."""
     lsb = v.firmware.mass_lsb_kg
@@ -320,6 +379,7 @@ def specs_for(v: Vehicle, lim: Limits, acc_amps: float, *, exact: bool = False) 
     payload = _payload_rows(v, lim, k)
     rows = {n: payload[n] for n in ("m11", "m12", "cor", "grav_pitch", "grav_roll", "roll_level", "roll_slope")}
     rows |= _angle_rows(v, lim) | _speed_rows(v, lim, k) | _inverse_rows(v, lim, inv) | _blend_rows(v, lim)
+    rows |= _turn_rows(v, lim, k)
     return {
         name: tb.make_spec(
             name,
@@ -331,7 +391,7 @@ def specs_for(v: Vehicle, lim: Limits, acc_amps: float, *, exact: bool = False) 
             meaning=r.meaning,
             si_scale=r.si_scale,
             si_unit=r.si_unit,
-            model_keys=model_keys(name, r.source),
+            model_keys=layout_keys(v, name, model_keys(name, r.source)),
         )
         for name, r in rows.items()
     }

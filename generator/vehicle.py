@@ -38,6 +38,17 @@ class Casters:
 
 
 @dataclass(frozen=True)
+class Skid:
+    """The optional [skid] section: a skid-steer layout, n driven wheels per side (dynamics.py)."""
+
+    wheels_per_side: float
+    wheelbase_m: float
+    lateral_friction: float
+    turn_transition_radps: float
+    motors_per_side: float
+
+
+@dataclass(frozen=True)
 class Drive:
     gear_ratio: float
     efficiency: float
@@ -133,21 +144,23 @@ class Vehicle:
     body: Body
     payload: Payload
     wheels: Wheels
-    casters: Casters
+    casters: Casters | None  # None: a skid-steer, which has no casters
     drive: Drive
     friction: Friction
     envelope: Envelope
     firmware: FirmwareFormat
     source: str = "<model>"
     lift: Lift | None = None  # the optional vertical lift axis; None: the vehicle has none
+    skid: Skid | None = None  # the skid-steer layout; None: two drive wheels and casters
 
     def normalised(self) -> dict[str, Any]:
         """The model as plain SI numbers (no source path): what the fingerprint hashes. Optional limits
         that are not set are left out, so a model without them keeps its fingerprint."""
         data = asdict(self)
         data.pop("source")
-        if data["lift"] is None:  # a vehicle without a lift keeps the fingerprint it had before lifts existed
-            data.pop("lift")
+        for optional in ("lift", "skid"):  # a vehicle without them keeps the fingerprint it had before they existed
+            if data[optional] is None:
+                data.pop(optional)
         for section, fields in data.items():  # optional keys left unset
             if isinstance(fields, dict):
                 data[section] = {k: x for k, x in fields.items() if x is not None}
@@ -165,5 +178,5 @@ SECTION_TYPES: dict[str, type] = {
     "firmware": FirmwareFormat,
 }
 
-OPTIONAL_SECTION_TYPES: dict[str, type] = {"lift": Lift}
+OPTIONAL_SECTION_TYPES: dict[str, type] = {"lift": Lift, "skid": Skid}
 """Sections a model may leave out; the Vehicle attribute is then None."""

@@ -145,7 +145,7 @@ def choose_runs(v: Vehicle, *, noise_a: float, duration_s: float, period_s: floa
         if before is None or len(after.free) > len(before.free):
             chosen.append(c)
             grams.append(g)
-            held = [tuple(fp.NAMES[j] for j in grp.members) for grp in after.groups]
+            held = [tuple(fp.names(v)[j] for j in grp.members) for grp in after.groups]
         if not held and len(chosen) >= 2:
             break
     return Campaign(logs=chosen, held=held)

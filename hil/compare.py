@@ -44,7 +44,7 @@ def term_regressors(v: Vehicle, log: BenchLog, op: dynamics.OperatingPoint, rig:
     )
     out = {
         name: np.column_stack([getattr(right, name), getattr(left, name)]) * gain
-        for name in ("inertia", "coriolis", "rolling", "gravity")
+        for name in ("inertia", "coriolis", "rolling", "gravity") + (("turning",) if v.skid is not None else ())
     }
     out["friction (Coulomb-like, sign of speed)"] = coulomb_like * gain
     out["friction (viscous, speed)"] = np.column_stack([op.speed_right, op.speed_left]) * gain

@@ -33,7 +33,7 @@ def condition(v: Vehicle, plan: Plan, rig: str) -> tuple[float, list[str]]:
     if not free:
         return float("inf"), []
     s = np.linalg.svd(js[:, free], compute_uv=False)
-    return float(s[0] / s[-1]) if s[-1] > 0 else float("inf"), [fp.NAMES[j] for j in free]
+    return float(s[0] / s[-1]) if s[-1] > 0 else float("inf"), [fp.names(v)[j] for j in free]
 
 
 def told_apart(names: list[str], cond: float) -> str:

@@ -32,9 +32,19 @@ NAMES = (
 the rolling-resistance coefficients); the efficiencies scale the measured side; the Stribeck speed is
 the one nonlinear parameter."""
 
+SKID_NAMES = (*NAMES[:7], "skid.lateral_friction", *NAMES[8:])
+"""A skid-steer's coordinates: its lateral friction, which like the casters' rolling resistance enters
+the rim force times the mass, takes the casters' place."""
+
 LINEAR = NAMES[:8]
 MEASURED_SIDE = ("drive.efficiency", "drive.backdrive_factor")
-INDEX = {name: k for k, name in enumerate(NAMES)}
+INDEX = {name: k for k, name in enumerate(NAMES)} | {"skid.lateral_friction": 7}
+GROUND = 7  # the coordinate of the casters' rolling resistance or the skid-steer's lateral friction
+
+
+def names(v: Vehicle) -> tuple[str, ...]:
+    """The fit coordinates of this vehicle's layout, in order."""
+    return NAMES if v.skid is None else SKID_NAMES
 
 
 @dataclass(frozen=True)
@@ -55,6 +65,7 @@ SHOWN = {
     "friction.viscous": Shown("N*s/m"),
     "wheels.rolling_resistance": Shown("1"),
     "casters.rolling_resistance": Shown("1"),
+    "skid.lateral_friction": Shown("1"),
     "drive.efficiency": Shown("1"),
     "drive.backdrive_factor": Shown("1"),
     "drive.backdrive_efficiency": Shown("1"),
@@ -67,8 +78,16 @@ def _set(v: Vehicle, section: str, **fields: float) -> Vehicle:
 
 
 def wheel_reflected_mass(v: Vehicle) -> float:
-    """The wheels' own share of the reflected mass, kg: J_wheel / r^2 (kept by the fit)."""
-    return v.wheels.inertia_kgm2 / dynamics.wheel_radius(v) ** 2
+    """The wheels' own share of a side's reflected mass, kg: n J_wheel / r^2 (kept by the fit)."""
+    return dynamics.wheels_per_side(v) * v.wheels.inertia_kgm2 / dynamics.wheel_radius(v) ** 2
+
+
+def _ground(v: Vehicle) -> float:
+    """The coordinate GROUND's value: the casters' rolling resistance, or the lateral friction."""
+    if v.skid is not None:
+        return v.skid.lateral_friction
+    assert v.casters is not None
+    return v.casters.rolling_resistance
 
 
 def values(v: Vehicle) -> np.ndarray:
@@ -83,7 +102,7 @@ def values(v: Vehicle) -> np.ndarray:
             f.breakaway_n - f.coulomb_n,
             f.viscous_ns_per_m,
             v.wheels.rolling_resistance,
-            v.casters.rolling_resistance,
+            _ground(v),
             d.efficiency,
             1.0 / d.backdrive_efficiency,
             f.stribeck_speed_mps,
@@ -96,7 +115,7 @@ def vehicle_with(v: Vehicle, theta: np.ndarray) -> Vehicle:
     mass, yaw, m_rot, coulomb, excess, viscous, c_w, c_c, eff, back, v_s = (float(x) for x in theta)
     r, i = dynamics.wheel_radius(v), v.drive.gear_ratio
     v = _set(v, "body", mass_kg=mass, gyration_radius_m=math.sqrt(max(yaw, 0.0) / mass) if mass > 0 else 0.0)
-    rotor = (m_rot - wheel_reflected_mass(v)) * r**2 / i**2
+    rotor = (m_rot - wheel_reflected_mass(v)) * r**2 / (i**2 * dynamics.motors_per_side(v))
     v = _set(v, "drive", rotor_inertia_kgm2=rotor, efficiency=eff, backdrive_efficiency=1.0 / back)
     v = _set(
         v,
@@ -107,6 +126,8 @@ def vehicle_with(v: Vehicle, theta: np.ndarray) -> Vehicle:
         stribeck_speed_mps=v_s,
     )
     v = _set(v, "wheels", rolling_resistance=c_w)
+    if v.skid is not None:
+        return _set(v, "skid", lateral_friction=c_c)
     return _set(v, "casters", rolling_resistance=c_c)
 
 
@@ -116,8 +137,10 @@ def bounds(v: Vehicle) -> tuple[np.ndarray, np.ndarray]:
     r, i = dynamics.wheel_radius(v), v.drive.gear_ratio
     m_wheel = wheel_reflected_mass(v)
     yaw_max = v.body.mass_kg * (3 * v.wheels.track_m) ** 2
+    rotors = dynamics.motors_per_side(v) * i**2 / r**2  # the reflected mass of 1 kg*m^2 of rotor inertia
+    ground = 0.5 if v.skid is None else 2.0
     lower = np.array([1e-3, 0.0, m_wheel, 0.0, 0.0, 0.0, 0.0, 0.0, 0.05, 1.0, 1e-4])
-    upper = np.array([5000.0, yaw_max, m_wheel + i**2 / r**2, 1e4, 1e4, 1e5, 0.5, 0.5, 1.0, 20.0, 10.0])
+    upper = np.array([5000.0, yaw_max, m_wheel + rotors, 1e4, 1e4, 1e5, 0.5, ground, 1.0, 20.0, 10.0])
     return lower, upper
 
 
@@ -130,6 +153,7 @@ BOUND_TEXT = {
     "friction.viscous": "0 N*s/m",
     "wheels.rolling_resistance": "0 or 0.5",
     "casters.rolling_resistance": "0 or 0.5",
+    "skid.lateral_friction": "0 or 2",
     "drive.efficiency": "0.05 or 1",
     "drive.backdrive_factor": "a back-driving efficiency of 1 or 0.05",
     "friction.stribeck_speed": "0.1 mm/s or 10 m/s",

@@ -173,13 +173,13 @@ def fit(v: Vehicle, logs: list[BenchLog]) -> Fit:
     x = m.x(p)
     r = fm.residual(x)
     cov, measured = _covariances(fm, m, p, v=v, logs=logs, verdict=verdict, lo=lo, hi=hi)
-    measured_rel = _relative(measured, verdict.free, fp.scales(v, x))
+    measured_rel = _relative(measured, verdict.free, fp.scales(v, x), fp.names(v))
     imprecise = {name: r for name, r in measured_rel.items() if not r <= identifiability.REL_TOL}
     held_x, refit = _written(fm, x0, x, scale, free=verdict.free, imprecise=imprecise, bounds=(lo, hi))
     written = fp.vehicle_with(v, held_x)
-    estimates = _estimates(x0, x, cov, free=verdict.free, lo=lo, hi=hi)
+    estimates = _estimates(x0, x, cov, free=verdict.free, lo=lo, hi=hi, names=fp.names(v))
     imprecise |= _derived_imprecise(imprecise, estimates)
-    held = [_held(g, x0, x, scale=scale, m=m, cov=cov) for g in verdict.groups]
+    held = [_held(g, x0, x, scale=scale, m=m, cov=cov, names=fp.names(v)) for g in verdict.groups]
     free_cols = fm.jacobian(x)[:, verdict.free] * scale[verdict.free]
     sv = np.linalg.svd(free_cols, compute_uv=False) if verdict.free else np.array([1.0])
     r_written = fm.residual(held_x)
@@ -195,7 +195,7 @@ def fit(v: Vehicle, logs: list[BenchLog]) -> Fit:
         how=data.how,
         noise_n=float(np.std(r)),
         noise_a=float(np.mean([benchdata.noise_floor(log) for log in logs])),
-        free=tuple(fp.NAMES[j] for j in verdict.free),
+        free=tuple(fp.names(v)[j] for j in verdict.free),
         imprecise=imprecise,
         measured_rel=measured_rel,
         gram=js_full.T @ js_full,
@@ -220,8 +220,9 @@ def _written(
     values: the values the file gets must fit the logs beside the values it keeps. (A trial wrote mass
     and Coulomb from the joint fit, where the efficiency had moved, beside the file's efficiency: compare
     RMS rose from 154 to 196 mA.)"""
-    kept = [j for j in free if fp.NAMES[j] in writable({fp.NAMES[j] for j in free}, imprecise)]
-    refit = tuple(fp.NAMES[j] for j in free if j not in kept)
+    names = fp.names(fm.vehicle)
+    kept = [j for j in free if names[j] in writable({names[j] for j in free}, imprecise)]
+    refit = tuple(names[j] for j in free if j not in kept)
     if refit:
         m = _map(x0, scale, Verdict(free=kept, groups=[]))
         x = m.x(_solve(fm, m, lo=bounds[0], hi=bounds[1], scale=scale))
@@ -241,7 +242,7 @@ def writable(free: set[str], imprecise: dict[str, float]) -> set[str]:
     return out
 
 
-def _relative(cov: np.ndarray, free: list[int], scale: np.ndarray) -> dict[str, float]:
+def _relative(cov: np.ndarray, free: list[int], scale: np.ndarray, names: tuple[str, ...]) -> dict[str, float]:
     """Each fitted coordinate's measured standard error over its size (the sandwich plus the filter's
     spread, which the regressor alone does not show; `cov` without the held values' assumed spread,
     which is the same whatever the logs). Those above REL_TOL are imprecise: they stay in the fit
@@ -249,7 +250,7 @@ def _relative(cov: np.ndarray, free: list[int], scale: np.ndarray) -> dict[str, 
     determined combination is not. What the held values may be off by is not counted here (with the
     efficiency held, every force would be +-10 %: no fit without a payload log could write anything);
     the report says which written values rest on held ones (fitreport._note)."""
-    return {fp.NAMES[j]: float(np.sqrt(max(cov[k, k], 0.0))) / scale[j] for k, j in enumerate(free)}
+    return {names[j]: float(np.sqrt(max(cov[k, k], 0.0))) / scale[j] for k, j in enumerate(free)}
 
 
 def _covariances(
@@ -384,7 +385,14 @@ def _held_spread(jp: np.ndarray, j: np.ndarray, scale: np.ndarray, verdict: Verd
 
 
 def _estimates(
-    x0: np.ndarray, x: np.ndarray, cov: np.ndarray, *, free: list[int], lo: np.ndarray, hi: np.ndarray
+    x0: np.ndarray,
+    x: np.ndarray,
+    cov: np.ndarray,
+    *,
+    free: list[int],
+    lo: np.ndarray,
+    hi: np.ndarray,
+    names: tuple[str, ...],
 ) -> dict[str, Estimate]:
     """Each fitted coordinate, plus the model keys derived from them (breakaway, back-driving efficiency)."""
     out: dict[str, Estimate] = {}
@@ -392,8 +400,8 @@ def _estimates(
     for j in free:
         se = float(np.sqrt(max(cov[pos[j], pos[j]], 0.0)))
         tol = 1e-6 * max(abs(hi[j] - lo[j]) if np.isfinite(hi[j] - lo[j]) else 1.0, 1e-12)
-        bound = fp.BOUND_TEXT[fp.NAMES[j]] if (x[j] - lo[j] <= tol or hi[j] - x[j] <= tol) else None
-        out[fp.NAMES[j]] = Estimate(model=float(x0[j]), estimate=float(x[j]), se=se, at_bound=bound)
+        bound = fp.BOUND_TEXT[names[j]] if (x[j] - lo[j] <= tol or hi[j] - x[j] <= tol) else None
+        out[names[j]] = Estimate(model=float(x0[j]), estimate=float(x[j]), se=se, at_bound=bound)
     c, e = fp.INDEX["friction.coulomb"], fp.INDEX["friction.breakaway_excess"]
     if c in pos and e in pos:
         var = cov[pos[c], pos[c]] + cov[pos[e], pos[e]] + 2 * cov[pos[c], pos[e]]
@@ -409,8 +417,11 @@ def _estimates(
     return out
 
 
-def _held(g: Group, x0: np.ndarray, x: np.ndarray, *, scale: np.ndarray, m: _Map, cov: np.ndarray) -> Held:
-    names = tuple(fp.NAMES[j] for j in g.members)
+def _held(
+    g: Group, x0: np.ndarray, x: np.ndarray, *, scale: np.ndarray, m: _Map, cov: np.ndarray, names: tuple[str, ...]
+) -> Held:
+    coordinates = names
+    names = tuple(coordinates[j] for j in g.members)
     if g.why == "scale":
         return Held(names, "scale")
     rows = identifiability.combination_rows(g, scale)
@@ -422,7 +433,7 @@ def _held(g: Group, x0: np.ndarray, x: np.ndarray, *, scale: np.ndarray, m: _Map
         k = g.combos.shape[1]
         lin = row @ (scale[members][:, None] * g.combos)
         var = float(lin @ cov[start : start + k, start : start + k] @ lin) if k else 0.0
-        terms = tuple((float(c), fp.NAMES[j]) for c, j in zip(row, members) if c != 0)
+        terms = tuple((float(c), coordinates[j]) for c, j in zip(row, members) if c != 0)
         combos.append(
             Combination(
                 terms=terms,
@@ -466,11 +477,20 @@ WRITTEN = {
     "friction.viscous": ("friction.viscous",),
     "wheels.rolling_resistance": ("wheels.rolling_resistance",),
     "casters.rolling_resistance": ("casters.rolling_resistance",),
+    "skid.lateral_friction": ("skid.lateral_friction",),
     "drive.efficiency": ("drive.efficiency",),
     "drive.backdrive_factor": ("drive.backdrive_efficiency",),
     "friction.stribeck_speed": ("friction.stribeck_speed",),
 }
 """Fit coordinate -> the model keys that change when it is fitted."""
+
+
+def _ground_values(v: Vehicle) -> dict[str, float]:
+    """The model key of the fit's ground coordinate (fitparams.GROUND) and its value."""
+    if v.skid is not None:
+        return {"skid.lateral_friction": v.skid.lateral_friction}
+    assert v.casters is not None
+    return {"casters.rolling_resistance": v.casters.rolling_resistance}
 
 
 def model_changes(f: Fit) -> dict[str, float]:
@@ -485,7 +505,7 @@ def model_changes(f: Fit) -> dict[str, float]:
         "friction.breakaway": v.friction.breakaway_n,
         "friction.viscous": v.friction.viscous_ns_per_m,
         "wheels.rolling_resistance": v.wheels.rolling_resistance,
-        "casters.rolling_resistance": v.casters.rolling_resistance,
+        **_ground_values(v),
         "drive.efficiency": v.drive.efficiency,
         "drive.backdrive_efficiency": v.drive.backdrive_efficiency,
         "friction.stribeck_speed": v.friction.stribeck_speed_mps,

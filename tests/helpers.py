@@ -185,3 +185,24 @@ def invented_feasible(seed: int, name: str):
         if not envelope.analyse(vehicle_from(doc)).problems:
             return invented(seed + 1000 * attempt, name, lambda d, _rng: d.update(drive=doc["drive"]))
     raise AssertionError(f"no invented vehicle had enough grip in 50 draws (seed {seed})")
+
+
+def skid_doc(doc: dict[str, Any], draw_float, *, wheels: int, motors: int | None = None) -> dict[str, Any]:
+    """`doc` made a skid-steer: no casters, `wheels` driven wheels a side over a random wheelbase, random
+    lateral friction and transition, both CoGs well inside the end wheels (invented ranges)."""
+    doc = {k: (dict(v) if isinstance(v, dict) else v) for k, v in doc.items() if k != "casters"}
+    base = draw_float(0.25, 1.0)
+    x = [-base / 2 + j * base / (wheels - 1) for j in range(wheels)]
+    inside = sum(a * a for a in x) / (wheels * x[-1])  # where the end wheels' linear share reaches zero
+    doc["body"]["cog_ahead"] = f"{draw_float(-0.4, 0.4) * inside} m"
+    doc["payload"]["cog_ahead"] = f"{draw_float(-0.4, 0.4) * inside} m"
+    for part in ("body", "payload"):
+        doc[part]["gyration_radius"] = f"{draw_float(0.05, 0.4) * base + 0.01} m"
+    doc["skid"] = {
+        "wheels_per_side": wheels,
+        "wheelbase": f"{base} m",
+        "lateral_friction": draw_float(0.0, 0.7),
+        "turn_transition": f"{draw_float(0.05, 0.8)} rad/s",
+        "motors_per_side": motors if motors is not None else wheels,
+    }
+    return doc
