@@ -19,6 +19,7 @@ from .errors import CheckFailed, UserError
 from .vehicle import Vehicle
 
 DEMO = "larkspur.toml"
+SKID_DEMO = "bramble.toml"
 
 
 @click.group(cls=LazyGroup, context_settings={"help_option_names": ["-h", "--help"]})
@@ -37,22 +38,24 @@ def register_lazy(name: str, module: str, attr: str, short_help: str) -> None:
 @cli.command(short_help="Write a commented starter model (invented demo vehicle).")
 @click.argument("path", type=click.Path(dir_okay=False), default="vehicle.toml")
 @click.option("--force", is_flag=True, help="Overwrite PATH if it exists.")
-def init(path: str, force: bool) -> None:
+@click.option("--skid", is_flag=True, help="A skid-steer ([skid]: wheels dragged sideways to turn) instead of casters.")
+def init(path: str, force: bool, skid: bool) -> None:
     """Write a commented starter model (an invented demo vehicle) to PATH."""
     target = Path(path)
     if target.exists() and not force:
         raise UserError(f"{path}: file exists; pass --force to overwrite it")
     from . import outputs
 
-    text = resources.files(__package__ + ".demos").joinpath(DEMO).read_text(encoding="utf-8")
-    name = target.stem
+    demo = SKID_DEMO if skid else DEMO
+    text = resources.files(__package__ + ".demos").joinpath(demo).read_text(encoding="utf-8")
+    name, stem = target.stem, demo.removesuffix(".toml")
     if model.NAME_PATTERN.fullmatch(name) and name not in model.C_KEYWORDS:
-        text = text.replace('name = "larkspur"', f'name = "{name}"', 1)
+        text = text.replace(f'name = "{stem}"', f'name = "{name}"', 1)
         note = f"C prefix '{name}' from the file name"
     elif name in model.C_KEYWORDS:
-        note = f"'{name}' is a C or C++ keyword, so the C prefix stays 'larkspur'"
+        note = f"'{name}' is a C or C++ keyword, so the C prefix stays '{stem}'"
     else:
-        note = f"'{name}' is not a C name ([a-z][a-z0-9_]{{0,31}}), so the C prefix stays 'larkspur'"
+        note = f"'{name}' is not a C name ([a-z][a-z0-9_]{{0,31}}), so the C prefix stays '{stem}'"
     outputs.write_file(target, text)
     click.echo(f"wrote {path} (invented demo vehicle; edit every value for your own; {note})")
 
