@@ -55,7 +55,7 @@ class WheelForces:
     friction: Array
     rolling: Array
     gravity: Array
-    turning: Array | float = 0.0
+    turning: Array
 
     @property
     def total(self) -> Array:
@@ -475,7 +475,12 @@ def rig_wheel_forces(v: Vehicle, op: OperatingPoint, rig: str) -> tuple[WheelFor
         inertia = m_rot * np.asarray(accel, float) + zero
         sides.append(
             WheelForces(
-                inertia=inertia, coriolis=zero, friction=drivetrain_friction(v, speed), rolling=zero, gravity=zero
+                inertia=inertia,
+                coriolis=zero,
+                friction=drivetrain_friction(v, speed),
+                rolling=zero,
+                gravity=zero,
+                turning=zero,
             )
         )
     return sides[0], sides[1]

@@ -50,7 +50,8 @@ class Candidate:
 def candidates(v: Vehicle) -> list[Candidate]:
     """The logs a campaign may use, in the order it adds them: wheels up (drivetrain alone), on the floor
     empty and fully loaded (the payload is a known mass: it fixes the efficiencies' scale), and on a ramp
-    of pitch_max empty and loaded (the slope moves load between drive wheels and casters)."""
+    of pitch_max empty and loaded (the slope moves load between drive wheels and casters, and changes a
+    skid-steer's normal load)."""
     full, ramp = v.payload.mass_max_kg, v.envelope.pitch_max_rad
     out = [Candidate("wheels-up", 0.0, 0.0), Candidate("on-floor", 0.0, 0.0)]
     if full > 0:

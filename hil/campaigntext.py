@@ -19,9 +19,10 @@ def excursion(plan: planfile.Plan) -> tuple[float, float]:
     return float(max(x.max(), 0.0)), float(max(-x.min(), 0.0))
 
 
-def _needs(c: Candidate, plan: planfile.Plan) -> str:
+def _needs(c: Candidate, plan: planfile.Plan, v: Vehicle) -> str:
     if c.rig == "wheels-up":
-        return "the vehicle on a stand, both drive wheels free to turn; the controller adds no feed-forward"
+        wheels = "both drive wheels" if v.skid is None else "every driven wheel"
+        return f"the vehicle on a stand, {wheels} free to turn; the controller adds no feed-forward"
     ahead, back = excursion(plan)
     ground = (
         f"a ramp of {np.degrees(c.pitch_rad):.3g} deg (front higher), straight and at least "
@@ -58,7 +59,7 @@ def campaign_files(
         log = out / f"{name}-log.csv"
         logs.append(str(log))
         lines += [
-            f"{k}. {c.label()}: {_needs(c, plan)}.",
+            f"{k}. {c.label()}: {_needs(c, plan, v)}.",
             f"   kinetab bench run {model_path} --port PORT --plan {out / (name + '.csv')} --log {log} --rig {c.rig}",
             "",
         ]

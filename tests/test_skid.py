@@ -18,13 +18,14 @@ import numpy as np
 import pytest
 from kinetab.generator import accuracy, dynamics, emulate, envelope, interface, model, render, synthesis, vectors
 from kinetab.generator.errors import CheckFailed, ModelError
-from kinetab.hil import campaign, identify, regressor
+from kinetab.hil import campaign, compare, identify, regressor
 from kinetab.hil import fitparams as fp
 
 from tests import cortexm
 from tests.benchsim import run_plan
 from tests.csteps import build_harness, needs_gcc, run_harness, write_files
 from tests.helpers import random_doc, run_cli, skid_doc, vehicle_from
+from tests.test_identify import float_log
 
 G = 9.80665  # standard gravity (3rd CGPM 1901)
 SKID_DEMO = Path(str(resources.files("kinetab.generator.demos").joinpath("bramble.toml")))
@@ -310,6 +311,22 @@ def test_the_bench_fit_recovers_a_changed_lateral_friction_from_simulated_logs(s
         assert abs(e.estimate - true) <= max(0.03 * abs(true), 4 * e.se), (name, e, true)
     assert "skid.lateral_friction" in identify.model_changes(result)
     assert result.rms_after_n < 0.5 * result.rms_before_n  # what is left is mostly the current noise
+    for log in logs:  # compare takes every log of a skid-steer, the wheels-up one too
+        assert compare.compare(v, log)["likely_terms"]
+
+
+def test_compare_names_the_turning_term_when_only_the_lateral_friction_is_wrong():
+    """Float-model logs of a truth whose lateral friction alone is 20 % higher: the residual correlates
+    best with the turning term."""
+    _, v = _skid_vehicle(91, 2, feasible=True)
+    x = fp.values(v)
+    x[fp.GROUND] *= 1.2
+    truth = fp.vehicle_with(v, x)
+    c = campaign.candidates(v)[1]
+    plan = campaign.plan_for(v, c, duration_s=20, period_s=0.002)
+    assert "spin" in plan.phase
+    log = float_log(truth, plan, c.rig, noise=0.0, seed=1)
+    assert compare.compare(v, log)["likely_terms"][0]["term"] == "turning"
 
 
 def test_init_skid_writes_a_skid_steer_that_builds_and_verifies(tmp_path, capsys):
