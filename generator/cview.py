@@ -50,7 +50,9 @@ def stepped(fw: Firmware) -> tuple[interface.Member, ...]:
 
 def _sources(fw: Firmware) -> dict[str, Source]:
     """Per quantity: one step in SI units, for comments."""
-    return {m.name: Source(interface.lsb(fw.vehicle, m), m.unit) for m in stepped(fw)}
+    out = {m.name: Source(interface.lsb(fw.vehicle, m), m.unit) for m in stepped(fw)}
+    speed = interface.SPEED
+    return out | {interface.SPEED_DIFFERENCE: Source(interface.lsb(fw.vehicle, speed), speed.unit)}
 
 
 def _limit_lines(fw: Firmware) -> list[tuple[str, int, str]]:

@@ -48,7 +48,8 @@ class OperatingPoint:
 @dataclass(frozen=True)
 class WheelForces:
     """Longitudinal force terms at one side's rim, N (Q = M q'' + V + F + R + G + T); a skid-steer's
-    side is all its wheels together, and T its share of the turning resistance (0 on two wheels)."""
+    side is all its wheels together, and T its share of the turning resistance (0 on two drive wheels
+    and casters)."""
 
     inertia: Array
     coriolis: Array

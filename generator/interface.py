@@ -442,8 +442,15 @@ def shown(m: Member) -> tuple[str, Any]:
     return (m.typed_unit.replace("**", "^") or m.unit), float
 
 
+SPEED_DIFFERENCE = "speed_difference"
+"""A table source that is no member: u_R - u_L in speed steps (a skid-steer's turning shape)."""
+
+
 def by_name(name: str) -> Member:
-    """The feed-forward input member, or the output current, of that name (a table's source)."""
+    """The feed-forward input member, or the output current, of that name (a table's source); the speed
+    difference counts in the speed's steps and units."""
+    if name == SPEED_DIFFERENCE:
+        return SPEED
     return next(m for m in (*FF_IN.members, CURRENT_OUT) if m.name == name)
 
 

@@ -19,6 +19,7 @@ from .errors import ModelError
 from .vehicle import OPTIONAL_SECTION_TYPES, SECTION_TYPES, Vehicle
 
 RATIO = units.Kind("a bare number", "", "0.85")
+COUNT = units.Kind("a bare whole number", "", "4")
 CHOICE = units.Kind("one of the listed words", "", "'ramp'")
 
 C_KEYWORDS = frozenset(
@@ -392,7 +393,7 @@ LIFT: dict[str, Key] = {
 }
 SKID: dict[str, Key] = {
     "wheels_per_side": K(
-        RATIO,
+        COUNT,
         "wheels_per_side",
         ((lambda v: 2 <= v <= 8 and v == int(v)), ">= 2 and <= 8, a whole number"),
         "driven wheels on each side, evenly spaced over the wheelbase, turning together",
@@ -416,7 +417,7 @@ SKID: dict[str, Key] = {
         "yaw rate over which the turning resistance grows from zero to full, like friction.deadband",
     ),
     "motors_per_side": K(
-        RATIO,
+        COUNT,
         "motors_per_side",
         ((lambda v: 1 <= v <= 8 and v == int(v)), ">= 1 and <= skid.wheels_per_side, a whole number"),
         "motors on a side, all given the same current; [drive] and [friction] describe one motor and its "
@@ -474,7 +475,7 @@ def _read_value(src: str, where: str, spec: Key, raw: Any) -> float | str:
             hint = _suggest(raw, list(spec.choices)) if isinstance(raw, str) else ""
             raise ModelError(src, where, words, _describe_raw(raw) + hint)
         return raw
-    if spec.kind is RATIO:
+    if spec.kind in (RATIO, COUNT):
         if isinstance(raw, bool) or not isinstance(raw, (int, float)):
             raise ModelError(src, where, "a bare number, no unit", _describe_raw(raw))
         value = float(raw)
@@ -731,7 +732,8 @@ def parse_document(doc: dict[str, Any], source: str) -> Vehicle:
         if section == "casters" and "skid" in doc:
             continue
         if section not in doc:
-            raise ModelError(source, section, f"a [{section}] section", "nothing (the section is required)")
+            also = " (or [skid] for a skid-steer, which has none)" if section == "casters" else ""
+            raise ModelError(source, section, f"a [{section}] section{also}", "nothing (the section is required)")
         sections[section] = _read_section(source, section, doc[section])
     _cross_checks(source, sections, doc)
     built: dict[str, Any] = {
@@ -739,7 +741,7 @@ def parse_document(doc: dict[str, Any], source: str) -> Vehicle:
         for sec in sections
     }
     built.setdefault("casters", None)
-    optional = {sec: _optional_section(source, doc, sec) for sec in OPTIONAL_SCHEMA}
+    optional = {sec: _optional_section(source, doc, sec, sections) for sec in OPTIONAL_SCHEMA}
     vehicle = Vehicle(name=name, source=source, **optional, **built)
     stability.check(vehicle)
     return vehicle
@@ -753,12 +755,16 @@ def _layout_sections(source: str, doc: dict[str, Any]) -> None:
         )
 
 
-def _optional_section(source: str, doc: dict[str, Any], name: str) -> Any:
-    """The dataclass of an optional section present in the document (its cross rules checked), else None."""
+def _optional_section(source: str, doc: dict[str, Any], name: str, sections: dict[str, dict[str, Any]]) -> Any:
+    """The dataclass of an optional section present in the document (its cross rules checked, against the
+    required sections' values where they relate), else None."""
     if name not in doc:
         return None
     values = _read_section(source, name, doc[name])
-    {"lift": _lift_rules, "skid": _skid_rules}[name](source, values, doc[name])
+    if name == "lift":
+        _lift_rules(source, values, doc[name])
+    else:
+        _skid_rules(source, values, doc[name], sections)
     fields = OPTIONAL_SCHEMA[name]
     return OPTIONAL_SECTION_TYPES[name](**{fields[key].field: val for key, val in values.items()})
 
@@ -798,8 +804,19 @@ def _lift_rules(src: str, s: dict[str, Any], raw: dict[str, Any]) -> None:
         )
 
 
-def _skid_rules(src: str, s: dict[str, Any], raw: dict[str, Any]) -> None:
-    """Each motor of a side drives at least one of its wheels."""
+def _skid_rules(src: str, s: dict[str, Any], raw: dict[str, Any], sections: dict[str, dict[str, Any]]) -> None:
+    """Each motor of a side drives at least one of its wheels, and the turning resistance's ramp spans at
+    least one firmware speed step of the wheels' difference (track x turn_transition), as the deadband
+    does: a narrower one is a jump of the whole turning force between neighbouring speed steps."""
+    track, lsb = sections["wheels"]["track"], sections["firmware"]["speed_lsb"]
+    if track * s["turn_transition"] < lsb:
+        raise ModelError(
+            src,
+            "skid.turn_transition",
+            f"a yaw rate of at least firmware.speed_lsb / wheels.track ({lsb / track:.4g} rad/s): the ramp must span "
+            "one speed step of u_R - u_L",
+            _describe_raw(raw["turn_transition"]),
+        )
     if s["motors_per_side"] > s["wheels_per_side"]:
         raise ModelError(
             src,
@@ -839,7 +856,7 @@ def reference_rows() -> list[str]:
         for key, spec in keys.items():
             if spec.kind is CHOICE:
                 kind = " or ".join(f"`{c}`" for c in spec.choices)
-            elif spec.kind is RATIO:
+            elif spec.kind in (RATIO, COUNT):
                 kind = "bare number"
             else:
                 kind = f"{spec.kind.name.split(' ', 1)[1]} (e.g. {spec.kind.example})"

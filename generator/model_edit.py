@@ -43,6 +43,8 @@ def _new_item(spec: model.Key, old: Item | None, value: float | str) -> Item:
     new: Item
     if spec.kind is model.RATIO:
         new = tomlkit.item(float(number(float(value))))
+    elif spec.kind is model.COUNT:
+        new = tomlkit.item(int(value))
     elif spec.kind is model.CHOICE:
         new = tomlkit.string(str(value))
     else:

@@ -72,7 +72,9 @@ def check(v: Vehicle) -> None:
             raise ModelError(
                 v.source,
                 "envelope.pitch_max",
-                "positive wheel and caster loads over the envelope",
+                "positive wheel and caster loads over the envelope"
+                if v.skid is None
+                else "positive loads on the first and last wheels over the envelope",
                 f"{what} {values[k]:.1f} N at payload {p[k]:g} kg, pitch {math.degrees(th[k]):+.2f} deg, "
                 f"roll {math.degrees(ph[k]):+.2f} deg (the vehicle tips)",
             )

@@ -10,7 +10,7 @@ from typing import Any
 
 import numpy as np
 
-from . import bodyframe, dynamics, region
+from . import bodyframe, dynamics, interface, region
 from . import fixedpoint as fx
 from . import tables as tb
 from .vehicle import Vehicle
@@ -337,7 +337,7 @@ def _turn_rows(v: Vehicle, lim: Limits, k: float) -> dict[str, _Row]:
             **_si(k, "N"),
         ),
         "turn_shape": _Row(
-            source="speed",
+            source=interface.SPEED_DIFFERENCE,
             symmetry="odd",
             pieces=tuple(pieces),
             unit="1",

@@ -15,7 +15,7 @@ from kinetab.generator import dynamics, interface
 from kinetab.generator.errors import UserError
 from kinetab.generator.vehicle import Vehicle
 
-from . import messages
+from . import countlattice, messages
 from .benchlog import log_columns
 
 SG_WINDOW_S = 0.1  # Savitzky-Golay window for accelerations from measured speeds
@@ -224,7 +224,7 @@ def accelerations(v: Vehicle, log: BenchLog) -> tuple[np.ndarray, str]:
     if err < TIGHT_TRACKING * v.envelope.speed_max_mps:
         acc = np.column_stack([asked.accel_right, asked.accel_left])
         return acc, f"setpoint accelerations (tracking was tight: RMS speed error {err * 1000:.2f} mm/s)"
-    acc = derivative(log)
+    acc = derivative(log, v.firmware.speed_lsb_mps)
     window, _ = _window(log)
     return acc, (
         f"Savitzky-Golay derivative of the measured speeds ({window} samples, quadratic; "
@@ -232,12 +232,14 @@ def accelerations(v: Vehicle, log: BenchLog) -> tuple[np.ndarray, str]:
     )
 
 
-def derivative(log: BenchLog) -> np.ndarray:
-    """Rim accelerations (n, 2) as the Savitzky-Golay derivative of the measured speeds (quadratic, 0.1 s)."""
+def derivative(log: BenchLog, speed_lsb: float) -> np.ndarray:
+    """Rim accelerations (n, 2) as the Savitzky-Golay derivative of the measured speeds (quadratic, 0.1 s),
+    taken back to whole encoder counts first where they are a rounded count lattice (countlattice.py)."""
     from scipy.signal import savgol_filter  # here: scipy.signal takes ~0.5 s to load
 
     window, dt = _window(log)
-    return np.asarray(savgol_filter(log.speed, window, 2, deriv=1, delta=dt, axis=0))
+    speed = countlattice.on_counts(log.speed, speed_lsb)
+    return np.asarray(savgol_filter(speed, window, 2, deriv=1, delta=dt, axis=0))
 
 
 def _window(log: BenchLog) -> tuple[int, float]:
@@ -245,12 +247,13 @@ def _window(log: BenchLog) -> tuple[int, float]:
     return max(5, int(round(SG_WINDOW_S / dt)) | 1), dt
 
 
-def smoothed_speed(log: BenchLog) -> np.ndarray:
-    """Measured speeds smoothed by the same Savitzky-Golay filter (encoder quantisation averaged out)."""
+def smoothed_speed(log: BenchLog, speed_lsb: float) -> np.ndarray:
+    """Measured speeds smoothed by the same Savitzky-Golay filter (encoder quantisation averaged out), on
+    whole encoder counts as `derivative`."""
     from scipy.signal import savgol_filter
 
     window, _ = _window(log)
-    return np.asarray(savgol_filter(log.speed, window, 2, axis=0))
+    return np.asarray(savgol_filter(countlattice.on_counts(log.speed, speed_lsb), window, 2, axis=0))
 
 
 def operating_point(log: BenchLog, *, speed: np.ndarray, accel: np.ndarray) -> dynamics.OperatingPoint:

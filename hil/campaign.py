@@ -78,20 +78,21 @@ def plan_for(v: Vehicle, c: Candidate, *, duration_s: float, period_s: float) ->
 
 def planned_rows(v: Vehicle, plan: Plan, rig: str, *, noise_a: float = 0.0) -> regressor.Rows:
     """The fit's rows for a planned motion as `v` would produce it (the motion itself, the model's force),
-    weighted 0 where the fit would leave them out: near a friction kink, or where the current is within
-    three times the noise of zero (its direction of power flow would be unsure)."""
+    weighted 0 where the fit would leave them out: near a friction (or turning-resistance) kink, or where
+    the current is within three times the noise of zero (its direction of power flow would be unsure)."""
     si = plan.si()
     op = dynamics.OperatingPoint(**si)
     right, left = dynamics.rig_wheel_forces(v, op, rig)
     n = len(plan)
     parts, weight = [], []
     half = max(1, int(round(0.75 / (regressor.CUTOFF_HZ * float(plan.columns["t"][1] - plan.columns["t"][0])))))
+    turning = regressor.turn_kinked(v, np.asarray(si["speed_right"] - si["speed_left"], float), half)
     for speed, side in ((si["speed_right"], right), (si["speed_left"], left)):
         force = np.broadcast_to(side.total, (n,))
         current = force * dynamics.motor_gain(v)
         parts.append(regressor.measured_columns(v, current, speed, current))
         unsure = np.convolve((np.abs(current) < 3 * noise_a).astype(float), np.ones(2 * half + 1), mode="same") > 0
-        weight.append((~(unsure | regressor.kinked(v, np.asarray(speed, float), half))).astype(float))
+        weight.append((~(unsure | turning | regressor.kinked(v, np.asarray(speed, float), half))).astype(float))
     return regressor.Rows(
         ops=[(op, rig)],
         measured=np.concatenate(parts),

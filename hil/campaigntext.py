@@ -11,24 +11,31 @@ from . import campaign, planfile
 from .campaign import Candidate
 
 
-def excursion(plan: planfile.Plan) -> tuple[float, float]:
-    """How far the plan drives the vehicle forward and backward from where it starts, m."""
+def excursion(plan: planfile.Plan, track_m: float) -> tuple[float, float, float]:
+    """How far the plan takes P from where it starts, m: (ahead, behind, to the side, the larger of left
+    and right), along the path the wheel speeds drive (turns and spins included)."""
     c = plan.columns
-    v = (c["speed_right"] + c["speed_left"]) / 2
-    x = np.cumsum(v) * float(c["t"][1] - c["t"][0])
-    return float(max(x.max(), 0.0)), float(max(-x.min(), 0.0))
+    dt = float(c["t"][1] - c["t"][0])
+    heading = np.cumsum((c["speed_right"] - c["speed_left"]) / track_m) * dt
+    forward = (c["speed_right"] + c["speed_left"]) / 2
+    x, y = np.cumsum(forward * np.cos(heading)) * dt, np.cumsum(forward * np.sin(heading)) * dt
+    return float(max(x.max(), 0.0)), float(max(-x.min(), 0.0)), float(np.max(np.abs(y)))
 
 
 def _needs(c: Candidate, plan: planfile.Plan, v: Vehicle) -> str:
     if c.rig == "wheels-up":
         wheels = "both drive wheels" if v.skid is None else "every driven wheel"
         return f"the vehicle on a stand, {wheels} free to turn; the controller adds no feed-forward"
-    ahead, back = excursion(plan)
+    ahead, back, side = excursion(plan, v.wheels.track_m)
+    size = v.wheels.track_m if v.skid is None else max(v.wheels.track_m, v.skid.wheelbase_m + v.wheels.diameter_m)
+    room = 0.5 + size  # beyond P's path: the vehicle's own size, roughly, and a margin
     ground = (
         f"a ramp of {np.degrees(c.pitch_rad):.3g} deg (front higher), straight and at least "
-        f"{ahead + back + 1:.1f} m long"
+        f"{ahead + back + 2 * room:.1f} m long (the plan drives straight on it: a turn would change the slope "
+        "it stands on)"
         if c.pitch_rad
-        else f"a level floor with {ahead + 0.5:.1f} m clear ahead and {back + 0.5:.1f} m behind"
+        else f"a level floor with {ahead + room:.1f} m clear ahead, {back + room:.1f} m behind and "
+        f"{side + room:.1f} m to either side (the plan turns and spins)"
     )
     load = f"a payload of {c.payload_kg:.4g} kg placed where the model's payload sits" if c.payload_kg else "no payload"
     return f"{ground}; {load}"

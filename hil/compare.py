@@ -82,10 +82,10 @@ def band(v: Vehicle, log: BenchLog, rig: str, *, smooth: np.ndarray) -> Band:
     accelerations anywhere between the setpoint's and the derivative of the measured speeds. The current
     is monotone in the accelerations (the mass matrix is positive, the efficiency factor positive), so
     their ends suffice; in speed the model bends and steps (Stribeck, deadband, blend), so it is sampled.
-    `smooth`: benchdata.smoothed_speed(log), made once by the caller."""
+    `smooth`: benchdata.smoothed_speed(log, speed_lsb), made once by the caller."""
     margin = 2 * np.sqrt(np.mean((log.speed - smooth)[log.valid] ** 2, axis=0)) if log.valid.any() else np.zeros(2)
     sp_acc = np.column_stack([log.setpoint["accel_right"], log.setpoint["accel_left"]])
-    measured_acc = benchdata.derivative(log)
+    measured_acc = benchdata.derivative(log, v.firmware.speed_lsb_mps)
     acc_lo, acc_hi = np.minimum(sp_acc, measured_acc), np.maximum(sp_acc, measured_acc)
     low = np.full(smooth.shape, np.inf)
     high = np.full(smooth.shape, -np.inf)
@@ -117,7 +117,7 @@ def compare(v: Vehicle, log: BenchLog, *, tolerance_a: float | None = None) -> d
     sp = np.column_stack([log.setpoint["speed_right"], log.setpoint["speed_left"]])
     sp_acc = np.column_stack([log.setpoint["accel_right"], log.setpoint["accel_left"]])
     at_setpoint = benchdata.predicted_current(v, benchdata.operating_point(log, speed=sp, accel=sp_acc), rig)
-    smooth = benchdata.smoothed_speed(log)
+    smooth = benchdata.smoothed_speed(log, v.firmware.speed_lsb_mps)
     op = benchdata.operating_point(log, speed=smooth, accel=accel)
     at_measured = benchdata.predicted_current(v, op, rig)
     rng = band(v, log, rig, smooth=smooth)

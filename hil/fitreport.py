@@ -195,7 +195,7 @@ def _units(text: str) -> dict[str, tuple[str, float]]:
         section, name = key.split(".")
         raw = doc.get(section, {}).get(name)
         spec = model.SCHEMA[section][name]
-        if isinstance(raw, str) and spec.kind is not model.RATIO:
+        if isinstance(raw, str) and spec.kind not in (model.RATIO, model.COUNT):
             unit = raw.strip().lstrip("+-0123456789.eE ").strip()
             try:
                 out[key] = (unit, units.parse(f"1 {unit}", spec.kind)) if unit else None

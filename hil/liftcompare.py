@@ -39,7 +39,7 @@ def compare(v: Vehicle, log: liftlog.LiftLog, *, tolerance_a: float | None = Non
     back-drives poorly takes accelerations no filter follows."""
     lt = v.lift
     assert lt is not None
-    m = liftlog.motion(log)
+    m = liftlog.motion(log, lt.speed_lsb_mps)
     settled = liftlog.settled(lt, log, m)
     load, sp = log.setpoint["payload_kg"], log.setpoint
     residual = (m.current - lift.motor_current(lt, load, m.speed, m.accel))[settled]

@@ -90,7 +90,7 @@ def used_rows(lt: Lift, logs: list[liftlog.LiftLog]) -> Rows:
     between kinds, and a filter across a switch mixes two laws), or standing with a standing setpoint."""
     parts: list[tuple[np.ndarray, ...]] = []
     for k, log in enumerate(logs):
-        m = liftlog.motion(log)
+        m = liftlog.motion(log, lt.speed_lsb_mps)
         idx = np.flatnonzero(liftlog.settled(lt, log, m))
         load = log.setpoint["payload_kg"][idx]
         parts.append((load, m.speed[idx], m.accel[idx], m.current[idx], np.full(idx.size, k), idx))

@@ -14,7 +14,7 @@ from kinetab.generator.dynamics import opposed
 from kinetab.generator.errors import UserError
 from kinetab.generator.vehicle import Lift, Vehicle
 
-from . import benchdata, liftplan, messages, planfile
+from . import benchdata, countlattice, liftplan, messages, planfile
 
 COLUMNS = (
     "t",
@@ -142,16 +142,19 @@ def _mean(x: np.ndarray, w: np.ndarray) -> np.ndarray:
     return np.convolve(np.pad(mid, (len(w) // 2, len(w) // 2), mode="edge"), w[::-1], mode="valid")
 
 
-def motion(log: LiftLog) -> Motion:
+def motion(log: LiftLog, speed_lsb: float) -> Motion:
+    """The filtered motion; speeds that are whole encoder counts rounded to speed_lsb (the lift's step)
+    are taken back to their counts first (countlattice.py: the uneven staircase biases the derivative)."""
     dt = float(np.median(np.diff(log.t)))
     half = max(2, int(round(benchdata.SG_WINDOW_S / dt)) // 2)
     w = weights(half)
-    speed = _mean(log.speed, w)
-    slope = np.diff(log.speed) / dt
+    raw = countlattice.on_counts(log.speed, speed_lsb)
+    speed = _mean(raw, w)
+    slope = np.diff(raw) / dt
     accel = np.convolve(np.pad(slope, (half, half), mode="edge"), w[::-1], mode="valid")
     edge = np.zeros(len(log), dtype=bool)
     edge[:half], edge[-half:] = True, True
-    scatter = float(np.sqrt(np.mean((log.speed - speed)[~edge] ** 2)))
+    scatter = float(np.sqrt(np.mean((raw - speed)[~edge] ** 2)))
     return Motion(speed=speed, accel=accel, current=_mean(log.current, w), scatter_mps=scatter, half=half, edge=edge)
 
 

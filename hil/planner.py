@@ -30,9 +30,10 @@ class Segment:
     hold_s: float
 
 
-def _segments(v: Vehicle, rng: np.random.Generator | None = None) -> list[Segment]:
+def _segments(v: Vehicle, rng: np.random.Generator | None = None, *, straight: bool = False) -> list[Segment]:
     """One cycle of the plan: every phase the comparison reports, in both directions, interleaved so a
-    short plan still turns and spins (turns and spins excite the yaw inertia)."""
+    short plan still turns and spins (turns and spins excite the yaw inertia); `straight`: the straight
+    segments only (on a slope, where a turn would change the pitch and roll the vehicle stands at)."""
     crawl = min(0.5, 2.5 * v.friction.deadband_mps / v.envelope.speed_max_mps)  # just past the deadband
     out = [
         Segment(right=0, left=0, accel=0.2, hold_s=0.5),
@@ -51,15 +52,17 @@ def _segments(v: Vehicle, rng: np.random.Generator | None = None) -> list[Segmen
             Segment(right=0.3 * d, left=-0.3 * d, accel=0.4, hold_s=0.6),
             Segment(right=0, left=0, accel=0.4, hold_s=0.3),
         ]
+    if straight:
+        out = [s for s in out if s.right == s.left]
     if rng is None:
         return out
     jitter = lambda x: float(np.clip(x * rng.uniform(0.6, 1.4), -1.0, 1.0))  # noqa: E731
-    return [
-        Segment(
-            right=jitter(s.right), left=jitter(s.left), accel=jitter(s.accel), hold_s=s.hold_s * rng.uniform(0.5, 1.5)
-        )
-        for s in out
-    ]
+    jittered = []
+    for s in out:
+        right = jitter(s.right)
+        left = right if straight else jitter(s.left)
+        jittered.append(Segment(right=right, left=left, accel=jitter(s.accel), hold_s=s.hold_s * rng.uniform(0.5, 1.5)))
+    return jittered
 
 
 def _target(v: Vehicle, seg: Segment) -> list[float]:
@@ -323,11 +326,13 @@ def make_plan(
     roll: float = 0.0,
     seed: int | None = None,
 ) -> Plan:
-    """A plan inside the envelope and, by the float model, within 90 % of the current limit."""
+    """A plan inside the envelope and, by the float model, within 90 % of the current limit. On a slope
+    (pitch or roll) it only drives straight: its pitch and roll hold only while the heading does."""
     _check_where(v, payload=payload, pitch=pitch, roll=roll)
     if duration_s < 5:
         raise UserError("bench plan: --duration: expected at least 5 s (room to start and stop)")
-    segments, scale = _segments(v, None if seed is None else np.random.default_rng(seed)), 1.0
+    rng = None if seed is None else np.random.default_rng(seed)
+    segments, scale = _segments(v, rng, straight=bool(pitch or roll)), 1.0
     while True:
         profile = _profile(v, segments, period_s=period_s, duration_s=duration_s, scale=scale)
         use = peak_current_use(v, profile, rig=rig, payload=payload, pitch=pitch, roll=roll)

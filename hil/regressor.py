@@ -25,6 +25,7 @@ import numpy as np
 from kinetab.generator import dynamics
 from kinetab.generator.vehicle import Vehicle
 
+from . import countlattice
 from . import fitparams as fp
 from .benchdata import BenchLog
 
@@ -103,8 +104,9 @@ def rows(v: Vehicle, logs: list[BenchLog], *, cutoff_hz: float = CUTOFF_HZ) -> R
     ops, how = [], []
     for k, log in enumerate(logs):
         n, dt = window(log, cutoff_hz)
-        speed = smooth(log.speed, dt, cutoff_hz)
-        accel = smooth(np.gradient(log.speed, dt, axis=0), dt, cutoff_hz)
+        raw = countlattice.on_counts(log.speed, v.firmware.speed_lsb_mps)
+        speed = smooth(raw, dt, cutoff_hz)
+        accel = smooth(np.gradient(raw, dt, axis=0), dt, cutoff_hz)
         s = log.setpoint
         op_all = dynamics.OperatingPoint(
             payload_kg=s["payload_kg"],
@@ -116,21 +118,24 @@ def rows(v: Vehicle, logs: list[BenchLog], *, cutoff_hz: float = CUTOFF_HZ) -> R
             roll_rad=s["roll_rad"],
         )
         keep = _usable(log, n // 2) & (np.arange(len(log)) % decimation(dt, cutoff_hz) == 0)
+        turning = turn_kinked(v, speed[:, 0] - speed[:, 1], n // 2, raw=raw[:, 0] - raw[:, 1])
         ops.append((dynamics.OperatingPoint(**{f: np.asarray(x)[keep] for f, x in vars(op_all).items()}), log.rig))
         idx = np.flatnonzero(keep)
         for side in (0, 1):
             split = measured_columns(v, log.current[:, side], speed[:, side], log.current[:, side])
             filtered = smooth(split, dt, cutoff_hz)
             doubtful = _doubtful(log.current[:, side], speed[:, side], n // 2)
-            doubtful |= kinked(v, speed[:, side], n // 2, raw=log.speed[:, side])
-            doubtful |= blended(v, log.current[:, side], speed[:, side], n // 2)
+            doubtful |= kinked(v, speed[:, side], n // 2, raw=raw[:, side])
+            doubtful |= blended(v, log.current[:, side], speed[:, side], n // 2) | turning
             for bucket, item in zip(
                 parts, (filtered[keep], speed[keep, side], np.full(len(idx), k), idx, (~doubtful[keep]).astype(float))
             ):
                 bucket.append(item)
+        count = countlattice.count_step(log.speed, v.firmware.speed_lsb_mps)
+        counted = "" if count is None else f"; speeds taken back to whole encoder counts of {count * 1000:.5g} mm/s"
         how.append(
             f"{log.path.name} ({log.rig}): {len(log)} rows through one zero-phase low-pass filter "
-            f"({cutoff_hz:g} Hz), then one row in {decimation(dt, cutoff_hz)}: {len(idx)} rows"
+            f"({cutoff_hz:g} Hz), then one row in {decimation(dt, cutoff_hz)}: {len(idx)} rows{counted}"
         )
     measured, speeds, which, sample, weight = (np.concatenate(b) for b in parts[:5])
     return Rows(ops=ops, measured=measured, speed=speeds, log=which, sample=sample, how=how, weight=weight)
@@ -156,6 +161,20 @@ def kinked(v: Vehicle, speed: np.ndarray, half: int, *, raw: np.ndarray | None =
         hi = np.maximum(hi, _roll(raw, 2 * half + 1, "max"))
     edge = v.friction.deadband_mps
     return (lo < edge) & (hi > -edge)
+
+
+def turn_kinked(v: Vehicle, difference: np.ndarray, half: int, *, raw: np.ndarray | None = None) -> np.ndarray:
+    """A skid-steer's rows whose filter window crosses an end of the turning resistance's ramp (|u_R - u_L| =
+    track x skid.turn_transition), where it bends from a slope to a constant (as `kinked` for friction,
+    the raw differences judged too); none on two drive wheels and casters."""
+    if v.skid is None:
+        return np.zeros(len(difference), dtype=bool)
+    lo, hi = _roll(difference, 2 * half + 1, "min"), _roll(difference, 2 * half + 1, "max")
+    if raw is not None:
+        lo = np.minimum(lo, _roll(raw, 2 * half + 1, "min"))
+        hi = np.maximum(hi, _roll(raw, 2 * half + 1, "max"))
+    edge = v.wheels.track_m * v.skid.turn_transition_radps
+    return ((lo < edge) & (hi > edge)) | ((lo < -edge) & (hi > -edge))
 
 
 def blended(v: Vehicle, current: np.ndarray, speed: np.ndarray, half: int) -> np.ndarray:

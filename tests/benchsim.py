@@ -1,6 +1,7 @@
 """Bench logs made in-process and faster than real time, for the fit's tests: the simulated
 controller's plant (hil.plant: PI speed loop, saturating drive, current noise, quantised encoder) runs a
-plan tick by tick, `batch` independent copies at once (same truth, own noise). The feed-forward is the
+plan tick by tick, `batch` independent copies at once (same truth, own noise); measured speeds are
+rounded to the firmware's speed step, as the simulated controller reports them. The feed-forward is the
 model's float current rounded to the firmware's current step (the generated C agrees with it within the
 current budget; the end-to-end tests run the real C), or none."""
 
@@ -45,6 +46,8 @@ def run_plan(
     for k in range(n):
         plant.step({key: float(val[k]) for key, val in si.items()}, ff[k])
         current[k], speed[k] = plant.measure()
+    lsb = model.firmware.speed_lsb_mps  # a controller reports speed in the firmware's steps (stepdrive.py)
+    speed = np.round(speed / lsb) * lsb
     logs = []
     for b in range(batch):
         logs.append(

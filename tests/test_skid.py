@@ -18,7 +18,7 @@ import numpy as np
 import pytest
 from kinetab.generator import accuracy, dynamics, emulate, envelope, interface, model, render, synthesis, vectors
 from kinetab.generator.errors import CheckFailed, ModelError
-from kinetab.hil import campaign, compare, identify, regressor
+from kinetab.hil import campaign, campaigntext, compare, identify, planfile, planner, regressor
 from kinetab.hil import fitparams as fp
 
 from tests import cortexm
@@ -355,3 +355,40 @@ def test_the_skid_demo_on_cortex_m_gives_the_emulators_integers(target, tmp_path
     for row in vectors.feedforward_table(fw, 800):
         out, _ = machine.call(interface.FF_IN.pack(row[:n]), interface.FF_OUT.size)
         assert interface.FF_OUT.unpack(out) == tuple(int(x) for x in row[n:]), row
+
+
+def test_more_model_errors_name_the_key_and_say_what_is_expected():
+    doc, v = _skid_vehicle(33, 2)
+    narrow = {**doc, "skid": {**doc["skid"], "turn_transition": "0.0001 rad/s"}}
+    with pytest.raises(ModelError, match=r"skid.turn_transition: expected a yaw rate of at least firmware.speed_lsb"):
+        vehicle_from(narrow)
+    missing = {**doc, "skid": {k: x for k, x in doc["skid"].items() if k != "wheels_per_side"}}
+    with pytest.raises(ModelError, match=r"skid.wheels_per_side: expected a bare whole number such as 4"):
+        vehicle_from(missing)
+    neither = {k: x for k, x in doc.items() if k != "skid"}
+    with pytest.raises(ModelError, match=r"casters: expected a \[casters\] section \(or \[skid\] for a skid-steer"):
+        vehicle_from(neither)
+
+
+def test_plans_on_a_slope_drive_straight_and_the_campaign_states_the_room_a_turning_plan_needs():
+    """On a ramp a turn would change the pitch and roll the vehicle stands at, so those plans drive
+    straight (seeded ones too); on the floor the plan turns and spins, and CAMPAIGN.txt's room to the
+    side is where the path goes (checked here on a quarter circle of known radius)."""
+    doc, v = _skid_vehicle(34, 2, feasible=True)
+    for seed in (None, 5):
+        plan = planner.make_plan(
+            v, duration_s=20, period_s=0.01, rig="on-floor", pitch=v.envelope.pitch_max_rad, seed=seed
+        )
+        assert np.array_equal(plan.columns["speed_right"], plan.columns["speed_left"])
+    floor = planner.make_plan(v, duration_s=20, period_s=0.01, rig="on-floor")
+    assert "spin" in floor.phase
+    n, dt, radius, speed = 1000, 0.01, 1.5, 0.4  # a quarter circle to the left at 0.4 m/s: 1.5 m ahead, 1.5 m left
+    track, w = v.wheels.track_m, 0.4 / 1.5
+    t = np.arange(n) * dt
+    quarter = t < (np.pi / 2) / w
+    cols = {c: np.zeros(n) for c in planfile.PLAN_COLUMNS}
+    cols["t"] = t
+    cols["speed_right"] = np.where(quarter, speed + w * track / 2, 0.0)
+    cols["speed_left"] = np.where(quarter, speed - w * track / 2, 0.0)
+    ahead, behind, side = campaigntext.excursion(planfile.Plan(cols, ["turning"] * n), track)
+    assert ahead == pytest.approx(radius, rel=0.01) and side == pytest.approx(radius, rel=0.01) and behind == 0
