@@ -93,10 +93,11 @@ def _wait_for_rows(log: Path, rows: int, run: subprocess.Popen, *, limit_s: floa
 
 def test_sixty_seconds_at_one_kilohertz(tmp_path):
     """Every setpoint answered exactly once and in order, no drops, no underrun, and the feed-forward
-    current the C computed equals the Python emulation on every row. A FIFO of 1 s, as README's loop
-    uses: the default 64 ms ran dry once in a CI run with both cores kept busy (the host starved)."""
+    current the C computed equals the Python emulation on every row. A FIFO of 1 s and a watchdog of 1 s,
+    as README's loop uses: the default 64 ms ran dry in a CI run with both cores kept busy (the host
+    starved), and a starved host can outlast the default 100 ms watchdog the same way."""
     plan, log = _plan(tmp_path, 60), tmp_path / "log.csv"
-    sim = Sim(DEMO_PATH, "--noise", "0.02", "--fifo-depth", "1024")
+    sim = Sim(DEMO_PATH, "--noise", "0.02", "--fifo-depth", "1024", "--watchdog", "1 s")
     run = _run(sim.port, plan, log)
     _, err = run.communicate(timeout=600)  # 60 s of plan; the bound only catches a hang
     assert run.returncode == 0, err
@@ -419,7 +420,7 @@ def test_the_lift_over_the_link_recovers_a_changed_truth(tmp_path):
         command = [*KINETAB, "bench", "plan", str(model), "--axis", "lift", "--lift-payload", load, "-o", str(plan)]
         made = subprocess.run(command, cwd=ROOT, capture_output=True, text=True)
         assert made.returncode == 0, made.stderr
-        sim = Sim(model, "--truth", str(truth), "--noise", "0.03", "--watchdog", "1 s")
+        sim = Sim(model, "--truth", str(truth), "--noise", "0.03", "--watchdog", "1 s", "--fifo-depth", "1024")
         run = _run(sim.port, plan, log, model=model)
         _, err = run.communicate(timeout=900)
         assert run.returncode == 0, err
