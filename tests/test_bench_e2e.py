@@ -26,12 +26,21 @@ KINETAB = [sys.executable, "-m", "kinetab.generator"]
 pytestmark = [pytest.mark.slow, needs_gcc]
 
 
-class Sim:
-    """A `bench simulate` process; `port` is the first line it prints."""
+ROOMY = {"--fifo-depth": "1024", "--watchdog": "1 s"}
+"""What a simulated controller gets unless a test names its own (README's loop uses the same): a host
+starved by a loaded machine outlasted the defaults' 64 ms of FIFO and 100 ms of watchdog in CI runs
+with both cores kept busy ('fifo dry', then 'watchdog'), which the tests that are not about them
+should survive."""
 
-    def __init__(self, model: Path, *extra: str) -> None:
+
+class Sim:
+    """A `bench simulate` process; `port` is the first line it prints. `roomy`: ROOMY for what `extra`
+    does not set (False: the controller's defaults, for the tests about them)."""
+
+    def __init__(self, model: Path, *extra: str, roomy: bool = True) -> None:
+        room = [x for key, value in ROOMY.items() if roomy and key not in extra for x in (key, value)]
         self.proc = subprocess.Popen(
-            [*KINETAB, "bench", "simulate", str(model), *extra],
+            [*KINETAB, "bench", "simulate", str(model), *extra, *room],
             cwd=ROOT,
             stdout=subprocess.PIPE,
             stderr=subprocess.PIPE,
@@ -93,11 +102,9 @@ def _wait_for_rows(log: Path, rows: int, run: subprocess.Popen, *, limit_s: floa
 
 def test_sixty_seconds_at_one_kilohertz(tmp_path):
     """Every setpoint answered exactly once and in order, no drops, no underrun, and the feed-forward
-    current the C computed equals the Python emulation on every row. A FIFO of 1 s and a watchdog of 1 s,
-    as README's loop uses: the default 64 ms ran dry in a CI run with both cores kept busy (the host
-    starved), and a starved host can outlast the default 100 ms watchdog the same way."""
+    current the C computed equals the Python emulation on every row."""
     plan, log = _plan(tmp_path, 60), tmp_path / "log.csv"
-    sim = Sim(DEMO_PATH, "--noise", "0.02", "--fifo-depth", "1024", "--watchdog", "1 s")
+    sim = Sim(DEMO_PATH, "--noise", "0.02")
     run = _run(sim.port, plan, log)
     _, err = run.communicate(timeout=600)  # 60 s of plan; the bound only catches a hang
     assert run.returncode == 0, err
@@ -171,7 +178,7 @@ def test_garbage_and_corruption_both_ways_are_counted_and_the_run_completes(tmp_
 def test_host_silent_the_controller_halts_on_its_watchdog(tmp_path, watchdog, ms):
     import serial
 
-    sim = Sim(DEMO_PATH, *(["--watchdog", watchdog] if watchdog else []))
+    sim = Sim(DEMO_PATH, *(["--watchdog", watchdog] if watchdog else []), roomy=False)
     port = serial.serial_for_url(sim.port, timeout=0.1)
     link = session.Link(port)
     ident = session.handshake(link, sim.port)
@@ -420,7 +427,7 @@ def test_the_lift_over_the_link_recovers_a_changed_truth(tmp_path):
         command = [*KINETAB, "bench", "plan", str(model), "--axis", "lift", "--lift-payload", load, "-o", str(plan)]
         made = subprocess.run(command, cwd=ROOT, capture_output=True, text=True)
         assert made.returncode == 0, made.stderr
-        sim = Sim(model, "--truth", str(truth), "--noise", "0.03", "--watchdog", "1 s", "--fifo-depth", "1024")
+        sim = Sim(model, "--truth", str(truth), "--noise", "0.03")
         run = _run(sim.port, plan, log, model=model)
         _, err = run.communicate(timeout=900)
         assert run.returncode == 0, err
