@@ -26,7 +26,7 @@ from tests import cortexm
 from tests.benchsim import run_plan
 from tests.csteps import build_harness, needs_gcc, run_harness, write_files
 from tests.helpers import random_doc, run_cli, skid_doc, vehicle_from
-from tests.test_identify import float_log
+from tests.test_identify import changed, float_log
 
 G = 9.80665  # standard gravity (3rd CGPM 1901)
 SKID_DEMO = Path(str(resources.files("kinetab.generator.demos").joinpath("bramble.toml")))
@@ -250,16 +250,6 @@ def test_generated_c_is_bit_exact_with_the_emulation_and_within_budget_of_the_fl
     assert 0.05 < np.mean(full) < 0.95  # both full turning resistance and its ramp are exercised
 
 
-def _changed_truth(v, rng, names):
-    """A truth 10-30 % off `v` (random sign) in each of `names` (fit coordinates), kept inside the bounds."""
-    x = fp.values(v)
-    for n in names:
-        x[fp.INDEX[n]] *= 1 + rng.choice([-1, 1]) * rng.uniform(0.1, 0.3)
-    lo, hi = fp.bounds(v)
-    x = np.clip(x, lo, hi)
-    return fp.vehicle_with(v, x), x
-
-
 def test_the_fit_coordinates_of_a_skid_steer_rebuild_it_and_its_force_model_is_exact():
     """fitparams: the lateral friction takes the casters' place, values and vehicle_with are inverse, and
     the fit's force model (11 evaluations of the dynamics) equals the dynamics at random coordinates."""
@@ -299,7 +289,7 @@ def test_the_bench_fit_recovers_a_changed_lateral_friction_from_simulated_logs(s
     doc, v = _skid_vehicle(seed, wheels, motors, feasible=True)
     rng = np.random.default_rng(seed)
     names = ("body.mass", "body.yaw_inertia", "friction.coulomb", "wheels.rolling_resistance", "skid.lateral_friction")
-    truth, x_true = _changed_truth(v, rng, names)
+    truth, x_true = changed(v, rng, names)
     logs = []
     for k, c in enumerate(campaign.candidates(v)[:3]):
         plan = campaign.plan_for(v, c, duration_s=20, period_s=0.001)
