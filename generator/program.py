@@ -50,6 +50,7 @@ class Design:
     amps_per_acc: float
     exact: bool = False  # products keep every operand bit (see design)
     coarse: bool = False  # some table stores fewer fraction bits than its word allows (see _coarser)
+    stribeck: bool = False  # the speed tables split at the Stribeck edge (see design)
 
 
 class _Builder:
@@ -418,19 +419,21 @@ def _peak_current_steps(v: Vehicle, lim: Limits) -> float:
     )
 
 
-def design(v: Vehicle, *, exact: bool = False, coarse: bool = True) -> Design:
+def design(v: Vehicle, *, exact: bool = False, coarse: bool = True, stribeck: bool = False) -> Design:
     """Scales, table specs and both programs for a validated vehicle (sizes are chosen later).
 
     exact: products too wide for 32 bits keep every operand bit (an exact two-part product, else
     64 bits) instead of rounding their operands first; for budgets the rounded design cannot meet.
     coarse (rounded designs): a table stores no fraction bits that every use of it rounds away first
-    (_coarser); the programs are then built again on those tables."""
+    (_coarser); the programs are then built again on those tables.
+    stribeck: the speed tables split where the Stribeck dip ends instead of at the deadband edge
+    (tablespecs.friction_edge), so the outer friction piece can be one segment."""
     lim = limits_of(v)
     fw = v.firmware
     peak = _peak_current_steps(v, lim)
     guard = _guard_bits(peak)
     acc_amps = fw.current_lsb_a * 2.0**-guard
-    specs = specs_for(v, lim, acc_amps, exact=exact)
+    specs = specs_for(v, lim, acc_amps, exact=exact, stribeck=stribeck)
     accel_peak = (specs["minv11"].max_abs + specs["minv12"].max_abs) * (peak + lim.current) * 2.0**guard * 2
     aguard = _guard_bits(accel_peak, top=8)
     ff = _feedforward(v, specs, lim, guard=guard, exact=exact)
@@ -454,4 +457,5 @@ def design(v: Vehicle, *, exact: bool = False, coarse: bool = True) -> Design:
         amps_per_acc=acc_amps,
         exact=exact,
         coarse=coarsened,
+        stribeck=stribeck,
     )

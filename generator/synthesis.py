@@ -16,10 +16,11 @@ from .errors import CheckFailed
 from .ops import op_table, wide_conversion
 from .vehicle import Vehicle
 
-FORMAT_VERSION = 3
+FORMAT_VERSION = 4
 """Part of every fingerprint and checked by the generated C: raised when the same model file gives a
 different model or different integers (2: the efficiency blends through zero speed; 3: int32 tables
-store no bits their uses round away), so files made before read as stale."""
+store no bits their uses round away; 4: the speed tables may split at the Stribeck edge), so files made
+before read as stale."""
 FORWARD_BUDGET_FACTOR = 2.0
 
 
@@ -40,6 +41,7 @@ class Firmware:
     rounded_best_a: float | None = None  # exact designs: the best bound with rounded operands, A
     over_cap: bool = False  # firmware.table_bytes_max cannot hold what the budget needs: fewest bytes instead
     lift: liftfirmware.LiftFirmware | None = None  # the lift's own function, when the model has a lift
+    instructions: int = 0  # the sizing cost model's lookup instructions per feed-forward call
 
     def products64(self) -> list[str]:
         """Products of either function that need a 64-bit multiply (a library call on Cortex-M0+); a
@@ -94,15 +96,62 @@ def synthesise(v: Vehicle) -> Firmware:
 
 
 def _drive(v: Vehicle) -> Firmware:
-    """The drive's two functions (synthesise)."""
+    """The drive's two functions (synthesise): split at the Stribeck edge where that is leaner (_split),
+    else the first design that fits (_plain)."""
     stability.check(v)
+    split = _split(v)
+    if split is not None and _lean(split) and _tail_needs_segments(v):
+        return split
+    plain = _plain(v)
+    if split is not None and (split.instructions, split.total_bytes) < (plain.instructions, plain.total_bytes):
+        return split
+    return plain
+
+
+def _split(v: Vehicle) -> Firmware | None:
+    """When sizing minimises instructions and the Stribeck dip ends inside the envelope: the design whose
+    speed tables split there (program.design), if it meets the budget within firmware.table_bytes_max."""
+    if v.firmware.sizing != "instructions":
+        return None
+    des = program.design(v, stribeck=True)
+    if des.specs["friction"].pieces[0].x1 == des.limits.deadband:
+        return None
+    try:
+        fw = _synthesise(v, des, explain=False)
+    except CheckFailed:
+        return None
+    return None if fw.over_cap else fw
+
+
+def _lean(fw: Firmware) -> bool:
+    """A split whose friction costs the fewest lookup instructions a two-piece table can: one entry per
+    step to the edge, one segment (or a constant) beyond."""
+    inner, outer = (p.kind for p in fw.tables["friction"].pieces)
+    return inner is tb.PieceKind.DIRECT and outer in (tb.PieceKind.ONE_SEGMENT, tb.PieceKind.CONSTANT)
+
+
+def _tail_needs_segments(v: Vehicle) -> bool:
+    """Whether friction split at the deadband edge needs more than one segment beyond it: one segment over
+    that whole piece misses the whole current budget by itself, so the design without the split looks
+    friction up by interpolation there (15 instructions in the cost model against the split's 6) and is
+    not worth sizing as well."""
+    des = program.design(v, coarse=False)
+    spec = des.specs["friction"]
+    outer = spec.pieces[1]
+    error = tb.piece_error(spec, outer, tb.build_piece(spec, outer, 1)).total
+    return error * des.amps_per_acc > v.firmware.current_budget_a
+
+
+def _plain(v: Vehicle) -> Firmware:
+    """The first design without the split that meets the budget (coarse tables only where they fit
+    firmware.table_bytes_max); the exact one with the rounded designs' best bound when it alone does."""
     tries = _designs(v)
     for des in tries[:-1]:
         try:
             fw = _synthesise(v, des, explain=False)
         except CheckFailed:
             continue
-        if not (des.coarse and fw.over_cap):  # coarse tables only where they fit firmware.table_bytes_max
+        if not (des.coarse and fw.over_cap):
             return fw
     fw = _synthesise(v, tries[-1])
     if not tries[-1].exact or len(tries) == 1:
@@ -158,6 +207,7 @@ def _synthesise(v: Vehicle, des: program.Design, *, explain: bool = True) -> Fir
         fwd_budget_mps2=forward_budget(v),
         fingerprint=fingerprint(v),
         over_cap=ff.over_cap or fwd.over_cap,
+        instructions=ff.instructions,
     )
 
 

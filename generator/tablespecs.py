@@ -4,6 +4,7 @@ holds (from `dynamics`) and the model keys its values come from; and the envelop
 
 from __future__ import annotations
 
+import math
 from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
@@ -57,30 +58,57 @@ def limits_of(v: Vehicle) -> Limits:
     return lim
 
 
-def _speed_pieces(v: Vehicle, lim: Limits, scale: float) -> tuple[tb.Piece, tb.Piece, tb.Piece, tb.Piece]:
-    """Friction and deadband-shape pieces of |u| in steps, split exactly at the deadband edge; each
-    piece's function continues smoothly past its end (breakpoints may sit there)."""
+STRIBECK_SHARE = 1 / 32
+"""The share of the current budget by which friction beyond the Stribeck edge may differ from its affine
+tail (Coulomb plus viscous): small, so the tail's one segment barely adds to the bound."""
+
+
+def stribeck_edge(v: Vehicle, lim: Limits, steps_per_newton: float, budget_steps: float) -> int:
+    """The last speed step (|u|, from the deadband edge on) where the Stribeck dip (F_s - F_c) exp(-(u/v_s)^2)
+    of a side's drivetrains still exceeds STRIBECK_SHARE of the budget; beyond it friction is affine in |u|
+    to within that share, so one table segment can hold it. The deadband edge when the dip is that small
+    there. The dip falls monotonically, so the edge is solved for, not searched (edges reach 2^30 steps)."""
+    lsb, f = v.firmware.speed_lsb_mps, v.friction
+
+    def dip(x: int) -> float:
+        level = dynamics.stribeck_level(v, x * lsb) - f.coulomb_n
+        return abs(float(dynamics.motors_per_side(v) * level * steps_per_newton))
+
+    tol = STRIBECK_SHARE * budget_steps
+    peak = dip(0)
+    if peak <= tol:
+        return lim.deadband
+    reach = f.stribeck_speed_mps * math.sqrt(math.log(peak / tol)) / lsb  # dip(reach) = tol
+    edge = min(max(math.ceil(reach) - 1, lim.deadband), lim.speed)
+    while edge < lim.speed and dip(edge + 1) > tol:  # float rounding at the boundary: a step or two
+        edge += 1
+    while edge > lim.deadband and dip(edge) <= tol:
+        edge -= 1
+    return edge
+
+
+def _speed_pieces(v: Vehicle, lim: Limits, scale: float, edge: int) -> tuple[tb.Piece, tb.Piece, tb.Piece, tb.Piece]:
+    """Friction and deadband-shape pieces of |u| in steps, split at `edge`: the deadband edge, or further
+    out at the Stribeck edge (stribeck_edge) so the outer piece holds the affine tail alone. Each piece's
+    function continues smoothly past its end (breakpoints may sit there); a piece that crosses the deadband
+    edge holds the true shape there, kink and all (measured at every input like any other)."""
     lsb = v.firmware.speed_lsb_mps
 
     def inside(x: np.ndarray) -> np.ndarray:
-        return dynamics.deadband_inside(v, x * lsb)
+        if edge == lim.deadband:
+            return dynamics.deadband_inside(v, x * lsb)
+        return np.abs(dynamics.deadband_shape(v, x * lsb))
 
+    label = "inside the deadband" if edge == lim.deadband else "through the deadband and the Stribeck dip"
+    outer = "outside the deadband" if edge == lim.deadband else "beyond the Stribeck dip (Coulomb plus viscous)"
     fric_in = tb.Piece(
-        x0=0,
-        x1=lim.deadband,
-        func=lambda x: dynamics.friction_force(v, x * lsb, inside(x)) * scale,
-        label="inside the deadband",
+        x0=0, x1=edge, func=lambda x: dynamics.friction_force(v, x * lsb, inside(x)) * scale, label=label
     )
     fric_out = tb.Piece(
-        x0=lim.deadband + 1,
-        x1=lim.speed,
-        func=lambda x: dynamics.friction_force(v, x * lsb, 1.0) * scale,
-        label="outside the deadband",
+        x0=edge + 1, x1=lim.speed, func=lambda x: dynamics.friction_force(v, x * lsb, 1.0) * scale, label=outer
     )
-    shape_in = tb.Piece(x0=0, x1=lim.deadband, func=inside, label="inside the deadband")
-    shape_out = tb.Piece(
-        x0=lim.deadband + 1, x1=lim.speed, func=lambda x: np.ones(np.shape(x)), label="outside the deadband"
-    )
+    shape_in = tb.Piece(x0=0, x1=edge, func=inside, label=label)
+    shape_out = tb.Piece(x0=edge + 1, x1=lim.speed, func=lambda x: np.ones(np.shape(x)), label=outer)
     return fric_in, fric_out, shape_in, shape_out
 
 
@@ -239,9 +267,10 @@ def layout_keys(v: Vehicle, name: str, keys: tuple[str, ...]) -> tuple[str, ...]
     return tuple(k for k in keys if not k.startswith("casters.")) + SKID_EXTRA.get(name, ())
 
 
-def _speed_rows(v: Vehicle, lim: Limits, k: float) -> dict[str, _Row]:
-    """Speed tables: drivetrain friction (accumulator steps, k per newton) and the deadband shape."""
-    fric_in, fric_out, shape_in, shape_out = _speed_pieces(v, lim, k)
+def _speed_rows(v: Vehicle, lim: Limits, k: float, edge: int) -> dict[str, _Row]:
+    """Speed tables: drivetrain friction (accumulator steps, k per newton) and the deadband shape, their
+    pieces split at `edge` (_speed_pieces)."""
+    fric_in, fric_out, shape_in, shape_out = _speed_pieces(v, lim, k, edge)
     return {
         "friction": _Row(
             source="speed",
@@ -369,16 +398,29 @@ def _inverse_rows(v: Vehicle, lim: Limits, inv: float) -> dict[str, _Row]:
     }
 
 
-def specs_for(v: Vehicle, lim: Limits, acc_amps: float, *, exact: bool = False) -> dict[str, tb.TableSpec]:
+def friction_edge(v: Vehicle, lim: Limits, acc_amps: float) -> int:
+    """Where the speed tables split when the Stribeck dip ends inside the envelope: stribeck_edge, measured
+    against the current budget in accumulator steps of acc_amps; the deadband edge when there is no dip
+    beyond it or it lasts to the last speed step or two (then nothing is gained)."""
+    k = dynamics.motor_gain(v) / acc_amps
+    edge = stribeck_edge(v, lim, k, v.firmware.current_budget_a / acc_amps)
+    return edge if edge < lim.speed - 1 else lim.deadband
+
+
+def specs_for(
+    v: Vehicle, lim: Limits, acc_amps: float, *, exact: bool = False, stribeck: bool = False
+) -> dict[str, tb.TableSpec]:
     """Every table's function, in units that make each product land on the accumulator scale. The
     back-driving factor tables are int16 (2^-14 near 1, a product that stays 32-bit) unless the design
-    is exact (program.design), which keeps the word's precision for budgets that need it."""
+    is exact (program.design), which keeps the word's precision for budgets that need it. `stribeck`
+    splits the speed tables at the Stribeck edge instead of the deadband edge (friction_edge)."""
     fw, bits = v.firmware, fx.WORD_BITS[v.firmware.word]
     k = dynamics.motor_gain(v) / acc_amps  # accumulator steps per newton at the rim
     inv = acc_amps / dynamics.motor_gain(v) / fw.accel_lsb_mps2  # accel steps per (1/kg * accumulator step)
     payload = _payload_rows(v, lim, k)
     rows = {n: payload[n] for n in ("m11", "m12", "cor", "grav_pitch", "grav_roll", "roll_level", "roll_slope")}
-    rows |= _angle_rows(v, lim) | _speed_rows(v, lim, k) | _inverse_rows(v, lim, inv) | _blend_rows(v, lim)
+    edge = friction_edge(v, lim, acc_amps) if stribeck else lim.deadband
+    rows |= _angle_rows(v, lim) | _speed_rows(v, lim, k, edge) | _inverse_rows(v, lim, inv) | _blend_rows(v, lim)
     rows |= _turn_rows(v, lim, k)
     return {
         name: tb.make_spec(
