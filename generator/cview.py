@@ -146,6 +146,7 @@ def _piece_view(home: TableHome, name: str, prefix: str, k: int) -> dict[str, An
         ),
         "layout": _layout(data),
         "error": f"{num(err.total * spec.si_scale)} {spec.si_unit}"
+        + (f", {num(piece.slack * spec.si_scale)} of it what the held factor may miss by" if piece.slack else "")
         + (" (every input checked)" if err.exhaustive else " (dense sample plus slope margin)"),
     }
 

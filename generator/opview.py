@@ -310,7 +310,7 @@ def program_view(
             j += 1
         if k in made_in_groups:
             pass
-        elif key is not None and j - k > 1:
+        elif key is not None and (j - k > 1 or isinstance(ops[k], Lookup)):  # a lone lookup inline too
             view, taken = _group_view(
                 ops, k, j, key, tables=tables, proof=proof, reads=reads or {}, whole=tuple(prog.ops)
             )

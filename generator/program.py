@@ -51,6 +51,7 @@ class Design:
     exact: bool = False  # products keep every operand bit (see design)
     coarse: bool = False  # some table stores fewer fraction bits than its word allows (see _coarser)
     stribeck: bool = False  # the speed tables split at the Stribeck edge (see design)
+    flat: bool = False  # the cosines folded into the payload tables (see design)
 
 
 class _Builder:
@@ -235,6 +236,7 @@ def _common(bd: _Builder, lim: Limits, call: interface.Call, pair: str) -> None:
     else:
         _clamps(bd, lim, call, (*interface.SLOW_MEMBERS, "speed", pair))  # speed next: the Coriolis product reads it
     s = bd.specs
+    flat = "cos_pitch" not in s  # the cosines folded into the payload tables (tablespecs.specs_for)
     for name, src in (
         ("sin_pitch", "pitch"),
         ("cos_pitch", "pitch"),
@@ -246,12 +248,17 @@ def _common(bd: _Builder, lim: Limits, call: interface.Call, pair: str) -> None:
         ("roll_level", "payload"),
         ("roll_slope", "payload"),
     ):
-        bd.lookup(f"t_{name}", name, src)
+        if name in s:
+            bd.lookup(f"t_{name}", name, src)
     bd.mul("g_pitch", "t_grav_pitch", "t_sin_pitch", s["grav_pitch"].frac_bits + s["sin_pitch"].frac_bits)
-    bd.mul("cos_sin", "t_cos_pitch", "t_sin_roll", s["cos_pitch"].frac_bits)
-    bd.mul("g_roll", "t_grav_roll", "cos_sin", s["grav_roll"].frac_bits + s["sin_roll"].frac_bits)
-    bd.mul("cos_cos", "t_cos_pitch", "t_cos_roll", s["cos_pitch"].frac_bits)
-    bd.mul("r_up", "t_roll_level", "cos_cos", s["roll_level"].frac_bits + s["cos_roll"].frac_bits)
+    if flat:
+        bd.mul("g_roll", "t_grav_roll", "t_sin_roll", s["grav_roll"].frac_bits + s["sin_roll"].frac_bits)
+        bd.scale("r_up", "t_roll_level", 1, s["roll_level"].frac_bits)
+    else:
+        bd.mul("cos_sin", "t_cos_pitch", "t_sin_roll", s["cos_pitch"].frac_bits)
+        bd.mul("g_roll", "t_grav_roll", "cos_sin", s["grav_roll"].frac_bits + s["sin_roll"].frac_bits)
+        bd.mul("cos_cos", "t_cos_pitch", "t_cos_roll", s["cos_pitch"].frac_bits)
+        bd.mul("r_up", "t_roll_level", "cos_cos", s["roll_level"].frac_bits + s["cos_roll"].frac_bits)
     bd.mul("r_down", "t_roll_slope", "t_sin_pitch", s["roll_slope"].frac_bits + s["sin_pitch"].frac_bits)
     bd.sum("r_level", (1, "r_up"), (-1, "r_down"))
     _rolling_level(bd)
@@ -269,7 +276,10 @@ def _turning(bd: _Builder) -> None:
     accumulator steps; the left wheel's is its negative."""
     s = bd.specs
     bd.lookup("t_turn_level", "turn_level", "payload")
-    bd.mul("turn_up", "t_turn_level", "cos_cos", s["turn_level"].frac_bits + s["cos_roll"].frac_bits)
+    if "cos_cos" in bd.rng:
+        bd.mul("turn_up", "t_turn_level", "cos_cos", s["turn_level"].frac_bits + s["cos_roll"].frac_bits)
+    else:  # the cosines folded into turn_level
+        bd.scale("turn_up", "t_turn_level", 1, s["turn_level"].frac_bits)
     bd.lookup("t_turn_shape", "turn_shape", "d_speed")
     bd.mul("turn", "turn_up", "t_turn_shape", s["turn_shape"].frac_bits)
 
@@ -419,7 +429,9 @@ def _peak_current_steps(v: Vehicle, lim: Limits) -> float:
     )
 
 
-def design(v: Vehicle, *, exact: bool = False, coarse: bool = True, stribeck: bool = False) -> Design:
+def design(
+    v: Vehicle, *, exact: bool = False, coarse: bool = True, stribeck: bool = False, flat: bool = False
+) -> Design:
     """Scales, table specs and both programs for a validated vehicle (sizes are chosen later).
 
     exact: products too wide for 32 bits keep every operand bit (an exact two-part product, else
@@ -427,13 +439,16 @@ def design(v: Vehicle, *, exact: bool = False, coarse: bool = True, stribeck: bo
     coarse (rounded designs): a table stores no fraction bits that every use of it rounds away first
     (_coarser); the programs are then built again on those tables.
     stribeck: the speed tables split where the Stribeck dip ends instead of at the deadband edge
-    (tablespecs.friction_edge), so the outer friction piece can be one segment."""
+    (tablespecs.friction_edge), so the outer friction piece can be one segment.
+    flat: the cosines of pitch and roll are folded into the payload tables they multiply, held at their
+    midranges over the envelope (tablespecs.flat_cosines), the most they stray counted in those tables'
+    errors; two lookups and two products fewer in the slow part."""
     lim = limits_of(v)
     fw = v.firmware
     peak = _peak_current_steps(v, lim)
     guard = _guard_bits(peak)
     acc_amps = fw.current_lsb_a * 2.0**-guard
-    specs = specs_for(v, lim, acc_amps, exact=exact, stribeck=stribeck)
+    specs = specs_for(v, lim, acc_amps, exact=exact, stribeck=stribeck, flat=flat)
     accel_peak = (specs["minv11"].max_abs + specs["minv12"].max_abs) * (peak + lim.current) * 2.0**guard * 2
     aguard = _guard_bits(accel_peak, top=8)
     ff = _feedforward(v, specs, lim, guard=guard, exact=exact)
@@ -458,4 +473,5 @@ def design(v: Vehicle, *, exact: bool = False, coarse: bool = True, stribeck: bo
         exact=exact,
         coarse=coarsened,
         stribeck=stribeck,
+        flat=flat,
     )

@@ -96,24 +96,37 @@ def synthesise(v: Vehicle) -> Firmware:
 
 
 def _drive(v: Vehicle) -> Firmware:
-    """The drive's two functions (synthesise): split at the Stribeck edge where that is leaner (_split),
-    else the first design that fits (_plain)."""
+    """The drive's two functions (synthesise): when sizing minimises instructions, the cosines folded
+    into the payload tables where that meets the budget within the byte cap for no more lookup
+    instructions (it also drops two products the cost model does not count); else the layout without."""
     stability.check(v)
-    split = _split(v)
+    best = _layout(v, flat=False)
+    if v.firmware.sizing != "instructions":
+        return best
+    try:
+        folded = _layout(v, flat=True)
+    except CheckFailed:
+        return best
+    return folded if not folded.over_cap and folded.instructions <= best.instructions else best
+
+
+def _layout(v: Vehicle, *, flat: bool) -> Firmware:
+    """Split at the Stribeck edge where that is leaner (_split), else the first design that fits (_plain)."""
+    split = _split(v, flat=flat)
     if split is not None and _lean(split) and _tail_needs_segments(v):
         return split
-    plain = _plain(v)
+    plain = _plain(v, flat=flat)
     if split is not None and (split.instructions, split.total_bytes) < (plain.instructions, plain.total_bytes):
         return split
     return plain
 
 
-def _split(v: Vehicle) -> Firmware | None:
+def _split(v: Vehicle, *, flat: bool = False) -> Firmware | None:
     """When sizing minimises instructions and the Stribeck dip ends inside the envelope: the design whose
     speed tables split there (program.design), if it meets the budget within firmware.table_bytes_max."""
     if v.firmware.sizing != "instructions":
         return None
-    des = program.design(v, stribeck=True)
+    des = program.design(v, stribeck=True, flat=flat)
     if des.specs["friction"].pieces[0].x1 == des.limits.deadband:
         return None
     try:
@@ -142,10 +155,11 @@ def _tail_needs_segments(v: Vehicle) -> bool:
     return error * des.amps_per_acc > v.firmware.current_budget_a
 
 
-def _plain(v: Vehicle) -> Firmware:
+def _plain(v: Vehicle, *, flat: bool = False) -> Firmware:
     """The first design without the split that meets the budget (coarse tables only where they fit
-    firmware.table_bytes_max); the exact one with the rounded designs' best bound when it alone does."""
-    tries = _designs(v)
+    firmware.table_bytes_max); the exact one with the rounded designs' best bound when it alone does.
+    CheckFailed (with the levers) when none does."""
+    tries = _designs(v, flat=flat)
     for des in tries[:-1]:
         try:
             fw = _synthesise(v, des, explain=False)
@@ -153,7 +167,7 @@ def _plain(v: Vehicle) -> Firmware:
             continue
         if not (des.coarse and fw.over_cap):
             return fw
-    fw = _synthesise(v, tries[-1])
+    fw = _synthesise(v, tries[-1], explain=not flat)
     if not tries[-1].exact or len(tries) == 1:
         return fw
     rounded = min(best_bound_a(v, exact=False), best_bound_a(v, exact=False, coarse=True))
@@ -166,16 +180,16 @@ def _same(a: program.Design, b: program.Design) -> bool:
     return a.feedforward.ops == b.feedforward.ops and a.forward.ops == b.forward.ops and formats(a) == formats(b)
 
 
-def _designs(v: Vehicle) -> list[program.Design]:
+def _designs(v: Vehicle, *, flat: bool = False) -> list[program.Design]:
     """The distinct designs to try, fastest first: rounded on coarse tables (int32 words, when sizing
     minimises instructions; they may take more table bytes for the same bound), rounded, exact."""
-    fine = program.design(v, coarse=False)
+    fine = program.design(v, coarse=False, flat=flat)
     out = [fine]
     if v.firmware.sizing == "instructions" and v.firmware.word == "int32":
-        coarse = program.design(v)
+        coarse = program.design(v, flat=flat)
         if coarse.coarse:  # some table did lose bits
             out.insert(0, coarse)
-    exact = program.design(v, exact=True)
+    exact = program.design(v, exact=True, flat=flat)
     return out if _same(fine, exact) else [*out, exact]
 
 

@@ -30,6 +30,7 @@ class Piece:
     x1: int
     func: Func  # float target value at integer inputs, smooth also a little past x1
     label: str = ""
+    slack: float = 0.0  # a bound of what func leaves out (a factor held at its midrange), target units
 
     @property
     def span(self) -> int:
@@ -311,8 +312,8 @@ def piece_error(
         slope = float(np.max(np.abs(np.diff(exact)) / np.diff(xs))) * 2
         margin = gap * slope
     return PieceError(
-        total=float(err[k]) + margin,
-        interpolation=float(np.max(np.abs(real - exact))) + margin,
+        total=float(err[k]) + margin + piece.slack,
+        interpolation=float(np.max(np.abs(real - exact))) + margin + piece.slack,
         where=int(xs[k]),
         exhaustive=exhaustive,
     )

@@ -4,6 +4,7 @@ holds (from `dynamics`) and the model keys its values come from; and the envelop
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -407,13 +408,59 @@ def friction_edge(v: Vehicle, lim: Limits, acc_amps: float) -> int:
     return edge if edge < lim.speed - 1 else lim.deadband
 
 
+def flat_cosines(v: Vehicle, lim: Limits) -> tuple[tuple[float, float], tuple[float, float]]:
+    """Midrange and half-range of cos(pitch), and of cos(pitch) cos(roll), over the envelope's steps:
+    the constants a folded design holds them at, and the most the true value strays from them."""
+    ang = v.firmware.angle_lsb_rad
+    low_p = math.cos(lim.pitch * ang)
+    low_pr = low_p * math.cos(lim.roll * ang)
+    return ((1 + low_p) / 2, (1 - low_p) / 2), ((1 + low_pr) / 2, (1 - low_pr) / 2)
+
+
+def _folded(v: Vehicle, lim: Limits, rows: dict[str, _Row]) -> dict[str, _Row]:
+    """The rows with the cosines folded in (specs_for flat): roll gravity times cos(pitch)'s midrange, the
+    rolling (and turning) level times that of cos(pitch) cos(roll); each table's error counts the most
+    the held factor can miss by (Piece.slack); no cosine tables."""
+    (c_p, d_p), (c_pr, d_pr) = flat_cosines(v, lim)
+    out = {n: r for n, r in rows.items() if n not in ("cos_pitch", "cos_roll")}
+    for name, (c, d, held) in {
+        "grav_roll": (c_p, d_p, "cos(pitch)"),
+        "roll_level": (c_pr, d_pr, "cos(pitch) cos(roll)"),
+        "turn_level": (c_pr, d_pr, "cos(pitch) cos(roll)"),
+    }.items():
+        if name not in rows:
+            continue
+        (piece,) = rows[name].pieces
+        peak = float(np.max(np.abs(piece.func(np.arange(piece.x0, piece.x1 + 1)))))
+        folded = tb.Piece(x0=piece.x0, x1=piece.x1, func=_times(piece.func, c), slack=peak * d)
+        out[name] = dataclasses.replace(
+            rows[name],
+            pieces=(folded,),
+            unit=rows[name].unit.replace(" at cos*sin = 1", " at sin = 1").replace(" at cos*cos = 1", ""),
+            meaning=f"{rows[name].meaning}; {held} held at {c:.6g} (within {d:.3g} over the envelope)",
+        )
+    return out
+
+
+def _times(f: tb.Func, c: float) -> tb.Func:
+    """f times the constant c."""
+    return lambda x: f(x) * c
+
+
 def specs_for(
-    v: Vehicle, lim: Limits, acc_amps: float, *, exact: bool = False, stribeck: bool = False
+    v: Vehicle,
+    lim: Limits,
+    acc_amps: float,
+    *,
+    exact: bool = False,
+    stribeck: bool = False,
+    flat: bool = False,
 ) -> dict[str, tb.TableSpec]:
     """Every table's function, in units that make each product land on the accumulator scale. The
     back-driving factor tables are int16 (2^-14 near 1, a product that stays 32-bit) unless the design
     is exact (program.design), which keeps the word's precision for budgets that need it. `stribeck`
-    splits the speed tables at the Stribeck edge instead of the deadband edge (friction_edge)."""
+    splits the speed tables at the Stribeck edge instead of the deadband edge (friction_edge); `flat`
+    folds the cosines into the payload tables that multiply them (_folded)."""
     fw, bits = v.firmware, fx.WORD_BITS[v.firmware.word]
     k = dynamics.motor_gain(v) / acc_amps  # accumulator steps per newton at the rim
     inv = acc_amps / dynamics.motor_gain(v) / fw.accel_lsb_mps2  # accel steps per (1/kg * accumulator step)
@@ -422,6 +469,8 @@ def specs_for(
     edge = friction_edge(v, lim, acc_amps) if stribeck else lim.deadband
     rows |= _angle_rows(v, lim) | _speed_rows(v, lim, k, edge) | _inverse_rows(v, lim, inv) | _blend_rows(v, lim)
     rows |= _turn_rows(v, lim, k)
+    if flat:
+        rows = _folded(v, lim, rows)
     return {
         name: tb.make_spec(
             name,

@@ -17,3 +17,9 @@ def demo_firmware() -> synthesis.Firmware:
 @cache
 def demo_files() -> dict[str, str]:
     return render.render(demo_firmware())
+
+
+@cache
+def demo_unfolded() -> synthesis.Firmware:
+    """The demo with its cosines looked up, not folded into the payload tables (synthesis._layout)."""
+    return synthesis._layout(model.load(DEMO_PATH), flat=False)

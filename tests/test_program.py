@@ -6,10 +6,10 @@ import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-from kinetab.generator import accuracy, analysis, emulate, interface, ops, synthesis
+from kinetab.generator import accuracy, analysis, dynamics, emulate, interface, ops, synthesis
 from kinetab.generator import tables as tb
 
-from tests.firmware_fixtures import demo_firmware
+from tests.firmware_fixtures import demo_firmware, demo_unfolded
 from tests.helpers import random_firmware_strategy
 
 
@@ -24,18 +24,38 @@ def _random_inputs(lim, n, rng):
 
 
 def test_program_algebra_equals_float_model():
-    """Run without tables or rounding ("model" mode), the program reproduces dynamics.py to 1e-9."""
-    fw = demo_firmware()
+    """Run without tables or rounding ("model" mode), the program reproduces dynamics.py to 1e-9 (the
+    design that looks the cosines up; the folded one is checked below)."""
+    fw = demo_unfolded()
+    assert not fw.design.flat
     inp = _random_inputs(fw.design.limits, 20000, np.random.default_rng(3))
     exact = emulate.run(fw.design.feedforward, fw.tables, inp, "model")["current"] * fw.vehicle.firmware.current_lsb_a
     ref = accuracy.reference_current(fw, accuracy.operating_point(fw, inp))
     assert exact == pytest.approx(ref, rel=1e-9, abs=1e-9)
 
 
-def test_forward_program_algebra_equals_float_forward_dynamics():
-    from kinetab.generator import dynamics
-
+def test_folded_program_algebra_strays_from_the_float_model_by_at_most_the_held_cosines_reach():
+    """The demo folds cos(pitch) into roll gravity and cos(pitch) cos(roll) into the rolling level, each
+    held at its midrange over the envelope. In "model" mode the program then differs from dynamics.py by
+    at most |roll gravity| (1 - cos pitch_max)/2 sin roll_max + |rolling level| (1 - cos pitch_max cos
+    roll_max)/2 (trigonometry written here), and by more than nothing."""
     fw = demo_firmware()
+    v, lim = fw.vehicle, fw.design.limits
+    assert fw.design.flat and "cos_pitch" not in fw.tables
+    inp = _random_inputs(lim, 20000, np.random.default_rng(3))
+    exact = emulate.run(fw.design.feedforward, fw.tables, inp, "model")["current"] * v.firmware.current_lsb_a
+    ref = accuracy.reference_current(fw, accuracy.operating_point(fw, inp))
+    pitch, roll = lim.pitch * v.firmware.angle_lsb_rad, lim.roll * v.firmware.angle_lsb_rad
+    payload = np.arange(lim.payload + 1) * v.firmware.mass_lsb_kg
+    roll_gravity = np.max(np.abs(dynamics.gravity_coefficients(v, payload)[1]))
+    rolling = np.max(np.abs(dynamics.rolling_coefficients(v, payload)[0]))
+    reach_n = roll_gravity * (1 - np.cos(pitch)) / 2 * np.sin(roll) + rolling * (1 - np.cos(pitch) * np.cos(roll)) / 2
+    reach_a = reach_n * dynamics.motor_gain(v)  # motoring: the largest current per newton (back-driving scales it down)
+    assert 0 < np.max(np.abs(exact - ref)) <= reach_a + 1e-9
+
+
+def test_forward_program_algebra_equals_float_forward_dynamics():
+    fw = demo_unfolded()
     v = fw.vehicle
     rng = np.random.default_rng(4)
     lim = fw.design.limits
@@ -49,8 +69,9 @@ def test_forward_program_algebra_equals_float_forward_dynamics():
     ref = np.stack(dynamics.forward_accel(v, op, qr, ql), -1)
     got = emulate.run(fw.design.forward, fw.tables, fin, "model")["accel"] * v.firmware.accel_lsb_mps2
     assert got == pytest.approx(ref, rel=1e-9, abs=1e-9)
-    fixed = emulate.run(fw.design.forward, fw.tables, fin)["accel"] * v.firmware.accel_lsb_mps2
-    assert np.max(np.abs(fixed - ref)) <= fw.fwd_bound_mps2
+    for f in (fw, demo_firmware()):  # the proven bound holds with the cosines looked up and folded
+        fixed = emulate.run(f.design.forward, f.tables, fin)["accel"] * v.firmware.accel_lsb_mps2
+        assert np.max(np.abs(fixed - ref)) <= f.fwd_bound_mps2
 
 
 def test_error_propagation_rules_on_a_small_program():

@@ -76,7 +76,7 @@ def test_the_split_is_taken_only_where_it_costs_fewer_lookup_instructions_and_fi
     taken = 0
     for seed in range(1, 13):
         fw = invented(seed, "veh")[1]
-        plain = synthesis._plain(fw.vehicle)
+        plain = synthesis._plain(fw.vehicle, flat=fw.design.flat)
         assert (fw.instructions, fw.total_bytes) <= (plain.instructions, plain.total_bytes)
         assert fw.total_bytes <= fw.vehicle.firmware.table_bytes_max or fw.over_cap
         if fw.design.stribeck:

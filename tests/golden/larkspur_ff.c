@@ -189,17 +189,17 @@ int32_t larkspur_table_grav_pitch(int32_t payload)
 }
 
 /*
- * Table grav_roll: roll gravity m c g / (2 b) (m: vehicle plus payload, c: their CoG ahead of P, b: half track).
+ * Table grav_roll: roll gravity m c g / (2 b) (m: vehicle plus payload, c: their CoG ahead of P, b: half track); cos(pitch) held at 0.998087 (within 0.00191 over the envelope).
  *   input: payload (0.1 kg per step)
- *   stored: int16_t entries; one stored step = 2^12 accumulator step at cos*sin = 1 = 0.011832 N
+ *   stored: int16_t entries; one stored step = 2^12 accumulator step at sin = 1 = 0.011832 N
  *   piece 0: x in 0..600 steps (0..60 kg); 1 segment of 1024 steps, breakpoints at x0 + k*1024
- *            worst error 0.0110187 N (every input checked)
+ *            worst error 0.254221 N, 0.245648 of it what the held factor may miss by (every input checked)
  *   from: body.mass = 38 kg, body.cog_ahead = -0.05 m, body.cog_height = 0.18 m,
  *         body.gyration_radius = 0.23 m, payload.mass_max = 60 kg, payload.cog_ahead = -0.06 m,
  *         payload.cog_height = 0.42 m, payload.gyration_radius = 0.2 m, wheels.track = 0.42 m
  */
 static const int16_t larkspur_tab_grav_roll_0[2] = {
-    -3749, -15874
+    -3742, -15844
 };
 typedef char larkspur_tab_grav_roll_0_size_check[(sizeof(larkspur_tab_grav_roll_0) / sizeof(larkspur_tab_grav_roll_0[0]) == 2) ? 1 : -1];
 
@@ -227,11 +227,11 @@ int32_t larkspur_table_grav_roll(int32_t payload)
 }
 
 /*
- * Table roll_level: rolling resistance on cos(pitch) cos(roll).
+ * Table roll_level: rolling resistance on cos(pitch) cos(roll); cos(pitch) cos(roll) held at 0.997401 (within 0.0026 over the envelope).
  *   input: payload (0.1 kg per step)
- *   stored: uint16_t entries; one stored step = 2^7 accumulator step at cos*cos = 1 = 0.00036975 N
+ *   stored: uint16_t entries; one stored step = 2^7 accumulator step = 0.00036975 N
  *   piece 0: x in 0..600 steps (0..60 kg); 1 segment of 1024 steps, breakpoints at x0 + k*1024
- *            worst error 0.000248717 N (every input checked)
+ *            worst error 0.0165271 N, 0.0163224 of it what the held factor may miss by (every input checked)
  *   from: body.mass = 38 kg, body.cog_ahead = -0.05 m, body.cog_height = 0.18 m,
  *         body.gyration_radius = 0.23 m, payload.mass_max = 60 kg, payload.cog_ahead = -0.06 m,
  *         payload.cog_height = 0.42 m, payload.gyration_radius = 0.2 m, wheels.track = 0.42 m,
@@ -239,7 +239,7 @@ int32_t larkspur_table_grav_roll(int32_t payload)
  *         casters.behind_axle = 0.42 m
  */
 static const uint16_t larkspur_tab_roll_level_0[2] = {
-    6527, 24374
+    6510, 24311
 };
 typedef char larkspur_tab_roll_level_0_size_check[(sizeof(larkspur_tab_roll_level_0) / sizeof(larkspur_tab_roll_level_0[0]) == 2) ? 1 : -1];
 
@@ -362,39 +362,6 @@ int32_t larkspur_table_sin_pitch(int32_t pitch)
 }
 
 /*
- * Table cos_pitch: cos(pitch).
- *   input: pitch (0.0005 rad per step), even in pitch: |x| is stored
- *   stored: uint16_t entries in Q1.14; one stored step = 2^-14 = 6.10352e-05
- *   piece 0: |x| in 0..175 steps (0..0.0875 rad); constant
- *            worst error 0.00193359 1 (every input checked)
- *   from: firmware.angle_lsb = 0.0005 rad, envelope.pitch_max = 0.0872665 rad
- */
-static const uint16_t larkspur_tab_cos_pitch_0[1] = {
-    16353
-};
-typedef char larkspur_tab_cos_pitch_0_size_check[(sizeof(larkspur_tab_cos_pitch_0) / sizeof(larkspur_tab_cos_pitch_0[0]) == 1) ? 1 : -1];
-
-static int32_t larkspur_lookup_cos_pitch(int32_t v)
-{
-    (void)v;
-    int32_t y;
-    {
-        y = larkspur_tab_cos_pitch_0[0];
-    }
-    return y;
-}
-
-int32_t larkspur_table_cos_pitch(int32_t pitch)
-{
-    if (pitch < -175) {
-        pitch = -175;
-    } else if (pitch > 175) {
-        pitch = 175;
-    }
-    return larkspur_lookup_cos_pitch(pitch);
-}
-
-/*
  * Table sin_roll: sin(roll).
  *   input: roll (0.0005 rad per step), odd in roll: |x| is stored
  *   stored: uint16_t entries; one stored step = 2^-18 = 3.8147e-06
@@ -438,39 +405,6 @@ int32_t larkspur_table_sin_roll(int32_t roll)
         roll = 105;
     }
     return larkspur_lookup_sin_roll(roll);
-}
-
-/*
- * Table cos_roll: cos(roll).
- *   input: roll (0.0005 rad per step), even in roll: |x| is stored
- *   stored: uint16_t entries in Q1.14; one stored step = 2^-14 = 6.10352e-05
- *   piece 0: |x| in 0..105 steps (0..0.0525 rad); constant
- *            worst error 0.000706422 1 (every input checked)
- *   from: firmware.angle_lsb = 0.0005 rad, envelope.roll_max = 0.0523599 rad
- */
-static const uint16_t larkspur_tab_cos_roll_0[1] = {
-    16373
-};
-typedef char larkspur_tab_cos_roll_0_size_check[(sizeof(larkspur_tab_cos_roll_0) / sizeof(larkspur_tab_cos_roll_0[0]) == 1) ? 1 : -1];
-
-static int32_t larkspur_lookup_cos_roll(int32_t v)
-{
-    (void)v;
-    int32_t y;
-    {
-        y = larkspur_tab_cos_roll_0[0];
-    }
-    return y;
-}
-
-int32_t larkspur_table_cos_roll(int32_t roll)
-{
-    if (roll < -105) {
-        roll = -105;
-    } else if (roll > 105) {
-        roll = 105;
-    }
-    return larkspur_lookup_cos_roll(roll);
 }
 
 /*
@@ -827,30 +761,22 @@ void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out)
     }
     out->clamped = clamped; /* every input is clamped by now */
     int32_t t_sin_pitch;
-    int32_t t_cos_pitch;
     {
-        /* sin_pitch and cos_pitch of pitch, sharing |x| and the piece choice */
+        /* sin_pitch of pitch, sharing |x| and the piece choice */
         const int32_t x = (pitch < 0) ? -pitch : pitch;
         {
             t_sin_pitch = larkspur_tab_sin_pitch_0[x]; /* one entry per input step */
-        }
-        {
-            t_cos_pitch = larkspur_tab_cos_pitch_0[0];
         }
         if (pitch < 0) {
             t_sin_pitch = -t_sin_pitch;
         }
     }
     int32_t t_sin_roll;
-    int32_t t_cos_roll;
     {
-        /* sin_roll and cos_roll of roll, sharing |x| and the piece choice */
+        /* sin_roll of roll, sharing |x| and the piece choice */
         const int32_t x = (roll < 0) ? -roll : roll;
         {
             t_sin_roll = larkspur_tab_sin_roll_0[x]; /* one entry per input step */
-        }
-        {
-            t_cos_roll = larkspur_tab_cos_roll_0[0];
         }
         if (roll < 0) {
             t_sin_roll = -t_sin_roll;
@@ -896,10 +822,8 @@ void larkspur_feedforward(const larkspur_ff_in_t *in, larkspur_ff_out_t *out)
         }
     }
     const int32_t g_pitch = (t_grav_pitch * t_sin_pitch + 4) >> 3;
-    const int32_t cos_sin = LARKSPUR_ROUND_SHIFT(t_cos_pitch * t_sin_roll, 14);
-    const int32_t g_roll = (t_grav_roll * cos_sin + 32) >> 6;
-    const int32_t cos_cos = LARKSPUR_ROUND_SHIFT(t_cos_pitch * t_cos_roll, 14);
-    const int32_t r_up = (t_roll_level * cos_cos + 64) >> 7;
+    const int32_t g_roll = (t_grav_roll * t_sin_roll + 32) >> 6;
+    const int32_t r_up = t_roll_level * 128;
     const int32_t r_down = LARKSPUR_ROUND_SHIFT(t_roll_slope * t_sin_pitch, 11);
     const int32_t r_level = r_up - r_down;
     const int32_t r_level_s5 = (r_level + 16) >> 5;
@@ -1043,30 +967,22 @@ void larkspur_ff_slow(const larkspur_ff_in_t *in, larkspur_ff_state_t *state)
     }
     state->clamped = clamped; /* pitch, roll and payload are clamped by now */
     int32_t t_sin_pitch;
-    int32_t t_cos_pitch;
     {
-        /* sin_pitch and cos_pitch of pitch, sharing |x| and the piece choice */
+        /* sin_pitch of pitch, sharing |x| and the piece choice */
         const int32_t x = (pitch < 0) ? -pitch : pitch;
         {
             t_sin_pitch = larkspur_tab_sin_pitch_0[x]; /* one entry per input step */
-        }
-        {
-            t_cos_pitch = larkspur_tab_cos_pitch_0[0];
         }
         if (pitch < 0) {
             t_sin_pitch = -t_sin_pitch;
         }
     }
     int32_t t_sin_roll;
-    int32_t t_cos_roll;
     {
-        /* sin_roll and cos_roll of roll, sharing |x| and the piece choice */
+        /* sin_roll of roll, sharing |x| and the piece choice */
         const int32_t x = (roll < 0) ? -roll : roll;
         {
             t_sin_roll = larkspur_tab_sin_roll_0[x]; /* one entry per input step */
-        }
-        {
-            t_cos_roll = larkspur_tab_cos_roll_0[0];
         }
         if (roll < 0) {
             t_sin_roll = -t_sin_roll;
@@ -1112,10 +1028,8 @@ void larkspur_ff_slow(const larkspur_ff_in_t *in, larkspur_ff_state_t *state)
         }
     }
     const int32_t g_pitch = (t_grav_pitch * t_sin_pitch + 4) >> 3;
-    const int32_t cos_sin = LARKSPUR_ROUND_SHIFT(t_cos_pitch * t_sin_roll, 14);
-    const int32_t g_roll = (t_grav_roll * cos_sin + 32) >> 6;
-    const int32_t cos_cos = LARKSPUR_ROUND_SHIFT(t_cos_pitch * t_cos_roll, 14);
-    const int32_t r_up = (t_roll_level * cos_cos + 64) >> 7;
+    const int32_t g_roll = (t_grav_roll * t_sin_roll + 32) >> 6;
+    const int32_t r_up = t_roll_level * 128;
     const int32_t r_down = LARKSPUR_ROUND_SHIFT(t_roll_slope * t_sin_pitch, 11);
     const int32_t r_level = r_up - r_down;
     const int32_t r_level_s5 = (r_level + 16) >> 5;
@@ -1311,30 +1225,22 @@ void larkspur_forward(const larkspur_fwd_in_t *in, larkspur_fwd_out_t *out)
     }
     out->clamped = clamped; /* every input is clamped by now */
     int32_t t_sin_pitch;
-    int32_t t_cos_pitch;
     {
-        /* sin_pitch and cos_pitch of pitch, sharing |x| and the piece choice */
+        /* sin_pitch of pitch, sharing |x| and the piece choice */
         const int32_t x = (pitch < 0) ? -pitch : pitch;
         {
             t_sin_pitch = larkspur_tab_sin_pitch_0[x]; /* one entry per input step */
-        }
-        {
-            t_cos_pitch = larkspur_tab_cos_pitch_0[0];
         }
         if (pitch < 0) {
             t_sin_pitch = -t_sin_pitch;
         }
     }
     int32_t t_sin_roll;
-    int32_t t_cos_roll;
     {
-        /* sin_roll and cos_roll of roll, sharing |x| and the piece choice */
+        /* sin_roll of roll, sharing |x| and the piece choice */
         const int32_t x = (roll < 0) ? -roll : roll;
         {
             t_sin_roll = larkspur_tab_sin_roll_0[x]; /* one entry per input step */
-        }
-        {
-            t_cos_roll = larkspur_tab_cos_roll_0[0];
         }
         if (roll < 0) {
             t_sin_roll = -t_sin_roll;
@@ -1380,10 +1286,8 @@ void larkspur_forward(const larkspur_fwd_in_t *in, larkspur_fwd_out_t *out)
         }
     }
     const int32_t g_pitch = (t_grav_pitch * t_sin_pitch + 4) >> 3;
-    const int32_t cos_sin = LARKSPUR_ROUND_SHIFT(t_cos_pitch * t_sin_roll, 14);
-    const int32_t g_roll = (t_grav_roll * cos_sin + 32) >> 6;
-    const int32_t cos_cos = LARKSPUR_ROUND_SHIFT(t_cos_pitch * t_cos_roll, 14);
-    const int32_t r_up = (t_roll_level * cos_cos + 64) >> 7;
+    const int32_t g_roll = (t_grav_roll * t_sin_roll + 32) >> 6;
+    const int32_t r_up = t_roll_level * 128;
     const int32_t r_down = LARKSPUR_ROUND_SHIFT(t_roll_slope * t_sin_pitch, 11);
     const int32_t r_level = r_up - r_down;
     const int32_t r_level_s5 = (r_level + 16) >> 5;
