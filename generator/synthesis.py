@@ -19,8 +19,8 @@ from .vehicle import Vehicle
 FORMAT_VERSION = 4
 """Part of every fingerprint and checked by the generated C: raised when the same model file gives a
 different model or different integers (2: the efficiency blends through zero speed; 3: int32 tables
-store no bits their uses round away; 4: the speed tables may split at the Stribeck edge), so files made
-before read as stale."""
+store no bits their uses round away; 4: the speed tables may split at the Stribeck edge and the cosines
+fold into the payload tables), so files made before read as stale."""
 FORWARD_BUDGET_FACTOR = 2.0
 
 
