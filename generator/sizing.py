@@ -226,6 +226,13 @@ def _greedy(
     def at(ch: list[int]) -> float:
         return float(bound(_merge(pieces, [u.error(c) for u, c in zip(pieces, ch)], fixed)))
 
+    def each(j: int) -> np.ndarray:
+        """The bound with unit j at each of its candidates, the others as chosen: one broadcast call."""
+        errs = np.array([e.total for e in pieces[j].cands.errors])
+        trial = [u.error(c) for u, c in zip(pieces, choice)]
+        trial[j] = errs
+        return np.broadcast_to(bound(_merge(pieces, trial, fixed)), errs.shape)
+
     if at(choice) > budget:
         return None
     while True:
@@ -233,11 +240,11 @@ def _greedy(
         total = sum(u.bytes(c) for u, c in zip(pieces, choice))
         for j, u in enumerate(pieces):
             now = u.cost(choice[j], goal)
-            for c in sorted(_all(u), key=partial(u.cost, goal=goal)):
-                if u.cost(c, goal) >= now:
-                    break
+            cheaper = [c for c in sorted(_all(u), key=partial(u.cost, goal=goal)) if u.cost(c, goal) < now]
+            bounds = each(j) if cheaper else None
+            for c in cheaper:
                 fits = total - u.bytes(choice[j]) + u.bytes(c) <= max(objective.bytes_max, total)
-                if fits and at(choice[:j] + [c] + choice[j + 1 :]) <= budget:
+                if fits and bounds is not None and bounds[c] <= budget:
                     moves.append((now - u.cost(c, goal), j, c))
                     break  # the cheapest feasible change of this unit
         if not moves:
