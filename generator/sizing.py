@@ -54,6 +54,11 @@ class Objective:
 
     goal: str = "bytes"
     bytes_max: float = float("inf")
+    ceiling: float = float("inf")  # look only for answers cheaper than this cost (NotCheaper when none is)
+
+
+class NotCheaper(Exception):
+    """No sizing within the budget and cap costs less than the objective's ceiling."""
 
 
 BYTES = Objective()
@@ -162,7 +167,8 @@ def _search(
         if fewest is None or sum(u.bytes(c) for u, c in zip(pieces, fewest)) > cap:
             return None, visited
     start = _greedy(bound, pieces, budget, fixed, objective=objective, start=fewest)
-    if start is not None:
+    best["cost"] = objective.ceiling
+    if start is not None and sum(u.cost(c, goal) for u, c in zip(pieces, start)) < objective.ceiling:
         best["cost"], best["choice"] = sum(u.cost(c, goal) for u, c in zip(pieces, start)) + 1, start
 
     def dfs(k: int, choice: list[int], used: int, used_bytes: int) -> None:
@@ -229,7 +235,7 @@ def _greedy(
     def each(j: int) -> np.ndarray:
         """The bound with unit j at each of its candidates, the others as chosen: one broadcast call."""
         errs = np.array([e.total for e in pieces[j].cands.errors])
-        trial = [u.error(c) for u, c in zip(pieces, choice)]
+        trial: list[Any] = [u.error(c) for u, c in zip(pieces, choice)]
         trial[j] = errs
         return np.broadcast_to(bound(_merge(pieces, trial, fixed)), errs.shape)
 
@@ -280,13 +286,15 @@ def size(
 ) -> Sizing:
     """Size the named tables (others fixed) so the program's error bound stays within budget_steps,
     minimising the objective; when its byte cap cannot hold what the budget needs, the fewest bytes
-    (flagged over_cap)."""
+    (flagged over_cap). With a finite ceiling, NotCheaper instead when nothing under it meets both."""
     fixed = dict(fixed or {})
     fixed_errors = dict(fixed_errors or {})
     fixed_max = {n: max(e.total for e in errs) for n, errs in fixed_errors.items()}
     pieces = pieces_to_size(specs, names, program)
     bound = analysis.compile_bound(program, specs)
     choice, visited = search(bound, pieces, budget_steps, fixed_max, objective=objective)
+    if choice is None and objective.ceiling < float("inf"):
+        raise NotCheaper(f"no sizing within the budget costs less than {objective.ceiling:g}")
     over_cap = False
     if choice is None and objective != BYTES:
         choice, more = search(bound, pieces, budget_steps, fixed_max, objective=BYTES)

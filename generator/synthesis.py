@@ -5,6 +5,7 @@ from __future__ import annotations
 import dataclasses
 import hashlib
 import json
+import math
 from dataclasses import dataclass
 from typing import Any
 
@@ -111,14 +112,17 @@ def _drive(v: Vehicle) -> Firmware:
 
 
 def _layout(v: Vehicle, *, flat: bool) -> Firmware:
-    """Split at the Stribeck edge where that is leaner (_split), else the first design that fits (_plain)."""
+    """Split at the Stribeck edge where that costs fewer lookup instructions (then bytes) than the first
+    design that fits without it (_plain); that one is sized only for answers of no more instructions
+    than the split's (sizing.Objective.ceiling), which prunes most of its search."""
     split = _split(v, flat=flat)
-    if split is not None and _lean(split) and _tail_needs_segments(v):
+    if split is None:
+        return _plain(v, flat=flat)
+    try:
+        plain = _plain(v, flat=flat, ceiling=(split.instructions + 1) * sizing.INSTRUCTION_WEIGHT)
+    except sizing.NotCheaper:
         return split
-    plain = _plain(v, flat=flat)
-    if split is not None and (split.instructions, split.total_bytes) < (plain.instructions, plain.total_bytes):
-        return split
-    return plain
+    return split if (split.instructions, split.total_bytes) < (plain.instructions, plain.total_bytes) else plain
 
 
 def _split(v: Vehicle, *, flat: bool = False) -> Firmware | None:
@@ -136,38 +140,20 @@ def _split(v: Vehicle, *, flat: bool = False) -> Firmware | None:
     return None if fw.over_cap else fw
 
 
-def _lean(fw: Firmware) -> bool:
-    """A split whose friction costs the fewest lookup instructions a two-piece table can: one entry per
-    step to the edge, one segment (or a constant) beyond."""
-    inner, outer = (p.kind for p in fw.tables["friction"].pieces)
-    return inner is tb.PieceKind.DIRECT and outer in (tb.PieceKind.ONE_SEGMENT, tb.PieceKind.CONSTANT)
-
-
-def _tail_needs_segments(v: Vehicle) -> bool:
-    """Whether friction split at the deadband edge needs more than one segment beyond it: one segment over
-    that whole piece misses the whole current budget by itself, so the design without the split looks
-    friction up by interpolation there (15 instructions in the cost model against the split's 6) and is
-    not worth sizing as well."""
-    des = program.design(v, coarse=False)
-    spec = des.specs["friction"]
-    outer = spec.pieces[1]
-    error = tb.piece_error(spec, outer, tb.build_piece(spec, outer, 1)).total
-    return error * des.amps_per_acc > v.firmware.current_budget_a
-
-
-def _plain(v: Vehicle, *, flat: bool = False) -> Firmware:
+def _plain(v: Vehicle, *, flat: bool = False, ceiling: float = math.inf) -> Firmware:
     """The first design without the split that meets the budget (coarse tables only where they fit
     firmware.table_bytes_max); the exact one with the rounded designs' best bound when it alone does.
-    CheckFailed (with the levers) when none does."""
+    CheckFailed (with the levers) when none does; sizing.NotCheaper when the first that could does not
+    cost less than `ceiling` (sizing's cost units)."""
     tries = _designs(v, flat=flat)
     for des in tries[:-1]:
         try:
-            fw = _synthesise(v, des, explain=False)
+            fw = _synthesise(v, des, explain=False, ceiling=ceiling)
         except CheckFailed:
             continue
         if not (des.coarse and fw.over_cap):
             return fw
-    fw = _synthesise(v, tries[-1], explain=not flat)
+    fw = _synthesise(v, tries[-1], explain=not flat, ceiling=ceiling)
     if not tries[-1].exact or len(tries) == 1:
         return fw
     rounded = min(best_bound_a(v, exact=False), best_bound_a(v, exact=False, coarse=True))
@@ -193,12 +179,12 @@ def _designs(v: Vehicle, *, flat: bool = False) -> list[program.Design]:
     return out if _same(fine, exact) else [*out, exact]
 
 
-def _synthesise(v: Vehicle, des: program.Design, *, explain: bool = True) -> Firmware:
+def _synthesise(v: Vehicle, des: program.Design, *, explain: bool = True, ceiling: float = math.inf) -> Firmware:
     """Size and prove one design; `explain` adds the levers to a budget failure (a search, not free)."""
     fw = v.firmware
     where = f"{v.source}: firmware.current_budget"
     try:
-        ff, fwd = _size_both(v, des)
+        ff, fwd = _size_both(v, des, ceiling=ceiling)
     except _Missed as miss:
         if miss.forward:
             raise CheckFailed(
@@ -233,7 +219,7 @@ class _Missed(Exception):
         self.exc, self.forward = exc, forward
 
 
-def _size_both(v: Vehicle, des: program.Design) -> tuple[sizing.Sizing, sizing.Sizing]:
+def _size_both(v: Vehicle, des: program.Design, *, ceiling: float = math.inf) -> tuple[sizing.Sizing, sizing.Sizing]:
     """Feed-forward tables, then the forward function's own (M^-1) with the former fixed. Under the
     instructions objective the byte cap covers both: when the feed-forward tables leave too little
     room for the fewest forward bytes, they are sized again under the cap less those bytes."""
@@ -242,7 +228,8 @@ def _size_both(v: Vehicle, des: program.Design) -> tuple[sizing.Sizing, sizing.S
     ff_names = [n for n in des.specs if n not in _forward_only(des)]
     ff_budget = fw.current_budget_a / fw.current_lsb_a
     ff_what = f"{fw.current_budget_a:g} A"
-    ff = _size(des.feedforward, des, ff_names, ff_budget, what=ff_what, objective=sizing.Objective(fw.sizing, cap))
+    objective = sizing.Objective(fw.sizing, cap, ceiling)
+    ff = _size(des.feedforward, des, ff_names, ff_budget, what=ff_what, objective=objective)
     fwd = _size_forward(v, des, ff, cap - ff.total_bytes)
     if ff.total_bytes + fwd.total_bytes > cap and fw.sizing == "instructions":
         fewest = _size_forward(v, des, ff, 0.0)  # the forward tables' fewest bytes with these
@@ -252,7 +239,7 @@ def _size_both(v: Vehicle, des: program.Design) -> tuple[sizing.Sizing, sizing.S
             ff_names,
             ff_budget,
             what=ff_what,
-            objective=sizing.Objective(fw.sizing, cap - fewest.total_bytes),
+            objective=sizing.Objective(fw.sizing, cap - fewest.total_bytes, ceiling),
         )
         fwd = _size_forward(v, des, ff, cap - ff.total_bytes)
     return ff, fwd

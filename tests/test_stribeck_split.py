@@ -87,6 +87,25 @@ def test_the_split_is_taken_only_where_it_costs_fewer_lookup_instructions_and_fi
     assert 0 < taken < 12  # both outcomes occur in this set
 
 
+@pytest.mark.parametrize("seed", [31, 36, 40])
+def test_the_layout_is_what_sizing_both_designs_and_comparing_them_gives(seed):
+    """The plain design is sized only below the split's instructions (a ceiling that prunes its search);
+    the outcome equals sizing both in full and taking fewer instructions, then fewer bytes. Seeds 31 and
+    36: a shortcut that kept a lean split without sizing the plain design once chose the dearer one."""
+    v = invented(seed, "veh")[1].vehicle
+    for flat in (False, True):
+        split = synthesis._split(v, flat=flat)
+        assert split is not None
+        plain = synthesis._plain(v, flat=flat)
+        want = split if (split.instructions, split.total_bytes) < (plain.instructions, plain.total_bytes) else plain
+        got = synthesis._layout(v, flat=flat)
+        assert (got.design.stribeck, got.instructions, got.total_bytes) == (
+            want.design.stribeck,
+            want.instructions,
+            want.total_bytes,
+        )
+
+
 def test_no_split_without_room_or_without_a_dip_or_when_sizing_for_bytes():
     """A byte cap too small for any design (the fewest bytes then, flagged), a map with no dip (F_S = F_C),
     and sizing for bytes each leave the tables split at the deadband edge."""
