@@ -273,6 +273,34 @@ def limiting_table(bound: Bound, pieces: list[PieceSizes], fixed: Mapping[str, f
     return full, worst if full - floor > 1e-12 else "(arithmetic rounding)"
 
 
+def _choose(
+    bound: Bound,
+    pieces: list[PieceSizes],
+    budget: float,
+    fixed: Mapping[str, float],
+    *,
+    objective: Objective,
+    what: str,
+) -> tuple[list[int], int, bool]:
+    """The search's choice, the nodes it visited and whether it had to leave the byte cap (fewest bytes
+    then); NotCheaper under a finite ceiling, CheckFailed (naming the limiting table) when the budget
+    cannot be met at all."""
+    choice, visited = search(bound, pieces, budget, fixed, objective=objective)
+    if choice is None and objective.ceiling < float("inf"):
+        raise NotCheaper(f"no sizing within the budget costs less than {objective.ceiling:g}")
+    over_cap = False
+    if choice is None and objective != BYTES:
+        choice, more = search(bound, pieces, budget, fixed, objective=BYTES)
+        visited, over_cap = visited + more, choice is not None
+    if choice is None:
+        achievable, table = limiting_table(bound, pieces, fixed)
+        raise CheckFailed(
+            f"{what} cannot be met: the best achievable bound is {achievable:.4g} output steps "
+            f"(limited by table '{table}') against a budget of {budget:.4g} steps"
+        )
+    return choice, visited, over_cap
+
+
 def size(
     program: Program,
     specs: Mapping[str, tb.TableSpec],
@@ -292,19 +320,7 @@ def size(
     fixed_max = {n: max(e.total for e in errs) for n, errs in fixed_errors.items()}
     pieces = pieces_to_size(specs, names, program)
     bound = analysis.compile_bound(program, specs)
-    choice, visited = search(bound, pieces, budget_steps, fixed_max, objective=objective)
-    if choice is None and objective.ceiling < float("inf"):
-        raise NotCheaper(f"no sizing within the budget costs less than {objective.ceiling:g}")
-    over_cap = False
-    if choice is None and objective != BYTES:
-        choice, more = search(bound, pieces, budget_steps, fixed_max, objective=BYTES)
-        visited, over_cap = visited + more, choice is not None
-    if choice is None:
-        achievable, table = limiting_table(bound, pieces, fixed_max)
-        raise CheckFailed(
-            f"{what} cannot be met: the best achievable bound is {achievable:.4g} output steps "
-            f"(limited by table '{table}') against a budget of {budget_steps:.4g} steps"
-        )
+    choice, visited, over_cap = _choose(bound, pieces, budget_steps, fixed_max, objective=objective, what=what)
     built: dict[str, list[tb.PieceData]] = {n: [] for n in names}
     errors: dict[str, list[tb.PieceError]] = {n: [] for n in names}
     for u, c in zip(pieces, choice):
