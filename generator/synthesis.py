@@ -99,7 +99,8 @@ def synthesise(v: Vehicle) -> Firmware:
 def _drive(v: Vehicle) -> Firmware:
     """The drive's two functions (synthesise): when sizing minimises instructions, the cosines folded
     into the payload tables where that meets the budget within the byte cap for no more lookup
-    instructions (it also drops two products the cost model does not count); else the layout without."""
+    instructions (it also drops two products the cost model does not count), or where only it fits the
+    cap; else the layout without."""
     stability.check(v)
     best = _layout(v, flat=False)
     if v.firmware.sizing != "instructions":
@@ -108,7 +109,11 @@ def _drive(v: Vehicle) -> Firmware:
         folded = _layout(v, flat=True)
     except CheckFailed:
         return best
-    return folded if not folded.over_cap and folded.instructions <= best.instructions else best
+    if folded.over_cap and best.over_cap:  # both sized for the fewest bytes: the fewer
+        return folded if folded.total_bytes < best.total_bytes else best
+    if folded.over_cap or best.over_cap:  # within firmware.table_bytes_max beats over it
+        return best if folded.over_cap else folded
+    return folded if folded.instructions <= best.instructions else best
 
 
 def _layout(v: Vehicle, *, flat: bool) -> Firmware:

@@ -16,7 +16,7 @@ from kinetab.generator import accuracy, emulate, interface, render, synthesis, t
 from kinetab.generator.errors import CheckFailed
 
 from tests.csteps import build_harness, needs_gcc, run_harness, write_files
-from tests.helpers import invented
+from tests.helpers import invented, vehicle_from
 from tests.test_skid import _skid_firmware
 
 
@@ -91,3 +91,18 @@ def test_sizing_for_bytes_looks_the_cosines_up():
     """The fold is tried only when sizing minimises instructions."""
     fw = invented(1, "veh", lambda d, _r: d["firmware"].update(sizing="bytes"))[1]
     assert not fw.design.flat and "cos_pitch" in fw.tables
+
+
+@pytest.mark.parametrize("seed", [1, 7])
+def test_a_byte_cap_only_the_folded_layout_fits_takes_it(seed):
+    """A table_bytes_max at the folded layout's fewest bytes, below the other's: the folded one is chosen
+    and fits (found in review: the layout over the cap was kept because it had fewer instructions)."""
+    doc = invented(seed, "veh")[0]
+    doc["firmware"]["table_bytes_max"] = 1
+    v = vehicle_from(doc)
+    looked_up, folded = synthesis._layout(v, flat=False), synthesis._layout(v, flat=True)
+    assert looked_up.over_cap and folded.over_cap and folded.total_bytes < looked_up.total_bytes
+    assert synthesis.synthesise(v).design.flat  # both over: the fewer bytes
+    doc["firmware"]["table_bytes_max"] = folded.total_bytes
+    fw = synthesis.synthesise(vehicle_from(doc))
+    assert fw.design.flat and not fw.over_cap and fw.total_bytes <= folded.total_bytes
