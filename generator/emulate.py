@@ -3,7 +3,8 @@
 Integer mode uses numpy int64 and checks after every op that the value fits the 32-bit signal the C
 stores it in, so a wrap would be an error here rather than a silent difference.
 Real modes drop rounding for the error breakdown: "model" evaluates the functions themselves (and must
-equal the float model), "interp" interpolates unrounded breakpoints, "quant" the stored entries.
+equal the float model, but for cosines a folded design holds at their midranges), "interp" interpolates
+unrounded breakpoints, "quant" the stored entries.
 """
 
 from __future__ import annotations

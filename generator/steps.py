@@ -102,11 +102,14 @@ steps per input step, bodyframe.Conversion) that their places are divided by."""
 
 
 def _speed_places(fw: Firmware, name: str) -> list[int]:
-    """Where speed steps matter most: around zero, the deadband edges, the blend band (middle and end);
-    for a body-frame input the nearest of its own steps."""
+    """Where speed steps matter most: around zero, the deadband edges, the friction tables' split (the
+    Stribeck edge when they split there), the blend band (middle and end); for a body-frame input the
+    nearest of its own steps."""
     lsb = fw.vehicle.firmware.speed_lsb_mps
     band = int(dynamics.blend_width(fw.vehicle) / lsb)
-    places = {0, 1, 2, fw.design.limits.deadband, fw.design.limits.deadband + 1, band // 2, band, band + 1}
+    split = fw.tables["friction"].spec.pieces[0].x1
+    places = {0, 1, 2, fw.design.limits.deadband, fw.design.limits.deadband + 1, split, split + 1}
+    places |= {band // 2, band, band + 1}
     ratio = getattr(bodyframe.mix(fw.vehicle, "speed"), SPEED_INPUTS[name]) if SPEED_INPUTS[name] else 1.0
     return sorted({x for p in places for x in (round(p / ratio), -round(p / ratio) - 1)})
 

@@ -136,8 +136,9 @@ def _split(v: Vehicle, *, flat: bool = False) -> Firmware | None:
     if v.firmware.sizing != "instructions":
         return None
     des = program.design(v, stribeck=True, flat=flat)
-    if des.specs["friction"].pieces[0].x1 == des.limits.deadband:
-        return None
+    edge = des.specs["friction"].pieces[0].x1
+    if edge == des.limits.deadband or edge >= tb.MAX_SEGMENTS:  # no dip past the deadband, or no table
+        return None  # could hold one entry per step to the edge (a very fine speed step): not worth sizing
     try:
         fw = _synthesise(v, des, explain=False)
     except CheckFailed:

@@ -1,8 +1,8 @@
 """Lookup tables: uniform power-of-two segments, shift-and-mask indexing, bit-exact lookup, errors.
 
 A table maps one clamped integer input to an integer in its Q format. It has one or two pieces
-(the friction tables split exactly at the deadband edge so no segment straddles the step or kink)
-and a symmetry: odd and even tables store |x| only.
+(the friction tables split exactly at the deadband edge so no segment straddles the step or kink, or
+where the Stribeck dip has faded) and a symmetry: odd and even tables store |x| only.
 """
 
 from __future__ import annotations
@@ -56,7 +56,7 @@ class TableSpec:
 
     @property
     def piece_edge(self) -> int | None:
-        """The last input of the first piece when there are two (the deadband edge), else None."""
+        """The last input of the first piece when there are two (the deadband or Stribeck edge), else None."""
         return self.pieces[0].x1 if len(self.pieces) == 2 else None
 
 
@@ -176,7 +176,7 @@ def candidate_segments(piece: Piece) -> list[int]:
 def build_piece(spec: TableSpec, piece: Piece, segments: int) -> PieceData:
     """Breakpoint values rounded to the Q format; a constant piece stores the midrange value."""
     if segments == 0:
-        xs = _domain(piece)
+        xs = domain(piece)
         vals = piece.func(xs)
         mid = np.array([(float(np.max(vals)) + float(np.min(vals))) / 2])
         ints, sat = fx.quantise(mid, spec.frac_bits, spec.bits)
@@ -272,11 +272,11 @@ def _interp_real(spec: TableSpec, piece: Piece, data: PieceData, xs: np.ndarray,
 
 
 def _constant_real(spec: TableSpec, piece: Piece) -> float:
-    vals = piece.func(_domain(piece))
+    vals = piece.func(domain(piece))
     return (float(np.max(vals)) + float(np.min(vals))) / 2 * 2.0**spec.frac_bits
 
 
-def _domain(piece: Piece) -> np.ndarray:
+def domain(piece: Piece) -> np.ndarray:
     """The piece's integer inputs: all of them, or an even sample of EXHAUSTIVE_POINTS when more."""
     if piece.span + 1 <= EXHAUSTIVE_POINTS:
         return np.arange(piece.x0, piece.x1 + 1, dtype=np.int64)
@@ -294,12 +294,12 @@ class PieceError:
 
 
 def piece_error(
-    spec: TableSpec, piece: Piece, data: PieceData, domain: tuple[np.ndarray, np.ndarray] | None = None
+    spec: TableSpec, piece: Piece, data: PieceData, values: tuple[np.ndarray, np.ndarray] | None = None
 ) -> PieceError:
     """Evaluate the bit-exact lookup against the function on every input (or a dense sample + margin).
 
-    domain: the inputs and the function's values there, when the caller already has them."""
-    xs, exact = domain if domain is not None else (_domain(piece), None)
+    values: the inputs and the function's values there, when the caller already has them."""
+    xs, exact = values if values is not None else (domain(piece), None)
     exact = piece.func(xs) if exact is None else exact
     got = lookup_piece(data, piece.x0, xs).astype(float) / 2.0**spec.frac_bits
     real = _interp_real(spec, piece, data, xs, quantised=False) / 2.0**spec.frac_bits
@@ -336,15 +336,16 @@ def piece_candidates(spec: TableSpec, piece: Piece) -> Candidates:
     direct table (one entry per input), whose lookup costs fewer instructions than interpolation."""
     out = Candidates()
     best = float("inf")
-    xs = _domain(piece)
-    domain = (xs, piece.func(xs))
+    xs = domain(piece)
+    values = (xs, piece.func(xs))
     for n in candidate_segments(piece):
         data = build_piece(spec, piece, n)
-        err = piece_error(spec, piece, data, domain)
+        err = piece_error(spec, piece, data, values)
         direct = data.kind is PieceKind.DIRECT  # one entry per input: the cheapest lookup but one
-        if err.total < KEEP_RATIO * best or (direct and err.total <= best):
+        measured = err.total - piece.slack  # the held factor's reach is the same for every size
+        if measured < KEEP_RATIO * best or (direct and measured <= best):
             out.segments.append(n)
             out.errors.append(err)
             out.data.append(data)
-            best = err.total
+            best = measured
     return out

@@ -431,7 +431,7 @@ def _folded(v: Vehicle, lim: Limits, rows: dict[str, _Row]) -> dict[str, _Row]:
         if name not in rows:
             continue
         (piece,) = rows[name].pieces
-        peak = float(np.max(np.abs(piece.func(np.arange(piece.x0, piece.x1 + 1)))))
+        peak = _peak(piece)
         folded = tb.Piece(x0=piece.x0, x1=piece.x1, func=_times(piece.func, c), slack=peak * d)
         out[name] = dataclasses.replace(
             rows[name],
@@ -440,6 +440,17 @@ def _folded(v: Vehicle, lim: Limits, rows: dict[str, _Row]) -> dict[str, _Row]:
             meaning=f"{rows[name].meaning}; {held} held at {c:.6g} (within {d:.3g} over the envelope)",
         )
     return out
+
+
+def _peak(piece: tb.Piece) -> float:
+    """Largest |func| over the piece's inputs: all of them, or (more than 2^21) an even sample plus the
+    most the function can rise between two samples, as tables.piece_error bounds it."""
+    xs = tb.domain(piece)
+    values = np.abs(piece.func(xs))
+    if len(xs) == piece.span + 1:
+        return float(np.max(values))
+    slope = float(np.max(np.abs(np.diff(values)) / np.diff(xs)))
+    return float(np.max(values)) + float(np.max(np.diff(xs))) * slope * 2
 
 
 def _times(f: tb.Func, c: float) -> tb.Func:

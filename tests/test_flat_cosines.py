@@ -13,6 +13,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from kinetab.generator import accuracy, emulate, interface, render, synthesis, tablespecs
+from kinetab.generator import tables as tb
 from kinetab.generator.errors import CheckFailed
 
 from tests.csteps import build_harness, needs_gcc, run_harness, write_files
@@ -106,3 +107,13 @@ def test_a_byte_cap_only_the_folded_layout_fits_takes_it(seed):
     doc["firmware"]["table_bytes_max"] = folded.total_bytes
     fw = synthesis.synthesise(vehicle_from(doc))
     assert fw.design.flat and not fw.over_cap and fw.total_bytes <= folded.total_bytes
+
+
+def test_the_largest_value_of_a_folded_table_is_found_without_one_element_per_payload_step():
+    """A payload of 2^30 steps (found in review: every step was evaluated, 7.5 GiB): the peak of an affine
+    function is its larger end plus at most the sampling margin, and of a bump between samples it is not
+    under-counted."""
+    affine = tb.Piece(x0=0, x1=2**30, func=lambda x: 3.0 - 5e-9 * np.asarray(x, float))
+    assert 3.0 <= tablespecs._peak(affine) <= 3.0 + 2 * 5e-9 * 2**30 / 2**20  # |f(0)| = 3 > |f(2^30)| = 2.37
+    bump = tb.Piece(x0=0, x1=2**30, func=lambda x: np.sin(np.asarray(x, float) * 1e-6))
+    assert tablespecs._peak(bump) >= 1.0 - 1e-12
