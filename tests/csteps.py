@@ -11,7 +11,7 @@ from pathlib import Path
 import jinja2
 import numpy as np
 import pytest
-from kinetab.generator import hostc, interface
+from kinetab.generator import accuracy, emulate, hostc, interface, render
 
 HARNESS = Path(__file__).parent / "c" / "harness.c.j2"
 MODES = {"feedforward": "ff", "forward": "fwd", "lift": "lift"}
@@ -72,3 +72,15 @@ def run_harness(exe: Path, rows: np.ndarray, mode: str = "ff") -> np.ndarray:
     text = "\n".join(" ".join(str(int(x)) for x in r) for r in rows) + "\n"
     out = subprocess.run([str(exe), mode], input=text, capture_output=True, text=True, check=True).stdout
     return np.array([[int(x) for x in line.split()] for line in out.strip().splitlines()], dtype=np.int64)
+
+
+def assert_host_c_within_bound(fw, inp: dict[str, np.ndarray], folder: Path) -> None:
+    """The generated feed-forward C (host compiler, strict flags) bit-exact with the emulator on `inp`,
+    and the emulator within the proven bound of the float model there."""
+    exe = build_harness(write_files(folder, render.render(fw)), fw.vehicle.name)
+    ints = run_harness(exe, interface.fields_to_rows(interface.FF_IN, inp))
+    want = emulate.run(fw.design.feedforward, fw.tables, inp)["current"]
+    assert np.array_equal(ints[:, :2], want)
+    got = want * fw.vehicle.firmware.current_lsb_a
+    ref = accuracy.reference_current(fw, accuracy.operating_point(fw, inp))
+    assert np.max(np.abs(got - ref)) <= fw.ff_bound_a + 1e-12

@@ -12,11 +12,11 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from kinetab.generator import accuracy, emulate, interface, render, synthesis, tablespecs
+from kinetab.generator import accuracy, interface, synthesis, tablespecs
 from kinetab.generator import tables as tb
 from kinetab.generator.errors import CheckFailed
 
-from tests.csteps import build_harness, needs_gcc, run_harness, write_files
+from tests.csteps import assert_host_c_within_bound, needs_gcc
 from tests.helpers import invented, vehicle_from
 from tests.test_skid import _skid_firmware
 
@@ -57,15 +57,8 @@ def test_folded_c_is_bit_exact_and_within_its_proven_bound_of_the_true_cosines(w
     within the proven bound, half the points at the pitch and roll corners."""
     fw = _skid_firmware(53, 3) if which == "skid-steer" else invented(int(which.split()[1]), "veh")[1]
     assert fw.design.flat and "cos_pitch" not in fw.tables and "cos_roll" not in fw.tables
-    prefix = fw.vehicle.name
     inp = _extreme_angles(fw, accuracy.envelope_points(fw, 3000, 9), 9)
-    exe = build_harness(write_files(tmp_path, render.render(fw)), prefix)
-    ints = run_harness(exe, interface.fields_to_rows(interface.FF_IN, inp))
-    want = emulate.run(fw.design.feedforward, fw.tables, inp)["current"]
-    assert np.array_equal(ints[:, :2], want)
-    got = want * fw.vehicle.firmware.current_lsb_a
-    ref = accuracy.reference_current(fw, accuracy.operating_point(fw, inp))
-    assert np.max(np.abs(got - ref)) <= fw.ff_bound_a + 1e-12
+    assert_host_c_within_bound(fw, inp, tmp_path)
 
 
 def test_the_fold_is_taken_only_where_it_costs_no_more_lookup_instructions_and_fits():

@@ -14,10 +14,10 @@ import math
 
 import numpy as np
 import pytest
-from kinetab.generator import accuracy, emulate, interface, render, synthesis, tablespecs
+from kinetab.generator import accuracy, interface, synthesis, tablespecs
 from kinetab.generator import tables as tb
 
-from tests.csteps import build_harness, needs_gcc, run_harness, write_files
+from tests.csteps import assert_host_c_within_bound, needs_gcc
 from tests.helpers import invented, vehicle_from
 
 SPLIT_SEEDS = (1, 10, 11, 40)
@@ -164,11 +164,4 @@ def test_the_split_c_is_bit_exact_and_within_its_proven_bound_around_both_edges(
     rows = interface.fields_to_rows(interface.FF_IN, inp)
     rows = rows[accuracy.inside_envelope(fw.vehicle, lim, rows)]
     assert len(rows) > 500
-    inp = interface.rows_to_fields(interface.FF_IN, rows)
-    exe = build_harness(write_files(tmp_path, render.render(fw)), "veh")
-    ints = run_harness(exe, interface.fields_to_rows(interface.FF_IN, inp))
-    want = emulate.run(fw.design.feedforward, fw.tables, inp)["current"]
-    assert np.array_equal(ints[:, :2], want)
-    got = want * fw.vehicle.firmware.current_lsb_a
-    ref = accuracy.reference_current(fw, accuracy.operating_point(fw, inp))
-    assert np.max(np.abs(got - ref)) <= fw.ff_bound_a + 1e-12
+    assert_host_c_within_bound(fw, interface.rows_to_fields(interface.FF_IN, rows), tmp_path)
