@@ -100,14 +100,16 @@ def _drive(v: Vehicle) -> Firmware:
     """The drive's two functions (synthesise): when sizing minimises instructions, the cosines folded
     into the payload tables where that meets the budget within the byte cap for no more lookup
     instructions (it also drops two products the cost model does not count), or where only it fits the
-    cap; else the layout without."""
+    cap; else the layout without. The fold is sized only for answers of no more instructions than the
+    layout without it when that one fits the cap (sizing.Objective.ceiling), which prunes its search."""
     stability.check(v)
     best = _layout(v, flat=False)
     if v.firmware.sizing != "instructions":
         return best
+    ceiling = math.inf if best.over_cap else _ceiling(best)
     try:
-        folded = _layout(v, flat=True)
-    except CheckFailed:
+        folded = _layout(v, flat=True, ceiling=ceiling)
+    except (CheckFailed, sizing.NotCheaper):
         return best
     if folded.over_cap and best.over_cap:  # both sized for the fewest bytes: the fewer
         return folded if folded.total_bytes < best.total_bytes else best
@@ -116,23 +118,30 @@ def _drive(v: Vehicle) -> Firmware:
     return folded if folded.instructions <= best.instructions else best
 
 
-def _layout(v: Vehicle, *, flat: bool) -> Firmware:
+def _ceiling(fw: Firmware) -> float:
+    """The sizing cost just above `fw`'s lookup instructions: answers under it have no more."""
+    return (fw.instructions + 1) * sizing.INSTRUCTION_WEIGHT
+
+
+def _layout(v: Vehicle, *, flat: bool, ceiling: float = math.inf) -> Firmware:
     """Split at the Stribeck edge where that costs fewer lookup instructions (then bytes) than the first
     design that fits without it (_plain); that one is sized only for answers of no more instructions
-    than the split's (sizing.Objective.ceiling), which prunes most of its search."""
-    split = _split(v, flat=flat)
+    than the split's (sizing.Objective.ceiling), which prunes most of its search. Under a finite
+    `ceiling` both look only below it (sizing.NotCheaper when neither finds an answer there)."""
+    split = _split(v, flat=flat, ceiling=ceiling)
     if split is None:
-        return _plain(v, flat=flat)
+        return _plain(v, flat=flat, ceiling=ceiling)
     try:
-        plain = _plain(v, flat=flat, ceiling=(split.instructions + 1) * sizing.INSTRUCTION_WEIGHT)
-    except sizing.NotCheaper:
+        plain = _plain(v, flat=flat, ceiling=min(ceiling, _ceiling(split)))
+    except (sizing.NotCheaper, CheckFailed):  # the split is the only design that meets the budget
         return split
     return split if (split.instructions, split.total_bytes) < (plain.instructions, plain.total_bytes) else plain
 
 
-def _split(v: Vehicle, *, flat: bool = False) -> Firmware | None:
+def _split(v: Vehicle, *, flat: bool = False, ceiling: float = math.inf) -> Firmware | None:
     """When sizing minimises instructions and the Stribeck dip ends inside the envelope: the design whose
-    speed tables split there (program.design), if it meets the budget within firmware.table_bytes_max."""
+    speed tables split there (program.design), if it meets the budget within firmware.table_bytes_max
+    (and under `ceiling`, sizing's cost units)."""
     if v.firmware.sizing != "instructions":
         return None
     des = program.design(v, stribeck=True, flat=flat)
@@ -140,8 +149,8 @@ def _split(v: Vehicle, *, flat: bool = False) -> Firmware | None:
     if edge == des.limits.deadband or edge >= tb.MAX_SEGMENTS:  # no dip past the deadband, or no table
         return None  # could hold one entry per step to the edge (a very fine speed step): not worth sizing
     try:
-        fw = _synthesise(v, des, explain=False)
-    except CheckFailed:
+        fw = _synthesise(v, des, explain=False, ceiling=ceiling)
+    except (CheckFailed, sizing.NotCheaper):
         return None
     return None if fw.over_cap else fw
 
@@ -159,7 +168,7 @@ def _plain(v: Vehicle, *, flat: bool = False, ceiling: float = math.inf) -> Firm
             continue
         if not (des.coarse and fw.over_cap):
             return fw
-    fw = _synthesise(v, tries[-1], explain=not flat, ceiling=ceiling)
+    fw = _synthesise(v, tries[-1], explain=not flat and ceiling == math.inf, ceiling=ceiling)
     if not tries[-1].exact or len(tries) == 1:
         return fw
     rounded = min(best_bound_a(v, exact=False), best_bound_a(v, exact=False, coarse=True))
