@@ -44,8 +44,9 @@ def test_documents_hold_each_section_once():
 def test_ci_runs_readme_test_command():
     readme = (ROOT / "README.md").read_text()
     ci = (ROOT / ".ci" / "run").read_text()
-    assert "pip install '.[test]' && python -m pytest -q" in readme
-    assert "python -m pip install -q '.[test]'" in ci and "python -m pytest -q" in ci
+    command = "python -m pytest -q -n auto --maxprocesses 4"
+    assert f"pip install '.[test]' && {command}\n" in readme
+    assert "python -m pip install -q '.[test]'" in ci and f"{command}\n" in ci
 
 
 def test_documents_cite_only_files_the_clone_holds():
