@@ -283,15 +283,16 @@ def _choose(
     what: str,
 ) -> tuple[list[int], int, bool]:
     """The search's choice, the nodes it visited and whether it had to leave the byte cap (fewest bytes
-    then); NotCheaper under a finite ceiling, CheckFailed (naming the limiting table) when the budget
-    cannot be met at all."""
+    then, if that costs less than a finite ceiling: NotCheaper when not), CheckFailed (naming the
+    limiting table) when the budget cannot be met at all."""
     choice, visited = search(bound, pieces, budget, fixed, objective=objective)
-    if choice is None and objective.ceiling < float("inf"):
-        raise NotCheaper(f"no sizing within the budget costs less than {objective.ceiling:g}")
     over_cap = False
     if choice is None and objective != BYTES:
         choice, more = search(bound, pieces, budget, fixed, objective=BYTES)
         visited, over_cap = visited + more, choice is not None
+    cost = lambda ch: sum(u.cost(c, objective.goal) for u, c in zip(pieces, ch))  # noqa: E731
+    if objective.ceiling < float("inf") and (choice is None or cost(choice) >= objective.ceiling):
+        raise NotCheaper(f"no sizing within the budget costs less than {objective.ceiling:g}")
     if choice is None:
         achievable, table = limiting_table(bound, pieces, fixed)
         raise CheckFailed(
@@ -314,7 +315,8 @@ def size(
 ) -> Sizing:
     """Size the named tables (others fixed) so the program's error bound stays within budget_steps,
     minimising the objective; when its byte cap cannot hold what the budget needs, the fewest bytes
-    (flagged over_cap). With a finite ceiling, NotCheaper instead when nothing under it meets both."""
+    (flagged over_cap). With a finite ceiling, NotCheaper instead when nothing under it meets the
+    budget (within the cap, or else at its fewest bytes)."""
     fixed = dict(fixed or {})
     fixed_errors = dict(fixed_errors or {})
     fixed_max = {n: max(e.total for e in errs) for n, errs in fixed_errors.items()}

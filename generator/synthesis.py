@@ -135,6 +135,8 @@ def _layout(v: Vehicle, *, flat: bool, ceiling: float = math.inf) -> Firmware:
         plain = _plain(v, flat=flat, ceiling=min(ceiling, _ceiling(split)))
     except (sizing.NotCheaper, CheckFailed):  # the split is the only design that meets the budget
         return split
+    if plain.over_cap:  # the split fits firmware.table_bytes_max
+        return split
     return split if (split.instructions, split.total_bytes) < (plain.instructions, plain.total_bytes) else plain
 
 
@@ -221,7 +223,7 @@ def _synthesise(v: Vehicle, des: program.Design, *, explain: bool = True, ceilin
         fwd_bound_mps2=fwd.bound_steps * fw.accel_lsb_mps2,
         fwd_budget_mps2=forward_budget(v),
         fingerprint=fingerprint(v),
-        over_cap=ff.over_cap or fwd.over_cap,
+        over_cap=ff.total_bytes + fwd.total_bytes > _cap(v),
         instructions=ff.instructions,
     )
 
@@ -236,28 +238,43 @@ class _Missed(Exception):
 
 def _size_both(v: Vehicle, des: program.Design, *, ceiling: float = math.inf) -> tuple[sizing.Sizing, sizing.Sizing]:
     """Feed-forward tables, then the forward function's own (M^-1) with the former fixed. Under the
-    instructions objective the byte cap covers both: when the feed-forward tables leave too little
-    room for the fewest forward bytes, they are sized again under the cap less those bytes."""
+    instructions objective the byte cap covers both: while the pair misses it, the feed-forward tables
+    are sized again under the cap less the fewest forward bytes with the last ones (those change with
+    them, hence a few rounds, then their fewest bytes); of the pairs within the cap the fewest
+    instructions (then bytes), else the fewest bytes (Firmware.over_cap then says so)."""
     fw = v.firmware
-    cap = fw.table_bytes_max if fw.sizing == "instructions" else float("inf")
     ff_names = [n for n in des.specs if n not in _forward_only(des)]
     ff_budget = fw.current_budget_a / fw.current_lsb_a
-    ff_what = f"{fw.current_budget_a:g} A"
-    objective = sizing.Objective(fw.sizing, cap, ceiling)
-    ff = _size(des.feedforward, des, ff_names, ff_budget, what=ff_what, objective=objective)
-    fwd = _size_forward(v, des, ff, cap - ff.total_bytes)
-    if ff.total_bytes + fwd.total_bytes > cap and fw.sizing == "instructions":
-        fewest = _size_forward(v, des, ff, 0.0)  # the forward tables' fewest bytes with these
-        ff = _size(
-            des.feedforward,
-            des,
-            ff_names,
-            ff_budget,
-            what=ff_what,
-            objective=sizing.Objective(fw.sizing, cap - fewest.total_bytes, ceiling),
-        )
-        fwd = _size_forward(v, des, ff, cap - ff.total_bytes)
-    return ff, fwd
+
+    def pair(room: float) -> tuple[sizing.Sizing, sizing.Sizing]:
+        objective = sizing.Objective(fw.sizing, room, ceiling)
+        ff = _size(des.feedforward, des, ff_names, ff_budget, what=f"{fw.current_budget_a:g} A", objective=objective)
+        return ff, _size_forward(v, des, ff, _cap(v) - ff.total_bytes)
+
+    pairs = [pair(_cap(v))]
+    reserves: set[int] = set()
+    for _ in range(_RESIZE_ROUNDS):
+        ff, fwd = pairs[-1]
+        if ff.total_bytes + fwd.total_bytes <= _cap(v) and not ff.over_cap:
+            break
+        reserve = _size_forward(v, des, ff, 0.0).total_bytes  # the fewest forward bytes with these
+        if reserve in reserves:
+            break
+        reserves.add(reserve)
+        pairs.append(pair(_cap(v) - reserve))
+    total = lambda p: p[0].total_bytes + p[1].total_bytes  # noqa: E731
+    if all(total(p) > _cap(v) for p in pairs):
+        pairs.append(pair(0.0))  # fewest feed-forward bytes: fits whenever sizing = "bytes" would
+    within = [p for p in pairs if total(p) <= _cap(v)]
+    return min(within, key=lambda p: (p[0].instructions, total(p))) if within else min(pairs, key=total)
+
+
+_RESIZE_ROUNDS = 4  # feed-forward re-sizings under a shrinking room before the cap is given up
+
+
+def _cap(v: Vehicle) -> float:
+    """The byte cap on all tables: firmware.table_bytes_max under the instructions objective, else none."""
+    return v.firmware.table_bytes_max if v.firmware.sizing == "instructions" else math.inf
 
 
 def _wheels_goal(v: Vehicle) -> float:

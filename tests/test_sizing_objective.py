@@ -7,12 +7,14 @@ import dataclasses
 import itertools
 
 import numpy as np
+import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from kinetab.generator import ops, sizing, synthesis
 from kinetab.generator import tables as tb
 
 from tests.firmware_fixtures import demo_firmware
+from tests.helpers import invented, vehicle_from
 
 KIND_SHAPES = {0: (0, 0), 1: (1, 6), 2: (4, 4), 3: (64, 0)}  # candidate -> (segments, shift): the four kinds
 
@@ -97,3 +99,21 @@ def test_cap_holds_both_functions():
     for cap in (500.0, 800.0, 1200.0):
         fw = synthesis.synthesise(dataclasses.replace(v, firmware=dataclasses.replace(v.firmware, table_bytes_max=cap)))
         assert not fw.over_cap and fw.total_bytes <= cap and fw.ff_bound_a <= v.firmware.current_budget_a
+
+
+@pytest.mark.parametrize("seed", [111, 40])
+def test_the_cap_flag_is_the_tables_total_against_the_cap(seed):
+    """Regression (invented vehicle 111 at table_bytes_max 210): the tables took 206 bytes and were
+    flagged over the cap, because the feed-forward tables had fallen back to their fewest bytes under
+    the room left for the forward ones. The flag is now the total of every table against the cap, and a
+    cap that holds the fewest-bytes sizing (sizing = "bytes") is never flagged."""
+    doc, _ = invented(seed, "veh")
+    doc["firmware"]["sizing"] = "bytes"
+    fewest = synthesis.synthesise(vehicle_from(doc)).total_bytes
+    doc["firmware"]["sizing"] = "instructions"
+    for cap in (fewest // 2, fewest, fewest + 4):
+        doc["firmware"]["table_bytes_max"] = cap
+        fw = synthesis.synthesise(vehicle_from(doc))
+        total = sum(t.bytes for t in fw.tables.values())
+        assert fw.over_cap == (total > cap), (cap, total)
+        assert cap < fewest or not fw.over_cap, (cap, total, fewest)
