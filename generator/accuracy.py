@@ -16,7 +16,7 @@ from . import bodyframe, dynamics, emulate, interface, region
 from .interface import FF_IN
 from .synthesis import Firmware
 from .tablespecs import Limits
-from .vectors import feedforward_inputs
+from .vectors import feedforward_inputs, speed_edges
 from .vehicle import Vehicle
 
 
@@ -79,9 +79,10 @@ def inside_envelope(v: Vehicle, lim: Limits, rows: np.ndarray) -> np.ndarray:
 
 
 def envelope_points(fw: Firmware, count: int, seed: int) -> dict[str, np.ndarray]:
-    """Corners and deadband cases (inside the envelope only) plus `count` random points."""
+    """Corners, deadband and speed-edge cases (inside the envelope only) plus `count` random points."""
     lim, st = fw.design.limits, interface.ff_in(fw.vehicle)
-    rows = interface.fields_to_rows(st, feedforward_inputs(lim, count + 3000, seed, vehicle=fw.vehicle))
+    inp = feedforward_inputs(lim, count + 3000, seed, vehicle=fw.vehicle, edges=speed_edges(fw.design))
+    rows = interface.fields_to_rows(st, inp)
     return interface.rows_to_fields(st, rows[inside_envelope(fw.vehicle, lim, rows)])
 
 

@@ -67,12 +67,38 @@ def _special_rows(lim: Any, lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
     return np.concatenate([dead, outside])
 
 
+def _edge_rows(hi: np.ndarray, edges: tuple[int, ...]) -> np.ndarray:
+    """Each wheel one step before, at and after each speed edge (either sign), the other wheel at the
+    opposite speed, at rest or alike, at half payload: where a speed table changes piece."""
+    cols = FF_IN.columns
+    speed = [cols.index(c) for c in FF_IN.member("speed").columns]
+    values = np.unique([s * (e + d) for e in edges for d in (-1, 0, 1) for s in (-1, 1)])
+    pairs = [(x, y) for x in values for y in (-x, 0, x)]
+    rows = np.zeros((2 * len(pairs), len(cols)), dtype=np.int64)
+    for k, (x, y) in enumerate(pairs):
+        rows[2 * k, speed], rows[2 * k + 1, speed] = (x, y), (y, x)
+    rows[:, cols.index("payload")] = hi[cols.index("payload")] // 2
+    return rows
+
+
+def speed_edges(design: Any) -> tuple[int, ...]:
+    """Where the design's speed tables change piece (the deadband's and the Stribeck split's edges)."""
+    ends = {p.x1 for t in design.specs.values() if t.source == "speed" for p in t.pieces[:-1]}
+    return tuple(sorted(ends - {design.limits.deadband}))
+
+
 def feedforward_inputs(
-    lim: Any, count: int = 10_000, seed: int = 20261202, *, vehicle: Vehicle | None = None
+    lim: Any,
+    count: int = 10_000,
+    seed: int = 20261202,
+    *,
+    vehicle: Vehicle | None = None,
+    edges: tuple[int, ...] = (),
 ) -> dict[str, np.ndarray]:
-    """Inputs in firmware steps: every corner, the deadband edges, clamping cases, then random points; in
-    the vehicle's input frame (body-frame inputs: the same cases turned into it, plus its own corners)."""
-    wheels = _wheel_inputs(lim, count, seed)
+    """Inputs in firmware steps: every corner, the deadband edges and the other speed `edges`
+    (speed_edges), clamping cases, then random points; in the vehicle's input frame (body-frame
+    inputs: the same cases turned into it, plus its own corners)."""
+    wheels = _wheel_inputs(lim, count, seed, edges)
     if vehicle is None or not bodyframe.is_body(vehicle):
         return wheels
     return _body_inputs(vehicle, lim, wheels)
@@ -91,11 +117,12 @@ def _body_inputs(v: Vehicle, lim: Any, wheels: dict[str, np.ndarray]) -> dict[st
     return interface.rows_to_fields(st, np.concatenate([corners, beyond, converted]).astype(np.int64))
 
 
-def _wheel_inputs(lim: Any, count: int, seed: int) -> dict[str, np.ndarray]:
+def _wheel_inputs(lim: Any, count: int, seed: int, edges: tuple[int, ...] = ()) -> dict[str, np.ndarray]:
     """feedforward_inputs in wheel steps."""
     rng = np.random.default_rng(seed)
     lo, hi = interface.column_edges(lim, FF_IN)
-    fixed = np.concatenate([_corners(lo, hi), _special_rows(lim, lo, hi), _region_rows(lim, lo, hi)])
+    special = [_special_rows(lim, lo, hi), _region_rows(lim, lo, hi), _edge_rows(hi, edges)]
+    fixed = np.concatenate([_corners(lo, hi), *special])
     n = max(count - len(fixed), 0)
     rand = np.stack([rng.integers(a, b + 1, n) for a, b in zip(lo, hi)], axis=-1)
     db = lim.deadband
@@ -107,7 +134,7 @@ def _wheel_inputs(lim: Any, count: int, seed: int) -> dict[str, np.ndarray]:
 
 def feedforward_table(fw: Any, count: int = 10_000) -> np.ndarray:
     """Rows of inputs and expected outputs (the FF_OUT columns, then the clamp bits), int64."""
-    inp = feedforward_inputs(fw.design.limits, count, vehicle=fw.vehicle)
+    inp = feedforward_inputs(fw.design.limits, count, vehicle=fw.vehicle, edges=speed_edges(fw.design))
     out = emulate.run(fw.design.feedforward, fw.tables, inp)
     return np.column_stack(
         [

@@ -14,7 +14,7 @@ import math
 
 import numpy as np
 import pytest
-from kinetab.generator import accuracy, interface, synthesis, tablespecs
+from kinetab.generator import accuracy, interface, synthesis, tablespecs, vectors
 from kinetab.generator import tables as tb
 
 from tests.csteps import assert_host_c_within_bound, needs_gcc
@@ -165,3 +165,16 @@ def test_the_split_c_is_bit_exact_and_within_its_proven_bound_around_both_edges(
     rows = rows[accuracy.inside_envelope(fw.vehicle, lim, rows)]
     assert len(rows) > 500
     assert_host_c_within_bound(fw, interface.rows_to_fields(interface.FF_IN, rows), tmp_path)
+
+
+def test_the_golden_vectors_sit_on_either_side_of_the_stribeck_edge_on_both_wheels():
+    """The golden vectors' fixed rows held the deadband's edges only; a split design's firmware tests
+    (and `verify`) now also see each wheel one step before, at and after the Stribeck edge, both signs."""
+    fw = next(f for f in (invented(s, "veh")[1] for s in SPLIT_SEEDS) if f.design.stribeck)
+    edge = fw.tables["friction"].spec.pieces[0].x1
+    assert edge in vectors.speed_edges(fw.design)
+    speed = [interface.FF_IN.columns.index(c) for c in interface.FF_IN.member("speed").columns]
+    rows = vectors.feedforward_table(fw, 0)[:, speed]
+    for value in (edge - 1, edge, edge + 1, -edge - 1, -edge, -edge + 1):
+        for wheel in (0, 1):
+            assert np.any(rows[:, wheel] == value), (value, wheel)
