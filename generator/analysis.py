@@ -220,9 +220,8 @@ def _error_step(op: Op, specs: Mapping[str, tb.TableSpec], mag: dict[str, float]
       lookup: the table's worst error;  backdrive: e*max(1, k) + |k_int - k|(|A| + e) + 1/2, or with a
       factor table T (error e_T): (|A| + e) e_T + e*max|T| + 1/2;
       store: e/2^s + 1/2 when s > 0.
-    Records the result's magnitude in `mag`; signals known to be exact go in `zero` and their terms are
-    left out (adding an exact 0.0 changes no float), which makes the bound fast enough for sizing."""
-    e = lambda err, name: 0.0 if name in zero else err[name]  # noqa: E731
+    Records the result's magnitude in `mag`; signals known to be exact go in `zero`: they get no step
+    (ErrorBound starts them at 0.0) and sums leave them out, which makes the bound fast enough for sizing."""
     match op:
         case Clamp() | PairClamp() | Mix():  # exact: the model is evaluated at the clamped input (or pair)
             # a Mix's distance from the exact wheel value is an input resolution (bodyframe.Conversion.deviation)
@@ -232,7 +231,7 @@ def _error_step(op: Op, specs: Mapping[str, tb.TableSpec], mag: dict[str, float]
         case Lookup():
             scale = 2.0 ** specs[op.table].frac_bits
             mag[op.dst] = specs[op.table].max_abs * scale
-            return lambda err, E: np.asarray(E[op.table]) * scale
+            return lambda err, E: E[op.table] * scale  # a float, or an array of candidates
         case Mul():
             ma, mb, b = mag[op.a], mag[op.b], op.b
             scale, half = 2.0**-op.shift, 0.5 if op.shift > 0 else 0.0
@@ -240,7 +239,8 @@ def _error_step(op: Op, specs: Mapping[str, tb.TableSpec], mag: dict[str, float]
             if op.a in zero and b in zero and half == 0:
                 zero.add(op.dst)
                 return None
-            return lambda err, E: (ma * e(err, b) + mb * e(err, op.a) + e(err, op.a) * e(err, b)) * scale + half
+            a = op.a
+            return lambda err, E: (ma * err[b] + mb * err[a] + err[a] * err[b]) * scale + half
         case Scale():
             mk = float(abs(op.k))
             scale, half = 2.0**-op.shift, 0.5 if op.shift > 0 else 0.0
@@ -248,7 +248,7 @@ def _error_step(op: Op, specs: Mapping[str, tb.TableSpec], mag: dict[str, float]
             if op.a in zero and half == 0:
                 zero.add(op.dst)
                 return None
-            return lambda err, E: (mk * e(err, op.a)) * scale + half
+            return lambda err, E: (mk * err[op.a]) * scale + half
         case Sum():
             mag[op.dst] = sum(mag[n] for _, n in op.terms)
             live = [n for _, n in op.terms if n not in zero]
@@ -257,28 +257,26 @@ def _error_step(op: Op, specs: Mapping[str, tb.TableSpec], mag: dict[str, float]
                 return None
             return _sum_step(live)
         case Backdrive():
-            return _backdrive_step(op, specs, mag, e)
+            return _backdrive_step(op, specs, mag)
         case Store():
             scale, half = 2.0**-op.shift, 0.5 if op.shift > 0 else 0.0
             mag[op.dst] = mag[op.src] * scale
-            return lambda err, E: e(err, op.src) * scale + half
+            return lambda err, E: err[op.src] * scale + half
         case _:
             assert_never(op)
 
 
-def _backdrive_step(
-    op: Backdrive, specs: Mapping[str, tb.TableSpec], mag: dict[str, float], e: Callable[[Any, str], Any]
-) -> Step:
+def _backdrive_step(op: Backdrive, specs: Mapping[str, tb.TableSpec], mag: dict[str, float]) -> Step:
     """A constant factor k (its fixed-point value k_int): e*max(1, k) + |k_int - k|(|A| + e) + 1/2; a factor
     table T (worst error e_T): (|A| + e) e_T + e*max|T| + 1/2 (the product's terms, as for a Mul)."""
     ms = mag[op.src]
     if op.table is not None:
         gain, table = max(1.0, specs[op.table].max_abs), op.table
         mag[op.dst] = ms * gain
-        return lambda err, E: (ms + e(err, op.src)) * np.asarray(E[table]) + e(err, op.src) * gain + 0.5
+        return lambda err, E: (ms + err[op.src]) * E[table] + err[op.src] * gain + 0.5
     gain, dk = max(1.0, op.k_real), abs(op.k * 2.0**-op.shift - op.k_real)
     mag[op.dst] = ms * gain
-    return lambda err, E: e(err, op.src) * gain + dk * (ms + e(err, op.src)) + 0.5
+    return lambda err, E: err[op.src] * gain + dk * (ms + err[op.src]) + 0.5
 
 
 def _sum_step(live: list[str]) -> Step:
@@ -297,17 +295,18 @@ def _sum_step(live: list[str]) -> Step:
 class ErrorBound:
     """The error bound of one program as a callable: table errors -> worst output error in steps."""
 
-    steps: tuple[tuple[Op, Step], ...]
+    steps: tuple[tuple[str, Step], ...]  # the signal each step writes, and the step
     outputs: tuple[str, ...]  # the output columns, which the program's stores write
+    exact: tuple[str, ...] = ()  # the signals known to be exact: no step, error 0.0
 
     def __call__(self, table_error: TableErrors) -> Any:
-        err: dict[str, Any] = {}
-        for op, step in self.steps:
-            err[op.dst] = step(err, table_error)
+        err: dict[str, Any] = dict.fromkeys(self.exact, 0.0)
+        for dst, step in self.steps:
+            err[dst] = step(err, table_error)
         worst: Any = 0.0
         for column in self.outputs:
             if column in err:  # a program may store only some outputs (tests build such)
-                worst = np.maximum(worst, err[column])
+                worst = np.maximum(worst, err[column])  # floats stay floats until here (fast in sizing)
         return worst
 
 
@@ -319,8 +318,10 @@ def compile_bound(program: Program, specs: Mapping[str, tb.TableSpec]) -> ErrorB
     for op in program.ops:
         step = _error_step(op, specs, mag, zero)
         if step is not None:
-            steps.append((op, step))
-    return ErrorBound(tuple(steps), program.call.outputs.columns)
+            steps.append((op.dst, step))
+    if len({op.dst for op in program.ops}) != len(program.ops):
+        raise ValueError("a program's ops must each write a signal of their own")  # an exact one stays 0.0
+    return ErrorBound(tuple(steps), program.call.outputs.columns, tuple(sorted(zero)))
 
 
 def error_bound(program: Program, specs: Mapping[str, tb.TableSpec], table_error: TableErrors) -> Any:

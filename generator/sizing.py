@@ -180,7 +180,7 @@ def _search(
         u = pieces[k]
         errs = np.array([e.total for e in u.cands.errors])
         trial = [pieces[j].error(c) for j, c in enumerate(choice)] + [errs] + best_err[k + 1 :]
-        bounds = np.broadcast_to(bound(_merge(pieces, trial, fixed)), errs.shape)
+        bounds = _each(bound(_merge(pieces, trial, fixed)), errs.shape)
         for c in orders[k]:
             if used + u.cost(c, goal) + rest_cost[k + 1] >= best["cost"]:
                 break
@@ -189,6 +189,11 @@ def _search(
 
     dfs(0, [], 0, 0)
     return best["choice"], visited
+
+
+def _each(bounds: Any, shape: tuple[int, ...]) -> np.ndarray:
+    """The bound per candidate: as computed, or one value for all (a unit whose error no output sees)."""
+    return bounds if np.shape(bounds) == shape else np.broadcast_to(bounds, shape)
 
 
 def _suffix(values: list[int]) -> list[int]:
