@@ -351,8 +351,13 @@ def _note(e: dict[str, Any], doc: dict[str, Any]) -> str:
             "they may be off by"
         )
     if e["written"] and doc.get("refit_held"):
-        note += "; value of a refit with the unwritten ones at the model's values"
-    if e["imprecise"] is not None:
+        note += "; value of a refit with the unwritten ones at the model's values (its move counted in +-)"
+    if e["imprecise"] is not None and rel is not None and rel <= identifiability.REL_TOL:
+        note = (
+            f"not written: the logs give it to +-{100 * rel:.2g} %, but holding the unwritten ones at the "
+            f"model's values moves it: +-{100 * e['imprecise']:.2g} % together, over {REL_PERCENT} %"
+        )
+    elif e["imprecise"] is not None:
         note = f"not written: known only to +-{100 * e['imprecise']:.2g} % (1 sigma), over {REL_PERCENT} %"
     elif e["parameter"] == "friction.stribeck_speed" and not e["written"]:
         note = "not written: the decay of the breakaway excess, which these logs do not give"
