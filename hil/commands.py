@@ -52,6 +52,14 @@ def _check_period(command: str, period: float) -> None:
         raise UserError(f"{command}: --period: expected between 0.1 ms and 100 ms")
 
 
+def _check_lifted(command: str, rig: str, situation: dict[str, float]) -> None:
+    """A wheels-up rig leaves gravity out of the model: a pitch or roll there would be ignored, so it is
+    refused (one line, exit 2) rather than written into a plan that seems to test it."""
+    tilted = [f"--{name}" for name in ("pitch", "roll") if situation.get(name)]
+    if rig == "wheels-up" and tilted:
+        raise UserError(f"{command}: {' and '.join(tilted)}: a wheels-up rig has no slope (gravity is left out)")
+
+
 def _duration_option(text: str) -> Any:
     """The length option of the commands that write plans (bare number: s), 60 s by default."""
     return click.option(
@@ -297,6 +305,7 @@ def plan(
 
     v = model.load(model_path)
     _check_period("bench plan", period)
+    _check_lifted("bench plan", rig, situation)
     if axis == "lift":
         _lift_plan(v, Path(out_path), period_s=period, payload_kg=lift_payload, for_fit=for_fit)
         return

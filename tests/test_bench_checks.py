@@ -202,6 +202,19 @@ def test_bench_plan_takes_pitch_and_roll_and_names_ranges(bench, tmp_path, capsy
     assert code == 2 and "--payload" in err and "payload.mass_max" in err and "--pitch" not in err
 
 
+def test_a_wheels_up_plan_refuses_a_pitch_or_roll_it_would_ignore(bench, tmp_path, capsys):
+    """Regression (a trial): `bench plan --rig wheels-up --pitch 3 deg` wrote the pitch into a plan for a
+    rig that leaves gravity out of the model. Now one line, exit 2, no plan written."""
+    _, path, _ = bench
+    out = tmp_path / "up.csv"
+    args = ["bench", "plan", str(path), "-o", str(out), "--duration", "6", "--rig", "wheels-up"]
+    code, _, err = run([*args, "--pitch", "1 deg", "--roll", "1 deg"], capsys)
+    assert code == 2 and "--pitch and --roll" in err and "wheels-up" in err and len(err.strip().splitlines()) == 1
+    assert not out.exists()
+    code, _, err = run([*args, "--payload", "1 kg"], capsys)
+    assert code == 0 and out.exists(), err
+
+
 def test_campaign_writes_plans_inside_the_envelope_and_the_steps(bench, tmp_path, capsys):
     folder, path, _ = bench
     out_dir = tmp_path / "camp"
