@@ -22,6 +22,16 @@ def excursion(plan: planfile.Plan, track_m: float) -> tuple[float, float, float]
     return float(max(x.max(), 0.0)), float(max(-x.min(), 0.0)), float(np.max(np.abs(y)))
 
 
+def _path_words(plan: planfile.Plan) -> str:
+    """What the plan's wheel speeds do, in words: turn (they differ) and spin (opposite signs), or not.
+    Regression (a trial): a 10 s plan that never turned was described as turning and spinning."""
+    right, left = plan.columns["speed_right"], plan.columns["speed_left"]
+    tiny = 1e-9 * max(float(np.max(np.abs(right))), float(np.max(np.abs(left))), 1e-12)
+    turns = bool(np.any(np.abs(right - left) > tiny))
+    spins = bool(np.any((right * left < 0) & (np.minimum(np.abs(right), np.abs(left)) > tiny)))
+    return "turns and spins" if spins else "turns" if turns else "drives straight, without turning"
+
+
 def _needs(c: Candidate, plan: planfile.Plan, v: Vehicle) -> str:
     if c.rig == "wheels-up":
         wheels = "both drive wheels" if v.skid is None else "every driven wheel"
@@ -35,7 +45,7 @@ def _needs(c: Candidate, plan: planfile.Plan, v: Vehicle) -> str:
         "it stands on)"
         if c.pitch_rad
         else f"a level floor with {ahead + room:.1f} m clear ahead, {back + room:.1f} m behind and "
-        f"{side + room:.1f} m to either side (the plan turns and spins)"
+        f"{side + room:.1f} m to either side (the plan {_path_words(plan)})"
     )
     load = f"a payload of {c.payload_kg:.4g} kg placed where the model's payload sits" if c.payload_kg else "no payload"
     return f"{ground}; {load}"

@@ -385,6 +385,19 @@ def test_plans_on_a_slope_drive_straight_and_the_campaign_states_the_room_a_turn
     assert ahead == pytest.approx(radius, rel=0.01) and side == pytest.approx(radius, rel=0.01) and behind == 0
 
 
+def test_campaign_text_says_what_the_plans_wheel_speeds_do():
+    """Regression (a trial): CAMPAIGN.txt said every floor plan "turns and spins", also a short one whose
+    wheel speeds were equal throughout. The words now follow the speeds: both signs at once is a spin."""
+    n = 10
+    cols = {c: np.zeros(n) for c in planfile.PLAN_COLUMNS}
+    cols["t"] = np.arange(n) * 0.01
+    said = {}
+    for name, (right, left) in {"straight": (0.3, 0.3), "turn": (0.4, 0.2), "spin": (0.3, -0.3)}.items():
+        cols["speed_right"], cols["speed_left"] = np.full(n, right), np.full(n, left)
+        said[name] = campaigntext._path_words(planfile.Plan(dict(cols), ["x"] * n))
+    assert said == {"straight": "drives straight, without turning", "turn": "turns", "spin": "turns and spins"}
+
+
 @pytest.mark.parametrize("seed", [1, 2, 3])
 def test_the_simulated_vehicle_coasts_as_an_accurate_ode_solver_integrates_it(seed):
     """A skid-steer spinning down with its motors off (turning resistance through its ramp, friction
