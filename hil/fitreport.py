@@ -35,7 +35,7 @@ def checked_logs(
 ) -> list[Any]:
     """Read the logs (drive logs, or with `read` another kind: liftlog.read_log); a log from another model
     or fingerprint is exit 2 (a warning when accepted on purpose); an incomplete run is a warning naming
-    how far it went."""
+    how far it went, and so is a --rig that overrides the rig the run recorded."""
     from kinetab.generator import synthesis
 
     mine, logs = synthesis.fingerprint(v), []
@@ -49,7 +49,10 @@ def checked_logs(
         other, short = benchdata.origin_problems(v, log, mine)
         if other and not accept_other_model:
             raise UserError(f"{other}; pass --accept-other-model to use it anyway")
-        for text in (other, short):
+        recorded = benchdata.side_file(p).get("rig") if rig is not None and read is None else None
+        overridden = f"{p}: taken as {rig} (--rig), though its run recorded {recorded}" if recorded != rig else ""
+        overridden = overridden if recorded is not None else ""
+        for text in (other, short, overridden):
             if text:
                 click.echo(f"warning: {text}", err=True)
         logs.append(log)

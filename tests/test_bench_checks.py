@@ -448,3 +448,13 @@ def test_the_fit_names_the_verify_check_a_written_model_would_fail(bench):
     problems = fitreport.gate_problems(tight)
     assert len(problems) == 1 and problems[0].startswith("current step:") and "current_step_margin" in problems[0]
     assert fitreport.gate_problems(v) == []
+
+
+def test_compare_warns_when_rig_overrides_the_one_the_run_recorded(bench, capsys):
+    """Regression (a trial): `bench compare --rig wheels-up` on an on-floor log failed with an RMS of
+    hundreds of mA and no word that the rig it was judged on was not the one it ran on."""
+    folder, path, log = bench
+    code, _, err = run(["bench", "compare", str(path), str(log), "--rig", "wheels-up"], capsys)
+    assert code in (0, 1) and f"warning: {log}: taken as wheels-up (--rig), though its run recorded on-floor" in err
+    code, _, err = run(["bench", "compare", str(path), str(log), "--rig", "on-floor"], capsys)
+    assert code in (0, 1) and "--rig" not in err
