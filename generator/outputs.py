@@ -239,7 +239,7 @@ def report(
         "multiplies_64bit": {"products": fw.products64(), "note": products_note(fw)},
         "sizing": {
             "goal": fw.vehicle.firmware.sizing,
-            "table_bytes_max": fw.vehicle.firmware.table_bytes_max,
+            "table_bytes_max": int(fw.vehicle.firmware.table_bytes_max),  # a whole number (model.py)
             "over_cap": fw.over_cap,
             "note": sizing_note(fw),
         },
