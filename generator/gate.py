@@ -39,7 +39,8 @@ def budget_check(fw: Firmware) -> Check:
     if form is not None:
         ok = ok and form.bound_mps2 <= fw.fwd_budget_mps2
         detail += f", at the look-ahead point {form.bound_mps2:.4g} m/s^2"
-    detail += f", budget {fw.fwd_budget_mps2:.4g} m/s^2 (firmware.accel_budget)"
+    source = "firmware.accel_budget" if f.accel_budget_mps2 is not None else "default: from firmware.current_budget"
+    detail += f", budget {fw.fwd_budget_mps2:.4g} m/s^2 ({source})"
     lt = fw.vehicle.lift
     if fw.lift is not None and lt is not None:
         ok = ok and fw.lift.bound_a <= lt.current_budget_a

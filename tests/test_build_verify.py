@@ -48,6 +48,8 @@ def test_verify_fresh_with_reports(built, tmp_path, capsys):
     assert {"name", "segments", "q_format", "bytes", "max_error"} <= set(doc["tables"][0])
     assert sum(t["bytes"] for t in doc["tables"]) == doc["total_bytes"]
     assert '"table_bytes_max": 2048,' in rep.read_text()  # a whole number of bytes, as the model says it
+    budget = next(c["detail"] for c in doc["checks"] if c["name"] == "error budget")
+    assert "m/s^2 (default: from firmware.current_budget)" in budget  # the demo sets no firmware.accel_budget
     suite = ET.parse(jun).getroot()
     assert suite.tag == "testsuite" and suite.get("failures") == "0" and int(suite.get("tests")) == 5
     assert [c.get("name") for c in suite] == [c["name"] for c in doc["checks"]]
