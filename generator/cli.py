@@ -50,7 +50,7 @@ def init(path: str, force: bool, skid: bool) -> None:
     text = resources.files(__package__ + ".demos").joinpath(demo).read_text(encoding="utf-8")
     name, stem = target.stem, demo.removesuffix(".toml")
     if model.NAME_PATTERN.fullmatch(name) and name not in model.C_KEYWORDS:
-        text = text.replace(f'name = "{stem}"', f'name = "{name}"', 1)
+        text = text.replace(f'name = "{stem}"', f'name = "{name}"', 1).replace(f"{stem}_lift()", f"{name}_lift()")
         note = f"C prefix '{name}' from the file name"
     elif name in model.C_KEYWORDS:
         note = f"'{name}' is a C or C++ keyword, so the C prefix stays '{stem}'"

@@ -35,7 +35,7 @@ def test_version(capsys):
 
 def test_init_writes_loadable_model_and_refuses_overwrite(tmp_path, capsys):
     target = tmp_path / "cart.toml"
-    demo = DEMO_PATH.read_text().replace('name = "larkspur"', 'name = "cart"')
+    demo = DEMO_PATH.read_text().replace('name = "larkspur"', 'name = "cart"').replace("larkspur_lift()", "cart_lift()")
     run_ok(["init", str(target)], capsys)
     assert target.read_text() == demo
     assert "INVENTED DEMO" in target.read_text()
@@ -51,6 +51,8 @@ def test_init_names_the_model_after_its_file(tmp_path, capsys):
     """Regression: `init cart.toml` wrote name = "larkspur", so the tour's cart_ff.h never appeared."""
     out = run_ok(["init", str(tmp_path / "cart.toml")], capsys)
     assert model.load(tmp_path / "cart.toml").name == "cart" and "from the file name" in out
+    text = (tmp_path / "cart.toml").read_text()  # the lift comment names the function build would write
+    assert "cart_lift()" in text and "larkspur_" not in text
     out = run_ok(["init", str(tmp_path / "My Cart.toml")], capsys)
     assert model.load(tmp_path / "My Cart.toml").name == "larkspur" and "stays 'larkspur'" in out
     out = run_ok(["init", str(tmp_path / "int.toml")], capsys)  # a C keyword, though it matches the pattern
