@@ -181,6 +181,8 @@ def compare(
         )
         return
     if plot_path:
+        if Path(plot_path).suffix.lower() != ".png":
+            raise UserError(f"bench compare: --plot {plot_path}: the plot is a PNG; give a file name ending in .png")
         outputs.check_target(Path(plot_path))
     (log,) = fitreport.checked_logs(v, [Path(log_path)], rig=rig, accept_other_model=accept_other_model)
     doc = cmp.compare(v, log, tolerance_a=tolerance)

@@ -5,6 +5,7 @@ vehicle the test draws (random within plausible ranges), with logs made in-proce
 from __future__ import annotations
 
 import json
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -119,13 +120,14 @@ def test_an_aborted_run_is_named_with_how_far_it_went(bench, tmp_path, capsys):
     assert "incomplete run: 3000 of 60000 samples (fault: fifo dry" in err and out
 
 
-@pytest.mark.parametrize("where", ["file/x.png", "/proc/kinetab-x.png"])
+@pytest.mark.parametrize("where", ["file/x.png", "/proc/kinetab-x.png", "x.foo"])
 def test_compare_plot_into_an_unwritable_place_is_one_line_before_any_analysis(bench, capsys, where, tmp_path):
     folder, path, log = bench
     (tmp_path / "file").write_text("a file, not a folder")
     target = where if where.startswith("/") else str(tmp_path / where)
     code, out, err = run(["bench", "compare", str(path), str(log), "--plot", target], capsys)
     assert code == 2 and out == "" and len(err.strip().splitlines()) == 1 and "Traceback" not in err
+    assert not Path(target).exists()  # x.foo: a PNG under another name was written (regression, a trial)
 
 
 def test_compare_plot_makes_its_folder_and_titles_the_verdict(bench, tmp_path, capsys):
