@@ -52,11 +52,32 @@ def checked_logs(
         recorded = benchdata.side_file(p).get("rig") if rig is not None and read is None else None
         overridden = f"{p}: taken as {rig} (--rig), though its run recorded {recorded}" if recorded != rig else ""
         overridden = overridden if recorded is not None else ""
-        for text in (other, short, overridden):
+        beyond = _beyond_envelope(v, log) if read is None else ""
+        for text in (other, short, overridden, beyond):
             if text:
                 click.echo(f"warning: {text}", err=True)
         logs.append(log)
     return logs
+
+
+def _beyond_envelope(v: Any, log: Any) -> str:
+    """Where a drive log's setpoints pass the model's envelope (a log from another vehicle, accepted on
+    purpose): a warning naming the limits, or "". Regression (a trial): a small vehicle's fit took a big
+    one's logs at twenty times its payload with no word but the model name's."""
+    env, empty = v.envelope, np.zeros(0)
+    sp = lambda *names: np.abs(np.concatenate([np.ravel(log.setpoint.get(n, empty)) for n in names]))  # noqa: E731
+    limits = [
+        ("speed", "envelope.speed_max", "m/s", 1.0, sp("speed_right", "speed_left"), env.speed_max_mps),
+        ("payload", "payload.mass_max", "kg", 1.0, sp("payload_kg"), v.payload.mass_max_kg),
+        ("pitch", "envelope.pitch_max", "deg", 180 / np.pi, sp("pitch_rad"), env.pitch_max_rad),
+        ("roll", "envelope.roll_max", "deg", 180 / np.pi, sp("roll_rad"), env.roll_max_rad),
+    ]
+    past = [
+        f"{what} {np.max(x) * k:.4g} {unit} > {key} {lim * k:.4g} {unit}"
+        for what, key, unit, k, x, lim in limits
+        if x.size and np.max(x) > lim * (1 + 1e-6) + 1e-12
+    ]
+    return f"{log.path}: the run went beyond this model's envelope ({'; '.join(past)})" if past else ""
 
 
 def _digest(path: Path) -> str:

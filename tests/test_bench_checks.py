@@ -10,7 +10,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 from kinetab.generator import dynamics, interface, model, outputs
-from kinetab.hil import campaign, planfile, planner
+from kinetab.hil import benchdata, campaign, planfile, planner
 
 import kinetab
 from tests.benchsim import run_plan, write_log
@@ -460,3 +460,25 @@ def test_compare_warns_when_rig_overrides_the_one_the_run_recorded(bench, capsys
     assert code in (0, 1) and f"warning: {log}: taken as wheels-up (--rig), though its run recorded on-floor" in err
     code, _, err = run(["bench", "compare", str(path), str(log), "--rig", "on-floor"], capsys)
     assert code in (0, 1) and "--rig" not in err
+
+
+def test_an_accepted_log_from_beyond_the_models_envelope_is_named_in_a_warning(bench, tmp_path, capsys):
+    """Regression (a trial): a small vehicle's fit took a big one's logs (--accept-other-model), at twenty
+    times its payload and faster than its speed_max, warning only that the model's name differed."""
+    import tomllib
+
+    _, path, log = bench
+    ran = benchdata.read_log(log, None, model.load(path)).setpoint
+    fastest = float(max(np.max(np.abs(ran["speed_right"])), np.max(np.abs(ran["speed_left"]))))
+    doc = tomllib.loads(path.read_text())
+    doc["name"] = "tug"
+    speed_max = 2 * fastest / 3  # the log drove faster than this model may
+    doc["envelope"]["speed_max"] = f"{speed_max} m/s"
+    doc["friction"]["deadband"] = f"{speed_max / 20} m/s"
+    other = tmp_path / "tug.toml"
+    other.write_text(to_toml(doc))
+    code, out, err = run(["bench", "compare", str(other), str(log), "--accept-other-model"], capsys)
+    assert code in (0, 1) and f"warning: {log}: the run went beyond this model's envelope (speed " in err
+    assert f"speed {fastest:.4g} m/s > envelope.speed_max {speed_max:.4g} m/s)" in err, err
+    code, out, err = run(["bench", "compare", str(path), str(log)], capsys)
+    assert "beyond this model's envelope" not in err
