@@ -160,16 +160,7 @@ def fit(v: Vehicle, logs: list[BenchLog]) -> Fit:
     fm = regressor.force_model(v, data)
     x0, (lo, hi) = fm.x0, fp.bounds(v)
     scale = fp.scales(v, x0)
-    verdict = _verdict(fm, x0, scale, logs, lo=lo, hi=hi)
-    m = _map(x0, scale, verdict)
-    p = _solve(fm, m, lo=lo, hi=hi, scale=scale)
-    for _ in range(2):  # classify again where the fit landed, where the residual is the noise
-        again = _verdict(fm, m.x(p), scale, logs, lo=lo, hi=hi)
-        if again.free == verdict.free and [g.members for g in again.groups] == [g.members for g in verdict.groups]:
-            break
-        verdict = again
-        m = _map(x0, scale, verdict)
-        p = _solve(fm, m, lo=lo, hi=hi, scale=scale)
+    verdict, m, p = _settled(fm, logs, scale, lo=lo, hi=hi)
     x = m.x(p)
     r = fm.residual(x)
     cov, measured = _covariances(fm, m, p, v=v, logs=logs, verdict=verdict, lo=lo, hi=hi)
@@ -179,9 +170,7 @@ def fit(v: Vehicle, logs: list[BenchLog]) -> Fit:
         fm, (x0, x), (cov, measured), free=verdict.free, imprecise=imprecise, bounds=(lo, hi), scale=scale
     )
     written = fp.vehicle_with(v, held_x)
-    kept = [j for j in verdict.free if fp.names(v)[j] not in refit]
-    shown = x.copy()
-    shown[kept] = held_x[kept]  # the values the file gets (those of the refit, where there is one)
+    shown = _shown(x, held_x, [j for j in verdict.free if fp.names(v)[j] not in refit])
     estimates = _estimates(x0, shown, cov, free=verdict.free, lo=lo, hi=hi, names=fp.names(v), sizes=scale)
     imprecise |= _derived_imprecise(imprecise, estimates)
     held = [_held(g, x0, x, scale=scale, m=m, cov=cov, names=fp.names(v)) for g in verdict.groups]
@@ -232,6 +221,33 @@ def _written(
         m = _map(x0, scale, Verdict(free=kept, groups=[]))
         x = m.x(_solve(fm, m, lo=bounds[0], hi=bounds[1], scale=scale))
     return written_coordinates(x0, x, kept), refit
+
+
+def _settled(
+    fm: regressor.ForceModel, logs: list[BenchLog], scale: np.ndarray, *, lo: np.ndarray, hi: np.ndarray
+) -> tuple[Verdict, _Map, np.ndarray]:
+    """The classification, its map and the fit in it: classified at the model's values, then again where
+    the fit landed (where the residual is the noise) until the classification stays (twice at most)."""
+    x0 = fm.x0
+    verdict = _verdict(fm, x0, scale, logs, lo=lo, hi=hi)
+    m = _map(x0, scale, verdict)
+    p = _solve(fm, m, lo=lo, hi=hi, scale=scale)
+    for _ in range(2):
+        again = _verdict(fm, m.x(p), scale, logs, lo=lo, hi=hi)
+        if again.free == verdict.free and [g.members for g in again.groups] == [g.members for g in verdict.groups]:
+            break
+        verdict = again
+        m = _map(x0, scale, verdict)
+        p = _solve(fm, m, lo=lo, hi=hi, scale=scale)
+    return verdict, m, p
+
+
+def _shown(x: np.ndarray, written: np.ndarray, kept: list[int]) -> np.ndarray:
+    """The coordinates the report prints: the values the file gets where it gets them (a refit's, where
+    there is one), the joint estimates elsewhere."""
+    out = x.copy()
+    out[kept] = written[kept]
+    return out
 
 
 def _written_with_bars(
