@@ -6,6 +6,7 @@ import dataclasses
 import hashlib
 import json
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
@@ -261,15 +262,26 @@ def _size_both(v: Vehicle, des: program.Design, *, ceiling: float = math.inf) ->
         if reserve in reserves:
             break
         reserves.add(reserve)
-        pairs.append(pair(_cap(v) - reserve))
+        if not _another(pairs, pair, _cap(v) - reserve):
+            break
     total = lambda p: p[0].total_bytes + p[1].total_bytes  # noqa: E731
     if all(total(p) > _cap(v) for p in pairs):
-        pairs.append(pair(0.0))  # fewest feed-forward bytes: fits whenever sizing = "bytes" would
+        _another(pairs, pair, 0.0)  # fewest feed-forward bytes: fits whenever sizing = "bytes" would
     within = [p for p in pairs if total(p) <= _cap(v)]
     return min(within, key=lambda p: (p[0].instructions, total(p))) if within else min(pairs, key=total)
 
 
 _RESIZE_ROUNDS = 4  # feed-forward re-sizings under a shrinking room before the cap is given up
+
+
+def _another(pairs: list[Any], pair: Callable[[float], Any], room: float) -> bool:
+    """Append the pair sized under `room`; False when nothing there costs less than the ceiling (the
+    pairs already found stay: one of them may fit the cap)."""
+    try:
+        pairs.append(pair(room))
+    except sizing.NotCheaper:
+        return False
+    return True
 
 
 def _cap(v: Vehicle) -> float:
