@@ -376,6 +376,14 @@ def _note(e: dict[str, Any], doc: dict[str, Any]) -> str:
         )
     if e["written"] and doc.get("refit_held"):
         note += "; value of a refit with the unwritten ones at the model's values (its move counted in +-)"
+    kept = doc.get("kept_breakaway_n")
+    if e["parameter"] == "friction.breakaway" and kept is not None:
+        return (
+            f"written as the new Coulomb force, {_fmt(kept)} N: the excess over it is not known from these logs "
+            "(the estimate adds the joint fit's)"
+            if e["written"]
+            else "not written: the model's breakaway stays, its excess over Coulomb not known from these logs"
+        )
     if e["imprecise"] is not None and rel is not None and rel <= identifiability.REL_TOL:
         note = (
             f"not written: the logs give it to +-{100 * rel:.2g} %, but holding the unwritten ones at the "

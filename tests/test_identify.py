@@ -394,6 +394,19 @@ def test_a_written_value_that_rests_on_held_ones_says_so():
     assert "held" not in alone
 
 
+def test_a_breakaway_raised_to_the_new_coulomb_force_is_not_called_unwritten():
+    """Review: Coulomb written, the excess too imprecise to write, the new Coulomb above the model's
+    breakaway: the file gets breakaway = Coulomb, but the row said "not written: known only to ..."."""
+    from kinetab.hil import fitreport
+
+    row = {"parameter": "friction.breakaway", "imprecise": 0.3, "on_bound": None, "estimate": 9.0}
+    row |= {"standard_error": 2.0, "measured_relative_error": None}
+    raised = fitreport._note(row | {"written": True}, {"written": "x.toml", "kept_breakaway_n": 7.5})
+    assert raised.startswith("written as the new Coulomb force, 7.5 N") and "not written" not in raised
+    kept = fitreport._note(row | {"written": False}, {"written": None, "kept_breakaway_n": 6.0})
+    assert kept.startswith("not written: the model's breakaway stays")
+
+
 @pytest.mark.slow  # a 4-log campaign of 8 s each, made in-process and fitted (~10 s)
 def test_values_written_beside_unwritten_ones_are_refitted_with_those_at_the_model_values():
     """Regression (a trial's hauler): with the efficiency known only to +-5.4 % and so not written, the
