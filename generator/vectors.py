@@ -82,8 +82,11 @@ def _edge_rows(hi: np.ndarray, edges: tuple[int, ...]) -> np.ndarray:
 
 
 def speed_edges(design: Any) -> tuple[int, ...]:
-    """Where the design's speed tables change piece (the deadband's and the Stribeck split's edges)."""
-    ends = {p.x1 for t in design.specs.values() if t.source == "speed" for p in t.pieces[:-1]}
+    """Where the design's speed tables change piece besides the deadband's edge (the Stribeck split), and
+    where a skid-steer's turning tables do, in speed-difference steps (_edge_rows' rows with the other
+    wheel at rest put the difference there)."""
+    sources = ("speed", interface.SPEED_DIFFERENCE)
+    ends = {p.x1 for t in design.specs.values() if t.source in sources for p in t.pieces[:-1]}
     return tuple(sorted(ends - {design.limits.deadband}))
 
 

@@ -385,6 +385,22 @@ def test_plans_on_a_slope_drive_straight_and_the_campaign_states_the_room_a_turn
     assert ahead == pytest.approx(radius, rel=0.01) and side == pytest.approx(radius, rel=0.01) and behind == 0
 
 
+def test_the_golden_vectors_sit_on_either_side_of_the_turning_tables_edge():
+    """Review: the golden vectors' fixed rows reached the speed tables' edges but not the skid-steer's
+    turning tables' (indexed by the difference of the wheel speeds): now a row on each side of it."""
+    fw = synthesis.synthesise(model.load(SKID_DEMO))
+    diff_edges = {
+        p.x1 for t in fw.design.specs.values() if t.source == interface.SPEED_DIFFERENCE for p in t.pieces[:-1]
+    }
+    assert diff_edges and diff_edges <= set(vectors.speed_edges(fw.design))
+    speed = [interface.FF_IN.columns.index(c) for c in interface.FF_IN.member("speed").columns]
+    rows = vectors.feedforward_table(fw, 0)[:, speed]
+    difference = rows[:, 0] - rows[:, 1]
+    for edge in diff_edges:
+        for value in (edge - 1, edge, edge + 1, -edge):
+            assert np.any(difference == value), value
+
+
 def test_campaign_text_says_what_the_plans_wheel_speeds_do():
     """Regression (a trial): CAMPAIGN.txt said every floor plan "turns and spins", also a short one whose
     wheel speeds were equal throughout. The words now follow the speeds: both signs at once is a spin."""
