@@ -283,6 +283,13 @@ def domain(piece: Piece) -> np.ndarray:
     return np.linspace(piece.x0, piece.x1, EXHAUSTIVE_POINTS).round().astype(np.int64)  # spacing > 1: distinct
 
 
+def sample_margin(xs: np.ndarray, values: np.ndarray) -> float:
+    """How much more than at the samples `xs` a difference of two functions can reach between them: at
+    most gap * (|f'| + |p'|), each slope taken as the steepest sampled one (so twice it)."""
+    gap = float(np.max(np.diff(xs)))
+    return gap * float(np.max(np.abs(np.diff(values)) / np.diff(xs))) * 2
+
+
 @dataclass(frozen=True)
 class PieceError:
     """Worst |table - function| over the piece's inputs, in target units, and its parts."""
@@ -305,12 +312,8 @@ def piece_error(
     real = _interp_real(spec, piece, data, xs, quantised=False) / 2.0**spec.frac_bits
     err = np.abs(got - exact)
     k = int(np.argmax(err))
-    margin = 0.0
     exhaustive = piece.span + 1 <= EXHAUSTIVE_POINTS
-    if not exhaustive:  # between samples the error can grow by at most gap * (|f'| + |p'|)
-        gap = float(np.max(np.diff(xs)))
-        slope = float(np.max(np.abs(np.diff(exact)) / np.diff(xs))) * 2
-        margin = gap * slope
+    margin = 0.0 if exhaustive else sample_margin(xs, exact)
     return PieceError(
         total=float(err[k]) + margin + piece.slack,
         interpolation=float(np.max(np.abs(real - exact))) + margin + piece.slack,

@@ -449,8 +449,7 @@ def _peak(piece: tb.Piece) -> float:
     values = np.abs(piece.func(xs))
     if len(xs) == piece.span + 1:
         return float(np.max(values))
-    slope = float(np.max(np.abs(np.diff(values)) / np.diff(xs)))
-    return float(np.max(values)) + float(np.max(np.diff(xs))) * slope * 2
+    return float(np.max(values)) + tb.sample_margin(xs, values)
 
 
 def _times(f: tb.Func, c: float) -> tb.Func:
