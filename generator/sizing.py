@@ -144,6 +144,11 @@ def search(
     return out, visited
 
 
+def _cost(pieces: list[PieceSizes], choice: list[int], goal: str) -> int:
+    """A choice's cost by the objective's goal."""
+    return sum(u.cost(c, goal) for u, c in zip(pieces, choice))
+
+
 def _all(u: PieceSizes) -> range:
     return range(len(u.cands.segments))
 
@@ -168,8 +173,8 @@ def _search(
             return None, visited
     start = _greedy(bound, pieces, budget, fixed, objective=objective, start=fewest)
     best["cost"] = objective.ceiling
-    if start is not None and sum(u.cost(c, goal) for u, c in zip(pieces, start)) < objective.ceiling:
-        best["cost"], best["choice"] = sum(u.cost(c, goal) for u, c in zip(pieces, start)) + 1, start
+    if start is not None and _cost(pieces, start, goal) < objective.ceiling:
+        best["cost"], best["choice"] = _cost(pieces, start, goal) + 1, start
 
     def dfs(k: int, choice: list[int], used: int, used_bytes: int) -> None:
         nonlocal visited
@@ -295,8 +300,8 @@ def _choose(
     if choice is None and objective != BYTES:
         choice, more = search(bound, pieces, budget, fixed, objective=BYTES)
         visited, over_cap = visited + more, choice is not None
-    cost = lambda ch: sum(u.cost(c, objective.goal) for u, c in zip(pieces, ch))  # noqa: E731
-    if objective.ceiling < float("inf") and (choice is None or cost(choice) >= objective.ceiling):
+    ceiling = objective.ceiling
+    if ceiling < float("inf") and (choice is None or _cost(pieces, choice, objective.goal) >= ceiling):
         raise NotCheaper(f"no sizing within the budget costs less than {objective.ceiling:g}")
     if choice is None:
         achievable, table = limiting_table(bound, pieces, fixed)
