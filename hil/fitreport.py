@@ -50,8 +50,9 @@ def checked_logs(
         if other and not accept_other_model:
             raise UserError(f"{other}; pass --accept-other-model to use it anyway")
         recorded = benchdata.side_file(p).get("rig") if rig is not None and read is None else None
-        overridden = f"{p}: taken as {rig} (--rig), though its run recorded {recorded}" if recorded != rig else ""
-        overridden = overridden if recorded is not None else ""
+        overridden = (
+            f"{p}: taken as {rig} (--rig), though its run recorded {recorded}" if recorded not in (None, rig) else ""
+        )
         beyond = _beyond_envelope(v, log) if read is None else ""
         for text in (other, short, overridden, beyond):
             if text:
