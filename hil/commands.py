@@ -176,6 +176,7 @@ def compare(
 
     v = model.load(model_path)
     if liftlog.is_lift_log(Path(log_path)):
+        _no_rig_for_lift("bench compare", rig)
         _lift_compare(
             v, Path(log_path), as_json=as_json, plot=plot_path, tolerance=tolerance, accept=accept_other_model
         )
@@ -195,6 +196,12 @@ def compare(
         raise CheckFailed(
             f"{log_path}: the model does not match the bench: RMS residual above {doc['tolerance_a'] * 1000:.1f} mA"
         )
+
+
+def _no_rig_for_lift(command: str, rig: str | None) -> None:
+    """--rig names where the wheels ran; a lift log has no wheels (review: it was ignored without a word)."""
+    if rig is not None:
+        raise UserError(f"{command}: --rig {rig} picks the wheels' rig; a lift log has none: leave it out")
 
 
 def _lift_compare(
@@ -250,6 +257,7 @@ def fit(
     if any(lifts):
         if not all(lifts):
             raise UserError("bench fit: give lift logs and drive logs in separate fits (they share no parameter)")
+        _no_rig_for_lift("bench fit", rig)
         fitreport.run_lift_fit(
             Path(model_path), [Path(p) for p in log_paths], target=target, as_json=as_json, accept=accept_other_model
         )

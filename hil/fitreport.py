@@ -65,20 +65,65 @@ def _beyond_envelope(v: Any, log: Any) -> str:
     """Where a drive log's setpoints pass the model's envelope (a log from another vehicle, accepted on
     purpose): a warning naming the limits, or "". Regression (a trial): a small vehicle's fit took a big
     one's logs at twenty times its payload with no word but the model name's."""
-    env, empty = v.envelope, np.zeros(0)
-    sp = lambda *names: np.abs(np.concatenate([np.ravel(log.setpoint.get(n, empty)) for n in names]))  # noqa: E731
-    limits = [
-        ("speed", "envelope.speed_max", "m/s", 1.0, sp("speed_right", "speed_left"), env.speed_max_mps),
-        ("payload", "payload.mass_max", "kg", 1.0, sp("payload_kg"), v.payload.mass_max_kg),
-        ("pitch", "envelope.pitch_max", "deg", 180 / np.pi, sp("pitch_rad"), env.pitch_max_rad),
-        ("roll", "envelope.roll_max", "deg", 180 / np.pi, sp("roll_rad"), env.roll_max_rad),
-    ]
     past = [
-        f"{what} {np.max(x) * k:.4g} {unit} > {key} {lim * k:.4g} {unit}"
-        for what, key, unit, k, x, lim in limits
-        if x.size and np.max(x) > lim * (1 + 1e-6) + 1e-12
+        f"{what} {worst * k:.4g} {unit} > {key} {limit * k:.4g} {unit}"
+        for what, key, unit, k, worst, limit, step in _envelope_rows(v, log)
+        if limit is not None and worst > limit * (1 + 1e-6) + step
     ]
     return f"{log.path}: the run went beyond this model's envelope ({'; '.join(past)})" if past else ""
+
+
+def _envelope_rows(v: Any, log: Any) -> list[tuple[str, str, str, float, float, float | None, float]]:
+    """(what, model key, unit, SI-to-unit factor, the log's largest |value|, the limit or None, the
+    firmware step it may pass the limit by) for every envelope limit: each wheel, P's forward motion and
+    the yaw (both from the wheel pair), payload, tilt. The step: the firmware's region rounds each limit
+    up to whole steps (region._in_steps), so a setpoint on its edge may be up to a step past the SI limit."""
+    env, sp, deg, fw = v.envelope, log.setpoint, 180 / np.pi, v.firmware
+
+    def most(x: Any) -> float:
+        return float(np.max(np.abs(x))) if np.size(x) else 0.0
+
+    def pair(name: str) -> tuple[np.ndarray, np.ndarray]:
+        empty = np.zeros(0)
+        return np.ravel(sp.get(f"{name}_right", empty)), np.ravel(sp.get(f"{name}_left", empty))
+
+    (ur, ul), (ar, al), track = pair("speed"), pair("accel"), v.wheels.track_m
+    du, da = fw.speed_lsb_mps, fw.accel_lsb_mps2
+    return [
+        ("speed", "envelope.speed_max", "m/s", 1.0, max(most(ur), most(ul)), env.speed_max_mps, du),
+        ("forward speed", "envelope.forward_speed_max", "m/s", 1.0, most((ur + ul) / 2), env.forward_speed_max_mps, du),
+        (
+            "yaw rate",
+            "envelope.yaw_rate_max",
+            "deg/s",
+            deg,
+            most((ur - ul) / track),
+            env.yaw_rate_max_radps,
+            2 * du / track,
+        ),
+        ("acceleration", "envelope.accel_max", "m/s^2", 1.0, max(most(ar), most(al)), env.accel_max_mps2, da),
+        (
+            "forward acceleration",
+            "envelope.forward_accel_max",
+            "m/s^2",
+            1.0,
+            most((ar + al) / 2),
+            env.forward_accel_max_mps2,
+            da,
+        ),
+        (
+            "yaw acceleration",
+            "envelope.yaw_accel_max",
+            "deg/s^2",
+            deg,
+            most((ar - al) / track),
+            env.yaw_accel_max_radps2,
+            2 * da / track,
+        ),
+        ("payload", "payload.mass_max", "kg", 1.0, most(sp.get("payload_kg", 0.0)), v.payload.mass_max_kg, 0.0),
+        ("pitch", "envelope.pitch_max", "deg", deg, most(sp.get("pitch_rad", 0.0)), env.pitch_max_rad, 0.0),
+        ("roll", "envelope.roll_max", "deg", deg, most(sp.get("roll_rad", 0.0)), env.roll_max_rad, 0.0),
+    ]
 
 
 def _digest(path: Path) -> str:

@@ -482,3 +482,28 @@ def test_an_accepted_log_from_beyond_the_models_envelope_is_named_in_a_warning(b
     assert f"speed {fastest:.4g} m/s > envelope.speed_max {speed_max:.4g} m/s)" in err, err
     code, out, err = run(["bench", "compare", str(path), str(log)], capsys)
     assert "beyond this model's envelope" not in err
+
+
+def test_an_accepted_log_past_the_body_frame_limits_is_named_in_a_warning(bench, tmp_path, capsys):
+    """Review: the envelope warning checked each wheel's speed, payload and tilt only. A model whose yaw
+    rate and forward acceleration limits (envelope keys) are two thirds of what the log did is named on
+    both; the yaw rate is (u_R - u_L)/track and P's acceleration (a_R + a_L)/2 (docs/physics.md)."""
+    import tomllib
+
+    _, path, log = bench
+    v = model.load(path)
+    ran = benchdata.read_log(log, None, v).setpoint
+    yaw = float(np.max(np.abs(ran["speed_right"] - ran["speed_left"]))) / v.wheels.track_m
+    forward_accel = float(np.max(np.abs(ran["accel_right"] + ran["accel_left"]))) / 2
+    assert yaw > 0 and forward_accel > 0
+    doc = tomllib.loads(path.read_text())
+    doc["envelope"]["yaw_rate_max"] = f"{2 * yaw / 3} rad/s"
+    doc["envelope"]["forward_accel_max"] = f"{2 * forward_accel / 3} m/s^2"
+    other = tmp_path / "narrow.toml"
+    other.write_text(to_toml(doc))
+    code, _, err = run(["bench", "compare", str(other), str(log), "--accept-other-model"], capsys)
+    assert code in (0, 1) and f"warning: {log}: the run went beyond this model's envelope (" in err, err
+    deg = 180 / np.pi
+    assert f"yaw rate {yaw * deg:.4g} deg/s > envelope.yaw_rate_max {2 * yaw / 3 * deg:.4g} deg/s" in err, err
+    assert f"forward acceleration {forward_accel:.4g} m/s^2 > envelope.forward_accel_max" in err, err
+    assert "> envelope.speed_max" not in err and "> envelope.accel_max" not in err

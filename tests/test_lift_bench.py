@@ -165,10 +165,12 @@ def test_cli_lift_loop_on_files(tmp_path, capsys):
             "--lift-payload",
         ),
         (["bench", "plan", str(model), "--axis", "lift", "--for-fit", "-o", str(tmp_path / "q.csv")], "--for-fit"),
+        (["bench", "compare", str(model), paths[0], "--rig", "wheels-up"], "a lift log has none"),
+        (["bench", "fit", str(model), *paths, "--rig", "on-floor", "--write", str(tmp_path / "q.toml")], "--rig"),
     ):
         code, out, err = run_cli(args, capsys)
         assert code == 2 and words in err and len(err.strip().splitlines()) == 1, (args, err)
-    assert not (tmp_path / "q.csv").exists()
+    assert not (tmp_path / "q.csv").exists() and not (tmp_path / "q.toml").exists()
 
 
 def vehicle_from_file(path):
