@@ -232,6 +232,12 @@ def _lift_compare(
 @click.option("--in-place", is_flag=True, help="Rewrite MODEL itself (comments, layout and units kept).")
 @click.option("--json", "as_json", is_flag=True, help="Print JSON instead of tables.")
 @click.option("--rig", type=RIG, help="Override the rig recorded in every LOG.json.")
+@click.option(
+    "--held-spread",
+    type=click.FloatRange(0, 100),
+    help="How far off (percent of each, one sigma) the values the logs leave open are taken to be; what they "
+    "would pull the fitted ones by is added to the error bars. Default 25.",
+)
 @ACCEPT_OTHER
 def fit(
     model_path: str,
@@ -240,6 +246,7 @@ def fit(
     in_place: bool,
     as_json: bool,
     rig: str | None,
+    held_spread: float | None,
     accept_other_model: bool,
 ) -> None:
     """One joint, bounded least-squares fit over the logs (wheels-up, on-floor at two payloads and on a
@@ -258,6 +265,10 @@ def fit(
         if not all(lifts):
             raise UserError("bench fit: give lift logs and drive logs in separate fits (they share no parameter)")
         _no_rig_for_lift("bench fit", rig)
+        if held_spread is not None:
+            raise UserError(
+                "bench fit: --held-spread is for drive logs (the lift fit adds no held values' spread): leave it out"
+            )
         fitreport.run_lift_fit(
             Path(model_path), [Path(p) for p in log_paths], target=target, as_json=as_json, accept=accept_other_model
         )
@@ -269,6 +280,7 @@ def fit(
         as_json=as_json,
         rig=rig,
         accept_other_model=accept_other_model,
+        held_spread=None if held_spread is None else held_spread / 100,
     )
 
 

@@ -156,19 +156,23 @@ def run_fit(
     as_json: bool,
     rig: str | None,
     accept_other_model: bool = False,
+    held_spread: float | None = None,
 ) -> None:
-    """Fit, report, and write `target` when given (nothing is written otherwise)."""
+    """Fit, report, and write `target` when given (nothing is written otherwise); `held_spread`: the
+    held values' assumed error, a fraction (identify.HELD_SPREAD when None)."""
     v = model.load(model_path)
     if target is not None:
         outputs.check_target(target)
     text = _model_text(model_path)
     logs = checked_logs(v, log_paths, rig=rig, accept_other_model=accept_other_model)
-    result = identify.fit(v, logs)
+    spread = identify.HELD_SPREAD if held_spread is None else held_spread
+    result = identify.fit(v, logs, held_spread=spread)
     changes = identify.model_changes(result)
     new_text, fitted = _edited(text, changes, target or model_path)
     (before, _), (after, failing) = _phase_rms(v, logs), _phase_rms(fitted, logs)
     doc = _document(result, changes, logs, before=before, after=after, target=target, units_of=_units(text))
     doc["compare_fails_after"] = failing
+    doc["held_spread"] = spread
     doc["written_envelope_problems"] = envelope.problems(fitted)
     doc["written_gate_problems"] = gate_problems(fitted) if changes else []
     for e in doc["estimates"]:
@@ -418,7 +422,7 @@ def _note(e: dict[str, Any], doc: dict[str, Any]) -> str:
     if e["written"] and rel is not None and total > identifiability.REL_TOL:
         note += (
             f"; rests on the held values: the logs give it to +-{100 * rel:.2g} %, +-{100 * total:.2g} % with what "
-            "they may be off by"
+            f"they may be off by (+-{100 * doc['held_spread']:.3g} % each, --held-spread)"
         )
     if e["written"] and doc.get("refit_held"):
         note += "; value of a refit with the unwritten ones at the model's values (its move counted in +-)"

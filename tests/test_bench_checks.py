@@ -79,6 +79,28 @@ def test_fit_without_write_is_a_dry_run(bench, capsys):
     assert sorted(p.name for p in folder.iterdir()) == listing and path.read_text() == text
 
 
+def test_the_held_values_assumed_spread_widens_only_what_rests_on_them(bench, capsys):
+    """--held-spread states how far off the values the logs leave open are taken to be (default 25 %,
+    JSON held_spread as a fraction). The held values' pull on the fitted ones is added as a variance
+    (identify._held_spread), so a standard error's square grows at most as the spread's square between
+    25 % and 50 %, and the values themselves do not move. A bad value is one line, exit 2."""
+    _, path, log = bench
+    docs = {}
+    for spread in (None, "50"):
+        extra = [] if spread is None else ["--held-spread", spread]
+        code, out, err = run(["bench", "fit", str(path), str(log), "--json", *extra], capsys)
+        assert code in (0, 1), err
+        docs[spread] = json.loads(out)
+    assert docs[None]["held_spread"] == 0.25 and docs["50"]["held_spread"] == 0.5
+    base = {e["parameter"]: e for e in docs[None]["estimates"]}
+    for e in docs["50"]["estimates"]:
+        was = base[e["parameter"]]
+        assert e["estimate"] == pytest.approx(was["estimate"], rel=1e-9), e["parameter"]
+        assert was["standard_error"] <= e["standard_error"] * (1 + 1e-9) <= 2 * was["standard_error"] * (1 + 1e-9)
+    code, _, err = run(["bench", "fit", str(path), str(log), "--held-spread", "-5"], capsys)
+    assert code == 2 and "--held-spread" in err and len(err.strip().splitlines()) == 1, err
+
+
 def test_a_log_from_another_model_is_refused_naming_both(bench, tmp_path, capsys):
     folder, path, log = bench
     other = tmp_path / "other.toml"
@@ -485,25 +507,51 @@ def test_an_accepted_log_from_beyond_the_models_envelope_is_named_in_a_warning(b
 
 
 def test_an_accepted_log_past_the_body_frame_limits_is_named_in_a_warning(bench, tmp_path, capsys):
-    """Review: the envelope warning checked each wheel's speed, payload and tilt only. A model whose yaw
-    rate and forward acceleration limits (envelope keys) are two thirds of what the log did is named on
-    both; the yaw rate is (u_R - u_L)/track and P's acceleration (a_R + a_L)/2 (docs/physics.md)."""
+    """Review: the envelope warning checked each wheel's speed, payload and tilt only. A model whose
+    forward speed and acceleration limits (envelope keys) are two thirds of what the log did is named on
+    both: P's speed is (u_R + u_L)/2 and its acceleration (a_R + a_L)/2 (docs/physics.md)."""
     import tomllib
 
     _, path, log = bench
     v = model.load(path)
     ran = benchdata.read_log(log, None, v).setpoint
-    yaw = float(np.max(np.abs(ran["speed_right"] - ran["speed_left"]))) / v.wheels.track_m
+    forward = float(np.max(np.abs(ran["speed_right"] + ran["speed_left"]))) / 2
     forward_accel = float(np.max(np.abs(ran["accel_right"] + ran["accel_left"]))) / 2
-    assert yaw > 0 and forward_accel > 0
+    assert forward > 0 and forward_accel > 0
     doc = tomllib.loads(path.read_text())
-    doc["envelope"]["yaw_rate_max"] = f"{2 * yaw / 3} rad/s"
+    doc["envelope"]["forward_speed_max"] = f"{2 * forward / 3} m/s"
     doc["envelope"]["forward_accel_max"] = f"{2 * forward_accel / 3} m/s^2"
     other = tmp_path / "narrow.toml"
     other.write_text(to_toml(doc))
     code, _, err = run(["bench", "compare", str(other), str(log), "--accept-other-model"], capsys)
     assert code in (0, 1) and f"warning: {log}: the run went beyond this model's envelope (" in err, err
-    deg = 180 / np.pi
-    assert f"yaw rate {yaw * deg:.4g} deg/s > envelope.yaw_rate_max {2 * yaw / 3 * deg:.4g} deg/s" in err, err
+    assert f"forward speed {forward:.4g} m/s > envelope.forward_speed_max {2 * forward / 3:.4g} m/s" in err, err
     assert f"forward acceleration {forward_accel:.4g} m/s^2 > envelope.forward_accel_max" in err, err
     assert "> envelope.speed_max" not in err and "> envelope.accel_max" not in err
+
+
+def test_a_turn_past_the_yaw_limits_is_named_and_one_inside_them_is_not(bench):
+    """The yaw rate is (u_R - u_L)/track and the yaw acceleration (a_R - a_L)/track (docs/physics.md):
+    a spin at 1.5 times the model's yaw limits is named on both, in deg/s and deg/s^2; the same spin at
+    half of them is not."""
+    import dataclasses
+    from types import SimpleNamespace
+
+    from kinetab.hil import fitreport
+
+    _, path, _ = bench
+    v = model.load(path)
+    track = v.wheels.track_m
+    rate, accel = v.envelope.speed_max_mps / track, v.envelope.accel_max_mps2 / track  # half the wheels' spin
+    env = dataclasses.replace(v.envelope, yaw_rate_max_radps=rate, yaw_accel_max_radps2=accel)
+    v = dataclasses.replace(v, envelope=env)
+    deg = 180 / np.pi
+    for k, named in ((1.5, True), (0.5, False)):
+        u, a = k * rate * track / 2, k * accel * track / 2  # each wheel, opposite ways
+        sp = {"speed_right": np.array([0, u]), "speed_left": np.array([0, -u])}
+        sp |= {"accel_right": np.array([a, 0]), "accel_left": np.array([-a, 0])}
+        assert u < v.envelope.speed_max_mps and a < v.envelope.accel_max_mps2  # only the yaw limits
+        text = fitreport._beyond_envelope(v, SimpleNamespace(path="spin.csv", setpoint=sp))
+        assert (f"yaw rate {k * rate * deg:.4g} deg/s > envelope.yaw_rate_max {rate * deg:.4g} deg/s" in text) == named
+        assert (f"yaw acceleration {k * accel * deg:.4g} deg/s^2 > envelope.yaw_accel_max" in text) == named
+        assert (text == "") != named, text

@@ -383,13 +383,14 @@ def test_breakaway_is_kept_and_stribeck_not_written_when_the_excess_is_not_known
 
 def test_a_written_value_that_rests_on_held_ones_says_so():
     """The report's note for a written estimate whose +-2 sigma is mostly the held values' assumed spread
-    names both sizes; one known from the logs alone gets no such note."""
+    names both sizes and the spread assumed (--held-spread); one known from the logs alone gets no such note."""
     from kinetab.hil import fitreport
 
-    doc = {"written": None}
+    doc = {"written": None, "held_spread": 0.3}
     row = {"parameter": "body.mass", "written": True, "imprecise": None, "on_bound": None, "estimate": 100.0}
     rests = fitreport._note(row | {"standard_error": 10.0, "measured_relative_error": 0.002}, doc)
     assert "rests on the held values" in rests and "+-0.2 %" in rests and "+-10 %" in rests
+    assert "(+-30 % each, --held-spread)" in rests
     alone = fitreport._note(row | {"standard_error": 0.2, "measured_relative_error": 0.002}, doc)
     assert "held" not in alone
 
