@@ -159,46 +159,35 @@ def _split(v: Vehicle, *, flat: bool = False, ceiling: float = math.inf) -> Firm
 
 
 def _plain(v: Vehicle, *, flat: bool = False, ceiling: float = math.inf) -> Firmware:
-    """Of the designs without the split that meet the budget within firmware.table_bytes_max, the one
-    with the fewest lookup instructions then bytes (fewest bytes when sizing minimises them); each later
-    design is sized only under the best one's instructions (sizing.Objective.ceiling). Over the cap only
-    when none fits it: then the fewest bytes. Regression (invented vehicle 3, int32, cap 1510): the first
-    design to meet the budget was taken though over the cap, where the exact one fitted in 1324 bytes
-    with fewer instructions. CheckFailed (with the levers) when none meets the budget; sizing.NotCheaper
-    when none that does costs less than `ceiling` (sizing's cost units)."""
-    tries, by_bytes = _designs(v, flat=flat), v.firmware.sizing != "instructions"
-    best: Firmware | None = None
+    """The first design without the split, fastest arithmetic first (_designs), that meets the budget
+    within firmware.table_bytes_max; over the cap only when none fits it: then the first that meets it.
+    Regression (invented vehicle 3, int32, cap 1510): the first to meet the budget was taken though over
+    the cap, where the exact one fitted in 1324 bytes. CheckFailed (with the levers) when none meets the
+    budget; sizing.NotCheaper when none that does costs less than `ceiling` (sizing's cost units)."""
+    tries = _designs(v, flat=flat)
     over: list[Firmware] = []
     for k, des in enumerate(tries):
         last = k == len(tries) - 1
-        limit = ceiling if best is None or by_bytes else min(ceiling, _tie(best))
-        explain = last and best is None and not over and not flat and ceiling == math.inf
+        explain = last and not over and not flat and ceiling == math.inf
         try:
-            fw = _synthesise(v, des, explain=explain, ceiling=limit)
+            fw = _synthesise(v, des, explain=explain, ceiling=ceiling)
         except (CheckFailed, sizing.NotCheaper):
-            if last and best is None and not over:
+            if last and not over:
                 raise
             continue
-        if fw.over_cap:
-            over += [] if des.coarse else [fw]  # coarse tables only where they fit the cap
-        elif best is None or _rank(fw, by_bytes) < _rank(best, by_bytes):
-            best = fw
-    chosen = best if best is not None else min(over, key=lambda f: f.total_bytes)
-    if not chosen.design.exact or any(not f.design.exact for f in [*over, best] if f is not None):
-        return chosen
+        if not fw.over_cap:
+            return _with_rounded_best(v, fw, met=over, alone=len(tries) == 1)
+        over += [] if des.coarse else [fw]  # coarse tables only where they fit the cap
+    return _with_rounded_best(v, over[0], met=over[1:], alone=len(tries) == 1)  # none fits: the fastest, as before
+
+
+def _with_rounded_best(v: Vehicle, fw: Firmware, *, met: list[Firmware], alone: bool) -> Firmware:
+    """An exact design that alone meets the budget carries the rounded designs' best bound (the report
+    says how far they fell short)."""
+    if not fw.design.exact or alone or any(not f.design.exact for f in met):
+        return fw
     rounded = min(best_bound_a(v, exact=False), best_bound_a(v, exact=False, coarse=True))
-    return dataclasses.replace(chosen, rounded_best_a=rounded)
-
-
-def _tie(fw: Firmware) -> float:
-    """The sizing cost just above `fw`'s lookup instructions with its table bytes: answers under it have
-    fewer instructions, or as many in fewer bytes than all of `fw`'s tables."""
-    return fw.instructions * sizing.INSTRUCTION_WEIGHT + fw.total_bytes
-
-
-def _rank(fw: Firmware, by_bytes: bool) -> tuple[int, int]:
-    """The order designs are chosen in: lookup instructions then bytes, or bytes then instructions."""
-    return (fw.total_bytes, fw.instructions) if by_bytes else (fw.instructions, fw.total_bytes)
+    return dataclasses.replace(fw, rounded_best_a=rounded)
 
 
 def _same(a: program.Design, b: program.Design) -> bool:

@@ -80,8 +80,7 @@ def _envelope_rows(v: Any, log: Any) -> list[tuple[str, str, str, float, float, 
     up to whole steps (region._in_steps), so a setpoint on its edge may be up to a step past the SI limit."""
     env, sp, deg, fw = v.envelope, log.setpoint, 180 / np.pi, v.firmware
 
-    def most(x: Any) -> float:
-        return float(np.max(np.abs(x))) if np.size(x) else 0.0
+    most = lambda x: float(np.max(np.abs(x))) if np.size(x) else 0.0  # noqa: E731
 
     def pair(name: str) -> tuple[np.ndarray, np.ndarray]:
         empty = np.zeros(0)
