@@ -19,7 +19,10 @@ import numpy as np
 from . import fitparams as fp
 
 REL_TOL = 0.05  # a direction known to worse than 5 % (one standard error) of its size is not determined
-NUMERIC_TOL = 1e-9  # singular values below this fraction of the largest are zero
+NUMERIC_TOL = 1e-7  # singular values below this fraction of the largest are zero. They come from the
+# eigenvalues of X^T X, whose rounding is about eps times the largest, so an exact null reads as up to
+# sqrt(eps) ~ 1.5e-8 (measured 5e-9 to 2e-8 on the flat scale of a fit without a payload; at 1e-9 it
+# read as known, its HAC error 0/0 ~ 0, and mass, Coulomb and both efficiencies were held together)
 NULL_SE = 1e6  # the standard error given to a numerically null direction
 TANGLED = REL_TOL / 3  # a coordinate whose standard error from a weak direction passes this is in its group
 NULL_LOADING = 0.05  # a loading on a null direction that makes a coordinate part of its group
@@ -114,7 +117,10 @@ def classify(gram: np.ndarray, omega: np.ndarray) -> Verdict:
         if not weak.any():
             break
         null = vecs[:, weak]
-        capped = np.minimum(se[weak], NULL_SE)
+        is_null = s[weak] <= NUMERIC_TOL * max(float(s.max()), 1e-300)
+        # a numerically null direction is unknown whatever its HAC error: exact nulls in the scores give
+        # 0/0 there (a flat scale, currents compared in their own terms, read as known: no scale held)
+        capped = np.where(is_null, NULL_SE, np.minimum(se[weak], NULL_SE))
         share = (null**2) @ capped**2  # each coordinate's variance from the weak directions
         scale_side = [k for k, j in enumerate(cand) if fp.NAMES[j] in fp.MEASURED_SIDE and share[k] > REL_TOL**2]
         if scale_side:  # hold the motoring efficiency (the datasheet's number) first: it sets the scale
@@ -122,7 +128,6 @@ def classify(gram: np.ndarray, omega: np.ndarray) -> Verdict:
             groups.append(Group((cand[k],), np.zeros((1, 0)), "scale"))
             cand.pop(k)
             continue
-        is_null = s[weak] <= NUMERIC_TOL * max(float(s.max()), 1e-300)
         sets = [_members(null[:, q], float(capped[q]), bool(is_null[q])) for q in range(null.shape[1])]
         sets = [m or {int(np.argmax(np.abs(null[:, q])))} for q, m in enumerate(sets)]
         involved = sorted(set().union(*sets))

@@ -329,10 +329,13 @@ def test_in_process_bench_logs_fit_within_three_percent_on_a_short_campaign():
 @pytest.mark.slow
 def test_two_sigma_intervals_cover_the_truth_in_ninety_percent_of_twenty_campaigns():
     """Twenty campaigns of the same random vehicle and truth (ten coordinates 10-30 % off, both
-    efficiencies among them), each with its own current noise and encoder phase: per coordinate, the
-    +-2 sigma interval covers the truth in at least 17 of 20. The goal is 90 % and this vehicle measured
-    90-100 % per coordinate (README); the test asks 85 % so that floating-point differences between
-    machines cannot flip a borderline case."""
+    efficiencies among them), each with its own current noise and encoder phase. Judged against the
+    normal distribution (a +-2 sigma interval holds 95 %, a fact of statistics): over all coordinates
+    at least 90 % of the intervals hold the truth, each coordinate at least 15 of 20 (a calibrated
+    interval misses that often once in about 300), and no coordinate's scatter over the twenty exceeds
+    1.5 times its mean printed standard error (error bars too small for the scatter are the failure
+    this guards). Measured: 205 of 220, 16-20 per coordinate, scatter 0.77-1.12 of the error bar. The
+    old 17 of 20 per coordinate failed calibrated bars by chance (the yaw inertia: 16)."""
     v, rng, design = identifiable_vehicle(21, duration_s=20)
     truth, x_true = changed(v, rng, fp.NAMES[:10])
     batch, logs = 20, [[] for _ in range(20)]
@@ -342,13 +345,16 @@ def test_two_sigma_intervals_cover_the_truth_in_ninety_percent_of_twenty_campaig
         made = run_plan(v, truth, plan, rig=c.rig, feedforward=c.rig == "on-floor", noise_a=noise, batch=batch, seed=k)
         for b in range(batch):
             logs[b].append(made[b])
-    covered = dict.fromkeys(fp.NAMES, 0)
+    found: dict[str, list[tuple[float, float]]] = {name: [] for name in fp.NAMES}
     for b in range(batch):
         result = identify.fit(v, logs[b])
         for name in fp.NAMES:
-            e = result.estimates[name]
-            covered[name] += abs(e.estimate - x_true[fp.INDEX[name]]) <= 2 * e.se
-    assert all(n >= 17 for n in covered.values()), str(covered)
+            found[name].append((result.estimates[name].estimate, result.estimates[name].se))
+    covered = {n: sum(abs(e - x_true[fp.INDEX[n]]) <= 2 * se for e, se in rows) for n, rows in found.items()}
+    assert sum(covered.values()) >= 0.9 * batch * len(fp.NAMES) and min(covered.values()) >= 15, str(covered)
+    for name, rows in found.items():
+        est, se = np.array(rows).T
+        assert np.std(est, ddof=1) <= 1.5 * np.mean(se), (name, np.std(est, ddof=1), np.mean(se))
 
 
 def test_a_wheel_sticking_at_the_deadband_edge_is_left_out_though_its_filtered_speed_is_outside():
@@ -416,8 +422,8 @@ def test_values_written_beside_unwritten_ones_are_refitted_with_those_at_the_mod
     written values are those of a refit with the unwritten coordinates at the model's values: the written
     model's residual is the least over what the file may change, so never above the joint estimates
     written beside the kept values, nor above the model's own."""
-    v, rng, design = identifiable_vehicle(14, duration_s=8)
-    truth, _ = changed(v, rng, fp.NAMES[:10])
+    v, rng, design = identifiable_vehicle(28, duration_s=8)  # a draw that leaves two imprecise (vehicle 14 did
+    truth, _ = changed(v, rng, fp.NAMES[:10])  # before the fit compared currents; now none there)
     logs = campaign_logs(v, truth, design, duration_s=8, noise_of_limit=0.08)
     result = identify.fit(v, logs)
     assert result.refit_held, "the draw should leave a coordinate too imprecise to write"
@@ -443,7 +449,7 @@ def test_the_report_shows_what_the_file_gets_with_error_bars_that_cover_the_trut
     standard errors of the truth (the refit's move from the joint estimate counted); the old code wrote
     one 3.2 printed standard errors off, printed as another value."""
     checked = 0
-    for seed in (16,):
+    for seed in (28,):  # a draw with a refit (vehicle 16 had one before the fit compared currents)
         v, rng, design = identifiable_vehicle(seed, duration_s=8)
         truth, x_true = changed(v, rng, fp.NAMES[:10])
         result = identify.fit(v, campaign_logs(v, truth, design, duration_s=8, noise_of_limit=0.08))
