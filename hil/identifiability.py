@@ -122,7 +122,10 @@ def classify(gram: np.ndarray, omega: np.ndarray) -> Verdict:
         # 0/0 there (a flat scale, currents compared in their own terms, read as known: no scale held)
         capped = np.where(is_null, NULL_SE, np.minimum(se[weak], NULL_SE))
         share = (null**2) @ capped**2  # each coordinate's variance from the weak directions
-        scale_side = [k for k, j in enumerate(cand) if fp.NAMES[j] in fp.MEASURED_SIDE and share[k] > REL_TOL**2]
+        # tangled as a group member would be (TANGLED): the scale is not exactly flat where mass and the
+        # rolling resistances multiply, so it can be merely weak, and a member's share of a weak
+        # direction's error is below REL_TOL (a board's logs held mass, Coulomb and both efficiencies)
+        scale_side = [k for k, j in enumerate(cand) if fp.NAMES[j] in fp.MEASURED_SIDE and share[k] > TANGLED**2]
         if scale_side:  # hold the motoring efficiency (the datasheet's number) first: it sets the scale
             k = min(scale_side, key=lambda k: fp.MEASURED_SIDE.index(fp.NAMES[cand[k]]))
             groups.append(Group((cand[k],), np.zeros((1, 0)), "scale"))
