@@ -154,10 +154,18 @@ def _solve(fm: regressor.ForceModel, m: _Map, *, lo: np.ndarray, hi: np.ndarray,
     return np.asarray(result.x)
 
 
-def fit(v: Vehicle, logs: list[BenchLog], *, held_spread: float | None = None) -> Fit:
+HELD_SPREAD = 0.25
+"""Held coordinates are taken as good to 25 % of their size (one standard deviation; `bench fit
+--held-spread`): an assumption, not a measurement, since the logs cannot check them; what a held value
+would pull the fitted ones by is added to their covariance (zero where holding it cannot bias them).
+Friction, rolling resistance and inertia from handbooks or CAD are seldom better (common practice).
+Regression (a trial, truths 10-30 % off in every coordinate, 48 short campaigns): at 10 %, 12 % of
+estimates were more than 2 sigma off, masses and efficiencies up to 4.7 sigma, all pulled by held ones."""
+
+
+def fit(v: Vehicle, logs: list[BenchLog], *, held_spread: float = HELD_SPREAD) -> Fit:
     """The joint fit over the logs (see the module docstring); `held_spread`: how far off the held
-    values are taken to be, a fraction of each (HELD_SPREAD when None)."""
-    held_spread = HELD_SPREAD if held_spread is None else held_spread
+    values are taken to be, a fraction of each."""
     data = regressor.rows(v, logs)
     fm = regressor.force_model(v, data)
     x0, (lo, hi) = fm.x0, fp.bounds(v)
@@ -421,15 +429,6 @@ def _unseen(main: regressor.ForceModel, other: regressor.ForceModel, x: np.ndarr
 
     mine, theirs = info(main), info(other)
     return [j for j in free if mine[j] > 0 and theirs[j] < UNSEEN * mine[j]]
-
-
-HELD_SPREAD = 0.25
-"""Held coordinates are taken as good to 25 % of their size (one standard deviation; `bench fit
---held-spread`): an assumption, not a measurement, since the logs cannot check them; what a held value
-would pull the fitted ones by is added to their covariance (zero where holding it cannot bias them).
-Friction, rolling resistance and inertia from handbooks or CAD are seldom better (common practice).
-Regression (a trial, truths 10-30 % off in every coordinate, 48 short campaigns): at 10 %, 12 % of
-estimates were more than 2 sigma off, masses and efficiencies up to 4.7 sigma, all pulled by held ones."""
 
 
 def _held_spread(jp: np.ndarray, j: np.ndarray, scale: np.ndarray, verdict: Verdict) -> np.ndarray:

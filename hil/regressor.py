@@ -97,10 +97,10 @@ def rows(v: Vehicle, logs: list[BenchLog], *, cutoff_hz: float = CUTOFF_HZ) -> R
     """Filter every log alike and stack both wheels; rows whose window holds an invalid sample are dropped.
 
     The measured current is split by the direction of power flow before filtering (the split is not
-    linear; each part is). The direction is the filtered measured current's: the raw current's sign,
-    judged sample by sample, let the noise choose which rows near zero current were kept (a window
-    holding both signs is dropped), so kept rows carried noise away from zero. Regression (a trial, noise
-    5 % of the current limit, 4 x 10 s logs): masses 4.6-5.6 sigma off in every noise draw alike.
+    linear; each part is). The direction is the filtered current's: the raw sign let the noise choose
+    which rows near zero current were kept (a window holding both signs is dropped). Regression (a trial,
+    noise 5 % of the limit, 4 x 10 s logs): with ForceModel.residual's old form, a mass 4.6-5.6 sigma off
+    in every draw alike; this alone brought two vehicles' masses within 3.1 sigma.
     Rows are weighted 0 where the window crosses a friction kink or a change of direction."""
     parts: list[list[np.ndarray]] = [[] for _ in range(6)]
     ops, how = [], []
@@ -247,7 +247,8 @@ class ForceModel:
         return np.asarray((self.measured.sum(axis=1) - self.force(x) / self._efficiency(x)) * self.data.weight)
 
     def _efficiency(self, x: np.ndarray) -> np.ndarray:
-        """Per row, the coordinate the measured force is divided by: back-driving rows the factor."""
+        """Per row, the coordinate the model's force is divided by: the motoring efficiency, or on
+        back-driving rows the back-driving factor."""
         return np.where(self._back, x[9], x[8])
 
     @property
@@ -259,6 +260,7 @@ class ForceModel:
         """d(residual)/dx, (n, 11)."""
         d = x[:8] - self.x0[:8]
         j = np.empty((len(self.f0), len(fp.NAMES)))
+        j[:, 8:10] = 0.0  # set below; not left as garbage for the division (it overflowed: RuntimeWarnings)
         j[:, :8] = -self.cols
         j[:, 0] -= self.cross @ d[6:8]
         j[:, 6:8] -= self.cross * d[0]
