@@ -7,6 +7,7 @@ where the Stribeck dip has faded) and a symmetry: odd and even tables store |x| 
 
 from __future__ import annotations
 
+import hashlib
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from enum import Enum
@@ -334,7 +335,37 @@ class Candidates:
 KEEP_RATIO = 0.9  # a larger size is a candidate only if it cuts the worst error by 10 % or more
 
 
+_CANDIDATES: dict[tuple[object, ...], Candidates] = {}
+CANDIDATES_KEPT = 256  # memo entries (oldest dropped first): a synthesis needs a few dozen
+
+
 def piece_candidates(spec: TableSpec, piece: Piece) -> Candidates:
+    """piece_candidates_of, remembered: synthesis sizes the same piece (new objects, the same function)
+    in every design and layout it tries (on the demo, 104 calls for 27 distinct pieces)."""
+    key = _candidates_key(spec, piece)
+    if key is None:
+        return piece_candidates_of(spec, piece)
+    if key not in _CANDIDATES:
+        if len(_CANDIDATES) >= CANDIDATES_KEPT:
+            del _CANDIDATES[next(iter(_CANDIDATES))]
+        _CANDIDATES[key] = piece_candidates_of(spec, piece)
+    out = _CANDIDATES[key]
+    return Candidates(segments=list(out.segments), errors=list(out.errors), data=list(out.data))
+
+
+def _candidates_key(spec: TableSpec, piece: Piece) -> tuple[object, ...] | None:
+    """All the candidates depend on: the format, the piece's ends and slack, and the function's values at
+    every input a breakpoint may sit on (its digest); None (no memo) for a piece too long to evaluate so."""
+    end = extended_end(piece)
+    if end - piece.x0 + 1 > EXHAUSTIVE_POINTS:
+        return None
+    values = np.ascontiguousarray(piece.func(np.arange(piece.x0, end + 1, dtype=np.int64)))
+    digest = hashlib.blake2b(values.tobytes(), digest_size=16).digest()
+    where = (spec.name, spec.si_scale, spec.si_unit)  # named in build_piece's error
+    return (*where, spec.frac_bits, spec.bits, piece.x0, piece.x1, piece.slack, values.dtype.str, digest)
+
+
+def piece_candidates_of(spec: TableSpec, piece: Piece) -> Candidates:
     """Every useful size: each kept one is at least 10 % more accurate than the cheaper ones, or the
     direct table (one entry per input), whose lookup costs fewer instructions than interpolation."""
     out = Candidates()
