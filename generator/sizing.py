@@ -158,7 +158,7 @@ def _search(
 ) -> tuple[list[int] | None, int]:
     goal, cap = objective.goal, objective.bytes_max
     best_err = [u.error(len(u.cands.segments) - 1) for u in pieces]
-    lowest = _lowest_feasible(bound, pieces, budget, fixed, best_err=best_err)
+    lowest = _lowest_feasible(bound, pieces, budget, fixed)
     if lowest is None:
         return None, 0
     # per unit, its feasible candidates cheapest first (with bytes, cost grows with the segment count)
@@ -207,15 +207,15 @@ def _suffix(values: list[int]) -> list[int]:
 
 
 def _lowest_feasible(
-    bound: Bound, pieces: list[PieceSizes], budget: float, fixed: Mapping[str, float], *, best_err: list[float]
+    bound: Bound, pieces: list[PieceSizes], budget: float, fixed: Mapping[str, float]
 ) -> list[int] | None:
     """Per unit, its cheapest candidate that meets the budget with every other unit most accurate:
     no cheaper candidate can be part of any answer."""
     out = []
+    most_accurate = [len(u.cands.segments) - 1 for u in pieces]
+    bounds = _each_unit(bound, pieces, most_accurate, fixed, padded=_padded_errors(pieces))
     for k, u in enumerate(pieces):
-        errs = np.array([e.total for e in u.cands.errors])
-        trial = best_err[:k] + [errs] + best_err[k + 1 :]
-        ok = np.flatnonzero(np.broadcast_to(bound(_merge(pieces, trial, fixed)), errs.shape) <= budget)
+        ok = np.flatnonzero(bounds[k, : len(u.cands.errors)] <= budget)
         if ok.size == 0:
             return None
         out.append(int(ok[0]))
