@@ -176,21 +176,25 @@ def _search(
     if start is not None and _cost(pieces, start, goal) < objective.ceiling:
         best["cost"], best["choice"] = _cost(pieces, start, goal) + 1, start
 
-    def dfs(k: int, choice: list[int], used: int, used_bytes: int) -> None:
+    errs = [np.array([e.total for e in u.cands.errors]) for u in pieces]
+    costs = [[u.cost(c, goal) for c in _all(u)] for u in pieces]
+    sizes = [[u.bytes(c) for c in _all(u)] for u in pieces]
+    choice = [0] * len(pieces)  # the path's candidate indices: entry k is set before going below k
+
+    def dfs(k: int, chosen: list[float], used: int, used_bytes: int) -> None:
+        """The cheapest answers below the units chosen so far (`chosen`: their errors)."""
         nonlocal visited
         visited += 1
         if k == len(pieces):
             best["cost"], best["choice"] = used, list(choice)
             return
-        u = pieces[k]
-        errs = np.array([e.total for e in u.cands.errors])
-        trial = [pieces[j].error(c) for j, c in enumerate(choice)] + [errs] + best_err[k + 1 :]
-        bounds = _each(bound(_merge(pieces, trial, fixed)), errs.shape)
+        bounds = _each(bound(_merge(pieces, [*chosen, errs[k], *best_err[k + 1 :]], fixed)), errs[k].shape)
         for c in orders[k]:
-            if used + u.cost(c, goal) + rest_cost[k + 1] >= best["cost"]:
+            if used + costs[k][c] + rest_cost[k + 1] >= best["cost"]:
                 break
-            if bounds[c] <= budget and used_bytes + u.bytes(c) + rest_bytes[k + 1] <= cap:
-                dfs(k + 1, choice + [c], used + u.cost(c, goal), used_bytes + u.bytes(c))
+            if bounds[c] <= budget and used_bytes + sizes[k][c] + rest_bytes[k + 1] <= cap:
+                choice[k] = c
+                dfs(k + 1, [*chosen, float(errs[k][c])], used + costs[k][c], used_bytes + sizes[k][c])
 
     dfs(0, [], 0, 0)
     return best["choice"], visited
