@@ -71,11 +71,14 @@ _HASH_FACTOR = np.uint64(0x9E3779B97F4A7C15)  # odd: a row's columns mixed into 
 def _distinct(rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """The distinct rows and where each row's copy is among them (rows == distinct[back]), so each is
     evaluated once: the rows are independent, and the second batch repeats three in four on the demo.
-    Rows found by a 64-bit key, checked row by row; two rows alike by key: all rows, none merged."""
-    key = np.zeros(len(rows), dtype=np.uint64)
-    for column in rows.T:
-        key = key * _HASH_FACTOR + column.astype(np.uint64)  # wraps modulo 2^64, as meant
-    _, first, back = np.unique(key, return_index=True, return_inverse=True)
+    Integer rows found by a 64-bit key, checked row by row; two rows alike by key: all rows, none merged."""
+    if rows.dtype.kind != "i" or not len(rows):
+        return rows, np.arange(len(rows))
+    powers = _HASH_FACTOR ** np.arange(rows.shape[1], dtype=np.uint64)
+    key = rows.astype(np.uint64) @ powers  # sum of column j times factor^j, modulo 2^64 (wraps, as meant)
+    _, back = np.unique(key, return_inverse=True)
+    first = np.empty(back.max() + 1, dtype=np.intp)
+    first[back] = np.arange(len(rows))  # a row of each key (which one does not matter once checked)
     distinct = rows[first]
     if not np.array_equal(distinct[back], rows):
         return rows, np.arange(len(rows))
