@@ -92,12 +92,6 @@ def _moved(rows: np.ndarray, column: int) -> np.ndarray:
     return out
 
 
-def _joined(a: _Evaluated, b: _Evaluated) -> _Evaluated:
-    return _Evaluated(
-        *(np.concatenate([x, y]) for x, y in zip((a.rows, a.firmware, a.model), (b.rows, b.firmware, b.model)))
-    )
-
-
 def _jumps(fw: Firmware, here: _Evaluated, up: _Evaluated) -> tuple[np.ndarray, np.ndarray]:
     """Per row and wheel, the firmware's current change (A) from `here` to `up` (the rows with one input
     moved up one step), and that change less the model's own (motoring efficiency); zero where the
@@ -145,18 +139,18 @@ def neighbour_steps(fw: Firmware) -> dict[str, NeighbourStep]:
     base = np.concatenate([interface.fields_to_rows(st, envelope_points(fw, NEIGHBOUR_POINTS, 11)), edges])
     columns = [(m, st.columns.index(c)) for m in st.members for c in m.columns]
     here, *firsts = _batch(fw, [base, *[_moved(base, j) for _, j in columns]])
-    extras = []
-    for (m, j), up in zip(columns, firsts):
-        jump, excess = _jumps(fw, here, up)
+    extras, at_base = [], [_jumps(fw, here, up) for up in firsts]
+    for (m, j), (jump, excess) in zip(columns, at_base):
         places = {int(base[int(np.argmax(jump)), j]), int(base[int(np.argmax(excess)), j])}
         places |= set(_speed_places(fw, m.name)) if m.name in SPEED_INPUTS else set()
         extras.append(np.concatenate([np.where(np.arange(len(st.columns)) == j, p, edges) for p in places]))
     done = _batch(fw, [*extras, *[_moved(x, j) for x, (_, j) in zip(extras, columns)]])
     at_extras, seconds = done[: len(extras)], done[len(extras) :]
     out: dict[str, NeighbourStep] = {}
-    for (m, j), first, ex, second in zip(columns, firsts, at_extras, seconds):
+    for (m, j), (jump, excess), ex, second in zip(columns, at_base, at_extras, seconds):
         rows = np.concatenate([base, ex.rows])
-        jump, excess = _jumps(fw, _joined(here, ex), _joined(first, second))
+        more_jump, more_excess = _jumps(fw, ex, second)  # rows apart: the base's were found above
+        jump, excess = np.concatenate([jump, more_jump]), np.concatenate([excess, more_excess])
         a, e = int(np.argmax(jump)), int(np.argmax(excess))
         best = out.get(m.name, NeighbourStep(amps=0.0, at=0))
         out[m.name] = NeighbourStep(
