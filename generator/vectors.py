@@ -72,7 +72,7 @@ def _edge_rows(hi: np.ndarray, edges: tuple[int, ...]) -> np.ndarray:
     opposite speed, at rest or alike, at half payload: where a speed table changes piece."""
     cols = FF_IN.columns
     speed = [cols.index(c) for c in FF_IN.member("speed").columns]
-    values = np.unique([s * (e + d) for e in edges for d in (-1, 0, 1) for s in (-1, 1)])
+    values = sorted({s * (e + d) for e in edges for d in (-1, 0, 1) for s in (-1, 1)})  # not np.unique: steps._edges
     pairs = [(x, y) for x in values for y in (-x, 0, x)]
     rows = np.zeros((2 * len(pairs), len(cols)), dtype=np.int64)
     for k, (x, y) in enumerate(pairs):
