@@ -216,8 +216,9 @@ def _lowest_feasible(
     """Per unit, its cheapest candidate that meets the budget with every other unit most accurate:
     no cheaper candidate can be part of any answer."""
     out = []
-    most_accurate = [len(u.cands.segments) - 1 for u in pieces]
-    bounds = _each_unit(bound, pieces, most_accurate, fixed, padded=_padded_errors(pieces))
+    padded = _padded_errors(pieces)
+    trial = [_trial(pieces, k, len(u.cands.segments) - 1, padded=padded) for k, u in enumerate(pieces)]
+    bounds = _each_unit(bound, pieces, trial, fixed)
     for k, u in enumerate(pieces):
         ok = np.flatnonzero(bounds[k, : len(u.cands.errors)] <= budget)
         if ok.size == 0:
@@ -245,23 +246,25 @@ def _greedy(
     if float(bound(_merge(pieces, [u.error(c) for u, c in zip(pieces, choice)], fixed))) > budget:
         return None
     costs = [[u.cost(c, goal) for c in _all(u)] for u in pieces]
+    sizes = [[u.bytes(c) for c in _all(u)] for u in pieces]
     by_cost = [sorted(_all(u), key=cost.__getitem__) for u, cost in zip(pieces, costs)]
     padded = _padded_errors(pieces)
+    trial = [_trial(pieces, k, choice[k], padded=padded) for k in range(len(pieces))]
     while True:
         moves = []
-        total = sum(u.bytes(c) for u, c in zip(pieces, choice))
-        bounds = _each_unit(bound, pieces, choice, fixed, padded=padded)
-        for j, u in enumerate(pieces):
-            now = costs[j][choice[j]]
-            for c in (c for c in by_cost[j] if costs[j][c] < now):
-                fits = total - u.bytes(choice[j]) + u.bytes(c) <= max(objective.bytes_max, total)
+        total = sum(size[c] for size, c in zip(sizes, choice))
+        bounds = _each_unit(bound, pieces, trial, fixed)
+        for j, (cost, size) in enumerate(zip(costs, sizes)):
+            now = cost[choice[j]]
+            for c in (c for c in by_cost[j] if cost[c] < now):
+                fits = total - size[choice[j]] + size[c] <= max(objective.bytes_max, total)
                 if fits and bounds[j, c] <= budget:
-                    moves.append((now - costs[j][c], j, c))
+                    moves.append((now - cost[c], j, c))
                     break  # the cheapest feasible change of this unit
         if not moves:
             break
         _, j, c = max(moves)
-        choice[j] = c
+        choice[j], trial[j] = c, _trial(pieces, j, c, padded=padded)
     return choice if sum(u.bytes(c) for u, c in zip(pieces, choice)) <= objective.bytes_max else None
 
 
@@ -271,14 +274,19 @@ def _padded_errors(pieces: list[PieceSizes]) -> list[np.ndarray]:
     return [np.array([u.error(min(c, len(u.cands.errors) - 1)) for c in range(width)]) for u in pieces]
 
 
+def _trial(pieces: list[PieceSizes], k: int, c: int, *, padded: list[np.ndarray]) -> np.ndarray:
+    """Unit k's errors for _each_unit: all its candidates in row k, its candidate c in the other rows."""
+    return np.where(np.arange(len(pieces))[:, None] == k, padded[k], pieces[k].error(c))
+
+
 def _each_unit(
-    bound: Bound, pieces: list[PieceSizes], choice: list[int], fixed: Mapping[str, float], *, padded: list[np.ndarray]
+    bound: Bound, pieces: list[PieceSizes], trial: list[np.ndarray], fixed: Mapping[str, float]
 ) -> np.ndarray:
-    """Row j: the bound with unit j at each of its candidates (columns), the others as chosen; all rows
-    in one broadcast call (elementwise, so each value is the one a call per unit gives, ~13x fewer calls)."""
-    rows = np.arange(len(pieces))[:, None]
-    trial = [np.where(rows == k, padded[k], u.error(choice[k])) for k, u in enumerate(pieces)]
-    return np.broadcast_to(bound(_merge(pieces, trial, fixed)), (len(pieces), len(padded[0]) if padded else 0))
+    """Row j: the bound with unit j at each of its candidates (columns), the others as chosen (`trial`:
+    _trial per unit); all rows in one broadcast call (elementwise, so each value is the one a call per
+    unit gives, ~13x fewer calls)."""
+    shape = np.shape(trial[0]) if trial else (0, 0)
+    return np.broadcast_to(bound(_merge(pieces, trial, fixed)), shape)
 
 
 def limiting_table(bound: Bound, pieces: list[PieceSizes], fixed: Mapping[str, float]) -> tuple[float, str]:
