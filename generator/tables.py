@@ -336,7 +336,7 @@ KEEP_RATIO = 0.9  # a larger size is a candidate only if it cuts the worst error
 
 
 _CANDIDATES: dict[tuple[object, ...], Candidates] = {}
-CANDIDATES_KEPT = 256  # memo entries (oldest dropped first): a synthesis needs a few dozen
+CANDIDATES_KEPT = 64  # memo entries (oldest dropped first): a synthesis needs a few dozen (the demo 27)
 
 
 def piece_candidates(spec: TableSpec, piece: Piece) -> Candidates:
