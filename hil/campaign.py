@@ -85,7 +85,8 @@ def planned_rows(v: Vehicle, plan: Plan, rig: str, *, noise_a: float = 0.0) -> r
     right, left = dynamics.rig_wheel_forces(v, op, rig)
     n = len(plan)
     parts, weight = [], []
-    half = max(1, int(round(0.75 / (regressor.CUTOFF_HZ * float(plan.columns["t"][1] - plan.columns["t"][0])))))
+    dt = float(plan.columns["t"][1] - plan.columns["t"][0])
+    half = max(1, int(round(0.75 / (regressor.cutoff_for(dt) * dt))))
     turning = regressor.turn_kinked(v, np.asarray(si["speed_right"] - si["speed_left"], float), half)
     for speed, side in ((si["speed_right"], right), (si["speed_left"], left)):
         force = np.broadcast_to(side.total, (n,))
