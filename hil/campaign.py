@@ -76,17 +76,21 @@ def plan_for(v: Vehicle, c: Candidate, *, duration_s: float, period_s: float) ->
     )
 
 
-def planned_rows(v: Vehicle, plan: Plan, rig: str, *, noise_a: float = 0.0) -> regressor.Rows:
+def planned_rows(
+    v: Vehicle, plan: Plan, rig: str, *, noise_a: float = 0.0, log_period_s: float | None = None
+) -> regressor.Rows:
     """The fit's rows for a planned motion as `v` would produce it (the motion itself, the model's force),
     weighted 0 where the fit would leave them out: near a friction (or turning-resistance) kink, or where
-    the current is within three times the noise of zero (its direction of power flow would be unsure)."""
+    the current is within three times the noise of zero (its direction of power flow would be unsure).
+    The fit's filter is the one for logs every log_period_s (regressor.cutoff_for; default: the plan's
+    own period, which a coarse assessment plan does not share with the logs)."""
     si = plan.si()
     op = dynamics.OperatingPoint(**si)
     right, left = dynamics.rig_wheel_forces(v, op, rig)
     n = len(plan)
     parts, weight = [], []
     dt = float(plan.columns["t"][1] - plan.columns["t"][0])
-    half = max(1, int(round(0.75 / (regressor.cutoff_for(dt) * dt))))
+    half = max(1, int(round(0.75 / (regressor.cutoff_for(log_period_s or dt) * dt))))
     turning = regressor.turn_kinked(v, np.asarray(si["speed_right"] - si["speed_left"], float), half)
     for speed, side in ((si["speed_right"], right), (si["speed_left"], left)):
         force = np.broadcast_to(side.total, (n,))
@@ -105,14 +109,23 @@ def planned_rows(v: Vehicle, plan: Plan, rig: str, *, noise_a: float = 0.0) -> r
     )
 
 
-def information(v: Vehicle, c: Candidate, *, duration_s: float, period_s: float, noise_a: float) -> np.ndarray | None:
-    """X^T X of the scaled regressor a log of this kind adds (at the model's coordinates); None when the
+def information(
+    v: Vehicle,
+    c: Candidate,
+    *,
+    duration_s: float,
+    period_s: float,
+    noise_a: float,
+    log_period_s: float | None = None,
+) -> np.ndarray | None:
+    """X^T X of the scaled regressor a log of this kind adds (at the model's coordinates), as if sampled
+    every period_s; the fit filters as for logs every log_period_s (default period_s). None when the
     vehicle cannot run such a plan (the drive's current is not enough, say, loaded on the ramp)."""
     try:
         plan = plan_for(v, c, duration_s=duration_s, period_s=ASSESS_PERIOD_S)
     except UserError:
         return None
-    fm = regressor.force_model(v, planned_rows(v, plan, c.rig, noise_a=noise_a))
+    fm = regressor.force_model(v, planned_rows(v, plan, c.rig, noise_a=noise_a, log_period_s=log_period_s or period_s))
     js = fm.jacobian(fm.x0) * fp.scales(v, fm.x0)
     return np.asarray(js.T @ js * (ASSESS_PERIOD_S / period_s))
 
@@ -162,7 +175,9 @@ def informations(
     out = {}
     for c in candidates(v):
         if c not in present:
-            g = information(v, c, duration_s=20.0, period_s=0.001 * 20.0 / duration_s, noise_a=noise_a)
+            g = information(
+                v, c, duration_s=20.0, period_s=0.001 * 20.0 / duration_s, noise_a=noise_a, log_period_s=0.001
+            )
             if g is not None:
                 out[c] = g
     return out
