@@ -232,19 +232,20 @@ def accelerations(v: Vehicle, log: BenchLog) -> tuple[np.ndarray, str]:
     )
 
 
-def derivative(log: BenchLog, speed_lsb: float) -> np.ndarray:
-    """Rim accelerations (n, 2) as the Savitzky-Golay derivative of the measured speeds (quadratic, 0.1 s),
-    taken back to whole encoder counts first where they are a rounded count lattice (countlattice.py)."""
+def derivative(log: BenchLog, speed_lsb: float, window_s: float = SG_WINDOW_S) -> np.ndarray:
+    """Rim accelerations (n, 2) as the Savitzky-Golay derivative of the measured speeds (quadratic, over
+    window_s), taken back to whole encoder counts first where they are a rounded count lattice
+    (countlattice.py)."""
     from scipy.signal import savgol_filter  # here: scipy.signal takes ~0.5 s to load
 
-    window, dt = _window(log)
+    window, dt = _window(log, window_s)
     speed = countlattice.on_counts(log.speed, speed_lsb)
     return np.asarray(savgol_filter(speed, window, 2, deriv=1, delta=dt, axis=0))
 
 
-def _window(log: BenchLog) -> tuple[int, float]:
+def _window(log: BenchLog, window_s: float = SG_WINDOW_S) -> tuple[int, float]:
     dt = float(np.median(np.diff(log.t)))
-    return max(5, int(round(SG_WINDOW_S / dt)) | 1), dt
+    return max(5, int(round(window_s / dt)) | 1), dt
 
 
 def smoothed_speed(log: BenchLog, speed_lsb: float) -> np.ndarray:

@@ -67,6 +67,12 @@ SPEED_SAMPLES = 9
 blend edges inside it, where the model steps or bends)."""
 
 
+DERIVATIVE_WINDOWS_S = (benchdata.SG_WINDOW_S, benchdata.SG_WINDOW_S / 2, benchdata.SG_WINDOW_S / 4)
+"""The Savitzky-Golay windows whose derivatives of the measured speeds bound the acceleration with the
+setpoint's: where the acceleration itself changes fast (a wheel that does not track, a light wheel
+lifted), the longer window lags it and the shorter follows."""
+
+
 @dataclass(frozen=True)
 class Band:
     """The model's current over the measured motion's uncertainty (n, 2), A, and that uncertainty."""
@@ -79,14 +85,15 @@ class Band:
 def band(v: Vehicle, log: BenchLog, rig: str, *, smooth: np.ndarray) -> Band:
     """The lowest and highest model current per row and wheel over the motion the log allows: speeds within
     twice the RMS scatter of the measured speeds about their smoothed curve (encoder quantisation), and
-    accelerations anywhere between the setpoint's and the derivative of the measured speeds. The current
+    accelerations anywhere between the setpoint's and the derivatives of the measured speeds over each of
+    DERIVATIVE_WINDOWS_S. The current
     is monotone in the accelerations (the mass matrix is positive, the efficiency factor positive), so
     their ends suffice; in speed the model bends and steps (Stribeck, deadband, blend), so it is sampled.
     `smooth`: benchdata.smoothed_speed(log, speed_lsb), made once by the caller."""
     margin = 2 * np.sqrt(np.mean((log.speed - smooth)[log.valid] ** 2, axis=0)) if log.valid.any() else np.zeros(2)
     sp_acc = np.column_stack([log.setpoint["accel_right"], log.setpoint["accel_left"]])
-    measured_acc = benchdata.derivative(log, v.firmware.speed_lsb_mps)
-    acc_lo, acc_hi = np.minimum(sp_acc, measured_acc), np.maximum(sp_acc, measured_acc)
+    measured = [benchdata.derivative(log, v.firmware.speed_lsb_mps, w) for w in DERIVATIVE_WINDOWS_S]
+    acc_lo, acc_hi = np.minimum.reduce([sp_acc, *measured]), np.maximum.reduce([sp_acc, *measured])
     low = np.full(smooth.shape, np.inf)
     high = np.full(smooth.shape, -np.inf)
     for offset in _speed_offsets(v, smooth, margin):
