@@ -78,7 +78,7 @@ def test_each_filter_variant_cuts_where_it_says_at_any_log_period(dt):
     three different filters whose cutoffs are where they say. A 2nd-order Butterworth run forward and
     backward passes 1/2 of the amplitude at its cutoff and 1/(1 + (f/fc)^4) at f, prewarped (textbook
     Butterworth response). Regression: at 50 ms all three were clipped to one filter at 0.9 x Nyquist, so
-    the spread read as 0 (estimates 13 % beyond 2 sigma on invented vehicles, against 7 % now)."""
+    the spread read as 0 (estimates 20 % beyond 2 sigma on eight invented vehicles, against 7 % now)."""
     cutoffs = [regressor.cutoff_for(dt, c) for c in (regressor.CUTOFF_HZ, *regressor.OTHER_CUTOFFS_HZ)]
     assert len(set(cutoffs)) == 3
     if dt <= 0.005:  # fine logs keep the cutoffs the fit was tuned with
