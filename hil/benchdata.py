@@ -244,8 +244,16 @@ def derivative(log: BenchLog, speed_lsb: float, window_s: float = SG_WINDOW_S) -
 
 
 def _window(log: BenchLog, window_s: float = SG_WINDOW_S) -> tuple[int, float]:
+    """The Savitzky-Golay window over window_s in samples (odd, at least 5, at most the log: a short log
+    of a fine period would otherwise be shorter than its window) and the sample period, s."""
     dt = float(np.median(np.diff(log.t)))
-    return max(5, int(round(window_s / dt)) | 1), dt
+    longest = len(log) if len(log) % 2 else len(log) - 1
+    return max(5, min(int(round(window_s / dt)) | 1, longest)), dt
+
+
+def window_samples(log: BenchLog, window_s: float) -> int:
+    """Samples of the Savitzky-Golay window over window_s for this log (_window)."""
+    return _window(log, window_s)[0]
 
 
 def smoothed_speed(log: BenchLog, speed_lsb: float) -> np.ndarray:

@@ -70,7 +70,10 @@ blend edges inside it, where the model steps or bends)."""
 DERIVATIVE_WINDOWS_S = (benchdata.SG_WINDOW_S, benchdata.SG_WINDOW_S / 2, benchdata.SG_WINDOW_S / 4)
 """The Savitzky-Golay windows whose derivatives of the measured speeds bound the acceleration with the
 setpoint's: where the acceleration itself changes fast (a wheel that does not track, a light wheel
-lifted), the longer window lags it and the shorter follows."""
+lifted), the longer window lags it and the shorter follows (_accel_range)."""
+FAST_SIGMAS = 3.0
+"""A shorter window's derivative joins the band where it departs from the 0.1 s one by more than this
+many of its own scatter about it: beyond the noise, so the acceleration really changed fast there."""
 
 
 @dataclass(frozen=True)
@@ -92,8 +95,7 @@ def band(v: Vehicle, log: BenchLog, rig: str, *, smooth: np.ndarray) -> Band:
     `smooth`: benchdata.smoothed_speed(log, speed_lsb), made once by the caller."""
     margin = 2 * np.sqrt(np.mean((log.speed - smooth)[log.valid] ** 2, axis=0)) if log.valid.any() else np.zeros(2)
     sp_acc = np.column_stack([log.setpoint["accel_right"], log.setpoint["accel_left"]])
-    measured = [benchdata.derivative(log, v.firmware.speed_lsb_mps, w) for w in DERIVATIVE_WINDOWS_S]
-    acc_lo, acc_hi = np.minimum.reduce([sp_acc, *measured]), np.maximum.reduce([sp_acc, *measured])
+    acc_lo, acc_hi = _accel_range(v, log, sp_acc)
     low = np.full(smooth.shape, np.inf)
     high = np.full(smooth.shape, -np.inf)
     for offset in _speed_offsets(v, smooth, margin):
@@ -103,6 +105,26 @@ def band(v: Vehicle, log: BenchLog, rig: str, *, smooth: np.ndarray) -> Band:
             cur = benchdata.predicted_current(v, benchdata.operating_point(log, speed=speed, accel=acc), rig)
             low, high = np.minimum(low, cur), np.maximum(high, cur)
     return Band(low=low, high=high, speed_margin_mps=margin)
+
+
+def _accel_range(v: Vehicle, log: BenchLog, sp_acc: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Per row and wheel, the lowest and highest acceleration (m/s^2) the log allows: the setpoint's and
+    the 0.1 s derivative of the measured speeds; a shorter window's only where it departs from the long
+    one by more than FAST_SIGMAS of its own scatter about it (robust: 1.4826 x the median absolute
+    deviation), so its noise does not widen the band where the acceleration changes slowly."""
+    lsb = v.firmware.speed_lsb_mps
+    windows = {benchdata.window_samples(log, w): w for w in reversed(DERIVATIVE_WINDOWS_S)}  # coarse logs: fewer
+    long = benchdata.derivative(log, lsb, DERIVATIVE_WINDOWS_S[0])
+    lo, hi = np.minimum(sp_acc, long), np.maximum(sp_acc, long)
+    for w in windows.values():
+        if w == DERIVATIVE_WINDOWS_S[0]:
+            continue
+        short = benchdata.derivative(log, lsb, w)
+        d = short - long
+        scatter = 1.4826 * np.median(np.abs(d - np.median(d, axis=0)), axis=0)
+        fast = np.abs(d) > FAST_SIGMAS * scatter
+        lo, hi = np.where(fast, np.minimum(lo, short), lo), np.where(fast, np.maximum(hi, short), hi)
+    return lo, hi
 
 
 def _speed_offsets(v: Vehicle, smooth: np.ndarray, margin: np.ndarray) -> list[np.ndarray]:

@@ -37,7 +37,7 @@ def test_the_true_vehicle_passes_with_a_quiet_current_sensor(seed, rig, loaded):
     """20 mA of current noise, the log made by the very model compared: it must pass. Where a wheel's
     acceleration changes fast (a lifted wheel, a wheel that cannot follow its setpoint in a turn) the
     0.1 s derivative lagged it and the band missed: these failed at 1.25, 1.30 and 1.42 times the
-    tolerance; with the shorter windows (compare.DERIVATIVE_WINDOWS_S) 0.46, 0.24 and 0.68."""
+    tolerance; with the shorter windows where they depart (compare._accel_range) 0.50, 0.42 and 0.70."""
     _, v, _ = random_model(seed)
     payload = v.payload.mass_max_kg if loaded else 0.0
     plan = campaign.plan_for(v, campaign.Candidate(rig, payload, 0.0), duration_s=10, period_s=0.001)
