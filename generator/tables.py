@@ -348,7 +348,10 @@ def piece_candidates(spec: TableSpec, piece: Piece) -> Candidates:
     if key not in _CANDIDATES:
         if len(_CANDIDATES) >= CANDIDATES_KEPT:
             del _CANDIDATES[next(iter(_CANDIDATES))]
-        _CANDIDATES[key] = piece_candidates_of(spec, piece)
+        made = piece_candidates_of(spec, piece)
+        for data in made.data:  # shared by every later caller: read-only, so no one can spoil them
+            data.entries.flags.writeable = False
+        _CANDIDATES[key] = made
     out = _CANDIDATES[key]
     return Candidates(segments=list(out.segments), errors=list(out.errors), data=list(out.data))
 

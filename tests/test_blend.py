@@ -116,14 +116,3 @@ def test_blend_speed_is_zero_or_between_one_speed_step_and_speed_max():
             vehicle_from(doc)
         text = str(err.value)
         assert "drive.blend_speed" in text and "'0 m/s' (a switch)" in text and "\n" not in text
-
-
-def test_neighbour_rows_evaluated_once_each_and_never_merged_when_keys_collide(monkeypatch):
-    """steps._distinct: every row is some distinct row, each distinct row once; when two different rows
-    share a key (a factor of 0 keys by the first column alone), no row is merged."""
-    rows = np.array([[1, 2, 3], [4, 5, 6], [1, 2, 3], [-7, 5, 6], [4, 5, 6], [4, 5, -6]], dtype=np.int64)
-    distinct, back = steps._distinct(rows)
-    assert np.array_equal(distinct[back], rows) and len(distinct) == len(np.unique(rows, axis=0)) == 4
-    monkeypatch.setattr(steps, "_HASH_FACTOR", np.uint64(0))
-    distinct, back = steps._distinct(rows)
-    assert np.array_equal(distinct, rows) and np.array_equal(back, np.arange(len(rows)))
