@@ -88,8 +88,8 @@ class Band:
 def band(v: Vehicle, log: BenchLog, rig: str, *, smooth: np.ndarray) -> Band:
     """The lowest and highest model current per row and wheel over the motion the log allows: speeds within
     twice the RMS scatter of the measured speeds about their smoothed curve (encoder quantisation), and
-    accelerations anywhere between the setpoint's and the derivatives of the measured speeds over each of
-    DERIVATIVE_WINDOWS_S. The current
+    accelerations anywhere between the setpoint's and the derivatives of the measured speeds (_accel_range).
+    The current
     is monotone in the accelerations (the mass matrix is positive, the efficiency factor positive), so
     their ends suffice; in speed the model bends and steps (Stribeck, deadband, blend), so it is sampled.
     `smooth`: benchdata.smoothed_speed(log, speed_lsb), made once by the caller."""
@@ -113,12 +113,14 @@ def _accel_range(v: Vehicle, log: BenchLog, sp_acc: np.ndarray) -> tuple[np.ndar
     one by more than FAST_SIGMAS of its own scatter about it (robust: 1.4826 x the median absolute
     deviation), so its noise does not widen the band where the acceleration changes slowly."""
     lsb = v.firmware.speed_lsb_mps
-    windows = {benchdata.window_samples(log, w): w for w in reversed(DERIVATIVE_WINDOWS_S)}  # coarse logs: fewer
-    long = benchdata.derivative(log, lsb, DERIVATIVE_WINDOWS_S[0])
+    long_s, *shorter = DERIVATIVE_WINDOWS_S
+    long = benchdata.derivative(log, lsb, long_s)
     lo, hi = np.minimum(sp_acc, long), np.maximum(sp_acc, long)
-    for w in windows.values():
-        if w == DERIVATIVE_WINDOWS_S[0]:
+    seen = {benchdata.window_samples(log, long_s)}
+    for w in shorter:
+        if benchdata.window_samples(log, w) in seen:  # a coarse log: the same 5 samples again
             continue
+        seen.add(benchdata.window_samples(log, w))
         short = benchdata.derivative(log, lsb, w)
         d = short - long
         scatter = 1.4826 * np.median(np.abs(d - np.median(d, axis=0)), axis=0)
